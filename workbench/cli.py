@@ -1,0 +1,67 @@
+"""The ``workbench`` command line.
+
+``workbench`` with no arguments opens the window. Sub-commands live one per
+module in :mod:`workbench.commands`; see that package's docstring.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import pkgutil
+import sys
+
+from workbench import __version__
+from workbench.errors import EXIT_BAD_INPUT, EXIT_CANCELLED, InputError
+
+
+def _command_modules():
+    import workbench.commands as pkg
+
+    mods = []
+    for info in sorted(pkgutil.iter_modules(pkg.__path__), key=lambda i: i.name):
+        if info.name.startswith("_"):
+            continue
+        mod = importlib.import_module(f"workbench.commands.{info.name}")
+        if hasattr(mod, "NAME") and hasattr(mod, "run"):
+            mods.append(mod)
+    return mods
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="workbench",
+        description=(
+            "Test hidden-layer and output-layer activation choices on your own table "
+            "under repeated cross-validation. Run without a command to open the window."
+        ),
+    )
+    parser.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for mod in _command_modules():
+        p = sub.add_parser(mod.NAME, help=mod.HELP, description=mod.HELP)
+        mod.add_arguments(p)
+        p.set_defaults(_run=mod.run)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = sys.argv[1:] if argv is None else list(argv)
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        args = parser.parse_args(["open"])
+    try:
+        return int(args._run(args) or 0)
+    except InputError as exc:
+        print(f"workbench: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("workbench: cancelled", file=sys.stderr)
+        return EXIT_CANCELLED
+    except BrokenPipeError:
+        return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
