@@ -1,0 +1,491 @@
+"""ONNX conversion of fitted pipelines, including the project's own estimators.
+
+scikit-learn pipelines are converted with skl2onnx. skl2onnx knows scikit-learn's
+own steps (``ColumnTransformer``, ``SimpleImputer``, ``StandardScaler``,
+``OneHotEncoder``, ``MLPRegressor``, ``MLPClassifier``); this module registers
+converters (a shape calculator plus a converter) for the steps it does not know:
+
+- :class:`workbench.engine.NetRegressor` and :class:`workbench.engine.NetClassifier`,
+  for every hidden activation of :data:`workbench.activations.HIDDEN` and every
+  output head of :data:`workbench.activations.HEADS`;
+- the target scaler of :mod:`workbench.preprocessing` (predictions in user units);
+- the datetime-parts transformer of :mod:`workbench.preprocessing`.
+
+The network graph is the engine's forward pass written with standard ONNX
+operators (opset 17 or newer)::
+
+    a = X
+    for each hidden layer:  a = f(a @ W + b)
+    out = head(a @ W + b)
+
+Hidden activations map to ``Identity``, ``Sigmoid``, ``Tanh``, ``Relu``,
+``LeakyRelu``, ``Elu``, ``Selu``, ``Softplus``; GELU (exact erf form) is
+composed as ``0.5 * z * (1 + Erf(z / sqrt(2)))`` and SiLU as ``z * Sigmoid(z)``.
+Heads map to ``Identity``, ``Sigmoid``, ``Softmax``, ``Exp`` (after the same
+overflow clip as the engine), ``Relu`` and ``Softplus``.
+
+Tables are fed as one ONNX input per column (numeric columns as float tensors,
+text and category columns as string tensors, datetime columns as int64 seconds
+since 1970-01-01 UTC), each of shape ``[N, 1]``; :func:`onnx_feed` builds that
+feed from a DataFrame.
+
+References
+----------
+ONNX operator specification, https://onnx.ai/onnx/operators/ (opset 17):
+``Elu`` (alpha), ``Selu`` (alpha, gamma), ``LeakyRelu`` (alpha), ``Erf``, ``Softmax``.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+import numpy as np
+
+from workbench.activations import (
+    ELU_ALPHA,
+    LEAKY_SLOPE,
+    SELU_ALPHA,
+    SELU_LAMBDA,
+    resolve_hidden,
+)
+from workbench.errors import InputError
+
+#: the opset every export targets (the issue asks for 17 or newer)
+TARGET_OPSET = 17
+#: the ai.onnx.ml opset used with it (OneHotEncoder, Imputer, Scaler, ...)
+TARGET_ML_OPSET = 3
+
+_FLOAT = 1  # onnx.TensorProto.FLOAT
+_DOUBLE = 11  # onnx.TensorProto.DOUBLE
+_INT64 = 7
+_STRING = 8
+
+_registered = False
+
+
+# --------------------------------------------------------------------------- network spec
+
+
+def network_spec(est) -> dict:
+    """The pieces of a fitted multilayer network the ONNX graph needs.
+
+    Works for the project's engine (``activation`` may be one name or one per
+    hidden layer, ``out_activation_`` any registered head, ``leaky_slope``) and
+    for scikit-learn's ``MLPRegressor`` / ``MLPClassifier``.
+
+    Returns
+    -------
+    dict
+        ``coefs`` (list of arrays), ``intercepts``, ``hidden`` (one canonical
+        activation name per hidden layer), ``head`` (output activation name) and
+        ``slope`` (leaky ReLU slope).
+    """
+    coefs = [np.asarray(w) for w in est.coefs_]
+    intercepts = [np.asarray(b) for b in est.intercepts_]
+    n_hidden = len(coefs) - 1
+    act = est.activation
+    if isinstance(act, str):
+        hidden = [resolve_hidden(act)] * n_hidden
+    else:
+        hidden = [resolve_hidden(a) for a in act]
+        if len(hidden) == 1 and n_hidden != 1:
+            hidden = hidden * n_hidden
+        if len(hidden) != n_hidden:
+            raise ValueError(
+                f"{len(hidden)} activations given for {n_hidden} hidden layers")
+    head = str(est.out_activation_).lower()
+    slope = float(getattr(est, "leaky_slope", LEAKY_SLOPE))
+    return {"coefs": coefs, "intercepts": intercepts, "hidden": hidden, "head": head,
+            "slope": slope}
+
+
+# --------------------------------------------------------------------------- graph pieces
+
+
+class _Emitter:
+    """Small helper that writes nodes and constants into a skl2onnx container."""
+
+    def __init__(self, scope, container, proto_dtype):
+        self.scope = scope
+        self.container = container
+        self.dtype = proto_dtype
+        self.np_dtype = np.float64 if proto_dtype == _DOUBLE else np.float32
+
+    def name(self, hint: str) -> str:
+        return self.scope.get_unique_variable_name(hint)
+
+    def const(self, hint: str, value, dtype=None) -> str:
+        arr = np.asarray(value, dtype=self.np_dtype if dtype is None else dtype)
+        n = self.name(hint)
+        onnx_type = {np.dtype(np.float32): _FLOAT, np.dtype(np.float64): _DOUBLE,
+                     np.dtype(np.int64): _INT64}[arr.dtype]
+        self.container.add_initializer(n, onnx_type, list(arr.shape), arr.ravel().tolist())
+        return n
+
+    def node(self, op: str, inputs, hint: str | None = None, output: str | None = None,
+             domain: str = "", **attrs) -> str:
+        out = output or self.name(hint or op.lower())
+        kw = {"op_domain": domain} if domain else {}
+        self.container.add_node(op, list(inputs) if not isinstance(inputs, str) else [inputs],
+                                [out], name=self.scope.get_unique_operator_name(op),
+                                **kw, **attrs)
+        return out
+
+
+def _hidden(em: _Emitter, name: str, z: str, slope: float) -> str:
+    """Emit ``f(z)`` for hidden activation ``name``; returns the output name."""
+    if name == "identity":
+        return z
+    if name == "logistic":
+        return em.node("Sigmoid", [z])
+    if name == "tanh":
+        return em.node("Tanh", [z])
+    if name == "relu":
+        return em.node("Relu", [z])
+    if name == "leaky_relu":
+        return em.node("LeakyRelu", [z], alpha=float(slope))
+    if name == "elu":
+        return em.node("Elu", [z], alpha=float(ELU_ALPHA))
+    if name == "selu":
+        return em.node("Selu", [z], alpha=float(SELU_ALPHA), gamma=float(SELU_LAMBDA))
+    if name == "softplus":
+        return em.node("Softplus", [z])
+    if name == "gelu":
+        # Hendrycks & Gimpel (2016): z * Phi(z), Phi(z) = (1 + erf(z / sqrt 2)) / 2
+        scaled = em.node("Mul", [z, em.const("inv_sqrt2", 1.0 / math.sqrt(2.0))])
+        e = em.node("Erf", [scaled])
+        one_plus = em.node("Add", [e, em.const("one", 1.0)])
+        half_z = em.node("Mul", [z, em.const("half", 0.5)])
+        return em.node("Mul", [half_z, one_plus])
+    if name == "silu":
+        return em.node("Mul", [z, em.node("Sigmoid", [z])])
+    raise ValueError(f"no ONNX form for hidden activation {name!r}")
+
+
+def _head(em: _Emitter, name: str, z: str, output: str | None = None) -> str:
+    """Emit the output head ``name`` applied to ``z``."""
+    if name == "identity":
+        return em.node("Identity", [z], output=output)
+    if name == "logistic":
+        return em.node("Sigmoid", [z], output=output)
+    if name == "softmax":
+        return em.node("Softmax", [z], output=output, axis=1)
+    if name == "relu":
+        return em.node("Relu", [z], output=output)
+    if name == "softplus":
+        return em.node("Softplus", [z], output=output)
+    if name == "exp":
+        # the engine clips at log(max finite) - 1 so that e^z stays finite
+        hi = float(np.log(np.finfo(em.np_dtype).max) - 1.0)
+        clipped = em.node("Min", [z, em.const("exp_clip", hi)])
+        return em.node("Exp", [clipped], output=output)
+    raise ValueError(f"no ONNX form for output head {name!r}")
+
+
+def _forward(em: _Emitter, spec: dict, x: str, output: str | None = None) -> str:
+    a = em.node("Cast", [x], hint="net_input", to=em.dtype)
+    n = len(spec["coefs"])
+    for i, (w, b) in enumerate(zip(spec["coefs"], spec["intercepts"])):
+        wn = em.const(f"W{i}", w)
+        bn = em.const(f"b{i}", np.reshape(b, (1, -1)))
+        z = em.node("Add", [em.node("MatMul", [a, wn]), bn], hint=f"z{i}")
+        if i < n - 1:
+            a = _hidden(em, spec["hidden"][i], z, spec["slope"])
+        else:
+            return _head(em, spec["head"], z, output=output)
+    raise ValueError("a network needs at least one layer")  # pragma: no cover
+
+
+def _float_type(input_type):
+    from skl2onnx.common.data_types import DoubleTensorType, FloatTensorType
+
+    return DoubleTensorType if isinstance(input_type, DoubleTensorType) else FloatTensorType
+
+
+def _proto_dtype(input_type) -> int:
+    from skl2onnx.common.data_types import DoubleTensorType
+
+    return _DOUBLE if isinstance(input_type, DoubleTensorType) else _FLOAT
+
+
+# --------------------------------------------------------------------------- regressor
+
+
+def _net_regressor_shape(operator):
+    inp = operator.inputs[0]
+    n = inp.get_first_dimension()
+    n_out = int(np.asarray(operator.raw_operator.coefs_[-1]).shape[1])
+    operator.outputs[0].type = _float_type(inp.type)([n, n_out])
+
+
+def _net_regressor_convert(scope, operator, container):
+    em = _Emitter(scope, container, _proto_dtype(operator.inputs[0].type))
+    spec = network_spec(operator.raw_operator)
+    _forward(em, spec, operator.inputs[0].full_name, output=operator.outputs[0].full_name)
+
+
+# --------------------------------------------------------------------------- classifier
+
+
+def _label_kind(classes) -> str:
+    classes = np.asarray(classes)
+    if classes.dtype.kind in "iub":
+        return "int"
+    return "str"
+
+
+def _net_classifier_shape(operator):
+    from skl2onnx.common.data_types import Int64TensorType, StringTensorType
+
+    inp = operator.inputs[0]
+    n = inp.get_first_dimension()
+    classes = operator.raw_operator.classes_
+    label_t = Int64TensorType if _label_kind(classes) == "int" else StringTensorType
+    operator.outputs[0].type = label_t([n])
+    operator.outputs[1].type = _float_type(inp.type)([n, len(classes)])
+
+
+def _net_classifier_convert(scope, operator, container):
+    est = operator.raw_operator
+    em = _Emitter(scope, container, _proto_dtype(operator.inputs[0].type))
+    spec = network_spec(est)
+    classes = np.asarray(est.classes_)
+    proba_out = operator.outputs[1].full_name
+    width = spec["coefs"][-1].shape[1]
+    if width == 1:
+        # binary: one logistic unit gives P(classes_[1]); stack [1 - p, p]
+        p = _forward(em, spec, operator.inputs[0].full_name)
+        q = em.node("Sub", [em.const("one", 1.0), p])
+        em.node("Concat", [q, p], output=proba_out, axis=1)
+    else:
+        _forward(em, spec, operator.inputs[0].full_name, output=proba_out)
+    idx = em.node("ArgMax", [proba_out], axis=1, keepdims=0)
+    if _label_kind(classes) == "int":
+        table = em.const("classes", classes.astype(np.int64), dtype=np.int64)
+        em.node("Gather", [table, idx], output=operator.outputs[0].full_name, axis=0)
+    else:
+        n = em.name("classes")
+        container.add_initializer(n, _STRING, [len(classes)],
+                                  [str(c).encode("utf-8") for c in classes])
+        em.node("Gather", [n, idx], output=operator.outputs[0].full_name, axis=0)
+
+
+def _classifier_parser_for(alias: str):
+    """A skl2onnx parser declaring the classifier's outputs: label, then probabilities."""
+
+    def parse(scope, model, inputs, custom_parsers=None):
+        from skl2onnx.common.data_types import FloatTensorType, Int64TensorType
+
+        op = scope.declare_local_operator(alias, model)
+        op.inputs = inputs
+        op.outputs.append(scope.declare_local_variable("label", Int64TensorType()))
+        op.outputs.append(scope.declare_local_variable("probabilities", FloatTensorType()))
+        return op.outputs
+
+    return parse
+
+
+# --------------------------------------------------------------------------- registration
+
+
+def register_network_estimator(cls, task: str) -> None:
+    """Register an estimator class exposing the engine's fitted attributes.
+
+    Parameters
+    ----------
+    cls : type
+        A class whose fitted instances have ``coefs_``, ``intercepts_``,
+        ``activation``, ``out_activation_`` (and ``classes_`` for classifiers).
+    task : {"regression", "classification"}
+    """
+    from skl2onnx import update_registered_converter
+
+    alias = f"Workbench{cls.__name__}"
+    if task == "regression":
+        update_registered_converter(cls, alias, _net_regressor_shape, _net_regressor_convert)
+    elif task == "classification":
+        update_registered_converter(cls, alias, _net_classifier_shape, _net_classifier_convert,
+                                    parser=_classifier_parser_for(alias))
+    else:
+        raise ValueError(f"task must be 'regression' or 'classification', not {task!r}")
+
+
+def register_converters() -> None:
+    """Register the project's converters with skl2onnx (idempotent).
+
+    Registers the engine's estimators and the preprocessing module's target
+    scaler and datetime-parts transformer.
+    """
+    global _registered
+    if _registered:
+        return
+    from workbench.engine import NetClassifier, NetRegressor
+
+    register_network_estimator(NetRegressor, "regression")
+    register_network_estimator(NetClassifier, "classification")
+    _register_preprocessing()
+    _registered = True
+
+
+def _register_preprocessing() -> None:
+    """Converters for the steps of :mod:`workbench.preprocessing` skl2onnx lacks."""
+
+
+# --------------------------------------------------------------------------- whole pipelines
+
+
+def column_kinds(df) -> dict[str, str]:
+    """ONNX input kind per column: ``"float"``, ``"string"`` or ``"datetime"``."""
+    import pandas as pd
+
+    kinds = {}
+    for col in df.columns:
+        s = df[col]
+        if pd.api.types.is_datetime64_any_dtype(s):
+            kinds[str(col)] = "datetime"
+        elif pd.api.types.is_bool_dtype(s) or pd.api.types.is_numeric_dtype(s):
+            kinds[str(col)] = "float"
+        else:
+            kinds[str(col)] = "string"
+    return kinds
+
+
+def _initial_types(kinds: dict[str, str], dtype: str):
+    from skl2onnx.common.data_types import (
+        DoubleTensorType,
+        FloatTensorType,
+        Int64TensorType,
+        StringTensorType,
+    )
+
+    num = DoubleTensorType if dtype == "float64" else FloatTensorType
+    table = {"float": num, "string": StringTensorType, "datetime": Int64TensorType}
+    return [(name, table[k]([None, 1])) for name, k in kinds.items()]
+
+
+def pipeline_to_onnx(pipeline, X, *, dtype: str = "float32", opset: int = TARGET_OPSET,
+                     name: str = "workbench_pipeline"):
+    """Convert a fitted pipeline to an ONNX model.
+
+    Parameters
+    ----------
+    pipeline : sklearn Pipeline (or a single fitted estimator)
+        Preprocessing plus network; the last step may be a classifier, a
+        regressor or the target scaler wrapping one.
+    X : pandas.DataFrame
+        A few rows with the columns the pipeline was fitted on (their dtypes
+        decide the ONNX inputs).
+    dtype : {"float32", "float64"}
+        Numeric type of the graph.
+    opset : int
+        ONNX opset; at least 17.
+
+    Returns
+    -------
+    onnx.ModelProto
+        Inputs: one per column, ``[N, 1]``. Outputs: ``variable`` (predictions,
+        ``[N, n_outputs]``) for regressors; ``label`` and ``probabilities`` for
+        classifiers.
+    """
+    from skl2onnx import convert_sklearn
+
+    if opset < 17:
+        raise ValueError("ONNX exports use opset 17 or newer")
+    register_converters()
+    kinds = column_kinds(X)
+    options = {}
+    from sklearn.base import is_classifier
+
+    last = pipeline.steps[-1][1] if hasattr(pipeline, "steps") else pipeline
+    if is_classifier(last) and not _is_own(last):
+        options[id(last)] = {"zipmap": False}
+    model = convert_sklearn(pipeline, name=name, initial_types=_initial_types(kinds, dtype),
+                            target_opset={"": opset, "ai.onnx.ml": TARGET_ML_OPSET},
+                            options=options or None)
+    # skl2onnx turns column names into valid identifiers; record which graph
+    # input takes which column (in order) so that a reader can build the feed
+    import json
+
+    inputs = [i.name for i in model.graph.input]
+    columns = [{"column": c, "input": n, "kind": k} for (c, k), n in zip(kinds.items(), inputs)]
+    meta = model.metadata_props.add()
+    meta.key = "workbench.columns"
+    meta.value = json.dumps(columns)
+    return model
+
+
+def _is_own(est) -> bool:
+    return type(est).__module__.startswith("workbench.")
+
+
+def onnx_feed(df, columns: list[dict], dtype: str = "float32") -> dict[str, np.ndarray]:
+    """The onnxruntime input dict for ``df``: one ``[N, 1]`` array per column.
+
+    Numeric columns become float (missing values stay NaN, which the graph's
+    imputer handles); datetime columns become int64 seconds since the Unix
+    epoch (missing: the smallest int64); text columns become strings. ONNX
+    string tensors cannot hold a missing value, so a missing text value is sent
+    as ``""``, which the exported string imputer treats as missing.
+    """
+    import pandas as pd
+
+    num = np.float64 if dtype == "float64" else np.float32
+    missing = [c["column"] for c in columns if c["column"] not in df.columns]
+    if missing:
+        raise InputError(f"the table lacks column(s) the model needs: "
+                         f"{', '.join(map(repr, missing))}")
+    feed = {}
+    for col in columns:
+        kind = col["kind"]
+        s = df[col["column"]]
+        if kind == "float":
+            arr = pd.to_numeric(s, errors="coerce").to_numpy(dtype=num, na_value=np.nan)
+        elif kind == "datetime":
+            t = pd.to_datetime(s, errors="coerce")
+            if getattr(t.dt, "tz", None) is not None:
+                t = t.dt.tz_convert("UTC").dt.tz_localize(None)
+            secs = (t - pd.Timestamp("1970-01-01")) // pd.Timedelta(seconds=1)
+            arr = secs.fillna(np.iinfo(np.int64).min).to_numpy(dtype=np.int64)
+        else:
+            arr = np.array(["" if pd.isna(v) else str(v) for v in s], dtype=object)
+        feed[col["input"]] = arr.reshape(-1, 1)
+    return feed
+
+
+def onnx_columns(model) -> list[dict]:
+    """The columns recorded by :func:`pipeline_to_onnx`: ``column``, ``input``, ``kind``."""
+    import json
+
+    for prop in model.metadata_props:
+        if prop.key == "workbench.columns":
+            return json.loads(prop.value)
+    raise InputError("this ONNX file was not written by workbench export; "
+                     "it lacks the column list")
+
+
+def run_onnx(model_or_path, df, dtype: str | None = None) -> dict[str, np.ndarray]:
+    """Predict with onnxruntime; returns ``{output_name: array}``."""
+    import onnx
+    import onnxruntime as ort
+
+    if isinstance(model_or_path, (str, bytes)) or hasattr(model_or_path, "__fspath__"):
+        model = onnx.load(str(model_or_path))
+    else:
+        model = model_or_path
+    columns = onnx_columns(model)
+    if dtype is None:
+        dtype = "float32"
+        for inp in model.graph.input:
+            if inp.type.tensor_type.elem_type == _DOUBLE:
+                dtype = "float64"
+    sess = ort.InferenceSession(model.SerializeToString(), providers=["CPUExecutionProvider"])
+    names = [o.name for o in sess.get_outputs()]
+    outs = sess.run(None, onnx_feed(df, columns, dtype))
+    return dict(zip(names, outs))
+
+
+__all__: Sequence[str] = (
+    "TARGET_OPSET", "network_spec", "register_converters", "pipeline_to_onnx",
+    "onnx_feed", "column_kinds", "onnx_columns", "run_onnx",
+)
