@@ -259,10 +259,10 @@ _register(Activation("elu", _elu, _elu_, _elu_d, -ELU_ALPHA, INF,
 _register(Activation("selu", _selu, _selu_, _selu_d, -SELU_LAMBDA * SELU_ALPHA, INF,
                      "f(z) = l*z if z > 0 else l*a*(e^z - 1) (l = 1.0507, a = 1.6733)",
                      "Scaled ELU whose constants keep activations near zero mean, unit variance."))
-_register(Activation("gelu", _gelu, _gelu_, _gelu_d, -0.1700408, INF,
+_register(Activation("gelu", _gelu, _gelu_, _gelu_d, -0.16997120747990, INF,
                      "f(z) = z * Phi(z) (Phi = standard normal CDF, exact erf form)",
                      "Smooth ReLU-like gate weighted by the normal CDF."))
-_register(Activation("silu", _silu, _silu_, _silu_d, -0.2784645, INF,
+_register(Activation("silu", _silu, _silu_, _silu_d, -0.27846454276107, INF,
                      "f(z) = z / (1 + e^-z)",
                      "Smooth, non-monotonic ReLU-like gate (also called swish)."))
 _register(Activation("softplus", _softplus, _softplus_, _softplus_d, 0.0, INF,
