@@ -1,0 +1,345 @@
+"""Leak-free preprocessing: the profile becomes a ColumnTransformer inside a Pipeline.
+
+:func:`build_preprocessor(profile, target) <build_preprocessor>` returns a
+:class:`sklearn.compose.ColumnTransformer` named steps:
+
+- ``"numeric"``: numeric, integer columns -> ``SimpleImputer(strategy="median")`` then
+  ``StandardScaler()``;
+- ``"categorical"``: categorical and boolean columns -> ``SimpleImputer(strategy=
+  "most_frequent")`` then ``OneHotEncoder(handle_unknown="ignore", sparse_output=False)``;
+- ``"datetime"``: datetime columns -> :class:`DateParts` (numeric parts) then median
+  imputation and ``StandardScaler()``;
+- every other column (role ``ignore``, and the target) is dropped (``remainder="drop"``).
+
+The transformer is unfitted, so inside a :class:`~sklearn.pipeline.Pipeline` every
+cross-validation fold fits imputers, scalers and encoders on its own training part.
+
+:func:`build_pipeline(profile, target, estimator, head) <build_pipeline>` returns
+``Pipeline([("prep", ColumnTransformer), ("model", model)])``. For classification
+``model`` is a clone of ``estimator``; for regression it is
+``TransformedTargetRegressor(regressor=clone(estimator), transformer=TargetScaler(...),
+check_inverse=False)`` so that the network learns a target scaled to suit the head and
+predictions come back in the user's units. When the estimator has an
+``output_activation`` parameter (the workbench engine) it is set to the head;
+scikit-learn's ``MLPRegressor`` gets ``loss="poisson"`` for the exp head and refuses
+heads it does not have. :func:`fitted_estimator` returns the fitted network inside a
+fitted pipeline.
+
+Target scaling (:class:`TargetScaler`, chosen by :func:`target_scaling`):
+
+- ``identity`` head -> ``mode="standard"``: ``(y - mean) / std`` (as ``StandardScaler``);
+- ``relu`` / ``softplus`` / ``exp`` heads -> ``mode="scale"``: ``y / std``, no centring,
+  so zero stays zero and the sign is kept (as ``StandardScaler(with_mean=False)``);
+- regression ``logistic`` head -> ``mode="interval"``: ``(y - low) / (high - low)``
+  with the target's known interval (or its training range when it has none), as
+  ``MinMaxScaler`` fitted on ``[low, high]``.
+
+A zero standard deviation is replaced by 1. Only NumPy operations are used in the
+two custom transformers, so an ONNX converter can express them.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from sklearn.base import BaseEstimator, TransformerMixin, clone
+from sklearn.compose import ColumnTransformer, TransformedTargetRegressor
+from sklearn.impute import SimpleImputer
+from sklearn.pipeline import Pipeline
+from sklearn.preprocessing import OneHotEncoder, StandardScaler
+
+from workbench.activations import resolve_head
+from workbench.errors import InputError
+from workbench.profiling import TableProfile, TargetInfo, check_head
+
+NUMERIC_TYPES = ("numeric", "integer")
+CATEGORICAL_TYPES = ("categorical", "boolean")
+DATETIME_TYPES = ("datetime",)
+
+#: the parts :class:`DateParts` can produce, in output order
+DATE_PARTS = ("year", "month", "day", "weekday", "hour", "minute", "dayofyear")
+
+_NS_PER_DAY = 86_400 * 10**9
+
+
+class DateParts(TransformerMixin, BaseEstimator):
+    """Expand datetime columns into numeric parts.
+
+    For each input column: ``year``, ``month`` (1-12), ``day`` (1-31), ``weekday``
+    (Monday = 0), ``hour``, ``minute``, ``dayofyear`` (1-366). Parts that are constant
+    in the training data (e.g. hour and minute for plain dates) are dropped at
+    ``fit``. Missing dates (NaT) give NaN parts, for a following imputer.
+
+    Parameters
+    ----------
+    parts : tuple of str
+        Candidate parts (a subset of :data:`DATE_PARTS`).
+
+    Attributes
+    ----------
+    parts_ : list of list of str
+        Parts kept for each input column.
+    n_features_in_ : int
+    """
+
+    def __init__(self, parts=DATE_PARTS):
+        self.parts = parts
+
+    @staticmethod
+    def _as_datetime64(X) -> np.ndarray:
+        if isinstance(X, pd.DataFrame):
+            cols = []
+            for c in X.columns:
+                s = X[c]
+                if not pd.api.types.is_datetime64_any_dtype(s.dtype):
+                    s = pd.to_datetime(s, errors="coerce")
+                cols.append(s.to_numpy(dtype="datetime64[ns]"))
+            return np.column_stack(cols) if cols else np.empty((len(X), 0), "datetime64[ns]")
+        arr = np.asarray(X)
+        if arr.ndim == 1:
+            arr = arr[:, None]
+        return arr.astype("datetime64[ns]")
+
+    @staticmethod
+    def _parts(col: np.ndarray) -> dict[str, np.ndarray]:
+        nat = np.isnat(col)
+        ns = col.astype("datetime64[ns]")
+        days = ns.astype("datetime64[D]")
+        months = ns.astype("datetime64[M]")
+        years = ns.astype("datetime64[Y]")
+        out = {
+            "year": years.astype(np.int64) + 1970.0,
+            "month": (months.astype(np.int64) % 12) + 1.0,
+            "day": (days - months.astype("datetime64[D]")).astype(np.int64) + 1.0,
+            # 1970-01-01 was a Thursday (weekday 3 when Monday is 0)
+            "weekday": (days.astype(np.int64) + 3) % 7 + 0.0,
+            "hour": ((ns - days).astype("timedelta64[h]").astype(np.int64)) + 0.0,
+            "minute": ((ns - days).astype("timedelta64[m]").astype(np.int64) % 60) + 0.0,
+            "dayofyear": (days - years.astype("datetime64[D]")).astype(np.int64) + 1.0,
+        }
+        for k in out:
+            out[k] = out[k].astype(np.float64)
+            out[k][nat] = np.nan
+        return out
+
+    def fit(self, X, y=None):
+        bad = [p for p in self.parts if p not in DATE_PARTS]
+        if bad:
+            raise ValueError(f"unknown date parts {bad}; choose from {DATE_PARTS}")
+        arr = self._as_datetime64(X)
+        self.n_features_in_ = arr.shape[1]
+        if isinstance(X, pd.DataFrame):
+            self.feature_names_in_ = np.asarray([str(c) for c in X.columns], dtype=object)
+        self.parts_ = []
+        for j in range(arr.shape[1]):
+            parts = self._parts(arr[:, j])
+            keep = []
+            for p in self.parts:
+                v = parts[p]
+                v = v[~np.isnan(v)]
+                if v.size and v.min() != v.max():
+                    keep.append(p)
+            self.parts_.append(keep or ["year"])
+        return self
+
+    def transform(self, X):
+        arr = self._as_datetime64(X)
+        if arr.shape[1] != self.n_features_in_:
+            raise ValueError(f"expected {self.n_features_in_} datetime columns, got {arr.shape[1]}")
+        out = []
+        for j in range(arr.shape[1]):
+            parts = self._parts(arr[:, j])
+            out.extend(parts[p] for p in self.parts_[j])
+        return np.column_stack(out) if out else np.empty((arr.shape[0], 0))
+
+    def get_feature_names_out(self, input_features=None):
+        if input_features is None:
+            input_features = getattr(self, "feature_names_in_",
+                                     [f"x{j}" for j in range(self.n_features_in_)])
+        return np.asarray([f"{c}_{p}" for c, ps in zip(input_features, self.parts_) for p in ps],
+                          dtype=object)
+
+
+class TargetScaler(TransformerMixin, BaseEstimator):
+    """Scale a regression target to suit an output head, exactly invertible.
+
+    Parameters
+    ----------
+    mode : {"standard", "scale", "interval"}
+        ``standard``: ``(y - mean_) / scale_``; ``scale``: ``y / scale_`` (no centring);
+        ``interval``: ``(y - low) / (high - low)``.
+    low, high : float, optional
+        The interval for ``mode="interval"``; when omitted, the training range.
+
+    Attributes
+    ----------
+    offset_ : ndarray of shape (n_targets,)
+        Subtracted before dividing (the mean, 0, or ``low``).
+    scale_ : ndarray of shape (n_targets,)
+        The divisor (std, std, or ``high - low``); zero is replaced by 1.
+    """
+
+    def __init__(self, mode="standard", low=None, high=None):
+        self.mode = mode
+        self.low = low
+        self.high = high
+
+    def fit(self, y, X=None):
+        y = np.asarray(y, dtype=np.float64)
+        y2 = y.reshape(len(y), -1)
+        if self.mode == "standard":
+            offset, scale = y2.mean(axis=0), y2.std(axis=0)
+        elif self.mode == "scale":
+            offset, scale = np.zeros(y2.shape[1]), y2.std(axis=0)
+        elif self.mode == "interval":
+            lo = y2.min(axis=0) if self.low is None else np.full(y2.shape[1], float(self.low))
+            hi = y2.max(axis=0) if self.high is None else np.full(y2.shape[1], float(self.high))
+            offset, scale = lo, hi - lo
+        else:
+            raise ValueError(f"mode must be 'standard', 'scale' or 'interval', got {self.mode!r}")
+        scale = np.where(scale > 0, scale, 1.0)
+        self.offset_, self.scale_ = offset.astype(np.float64), scale.astype(np.float64)
+        self.n_features_in_ = y2.shape[1]
+        return self
+
+    def transform(self, y):
+        y = np.asarray(y, dtype=np.float64)
+        if y.ndim == 1:
+            return (y - self.offset_[0]) / self.scale_[0]
+        return (y - self.offset_) / self.scale_
+
+    def inverse_transform(self, y):
+        y = np.asarray(y, dtype=np.float64)
+        if y.ndim == 1:
+            return y * self.scale_[0] + self.offset_[0]
+        return y * self.scale_ + self.offset_
+
+
+def target_scaling(target: TargetInfo, head: str) -> TargetScaler:
+    """The :class:`TargetScaler` (unfitted) that suits ``head`` for ``target``."""
+    h = resolve_head(head, "regression").name
+    if h == "identity":
+        return TargetScaler("standard")
+    if h in ("relu", "softplus", "exp"):
+        return TargetScaler("scale")
+    if h == "logistic":
+        if target.interval is not None:
+            return TargetScaler("interval", low=target.interval[0], high=target.interval[1])
+        return TargetScaler("interval")
+    raise ValueError(f"no target scaling defined for head {head!r}")  # pragma: no cover
+
+
+def feature_groups(profile: TableProfile, target: TargetInfo | str | None) -> dict[str, list[str]]:
+    """Column names per transformer group (numeric, categorical, datetime)."""
+    tname = target.name if isinstance(target, TargetInfo) else target
+    groups: dict[str, list[str]] = {"numeric": [], "categorical": [], "datetime": []}
+    for c in profile.feature_columns(tname):
+        if c.type in NUMERIC_TYPES:
+            groups["numeric"].append(c.name)
+        elif c.type in CATEGORICAL_TYPES:
+            groups["categorical"].append(c.name)
+        elif c.type in DATETIME_TYPES:
+            groups["datetime"].append(c.name)
+    return groups
+
+
+def build_preprocessor(profile: TableProfile, target: TargetInfo | str | None) -> ColumnTransformer:
+    """The unfitted ColumnTransformer for the profile's feature columns.
+
+    Raises
+    ------
+    InputError
+        When no column can serve as a feature.
+    """
+    g = feature_groups(profile, target)
+    steps = []
+    if g["numeric"]:
+        steps.append(("numeric", Pipeline([
+            ("impute", SimpleImputer(strategy="median")),
+            ("scale", StandardScaler()),
+        ]), g["numeric"]))
+    if g["categorical"]:
+        steps.append(("categorical", Pipeline([
+            ("impute", SimpleImputer(strategy="most_frequent")),
+            ("onehot", OneHotEncoder(handle_unknown="ignore", sparse_output=False)),
+        ]), g["categorical"]))
+    if g["datetime"]:
+        steps.append(("datetime", Pipeline([
+            ("parts", DateParts()),
+            ("impute", SimpleImputer(strategy="median")),
+            ("scale", StandardScaler()),
+        ]), g["datetime"]))
+    if not steps:
+        raise InputError("no column can be used as a feature (all are ignored or the target); "
+                         "add feature columns to the table")
+    return ColumnTransformer(steps, remainder="drop", sparse_threshold=0.0,
+                             verbose_feature_names_out=True)
+
+
+def _configure_estimator(estimator, target: TargetInfo, head: str):
+    est = clone(estimator)
+    params = est.get_params(deep=False)
+    kind = type(est).__name__
+    if "output_activation" in params:
+        est.set_params(output_activation=head)
+        return est
+    # scikit-learn's own MLPs: only the heads they have
+    if target.task == "classification":
+        natural = "logistic" if len(target.classes or []) <= 2 else "softmax"
+        if head != natural:
+            raise InputError(f"{kind} always uses the {natural} head for this target; use the "
+                             f"workbench engine to try the {head} head")
+        return est
+    if head == "identity":
+        if "loss" in params:
+            est.set_params(loss="squared_error")
+        return est
+    if head == "exp" and "loss" in params:
+        est.set_params(loss="poisson")
+        return est
+    raise InputError(f"{kind} has no {head} output head; use the workbench engine (NetRegressor) "
+                     "to try it")
+
+
+def build_pipeline(profile: TableProfile, target: TargetInfo, estimator, head: str) -> Pipeline:
+    """Preprocessing + (target scaling) + estimator, fitted together per CV fold.
+
+    Parameters
+    ----------
+    profile : TableProfile
+    target : TargetInfo
+    estimator : scikit-learn style estimator
+        ``MLPRegressor`` / ``MLPClassifier`` or the workbench's ``NetRegressor`` /
+        ``NetClassifier`` (cloned, never modified).
+    head : str
+        Output head name (aliases accepted, e.g. ``linear``).
+
+    Returns
+    -------
+    sklearn.pipeline.Pipeline
+        Steps ``prep`` and ``model`` (see the module docstring).
+
+    Raises
+    ------
+    InputError
+        When the head cannot serve the target (see :func:`workbench.profiling.check_head`)
+        or the estimator does not offer the head.
+    """
+    chk = check_head(target, head)
+    if not chk.allowed:
+        raise InputError(chk.reason)
+    head = chk.head
+    prep = build_preprocessor(profile, target)
+    est = _configure_estimator(estimator, target, head)
+    if target.task == "regression":
+        model = TransformedTargetRegressor(regressor=est, transformer=target_scaling(target, head),
+                                           check_inverse=False)
+    else:
+        model = est
+    return Pipeline([("prep", prep), ("model", model)])
+
+
+def fitted_estimator(pipeline: Pipeline):
+    """The fitted network inside a fitted pipeline from :func:`build_pipeline`."""
+    model = pipeline.named_steps["model"]
+    return model.regressor_ if isinstance(model, TransformedTargetRegressor) else model

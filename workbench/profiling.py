@@ -1,0 +1,673 @@
+"""Understand a table's columns and its target; advise the output head; guard heads.
+
+Column profile
+--------------
+:func:`profile_table(df, target=None) <profile_table>` returns a :class:`TableProfile`:
+
+- ``rows`` (int), ``columns`` (list of :class:`ColumnProfile`, table order),
+  ``suggested_target`` (str or None: the single most likely target column),
+  ``target`` (the column given as ``target``, or None).
+
+Each :class:`ColumnProfile` has ``name``, ``type``, ``base_type``, ``role``,
+``reason``, ``dtype`` (pandas dtype as text), ``missing``, ``missing_share``,
+``distinct``, ``min`` / ``max`` / ``mean`` (numeric and datetime types, else
+None; datetimes as ISO text), ``top`` (up to 5 most frequent values as text, for
+categorical / boolean / text) and ``target_candidate`` (bool).
+
+``type`` is one of ``numeric`` (real-valued), ``integer`` (whole numbers),
+``boolean``, ``categorical`` (text with few distinct values; ``distinct`` is
+its cardinality), ``datetime``, ``text`` (free text), ``id`` (unique per row),
+``constant`` (one value) or ``missing`` (mostly or entirely missing).
+``base_type`` is the data type before the last three overrides.
+
+``role`` is ``feature``, ``ignore`` (``reason`` says why) or ``target`` (the
+column given as ``target``; when none is given, the suggested target).
+
+Target
+------
+:func:`analyse_target(df, name) <analyse_target>` returns a :class:`TargetInfo`:
+``name``, ``kind`` (``binary``, ``multiclass``, ``signed``, ``non_negative``,
+``count`` or ``bounded``), ``task`` (``classification`` for binary/multiclass,
+else ``regression``), ``evidence`` (dict: ``dtype``, ``rows``, ``missing``,
+``missing_share``, ``distinct``, ``min``, ``max``, ``mean``, ``std``,
+``zero_share``, ``negative_share``, ``integer_valued``, ``rule`` = one sentence
+saying why this kind; classification adds ``class_counts``), ``classes`` (sorted
+list of labels for classification, else None), ``interval`` ((low, high) for
+bounded, else None), ``rows_dropped`` (rows whose target is missing) and
+``rows`` (rows kept). :func:`split_xy` gives the features and the target with
+those rows dropped.
+
+Advice and guard
+----------------
+:func:`advise(target) <advise>` returns an :class:`Advice`: ``output_head`` (a
+head name of :mod:`workbench.activations`), ``loss`` (``squared_error``,
+``poisson`` or ``log_loss``), ``reason`` (one sentence), ``hidden`` (the default
+hidden activation, ``relu``), ``hidden_to_sweep`` (tuple of hidden activations
+worth sweeping), ``heads_to_sweep`` (tuple of heads worth comparing, the advised
+one first) and ``basis`` (always ``"common practice"``: these are rules of thumb
+that the sweep is there to test).
+
+:func:`check_head(target, head) <check_head>` returns a :class:`HeadCheck`
+``(allowed, warning, reason, head, loss)``: a head whose range cannot cover the
+target is refused (``allowed`` False, ``reason`` says why); a head that is only
+unusual for the kind is allowed with ``warning`` True and the reason; the usual
+heads are allowed with no warning and an empty reason.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from workbench.activations import HEAD_ALIASES, HEADS, resolve_head
+from workbench.errors import InputError
+
+KINDS = ("binary", "multiclass", "signed", "non_negative", "count", "bounded")
+TASK_OF_KIND = {"binary": "classification", "multiclass": "classification",
+                "signed": "regression", "non_negative": "regression",
+                "count": "regression", "bounded": "regression"}
+
+#: common practice: a column with more than this share missing is ignored
+MOSTLY_MISSING = 0.6
+#: common practice: text columns with more distinct values are not one-hot encoded
+MAX_CATEGORIES = 50
+#: integer codes 0..k-1 (or 1..k) with at most this many values are read as classes
+MAX_CODE_CLASSES = 10
+#: a classification target with more classes than this is refused
+MAX_CLASSES = 100
+#: free text: mean length of a value at least this, with spaces
+TEXT_MIN_LENGTH = 20
+
+HIDDEN_DEFAULT = "relu"
+HIDDEN_TO_SWEEP = ("relu", "tanh", "leaky_relu", "gelu", "silu")
+
+_ID_NAME = re.compile(r"(^|[_\s.-])(id|key|uuid|guid|code|no|nr|index|idx)$|^id|_id$", re.I)
+_TARGET_STRONG = re.compile(r"^(target|label|labels|y|class|outcome|response)$", re.I)
+_TARGET_WORDS = re.compile(
+    r"(target|label|class|outcome|result|grade|pass|passed|passes|fail|status|yield|"
+    r"price|amount|share|rate|count|change|score|quality|drawn|demand|sales|response)",
+    re.I)
+_PERCENT_NAME = re.compile(r"(percent|pct|%)", re.I)
+
+
+# --------------------------------------------------------------------------- columns
+
+
+@dataclass
+class ColumnProfile:
+    """One column's profile (fields documented in the module docstring)."""
+
+    name: str
+    type: str
+    base_type: str
+    role: str
+    reason: str
+    dtype: str
+    missing: int
+    missing_share: float
+    distinct: int
+    min: float | str | None = None
+    max: float | str | None = None
+    mean: float | None = None
+    top: list[str] = field(default_factory=list)
+    target_candidate: bool = False
+
+    def to_dict(self) -> dict:
+        return to_jsonable(asdict(self))
+
+
+@dataclass
+class TableProfile:
+    """The profile of a whole table (fields documented in the module docstring)."""
+
+    rows: int
+    columns: list[ColumnProfile]
+    suggested_target: str | None
+    target: str | None = None
+
+    def column(self, name: str) -> ColumnProfile:
+        for c in self.columns:
+            if c.name == name:
+                return c
+        raise KeyError(name)
+
+    @property
+    def names(self) -> list[str]:
+        return [c.name for c in self.columns]
+
+    def feature_columns(self, target: str | None = None) -> list[ColumnProfile]:
+        """Columns used as features when ``target`` (default: this profile's target) is
+        the target: role ``feature``, or the suggested target when another column is
+        the target."""
+        target = target if target is not None else (self.target or self.suggested_target)
+        out = []
+        for c in self.columns:
+            if c.name == target:
+                continue
+            if c.role == "feature" or (c.role == "target" and c.type not in _NEVER_FEATURE):
+                out.append(c)
+        return out
+
+    def to_dict(self) -> dict:
+        return {"rows": self.rows, "columns": [c.to_dict() for c in self.columns],
+                "suggested_target": self.suggested_target, "target": self.target}
+
+
+_NEVER_FEATURE = ("id", "constant", "missing", "text")
+
+
+def _is_bool_series(s: pd.Series) -> bool:
+    if pd.api.types.is_bool_dtype(s.dtype):
+        return True
+    if s.dtype == object:
+        vals = s.dropna()
+        return len(vals) > 0 and all(isinstance(v, bool | np.bool_) for v in vals.iloc[:500]) \
+            and vals.map(lambda v: isinstance(v, bool | np.bool_)).all()
+    return False
+
+
+def _integer_valued(v: np.ndarray) -> bool:
+    if v.size == 0:
+        return False
+    if np.issubdtype(v.dtype, np.integer):
+        return True
+    return bool(np.all(np.isfinite(v)) and np.all(v == np.round(v)))
+
+
+def _num(x) -> float | None:
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def profile_column(s: pd.Series) -> ColumnProfile:
+    """Profile one column (see the module docstring for the fields)."""
+    name = str(s.name)
+    n = len(s)
+    missing = int(s.isna().sum())
+    share = missing / n if n else 1.0
+    vals = s.dropna()
+    distinct = int(vals.nunique())
+    dtype = str(s.dtype)
+    lo = hi = mean = None
+    top: list[str] = []
+
+    if _is_bool_series(s):
+        base = "boolean"
+    elif pd.api.types.is_datetime64_any_dtype(s.dtype):
+        base = "datetime"
+        if len(vals):
+            lo, hi = vals.min().isoformat(), vals.max().isoformat()
+    elif pd.api.types.is_numeric_dtype(s.dtype):
+        v = vals.to_numpy(dtype=np.float64)
+        base = "integer" if _integer_valued(v) else "numeric"
+        if v.size:
+            lo, hi, mean = _num(v.min()), _num(v.max()), _num(v.mean())
+    else:
+        txt = vals.astype(str)
+        mean_len = float(txt.str.len().mean()) if len(txt) else 0.0
+        spaces = float(txt.str.contains(" ", regex=False).mean()) if len(txt) else 0.0
+        if distinct <= MAX_CATEGORIES or distinct <= 0.05 * max(len(vals), 1):
+            base = "categorical"
+        elif mean_len >= TEXT_MIN_LENGTH and spaces >= 0.5:
+            base = "text"
+        else:
+            base = "categorical"
+    if base in ("boolean", "categorical", "text") and len(vals):
+        top = [str(k) for k in vals.astype(str).value_counts().index[:5]]
+
+    typ, role, reason = base, "feature", ""
+    if distinct == 0:
+        typ, role, reason = "missing", "ignore", "every value is missing"
+    elif share > MOSTLY_MISSING:
+        typ, role, reason = "missing", "ignore", \
+            f"{share:.0%} of values missing (more than {MOSTLY_MISSING:.0%}, common practice)"
+    elif distinct == 1:
+        typ, role, reason = "constant", "ignore", f"one value only ({vals.iloc[0]!s})"
+    elif _looks_like_id(name, base, vals, n, missing):
+        typ, role, reason = "id", "ignore", "unique per row, like an identifier"
+    elif base == "text":
+        role, reason = "ignore", "free text (not encoded as a feature)"
+    elif base == "categorical" and distinct > MAX_CATEGORIES:
+        role, reason = "ignore", \
+            f"{distinct} categories (more than {MAX_CATEGORIES} are not one-hot encoded)"
+    candidate = role == "feature" and base in ("boolean", "categorical", "integer", "numeric") \
+        and (base != "categorical" or distinct <= MAX_CLASSES)
+    return ColumnProfile(name=name, type=typ, base_type=base, role=role, reason=reason,
+                         dtype=dtype, missing=missing, missing_share=share, distinct=distinct,
+                         min=lo, max=hi, mean=mean, top=top, target_candidate=candidate)
+
+
+def _looks_like_id(name: str, base: str, vals: pd.Series, n: int, missing: int) -> bool:
+    if missing or n < 3 or base not in ("integer", "categorical", "text"):
+        return False
+    if vals.nunique() != n:
+        return False
+    if base == "integer":
+        v = vals.to_numpy(dtype=np.float64)
+        consecutive = (v.max() - v.min() + 1) == n
+        return bool(_ID_NAME.search(name) or consecutive)
+    if base == "text":
+        return bool(_ID_NAME.search(name))
+    return True
+
+
+def _target_score(i: int, n_cols: int, c: ColumnProfile) -> float:
+    score = 0.0
+    if _TARGET_STRONG.match(c.name):
+        score += 4
+    elif _TARGET_WORDS.search(c.name):
+        score += 2
+    if i == n_cols - 1:
+        score += 1.5  # common practice: the target is often the last column
+    if i == 0:
+        score += 0.25
+    return score
+
+
+def profile_table(df: pd.DataFrame, target: str | None = None) -> TableProfile:
+    """Profile every column and name the most likely target.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+    target : str, optional
+        The column the user chose as target; it gets role ``target``.
+
+    Returns
+    -------
+    TableProfile
+    """
+    if target is not None and target not in df.columns:
+        raise InputError(_no_column_message(target, df))
+    cols = [profile_column(df[c]) for c in df.columns]
+    best, best_score = None, 0.0
+    for i, c in enumerate(cols):
+        if not c.target_candidate:
+            continue
+        sc = _target_score(i, len(cols), c)
+        if sc > best_score:
+            best, best_score = c.name, sc
+    chosen = target if target is not None else best
+    for c in cols:
+        if c.name == chosen:
+            c.role, c.reason = "target", ("chosen as target" if target is not None
+                                          else "most likely target")
+    return TableProfile(rows=int(df.shape[0]), columns=cols, suggested_target=best,
+                        target=target)
+
+
+def _no_column_message(name: str, df: pd.DataFrame) -> str:
+    names = [str(c) for c in df.columns]
+    shown = ", ".join(names[:12]) + (", ..." if len(names) > 12 else "")
+    return f"no column named {name!r}; the columns are: {shown}"
+
+
+# --------------------------------------------------------------------------- target
+
+
+@dataclass
+class TargetInfo:
+    """The analysed target (fields documented in the module docstring)."""
+
+    name: str
+    kind: str
+    task: str
+    evidence: dict
+    classes: list | None = None
+    interval: tuple[float, float] | None = None
+    rows_dropped: int = 0
+    rows: int = 0
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["interval"] = list(self.interval) if self.interval is not None else None
+        return to_jsonable(d)
+
+
+def analyse_target(df: pd.DataFrame, name: str, kind: str | None = None,
+                   interval: tuple[float, float] | None = None) -> TargetInfo:
+    """Name the target's kind, with the evidence.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+    name : str
+        The target column.
+    kind : str, optional
+        Force a kind (one of :data:`KINDS`) instead of detecting it; it must fit the values.
+    interval : (float, float), optional
+        The known interval of a bounded target (implies ``kind="bounded"``).
+
+    Returns
+    -------
+    TargetInfo
+
+    Raises
+    ------
+    InputError
+        When the column is missing, entirely empty, has one value only, cannot be a
+        target (dates, free text, too many classes) or does not fit a forced kind.
+    """
+    if name not in df.columns:
+        raise InputError(_no_column_message(name, df))
+    s = df[name]
+    n = len(s)
+    miss = s.isna().to_numpy()
+    dropped = int(miss.sum())
+    vals = s[~miss]
+    if len(vals) == 0:
+        raise InputError(f"target {name!r} has no values (every cell is missing); choose "
+                         "another target column")
+    if kind is not None and kind not in KINDS:
+        raise InputError(f"unknown target kind {kind!r}; choose one of: {', '.join(KINDS)}")
+    if interval is not None:
+        kind = "bounded"
+    distinct = int(vals.nunique())
+    ev: dict = {"dtype": str(s.dtype), "rows": n, "missing": dropped,
+                "missing_share": dropped / n if n else 0.0, "distinct": distinct,
+                "min": None, "max": None, "mean": None, "std": None, "zero_share": None,
+                "negative_share": None, "integer_valued": None}
+    if distinct == 1:
+        raise InputError(f"target {name!r} has a single value ({vals.iloc[0]!s}) in every row; "
+                         "there is nothing to predict, choose another target column")
+    if pd.api.types.is_datetime64_any_dtype(s.dtype):
+        raise InputError(f"target {name!r} holds dates; predict a number or a class instead "
+                         "(e.g. a duration computed from the dates)")
+    numeric = pd.api.types.is_numeric_dtype(s.dtype) and not pd.api.types.is_bool_dtype(s.dtype)
+    if numeric:
+        v = vals.to_numpy(dtype=np.float64)
+        if not np.all(np.isfinite(v)):
+            raise InputError(f"target {name!r} contains infinite values; remove or replace them")
+        ev.update(min=float(v.min()), max=float(v.max()), mean=float(v.mean()),
+                  std=float(v.std()), zero_share=float(np.mean(v == 0)),
+                  negative_share=float(np.mean(v < 0)), integer_valued=_integer_valued(v))
+    detected, rule, iv = _detect_kind(name, vals, ev, numeric)
+    if kind is None:
+        kind = detected
+    else:
+        rule = _check_forced_kind(name, kind, ev, numeric, distinct, interval) + \
+            f" (kind set by the user; detected: {detected})"
+        if kind == "bounded":
+            iv = interval if interval is not None else (iv or (ev["min"], ev["max"]))
+    ev["rule"] = rule
+    task = TASK_OF_KIND[kind]
+    classes = None
+    if task == "classification":
+        if distinct > MAX_CLASSES:
+            raise InputError(f"target {name!r} has {distinct} distinct values, too many classes "
+                             f"(at most {MAX_CLASSES}); choose another target or treat it as a "
+                             "number")
+        counts = vals.value_counts()
+        classes = sorted(counts.index.tolist(), key=_sort_key)
+        ev["class_counts"] = {str(k): int(counts[k]) for k in classes}
+        if int(counts.min()) < 2:
+            ev["rule"] += "; some class has a single row, so stratified CV will struggle"
+    return TargetInfo(name=name, kind=kind, task=task, evidence=to_jsonable(ev),
+                      classes=[_py(c) for c in classes] if classes is not None else None,
+                      interval=(float(iv[0]), float(iv[1])) if kind == "bounded" else None,
+                      rows_dropped=dropped, rows=int(len(vals)))
+
+
+def _sort_key(v):
+    return (0, float(v), "") if isinstance(v, int | float | np.number | bool | np.bool_) \
+        else (1, 0.0, str(v))
+
+
+def _py(v):
+    return v.item() if isinstance(v, np.generic) else v
+
+
+def _detect_kind(name: str, vals: pd.Series, ev: dict, numeric: bool):
+    distinct = ev["distinct"]
+    if distinct == 2:
+        shown = ", ".join(str(x) for x in sorted(vals.unique().tolist(), key=_sort_key))
+        return "binary", f"exactly two distinct values ({shown})", None
+    if not numeric:
+        if _is_bool_series(vals):
+            return "binary", "boolean values", None
+        if distinct > MAX_CLASSES or distinct > 0.5 * len(vals):
+            raise InputError(
+                f"target {name!r} is text with {distinct} distinct values, which looks like an "
+                "identifier or free text, not classes; choose another target column")
+        return "multiclass", f"text labels with {distinct} distinct classes", None
+    lo, hi, integer = ev["min"], ev["max"], ev["integer_valued"]
+    if integer and distinct <= MAX_CODE_CLASSES and lo in (0.0, 1.0) and hi - lo + 1 == distinct:
+        return "multiclass", (f"integer codes {lo:g}..{hi:g} ({distinct} values, at most "
+                              f"{MAX_CODE_CLASSES}) read as class labels (common practice)"), None
+    if lo < 0:
+        return "signed", f"takes negative values (min {lo:g}, max {hi:g})", None
+    if integer and lo <= 1:
+        return "count", (f"non-negative whole numbers from {lo:g} to {hi:g} "
+                         f"({ev['zero_share']:.0%} zeros)"), None
+    if hi <= 1:
+        return "bounded", f"all values inside [0, 1] (min {lo:g}, max {hi:g}): a proportion", \
+            (0.0, 1.0)
+    if hi <= 100 and _PERCENT_NAME.search(name):
+        return "bounded", f"a percentage inside [0, 100] (min {lo:g}, max {hi:g})", (0.0, 100.0)
+    return "non_negative", (f"never below zero (min {lo:g}, max {hi:g}, "
+                            f"{ev['zero_share']:.0%} zeros)"), None
+
+
+def _check_forced_kind(name, kind, ev, numeric, distinct, interval) -> str:
+    if kind == "binary" and distinct != 2:
+        raise InputError(f"target {name!r} has {distinct} distinct values, not 2, so it cannot "
+                         "be binary; choose multiclass or a regression kind")
+    if TASK_OF_KIND[kind] == "regression" and not numeric:
+        raise InputError(f"target {name!r} is not numeric, so it cannot be a {kind} regression "
+                         "target; choose binary or multiclass")
+    if kind in ("non_negative", "count") and ev["min"] < 0:
+        raise InputError(f"target {name!r} has negative values (min {ev['min']:g}), so it "
+                         f"cannot be {kind}; choose signed")
+    if kind == "count" and not ev["integer_valued"]:
+        raise InputError(f"target {name!r} has non-integer values, so it cannot be a count; "
+                         "choose non_negative")
+    if kind == "bounded" and interval is not None:
+        lo, hi = float(interval[0]), float(interval[1])
+        if not lo < hi:
+            raise InputError(f"interval ({lo:g}, {hi:g}) is empty; give low < high")
+        if ev["min"] < lo or ev["max"] > hi:
+            raise InputError(f"target {name!r} has values outside [{lo:g}, {hi:g}] (min "
+                             f"{ev['min']:g}, max {ev['max']:g}); widen the interval")
+    return f"{kind} as requested"
+
+
+def split_xy(df: pd.DataFrame, target: TargetInfo) -> tuple[pd.DataFrame, np.ndarray]:
+    """Features and target with the rows whose target is missing dropped.
+
+    Returns
+    -------
+    X : pandas.DataFrame
+        Every column except the target (the preprocessor picks the features).
+    y : numpy.ndarray
+        float64 for regression; the labels as they are in the table for classification.
+    """
+    keep = df[target.name].notna().to_numpy()
+    X = df.loc[keep].drop(columns=[target.name]).reset_index(drop=True)
+    ys = df.loc[keep, target.name]
+    if target.task == "regression":
+        y = ys.to_numpy(dtype=np.float64)
+    else:
+        y = ys.to_numpy()
+        if y.dtype.kind not in "biuf":
+            y = y.astype(object)
+    return X, y
+
+
+# --------------------------------------------------------------------------- advice
+
+
+@dataclass(frozen=True)
+class Advice:
+    """The recommended output head (fields documented in the module docstring)."""
+
+    output_head: str
+    loss: str
+    reason: str
+    hidden: str = HIDDEN_DEFAULT
+    hidden_to_sweep: tuple = HIDDEN_TO_SWEEP
+    heads_to_sweep: tuple = ()
+    basis: str = "common practice"
+
+    def to_dict(self) -> dict:
+        return to_jsonable(asdict(self))
+
+
+#: common practice: when at least this share of a non-negative target is exactly zero,
+#: a relu head (which reaches exact zeros) is advised over softplus
+ZERO_SHARE_FOR_RELU = 0.10
+
+
+def advise(target: TargetInfo) -> Advice:
+    """Recommend the output head and loss for the target's kind (common practice).
+
+    Binary -> logistic with log-loss; multiclass -> softmax with log-loss; signed ->
+    identity with squared error; non-negative -> relu (many exact zeros) or softplus
+    with squared error; count -> exp with the Poisson deviance; bounded -> logistic
+    with squared error on the target mapped from its interval to [0, 1].
+    Hidden layers default to relu, with tanh, leaky_relu, gelu and silu worth sweeping.
+    """
+    k = target.kind
+    ev = target.evidence
+    if k == "binary":
+        head, reason, sweep = "logistic", (
+            "two classes: a logistic output gives the probability of the positive class and "
+            "is matched with log-loss"), ("logistic", "softmax")
+    elif k == "multiclass":
+        head, reason, sweep = "softmax", (
+            f"{len(target.classes or [])} classes: a softmax output gives one probability per "
+            "class, summing to one, matched with log-loss"), ("softmax",)
+    elif k == "signed":
+        head, reason, sweep = "identity", (
+            "the target takes negative and positive values, so a linear (identity) output "
+            "that can reach any real number is the natural choice"), ("identity",)
+    elif k == "non_negative":
+        zs = ev.get("zero_share") or 0.0
+        if zs >= ZERO_SHARE_FOR_RELU:
+            head, reason = "relu", (
+                f"the target is never below zero and {zs:.0%} of it is exactly zero, so a relu "
+                "output, which cannot go negative and reaches zero exactly, fits")
+            sweep = ("relu", "softplus", "exp", "identity")
+        else:
+            head, reason = "softplus", (
+                "the target is never below zero, so a softplus output, which cannot go negative "
+                "and never goes flat, fits")
+            sweep = ("softplus", "relu", "exp", "identity")
+    elif k == "count":
+        head, reason, sweep = "exp", (
+            "the target counts events (non-negative whole numbers), so an exp output matched "
+            "with the Poisson deviance is the classic choice"), ("exp", "softplus", "relu",
+                                                                   "identity")
+    else:  # bounded
+        lo, hi = target.interval or (0.0, 1.0)
+        head, reason, sweep = "logistic", (
+            f"the target lies in the known interval [{lo:g}, {hi:g}], so it is mapped to [0, 1] "
+            "and a logistic output keeps predictions inside it"), ("logistic", "identity",
+                                                                   "relu")
+    loss = HEADS[(target.task, head)].loss
+    return Advice(output_head=head, loss=loss, reason=reason + " (common practice).",
+                  heads_to_sweep=sweep)
+
+
+# --------------------------------------------------------------------------- head guard
+
+
+@dataclass(frozen=True)
+class HeadCheck:
+    """Result of :func:`check_head` (fields documented in the module docstring)."""
+
+    allowed: bool
+    warning: bool
+    reason: str
+    head: str | None = None
+    loss: str | None = None
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+USUAL_HEADS = {
+    "binary": ("logistic",),
+    "multiclass": ("softmax",),
+    "signed": ("identity",),
+    "non_negative": ("relu", "softplus", "exp"),
+    "count": ("exp", "relu", "softplus"),
+    "bounded": ("logistic",),
+}
+
+
+def check_head(target: TargetInfo, head: str) -> HeadCheck:
+    """Can the output ``head`` serve this target?
+
+    Refused when the head belongs to the other task, when its range cannot cover
+    the target (relu / softplus / exp with negative values; the regression logistic
+    head with values outside the target's interval), or a logistic head for more
+    than two classes. Allowed with a warning when it is only unusual for the kind.
+    """
+    try:
+        h = resolve_head(head, target.task)
+    except ValueError as exc:
+        return HeadCheck(False, False, str(exc))
+    name, ev = h.name, target.evidence
+    if target.task == "classification":
+        n_classes = len(target.classes or [])
+        if name == "logistic" and n_classes > 2:
+            return HeadCheck(False, False,
+                             f"the logistic head gives one probability, but {target.name!r} has "
+                             f"{n_classes} classes; use softmax", name, h.loss)
+    else:
+        lo, hi = ev.get("min"), ev.get("max")
+        if h.low == 0.0 and h.high == math.inf and lo is not None and lo < 0:
+            return HeadCheck(False, False,
+                             f"the {name} head never goes below 0, but {target.name!r} has "
+                             f"negative values (min {lo:g}); use identity", name, h.loss)
+        if name == "logistic":
+            if target.interval is not None:
+                ilo, ihi = target.interval
+                if lo < ilo or hi > ihi:
+                    return HeadCheck(False, False,
+                                     f"the logistic head maps to [{ilo:g}, {ihi:g}], but "
+                                     f"{target.name!r} has values outside it (min {lo:g}, max "
+                                     f"{hi:g})", name, h.loss)
+            else:
+                return HeadCheck(True, True,
+                                 f"{target.name!r} has no known interval; the logistic head "
+                                 f"will map the training range [{lo:g}, {hi:g}] to [0, 1] and "
+                                 "cannot predict outside it", name, h.loss)
+    if name in USUAL_HEADS[target.kind]:
+        return HeadCheck(True, False, "", name, h.loss)
+    usual = ", ".join(USUAL_HEADS[target.kind])
+    extra = ""
+    if name == "identity" and target.kind in ("non_negative", "count", "bounded"):
+        extra = "; it can predict values outside the target's range"
+    return HeadCheck(True, True,
+                     f"the {name} head is unusual for a {target.kind} target (usual: {usual})"
+                     f"{extra}", name, h.loss)
+
+
+def canonical_head(head: str) -> str:
+    key = head.strip().lower()
+    return HEAD_ALIASES.get(key, key)
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def to_jsonable(obj):
+    """Plain Python types only (numpy scalars -> Python, NaN/inf -> None)."""
+    if isinstance(obj, dict):
+        return {str(k): to_jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [to_jsonable(v) for v in obj]
+    if isinstance(obj, np.generic):
+        obj = obj.item()
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    if isinstance(obj, pd.Timestamp):
+        return obj.isoformat()
+    return obj
