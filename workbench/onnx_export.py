@@ -84,7 +84,7 @@ def network_spec(est) -> dict:
     coefs = [np.asarray(w) for w in est.coefs_]
     intercepts = [np.asarray(b) for b in est.intercepts_]
     n_hidden = len(coefs) - 1
-    act = est.activation
+    act = getattr(est, "hidden_activations_", None) or est.activation
     if isinstance(act, str):
         hidden = [resolve_hidden(act)] * n_hidden
     else:
@@ -377,7 +377,9 @@ def pipeline_to_onnx(pipeline, X, *, dtype: str = "float32", opset: int = TARGET
         A few rows with the columns the pipeline was fitted on (their dtypes
         decide the ONNX inputs).
     dtype : {"float32", "float64"}
-        Numeric type of the graph.
+        Numeric type of the graph inputs. onnxruntime runs the ai.onnx.ml
+        preprocessing operators (``Imputer``, ``Scaler``) in float32 only, so
+        pipelines with those steps need the default.
     opset : int
         ONNX opset; at least 17.
 
@@ -394,6 +396,7 @@ def pipeline_to_onnx(pipeline, X, *, dtype: str = "float32", opset: int = TARGET
         raise ValueError("ONNX exports use opset 17 or newer")
     register_converters()
     kinds = column_kinds(X)
+    pipeline = _conversion_copy(pipeline)
     options = {}
     from sklearn.base import is_classifier
 
@@ -403,6 +406,8 @@ def pipeline_to_onnx(pipeline, X, *, dtype: str = "float32", opset: int = TARGET
     model = convert_sklearn(pipeline, name=name, initial_types=_initial_types(kinds, dtype),
                             target_opset={"": opset, "ai.onnx.ml": TARGET_ML_OPSET},
                             options=options or None)
+    _rename_outputs(model, ["label", "probabilities"] if len(model.graph.output) == 2
+                    else ["variable"])
     # skl2onnx turns column names into valid identifiers; record which graph
     # input takes which column (in order) so that a reader can build the feed
     import json
@@ -413,6 +418,73 @@ def pipeline_to_onnx(pipeline, X, *, dtype: str = "float32", opset: int = TARGET
     meta.key = "workbench.columns"
     meta.value = json.dumps(columns)
     return model
+
+
+def _rename_outputs(model, names: list[str]) -> None:
+    """Give the graph outputs fixed names (skl2onnx's depend on the converter)."""
+    graph = model.graph
+
+    def used():
+        names = {n for node in graph.node for n in (*node.input, *node.output)}
+        return names | {i.name for i in graph.initializer} | {i.name for i in graph.input}
+
+    def rename(old, new):
+        for node in graph.node:
+            for i, name in enumerate(node.output):
+                if name == old:
+                    node.output[i] = new
+            for i, name in enumerate(node.input):
+                if name == old:
+                    node.input[i] = new
+        for vi in (*graph.output, *graph.value_info):
+            if vi.name == old:
+                vi.name = new
+
+    for out, new in zip(list(graph.output), names):
+        old = out.name
+        if old == new:
+            continue
+        if new in used():  # an inner value already has the name: move it aside
+            taken, k = used(), 0
+            while f"{new}_inner{k}" in taken:
+                k += 1
+            rename(new, f"{new}_inner{k}")
+        rename(old, new)
+
+
+def _fitted_children(est):
+    """The fitted sub-estimators of ``est`` (pipeline steps, column transformers, ...)."""
+    if hasattr(est, "steps"):
+        return [step for _, step in est.steps]
+    if hasattr(est, "transformers_"):
+        return [t for _, t, _ in est.transformers_ if not isinstance(t, str)]
+    for attr in ("regressor_", "estimator_", "classifier_"):
+        if hasattr(est, attr):
+            return [getattr(est, attr)]
+    return []
+
+
+def _conversion_copy(pipeline):
+    """A copy of ``pipeline`` adjusted for the graph, with identical predictions.
+
+    ONNX string tensors cannot hold NaN, so :func:`onnx_feed` sends a missing
+    text value as ``""``; a most-frequent imputer fitted on text (which treats
+    NaN as missing) is told that ``""`` is its missing marker in the copy.
+    """
+    import copy
+
+    from sklearn.impute import SimpleImputer
+
+    pipeline = copy.deepcopy(pipeline)
+    todo = [pipeline]
+    while todo:
+        est = todo.pop()
+        if isinstance(est, SimpleImputer) and getattr(est, "statistics_", None) is not None \
+                and np.asarray(est.statistics_).dtype == object \
+                and not isinstance(est.missing_values, str):
+            est.missing_values = ""
+        todo.extend(_fitted_children(est))
+    return pipeline
 
 
 def _is_own(est) -> bool:

@@ -1,0 +1,165 @@
+"""ONNX export: onnxruntime agrees with the in-memory pipeline.
+
+Reference: onnxruntime (the ONNX reference runtime's production sibling) executing
+the graph versus scikit-learn's ``Pipeline.predict`` / ``predict_proba`` on the
+same rows; tolerance 1e-4 in float32 as the export issue requires.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import onnx
+import pandas as pd
+import pytest
+from sklearn.compose import ColumnTransformer
+from sklearn.exceptions import ConvergenceWarning
+from sklearn.impute import SimpleImputer
+from sklearn.neural_network import MLPClassifier, MLPRegressor
+from sklearn.pipeline import make_pipeline
+from sklearn.preprocessing import OneHotEncoder, StandardScaler
+
+from workbench import onnx_export as ox
+from workbench.activations import HEADS, HIDDEN
+from workbench.engine import NetClassifier, NetRegressor
+from workbench.errors import InputError
+
+TOL = 1e-4
+
+_rng = np.random.default_rng(7)
+N = 48
+TABLE = pd.DataFrame({
+    "x1": _rng.normal(size=N) * 3 + 1,
+    "x2": _rng.normal(size=N),
+    "colour": _rng.choice(["red", "green", "blue"], N),
+})
+TABLE.loc[[2, 9], "x1"] = np.nan
+TABLE.loc[[4], "colour"] = np.nan
+_signal = np.nan_to_num(TABLE["x1"].to_numpy()) / 3 + np.sin(TABLE["x2"].to_numpy()) \
+    + (TABLE["colour"] == "red").to_numpy()
+
+#: a target that suits each regression head (the engine refuses out-of-range targets)
+REG_TARGETS = {
+    "identity": _signal,
+    "exp": np.round(np.exp(_signal / 2)),
+    "relu": _signal - _signal.min(),
+    "softplus": _signal - _signal.min(),
+    "logistic": (_signal - _signal.min()) / np.ptp(_signal),
+}
+BINARY = np.where(_signal > np.median(_signal), "high", "low")
+MULTI = np.digitize(_signal, np.quantile(_signal, [1 / 3, 2 / 3]))
+
+
+def _preprocessor():
+    # the shape of workbench.preprocessing's ColumnTransformer: median + scaling for
+    # numbers, most frequent + one-hot for categories
+    return ColumnTransformer([
+        ("num", make_pipeline(SimpleImputer(strategy="median"), StandardScaler()), ["x1", "x2"]),
+        ("cat", make_pipeline(SimpleImputer(strategy="most_frequent"),
+                              OneHotEncoder(handle_unknown="ignore")), ["colour"]),
+    ])
+
+
+def _fit(est, y):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        return make_pipeline(_preprocessor(), est).fit(TABLE, y)
+
+
+REG_CASES = [(h, head) for h in HIDDEN for (task, head) in HEADS if task == "regression"]
+CLF_CASES = [(h, head) for h in HIDDEN for (task, head) in HEADS if task == "classification"]
+
+
+def test_cases_cover_every_activation_and_head():
+    assert {h for h, _ in REG_CASES} == set(HIDDEN)
+    assert {hd for _, hd in REG_CASES} | {hd for _, hd in CLF_CASES} == {n for _, n in HEADS}
+
+
+@pytest.mark.parametrize(("hidden", "head"), REG_CASES)
+def test_regressor_agrees_with_pipeline(hidden, head):
+    # two hidden layers, the second with a different activation: per-layer names are honoured
+    net = NetRegressor((7, 5), (hidden, "tanh" if hidden != "tanh" else "relu"),
+                       output_activation=head, max_iter=15, random_state=0)
+    pipe = _fit(net, REG_TARGETS[head])
+    model = ox.pipeline_to_onnx(pipe, TABLE)
+    assert {o.domain: o.version for o in model.opset_import}[""] >= 17
+    out = ox.run_onnx(model, TABLE)
+    np.testing.assert_allclose(out["variable"].ravel(), pipe.predict(TABLE), rtol=TOL, atol=TOL)
+
+
+@pytest.mark.parametrize(("hidden", "head"), CLF_CASES)
+def test_classifier_agrees_with_pipeline(hidden, head):
+    y = BINARY if head == "logistic" else MULTI
+    pipe = _fit(NetClassifier((6,), hidden, output_activation=head, max_iter=15,
+                              random_state=1), y)
+    out = ox.run_onnx(ox.pipeline_to_onnx(pipe, TABLE), TABLE)
+    np.testing.assert_allclose(out["probabilities"], pipe.predict_proba(TABLE), atol=TOL)
+    np.testing.assert_array_equal(out["label"].ravel(), pipe.predict(TABLE))
+
+
+def test_float64_engine_exports_to_float32_graph():
+    # onnxruntime's ai.onnx.ml operators (Imputer, Scaler) compute in float32, so a
+    # float64 network is exported as a float32 graph, still within the tolerance
+    net = NetRegressor((6,), "gelu", max_iter=10, random_state=0, dtype="float64")
+    pipe = _fit(net, REG_TARGETS["identity"])
+    model = ox.pipeline_to_onnx(pipe, TABLE)
+    out = ox.run_onnx(model, TABLE)
+    assert out["variable"].dtype == np.float32
+    np.testing.assert_allclose(out["variable"].ravel(), pipe.predict(TABLE), rtol=TOL, atol=TOL)
+
+
+def test_leaky_slope_is_carried():
+    net = NetRegressor((6,), "leaky_relu", leaky_slope=0.3, max_iter=10, random_state=0)
+    pipe = _fit(net, REG_TARGETS["identity"])
+    model = ox.pipeline_to_onnx(pipe, TABLE)
+    alphas = [a.f for n in model.graph.node if n.op_type == "LeakyRelu" for a in n.attribute]
+    assert alphas and np.allclose(alphas, 0.3)
+    out = ox.run_onnx(model, TABLE)
+    np.testing.assert_allclose(out["variable"].ravel(), pipe.predict(TABLE), rtol=TOL, atol=TOL)
+
+
+@pytest.mark.parametrize("hidden", ["identity", "logistic", "tanh", "relu"])
+def test_sklearn_mlp_is_converted_natively(hidden):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        reg = make_pipeline(_preprocessor(), MLPRegressor(hidden_layer_sizes=(5,), activation=hidden, max_iter=20,
+                                                          random_state=0)).fit(TABLE, _signal)
+        clf = make_pipeline(_preprocessor(), MLPClassifier(hidden_layer_sizes=(5,), activation=hidden, max_iter=20,
+                                                           random_state=0)).fit(TABLE, MULTI)
+    out = ox.run_onnx(ox.pipeline_to_onnx(reg, TABLE), TABLE)
+    np.testing.assert_allclose(out["variable"].ravel(), reg.predict(TABLE), rtol=TOL, atol=TOL)
+    out = ox.run_onnx(ox.pipeline_to_onnx(clf, TABLE), TABLE)
+    np.testing.assert_allclose(out["probabilities"], clf.predict_proba(TABLE), atol=TOL)
+
+
+def test_awkward_column_names_and_saved_file(tmp_path):
+    names = {"x1": "<script>alert(1)</script>", "x2": '=HYPERLINK("http://x")',
+             "colour": "colour name"}
+    table = TABLE.rename(columns=names)
+    pre = ColumnTransformer([
+        ("num", make_pipeline(SimpleImputer(strategy="median"), StandardScaler()),
+         [names["x1"], names["x2"]]),
+        ("cat", make_pipeline(SimpleImputer(strategy="most_frequent"),
+                              OneHotEncoder(handle_unknown="ignore")), [names["colour"]]),
+    ])
+    pipe = make_pipeline(pre, NetRegressor((4,), "silu", max_iter=10, random_state=0))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        pipe.fit(table, _signal)
+    path = tmp_path / "m.onnx"
+    onnx.save(ox.pipeline_to_onnx(pipe, table), str(path))
+    onnx.checker.check_model(str(path))
+    out = ox.run_onnx(path, table)
+    np.testing.assert_allclose(out["variable"].ravel(), pipe.predict(table), rtol=TOL, atol=TOL)
+    # columns are found by name, so the order of the table does not matter
+    out2 = ox.run_onnx(path, table[table.columns[::-1]])
+    np.testing.assert_array_equal(out["variable"], out2["variable"])
+    with pytest.raises(InputError, match="colour name"):
+        ox.run_onnx(path, table.drop(columns=[names["colour"]]))
+
+
+def test_opset_below_17_is_refused():
+    pipe = _fit(NetRegressor((3,), max_iter=3, random_state=0), _signal)
+    with pytest.raises(ValueError, match="17"):
+        ox.pipeline_to_onnx(pipe, TABLE, opset=15)

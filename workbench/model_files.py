@@ -1,0 +1,289 @@
+"""Saving and loading fitted pipelines: skops, joblib, and a manifest of checksums.
+
+An exported model folder holds the same fitted pipeline twice:
+
+``model.skops``
+    skops' format (:mod:`skops.io`). Loading it never runs code from the file:
+    skops rebuilds only the types it is told to trust. :func:`load_skops`
+    trusts scikit-learn's and NumPy's types and the project's own estimators
+    (:func:`project_types`), and refuses a file that names anything else.
+``model.joblib``
+    joblib's pickle, the ecosystem's habit. **Unpickling runs code**: a
+    pickle can do anything the loading user can do, so load only folders you
+    trust. :func:`load_joblib` checks the file's SHA-256 against the manifest
+    first, which catches a changed file, though not a forged manifest.
+``manifest.json``
+    SHA-256 and size of every file of the export and the versions of the
+    libraries that wrote it (a pickle is only guaranteed to load with the same
+    versions).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import inspect
+import json
+import platform
+from datetime import UTC, datetime
+from pathlib import Path
+
+from workbench import __version__
+from workbench.errors import InputError
+
+SKOPS_NAME = "model.skops"
+JOBLIB_NAME = "model.joblib"
+ONNX_NAME = "model.onnx"
+MANIFEST_NAME = "manifest.json"
+MANIFEST_FORMAT = "activation-workbench-export"
+MANIFEST_VERSION = 1
+
+#: modules whose types a skops file may name (besides skops' own default trust)
+TRUSTED_PREFIXES = ("sklearn.", "numpy.")
+
+#: the libraries whose versions a manifest records
+LIBRARIES = ("numpy", "scipy", "scikit-learn", "pandas", "joblib", "skops", "onnx",
+             "onnxruntime", "skl2onnx", "jsonschema", "matplotlib")
+
+_PICKLE_WARNING = ("unpickling runs code: load a joblib file only from a folder you trust "
+                   "(the skops file, the default, is the safe choice)")
+
+
+# --------------------------------------------------------------------------- checksums
+
+
+def sha256_of(path: str | Path, chunk: int = 1 << 20) -> str:
+    """SHA-256 hex digest of a file (FIPS 180-4, via :mod:`hashlib`)."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        while block := fh.read(chunk):
+            h.update(block)
+    return h.hexdigest()
+
+
+def library_versions() -> dict[str, str]:
+    """Versions of Python, the project and the libraries an export depends on."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    out = {"python": platform.python_version(), "activation-workbench": __version__}
+    for lib in LIBRARIES:
+        try:
+            out[lib] = version(lib)
+        except PackageNotFoundError:  # pragma: no cover - all are dependencies
+            out[lib] = "not installed"
+    return out
+
+
+def write_manifest(folder: str | Path, files: list[str] | None = None,
+                   extra: dict | None = None) -> Path:
+    """Write ``manifest.json`` listing every file of ``folder`` with its SHA-256.
+
+    Parameters
+    ----------
+    folder : path
+    files : list of str, optional
+        Names (relative to ``folder``) to record; default: every regular file
+        except the manifest itself.
+    extra : dict, optional
+        More top-level fields (e.g. the sweep and configuration exported).
+    """
+    folder = Path(folder)
+    if files is None:
+        files = sorted(p.name for p in folder.iterdir()
+                       if p.is_file() and p.name != MANIFEST_NAME)
+    manifest = {
+        "format": MANIFEST_FORMAT,
+        "version": MANIFEST_VERSION,
+        "created": datetime.now(UTC).isoformat(timespec="seconds"),
+        "libraries": library_versions(),
+        "files": {name: {"sha256": sha256_of(folder / name),
+                         "bytes": (folder / name).stat().st_size} for name in files},
+    }
+    if extra:
+        manifest.update(extra)
+    path = folder / MANIFEST_NAME
+    path.write_text(json.dumps(manifest, indent=2, sort_keys=False) + "\n", encoding="utf-8")
+    return path
+
+
+def read_manifest(folder: str | Path) -> dict:
+    """Read and sanity-check ``manifest.json`` of an export folder.
+
+    Raises
+    ------
+    InputError
+        when the folder has no readable manifest.
+    """
+    path = Path(folder) / MANIFEST_NAME
+    if not path.is_file():
+        raise InputError(f"{path.parent} has no {MANIFEST_NAME}; "
+                         "give a folder written by `workbench export`")
+    try:
+        manifest = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(f"{path} cannot be read ({exc}); re-export the model") from None
+    if not isinstance(manifest, dict) or manifest.get("format") != MANIFEST_FORMAT \
+            or not isinstance(manifest.get("files"), dict):
+        raise InputError(f"{path} is not a workbench export manifest; re-export the model")
+    return manifest
+
+
+def verify_file(folder: str | Path, name: str, manifest: dict | None = None) -> Path:
+    """Check one file of an export against the SHA-256 its manifest records.
+
+    Returns
+    -------
+    Path
+        The checked file.
+
+    Raises
+    ------
+    InputError
+        when the file is missing, not listed, or its checksum differs (the file
+        was changed after export).
+    """
+    folder = Path(folder)
+    manifest = read_manifest(folder) if manifest is None else manifest
+    path = folder / name
+    if not path.is_file():
+        raise InputError(f"{path} is missing; export the model with this format "
+                         f"or choose another")
+    entry = manifest["files"].get(name)
+    if not isinstance(entry, dict) or "sha256" not in entry:
+        raise InputError(f"{name} is not listed in {MANIFEST_NAME}, so it cannot be checked; "
+                         "re-export the model")
+    actual = sha256_of(path)
+    if actual != entry["sha256"]:
+        raise InputError(
+            f"{path} does not match the SHA-256 recorded in {MANIFEST_NAME} "
+            f"(expected {entry['sha256'][:12]}..., found {actual[:12]}...): the file was "
+            "changed after export; refusing to load it, re-export the model")
+    return path
+
+
+# --------------------------------------------------------------------------- trust
+
+
+def project_types() -> set[str]:
+    """Fully qualified names of the project's own estimator and transformer types.
+
+    These are the classes defined in :mod:`workbench.engine` and
+    :mod:`workbench.preprocessing` that derive from scikit-learn's
+    ``BaseEstimator``: the only project types a skops file may contain.
+    """
+    import importlib
+
+    from sklearn.base import BaseEstimator
+
+    names = set()
+    for mod_name in ("workbench.engine", "workbench.preprocessing"):
+        try:
+            mod = importlib.import_module(mod_name)
+        except ImportError:  # pragma: no cover - the module lands separately
+            continue
+        for _, obj in inspect.getmembers(mod, inspect.isclass):
+            if obj.__module__ == mod_name and issubclass(obj, BaseEstimator):
+                names.add(f"{obj.__module__}.{obj.__qualname__}")
+    return names
+
+
+def untrusted_types(names: list[str]) -> list[str]:
+    """The subset of ``names`` (from :func:`skops.io.get_untrusted_types`) we refuse."""
+    allowed = project_types()
+    return [n for n in names if n not in allowed and not n.startswith(TRUSTED_PREFIXES)]
+
+
+# --------------------------------------------------------------------------- save / load
+
+
+def save_skops(pipeline, path: str | Path) -> Path:
+    """Save a fitted pipeline in skops' format."""
+    import skops.io as sio
+
+    path = Path(path)
+    sio.dump(pipeline, path)
+    return path
+
+
+def save_joblib(pipeline, path: str | Path) -> Path:
+    """Save a fitted pipeline with joblib (a pickle: loading it runs code)."""
+    import joblib
+
+    path = Path(path)
+    joblib.dump(pipeline, path)
+    return path
+
+
+def load_skops(path: str | Path):
+    """Load a skops file, trusting only scikit-learn, NumPy and the project's types.
+
+    Raises
+    ------
+    InputError
+        naming the types the file asks for that are not trusted, or when the
+        file is not a readable skops file.
+    """
+    import skops.io as sio
+
+    path = Path(path)
+    try:
+        asked = sio.get_untrusted_types(file=path)
+    except Exception as exc:  # zip or schema errors: report, never a traceback
+        raise InputError(f"{path} is not a readable skops file ({type(exc).__name__}); "
+                         "re-export the model") from None
+    refused = untrusted_types(asked)
+    if refused:
+        raise InputError(
+            f"{path} names type(s) that are not trusted: {', '.join(refused)}; "
+            "only scikit-learn, NumPy and workbench types are loaded")
+    try:
+        return sio.load(path, trusted=asked)
+    except Exception as exc:
+        raise InputError(f"{path} could not be loaded ({type(exc).__name__}: {exc}); "
+                         "re-export the model") from None
+
+
+def load_joblib(path: str | Path, manifest: dict | None = None, warn=print):
+    """Load a joblib file after checking its SHA-256 against the folder's manifest.
+
+    Parameters
+    ----------
+    path : path
+        ``model.joblib`` inside an export folder.
+    manifest : dict, optional
+        The folder's manifest (read when not given).
+    warn : callable
+        Receives the one-line warning that unpickling runs code.
+    """
+    import joblib
+
+    path = Path(path)
+    verify_file(path.parent, path.name, manifest)
+    if warn is not None:
+        warn(f"warning: {_PICKLE_WARNING}")
+    try:
+        return joblib.load(path)
+    except Exception as exc:
+        raise InputError(f"{path} could not be unpickled ({type(exc).__name__}: {exc}); "
+                         "the library versions may differ from those in the manifest") from None
+
+
+def load_model(folder: str | Path, kind: str = "skops", warn=print):
+    """Load the pipeline of an export folder, checking the manifest first.
+
+    Parameters
+    ----------
+    folder : path
+    kind : {"skops", "joblib"}
+    warn : callable
+        Receives warnings (the pickle warning for joblib).
+    """
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise InputError(f"{folder} is not a folder; give the folder written by "
+                         "`workbench export`")
+    manifest = read_manifest(folder)
+    if kind == "skops":
+        return load_skops(verify_file(folder, SKOPS_NAME, manifest))
+    if kind == "joblib":
+        return load_joblib(folder / JOBLIB_NAME, manifest, warn=warn)
+    raise ValueError(f"kind must be 'skops' or 'joblib', not {kind!r}")
