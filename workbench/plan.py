@@ -1,0 +1,566 @@
+"""SweepPlan: the grid of configurations and the trials that evaluate them.
+
+A *plan* says what to try on which table: the hidden activations, the output
+heads, the hidden-layer shapes, the learning rates and L2 strengths, and how to
+evaluate them (K folds, stratified for classification, repeated R times with a
+seed per repeat, a number of epochs, early stopping or not, a scikit-learn
+scorer name).
+
+A *configuration* is one point of the grid (hidden x head x layers x learning
+rate x alpha). A *trial* is one configuration on one fold of one repeat, so a
+plan has ``n_configurations * K * R`` trials. Every configuration sees the same
+folds and, on a given fold, the same weight-initialisation seed, so that the
+fold scores of two configurations are paired (the ranking's t-test relies on
+it).
+
+Each configuration names the engine that trains it: scikit-learn's own
+``MLPRegressor`` / ``MLPClassifier`` where it can express the combination
+(hidden activation in :data:`workbench.activations.SKLEARN_HIDDEN` and the head
+scikit-learn uses for the task: identity or exp with the Poisson loss for
+regression, logistic / softmax for classification), the project's NumPy engine
+otherwise. ``engine="numpy"`` or ``"sklearn"`` overrides the choice
+(``"sklearn"`` for a combination it cannot express is an :class:`InputError`).
+
+A plan is plain data: :meth:`SweepPlan.to_dict` gives a JSON-able dict and
+:meth:`SweepPlan.from_dict` reads it back (the store keeps it in the sweep row,
+``--resume`` rebuilds the sweep from it).
+
+Examples
+--------
+>>> plan = SweepPlan(table="t.csv", target="y", task="regression",
+...                  target_kind="signed", hidden=["relu", "gelu"],
+...                  heads=["identity"], layers=[(16,)], folds=3, repeats=2)
+>>> len(plan.configurations()), len(plan.trials())
+(2, 12)
+>>> [c.engine for c in plan.configurations()]
+['sklearn', 'numpy']
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from workbench.activations import SKLEARN_HEADS, SKLEARN_HIDDEN, resolve_head, resolve_hidden
+from workbench.errors import InputError
+
+PLAN_VERSION = 1
+
+#: scikit-learn scorer names the sweep offers, per task
+CLASSIFICATION_METRICS = ("accuracy", "balanced_accuracy", "roc_auc", "neg_log_loss")
+REGRESSION_METRICS = ("r2", "neg_root_mean_squared_error", "neg_mean_absolute_error",
+                      "neg_mean_poisson_deviance")
+
+#: the default metric per target kind (see :func:`default_metric`)
+DEFAULT_METRIC = {
+    "binary": "roc_auc",
+    "multiclass": "balanced_accuracy",
+    "signed": "r2",
+    "non_negative": "r2",
+    "bounded": "r2",
+    "count": "neg_mean_poisson_deviance",
+}
+
+ENGINES = ("auto", "numpy", "sklearn")
+
+#: heads whose predictions are always > 0, so the Poisson deviance is defined
+_POSITIVE_HEADS = {"exp"}
+
+
+def default_metric(kind: str, heads=None) -> str:
+    """The metric a sweep uses when the user names none.
+
+    Binary targets use ``roc_auc`` (threshold-free, insensitive to class
+    imbalance), multiclass targets ``balanced_accuracy``, continuous targets
+    ``r2``. Count targets use ``neg_mean_poisson_deviance`` when every head
+    tried gives strictly positive predictions (the deviance is undefined
+    otherwise), else ``r2``. These are common-practice choices, not rules.
+
+    Parameters
+    ----------
+    kind : str
+        Target kind from the intake (binary, multiclass, signed, non_negative,
+        count, bounded).
+    heads : iterable of str, optional
+        The heads the sweep will try.
+    """
+    if kind not in DEFAULT_METRIC:
+        raise InputError(f"unknown target kind {kind!r}; expected one of: {', '.join(DEFAULT_METRIC)}")
+    metric = DEFAULT_METRIC[kind]
+    if metric == "neg_mean_poisson_deviance" and heads is not None:
+        if not set(heads) <= _POSITIVE_HEADS:
+            metric = "r2"
+    return metric
+
+
+def check_metric(metric: str, task: str, kind: str | None = None) -> str:
+    """Validate a scorer name for a task; return it.
+
+    Raises
+    ------
+    InputError
+        when the name is not a scikit-learn scorer or does not suit the task.
+    """
+    from sklearn.metrics import get_scorer_names
+
+    name = str(metric).strip()
+    if name not in get_scorer_names():
+        offered = ", ".join(CLASSIFICATION_METRICS if task == "classification" else REGRESSION_METRICS)
+        raise InputError(f"unknown metric {metric!r}; choose a scikit-learn scorer name such as: {offered}")
+    if task == "classification" and name in REGRESSION_METRICS:
+        raise InputError(f"metric {name!r} is for regression but the target is a classification "
+                         f"target; choose one of: {', '.join(CLASSIFICATION_METRICS)}")
+    if task == "regression" and name in CLASSIFICATION_METRICS:
+        raise InputError(f"metric {name!r} is for classification but the target is a regression "
+                         f"target; choose one of: {', '.join(REGRESSION_METRICS)}")
+    if name == "roc_auc" and kind == "multiclass":
+        raise InputError("metric 'roc_auc' needs a binary target; for a multiclass target use "
+                         "'roc_auc_ovr' or 'balanced_accuracy'")
+    return name
+
+
+def sklearn_can_express(task: str, hidden: str, head: str, kind: str | None = None) -> bool:
+    """Whether scikit-learn's own MLP implements this combination.
+
+    scikit-learn's MLP offers the hidden activations identity, logistic, tanh
+    and relu; its regressor's output is the identity (squared error) or, with
+    ``loss="poisson"``, the exponential; its classifier's output is logistic
+    for a binary target and softmax for a multiclass one, both with log-loss
+    (so a softmax head on a binary target needs the NumPy engine).
+    """
+    if hidden not in SKLEARN_HIDDEN or (task, head) not in SKLEARN_HEADS:
+        return False
+    if task == "classification" and kind is not None:
+        return head == ("logistic" if kind == "binary" else "softmax")
+    return True
+
+
+def choose_engine(requested: str, task: str, hidden: str, head: str,
+                  kind: str | None = None) -> str:
+    """The engine that trains one configuration ("numpy" or "sklearn")."""
+    if requested not in ENGINES:
+        raise InputError(f"unknown engine {requested!r}; choose one of: {', '.join(ENGINES)}")
+    can = sklearn_can_express(task, hidden, head, kind)
+    if requested == "auto":
+        return "sklearn" if can else "numpy"
+    if requested == "sklearn" and not can:
+        raise InputError(
+            f"scikit-learn's MLP cannot express hidden {hidden!r} with head {head!r} for "
+            f"{task}; use --engine auto or numpy (it offers hidden "
+            f"{', '.join(SKLEARN_HIDDEN)} with its own output layer)")
+    return requested
+
+
+def parse_layers(text) -> tuple[int, ...]:
+    """Hidden-layer shape from ``"64"``, ``"64,32"``, an int or a sequence of ints."""
+    if isinstance(text, int | np.integer):
+        sizes = (int(text),)
+    elif isinstance(text, str):
+        parts = [p for p in text.replace("x", ",").split(",") if p.strip()]
+        try:
+            sizes = tuple(int(p) for p in parts)
+        except ValueError:
+            raise InputError(f"hidden-layer shape {text!r} is not a list of integers; "
+                             "write e.g. 64 or 64,32") from None
+    else:
+        sizes = tuple(int(s) for s in text)
+    if not sizes or any(s < 1 for s in sizes):
+        raise InputError(f"hidden-layer shape {text!r} needs one or more positive widths, e.g. 64,32")
+    return sizes
+
+
+def layers_text(layers) -> str:
+    return ",".join(str(s) for s in layers)
+
+
+def derived_seed(*parts: int) -> int:
+    """A 31-bit seed derived from integers with NumPy's SeedSequence."""
+    return int(np.random.SeedSequence([int(p) for p in parts]).generate_state(1)[0] >> 1)
+
+
+@dataclass(frozen=True)
+class Configuration:
+    """One point of the grid."""
+
+    index: int
+    hidden: str
+    head: str
+    layers: tuple[int, ...]
+    learning_rate: float
+    alpha: float
+    engine: str
+
+    @property
+    def label(self) -> str:
+        return (f"{self.hidden}/{self.head} [{layers_text(self.layers)}] "
+                f"lr={self.learning_rate:g} alpha={self.alpha:g}")
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["layers"] = list(self.layers)
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict) -> Configuration:
+        return cls(index=int(d["index"]), hidden=d["hidden"], head=d["head"],
+                   layers=tuple(int(s) for s in d["layers"]),
+                   learning_rate=float(d["learning_rate"]), alpha=float(d["alpha"]),
+                   engine=d["engine"])
+
+
+@dataclass(frozen=True)
+class Trial:
+    """One configuration on one fold of one repeat."""
+
+    config_index: int
+    repeat: int
+    fold: int
+
+    @property
+    def key(self) -> tuple[int, int, int]:
+        return (self.config_index, self.repeat, self.fold)
+
+
+@dataclass
+class SweepPlan:
+    """Everything a sweep needs to run, as plain data.
+
+    Parameters
+    ----------
+    table : str
+        Path of the table file.
+    target : str
+        Name of the target column.
+    task : {"regression", "classification"}
+    target_kind : str
+        The intake's target kind (binary, multiclass, signed, non_negative,
+        count, bounded).
+    hidden : list of str
+        Hidden activations to try (names from :data:`workbench.activations.HIDDEN`).
+    heads : list of str
+        Output heads to try, already resolved (no ``"auto"``) and accepted by
+        the compatibility guard.
+    layers : list of tuple of int
+        Hidden-layer shapes, e.g. ``[(64,), (64, 32)]``.
+    learning_rates, alphas : list of float
+        Adam's initial learning rates and L2 strengths to try.
+    folds, repeats : int
+        K and R of the repeated (stratified) K-fold cross-validation.
+    epochs : int
+        Maximum epochs (``max_iter``).
+    early_stopping : bool
+        Hold out 10 % of each training fold and stop when its score stalls.
+    metric : str or None
+        scikit-learn scorer name; None picks :func:`default_metric`.
+    engine : {"auto", "numpy", "sklearn"}
+    seed : int
+        Seeds the folds of every repeat and the weight initialisation of every trial.
+    batch_size : int or "auto"
+    dtype : {"float32", "float64"}
+        Precision of the NumPy engine (scikit-learn's MLP trains in float64).
+    sheet : str or None
+        Sheet name for Excel tables.
+    requested_output : str
+        What the user asked for as output heads (``auto``, ``all`` or a list),
+        kept for the record.
+    refused_heads, head_warnings : dict
+        ``{head: reason}`` from the intake's compatibility guard: heads left out
+        of the grid, and heads kept with a warning.
+    """
+
+    table: str
+    target: str
+    task: str
+    target_kind: str
+    hidden: list[str]
+    heads: list[str]
+    layers: list[tuple[int, ...]] = field(default_factory=lambda: [(64,)])
+    learning_rates: list[float] = field(default_factory=lambda: [0.001])
+    alphas: list[float] = field(default_factory=lambda: [0.0001])
+    folds: int = 5
+    repeats: int = 2
+    epochs: int = 200
+    early_stopping: bool = False
+    metric: str | None = None
+    engine: str = "auto"
+    seed: int = 0
+    batch_size: int | str = "auto"
+    dtype: str = "float32"
+    sheet: str | None = None
+    requested_output: str = "auto"
+    refused_heads: dict = field(default_factory=dict)
+    head_warnings: dict = field(default_factory=dict)
+
+    def __post_init__(self):
+        self.validate()
+
+    # ------------------------------------------------------------------ checks
+    def validate(self) -> None:
+        """Check the plan; raise :class:`InputError` naming the first problem."""
+        if self.task not in ("regression", "classification"):
+            raise InputError(f"task must be regression or classification, not {self.task!r}")
+        try:
+            self.hidden = list(dict.fromkeys(resolve_hidden(h) for h in self.hidden))
+            self.heads = list(dict.fromkeys(resolve_head(h, self.task).name for h in self.heads))
+        except ValueError as exc:
+            raise InputError(str(exc)) from None
+        if not self.hidden:
+            raise InputError("the plan has no hidden activation to try; name at least one")
+        if not self.heads:
+            raise InputError("the plan has no output head to try; name at least one")
+        self.layers = list(dict.fromkeys(parse_layers(s) for s in self.layers))
+        self.learning_rates = list(dict.fromkeys(float(v) for v in self.learning_rates))
+        self.alphas = list(dict.fromkeys(float(v) for v in self.alphas))
+        if not self.learning_rates or any(not np.isfinite(v) or v <= 0 for v in self.learning_rates):
+            raise InputError("learning rates must be positive numbers, e.g. 0.001")
+        if not self.alphas or any(not np.isfinite(v) or v < 0 for v in self.alphas):
+            raise InputError("L2 strengths (alpha) must be numbers >= 0, e.g. 0.0001")
+        if int(self.folds) < 2:
+            raise InputError(f"--folds must be at least 2, got {self.folds}")
+        if int(self.repeats) < 1:
+            raise InputError(f"--repeats must be at least 1, got {self.repeats}")
+        if int(self.epochs) < 1:
+            raise InputError(f"--epochs must be at least 1, got {self.epochs}")
+        self.folds, self.repeats, self.epochs = int(self.folds), int(self.repeats), int(self.epochs)
+        self.seed = int(self.seed)
+        if self.dtype not in ("float32", "float64"):
+            raise InputError(f"dtype must be float32 or float64, not {self.dtype!r}")
+        if self.batch_size != "auto":
+            self.batch_size = int(self.batch_size)
+            if self.batch_size < 1:
+                raise InputError("batch size must be a positive integer or 'auto'")
+        if self.metric is None:
+            self.metric = default_metric(self.target_kind, self.heads)
+        self.metric = check_metric(self.metric, self.task, self.target_kind)
+        # raises for an engine that cannot express a combination
+        self.configurations()
+
+    # ------------------------------------------------------------------ grid
+    def configurations(self) -> list[Configuration]:
+        """The grid, in a fixed order (hidden, head, layers, learning rate, alpha)."""
+        out = []
+        grid = itertools.product(self.hidden, self.heads, self.layers, self.learning_rates,
+                                 self.alphas)
+        for i, (h, o, lay, lr, a) in enumerate(grid):
+            out.append(Configuration(i, h, o, tuple(lay), float(lr), float(a),
+                                     choose_engine(self.engine, self.task, h, o,
+                                                   self.target_kind)))
+        return out
+
+    @property
+    def n_configurations(self) -> int:
+        return (len(self.hidden) * len(self.heads) * len(self.layers)
+                * len(self.learning_rates) * len(self.alphas))
+
+    @property
+    def n_trials(self) -> int:
+        return self.n_configurations * self.folds * self.repeats
+
+    def trials(self) -> list[Trial]:
+        """Every trial, ordered repeat-major then fold then configuration.
+
+        This order spreads each configuration over the whole sweep, so that an
+        interrupted sweep has seen every configuration on its first folds.
+        """
+        return [Trial(c, r, f) for r in range(self.repeats) for f in range(self.folds)
+                for c in range(self.n_configurations)]
+
+    # ------------------------------------------------------------------ seeds, folds
+    def split_seed(self, repeat: int) -> int:
+        """The shuffling seed of the folds of one repeat."""
+        return derived_seed(self.seed, repeat, 0)
+
+    def model_seed(self, repeat: int, fold: int) -> int:
+        """The weight-initialisation / batch-shuffling seed of every trial on a fold.
+
+        The same for every configuration, so paired trials differ only in the
+        configuration (common random numbers).
+        """
+        return derived_seed(self.seed, repeat, fold + 1, 1)
+
+    def splitter(self, repeat: int):
+        """The scikit-learn splitter of one repeat (StratifiedKFold for classification)."""
+        from sklearn.model_selection import KFold, StratifiedKFold
+
+        cls = StratifiedKFold if self.task == "classification" else KFold
+        return cls(n_splits=self.folds, shuffle=True, random_state=self.split_seed(repeat))
+
+    def fold_indices(self, y) -> dict[tuple[int, int], tuple[np.ndarray, np.ndarray]]:
+        """``{(repeat, fold): (train_rows, test_rows)}`` for a target vector ``y``.
+
+        Raises
+        ------
+        InputError
+            when the table is too small for K folds (or a class has fewer than
+            K rows, for stratified folds).
+        """
+        y = np.asarray(y)
+        n = len(y)
+        if n < 2 * self.folds:
+            raise InputError(f"the table has {n} usable rows, too few for {self.folds} folds; "
+                             "use fewer folds or more rows")
+        if self.task == "classification":
+            _, counts = np.unique(y.astype(str), return_counts=True)
+            if counts.min() < self.folds:
+                raise InputError(f"the rarest class has {counts.min()} rows, fewer than the "
+                                 f"{self.folds} folds; use --folds {max(2, int(counts.min()))} "
+                                 "or merge rare classes")
+        out = {}
+        for r in range(self.repeats):
+            ys = y.astype(str) if self.task == "classification" else y
+            for f, (tr, te) in enumerate(self.splitter(r).split(np.zeros((n, 1)), ys)):
+                out[(r, f)] = (tr, te)
+        return out
+
+    # ------------------------------------------------------------------ JSON
+    def to_dict(self) -> dict:
+        """A JSON-able dict (layers as lists)."""
+        d = asdict(self)
+        d["layers"] = [list(s) for s in self.layers]
+        d["plan_version"] = PLAN_VERSION
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict) -> SweepPlan:
+        """Rebuild a plan from :meth:`to_dict`'s output."""
+        d = dict(d)
+        version = d.pop("plan_version", PLAN_VERSION)
+        if version > PLAN_VERSION:
+            raise InputError(f"this plan was written by a newer workbench (plan version {version}); "
+                             "upgrade the workbench to read it")
+        d["layers"] = [tuple(s) for s in d.get("layers", [(64,)])]
+        known = set(cls.__dataclass_fields__)
+        return cls(**{k: v for k, v in d.items() if k in known})
+
+
+# --------------------------------------------------------------------------- building a plan
+
+
+def _split_list(value) -> list[str]:
+    if value is None:
+        return []
+    if isinstance(value, str):
+        value = [value]
+    out = []
+    for v in value:
+        out.extend(p.strip() for p in str(v).split(",") if p.strip())
+    return out
+
+
+def _numbers(value, what: str) -> list[float]:
+    out = []
+    for p in _split_list(value):
+        try:
+            out.append(float(p))
+        except ValueError:
+            raise InputError(f"{what} {p!r} is not a number; write e.g. 0.001") from None
+    return out
+
+
+def resolve_heads(target, output="auto") -> tuple[list[str], dict, dict]:
+    """The heads to try for ``output`` (``auto``, ``all`` or names), guarded.
+
+    Returns
+    -------
+    heads : list of str
+        Accepted heads, in the requested order (``auto``: the advised head).
+    refused : dict
+        ``{head: reason}`` for heads the compatibility guard refused.
+    warnings : dict
+        ``{head: reason}`` for heads accepted with a warning.
+
+    Raises
+    ------
+    InputError
+        when every requested head is refused, naming each and why.
+    """
+    from workbench.activations import head_names
+    from workbench.profiling import advise, check_head
+
+    names = _split_list(output) or ["auto"]
+    wanted = []
+    for n in names:
+        key = n.lower()
+        if key == "auto":
+            wanted.append(advise(target).output_head)
+        elif key == "all":
+            wanted.extend(head_names(target.task))
+        else:
+            wanted.append(key)
+    heads, refused, warns = [], {}, {}
+    for n in dict.fromkeys(wanted):
+        chk = check_head(target, n)
+        name = chk.head or n
+        if not chk.allowed:
+            refused[name] = chk.reason
+        elif name not in heads:
+            heads.append(name)
+            if chk.warning:
+                warns[name] = chk.reason
+    if not heads:
+        why = "; ".join(f"{h}: {r}" for h, r in refused.items())
+        raise InputError(f"every requested output head is refused for target {target.name!r} "
+                         f"({target.kind}): {why}")
+    return heads, refused, warns
+
+
+def build_plan(table, target: str, *, hidden="default", output="auto", layers=None,
+               learning_rates=None, alphas=None, folds=5, repeats=2, epochs=200,
+               early_stopping=False, metric=None, engine="auto", seed=0, batch_size="auto",
+               dtype="float32", sheet=None, df=None, target_info=None) -> SweepPlan:
+    """A :class:`SweepPlan` from command-line style choices.
+
+    Parameters
+    ----------
+    table : str
+        The table's path (loaded with :func:`workbench.intake.load_table`
+        unless ``df`` is given).
+    target : str
+        Target column.
+    hidden : str or list of str
+        Hidden activations (comma-separated names allowed), ``"all"`` or
+        ``"default"`` (the intake's advice: relu, tanh, leaky_relu, gelu, silu).
+    output : str or list of str
+        ``"auto"`` (the advised head), ``"all"`` (every head the guard accepts)
+        or head names.
+    layers : list of str or tuple, optional
+        Hidden-layer shapes, e.g. ``["64", "64,32"]``; default ``[(64,)]``.
+    learning_rates, alphas : list, optional
+        Defaults ``[0.001]`` and ``[0.0001]`` (scikit-learn's defaults).
+    Other parameters are those of :class:`SweepPlan`.
+
+    Raises
+    ------
+    InputError
+        for a bad table, target or option, or when every requested head is refused.
+    """
+    from workbench.activations import hidden_names
+    from workbench.profiling import HIDDEN_TO_SWEEP, analyse_target
+
+    if df is None:
+        from workbench.intake import load_table
+
+        df, _ = load_table(table, sheet=sheet)
+    info = target_info if target_info is not None else analyse_target(df, target)
+    names = _split_list(hidden) or ["default"]
+    hid = []
+    for n in names:
+        key = n.lower()
+        if key == "all":
+            hid.extend(hidden_names())
+        elif key == "default":
+            hid.extend(HIDDEN_TO_SWEEP)
+        else:
+            hid.append(n)
+    heads, refused, warns = resolve_heads(info, output)
+    lays = [parse_layers(v) for v in (layers or ["64"])]
+    lrs = _numbers(learning_rates, "learning rate") or [0.001]
+    als = _numbers(alphas, "alpha") or [0.0001]
+    return SweepPlan(table=str(table), target=target, task=info.task, target_kind=info.kind,
+                     hidden=hid, heads=heads, layers=lays, learning_rates=lrs, alphas=als,
+                     folds=folds, repeats=repeats, epochs=epochs, early_stopping=early_stopping,
+                     metric=metric, engine=engine, seed=seed, batch_size=batch_size, dtype=dtype,
+                     sheet=sheet, requested_output=",".join(_split_list(output)) or "auto",
+                     refused_heads=refused, head_warnings=warns)

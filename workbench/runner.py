@@ -1,0 +1,482 @@
+"""Run a sweep: trials in worker processes or on a Dask cluster, stored as they finish.
+
+:func:`run_sweep` runs every trial of a :class:`workbench.plan.SweepPlan` (or the
+missing ones of a stored sweep, with ``resume=``) and commits each finished
+trial to the :class:`workbench.store.Store` the moment it arrives.
+
+Where trials run
+----------------
+- Locally (default): joblib's loky process pool with ``jobs`` workers (default:
+  every core), each worker with a single BLAS thread, so nothing is
+  oversubscribed. The table goes to each worker once (the pool's initializer),
+  and work goes out one *trial* at a time, never more trials in flight than
+  workers, so both cores stay busy to the end and a cancel is prompt.
+- On a Dask distributed cluster (``cluster="tcp://HOST:PORT"`` or a
+  ``distributed.Client``): the table is scattered to the workers once
+  (``Client.scatter(..., broadcast=True)``) and trials are submitted as
+  futures, as many in flight as the cluster has worker threads. Workers need
+  the same workbench installed.
+- ``backend="inline"`` runs the trials one after another in the calling
+  process (debugging; no protection against a crashing trial).
+
+A trial is a pure function of the table, its fold and its seed, so the scores
+are identical for the same plan whatever the number of jobs or the cluster.
+
+Events
+------
+``on_event(event)`` is called in the calling process (in the thread that runs
+:func:`run_sweep`) with dicts:
+
+``{"type": "sweep_started", "sweep_id", "n_trials", "n_todo", "n_stored",
+"n_configurations", "metric", "resumed", "backend", "workers", "time"}``
+    once, before the first trial;
+``{"type": "trial_started", "sweep_id", "config_index", "repeat", "fold",
+"attempt", "label", "time"}``
+    when a trial is handed to a worker;
+``{"type": "trial_finished", "sweep_id", "config_index", "repeat", "fold",
+"status", "test_score", "train_score", "fit_seconds", "epochs", "engine",
+"error", "n_finished", "n_todo", "best_index", "best_mean", "best_label",
+"time"}``
+    when a trial is stored (``status`` done, diverged or failed), or dropped at
+    a cancel (``status`` cancelled, not stored); ``best_*`` is the configuration
+    with the best mean test score so far among those without a failed trial;
+``{"type": "sweep_finished", "sweep_id", "state", "n_finished", "n_todo",
+"seconds", "time"}``
+    once at the end; ``state`` is ``finished`` or ``interrupted``.
+
+Cancel, crashes, resume
+-----------------------
+``cancel`` is a :class:`threading.Event`; it is checked between trials (and
+while waiting for them): no new trial starts, running trials are abandoned
+(their workers stopped), every finished trial stays stored and the sweep is
+marked ``interrupted``. A KeyboardInterrupt (Ctrl-C) does the same and is then
+re-raised. A worker that dies (killed, out of memory) costs only its trials:
+each is retried once, alone, and marked ``failed`` if its worker dies again.
+``run_sweep(resume=SWEEP_ID)`` runs exactly the trials that are not stored,
+after checking that the table file still has the stored fingerprint.
+"""
+
+from __future__ import annotations
+
+import collections
+import datetime as _dt
+import secrets
+import threading
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from workbench.errors import InputError
+from workbench.plan import SweepPlan
+from workbench.store import FINISHED, INTERRUPTED, RUNNING, Store, table_fingerprint
+from workbench.trials import CANCELLED, DONE, FAILED, TrialData, init_worker, run_trial, \
+    run_trial_in_worker
+
+#: a worker that dies under a trial costs the trial one attempt; one retry by default
+RETRIES = 1
+#: seconds between checks of the cancel flag while trials run
+POLL_SECONDS = 0.2
+_THREAD_ENV = {v: "1" for v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
+                                "BLIS_NUM_THREADS", "VECLIB_MAXIMUM_THREADS")}
+
+
+@dataclass
+class SweepOutcome:
+    """What :func:`run_sweep` returns."""
+
+    sweep_id: str
+    state: str
+    n_finished: int
+    n_todo: int
+    seconds: float
+
+
+def new_sweep_id() -> str:
+    return _dt.datetime.now(_dt.UTC).strftime("%Y%m%d-%H%M%S-") + secrets.token_hex(3)
+
+
+def load_data(plan: SweepPlan):
+    """Load the plan's table; return ``(TrialData, fingerprint)``."""
+    from workbench.intake import load_table
+    from workbench.profiling import analyse_target, profile_table, split_xy
+
+    df, _ = load_table(plan.table, sheet=plan.sheet)
+    target = analyse_target(df, plan.target)
+    if target.task != plan.task:
+        raise InputError(f"target {plan.target!r} is now a {target.task} target, but the plan "
+                         f"was made for {plan.task}; start a new sweep")
+    profile = profile_table(df, target=plan.target)
+    X, y = split_xy(df, target)
+    return TrialData(X=X, y=y, profile=profile, target=target), table_fingerprint(plan.table, df)
+
+
+def default_jobs() -> int:
+    from joblib import cpu_count
+
+    return max(1, int(cpu_count()))
+
+
+# --------------------------------------------------------------------------- the sweep
+
+
+def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
+              resume: str | None = None, jobs: int | None = None, cluster=None,
+              backend: str = "processes", on_event=None, cancel: threading.Event | None = None,
+              retries: int = RETRIES, sweep_id: str | None = None) -> SweepOutcome:
+    """Run a sweep (or the missing trials of a stored one) and store every trial.
+
+    Parameters
+    ----------
+    plan : SweepPlan, optional
+        The plan of a new sweep (not with ``resume``).
+    store : Store, optional
+        Where trials go; default the user's store.
+    resume : str, optional
+        Id of a stored sweep to finish.
+    jobs : int, optional
+        Worker processes (default: every core).
+    cluster : str or distributed.Client, optional
+        A Dask scheduler address (``tcp://HOST:PORT``) or a connected client.
+    backend : {"processes", "inline"}
+        Local execution (ignored with ``cluster``).
+    on_event : callable, optional
+        Receives the event dicts (module docstring).
+    cancel : threading.Event, optional
+        Set it to stop the sweep between trials.
+    retries : int
+        Extra attempts for a trial whose worker died.
+    sweep_id : str, optional
+        Id for a new sweep (default: time stamp + random suffix).
+
+    Returns
+    -------
+    SweepOutcome
+
+    Raises
+    ------
+    InputError
+        for a bad plan, an unknown sweep, a table that no longer matches the
+        stored fingerprint, or a sweep still running in another process.
+    """
+    t0 = time.perf_counter()
+    store = store if store is not None else Store()
+    cancel = cancel if cancel is not None else threading.Event()
+    emit = on_event if on_event is not None else (lambda event: None)
+    if (plan is None) == (resume is None):
+        raise InputError("give either a plan for a new sweep or the id of a sweep to resume")
+    if resume is not None:
+        sweep = store.get_sweep(resume)
+        if sweep["state"] == FINISHED and sweep["n_stored"] >= sweep["n_trials"]:
+            raise InputError(f"sweep {resume} is already finished; see workbench show {resume}")
+        if sweep["state"] == RUNNING:
+            raise InputError(f"sweep {resume} is still running (process {sweep['pid']} on "
+                             f"{sweep['host']}); wait for it or stop it first")
+        plan = SweepPlan.from_dict(sweep["plan"])
+        data, fingerprint = load_data(plan)
+        stored = sweep["fingerprint"]
+        if fingerprint["sha256"] != stored["sha256"] or fingerprint["rows"] != stored["rows"] \
+                or fingerprint["columns"] != stored["columns"]:
+            raise InputError(f"the table {plan.table} has changed since sweep {resume} started "
+                             "(its SHA-256 fingerprint no longer matches), so the stored trials "
+                             "cannot be combined with new ones; start a new sweep")
+        sweep_id = resume
+        store.set_state(sweep_id, RUNNING)
+        done = store.finished_keys(sweep_id)
+    else:
+        data, fingerprint = load_data(plan)
+        sweep_id = sweep_id or new_sweep_id()
+        store.create_sweep(sweep_id, plan.to_dict(), fingerprint,
+                           [c.to_dict() for c in plan.configurations()])
+        done = set()
+    try:
+        folds = plan.fold_indices(data.y)
+    except InputError:
+        store.set_state(sweep_id, INTERRUPTED)
+        raise
+    configs = plan.configurations()
+    todo = [t for t in plan.trials() if t.key not in done]
+    run = _Run(plan, configs, folds, sweep_id, store, emit, cancel, len(todo))
+    for t in store.trials(sweep_id, with_history=False):
+        run.note_score(t)
+    if cluster is not None:
+        executor = _DaskExecutor(cluster, data)
+    elif backend == "inline":
+        executor = _InlineExecutor(data)
+    elif backend == "processes":
+        executor = _LokyExecutor(jobs or default_jobs(), data)
+    else:
+        raise InputError(f"unknown backend {backend!r}; use processes or inline")
+    emit({"type": "sweep_started", "sweep_id": sweep_id, "n_trials": plan.n_trials,
+          "n_todo": len(todo), "n_stored": len(done), "n_configurations": len(configs),
+          "metric": plan.metric, "resumed": resume is not None, "backend": executor.name,
+          "workers": executor.workers, "time": time.time()})
+    interrupted = False
+    try:
+        interrupted = run.execute(executor, todo, retries)
+    except KeyboardInterrupt:
+        run.cancel_running()
+        store.set_state(sweep_id, INTERRUPTED)
+        emit(run.finished_event(INTERRUPTED, t0))
+        executor.close(kill=True)
+        raise
+    except BaseException:
+        store.set_state(sweep_id, INTERRUPTED)
+        executor.close(kill=True)
+        raise
+    state = INTERRUPTED if interrupted else FINISHED
+    executor.close(kill=interrupted)
+    store.set_state(sweep_id, state)
+    emit(run.finished_event(state, t0))
+    return SweepOutcome(sweep_id, state, run.n_finished, len(todo), time.perf_counter() - t0)
+
+
+class _Run:
+    """Book-keeping of one run: specs, retries, events, best so far."""
+
+    def __init__(self, plan, configs, folds, sweep_id, store, emit, cancel, n_todo):
+        self.plan, self.configs, self.folds = plan, configs, folds
+        self.sweep_id, self.store, self.emit, self.cancel = sweep_id, store, emit, cancel
+        self.n_todo, self.n_finished = n_todo, 0
+        self.sums = collections.defaultdict(lambda: [0.0, 0])
+        self.bad = set()
+        self.running = {}  # handle -> (trial, attempt)
+
+    def spec(self, trial, attempt):
+        tr, te = self.folds[(trial.repeat, trial.fold)]
+        p = self.plan
+        return {"config": self.configs[trial.config_index].to_dict(), "repeat": trial.repeat,
+                "fold": trial.fold, "train": tr.astype(np.int32), "test": te.astype(np.int32),
+                "random_state": p.model_seed(trial.repeat, trial.fold), "task": p.task,
+                "metric": p.metric, "epochs": p.epochs, "early_stopping": p.early_stopping,
+                "batch_size": p.batch_size, "dtype": p.dtype, "attempt": attempt}
+
+    def note_score(self, res):
+        c = res["config_index"]
+        if res["status"] == DONE and res.get("test_score") is not None:
+            s = self.sums[c]
+            s[0] += res["test_score"]
+            s[1] += 1
+        elif res["status"] != DONE:
+            self.bad.add(c)
+
+    def best(self):
+        means = {c: s[0] / s[1] for c, s in self.sums.items() if s[1] and c not in self.bad}
+        if not means:
+            return None, None
+        c = max(means, key=lambda k: (means[k], -k))
+        return c, means[c]
+
+    def started(self, trial, attempt):
+        self.emit({"type": "trial_started", "sweep_id": self.sweep_id,
+                   "config_index": trial.config_index, "repeat": trial.repeat,
+                   "fold": trial.fold, "attempt": attempt,
+                   "label": self.configs[trial.config_index].label, "time": time.time()})
+
+    def finished(self, res):
+        self.store.add_trial(self.sweep_id, res)
+        self.n_finished += 1
+        self.note_score(res)
+        self._emit_finished(res)
+
+    def _emit_finished(self, res):
+        b, m = self.best()
+        self.emit({"type": "trial_finished", "sweep_id": self.sweep_id,
+                   "config_index": res["config_index"], "repeat": res["repeat"],
+                   "fold": res["fold"], "status": res["status"],
+                   "test_score": res.get("test_score"), "train_score": res.get("train_score"),
+                   "fit_seconds": res.get("fit_seconds"), "epochs": res.get("epochs"),
+                   "engine": res.get("engine"), "error": res.get("error"),
+                   "n_finished": self.n_finished, "n_todo": self.n_todo, "best_index": b,
+                   "best_mean": m, "best_label": self.configs[b].label if b is not None else None,
+                   "time": time.time()})
+
+    def cancel_running(self):
+        for trial, _attempt in list(self.running.values()):
+            self._emit_finished({"config_index": trial.config_index, "repeat": trial.repeat,
+                                 "fold": trial.fold, "status": CANCELLED,
+                                 "engine": self.configs[trial.config_index].engine})
+        self.running.clear()
+
+    def finished_event(self, state, t0):
+        return {"type": "sweep_finished", "sweep_id": self.sweep_id, "state": state,
+                "n_finished": self.n_finished, "n_todo": self.n_todo,
+                "seconds": time.perf_counter() - t0, "time": time.time()}
+
+    def lost(self, trial, attempt, error):
+        """A trial whose worker died: the stored failure after the last attempt."""
+        cfg = self.configs[trial.config_index]
+        tr, te = self.folds[(trial.repeat, trial.fold)]
+        return {"config_index": trial.config_index, "repeat": trial.repeat, "fold": trial.fold,
+                "status": FAILED, "test_score": None, "train_score": None, "fit_seconds": None,
+                "epochs": None, "engine": cfg.engine, "n_train": len(tr), "n_test": len(te),
+                "error": f"the worker process died {attempt} times running this trial "
+                         f"(killed or out of memory?): {error}", "attempts": attempt,
+                "history": {}, "health": {}}
+
+    def execute(self, executor, todo, retries) -> bool:
+        """Run ``todo``; True when cancelled before the end."""
+        pending = collections.deque((t, 1) for t in todo)
+        suspects = collections.deque()  # retries after a worker death, run alone
+        while pending or suspects or self.running:
+            if self.cancel.is_set():
+                self.cancel_running()
+                return True
+            # fill free workers; a suspect runs only on an otherwise idle pool
+            while len(self.running) < executor.workers:
+                if suspects:
+                    if self.running:
+                        break
+                    trial, attempt = suspects.popleft()
+                elif pending:
+                    trial, attempt = pending.popleft()
+                else:
+                    break
+                handle = executor.submit(self.spec(trial, attempt))
+                self.running[handle] = (trial, attempt)
+                self.started(trial, attempt)
+                if attempt > 1:
+                    break
+            # a trial that finished is stored even when a cancel came meanwhile
+            for handle, outcome, error in executor.wait(list(self.running), POLL_SECONDS):
+                trial, attempt = self.running.pop(handle)
+                if error is None:
+                    outcome["attempts"] = attempt
+                    self.finished(outcome)
+                elif attempt <= retries:
+                    suspects.append((trial, attempt + 1))
+                else:
+                    self.finished(self.lost(trial, attempt, error))
+        return False
+
+
+# --------------------------------------------------------------------------- executors
+
+
+class _InlineExecutor:
+    name = "inline"
+    workers = 1
+
+    def __init__(self, data):
+        self.data = data
+        self._results = {}
+        self._n = 0
+
+    def submit(self, spec):
+        self._n += 1
+        self._results[self._n] = run_trial(self.data, spec)
+        return self._n
+
+    def wait(self, handles, timeout):
+        out = [(h, self._results.pop(h), None) for h in handles]
+        return out
+
+    def close(self, kill=False):
+        pass
+
+
+class _LokyExecutor:
+    """loky processes; the table is installed once per worker by the initializer."""
+
+    name = "processes"
+
+    def __init__(self, jobs, data):
+        self.workers = int(jobs)
+        if self.workers < 1:
+            raise InputError(f"--jobs must be at least 1, got {jobs}")
+        self.data = data
+        self._pool = None
+
+    def _ensure(self):
+        if self._pool is None:
+            from joblib.externals.loky import ProcessPoolExecutor
+
+            self._pool = ProcessPoolExecutor(max_workers=self.workers, initializer=init_worker,
+                                             initargs=(self.data,), env=dict(_THREAD_ENV))
+        return self._pool
+
+    def submit(self, spec):
+        return self._ensure().submit(run_trial_in_worker, spec)
+
+    def wait(self, handles, timeout):
+        from concurrent.futures import FIRST_COMPLETED, wait
+
+        done, _ = wait(handles, timeout=timeout, return_when=FIRST_COMPLETED)
+        out, broken = [], False
+        for f in done:
+            exc = f.exception()
+            if exc is None:
+                out.append((f, f.result(), None))
+            else:
+                out.append((f, None, f"{type(exc).__name__}: {exc}"))
+                broken = True
+        if broken:
+            # the pool is unusable after a worker death: every running trial is lost with it
+            for f in handles:
+                if f not in done:
+                    out.append((f, None, "the worker pool broke while this trial ran"))
+            self.close(kill=True)
+        return out
+
+    def close(self, kill=False):
+        if self._pool is not None:
+            try:
+                self._pool.shutdown(wait=not kill, kill_workers=kill)
+            except Exception:  # pragma: no cover - a pool already broken
+                pass
+            self._pool = None
+
+
+class _DaskExecutor:
+    """Futures on a Dask distributed cluster; the table is scattered once."""
+
+    name = "dask"
+
+    def __init__(self, cluster, data):
+        from distributed import Client
+
+        if isinstance(cluster, str):
+            try:
+                self.client = Client(cluster, timeout=20, set_as_default=False)
+            except OSError as exc:
+                raise InputError(f"cannot reach the Dask scheduler at {cluster} ({exc}); check "
+                                 "the address (tcp://HOST:PORT) and that the scheduler runs") \
+                    from None
+            self._own = True
+        else:
+            self.client, self._own = cluster, False
+        threads = sum(self.client.nthreads().values())
+        if threads < 1:
+            raise InputError(f"the Dask cluster at {self.client.scheduler.address} has no "
+                             "workers; start some workers first")
+        self.workers = int(threads)
+        self.data_future = self.client.scatter(data, broadcast=True, hash=False)
+
+    def submit(self, spec):
+        key = (f"workbench-trial-{spec['config']['index']}-{spec['repeat']}-{spec['fold']}-"
+               f"{spec['attempt']}-{secrets.token_hex(4)}")
+        return self.client.submit(run_trial, self.data_future, spec, key=key, pure=False)
+
+    def wait(self, handles, timeout):
+        from distributed import wait
+
+        try:
+            done, _ = wait(handles, timeout=timeout, return_when="FIRST_COMPLETED")
+        except TimeoutError:
+            return []
+        out = []
+        for f in done:
+            if f.status == "finished":
+                out.append((f, f.result(), None))
+            else:
+                exc = f.exception()
+                out.append((f, None, f"{type(exc).__name__}: {exc}"))
+        return out
+
+    def close(self, kill=False):
+        try:
+            self.data_future.release()
+        except Exception:  # pragma: no cover
+            pass
+        if self._own:
+            self.client.close()

@@ -1,0 +1,284 @@
+"""Run one trial: one configuration on one fold of one repeat.
+
+:func:`run_trial` is a pure function of the table, the trial's description and
+its seed, so the same trial gives the same numbers in any worker process, on
+any Dask worker, serially or in parallel. It
+
+1. builds the pipeline with :func:`workbench.preprocessing.build_pipeline`
+   (leak-free preprocessing and target scaling, fitted inside the fold),
+2. fits it on the fold's training rows with a single BLAS thread
+   (threadpoolctl), timing the fit,
+3. scores the fold's test rows and its training rows with scikit-learn's
+   scorer (``sklearn.metrics.get_scorer``; greater is better),
+4. returns a plain dict: scores, fit seconds, epochs run, the per-epoch
+   history (training loss, validation score under early stopping, per-layer
+   dead / saturated shares and gradient norms) and the last epoch's health,
+   and a status: ``done``, ``diverged`` (non-finite loss) or ``failed`` (with
+   the error message).
+
+Health for scikit-learn's engine: scikit-learn does not record per-epoch
+health, so its trials carry only the final ``health`` (dead and saturated
+shares measured on the first training rows with the same definitions as the
+NumPy engine; no gradient norms) and empty per-epoch health lists.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import socket
+import time
+import traceback
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+
+#: trial statuses
+DONE, DIVERGED, FAILED, CANCELLED = "done", "diverged", "failed", "cancelled"
+FINISHED_STATUSES = (DONE, DIVERGED, FAILED)
+
+
+@dataclass
+class TrialData:
+    """What every trial of a sweep reads: the table and the intake's findings.
+
+    Sent to each worker once (a process-pool initializer locally, a scattered
+    future on a Dask cluster), never with every trial.
+    """
+
+    X: object  # pandas DataFrame of the feature columns
+    y: object  # target values (numpy array)
+    profile: object  # the intake's TableProfile
+    target: object  # the intake's TargetInfo
+
+
+# --------------------------------------------------------------------------- estimators
+
+
+def make_estimator(spec: dict):
+    """The unfitted MLP for a trial description (see :func:`run_trial`)."""
+    cfg = spec["config"]
+    common = dict(
+        hidden_layer_sizes=tuple(cfg["layers"]),
+        solver="adam",
+        alpha=float(cfg["alpha"]),
+        batch_size=spec.get("batch_size", "auto"),
+        learning_rate_init=float(cfg["learning_rate"]),
+        max_iter=int(spec["epochs"]),
+        shuffle=True,
+        random_state=int(spec["random_state"]),
+        early_stopping=bool(spec.get("early_stopping", False)),
+    )
+    task = spec["task"]
+    if cfg["engine"] == "sklearn":
+        from sklearn.neural_network import MLPClassifier, MLPRegressor
+
+        if task == "classification":
+            return MLPClassifier(activation=cfg["hidden"], **common)
+        loss = "poisson" if cfg["head"] == "exp" else "squared_error"
+        return MLPRegressor(loss=loss, activation=cfg["hidden"], **common)
+    from workbench.engine import NetClassifier, NetRegressor
+
+    cls = NetClassifier if task == "classification" else NetRegressor
+    return cls(activation=cfg["hidden"], output_activation=cfg["head"],
+               dtype=spec.get("dtype", "float32"), **common)
+
+
+def _unwrap(model, X):
+    """The fitted MLP inside a pipeline / target wrapper, and its input features."""
+    for _ in range(10):
+        if hasattr(model, "coefs_"):
+            return model, X
+        if hasattr(model, "steps"):  # a Pipeline
+            if len(model.steps) > 1:
+                X = model[:-1].transform(X)
+            model = model.steps[-1][1]
+        elif hasattr(model, "regressor_"):  # TransformedTargetRegressor
+            model = model.regressor_
+        elif hasattr(model, "estimator_"):
+            model = model.estimator_
+        else:
+            break
+    return None, X
+
+
+def _final_health(mlp, X, hidden: str) -> dict:
+    """Dead / saturated share per hidden layer of a fitted scikit-learn MLP.
+
+    The same definitions as the NumPy engine: a unit is dead when its
+    activation's derivative is zero on every probe row; saturated when the
+    derivative is below ``SATURATION_THRESHOLD`` on more than half of the rows
+    (not defined for piecewise-linear activations, reported as 0).
+    """
+    from workbench import activations as act
+    from workbench.engine import HEALTH_PROBE_ROWS, SATURATION_THRESHOLD
+
+    a = np.asarray(X, dtype=np.float64)[:HEALTH_PROBE_ROWS]
+    f = act.get_hidden(hidden)
+    dead, sat = [], []
+    piecewise = hidden in ("identity", "relu", "leaky_relu")
+    for W, b in zip(mlp.coefs_[:-1], mlp.intercepts_[:-1]):
+        z = a @ W + b
+        a = f.forward(z)
+        d = np.abs(f.derivative(z, a))
+        dead_units = np.all(d <= np.finfo(np.float64).tiny * 1e6, axis=0)
+        dead.append(float(dead_units.mean()))
+        if piecewise:
+            sat.append(0.0)
+        else:
+            flat = (d < SATURATION_THRESHOLD).mean(axis=0) > 0.5
+            sat.append(float((flat & ~dead_units).mean()))
+    return {"dead": dead, "saturated": sat, "grad_norm": []}
+
+
+def _clean(values):
+    """Floats for JSON: non-finite numbers become None, nested lists kept."""
+    out = []
+    for v in values:
+        if isinstance(v, list | tuple):
+            out.append(_clean(v))
+        else:
+            v = float(v)
+            out.append(v if math.isfinite(v) else None)
+    return out
+
+
+def _history(mlp) -> dict:
+    hist = getattr(mlp, "history_", None)
+    if hist is not None:
+        return {k: _clean(hist.get(k, [])) for k in ("loss", "val_score", "dead", "saturated",
+                                                       "grad_norm")}
+    return {"loss": _clean(getattr(mlp, "loss_curve_", []) or []),
+            "val_score": _clean(getattr(mlp, "validation_scores_", None) or []),
+            "dead": [], "saturated": [], "grad_norm": []}
+
+
+def _looks_diverged(exc: Exception) -> bool:
+    text = str(exc).lower()
+    return any(w in text for w in ("non-finite", "nan", "infinity", "overflow"))
+
+
+# --------------------------------------------------------------------------- one trial
+
+
+def run_trial(data: TrialData, spec: dict) -> dict:
+    """Fit and score one trial; never raises.
+
+    Parameters
+    ----------
+    data : TrialData
+    spec : dict
+        ``config`` (a :class:`workbench.plan.Configuration` as a dict),
+        ``repeat``, ``fold``, ``train`` and ``test`` (row positions),
+        ``random_state``, ``task``, ``metric``, ``epochs``, ``early_stopping``,
+        ``batch_size``, ``dtype``.
+
+    Returns
+    -------
+    dict
+        ``config_index, repeat, fold, status, test_score, train_score,
+        fit_seconds, epochs, engine, error, history, health, n_train, n_test,
+        worker``.
+    """
+    from threadpoolctl import threadpool_limits
+
+    cfg = spec["config"]
+    result = {
+        "config_index": int(cfg["index"]), "repeat": int(spec["repeat"]),
+        "fold": int(spec["fold"]), "status": FAILED, "test_score": None,
+        "train_score": None, "fit_seconds": None, "epochs": None, "engine": cfg["engine"],
+        "error": None, "history": {"loss": [], "val_score": [], "dead": [], "saturated": [],
+                                   "grad_norm": []},
+        "health": {"dead": [], "saturated": [], "grad_norm": []},
+        "n_train": len(spec["train"]), "n_test": len(spec["test"]),
+        "worker": f"{socket.gethostname()}:{os.getpid()}",
+    }
+    try:
+        with threadpool_limits(limits=1), warnings.catch_warnings(), \
+                np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
+            warnings.simplefilter("ignore")
+            _fit_and_score(data, spec, result)
+    except Exception as exc:  # recorded, never raised: one trial must not end the sweep
+        result["status"] = FAILED
+        result["error"] = f"{type(exc).__name__}: {exc}".strip()
+        result["traceback"] = traceback.format_exc(limit=6)
+    return result
+
+
+def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
+    from sklearn.metrics import get_scorer
+
+    from workbench.preprocessing import build_pipeline
+
+    cfg = spec["config"]
+    train = np.asarray(spec["train"])
+    test = np.asarray(spec["test"])
+    X, y = data.X, np.asarray(data.y)
+    X_tr, y_tr = X.iloc[train], y[train]
+    X_te, y_te = X.iloc[test], y[test]
+    pipe = build_pipeline(data.profile, data.target, make_estimator(spec), cfg["head"])
+    t0 = time.perf_counter()
+    try:
+        pipe.fit(X_tr, y_tr)
+    except (ValueError, FloatingPointError, OverflowError) as exc:
+        result["fit_seconds"] = time.perf_counter() - t0
+        if _looks_diverged(exc):
+            result["status"] = DIVERGED
+            result["error"] = f"training diverged: {exc}"
+            return
+        raise
+    result["fit_seconds"] = time.perf_counter() - t0
+    mlp, feats = _unwrap(pipe, X_tr)
+    if mlp is not None:
+        result["epochs"] = int(getattr(mlp, "n_iter_", 0))
+        result["history"] = _history(mlp)
+        health = getattr(mlp, "health_", None)
+        if health is not None:
+            result["health"] = {k: _clean(health.get(k, [])) for k in ("dead", "saturated",
+                                                                         "grad_norm")}
+        elif cfg["engine"] == "sklearn":
+            result["health"] = _final_health(mlp, feats, cfg["hidden"])
+        losses = getattr(mlp, "loss_curve_", None) or []
+        if getattr(mlp, "diverged_", False) or any(not math.isfinite(v) for v in losses):
+            result["status"] = DIVERGED
+            result["error"] = (f"training diverged at epoch {result['epochs']} (non-finite loss); "
+                               "lower the learning rate")
+            return
+    scorer = get_scorer(spec["metric"])
+    try:
+        test_score = float(scorer(pipe, X_te, y_te))
+        train_score = float(scorer(pipe, X_tr, y_tr))
+    except ValueError as exc:
+        if _looks_diverged(exc):
+            result["status"] = DIVERGED
+            result["error"] = f"predictions are not finite: {exc}"
+            return
+        raise
+    if not (math.isfinite(test_score) and math.isfinite(train_score)):
+        result["status"] = DIVERGED
+        result["error"] = "the score is not finite (the network's predictions blew up)"
+        return
+    result["test_score"] = test_score
+    result["train_score"] = train_score
+    result["status"] = DONE
+
+
+# --------------------------------------------------------------------------- worker-process glue
+
+_WORKER_DATA: TrialData | None = None
+
+
+def init_worker(data: TrialData) -> None:
+    """Process-pool initializer: keep the sweep's table in the worker."""
+    global _WORKER_DATA
+    _WORKER_DATA = data
+
+
+def run_trial_in_worker(spec: dict) -> dict:
+    """Run a trial on the table installed by :func:`init_worker`."""
+    if _WORKER_DATA is None:  # pragma: no cover - a pool without initializer
+        raise RuntimeError("worker has no table; start the pool with init_worker")
+    if spec.get("_crash_for_test"):
+        os._exit(17)  # simulate a worker killed mid-trial (tests only)
+    return run_trial(_WORKER_DATA, spec)
