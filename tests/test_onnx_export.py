@@ -163,3 +163,85 @@ def test_opset_below_17_is_refused():
     pipe = _fit(NetRegressor((3,), max_iter=3, random_state=0), _signal)
     with pytest.raises(ValueError, match="17"):
         ox.pipeline_to_onnx(pipe, TABLE, opset=15)
+
+
+# --------------------------------------------------------------------------- the real pipeline
+
+
+def _mixed_table(n=80, seed=0):
+    rng = np.random.default_rng(seed)
+    df = pd.DataFrame({
+        "num": rng.normal(size=n),
+        "count": rng.integers(0, 100, n),
+        "shade": rng.choice(["pale", "mid", "dark"], n),
+        "flag": rng.choice([True, False], n),
+        # dates on both sides of 1970 and across leap days, with times of day
+        "when": pd.to_datetime("1955-02-27") + pd.to_timedelta(rng.integers(0, 30000, n), "D")
+        + pd.to_timedelta(rng.integers(0, 86400, n), "s"),
+    })
+    df.loc[3, "when"] = pd.NaT
+    df.loc[5, "shade"] = np.nan
+    df.loc[6, "num"] = np.nan
+    signal = df["num"].fillna(0) * 2 + (df["shade"] == "dark") + df["when"].dt.month.fillna(6) / 6
+    return df, signal.to_numpy()
+
+
+@pytest.mark.parametrize("head", ["identity", "relu", "logistic", "exp"])
+def test_build_pipeline_regression_with_target_scaling(head):
+    from workbench.preprocessing import build_pipeline
+    from workbench.profiling import analyse_target, profile_table, split_xy
+
+    df, signal = _mixed_table()
+    target = {"identity": signal, "relu": signal - signal.min(),
+              "logistic": (signal - signal.min()) / np.ptp(signal),
+              "exp": np.round(np.exp(signal / 1.5) * 5)}[head]
+    df["y"] = target
+    prof = profile_table(df, target="y")
+    info = analyse_target(df, "y")
+    X, y = split_xy(df, info)
+    pipe = build_pipeline(prof, info, NetRegressor((6,), "softplus", max_iter=15,
+                                                   random_state=0), head)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        pipe.fit(X, y)
+    out = ox.run_onnx(ox.pipeline_to_onnx(pipe, X), X)
+    # predictions are in the user's units (the target scaler is inverted inside the graph)
+    np.testing.assert_allclose(out["variable"].ravel(), pipe.predict(X), rtol=TOL, atol=TOL)
+
+
+def test_build_pipeline_classification_with_dates_and_booleans():
+    from workbench.preprocessing import build_pipeline
+    from workbench.profiling import analyse_target, profile_table, split_xy
+
+    df, signal = _mixed_table(seed=3)
+    df["grade"] = np.digitize(signal, np.quantile(signal, [0.33, 0.66])).astype(str)
+    prof = profile_table(df, target="grade")
+    info = analyse_target(df, "grade")
+    X, y = split_xy(df, info)
+    pipe = build_pipeline(prof, info, NetClassifier((6,), "gelu", max_iter=15,
+                                                    random_state=0), "softmax")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        pipe.fit(X, y)
+    out = ox.run_onnx(ox.pipeline_to_onnx(pipe, X), X)
+    np.testing.assert_allclose(out["probabilities"], pipe.predict_proba(X), atol=TOL)
+    np.testing.assert_array_equal(out["label"].ravel(), pipe.predict(X))
+
+
+def test_date_parts_graph_matches_pandas_calendar():
+    # reference: pandas' own calendar accessors (.dt.year, .dt.month, ...)
+    from workbench.preprocessing import DateParts
+
+    when = pd.Series(pd.to_datetime([
+        "1900-03-01 00:00", "1969-12-31 23:59:59", "1970-01-01", "2000-02-29 12:30",
+        "2024-12-31 06:07", "2100-02-28 23:00", "1700-01-01", None, "2023-07-15 18:45"],
+        format="ISO8601"))
+    df = pd.DataFrame({"when": when})
+    parts = DateParts().fit(df)
+    out = ox.run_onnx(ox.pipeline_to_onnx(parts, df), df)["variable"]
+    ref = pd.DataFrame({"year": when.dt.year, "month": when.dt.month, "day": when.dt.day,
+                        "weekday": when.dt.weekday, "hour": when.dt.hour,
+                        "minute": when.dt.minute, "dayofyear": when.dt.day_of_year})
+    ref = ref[parts.parts_[0]].to_numpy(dtype=float)
+    np.testing.assert_array_equal(out, ref.astype(np.float32))
+    np.testing.assert_array_equal(out, parts.transform(df).astype(np.float32))

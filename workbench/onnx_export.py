@@ -330,9 +330,192 @@ def register_converters() -> None:
 
 def _register_preprocessing() -> None:
     """Converters for the steps of :mod:`workbench.preprocessing` skl2onnx lacks."""
+    from skl2onnx import update_registered_converter
+    from sklearn.compose import TransformedTargetRegressor
+
+    from workbench.preprocessing import DateParts
+
+    update_registered_converter(TransformedTargetRegressor, "WorkbenchTransformedTarget",
+                                _ttr_shape, _ttr_convert)
+    update_registered_converter(DateParts, "WorkbenchDateParts", _dateparts_shape,
+                                _dateparts_convert)
+
+
+# --------------------------------------------------------------------------- target scaling
+
+
+def _target_affine(ttr) -> tuple[np.ndarray, np.ndarray]:
+    """``(scale, offset)`` with ``prediction = raw * scale + offset`` for a fitted wrapper.
+
+    Knows :class:`workbench.preprocessing.TargetScaler` (``offset_``, ``scale_``),
+    scikit-learn's ``StandardScaler`` and the identity (no transformer).
+    """
+    t = getattr(ttr, "transformer_", None)
+    if t is None or (type(t).__name__ == "FunctionTransformer" and t.func is None
+                     and t.inverse_func is None):
+        return np.ones(1), np.zeros(1)
+    if hasattr(t, "offset_") and hasattr(t, "scale_"):
+        return np.asarray(t.scale_, float), np.asarray(t.offset_, float)
+    if type(t).__name__ == "StandardScaler":
+        scale = t.scale_ if t.scale_ is not None else np.ones(t.n_features_in_)
+        mean = t.mean_ if t.mean_ is not None else np.zeros(t.n_features_in_)
+        return np.asarray(scale, float), np.asarray(mean, float)
+    raise ValueError(f"no ONNX form for the target transformer {type(t).__name__}")
+
+
+def _ttr_shape(operator):
+    inp = operator.inputs[0]
+    n_out = len(_target_affine(operator.raw_operator)[0])
+    operator.outputs[0].type = _float_type(inp.type)([inp.get_first_dimension(), n_out])
+
+
+def _ttr_convert(scope, operator, container):
+    from skl2onnx.algebra.onnx_operator import OnnxSubEstimator
+    from skl2onnx.algebra.onnx_ops import OnnxAdd, OnnxMul
+
+    ttr = operator.raw_operator
+    opv = container.target_opset
+    np_dtype = np.float64 if _proto_dtype(operator.inputs[0].type) == _DOUBLE else np.float32
+    scale, offset = _target_affine(ttr)
+    raw = OnnxSubEstimator(ttr.regressor_, operator.inputs[0], op_version=opv)
+    out = OnnxAdd(OnnxMul(raw, scale.reshape(1, -1).astype(np_dtype), op_version=opv),
+                  offset.reshape(1, -1).astype(np_dtype), op_version=opv,
+                  output_names=operator.outputs[:1])
+    out.add_to(scope, container)
+
+
+# --------------------------------------------------------------------------- date parts
+
+#: the missing-date marker :func:`onnx_feed` sends (NaT)
+_NAT_SECONDS = np.iinfo(np.int64).min
+
+
+def _dateparts_shape(operator):
+    from skl2onnx.common.data_types import FloatTensorType
+
+    inp = operator.inputs[0]
+    width = sum(len(p) for p in operator.raw_operator.parts_)
+    operator.outputs[0].type = FloatTensorType([inp.get_first_dimension(), width])
+
+
+def _dateparts_convert(scope, operator, container):
+    """Calendar parts from int64 seconds since 1970-01-01, in float64 arithmetic.
+
+    The civil calendar is computed with H. Hinnant's ``civil_from_days``
+    algorithm ("chrono-Compatible Low-Level Date Algorithms", 2013), written
+    with floor divisions (exact in float64 for these magnitudes).
+    """
+    est = operator.raw_operator
+    em = _Emitter(scope, container, _DOUBLE)
+    inputs = [v.full_name for v in operator.inputs]
+    x = inputs[0] if len(inputs) == 1 else em.node("Concat", inputs, axis=1)
+    nat = em.node("Equal", [x, em.const("nat", [_NAT_SECONDS], dtype=np.int64)])
+    secs = em.node("Cast", [x], to=_DOUBLE)
+
+    def c(v):
+        return em.const("k", float(v))
+
+    def fdiv(a, b):  # floor(a / b)
+        return em.node("Floor", [em.node("Div", [a, c(b)])])
+
+    def mul(a, b):
+        return em.node("Mul", [a, c(b) if not isinstance(b, str) else b])
+
+    def add(a, b):
+        return em.node("Add", [a, c(b) if not isinstance(b, str) else b])
+
+    def sub(a, b):
+        return em.node("Sub", [a, c(b) if not isinstance(b, str) else b])
+
+    days = fdiv(secs, 86400)
+    in_day = sub(secs, mul(days, 86400))
+    hour = fdiv(in_day, 3600)
+    minute = sub(fdiv(in_day, 60), mul(hour, 60))
+    d3 = add(days, 3)  # 1970-01-01 was a Thursday: weekday 3 when Monday is 0
+    weekday = sub(d3, mul(fdiv(d3, 7), 7))
+    z = add(days, 719468)
+    era = fdiv(z, 146097)
+    doe = sub(z, mul(era, 146097))
+    yoe = fdiv(add(sub(doe, fdiv(doe, 1460)), sub(fdiv(doe, 36524), fdiv(doe, 146096))), 365)
+    doy_mar = sub(doe, add(mul(yoe, 365), sub(fdiv(yoe, 4), fdiv(yoe, 100))))
+    mp = fdiv(add(mul(doy_mar, 5), 2), 153)
+    day = add(sub(doy_mar, fdiv(add(mul(mp, 153), 2), 5)), 1)
+    late = em.node("Cast", [em.node("GreaterOrEqual", [mp, c(10)])], to=_DOUBLE)
+    month = sub(add(mp, 3), mul(late, 12))
+    early = em.node("Cast", [em.node("LessOrEqual", [month, c(2)])], to=_DOUBLE)
+    year = add(add(yoe, mul(era, 400)), early)
+    # day of year: days since 1 January of the same year (days_from_civil(y, 1, 1))
+    yp = sub(year, 1)
+    era1 = fdiv(yp, 400)
+    yoe1 = sub(yp, mul(era1, 400))
+    doe1 = add(add(mul(yoe1, 365), sub(fdiv(yoe1, 4), fdiv(yoe1, 100))), 306)
+    jan1 = sub(add(mul(era1, 146097), doe1), 719468)
+    dayofyear = add(sub(days, jan1), 1)
+    parts = {"year": year, "month": month, "day": day, "weekday": weekday, "hour": hour,
+             "minute": minute, "dayofyear": dayofyear}
+    nan = c(np.nan)
+    columns = []
+    for j, names in enumerate(est.parts_):
+        idx = em.const("col", [j], dtype=np.int64)
+        isnat = em.node("Gather", [nat, idx], axis=1)
+        for name in names:
+            part = em.node("Gather", [parts[name], idx], axis=1)
+            columns.append(em.node("Where", [isnat, nan, part]))
+    both = columns[0] if len(columns) == 1 else em.node("Concat", columns, axis=1)
+    em.node("Cast", [both], output=operator.outputs[0].full_name, to=_FLOAT)
 
 
 # --------------------------------------------------------------------------- whole pipelines
+
+
+def _walk(est):
+    todo, seen = [est], []
+    while todo:
+        e = todo.pop()
+        seen.append(e)
+        todo.extend(_fitted_children(e))
+    return seen
+
+
+def pipeline_column_kinds(pipeline, X) -> dict[str, str]:
+    """ONNX input kind of each column the pipeline reads, in table order.
+
+    Taken from the fitted ColumnTransformer when there is one: columns of a
+    group holding :class:`~workbench.preprocessing.DateParts` are datetimes,
+    of a group ending in a one-hot encoder are strings, the rest are numbers;
+    dropped columns are not inputs. Without a ColumnTransformer, from the dtypes
+    of ``X`` (:func:`column_kinds`).
+    """
+    from sklearn.compose import ColumnTransformer
+    from sklearn.preprocessing import OneHotEncoder
+
+    cts = [e for e in _walk(pipeline) if isinstance(e, ColumnTransformer)]
+    if not cts or not hasattr(cts[0], "transformers_"):
+        return column_kinds(X)
+    wanted = {}
+    for _, trans, cols in cts[0].transformers_:
+        if isinstance(trans, str):  # "drop" / "passthrough" remainder
+            if trans == "passthrough":
+                for c in _column_names(cols, X):
+                    wanted[c] = column_kinds(X[[c]])[c]
+            continue
+        steps = _walk(trans)
+        if any(type(e).__name__ == "DateParts" for e in steps):
+            kind = "datetime"
+        elif any(isinstance(e, OneHotEncoder) for e in steps):
+            kind = "string"
+        else:
+            kind = "float"
+        for c in _column_names(cols, X):
+            wanted[c] = kind
+    return {str(c): wanted[str(c)] for c in X.columns if str(c) in wanted}
+
+
+def _column_names(cols, X) -> list[str]:
+    cols = list(np.atleast_1d(cols))
+    if cols and not isinstance(cols[0], str):
+        cols = [X.columns[i] for i in cols]
+    return [str(c) for c in cols]
 
 
 def column_kinds(df) -> dict[str, str]:
@@ -395,7 +578,7 @@ def pipeline_to_onnx(pipeline, X, *, dtype: str = "float32", opset: int = TARGET
     if opset < 17:
         raise ValueError("ONNX exports use opset 17 or newer")
     register_converters()
-    kinds = column_kinds(X)
+    kinds = pipeline_column_kinds(pipeline, X)
     pipeline = _conversion_copy(pipeline)
     options = {}
     from sklearn.base import is_classifier
@@ -474,17 +657,34 @@ def _conversion_copy(pipeline):
     import copy
 
     from sklearn.impute import SimpleImputer
+    from sklearn.preprocessing import OneHotEncoder
 
     pipeline = copy.deepcopy(pipeline)
-    todo = [pipeline]
-    while todo:
-        est = todo.pop()
+    groups = [t for ct in _walk(pipeline) if hasattr(ct, "transformers_")
+              for _, t, _ in ct.transformers_ if not isinstance(t, str)]
+    for group in groups:
+        steps = _walk(group)
+        if any(isinstance(e, OneHotEncoder) for e in steps):
+            # a categorical group is fed as strings: make its fitted values strings too
+            for e in steps:
+                if isinstance(e, SimpleImputer):
+                    e.statistics_ = _as_text(e.statistics_)
+                if isinstance(e, OneHotEncoder):
+                    e.categories_ = [_as_text(cats) for cats in e.categories_]
+    for est in _walk(pipeline):
         if isinstance(est, SimpleImputer) and getattr(est, "statistics_", None) is not None \
                 and np.asarray(est.statistics_).dtype == object \
                 and not isinstance(est.missing_values, str):
             est.missing_values = ""
-        todo.extend(_fitted_children(est))
     return pipeline
+
+
+def _as_text(values) -> np.ndarray:
+    """Values as the strings :func:`onnx_feed` sends (``str(v)``; missing stays missing)."""
+    import pandas as pd
+
+    return np.array([v if isinstance(v, str) or pd.isna(v) else str(v) for v in values],
+                    dtype=object)
 
 
 def _is_own(est) -> bool:
