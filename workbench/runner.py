@@ -70,8 +70,15 @@ import numpy as np
 from workbench.errors import InputError
 from workbench.plan import SweepPlan
 from workbench.store import FINISHED, INTERRUPTED, RUNNING, Store, table_fingerprint
-from workbench.trials import CANCELLED, DONE, FAILED, TrialData, init_worker, run_trial, \
-    run_trial_in_worker
+from workbench.trials import (
+    CANCELLED,
+    DONE,
+    FAILED,
+    TrialData,
+    init_worker,
+    run_trial,
+    run_trial_in_worker,
+)
 
 #: a worker that dies under a trial costs the trial one attempt; one retry by default
 RETRIES = 1

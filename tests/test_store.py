@@ -1,0 +1,170 @@
+"""The SQLite store: WAL, one transaction per trial, versioned schema, damaged files untouched.
+
+References: SQLite's documentation of ``PRAGMA journal_mode`` (WAL), ``PRAGMA
+user_version`` and the database header string "SQLite format 3\\0"; platformdirs'
+``user_data_dir`` for the default location.
+"""
+
+import hashlib
+import os
+import sqlite3
+import subprocess
+import sys
+
+import platformdirs
+import pytest
+
+from workbench import store as store_mod
+from workbench.errors import InputError
+from workbench.store import SCHEMA_VERSION, Store, default_store_path, table_fingerprint
+
+PLAN = {"folds": 2, "repeats": 1, "metric": "r2", "table": "t.csv", "target": "y",
+        "task": "regression", "target_kind": "signed"}
+CONFIGS = [{"index": 0, "hidden": "relu", "head": "identity", "layers": [8],
+            "learning_rate": 0.001, "alpha": 0.0001, "engine": "sklearn"}]
+FP = {"sha256": "0" * 64, "rows": 10, "cols": 2, "columns": ["x", "y"], "file": "t.csv"}
+
+
+def _trial(repeat=0, fold=0, score=0.5):
+    return {"config_index": 0, "repeat": repeat, "fold": fold, "status": "done",
+            "test_score": score, "train_score": score + 0.1, "fit_seconds": 0.01, "epochs": 3,
+            "engine": "sklearn", "n_train": 5, "n_test": 5,
+            "history": {"loss": [1.0, 0.5, 0.25]}, "health": {"dead": [0.0]}}
+
+
+def _digest(path):
+    return hashlib.sha256(open(path, "rb").read()).hexdigest()
+
+
+def test_round_trip_wal_and_version(tmp_path):
+    path = tmp_path / "s.sqlite"
+    with Store(path) as st:
+        st.create_sweep("a", PLAN, FP, CONFIGS)
+        st.add_trial("a", _trial(0, 0, 0.5))
+        assert st.schema_version == SCHEMA_VERSION
+        mode = st._conn.execute("PRAGMA journal_mode").fetchone()[0]
+        assert mode == "wal"
+        sweeps = st.list_sweeps()
+        assert [s["id"] for s in sweeps] == ["a"] and sweeps[0]["state"] == "running"
+        assert sweeps[0]["n_trials"] == 2 and sweeps[0]["n_stored"] == 1
+        t = st.trials("a")[0]
+        assert t["history"]["loss"] == [1.0, 0.5, 0.25] and t["test_score"] == 0.5
+        assert st.finished_keys("a") == {(0, 0, 0)}
+        # a trial is stored exactly once: the primary key refuses a second copy
+        with pytest.raises(sqlite3.IntegrityError):
+            st.add_trial("a", _trial(0, 0, 0.7))
+        st.set_state("a", "finished")
+        assert st.get_sweep("a")["state"] == "finished"
+        with pytest.raises(InputError, match="no sweep 'zz'"):
+            st.get_sweep("zz")
+
+
+def test_committed_trials_are_visible_to_another_connection_at_once(tmp_path):
+    path = tmp_path / "s.sqlite"
+    writer = Store(path)
+    writer.create_sweep("a", PLAN, FP, CONFIGS)
+    reader = Store(path)
+    assert reader.finished_keys("a") == set()
+    writer.add_trial("a", _trial(0, 1))
+    assert reader.finished_keys("a") == {(0, 0, 1)}
+    writer.close()
+    reader.close()
+
+
+def test_default_location_is_the_platformdirs_user_data_dir():
+    expected = platformdirs.user_data_dir("activation-workbench", appauthor=False)
+    assert str(default_store_path().parent) == expected
+    # conftest points XDG_DATA_HOME at a temporary folder
+    assert expected.startswith(os.environ["XDG_DATA_HOME"])
+    st = Store()
+    assert st.path.exists()
+    st.close()
+
+
+def test_a_damaged_file_is_reported_and_left_untouched(tmp_path):
+    path = tmp_path / "junk.sqlite"
+    path.write_bytes(b"this is not a database at all\n" * 50)
+    before = _digest(path)
+    with pytest.raises(InputError, match="left untouched"):
+        Store(path)
+    assert _digest(path) == before
+    # a real SQLite file whose pages were overwritten
+    good = tmp_path / "good.sqlite"
+    with Store(good) as st:
+        st.create_sweep("a", PLAN, FP, CONFIGS)
+        st._conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+    raw = bytearray(good.read_bytes())
+    raw[100:4096 * 2] = b"\xff" * (4096 * 2 - 100)
+    good.write_bytes(bytes(raw))
+    for extra in ("-wal", "-shm"):
+        p = good.with_name(good.name + extra)
+        if p.exists():
+            p.unlink()
+    before = _digest(good)
+    with pytest.raises(InputError, match="left untouched"):
+        Store(good)
+    assert _digest(good) == before
+
+
+def test_foreign_database_and_newer_schema_are_refused(tmp_path):
+    other = tmp_path / "other.sqlite"
+    con = sqlite3.connect(other)
+    con.execute("CREATE TABLE people (name TEXT)")
+    con.commit()
+    con.close()
+    before = _digest(other)
+    with pytest.raises(InputError, match="not a workbench store"):
+        Store(other)
+    assert _digest(other) == before
+
+    newer = tmp_path / "newer.sqlite"
+    Store(newer).close()
+    con = sqlite3.connect(newer)
+    con.execute(f"PRAGMA user_version = {SCHEMA_VERSION + 1}")
+    con.commit()
+    con.close()
+    with pytest.raises(InputError, match="newer workbench"):
+        Store(newer)
+
+
+def test_older_schema_is_migrated_step_by_step(tmp_path, monkeypatch):
+    path = tmp_path / "old.sqlite"
+    with Store(path) as st:
+        st.create_sweep("a", PLAN, FP, CONFIGS)
+        st.add_trial("a", _trial())
+    # pretend the program moved on to schema version + 1 with one migration step
+    monkeypatch.setattr(store_mod, "SCHEMA_VERSION", SCHEMA_VERSION + 1)
+    monkeypatch.setattr(store_mod, "MIGRATIONS",
+                        {SCHEMA_VERSION: "ALTER TABLE trials ADD COLUMN note TEXT"})
+    with Store(path) as st:
+        assert st.schema_version == SCHEMA_VERSION + 1
+        cols = [r[1] for r in st._conn.execute("PRAGMA table_info(trials)")]
+        assert "note" in cols
+        assert st.finished_keys("a") == {(0, 0, 0)}
+    # without a step for the version found, the store is refused with a message
+    monkeypatch.setattr(store_mod, "SCHEMA_VERSION", SCHEMA_VERSION + 2)
+    monkeypatch.setattr(store_mod, "MIGRATIONS", {})
+    with pytest.raises(InputError, match="cannot migrate"):
+        Store(path)
+
+
+def test_a_running_sweep_whose_process_is_gone_counts_as_interrupted(tmp_path):
+    path = tmp_path / "s.sqlite"
+    with Store(path) as st:
+        st.create_sweep("a", PLAN, FP, CONFIGS)
+        proc = subprocess.Popen([sys.executable, "-c", "pass"])
+        proc.wait()
+        st._conn.execute("UPDATE sweeps SET pid=? WHERE id='a'", (proc.pid,))
+        assert st.get_sweep("a")["state"] == "interrupted"
+        assert st.list_sweeps()[0]["state"] == "interrupted"
+
+
+def test_fingerprint_is_the_files_sha256_shape_and_columns(tmp_path):
+    import pandas as pd
+
+    p = tmp_path / "t.csv"
+    p.write_text("x,y\n1,2\n3,4\n")
+    df = pd.read_csv(p)
+    fp = table_fingerprint(p, df)
+    assert fp["sha256"] == hashlib.sha256(p.read_bytes()).hexdigest()
+    assert (fp["rows"], fp["cols"], fp["columns"]) == (2, 2, ["x", "y"])

@@ -1,0 +1,58 @@
+"""``workbench history [--store PATH] [--json]``.
+
+Lists the stored sweeps, newest first, with their state (running, finished,
+interrupted: a sweep whose process is gone counts as interrupted and can be
+finished with ``workbench sweep --resume SWEEP_ID``), table, target, metric,
+and how many of their trials are stored. ``--json`` prints a JSON list of
+objects with ``sweep_id, state, created, updated, finished, table, target,
+metric, n_configurations, n_trials, n_stored``.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+
+from workbench.store import Store
+
+NAME = "history"
+HELP = "List the stored sweeps with their state (running, finished, interrupted)."
+
+
+def add_arguments(parser):
+    parser.add_argument("--store", metavar="PATH", default=None,
+                        help="the store file (default: the user's data folder)")
+    parser.add_argument("--json", action="store_true", help="print a JSON list")
+
+
+def sweep_summaries(store: Store) -> list[dict]:
+    out = []
+    for s in store.list_sweeps():
+        p = s["plan"]
+        out.append({"sweep_id": s["id"], "state": s["state"], "created": s["created"],
+                    "updated": s["updated"], "finished": s["finished"], "table": p["table"],
+                    "target": p["target"], "metric": p["metric"],
+                    "n_configurations": s["n_configurations"], "n_trials": s["n_trials"],
+                    "n_stored": s["n_stored"]})
+    return out
+
+
+def run(args) -> int:
+    with Store(args.store) as store:
+        rows = sweep_summaries(store)
+        path = store.path
+    if args.json:
+        json.dump(rows, sys.stdout, indent=2)
+        sys.stdout.write("\n")
+        return 0
+    if not rows:
+        print(f"no sweeps stored in {path}")
+        return 0
+    head = ["sweep", "state", "created", "trials", "metric", "target", "table"]
+    table = [[r["sweep_id"], r["state"], r["created"], f"{r['n_stored']}/{r['n_trials']}",
+              r["metric"], r["target"], r["table"]] for r in rows]
+    widths = [max(len(h), *(len(t[i]) for t in table)) for i, h in enumerate(head)]
+    print("  ".join(h.ljust(w) for h, w in zip(head, widths)))
+    for t in table:
+        print("  ".join(v.ljust(w) for v, w in zip(t, widths)))
+    return 0

@@ -1,0 +1,223 @@
+"""``workbench sweep FILE --target COL [options]``: run an activation sweep.
+
+Builds a :class:`workbench.plan.SweepPlan` from the options, runs it with
+:func:`workbench.runner.run_sweep` (worker processes, or a Dask cluster with
+``--cluster``), shows a progress bar on stderr (elapsed time, ETA, best score
+so far), stores every trial as it finishes and prints the ranked table at the
+end. ``--json OUT`` writes the full results (the object documented in
+README.md, section "Sweep results as JSON"; ``-`` for stdout).
+
+``--resume SWEEP_ID`` finishes a stored sweep (FILE and the plan options are
+taken from the store). Ctrl-C stops promptly, keeps every finished trial and
+exits with status 130; the sweep can then be resumed. Exit status 2 for bad
+input or an impossible plan.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+import time
+
+from workbench.errors import EXIT_CANCELLED, InputError
+
+NAME = "sweep"
+HELP = ("Sweep hidden activations x output heads x layers x learning rates x alphas under "
+        "repeated cross-validation; store and rank the results.")
+
+
+def add_arguments(parser):
+    parser.add_argument("file", metavar="FILE", nargs="?", default=None,
+                        help="a .csv, .tsv, .txt, .xlsx or .parquet table (not with --resume)")
+    parser.add_argument("--target", metavar="COL", default=None, help="the target column")
+    parser.add_argument("--sheet", metavar="NAME", default=None, help="sheet of an .xlsx workbook")
+    parser.add_argument("--hidden", metavar="LIST", default="default",
+                        help="hidden activations, comma-separated, or 'all' (default: relu, tanh, "
+                             "leaky_relu, gelu, silu)")
+    parser.add_argument("--output", metavar="auto|all|LIST", default="auto",
+                        help="output heads: 'auto' (the advised head), 'all' (every head the "
+                             "compatibility guard accepts) or names")
+    parser.add_argument("--layers", metavar="SHAPE", action="append", default=None,
+                        help="hidden-layer shape, e.g. 64 or 64,32; repeat for several "
+                             "(default 64)")
+    parser.add_argument("--learning-rate", metavar="LR", action="append", default=None,
+                        help="Adam's initial learning rate(s), comma-separated or repeated "
+                             "(default 0.001)")
+    parser.add_argument("--alpha", metavar="A", action="append", default=None,
+                        help="L2 strength(s), comma-separated or repeated (default 0.0001)")
+    parser.add_argument("--folds", type=int, default=5, help="K folds (default 5)")
+    parser.add_argument("--repeats", type=int, default=2,
+                        help="R repeats of the K folds, each with its own seed (default 2)")
+    parser.add_argument("--epochs", type=int, default=200, help="maximum epochs (default 200)")
+    parser.add_argument("--early-stopping", action="store_true",
+                        help="hold out 10%% of each training fold and stop when it stalls")
+    parser.add_argument("--metric", metavar="NAME", default=None,
+                        help="scikit-learn scorer name (default per target kind: roc_auc binary, "
+                             "balanced_accuracy multiclass, r2 continuous, "
+                             "neg_mean_poisson_deviance counts with the exp head)")
+    parser.add_argument("--engine", choices=("auto", "numpy", "sklearn"), default="auto",
+                        help="auto: scikit-learn's MLP where it can express the configuration, "
+                             "the NumPy engine otherwise")
+    parser.add_argument("--dtype", choices=("float32", "float64"), default="float32",
+                        help="precision of the NumPy engine (default float32)")
+    parser.add_argument("--jobs", type=int, default=None,
+                        help="worker processes (default: every core)")
+    parser.add_argument("--cluster", metavar="ADDR", default=None,
+                        help="run on a Dask distributed scheduler, e.g. tcp://10.0.0.5:8786")
+    parser.add_argument("--store", metavar="PATH", default=None,
+                        help="the store file (default: the user's data folder)")
+    parser.add_argument("--seed", type=int, default=0, help="seed of folds and weights (default 0)")
+    parser.add_argument("--holm", action="store_true",
+                        help="judge ties with Holm's correction for the number of comparisons")
+    parser.add_argument("--json", metavar="OUT", default=None,
+                        help="write the full results as JSON to OUT ('-' for stdout)")
+    parser.add_argument("--resume", metavar="SWEEP_ID", default=None,
+                        help="finish a stored sweep: run exactly its missing trials")
+    parser.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def _clock(seconds: float) -> str:
+    seconds = int(round(max(0.0, seconds)))
+    h, rest = divmod(seconds, 3600)
+    m, s = divmod(rest, 60)
+    return f"{h}:{m:02d}:{s:02d}" if h else f"{m}:{s:02d}"
+
+
+class Progress:
+    """Draws the event stream as a progress bar on stderr.
+
+    On a terminal the bar is redrawn in place; otherwise a line is written at
+    every tenth of the sweep, so logs stay short.
+    """
+
+    def __init__(self, stream=None, quiet=False, width=24):
+        self.stream = stream if stream is not None else sys.stderr
+        self.quiet = quiet
+        self.width = width
+        self.tty = bool(getattr(self.stream, "isatty", lambda: False)())
+        self.sweep_id = None
+        self.t0 = time.perf_counter()
+        self.n_todo = 0
+        self.n_done = 0
+        self.best = None
+        self.problems = 0
+        self._last_tenth = -1
+
+    def __call__(self, ev: dict) -> None:
+        kind = ev["type"]
+        if kind == "sweep_started":
+            self.sweep_id = ev["sweep_id"]
+            self.n_todo = ev["n_todo"]
+            self.t0 = time.perf_counter()
+            if not self.quiet:
+                what = "resuming" if ev["resumed"] else "sweep"
+                self._line(f"{what} {ev['sweep_id']}: {ev['n_todo']} of {ev['n_trials']} trials "
+                           f"to run ({ev['n_configurations']} configurations) on "
+                           f"{ev['workers']} {ev['backend']} worker(s)", newline=True)
+        elif kind == "trial_finished" and ev["status"] != "cancelled":
+            self.n_done = ev["n_finished"]
+            if ev["status"] != "done":
+                self.problems += 1
+            if ev["best_mean"] is not None:
+                self.best = (ev["best_mean"], ev["best_label"])
+            self._draw()
+        elif kind == "sweep_finished" and not self.quiet:
+            if self.tty:
+                self.stream.write("\n")
+            self._line(f"sweep {ev['sweep_id']} {ev['state']} after {_clock(ev['seconds'])}: "
+                       f"{ev['n_finished']}/{ev['n_todo']} trials run", newline=True)
+
+    def _draw(self):
+        if self.quiet:
+            return
+        frac = self.n_done / self.n_todo if self.n_todo else 1.0
+        elapsed = time.perf_counter() - self.t0
+        eta = elapsed / self.n_done * (self.n_todo - self.n_done) if self.n_done else 0.0
+        filled = int(round(frac * self.width))
+        bar = "#" * filled + "-" * (self.width - filled)
+        best = f"  best {self.best[0]:.4f} {self.best[1]}" if self.best else ""
+        issues = f"  ({self.problems} not done)" if self.problems else ""
+        text = (f"[{bar}] {self.n_done}/{self.n_todo}  elapsed {_clock(elapsed)}  "
+                f"ETA {_clock(eta)}{best}{issues}")
+        if self.tty:
+            self.stream.write("\r" + text + "\x1b[K")
+            self.stream.flush()
+        else:
+            tenth = int(frac * 10)
+            if tenth != self._last_tenth:
+                self._last_tenth = tenth
+                self._line(text, newline=True)
+
+    def _line(self, text, newline=False):
+        self.stream.write(text + ("\n" if newline else ""))
+        self.stream.flush()
+
+
+def _write_json(res: dict, out: str) -> None:
+    text = json.dumps(res, indent=2, allow_nan=False)
+    if out == "-":
+        sys.stdout.write(text + "\n")
+        return
+    try:
+        with open(out, "w", encoding="utf-8") as fh:
+            fh.write(text + "\n")
+    except OSError as exc:
+        raise InputError(f"cannot write the JSON results to {out} ({exc.strerror}); choose "
+                         "another path") from None
+
+
+def run(args) -> int:
+    from workbench.commands.show import format_results
+    from workbench.plan import build_plan
+    from workbench.runner import run_sweep
+    from workbench.store import Store
+
+    if args.resume is None:
+        if args.file is None:
+            raise InputError("name the table: workbench sweep FILE --target COL "
+                             "(or --resume SWEEP_ID)")
+        if args.target is None:
+            raise InputError("name the target column with --target COL (see workbench inspect "
+                             f"{args.file} for a suggestion)")
+        plan = build_plan(args.file, args.target, hidden=args.hidden, output=args.output,
+                          layers=args.layers, learning_rates=args.learning_rate,
+                          alphas=args.alpha, folds=args.folds, repeats=args.repeats,
+                          epochs=args.epochs, early_stopping=args.early_stopping,
+                          metric=args.metric, engine=args.engine, seed=args.seed,
+                          dtype=args.dtype, sheet=args.sheet)
+        for head, why in plan.refused_heads.items():
+            print(f"workbench: head {head} left out: {why}", file=sys.stderr)
+        for head, why in plan.head_warnings.items():
+            print(f"workbench: note on head {head}: {why}", file=sys.stderr)
+    else:
+        if args.file is not None or args.target is not None:
+            raise InputError("--resume takes the table and plan from the store; drop FILE and "
+                             "--target")
+        plan = None
+    progress = Progress(quiet=args.quiet)
+    store = Store(args.store)
+    try:
+        try:
+            outcome = run_sweep(plan, store=store, resume=args.resume, jobs=args.jobs,
+                                cluster=args.cluster, on_event=progress)
+        except KeyboardInterrupt:
+            sid = progress.sweep_id
+            if sid:
+                n = store.get_sweep(sid)["n_stored"]
+                print(f"\nworkbench: sweep {sid} cancelled; {n} finished trials are stored; "
+                      f"finish it with: workbench sweep --resume {sid}", file=sys.stderr)
+            else:
+                print("\nworkbench: cancelled", file=sys.stderr)
+            return EXIT_CANCELLED
+        res = store.results(outcome.sweep_id, holm=args.holm)
+    finally:
+        store.close()
+    if args.json:
+        _write_json(res, args.json)
+    if args.json != "-":
+        print(format_results(res))
+    if outcome.state != "finished":
+        print(f"workbench: sweep {outcome.sweep_id} interrupted; finish it with: "
+              f"workbench sweep --resume {outcome.sweep_id}", file=sys.stderr)
+        return EXIT_CANCELLED
+    return 0
