@@ -327,14 +327,51 @@ def _first_ragged_line(source, encoding: str, delim: str) -> tuple[int, int, int
     return None
 
 
-def _has_bytes_column(df: pd.DataFrame) -> bool:
-    for c in df.columns:
-        s = df[c]
-        if s.dtype == object:
-            first = s.dropna()
-            if len(first) and isinstance(first.iloc[0], bytes | bytearray):
-                return True
-    return False
+_NOT_UTF8 = object()
+#: cells read as missing: pandas' default markers (pyarrow's list is the same set)
+_NULL_MARKERS = ["", "#N/A", "#N/A N/A", "#NA", "-1.#IND", "-1.#QNAN", "-NaN", "-nan",
+                 "1.#IND", "1.#QNAN", "<NA>", "N/A", "NA", "NULL", "NaN", "None", "n/a",
+                 "nan", "null"]
+
+
+def _read_arrow(source, encoding: str, delim: str, decimal: str):
+    """Parse with pyarrow's streaming CSV reader, one column at a time into pandas.
+
+    Batches are kept per column and each column is converted (and its Arrow
+    buffers released) before the next, so the peak stays near one copy of the
+    table plus one column, instead of the file + an Arrow table + a pandas frame.
+    Returns ``_NOT_UTF8`` when a column holds bytes that are not valid UTF-8.
+    Column types are inferred from the first block (16 MB); a later cell that does
+    not fit raises, and the caller falls back to pandas' C engine.
+    """
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    read = pacsv.ReadOptions(encoding=encoding, block_size=16 << 20, use_threads=True)
+    parse = pacsv.ParseOptions(delimiter=delim, ignore_empty_lines=True)
+    convert = pacsv.ConvertOptions(null_values=_NULL_MARKERS, strings_can_be_null=True,
+                                   decimal_point=decimal,
+                                   true_values=["true", "True", "TRUE"],
+                                   false_values=["false", "False", "FALSE"])
+    reader = pacsv.open_csv(source, read_options=read, parse_options=parse,
+                            convert_options=convert)
+    schema = reader.schema
+    if any(pa.types.is_binary(f.type) or pa.types.is_large_binary(f.type) for f in schema):
+        return _NOT_UTF8
+    chunks: list[list] = [[] for _ in schema.names]
+    for batch in reader:
+        for i in range(batch.num_columns):
+            chunks[i].append(batch.column(i))
+        del batch
+    columns = {}
+    for i, field_ in enumerate(schema):
+        arr = pa.chunked_array(chunks[i], type=field_.type)
+        chunks[i] = None
+        columns[i] = arr.to_pandas(date_as_object=False)
+        del arr
+    df = pd.DataFrame(columns, copy=False)
+    df.columns = list(schema.names)
+    return df
 
 
 def _read_text(p: Path, ext: str) -> tuple[pd.DataFrame, LoadReport]:
@@ -376,12 +413,14 @@ def _read_text(p: Path, ext: str) -> tuple[pd.DataFrame, LoadReport]:
     opts = dict(sep=delim, decimal=decimal, skip_blank_lines=True)
     df = None
     try:
-        df = pd.read_csv(src(), engine="pyarrow", encoding=read_enc, **opts)
+        df = _read_arrow(src(), read_enc, delim, decimal)
         report.engine = "pyarrow"
-        if read_enc == "utf-8" and _has_bytes_column(df):
+        if df is _NOT_UTF8:
             # invalid UTF-8 further down the file: read it again as Latin-1
-            df = pd.read_csv(src(), engine="pyarrow", encoding="latin-1", **opts)
             report.encoding = read_enc = "latin-1"
+            df = _read_arrow(src(), read_enc, delim, decimal)
+            if df is _NOT_UTF8:  # pragma: no cover - Latin-1 decodes every byte
+                df = None
     except Exception:  # noqa: BLE001 - any pyarrow refusal: diagnose, then fall back
         df = None
     if df is None:
@@ -533,7 +572,9 @@ def _tidy(df: pd.DataFrame, report: LoadReport, fname: str) -> pd.DataFrame:
     df.columns = names
     if df.shape[1] == 0:
         raise InputError(f"{fname} has no columns with values; choose a file that contains a table")
-    empty = df.isna().all(axis=1).to_numpy()
+    empty = np.ones(df.shape[0], dtype=bool)
+    for i in range(df.shape[1]):
+        empty &= df.iloc[:, i].isna().to_numpy()
     n_empty = int(empty.sum())
     if n_empty:
         df = df.loc[~empty].reset_index(drop=True)
@@ -545,7 +586,10 @@ def _tidy(df: pd.DataFrame, report: LoadReport, fname: str) -> pd.DataFrame:
         raise InputError(f"{fname} has a single data row; a table needs at least {MIN_ROWS} rows "
                          "(cross-validation needs many more), so add rows")
     for i in range(df.shape[1]):
-        df.isetitem(i, _normalise_column(df.iloc[:, i], report))
+        col = df.iloc[:, i]
+        new = _normalise_column(col, report)
+        if new is not col:
+            df.isetitem(i, new)
     return df
 
 
