@@ -1,0 +1,124 @@
+"""Start the window: the QApplication, the theme, and the ``workbench open`` flow."""
+
+from __future__ import annotations
+
+import os
+import sys
+from pathlib import Path
+
+from workbench.errors import EXIT_BAD_INPUT, EXIT_OK
+
+
+def _headless_if_needed(snapshot: str | None) -> None:
+    """Render offscreen for a snapshot when there is no display to draw on."""
+    if snapshot and not (os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY")
+                         or sys.platform in ("win32", "darwin")):
+        os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+
+
+def make_app(argv=None):
+    """The QApplication (created once), with our names set."""
+    from PySide6.QtWidgets import QApplication
+
+    from workbench import __version__
+    from workbench.gui.settings import APPLICATION, ORGANISATION
+
+    app = QApplication.instance()
+    if app is None:
+        app = QApplication(list(argv or [sys.argv[0]]))
+    app.setOrganizationName(ORGANISATION)
+    app.setApplicationName(APPLICATION)
+    app.setApplicationDisplayName("Activation Workbench")
+    app.setApplicationVersion(__version__)
+    return app
+
+
+def default_choices(window) -> None:
+    """Tick the advice's hidden activations and heads (the default sweep)."""
+    summary = window.summary
+    if summary is None:
+        return
+    adv = summary.advice
+    window.setup.hidden_grid.set_checked(adv.hidden_to_sweep)
+    # the usual heads for the kind (allowed with no warning); unusual ones stay a user's choice
+    usual = {name for name, chk in summary.heads if chk.allowed and not chk.warning}
+    heads = [h for h in adv.heads_to_sweep if h in usual] or [adv.output_head]
+    window.setup.head_grid.set_checked(heads)
+
+
+def run_app(path: str | None = None, target: str | None = None, run: bool = False,
+            snapshot: str | None = None, size=(1280, 800), store: str | None = None,
+            settings_dir: str | None = None, sweep_overrides: dict | None = None) -> int:
+    """Open the window; optionally load ``path``, run the default sweep, save a PNG and exit.
+
+    Returns the exit status (0, or 2 when the file cannot be loaded in
+    snapshot / run mode).
+    """
+    _headless_if_needed(snapshot)
+    app = make_app()
+    from workbench.gui.main_window import MainWindow
+    from workbench.gui.settings import Settings
+
+    win = MainWindow(settings=Settings(settings_dir), store_path=store)
+    if snapshot:
+        win.resize(*size)
+    win.show()
+    status = {"code": EXIT_OK}
+    scripted = bool(snapshot or run)
+
+    def finish():
+        if snapshot:
+            app.processEvents()
+            Path(snapshot).parent.mkdir(parents=True, exist_ok=True)
+            if not win.grab().save(str(snapshot)):
+                print(f"workbench: could not write {snapshot}", file=sys.stderr)
+                status["code"] = EXIT_BAD_INPUT
+            else:
+                print(f"saved {snapshot}")
+        if scripted:
+            win.close()
+            app.quit()
+
+    def on_target(_name):
+        win.targetReady.disconnect(on_target)
+        if run:
+            default_choices(win)
+            for k, v in (sweep_overrides or {}).items():
+                getattr(win.setup, k).setValue(v)
+            win.run_sweep()
+            if not win.sweep_running():
+                print(f"workbench: {win.message_text() or 'the sweep could not start'}",
+                      file=sys.stderr)
+                status["code"] = EXIT_BAD_INPUT
+                finish()
+        else:
+            finish()
+
+    def on_sweep(summary):
+        if summary.get("state") == "failed":
+            print(f"workbench: {summary.get('message')}", file=sys.stderr)
+            status["code"] = EXIT_BAD_INPUT
+        n = win.proxy.rowCount()
+        win.select_rows(list(range(min(3, n))))
+        finish()
+
+    def on_fail(msg):
+        if scripted:
+            print(f"workbench: {msg}", file=sys.stderr)
+            status["code"] = EXIT_BAD_INPUT
+            finish()
+
+    if path:
+        win.targetReady.connect(on_target)
+        win.sweepEnded.connect(on_sweep)
+        win.loadFailed.connect(on_fail)
+        win.open_path(path, target)
+    elif snapshot:
+        from PySide6.QtCore import QTimer
+
+        QTimer.singleShot(200, finish)
+    app.exec()
+    from workbench.gui.tasks import wait_all
+
+    wait_all(5000)
+    return status["code"]

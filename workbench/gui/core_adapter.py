@@ -1,0 +1,388 @@
+"""Every call the window makes into the core, in one place.
+
+The window never computes: it calls these functions (on a worker thread, see
+:mod:`workbench.gui.tasks` and :mod:`workbench.gui.bridge`) and draws what
+they return. The functions here only call the core and reshape its answers
+into the plain dicts the Qt models and plot panels read.
+"""
+
+from __future__ import annotations
+
+import math
+import threading
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from workbench import activations
+from workbench.errors import InputError
+
+# --------------------------------------------------------------------------- table
+
+
+@dataclass
+class LoadedTable:
+    """A loaded table and what the intake found in it."""
+
+    path: str
+    df: object
+    report: object
+    profile: object
+    columns: list[dict] = field(default_factory=list)
+
+    @property
+    def name(self) -> str:
+        return Path(self.path).name
+
+
+def load(path: str) -> LoadedTable:
+    """Load and profile a table (raises InputError with the loader's one-line message)."""
+    from workbench.intake import load_table
+    from workbench.profiling import profile_table
+
+    df, report = load_table(path)
+    profile = profile_table(df)
+    cols = [{"name": c.name, "kind": c.type, "missing": c.missing_share,
+             "distinct": c.distinct, "role": c.role, "note": c.reason} for c in profile.columns]
+    return LoadedTable(path=str(path), df=df, report=report, profile=profile, columns=cols)
+
+
+@dataclass
+class TargetSummary:
+    """The target's kind with its evidence, the advice and the head guard's verdicts."""
+
+    target: object
+    advice: object
+    heads: list[tuple[str, object]]  # (head name, HeadCheck) for the task's heads
+
+    @property
+    def task(self) -> str:
+        return self.target.task
+
+
+def summarise_target(df, name: str) -> TargetSummary:
+    from workbench.profiling import advise, analyse_target, check_head
+
+    info = analyse_target(df, name)
+    adv = advise(info)
+    heads = [(h, check_head(info, h)) for h in activations.head_names(info.task)]
+    return TargetSummary(target=info, advice=adv, heads=heads)
+
+
+def evidence_text(info) -> str:
+    """The target's evidence as a few short lines."""
+    ev = info.evidence or {}
+    lines = []
+    if ev.get("rule"):
+        lines.append(str(ev["rule"]))
+    parts = []
+    if ev.get("rows") is not None:
+        parts.append(f"{ev['rows']} rows")
+    if ev.get("distinct") is not None and not ev.get("class_counts"):
+        parts.append(f"{ev['distinct']} distinct")
+    if ev.get("min") is not None and ev.get("max") is not None:
+        try:
+            parts.append(f"range {float(ev['min']):.4g} to {float(ev['max']):.4g}")
+        except (TypeError, ValueError):
+            pass
+    if ev.get("missing"):
+        parts.append(f"{ev['missing']} missing (dropped)")
+    if parts:
+        lines.append(", ".join(parts))
+    counts = ev.get("class_counts")
+    if counts:
+        items = list(counts.items())[:6]
+        more = "" if len(counts) <= 6 else f", +{len(counts) - 6} more"
+        lines.append("classes: " + ", ".join(f"{k} ({v})" for k, v in items) + more)
+    return "\n".join(lines)
+
+
+def hidden_tooltips() -> list[tuple[str, str]]:
+    return [(name, act.tooltip) for name, act in activations.HIDDEN.items()]
+
+
+def head_tooltip(task: str, name: str) -> str:
+    h = activations.HEADS.get((task, name))
+    return h.tooltip if h is not None else name
+
+
+def fmt_seconds(s: float | None) -> str:
+    if s is None or not math.isfinite(s):
+        return "–"
+    s = max(0.0, float(s))
+    if s < 60:
+        return f"{s:.0f} s"
+    m, sec = divmod(int(round(s)), 60)
+    if m < 60:
+        return f"{m} min {sec:02d} s"
+    h, m = divmod(m, 60)
+    return f"{h} h {m:02d} min"
+
+
+# --------------------------------------------------------------------------- plan
+
+
+def plan_supports_roles() -> bool:
+    """Whether the core's plan can carry role changes (ignored columns)."""
+    from workbench.plan import SweepPlan
+
+    return "ignore" in getattr(SweepPlan, "__dataclass_fields__", {})
+
+
+def build_plan(table: LoadedTable, summary: TargetSummary, choices: dict,
+               roles: dict[str, str] | None = None):
+    """The core's :class:`SweepPlan` for the window's choices (InputError when impossible)."""
+    from workbench.plan import SweepPlan
+
+    info = summary.target
+    if not choices.get("hidden"):
+        raise InputError("tick at least one hidden activation to sweep")
+    if not choices.get("heads"):
+        raise InputError("tick at least one output head that the guard allows for this target")
+    kw = dict(table=str(table.path), target=info.name, task=info.task,
+              target_kind=info.kind, hidden=list(choices["hidden"]),
+              heads=list(choices["heads"]), layers=list(choices.get("layers") or ["32"]),
+              learning_rates=list(choices.get("learning_rates") or []),
+              alphas=list(choices.get("alphas") or []),
+              folds=int(choices["folds"]), repeats=int(choices["repeats"]),
+              epochs=int(choices["epochs"]), early_stopping=bool(choices.get("early_stopping")),
+              metric=choices.get("metric") or None, requested_output=",".join(choices["heads"]))
+    if roles and plan_supports_roles():
+        kw["ignore"] = sorted(n for n, r in roles.items() if r == "ignore")
+    try:
+        return SweepPlan(**kw)
+    except (TypeError, ValueError) as exc:
+        raise InputError(str(exc)) from None
+
+
+def _work_units(layers, n_features: int, n_rows: float, epochs: float) -> float:
+    widths = [max(1, int(n_features))] + [int(w) for w in layers] + [1]
+    return float(n_rows) * float(epochs) * sum(a * b for a, b in zip(widths, widths[1:]))
+
+
+def machine_speed(store_path: str | None) -> float | None:
+    """Seconds per unit of work (rows x epochs x weights) measured on this machine.
+
+    The median over the trials stored on this computer by earlier sweeps; None
+    when there are none yet.
+    """
+    import socket
+
+    import numpy as np
+
+    try:
+        store = _store(store_path)
+        host = socket.gethostname()
+        ratios = []
+        for sw in store.list_sweeps()[:10]:
+            if sw.get("host") not in (None, host):
+                continue
+            n_feat = max(1, len(sw["fingerprint"].get("columns", [])) - 1)
+            cfgs = {c["index"]: c for c in store.configurations(sw["id"])}
+            for t in store.trials(sw["id"], with_history=False)[:200]:
+                c = cfgs.get(t["config_index"])
+                if c is None or not t.get("fit_seconds") or not t.get("epochs"):
+                    continue
+                w = _work_units(c["layers"], n_feat, t.get("n_train") or 1, t["epochs"])
+                ratios.append(t["fit_seconds"] / w)
+        return float(np.median(ratios)) if ratios else None
+    except Exception:
+        return None
+
+
+def plan_summary(plan, choices: dict, speed: float | None, n_rows: int, n_features: int) -> str:
+    """Configurations, trials and an estimated duration of a plan."""
+    n_cfg, n_trials = plan.n_configurations, plan.n_trials
+    text = (f"{n_cfg} configuration{'s' if n_cfg != 1 else ''} × {plan.folds} folds × "
+            f"{plan.repeats} repeat{'s' if plan.repeats != 1 else ''} = {n_trials} trials")
+    if speed is None:
+        return text + "\nTime estimate: after the first sweep on this computer."
+    n_feat = max(1, int(n_features))
+    workers = 4 if choices.get("cluster") else max(1, int(choices.get("jobs") or 1))
+    train_rows = n_rows * (plan.folds - 1) / plan.folds
+    total = 0.0
+    for c in plan.configurations():
+        total += speed * _work_units(c.layers, n_feat, train_rows, plan.epochs)
+    total *= plan.folds * plan.repeats
+    return text + (f"\nAbout {fmt_seconds(total / workers + 2.0)} on {workers} worker"
+                   f"{'s' if workers != 1 else ''} (from earlier trials on this computer; "
+                   "early stopping can make it shorter).")
+
+
+# --------------------------------------------------------------------------- store, sweep
+
+_LOCAL = threading.local()
+
+
+def _store(path: str | None):
+    """A Store for this thread (SQLite connections are cheap to keep, costly to reopen)."""
+    from workbench.store import Store, default_store_path
+
+    key = str(path or default_store_path())
+    cache = getattr(_LOCAL, "stores", None)
+    if cache is None:
+        cache = _LOCAL.stores = {}
+    if key not in cache:
+        cache[key] = Store(path)
+    return cache[key]
+
+
+def run_plan(plan, choices: dict, store_path: str | None, on_event, cancel) -> dict:
+    """Run a new sweep with the core's runner (blocks; call it on the bridge thread)."""
+    from workbench.runner import run_sweep
+
+    out = run_sweep(plan, store=_store(store_path), jobs=int(choices.get("jobs") or 1),
+                    cluster=choices.get("cluster") or None, on_event=on_event, cancel=cancel)
+    return {"sweep_id": out.sweep_id,
+            "state": "finished" if out.state == "finished" else "cancelled",
+            "n_finished": out.n_finished}
+
+
+def resume(sweep_id: str, store_path: str | None, jobs: int, on_event, cancel) -> dict:
+    """Run the missing trials of a stored sweep."""
+    from workbench.runner import run_sweep
+
+    out = run_sweep(resume=sweep_id, store=_store(store_path), jobs=int(jobs or 1),
+                    on_event=on_event, cancel=cancel)
+    return {"sweep_id": out.sweep_id,
+            "state": "finished" if out.state == "finished" else "cancelled",
+            "n_finished": out.n_finished}
+
+
+def history(store_path: str | None) -> list[dict]:
+    """The stored sweeps, newest first (the ``workbench history --json`` objects)."""
+    from workbench.commands.history import sweep_summaries
+
+    return sweep_summaries(_store(store_path))
+
+
+def _band(curves: list[list[float]]) -> dict | None:
+    """Mean and ±1 sd per epoch over the trials that reached that epoch."""
+    import numpy as np
+
+    curves = [np.asarray([np.nan if v is None else v for v in c], float) for c in curves if c]
+    if not curves:
+        return None
+    need = 2 if len(curves) > 1 else 1
+    n = max(len(c) for c in curves)
+    mat = np.full((len(curves), n), np.nan)
+    for i, c in enumerate(curves):
+        mat[i, :len(c)] = c
+    counts = np.sum(np.isfinite(mat), axis=0)
+    keep = int(np.max(np.flatnonzero(counts >= need))) + 1 if np.any(counts >= need) else 0
+    if keep == 0:
+        return None
+    mat = mat[:, :keep]
+    with np.errstate(all="ignore"):
+        import warnings
+
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            mean = np.nanmean(mat, axis=0)
+            sd = np.nanstd(mat, axis=0)
+    sd = np.nan_to_num(sd)
+    return {"x": list(range(1, keep + 1)), "mean": mean.tolist(), "lo": (mean - sd).tolist(),
+            "hi": (mean + sd).tolist()}
+
+
+def _layer_means(trials: list[dict], key: str) -> list[float]:
+    import numpy as np
+
+    rows = [t.get("health", {}).get(key) or [] for t in trials]
+    rows = [r for r in rows if r]
+    if not rows:
+        return []
+    n = max(len(r) for r in rows)
+    out = []
+    for k in range(n):
+        vals = [r[k] for r in rows if len(r) > k and r[k] is not None and math.isfinite(r[k])]
+        out.append(float(np.mean(vals)) if vals else math.nan)
+    return out
+
+
+def ranked_rows(store_path: str | None, sweep_id: str) -> dict:
+    """The ranking of a stored sweep as rows for the results table and series for the plots.
+
+    Returns
+    -------
+    dict
+        ``{"meta": the sweep's results without its configurations,
+        "rows": [row dict per configuration]}``.
+    """
+    from workbench.gui.plots import health_hints
+
+    store = _store(store_path)
+    res = store.results(sweep_id)
+    per_cfg = int(res["plan"]["folds"]) * int(res["plan"]["repeats"])
+    full = {}
+    for t in store.trials(sweep_id, with_history=True):
+        full.setdefault(t["config_index"], []).append(t)
+    rows = []
+    for c in res["configurations"]:
+        ranked = bool(c.get("tied_with_best")) or c.get("p_value") is not None
+        trials = [t for t in full.get(c["index"], []) if t["status"] == "done"]
+        label = f"{c['hidden']} / {c['head']} [{','.join(str(s) for s in c['layers'])}]"
+        health = {"dead": _layer_means(trials, "dead"),
+                  "saturated": _layer_means(trials, "saturated"),
+                  "grad_norm": _layer_means(trials, "grad_norm")}
+        errors = sorted({t.get("error") for t in full.get(c["index"], []) if t.get("error")})
+        rows.append({
+            "key": f"{sweep_id}:{c['index']}",
+            "index": c["index"],
+            "rank": c["rank"] if ranked and c.get("mean") is not None else None,
+            "hidden": c["hidden"], "head": c["head"],
+            "layers": ",".join(str(s) for s in c["layers"]),
+            "learning_rate": c["learning_rate"], "alpha": c["alpha"],
+            "mean": c.get("mean"), "sd": c.get("sd"), "p_value": c.get("p_value"),
+            "tied_with_best": bool(c.get("tied_with_best")),
+            "fit_seconds": c.get("mean_fit_seconds"),
+            "dead_pct": None if c.get("dead") is None else 100.0 * c["dead"],
+            "saturated_pct": None if c.get("saturated") is None else 100.0 * c["saturated"],
+            "engine": c["engine"], "status": c["status"],
+            "n_done": len(c.get("trials", [])), "n_total": per_cfg,
+            "message": "; ".join(errors)[:400] if errors else "",
+            "series": {
+                "key": f"{sweep_id}:{c['index']}",
+                "loss": _band([(t.get("history") or {}).get("loss") or [] for t in trials]),
+                "val": _band([(t.get("history") or {}).get("val_score") or [] for t in trials]),
+                "fold_scores": [t["test_score"] for t in trials],
+                "mean": c.get("mean"), "sd": c.get("sd"),
+                "health": health,
+                "hints": health_hints(label, c["hidden"], health),
+            },
+        })
+    meta = {k: v for k, v in res.items() if k != "configurations"}
+    return {"meta": meta, "rows": rows}
+
+
+__all__ = ["InputError", "LoadedTable", "TargetSummary", "load", "summarise_target",
+           "evidence_text", "hidden_tooltips", "head_tooltip", "fmt_seconds"]
+
+
+# --------------------------------------------------------------------------- export
+
+
+def export_formats() -> list[tuple[str, str, str, bool]]:
+    """``(name, label, tooltip, checked by default)`` for each format of the export registry."""
+    try:
+        from workbench import export as ex
+    except ImportError:
+        return []
+    reg = getattr(ex, "FORMATS", None) or getattr(ex, "REGISTRY", None) or {}
+    out = []
+    for name, fmt in reg.items():
+        label = getattr(fmt, "label", None) or name
+        tip = getattr(fmt, "description", None) or getattr(fmt, "help", "") or ""
+        out.append((name, str(label), str(tip), bool(getattr(fmt, "default", True))))
+    return out
+
+
+def export(store_path: str | None, sweep_id: str, row: dict, folder: str,
+           formats: list[str]) -> str:
+    """Export one configuration of a stored sweep; returns the folder written."""
+    from workbench.export import export_configuration
+
+    if not formats:
+        raise InputError("tick at least one export format")
+    out = export_configuration(_store(store_path), sweep_id, rank=row.get("rank"),
+                               folder=folder, formats=list(formats))
+    return str(getattr(out, "folder", out))

@@ -1,0 +1,849 @@
+"""The main window: drop a table, tick activations, watch the sweep, read the results.
+
+Layout (our own): a set-up column on the left (four numbered cards: table and
+target, activations, training and evaluation, where to run), and on the right
+a message banner, a progress strip, and two tabs: *Data* (preview and column
+profile) and *Results* (filter bar, the ranked table, and three plot panels
+side by side: learning curves, fold scores, layer health).
+
+All work happens off the GUI thread: loading and profiling through
+:mod:`workbench.gui.tasks`, the sweep through :mod:`workbench.gui.bridge`.
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+from PySide6.QtCore import QItemSelectionModel, QSize, Qt, QTimer, QUrl, Signal
+from PySide6.QtGui import QAction, QDesktopServices, QKeySequence
+from PySide6.QtWidgets import (
+    QAbstractItemView,
+    QApplication,
+    QCheckBox,
+    QComboBox,
+    QFileDialog,
+    QFrame,
+    QHBoxLayout,
+    QHeaderView,
+    QLabel,
+    QLineEdit,
+    QMainWindow,
+    QMessageBox,
+    QProgressBar,
+    QScrollArea,
+    QSplitter,
+    QStyledItemDelegate,
+    QTableView,
+    QTabWidget,
+    QVBoxLayout,
+    QWidget,
+)
+
+from workbench.gui import core_adapter as core
+from workbench.gui import theme as th
+from workbench.gui.bridge import SweepThread
+from workbench.gui.models import (
+    COLUMN_KEYS,
+    ROLES,
+    FrameModel,
+    ProfileModel,
+    ResultsModel,
+    ResultsProxy,
+)
+from workbench.gui.plots import CurvesPanel, HealthPanel, SpreadPanel
+from workbench.gui.settings import Settings
+from workbench.gui.setup_pane import SetupPane
+from workbench.gui.tasks import run_task
+from workbench.gui.widgets import Banner
+
+TABLE_FILTER = "Tables (*.csv *.tsv *.txt *.xlsx *.parquet *.pq);;All files (*)"
+#: the most configurations drawn at once in the plots
+MAX_PLOTTED = 8
+
+
+class RoleDelegate(QStyledItemDelegate):
+    """A combo box editor for the profile's role column."""
+
+    def createEditor(self, parent, option, index):
+        box = QComboBox(parent)
+        box.addItems(list(ROLES))
+        return box
+
+    def setEditorData(self, editor, index):
+        editor.setCurrentText(str(index.data(Qt.EditRole)))
+
+    def setModelData(self, editor, model, index):
+        model.setData(index, editor.currentText(), Qt.EditRole)
+
+
+class MainWindow(QMainWindow):
+    """The Activation Workbench window.
+
+    Parameters
+    ----------
+    settings : Settings, optional
+        Where geometry, the last folder and recent files are kept.
+    store_path : str, optional
+        The sweep store (default: the core's default store).
+    """
+
+    #: a table finished loading (its path)
+    tableLoaded = Signal(str)
+    #: a table failed to load (the loader's one-line message)
+    loadFailed = Signal(str)
+    #: the target summary for the current target is shown
+    targetReady = Signal(str)
+    #: a sweep ended: {"state": "finished" | "cancelled" | "failed", "sweep_id", "message"}
+    sweepEnded = Signal(dict)
+    #: an export finished (its folder) or failed (message)
+    exportDone = Signal(str)
+    exportFailed = Signal(str)
+
+    def __init__(self, settings: Settings | None = None, store_path: str | None = None,
+                 theme_choice: str | None = None):
+        super().__init__()
+        self.settings = settings or Settings()
+        self.store_path = store_path
+        self.table: core.LoadedTable | None = None
+        self.summary: core.TargetSummary | None = None
+        self.sweep_id: str | None = None
+        self.results_meta: dict = {}
+        self._sweep: SweepThread | None = None
+        self._load_generation = 0
+        self._target_generation = 0
+        self._progress = {"done": 0, "total": 0, "best": None, "t0": None, "running": 0}
+        self._close_after_stop = False
+        self._speed: float | None = None
+        self._theme_choice = theme_choice or self.settings.theme()
+        self.theme = th.resolve(self._theme_choice)
+
+        self.setWindowTitle("Activation Workbench")
+        self.setWindowIcon(th.icon("app", "#000000"))
+        self.setAcceptDrops(True)
+        self._build_actions()
+        self._build_ui()
+        self._build_menus()
+        self.apply_theme(self._theme_choice)
+        self._restore_geometry()
+        self._tick = QTimer(self)
+        self._tick.setInterval(500)
+        self._tick.timeout.connect(self._update_progress_text)
+        self._update_actions()
+        self._update_estimate()
+        self._measure_speed()
+
+    def _measure_speed(self) -> None:
+        """Read this machine's training speed from earlier trials (background)."""
+        store = self.store_path
+
+        def done(speed):
+            self._speed = speed
+            self._update_estimate()
+
+        run_task(lambda: core.machine_speed(store), done, lambda msg: None)
+
+    # ================================================================== building
+    def _build_actions(self) -> None:
+        def act(text, shortcut, slot, tip, icon=None):
+            a = QAction(text, self)
+            if shortcut is not None:
+                a.setShortcuts(shortcut if isinstance(shortcut, list) else [shortcut])
+            a.setToolTip(tip)
+            a.setStatusTip(tip)
+            a.triggered.connect(slot)
+            a._icon_name = icon
+            self.addAction(a)
+            return a
+
+        self.open_action = act("&Open table…", QKeySequence.Open, self.choose_file,
+                               "Open a table (Ctrl+O)", "open")
+        self.run_action = act("&Run sweep", [QKeySequence("Ctrl+R"), QKeySequence("F5")],
+                              self.run_sweep, "Run the sweep (Ctrl+R)", "run")
+        self.stop_action = act("&Stop", [QKeySequence("Ctrl+."), QKeySequence("Shift+F5")],
+                               self.stop_sweep, "Stop the sweep; finished trials stay (Ctrl+.)",
+                               "stop")
+        self.export_action = act("&Export…", QKeySequence("Ctrl+E"), self.show_export_dialog,
+                                 "Export the selected (or best) configuration (Ctrl+E)", "export")
+        self.history_action = act("&History…", QKeySequence("Ctrl+H"), self.show_history,
+                                  "Reopen or resume an earlier sweep (Ctrl+H)", "history")
+        self.quit_action = act("&Quit", QKeySequence.Quit, self.close, "Quit (Ctrl+Q)")
+        self.theme_actions = {}
+        for name, label in (("system", "Follow the system"), ("light", "Light"),
+                            ("dark", "Dark")):
+            a = QAction(label, self, checkable=True)
+            a.triggered.connect(lambda _=False, n=name: self.apply_theme(n))
+            self.theme_actions[name] = a
+
+    def _build_menus(self) -> None:
+        mb = self.menuBar()
+        m = mb.addMenu("&File")
+        m.addAction(self.open_action)
+        self.recent_menu = m.addMenu("Open &recent")
+        self.recent_menu.aboutToShow.connect(self._fill_recent_menu)
+        m.addSeparator()
+        m.addAction(self.export_action)
+        m.addSeparator()
+        m.addAction(self.quit_action)
+        m = mb.addMenu("&Sweep")
+        m.addAction(self.run_action)
+        m.addAction(self.stop_action)
+        m.addSeparator()
+        m.addAction(self.history_action)
+        m = mb.addMenu("&View")
+        tm = m.addMenu("&Theme")
+        for a in self.theme_actions.values():
+            tm.addAction(a)
+
+        tb = self.addToolBar("Main")
+        tb.setObjectName("mainToolbar")
+        tb.setMovable(False)
+        tb.setIconSize(QSize(20, 20))
+        tb.setToolButtonStyle(Qt.ToolButtonTextBesideIcon)
+        for a in (self.open_action, self.run_action, self.stop_action, self.export_action,
+                  self.history_action):
+            tb.addAction(a)
+        self.toolbar = tb
+
+    def _build_ui(self) -> None:
+        root = QSplitter(Qt.Horizontal)
+        root.setChildrenCollapsible(False)
+        root.setHandleWidth(6)
+
+        # left: set-up column in a scroll area
+        self.setup = SetupPane()
+        scroll = QScrollArea()
+        scroll.setObjectName("setupScroll")
+        scroll.setWidgetResizable(True)
+        scroll.setHorizontalScrollBarPolicy(Qt.ScrollBarAlwaysOff)
+        scroll.setWidget(self.setup)
+        scroll.setMinimumWidth(340)
+        scroll.setMaximumWidth(460)
+        root.addWidget(scroll)
+        self.setup.targetChosen.connect(self.set_target)
+        self.setup.planChanged.connect(self._update_estimate)
+        self.setup.runRequested.connect(self.run_sweep)
+
+        # right: banner, progress strip, tabs
+        right = QWidget()
+        rl = QVBoxLayout(right)
+        rl.setContentsMargins(4, 8, 8, 8)
+        rl.setSpacing(6)
+        self.banner = Banner()
+        rl.addWidget(self.banner)
+
+        strip = QFrame()
+        strip.setObjectName("progressStrip")
+        sl = QHBoxLayout(strip)
+        sl.setContentsMargins(8, 4, 8, 4)
+        self.progress = QProgressBar()
+        self.progress.setRange(0, 1)
+        self.progress.setValue(0)
+        self.progress.setTextVisible(False)
+        self.progress.setMinimumWidth(200)
+        self.progress.hide()
+        self.progress_label = QLabel("No sweep yet: load a table, tick what to sweep, then "
+                                     "Run sweep (Ctrl+R).")
+        self.progress_label.setObjectName("muted")
+        sl.addWidget(self.progress, 2)
+        sl.addWidget(self.progress_label, 3)
+        rl.addWidget(strip)
+
+        self.tabs = QTabWidget()
+        self.tabs.setDocumentMode(False)
+        rl.addWidget(self.tabs, 1)
+
+        # data tab
+        data = QSplitter(Qt.Vertical)
+        self.frame_model = FrameModel(self)
+        self.preview = QTableView()
+        self.preview.setModel(self.frame_model)
+        self.preview.setAlternatingRowColors(True)
+        self.preview.verticalHeader().setDefaultSectionSize(22)
+        self.preview.horizontalHeader().setDefaultSectionSize(110)
+        self.profile_model = ProfileModel(self)
+        self.profile_model.roleChanged.connect(self._role_changed)
+        self.profile_view = QTableView()
+        self.profile_view.setModel(self.profile_model)
+        self.profile_view.setItemDelegateForColumn(4, RoleDelegate(self.profile_view))
+        self.profile_view.setEditTriggers(QAbstractItemView.AllEditTriggers)
+        self.profile_view.verticalHeader().hide()
+        self.profile_view.verticalHeader().setDefaultSectionSize(22)
+        self.profile_view.horizontalHeader().setSectionResizeMode(QHeaderView.Stretch)
+        self.profile_view.setAlternatingRowColors(True)
+        data.addWidget(self._titled("First rows", self.preview))
+        data.addWidget(self._titled(
+            "Column profile (double-click a role to change it)", self.profile_view))
+        self.tabs.addTab(data, "Data")
+
+        # results tab
+        res = QWidget()
+        rv = QVBoxLayout(res)
+        rv.setContentsMargins(6, 6, 6, 6)
+        rv.setSpacing(4)
+        bar = QHBoxLayout()
+        bar.addWidget(QLabel("Show"))
+        self.head_filter = QComboBox()
+        self.head_filter.addItem("all heads", "")
+        self.hidden_filter = QComboBox()
+        self.hidden_filter.addItem("all hidden", "")
+        self.text_filter = QLineEdit()
+        self.text_filter.setPlaceholderText("filter…")
+        self.text_filter.setClearButtonEnabled(True)
+        self.tied_filter = QCheckBox("tie group only")
+        for w in (self.head_filter, self.hidden_filter):
+            w.currentIndexChanged.connect(self._apply_filters)
+        self.text_filter.textChanged.connect(self._apply_filters)
+        self.tied_filter.toggled.connect(self._apply_filters)
+        bar.addWidget(self.head_filter)
+        bar.addWidget(self.hidden_filter)
+        bar.addWidget(self.text_filter, 1)
+        bar.addWidget(self.tied_filter)
+        self.results_note = QLabel("")
+        self.results_note.setObjectName("muted")
+        rv.addLayout(bar)
+
+        self.results_model = ResultsModel(self)
+        self.proxy = ResultsProxy(self)
+        self.proxy.setSourceModel(self.results_model)
+        self.results_view = QTableView()
+        self.results_view.setModel(self.proxy)
+        self.results_view.setSortingEnabled(True)
+        self.results_view.setSelectionBehavior(QAbstractItemView.SelectRows)
+        self.results_view.setSelectionMode(QAbstractItemView.ExtendedSelection)
+        self.results_view.setEditTriggers(QAbstractItemView.NoEditTriggers)
+        self.results_view.verticalHeader().hide()
+        self.results_view.verticalHeader().setDefaultSectionSize(22)
+        self.results_view.setWordWrap(False)
+        hh = self.results_view.horizontalHeader()
+        hh.setSectionResizeMode(QHeaderView.Interactive)
+        hh.setStretchLastSection(True)
+        widths = {"rank": 48, "hidden": 86, "head": 72, "layers": 62, "learning_rate": 92,
+                  "alpha": 62, "mean": 132, "tied_with_best": 96, "p_value": 72,
+                  "fit_seconds": 84, "dead_pct": 60, "saturated_pct": 84, "engine": 66,
+                  "status": 74, "trials": 56}
+        for i, k in enumerate(COLUMN_KEYS):
+            hh.resizeSection(i, widths.get(k, 80))
+        hh.setSortIndicator(0, Qt.AscendingOrder)
+        self.results_view.selectionModel().selectionChanged.connect(self._selection_changed)
+        self.results_model.rowsUpdated.connect(self._rows_updated)
+
+        self.curves = CurvesPanel()
+        self.spread = SpreadPanel()
+        self.health = HealthPanel()
+        plots = QSplitter(Qt.Horizontal)
+        plots.setChildrenCollapsible(False)
+        for p in (self.curves, self.spread, self.health):
+            p.setMinimumWidth(220)
+            plots.addWidget(p)
+        plots.setSizes([420, 260, 320])
+        vs = QSplitter(Qt.Vertical)
+        vs.setChildrenCollapsible(False)
+        tablebox = QWidget()
+        tl = QVBoxLayout(tablebox)
+        tl.setContentsMargins(0, 0, 0, 0)
+        tl.setSpacing(2)
+        tl.addWidget(self.results_view, 1)
+        tl.addWidget(self.results_note)
+        vs.addWidget(tablebox)
+        vs.addWidget(plots)
+        vs.setSizes([230, 380])
+        rv.addWidget(vs, 1)
+        self.tabs.addTab(res, "Results")
+
+        root.addWidget(right)
+        root.setStretchFactor(0, 0)
+        root.setStretchFactor(1, 1)
+        root.setSizes([370, 910])
+        self.setCentralWidget(root)
+        self.status = self.statusBar()
+        self.status.showMessage("Ready. Drop a table onto the window to begin.")
+
+    @staticmethod
+    def _titled(title: str, widget: QWidget) -> QWidget:
+        w = QWidget()
+        lay = QVBoxLayout(w)
+        lay.setContentsMargins(6, 6, 6, 2)
+        lay.setSpacing(2)
+        lab = QLabel(title)
+        lab.setObjectName("plotTitle")
+        lay.addWidget(lab)
+        lay.addWidget(widget, 1)
+        return w
+
+    # ================================================================== look
+    def apply_theme(self, choice: str) -> None:
+        self._theme_choice = choice
+        self.theme = th.resolve(choice)
+        app = QApplication.instance()
+        if app is not None:
+            th.apply(app, self.theme)
+        for name, a in self.theme_actions.items():
+            a.setChecked(name == choice)
+        icon_color = self.theme.text
+        for a in (self.open_action, self.run_action, self.stop_action, self.export_action,
+                  self.history_action):
+            a.setIcon(th.icon(a._icon_name, icon_color))
+        self.banner.icon.setPixmap(th.icon("warning", self.theme.warn).pixmap(18, 18))
+        self.banner.close_btn.setIcon(th.icon("close", self.theme.banner_text))
+        from PySide6.QtGui import QColor
+
+        self.results_model.tie_color = QColor(self.theme.tie)
+        self.results_model.muted_color = QColor(self.theme.muted)
+        for p in (self.curves, self.spread, self.health):
+            p.set_theme(self.theme)
+        self.settings.set_theme(choice)
+
+    # ================================================================== settings
+    def _restore_geometry(self) -> None:
+        g = self.settings.geometry()
+        if g is not None:
+            self.restoreGeometry(g)
+        else:
+            self.resize(1280, 800)
+
+    def _save_settings(self) -> None:
+        self.settings.set_geometry(self.saveGeometry())
+        self.settings.sync()
+
+    def _fill_recent_menu(self) -> None:
+        self.recent_menu.clear()
+        files = self.settings.recent_files()
+        if not files:
+            a = self.recent_menu.addAction("(no recent files)")
+            a.setEnabled(False)
+            return
+        for i, path in enumerate(files, start=1):
+            a = self.recent_menu.addAction(f"&{i} {Path(path).name}")
+            a.setToolTip(path)
+            a.triggered.connect(lambda _=False, p=path: self.open_path(p))
+        self.recent_menu.addSeparator()
+        self.recent_menu.addAction("Clear list", self.settings.clear_recent_files)
+
+    # ================================================================== messages
+    def show_message(self, text: str) -> None:
+        """Show a one-line message in the banner above the work area."""
+        self.banner.show_message(text)
+        self.status.showMessage(text, 8000)
+
+    def message_text(self) -> str:
+        return self.banner.label.text() if not self.banner.isHidden() else ""
+
+    # ================================================================== opening
+    def choose_file(self) -> None:
+        path, _ = QFileDialog.getOpenFileName(self, "Open a table", self.settings.last_folder(),
+                                              TABLE_FILTER)
+        if path:
+            self.open_path(path)
+
+    def dragEnterEvent(self, event) -> None:
+        md = event.mimeData()
+        if md.hasUrls() and any(u.isLocalFile() for u in md.urls()):
+            event.acceptProposedAction()
+        else:
+            event.ignore()
+
+    def dragMoveEvent(self, event) -> None:
+        if event.mimeData().hasUrls():
+            event.acceptProposedAction()
+
+    def dropEvent(self, event) -> None:
+        urls = [u for u in event.mimeData().urls() if u.isLocalFile()]
+        if not urls:
+            event.ignore()
+            return
+        event.acceptProposedAction()
+        self.open_path(urls[0].toLocalFile())
+
+    def open_path(self, path: str, target: str | None = None) -> None:
+        """Load a table in the background; keep the current one if it fails."""
+        self._load_generation += 1
+        gen = self._load_generation
+        self.status.showMessage(f"Loading {Path(path).name}…")
+
+        def done(table):
+            if gen == self._load_generation:
+                self._table_loaded(table, target)
+
+        def failed(msg):
+            if gen == self._load_generation:
+                self.show_message(msg)
+                self.loadFailed.emit(msg)
+
+        run_task(lambda: core.load(path), done, failed)
+
+    def _table_loaded(self, table: core.LoadedTable, target: str | None) -> None:
+        self.banner.hide_message()
+        self.table = table
+        self.settings.add_recent_file(table.path)
+        self.settings.set_last_folder(str(Path(table.path).resolve().parent))
+        self.frame_model.set_frame(table.df)
+        self.preview.resizeColumnsToContents()
+        hh = self.preview.horizontalHeader()
+        for i in range(self.frame_model.columnCount()):
+            hh.resizeSection(i, min(max(hh.sectionSize(i), 60), 220))
+        self.profile_model.set_columns(table.columns)
+        self.setup.set_table(table, target)
+        self.setWindowTitle(f"{table.name} – Activation Workbench")
+        self.tabs.setCurrentIndex(0)
+        self.status.showMessage(
+            f"Loaded {table.name}: {table.report.rows:,} rows, {table.report.columns} columns "
+            f"in {getattr(table.report, 'seconds', 0.0):.2f} s.", 6000)
+        self.tableLoaded.emit(table.path)
+        self.set_target(self.setup.target())
+
+    def set_target(self, name: str) -> None:
+        """Analyse ``name`` as the target (in the background) and show its kind and advice."""
+        if self.table is None or not name:
+            return
+        if self.setup.target() != name:
+            self.setup.target_combo.blockSignals(True)
+            self.setup.target_combo.setCurrentText(name)
+            self.setup.target_combo.blockSignals(False)
+        self.profile_model.set_target(name)
+        self._target_generation += 1
+        gen = self._target_generation
+        df = self.table.df
+
+        def done(summary):
+            if gen != self._target_generation:
+                return
+            self.summary = summary
+            self.setup.set_target_summary(summary)
+            self._update_estimate()
+            self._update_actions()
+            self.targetReady.emit(name)
+
+        def failed(msg):
+            if gen != self._target_generation:
+                return
+            self.summary = None
+            self.setup.set_target_summary(None)
+            self.show_message(msg)
+            self._update_estimate()
+            self._update_actions()
+
+        run_task(lambda: core.summarise_target(df, name), done, failed)
+
+    def _role_changed(self, column: str, role: str) -> None:
+        if role == "target":
+            self.set_target(column)
+        self._update_estimate()
+
+    # ================================================================== plan
+    def _plan(self, quiet: bool = True):
+        if self.table is None or self.summary is None:
+            return None, "Load a table and pick a target first."
+        try:
+            plan = core.build_plan(self.table, self.summary, self.setup.choices(),
+                                   self.profile_model.roles())
+        except core.InputError as exc:
+            return None, str(exc)
+        return plan, ""
+
+    def _update_estimate(self) -> None:
+        plan, msg = self._plan()
+        if plan is None:
+            self.setup.set_estimate(msg, False)
+        else:
+            rows, cols = self.table.df.shape
+            self.setup.set_estimate(core.plan_summary(plan, self.setup.choices(), self._speed,
+                                                      rows, cols - 1), True)
+        self._update_actions()
+
+    # ================================================================== sweep
+    def sweep_running(self) -> bool:
+        return self._sweep is not None and self._sweep.running()
+
+    def run_sweep(self) -> None:
+        if self.sweep_running():
+            return
+        plan, msg = self._plan()
+        if plan is None:
+            self.show_message(msg)
+            return
+        choices = self.setup.choices()
+        store = self.store_path
+
+        def job(on_event, cancel):
+            return core.run_plan(plan, choices, store, on_event, cancel)
+
+        self._start(job, total=plan.n_trials)
+
+    def resume_sweep(self, sweep_id: str) -> None:
+        if self.sweep_running():
+            return
+        store = self.store_path
+        jobs = self.setup.choices()["jobs"]
+
+        def job(on_event, cancel):
+            return core.resume(sweep_id, store, jobs, on_event, cancel)
+
+        self.sweep_id = sweep_id
+        self._start(job, total=0, keep_rows=True)
+
+    def _start(self, job, total: int, keep_rows: bool = False) -> None:
+        self.banner.hide_message()
+        if not keep_rows:
+            self.results_model.clear()
+            self._plot_selection([])
+        store = self.store_path
+        self._sweep = SweepThread(job, ranker=lambda sid: core.ranked_rows(store, sid),
+                                  parent=self)
+        b = self._sweep.bridge
+        b.sweepStarted.connect(self._on_sweep_started)
+        b.trialFinished.connect(self._on_trial_finished)
+        b.trialStarted.connect(self._on_trial_started)
+        b.ranked.connect(self._on_ranked)
+        self._sweep.finished.connect(self._on_sweep_done)
+        self._progress = {"done": 0, "total": total, "best": None, "t0": time.monotonic(),
+                          "running": 0}
+        self.progress.setRange(0, max(1, total))
+        self.progress.setValue(0)
+        self.progress.show()
+        self.tabs.setCurrentIndex(1)
+        self._tick.start()
+        self._sweep.start()
+        self._update_actions()
+        self._update_progress_text()
+
+    def stop_sweep(self) -> None:
+        if self.sweep_running():
+            self._sweep.stop()
+            self.progress_label.setText("Stopping… finished trials are kept.")
+            self.stop_action.setEnabled(False)
+
+    def _on_sweep_started(self, ev: dict) -> None:
+        self.sweep_id = ev.get("sweep_id", self.sweep_id)
+        total = int(ev.get("n_trials") or ev.get("total") or self._progress["total"] or 0)
+        done = int(ev.get("n_done") or ev.get("already_done") or 0)
+        self._progress["total"] = total
+        self._progress["done"] = done
+        self.progress.setRange(0, max(1, total))
+        self.progress.setValue(done)
+
+    def _on_trial_started(self, ev: dict) -> None:
+        self._progress["running"] += 1
+
+    def _on_trial_finished(self, ev: dict) -> None:
+        p = self._progress
+        p["done"] += 1
+        p["running"] = max(0, p["running"] - 1)
+        if ev.get("best") is not None:
+            p["best"] = ev["best"]
+        elif ev.get("best_score") is not None:
+            p["best"] = ev["best_score"]
+        self.progress.setValue(min(p["done"], self.progress.maximum()))
+
+    def _update_progress_text(self) -> None:
+        p = self._progress
+        if p["t0"] is None:
+            return
+        elapsed = time.monotonic() - p["t0"]
+        parts = [f"{p['done']} / {p['total']} trials", f"elapsed {core.fmt_seconds(elapsed)}"]
+        remaining = p["total"] - p["done"]
+        if self.sweep_running() and p["done"] > 0 and remaining > 0:
+            parts.append(f"about {core.fmt_seconds(elapsed / p['done'] * remaining)} left")
+        if p["best"] is not None:
+            metric = self.results_meta.get("metric", "")
+            parts.append(f"best so far {p['best']:.4f} {metric}".rstrip())
+        if not self.sweep_running():
+            self._tick.stop()
+        self.progress_label.setText(" · ".join(parts))
+
+    def _on_ranked(self, payload) -> None:
+        if not payload:
+            return
+        self.results_meta = payload.get("meta", {})
+        self.sweep_id = self.results_meta.get("sweep_id", self.sweep_id)
+        rows = payload.get("rows", [])
+        best = next((r for r in rows if r.get("rank") == 1), None)
+        if best is not None and best.get("mean") is not None:
+            self._progress["best"] = best["mean"]
+        first = self.results_model.rowCount() == 0
+        self.results_model.upsert(rows)
+        self._refresh_filters(rows)
+        if first and rows:
+            self._fit_columns()
+
+    def _on_sweep_done(self, summary: dict) -> None:
+        self._tick.stop()
+        self.sweep_id = summary.get("sweep_id") or self.sweep_id
+        state = summary.get("state")
+        p = self._progress
+        if state == "failed":
+            self.show_message(summary.get("message") or "the sweep stopped with an error")
+        elif state == "cancelled":
+            self.status.showMessage(f"Stopped: {p['done']} trials finished and kept; "
+                                    "resume it from History.", 10000)
+        else:
+            self.status.showMessage("Sweep finished.", 8000)
+        self._update_progress_text()
+        state_word = {"finished": "Finished", "cancelled": "Stopped", "failed": "Failed"}
+        self.progress_label.setText(f"{state_word.get(state, state)} · "
+                                    + self.progress_label.text())
+        self._sweep = None
+        self._update_actions()
+        self._measure_speed()
+        if self.results_view.selectionModel().selectedRows() == [] \
+                and self.proxy.rowCount() > 0:
+            self.select_rows([0])
+        self.sweepEnded.emit(summary)
+        if self._close_after_stop:
+            self.close()
+
+    # ================================================================== results
+    def _rows_updated(self) -> None:
+        meta = self.results_meta
+        n = self.results_model.rowCount()
+        if not n:
+            self.results_note.setText("")
+            return
+        tied = sum(1 for r in self.results_model.rows() if r.get("tied_with_best"))
+        note = (f"{n} configurations · metric {meta.get('metric', '?')} (greater is better) · "
+                f"◆ best and ◇ {max(0, tied - 1)} tied with it (Nadeau–Bengio corrected t-test, "
+                f"alpha = {meta.get('significance_level', 0.05)}, "
+                f"{meta.get('n_comparisons', 0)} comparisons, no multiplicity correction)")
+        self.results_note.setText(note)
+        self._selection_changed()
+
+    def _fit_columns(self) -> None:
+        view = self.results_view
+        view.resizeColumnsToContents()
+        hh = view.horizontalHeader()
+        for i in range(self.results_model.columnCount()):
+            hh.resizeSection(i, min(max(hh.sectionSize(i) + 6, 44), 180))
+
+    def _refresh_filters(self, rows) -> None:
+        for combo, key in ((self.head_filter, "head"), (self.hidden_filter, "hidden")):
+            have = {combo.itemData(i) for i in range(combo.count())}
+            for r in rows:
+                v = r.get(key)
+                if v and v not in have:
+                    combo.addItem(v, v)
+                    have.add(v)
+
+    def _apply_filters(self) -> None:
+        self.proxy.set_filters(head=self.head_filter.currentData() or "",
+                               hidden=self.hidden_filter.currentData() or "",
+                               text=self.text_filter.text(),
+                               tied_only=self.tied_filter.isChecked())
+
+    def select_rows(self, proxy_rows: list[int]) -> None:
+        sm = self.results_view.selectionModel()
+        sm.clearSelection()
+        for r in proxy_rows:
+            sm.select(self.proxy.index(r, 0),
+                      QItemSelectionModel.Select | QItemSelectionModel.Rows)
+
+    def selected_rows(self) -> list[dict]:
+        sm = self.results_view.selectionModel()
+        rows = sorted(i.row() for i in sm.selectedRows())
+        return [self.proxy.row_at(r) for r in rows]
+
+    def _selection_changed(self, *args) -> None:
+        self._plot_selection(self.selected_rows()[:MAX_PLOTTED])
+
+    def _plot_selection(self, rows: list[dict]) -> None:
+        series = []
+        for i, r in enumerate(rows):
+            s = dict(r.get("series") or {})
+            if not s:
+                continue
+            s["color"] = i
+            s["label"] = f"{i + 1}. {r['hidden']} / {r['head']} [{r['layers']}]"
+            series.append(s)
+        self.curves.set_series(series)
+        self.spread.set_series(series)
+        self.health.set_series(series)
+
+    # ================================================================== export, history
+    def export_target_row(self) -> dict | None:
+        sel = self.selected_rows()
+        if sel:
+            return sel[0]
+        return next((r for r in self.results_model.rows() if r.get("rank") == 1), None)
+
+    def show_export_dialog(self) -> None:
+        from workbench.gui.dialogs import ExportDialog
+
+        row = self.export_target_row()
+        if self.sweep_id is None or row is None:
+            self.show_message("Run or reopen a sweep first; then export its best configuration.")
+            return
+        dlg = ExportDialog(self, row, self.settings.last_folder())
+        if dlg.exec():
+            self.export_configuration(row, dlg.folder(), dlg.formats(), dlg.open_when_done())
+
+    def export_configuration(self, row: dict, folder: str, formats: list[str],
+                             open_folder: bool = False) -> None:
+        """Export one configuration of the current sweep in the background."""
+        sweep_id, store = self.sweep_id, self.store_path
+        self.status.showMessage(f"Exporting rank {row.get('rank')} to {folder}…")
+
+        def done(path):
+            self.status.showMessage(f"Exported to {path}", 10000)
+            if open_folder:
+                QDesktopServices.openUrl(QUrl.fromLocalFile(str(path)))
+            self.exportDone.emit(str(path))
+
+        def failed(msg):
+            self.show_message(msg)
+            self.exportFailed.emit(msg)
+
+        run_task(lambda: core.export(store, sweep_id, row, folder, formats), done, failed)
+
+    def show_history(self) -> None:
+        from workbench.gui.dialogs import HistoryDialog
+
+        dlg = HistoryDialog(self, self.store_path)
+        dlg.reopenRequested.connect(self.reopen_sweep)
+        dlg.resumeRequested.connect(self.resume_sweep)
+        dlg.exec()
+
+    def reopen_sweep(self, sweep_id: str) -> None:
+        """Show a stored sweep's results (read in the background)."""
+        store = self.store_path
+
+        def done(payload):
+            self.results_model.clear()
+            self.sweep_id = sweep_id
+            self._on_ranked(payload)
+            self.tabs.setCurrentIndex(1)
+            self.progress_label.setText(
+                f"Sweep {sweep_id}: {payload['meta'].get('state', '')}, "
+                f"{payload['meta'].get('n_stored', 0)} of {payload['meta'].get('n_trials', 0)} "
+                "trials stored")
+            if self.proxy.rowCount():
+                self.select_rows([0])
+
+        run_task(lambda: core.ranked_rows(store, sweep_id), done, self.show_message)
+
+    # ================================================================== state
+    def _update_actions(self) -> None:
+        running = self.sweep_running()
+        plan_ok = self.table is not None and self.summary is not None
+        self.run_action.setEnabled(plan_ok and not running)
+        self.setup.run_button.setEnabled(plan_ok and not running
+                                         and self.setup.estimate_label.text() != "")
+        self.stop_action.setEnabled(running)
+        self.export_action.setEnabled(not running and self.results_model.rowCount() > 0)
+        self.open_action.setEnabled(not running)
+
+    def closeEvent(self, event) -> None:
+        if self.sweep_running():
+            if not self._close_after_stop:
+                ans = QMessageBox.question(
+                    self, "Stop the sweep?",
+                    "A sweep is running. Stop it and close? Finished trials are kept and "
+                    "the sweep can be resumed later from History.",
+                    QMessageBox.Yes | QMessageBox.No, QMessageBox.No)
+                if ans != QMessageBox.Yes:
+                    event.ignore()
+                    return
+                self._close_after_stop = True
+                self.stop_sweep()
+            event.ignore()  # closes itself when the bridge reports the end
+            return
+        self._save_settings()
+        super().closeEvent(event)

@@ -1,0 +1,466 @@
+"""Qt models over what the core produced: results, table preview, column profile.
+
+The results model sorts itself with NumPy (``argsort`` over a cached key
+column) and the proxy hands its ``sort`` to it, because Qt's generic proxy sort
+asks Python for every comparison and takes over a second for 10,000 rows. The
+proxy keeps the filtering (head, hidden activation, text, tie group only).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable
+
+import numpy as np
+from PySide6.QtCore import QAbstractTableModel, QModelIndex, QSortFilterProxyModel, Qt, Signal
+from PySide6.QtGui import QColor, QFont
+
+#: (key, header, tooltip) of the results table's columns, in order
+RESULT_COLUMNS = (
+    ("rank", "Rank", "Rank by mean score (1 = best)"),
+    ("hidden", "Hidden", "Hidden-layer activation"),
+    ("head", "Head", "Output activation and its matched loss"),
+    ("layers", "Layers", "Hidden-layer widths"),
+    ("learning_rate", "LR", "Initial learning rate (Adam)"),
+    ("alpha", "L2", "L2 penalty (alpha)"),
+    ("mean", "Mean ± sd", "Mean and standard deviation of the metric over all folds and repeats"),
+    ("tied_with_best", "Tie group",
+     "Not distinguishable from the best at alpha = 0.05 (Nadeau-Bengio corrected t-test)"),
+    ("p_value", "p", "Corrected resampled t-test p-value against the best configuration"),
+    ("fit_seconds", "Fit (s)", "Mean fit time per trial, seconds"),
+    ("dead_pct", "Dead %", "Share of hidden units that never activate, last epoch, mean over trials"),
+    ("saturated_pct", "Sat. %", "Share of hidden units stuck in a flat region, last epoch"),
+    ("engine", "Engine", "scikit-learn's MLP, or the project's NumPy engine"),
+    ("status", "Status", "done, diverged, failed, cancelled or running"),
+    ("trials", "Trials", "Finished trials / planned trials"),
+)
+COLUMN_KEYS = tuple(c[0] for c in RESULT_COLUMNS)
+NUMERIC = {"rank", "learning_rate", "alpha", "mean", "p_value", "fit_seconds", "dead_pct",
+           "saturated_pct", "trials"}
+SORT_ROLE = Qt.UserRole + 1
+ROW_ROLE = Qt.UserRole + 2
+KEY_ROLE = Qt.UserRole + 3
+
+
+def _num(x) -> float:
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return math.nan
+    return v
+
+
+def fmt_float(x, digits: int = 4) -> str:
+    v = _num(x)
+    if math.isnan(v):
+        return "–"
+    if v != 0 and (abs(v) < 1e-3 or abs(v) >= 1e5):
+        return f"{v:.2e}"
+    return f"{v:.{digits}f}"
+
+
+def fmt_pct(x) -> str:
+    v = _num(x)
+    return "–" if math.isnan(v) else f"{v:.0f}"
+
+
+class ResultsModel(QAbstractTableModel):
+    """One row per configuration of a sweep.
+
+    Rows are plain dicts (see :func:`workbench.gui.core_adapter.configuration_row`)
+    identified by their ``key``; :meth:`upsert` adds new ones and updates known
+    ones in place so that selections survive a sweep's updates.
+    """
+
+    rowsUpdated = Signal()
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self._rows: list[dict] = []
+        self._index: dict[str, int] = {}
+        self._order = np.zeros(0, dtype=np.int64)  # view row -> storage row
+        self._keys: dict[str, np.ndarray] = {}
+        self._sort: tuple[int, Qt.SortOrder] | None = None
+        self.tie_color = QColor("#e7eff7")
+        self.muted_color = QColor("#5d646c")
+
+    # --- Qt interface ---------------------------------------------------------
+    def rowCount(self, parent=QModelIndex()):
+        return 0 if parent.isValid() else len(self._rows)
+
+    def columnCount(self, parent=QModelIndex()):
+        return 0 if parent.isValid() else len(RESULT_COLUMNS)
+
+    def headerData(self, section, orientation, role=Qt.DisplayRole):
+        if orientation != Qt.Horizontal:
+            return None
+        if role == Qt.DisplayRole:
+            return RESULT_COLUMNS[section][1]
+        if role == Qt.ToolTipRole:
+            return RESULT_COLUMNS[section][2]
+        return None
+
+    def row_at(self, view_row: int) -> dict:
+        return self._rows[int(self._order[view_row])]
+
+    def data(self, index, role=Qt.DisplayRole):
+        if not index.isValid():
+            return None
+        row = self._rows[int(self._order[index.row()])]
+        key = COLUMN_KEYS[index.column()]
+        if role == Qt.DisplayRole:
+            return self._display(row, key)
+        if role == SORT_ROLE:
+            return self._sort_value(row, key)
+        if role == ROW_ROLE:
+            return row
+        if role == KEY_ROLE:
+            return row["key"]
+        if role == Qt.BackgroundRole and row.get("tied_with_best"):
+            return self.tie_color
+        if role == Qt.ForegroundRole and row.get("status") not in ("done", None):
+            return self.muted_color
+        if role == Qt.TextAlignmentRole:
+            if key in NUMERIC:
+                return int(Qt.AlignRight | Qt.AlignVCenter)
+            return int(Qt.AlignLeft | Qt.AlignVCenter)
+        if role == Qt.FontRole and key == "mean" and row.get("rank") == 1:
+            f = QFont()
+            f.setBold(True)
+            return f
+        if role == Qt.ToolTipRole:
+            return self._tooltip(row, key)
+        return None
+
+    @staticmethod
+    def _display(row: dict, key: str) -> str:
+        v = row.get(key)
+        if key == "rank":
+            return "" if v is None else str(v)
+        if key == "mean":
+            m, s = _num(row.get("mean")), _num(row.get("sd"))
+            if math.isnan(m):
+                return "–"
+            return f"{m:.4f} ± {s:.4f}" if not math.isnan(s) else f"{m:.4f}"
+        if key == "tied_with_best":
+            if row.get("rank") == 1:
+                return "◆ best"
+            return "◇ tied" if v else ""
+        if key == "p_value":
+            return "" if row.get("rank") == 1 else fmt_float(v, 3)
+        if key in ("learning_rate", "alpha"):
+            return f"{_num(v):g}" if not math.isnan(_num(v)) else "–"
+        if key == "fit_seconds":
+            return fmt_float(v, 2)
+        if key in ("dead_pct", "saturated_pct"):
+            return fmt_pct(v)
+        if key == "trials":
+            return f"{row.get('n_done', 0)}/{row.get('n_total', 0)}"
+        return "" if v is None else str(v)
+
+    @staticmethod
+    def _sort_value(row: dict, key: str):
+        if key == "trials":
+            return float(row.get("n_done", 0))
+        if key == "tied_with_best":
+            return 0.0 if row.get("rank") == 1 else (1.0 if row.get("tied_with_best") else 2.0)
+        if key in NUMERIC:
+            v = _num(row.get(key))
+            if key == "rank" and row.get(key) is None:
+                v = math.inf
+            return v
+        return str(row.get(key) or "")
+
+    @staticmethod
+    def _tooltip(row: dict, key: str) -> str | None:
+        if key == "status" and row.get("message"):
+            return str(row["message"])
+        if key == "mean":
+            return f"mean {row.get('mean')} , sd {row.get('sd')} over {row.get('n_done', 0)} fold scores"
+        return None
+
+    # --- updates --------------------------------------------------------------
+    def clear(self) -> None:
+        self.beginResetModel()
+        self._rows, self._index = [], {}
+        self._order = np.zeros(0, dtype=np.int64)
+        self._keys = {}
+        self.endResetModel()
+        self.rowsUpdated.emit()
+
+    def set_rows(self, rows: Iterable[dict]) -> None:
+        self.beginResetModel()
+        self._rows = [dict(r) for r in rows]
+        self._index = {r["key"]: i for i, r in enumerate(self._rows)}
+        self._order = np.arange(len(self._rows), dtype=np.int64)
+        self._keys = {}
+        self.endResetModel()
+        if self._sort is not None:
+            self.sort(*self._sort)
+        self.rowsUpdated.emit()
+
+    def upsert(self, rows: Iterable[dict]) -> None:
+        """Update known configurations in place and append new ones."""
+        new = []
+        changed = False
+        for r in rows:
+            i = self._index.get(r["key"])
+            if i is None:
+                new.append(dict(r))
+            elif self._rows[i] != r:
+                self._rows[i] = dict(r)
+                changed = True
+        if changed:
+            self._keys = {}
+            self.dataChanged.emit(self.index(0, 0),
+                                  self.index(len(self._rows) - 1, len(RESULT_COLUMNS) - 1))
+        if new:
+            start = len(self._rows)
+            self.beginInsertRows(QModelIndex(), start, start + len(new) - 1)
+            for r in new:
+                self._index[r["key"]] = len(self._rows)
+                self._rows.append(r)
+            self._order = np.concatenate(
+                [self._order, np.arange(start, len(self._rows), dtype=np.int64)])
+            self._keys = {}
+            self.endInsertRows()
+        if (changed or new) and self._sort is not None:
+            self.sort(*self._sort)
+        if changed or new:
+            self.rowsUpdated.emit()
+
+    def rows(self) -> list[dict]:
+        """Rows in the current (sorted) order."""
+        return [self._rows[int(i)] for i in self._order]
+
+    def key_at(self, view_row: int) -> str:
+        return self._rows[int(self._order[view_row])]["key"]
+
+    def view_row_of(self, key: str) -> int:
+        i = self._index.get(key)
+        if i is None:
+            return -1
+        return int(np.flatnonzero(self._order == i)[0])
+
+    # --- sorting (NumPy, stable) ----------------------------------------------
+    def _key_array(self, key: str) -> np.ndarray:
+        arr = self._keys.get(key)
+        if arr is None:
+            vals = [self._sort_value(r, key) for r in self._rows]
+            if key in NUMERIC or key == "tied_with_best":
+                arr = np.asarray(vals, dtype=np.float64)
+            else:
+                arr = np.asarray([v.lower() for v in vals], dtype=object)
+            self._keys[key] = arr
+        return arr
+
+    def sort(self, column: int, order: Qt.SortOrder = Qt.AscendingOrder) -> None:
+        if not 0 <= column < len(RESULT_COLUMNS):
+            return
+        self._sort = (column, order)
+        n = len(self._rows)
+        if n == 0:
+            return
+        key = COLUMN_KEYS[column]
+        arr = self._key_array(key)
+        if arr.dtype == object:
+            idx = np.argsort(arr, kind="stable")
+            if order == Qt.DescendingOrder:
+                idx = idx[::-1]
+        else:
+            nan = np.isnan(arr)
+            good = np.flatnonzero(~nan)
+            g = good[np.argsort(arr[good], kind="stable")]
+            if order == Qt.DescendingOrder:
+                # stable descending: reverse the ascending order of the negated keys
+                g = good[np.argsort(-arr[good], kind="stable")]
+            idx = np.concatenate([g, np.flatnonzero(nan)])  # missing values last, always
+        idx = idx.astype(np.int64)
+        self.layoutAboutToBeChanged.emit()
+        old = self.persistentIndexList()
+        stored = [int(self._order[p.row()]) for p in old]
+        self._order = idx
+        inverse = np.empty(n, dtype=np.int64)
+        inverse[idx] = np.arange(n)
+        self.changePersistentIndexList(
+            old, [self.index(int(inverse[s]), p.column()) for s, p in zip(stored, old)])
+        self.layoutChanged.emit()
+
+    def sort_state(self) -> tuple[int, Qt.SortOrder] | None:
+        return self._sort
+
+
+class ResultsProxy(QSortFilterProxyModel):
+    """Filters the results; sorting is delegated to :class:`ResultsModel`."""
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self._head = ""
+        self._hidden = ""
+        self._text = ""
+        self._tied_only = False
+
+    def sort(self, column, order=Qt.AscendingOrder):  # noqa: D401 - Qt override
+        src = self.sourceModel()
+        if src is not None:
+            src.sort(column, order)
+
+    def set_filters(self, head: str = "", hidden: str = "", text: str = "",
+                    tied_only: bool = False) -> None:
+        self._head, self._hidden = head, hidden
+        self._text, self._tied_only = text.strip().lower(), tied_only
+        self.invalidateFilter()
+
+    def filterAcceptsRow(self, source_row, source_parent):
+        if not (self._head or self._hidden or self._text or self._tied_only):
+            return True
+        row = self.sourceModel().row_at(source_row)
+        if self._head and row.get("head") != self._head:
+            return False
+        if self._hidden and row.get("hidden") != self._hidden:
+            return False
+        if self._tied_only and not (row.get("tied_with_best") or row.get("rank") == 1):
+            return False
+        if self._text:
+            hay = " ".join(str(row.get(k, "")) for k in ("hidden", "head", "layers", "engine",
+                                                         "status")).lower()
+            if self._text not in hay:
+                return False
+        return True
+
+    def row_at(self, proxy_row: int) -> dict:
+        src = self.mapToSource(self.index(proxy_row, 0))
+        return self.sourceModel().row_at(src.row())
+
+
+class FrameModel(QAbstractTableModel):
+    """Read-only view of the first rows of a pandas DataFrame."""
+
+    def __init__(self, parent=None, max_rows: int = 200):
+        super().__init__(parent)
+        self._df = None
+        self._max = max_rows
+
+    def set_frame(self, df) -> None:
+        self.beginResetModel()
+        self._df = None if df is None else df.head(self._max)
+        self.endResetModel()
+
+    def rowCount(self, parent=QModelIndex()):
+        return 0 if parent.isValid() or self._df is None else len(self._df)
+
+    def columnCount(self, parent=QModelIndex()):
+        return 0 if parent.isValid() or self._df is None else self._df.shape[1]
+
+    def headerData(self, section, orientation, role=Qt.DisplayRole):
+        if self._df is None or role != Qt.DisplayRole:
+            return None
+        if orientation == Qt.Horizontal:
+            return str(self._df.columns[section])
+        return str(section + 1)
+
+    def data(self, index, role=Qt.DisplayRole):
+        if self._df is None or not index.isValid():
+            return None
+        if role in (Qt.DisplayRole, Qt.ToolTipRole):
+            v = self._df.iat[index.row(), index.column()]
+            try:
+                if v is None or (isinstance(v, float) and math.isnan(v)):
+                    return "" if role == Qt.DisplayRole else "missing"
+            except TypeError:
+                pass
+            if isinstance(v, float):
+                return f"{v:.6g}"
+            return str(v)
+        if role == Qt.TextAlignmentRole:
+            kind = self._df.dtypes.iloc[index.column()].kind
+            if kind in "iufb":
+                return int(Qt.AlignRight | Qt.AlignVCenter)
+        return None
+
+
+ROLES = ("feature", "target", "ignore")
+
+
+class ProfileModel(QAbstractTableModel):
+    """The column profile: name, type, missing share, role (editable)."""
+
+    roleChanged = Signal(str, str)  # column name, new role
+    HEADERS = ("Column", "Type", "Missing", "Distinct", "Role")
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self._cols: list[dict] = []
+
+    def set_columns(self, cols: list[dict]) -> None:
+        self.beginResetModel()
+        self._cols = [dict(c) for c in cols]
+        self.endResetModel()
+
+    def columns(self) -> list[dict]:
+        return [dict(c) for c in self._cols]
+
+    def roles(self) -> dict[str, str]:
+        return {c["name"]: c["role"] for c in self._cols}
+
+    def set_target(self, name: str) -> None:
+        for i, c in enumerate(self._cols):
+            new = "target" if c["name"] == name else (
+                "feature" if c["role"] == "target" else c["role"])
+            if new != c["role"]:
+                c["role"] = new
+                ix = self.index(i, 4)
+                self.dataChanged.emit(ix, ix)
+
+    def rowCount(self, parent=QModelIndex()):
+        return 0 if parent.isValid() else len(self._cols)
+
+    def columnCount(self, parent=QModelIndex()):
+        return 0 if parent.isValid() else len(self.HEADERS)
+
+    def headerData(self, section, orientation, role=Qt.DisplayRole):
+        if orientation == Qt.Horizontal and role == Qt.DisplayRole:
+            return self.HEADERS[section]
+        return None
+
+    def flags(self, index):
+        f = super().flags(index)
+        if index.column() == 4:
+            f |= Qt.ItemIsEditable
+        return f
+
+    def data(self, index, role=Qt.DisplayRole):
+        if not index.isValid():
+            return None
+        c = self._cols[index.row()]
+        col = index.column()
+        if role in (Qt.DisplayRole, Qt.EditRole):
+            if col == 0:
+                return c["name"]
+            if col == 1:
+                return c.get("kind", "")
+            if col == 2:
+                return f"{100.0 * float(c.get('missing', 0.0)):.1f} %"
+            if col == 3:
+                return "" if c.get("distinct") is None else str(c["distinct"])
+            return c["role"]
+        if role == Qt.ToolTipRole:
+            return c.get("note") or None
+        if role == Qt.TextAlignmentRole and col in (2, 3):
+            return int(Qt.AlignRight | Qt.AlignVCenter)
+        if role == Qt.FontRole and c["role"] == "target":
+            f = QFont()
+            f.setBold(True)
+            return f
+        return None
+
+    def setData(self, index, value, role=Qt.EditRole):
+        if index.column() != 4 or role != Qt.EditRole or value not in ROLES:
+            return False
+        c = self._cols[index.row()]
+        if c["role"] == value:
+            return False
+        c["role"] = value
+        self.dataChanged.emit(index, index)
+        self.roleChanged.emit(c["name"], value)
+        return True

@@ -1,0 +1,335 @@
+"""The left-hand column: the table and its target, what to sweep, how to evaluate, where to run."""
+
+from __future__ import annotations
+
+import os
+
+from PySide6.QtCore import Qt, Signal
+from PySide6.QtWidgets import (
+    QButtonGroup,
+    QCheckBox,
+    QComboBox,
+    QGridLayout,
+    QHBoxLayout,
+    QLabel,
+    QLineEdit,
+    QPushButton,
+    QRadioButton,
+    QSpinBox,
+    QVBoxLayout,
+    QWidget,
+)
+
+from workbench.gui import core_adapter as core
+from workbench.gui.widgets import CheckGrid, Section
+
+#: classification and regression metrics offered (scikit-learn scorer names)
+METRICS = {
+    "classification": ("accuracy", "balanced_accuracy", "roc_auc", "neg_log_loss"),
+    "regression": ("r2", "neg_root_mean_squared_error", "neg_mean_absolute_error",
+                   "neg_mean_poisson_deviance"),
+}
+
+
+class SetupPane(QWidget):
+    """Everything the user chooses before pressing Run.
+
+    Signals
+    -------
+    targetChosen(str)
+        the user picked another target column.
+    planChanged()
+        any choice that changes the plan's size changed.
+    runRequested()
+    """
+
+    targetChosen = Signal(str)
+    planChanged = Signal()
+    runRequested = Signal()
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.setObjectName("setupPane")
+        lay = QVBoxLayout(self)
+        lay.setContentsMargins(8, 8, 8, 8)
+        lay.setSpacing(8)
+
+        # 1 -- table and target -------------------------------------------------
+        s1 = Section("1", "Table and target")
+        self.file_label = QLabel("Drop a CSV, Excel or Parquet file here, or press Ctrl+O.")
+        self.file_label.setWordWrap(True)
+        self.shape_label = QLabel("")
+        self.shape_label.setObjectName("muted")
+        self.shape_label.setWordWrap(True)
+        row = QHBoxLayout()
+        row.addWidget(QLabel("Target"))
+        self.target_combo = QComboBox()
+        self.target_combo.setMinimumContentsLength(12)
+        self.target_combo.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
+        self.target_combo.setToolTip("The column to predict")
+        self.target_combo.currentTextChanged.connect(self._target_changed)
+        row.addWidget(self.target_combo, 1)
+        self.kind_badge = QLabel("")
+        self.kind_badge.setObjectName("kindBadge")
+        self.kind_badge.hide()
+        row.addWidget(self.kind_badge)
+        self.evidence_label = QLabel("")
+        self.evidence_label.setObjectName("muted")
+        self.evidence_label.setWordWrap(True)
+        self.advice_label = QLabel("")
+        self.advice_label.setWordWrap(True)
+        self.advice_label.setTextFormat(Qt.RichText)
+        for w in (self.file_label, self.shape_label):
+            s1.body.addWidget(w)
+        s1.body.addLayout(row)
+        s1.body.addWidget(self.evidence_label)
+        s1.body.addWidget(self.advice_label)
+        lay.addWidget(s1)
+
+        # 2 -- activations ------------------------------------------------------
+        s2 = Section("2", "Activations to sweep")
+        t = QLabel("Hidden layers")
+        t.setObjectName("muted")
+        s2.body.addWidget(t)
+        self.hidden_grid = CheckGrid(columns=3)
+        self.hidden_grid.set_items(core.hidden_tooltips(), checked=("relu", "tanh"))
+        self.hidden_grid.changed.connect(self.planChanged)
+        s2.body.addWidget(self.hidden_grid)
+        t = QLabel("Output heads")
+        t.setObjectName("muted")
+        s2.body.addWidget(t)
+        self.head_grid = CheckGrid(columns=3)
+        self.head_grid.changed.connect(self.planChanged)
+        s2.body.addWidget(self.head_grid)
+        self.head_note = QLabel("Pick a target to see which heads can serve it.")
+        self.head_note.setObjectName("muted")
+        self.head_note.setWordWrap(True)
+        s2.body.addWidget(self.head_note)
+        lay.addWidget(s2)
+
+        # 3 -- training and evaluation ------------------------------------------
+        s3 = Section("3", "Training and evaluation")
+        grid = QGridLayout()
+        grid.setHorizontalSpacing(6)
+        grid.setVerticalSpacing(4)
+        self.layers_edit = QLineEdit("32")
+        self.layers_edit.setToolTip("Hidden-layer widths; separate shapes with ';', "
+                                    "layers within a shape with ',' (e.g. 64; 64,32)")
+        self.lr_edit = QLineEdit("0.001")
+        self.lr_edit.setToolTip("Adam's initial learning rates, separated by ';' or spaces")
+        self.alpha_edit = QLineEdit("0.0001")
+        self.alpha_edit.setToolTip("L2 penalties (alpha), separated by ';' or spaces")
+        self.folds_spin = self._spin(2, 20, 5, "K folds (stratified for classification)")
+        self.repeats_spin = self._spin(1, 20, 2, "Repeats, each with its own fold shuffle")
+        self.epochs_spin = self._spin(1, 5000, 100, "Maximum epochs per trial")
+        self.early_check = QCheckBox("stop early")
+        self.early_check.setToolTip("Hold out 10 % of each training fold and stop when its "
+                                    "score stalls; records a validation curve per epoch")
+        self.metric_combo = QComboBox()
+        self.metric_combo.setToolTip("scikit-learn scorer name (greater is better)")
+
+        def lab(text):
+            w = QLabel(text)
+            w.setAlignment(Qt.AlignRight | Qt.AlignVCenter)
+            return w
+
+        grid.addWidget(lab("Layers"), 0, 0)
+        grid.addWidget(self.layers_edit, 0, 1, 1, 3)
+        grid.addWidget(lab("Learning rates"), 1, 0)
+        grid.addWidget(self.lr_edit, 1, 1)
+        grid.addWidget(lab("L2"), 1, 2)
+        grid.addWidget(self.alpha_edit, 1, 3)
+        grid.addWidget(lab("Folds"), 2, 0)
+        grid.addWidget(self.folds_spin, 2, 1)
+        grid.addWidget(lab("Repeats"), 2, 2)
+        grid.addWidget(self.repeats_spin, 2, 3)
+        grid.addWidget(lab("Epochs"), 3, 0)
+        grid.addWidget(self.epochs_spin, 3, 1)
+        grid.addWidget(self.early_check, 3, 2, 1, 2)
+        grid.addWidget(lab("Metric"), 4, 0)
+        grid.addWidget(self.metric_combo, 4, 1, 1, 3)
+        grid.setColumnStretch(1, 1)
+        grid.setColumnStretch(3, 1)
+        s3.body.addLayout(grid)
+        for w in (self.layers_edit, self.lr_edit, self.alpha_edit):
+            w.textChanged.connect(self.planChanged)
+        for w in (self.folds_spin, self.repeats_spin, self.epochs_spin):
+            w.valueChanged.connect(self.planChanged)
+        lay.addWidget(s3)
+
+        # 4 -- where to run -----------------------------------------------------
+        s4 = Section("4", "Where to run")
+        self.local_radio = QRadioButton("This computer")
+        self.cluster_radio = QRadioButton("Dask scheduler")
+        grp = QButtonGroup(self)
+        grp.addButton(self.local_radio)
+        grp.addButton(self.cluster_radio)
+        self.local_radio.setChecked(True)
+        self.jobs_spin = self._spin(1, max(1, os.cpu_count() or 1), max(1, os.cpu_count() or 1),
+                                    "Worker processes on this computer")
+        self.cluster_edit = QLineEdit()
+        self.cluster_edit.setPlaceholderText("tcp://host:8786")
+        self.cluster_edit.setEnabled(False)
+        self.cluster_radio.toggled.connect(self.cluster_edit.setEnabled)
+        self.cluster_radio.toggled.connect(lambda on: self.jobs_spin.setEnabled(not on))
+        r1 = QHBoxLayout()
+        r1.addWidget(self.local_radio)
+        r1.addWidget(self.jobs_spin)
+        r1.addWidget(QLabel("workers"))
+        r1.addStretch(1)
+        r2 = QHBoxLayout()
+        r2.addWidget(self.cluster_radio)
+        r2.addWidget(self.cluster_edit, 1)
+        s4.body.addLayout(r1)
+        s4.body.addLayout(r2)
+        self.jobs_spin.valueChanged.connect(self.planChanged)
+        self.estimate_label = QLabel("")
+        self.estimate_label.setObjectName("estimate")
+        self.estimate_label.setWordWrap(True)
+        s4.body.addWidget(self.estimate_label)
+        self.run_button = QPushButton("Run sweep")
+        self.run_button.setObjectName("primary")
+        self.run_button.clicked.connect(self.runRequested)
+        s4.body.addWidget(self.run_button)
+        lay.addWidget(s4)
+        lay.addStretch(1)
+
+        self._summary: core.TargetSummary | None = None
+
+    def resizeEvent(self, event) -> None:
+        # word-wrapped labels need their height for *this* width inside the scroll area
+        super().resizeEvent(event)
+        h = self.layout().totalHeightForWidth(self.width())
+        if h > 0 and h != self.minimumHeight():
+            self.setMinimumHeight(h)
+
+    @staticmethod
+    def _spin(lo, hi, value, tip) -> QSpinBox:
+        s = QSpinBox()
+        s.setRange(lo, hi)
+        s.setValue(value)
+        s.setToolTip(tip)
+        s.setMinimumWidth(64)
+        return s
+
+    # ------------------------------------------------------------------ table
+    def set_table(self, table: core.LoadedTable | None, target: str | None = None) -> None:
+        self.target_combo.blockSignals(True)
+        self.target_combo.clear()
+        if table is None:
+            self.file_label.setText("Drop a CSV, Excel or Parquet file here, or press Ctrl+O.")
+            self.shape_label.setText("")
+        else:
+            rep = table.report
+            self.file_label.setText(f"<b>{_escape(table.name)}</b>")
+            self.file_label.setToolTip(table.path)
+            extra = []
+            if getattr(rep, "rows_dropped", 0):
+                extra.append(f"{rep.rows_dropped} empty rows dropped")
+            extra += list(getattr(rep, "warnings", []) or [])
+            self.shape_label.setText(
+                f"{rep.rows:,} rows × {rep.columns} columns · {rep.format}"
+                + ("" if not extra else " · " + "; ".join(extra)))
+            names = [c["name"] for c in table.columns]
+            self.target_combo.addItems(names)
+            pick = target or table.profile.suggested_target or (names[-1] if names else "")
+            if pick in names:
+                self.target_combo.setCurrentText(pick)
+        self.target_combo.blockSignals(False)
+
+    def _target_changed(self, name: str) -> None:
+        if name:
+            self.targetChosen.emit(name)
+
+    def target(self) -> str:
+        return self.target_combo.currentText()
+
+    def set_target_summary(self, summary: core.TargetSummary | None) -> None:
+        self._summary = summary
+        if summary is None:
+            self.kind_badge.hide()
+            self.evidence_label.setText("")
+            self.advice_label.setText("")
+            self.head_grid.set_items([])
+            self.head_note.setText("Pick a target to see which heads can serve it.")
+            self._set_metrics("classification", None)
+            return
+        info, adv = summary.target, summary.advice
+        self.kind_badge.setText(info.kind.replace("_", "-"))
+        self.kind_badge.setToolTip(f"{info.task}: detected target kind")
+        self.kind_badge.show()
+        self.evidence_label.setText(core.evidence_text(info))
+        self.advice_label.setText(
+            f"Advised head: <b>{_escape(adv.output_head)}</b> with {_escape(adv.loss.replace('_', ' '))}"
+            f" <i>(common practice)</i><br><span>{_escape(adv.reason)}</span>")
+        items, checked = [], [adv.output_head]
+        refused = []
+        for name, chk in summary.heads:
+            tip = core.head_tooltip(info.task, name)
+            if not chk.allowed:
+                tip = f"Not available: {chk.reason}\n\n{tip}"
+                refused.append(name)
+            elif chk.warning:
+                tip = f"Allowed, but: {chk.reason}\n\n{tip}"
+            items.append((name, tip))
+        self.head_grid.set_items(items, checked=checked)
+        for name in refused:
+            self.head_grid.boxes[name].setEnabled(False)
+            self.head_grid.boxes[name].setChecked(False)
+        note = "Hover a head for its formula, its loss and the guard's verdict."
+        if refused:
+            note = f"Refused for this target: {', '.join(refused)} (hover for why). " + note
+        self.head_note.setText(note)
+        self._set_metrics(info.task, info.kind)
+
+    def _set_metrics(self, task: str, kind: str | None) -> None:
+        from workbench.plan import default_metric
+
+        self.metric_combo.blockSignals(True)
+        self.metric_combo.clear()
+        self.metric_combo.addItems(list(METRICS[task]))
+        if kind is not None:
+            try:
+                self.metric_combo.setCurrentText(default_metric(kind, self.head_grid.checked()))
+            except Exception:  # an unknown kind keeps the first metric
+                pass
+        self.metric_combo.blockSignals(False)
+
+    # ------------------------------------------------------------------ choices
+    def choices(self) -> dict:
+        """The user's choices as plain data (parsed by the core's plan)."""
+        return {
+            "target": self.target(),
+            "hidden": self.hidden_grid.checked(),
+            "heads": self.head_grid.checked(),
+            "layers": [s.strip() for s in self.layers_edit.text().split(";") if s.strip()],
+            "learning_rates": _numbers(self.lr_edit.text()),
+            "alphas": _numbers(self.alpha_edit.text()),
+            "folds": self.folds_spin.value(),
+            "repeats": self.repeats_spin.value(),
+            "epochs": self.epochs_spin.value(),
+            "early_stopping": self.early_check.isChecked(),
+            "metric": self.metric_combo.currentText() or None,
+            "jobs": self.jobs_spin.value(),
+            "cluster": self.cluster_edit.text().strip() if self.cluster_radio.isChecked() else None,
+        }
+
+    def set_estimate(self, text: str, ok: bool) -> None:
+        self.estimate_label.setText(text)
+        self.run_button.setEnabled(ok)
+
+
+def _numbers(text: str) -> list:
+    out = []
+    for part in text.replace(",", " ").replace(";", " ").split():
+        try:
+            out.append(float(part))
+        except ValueError:
+            out.append(part)  # the plan reports it in one line
+    return out
+
+
+def _escape(s) -> str:
+    import html
+
+    return html.escape(str(s))

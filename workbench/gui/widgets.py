@@ -1,0 +1,112 @@
+"""Small building blocks of the window: sections, the message banner, flow of check boxes."""
+
+from __future__ import annotations
+
+from PySide6.QtCore import Qt, Signal
+from PySide6.QtWidgets import (
+    QCheckBox,
+    QFrame,
+    QGridLayout,
+    QHBoxLayout,
+    QLabel,
+    QToolButton,
+    QVBoxLayout,
+    QWidget,
+)
+
+
+class Section(QFrame):
+    """A rounded card with a step number and a title."""
+
+    def __init__(self, number: str, title: str, parent=None):
+        super().__init__(parent)
+        self.setObjectName("section")
+        outer = QVBoxLayout(self)
+        outer.setContentsMargins(10, 8, 10, 10)
+        outer.setSpacing(6)
+        head = QHBoxLayout()
+        head.setSpacing(8)
+        num = QLabel(number)
+        num.setObjectName("stepNumber")
+        ttl = QLabel(title)
+        ttl.setObjectName("sectionTitle")
+        head.addWidget(num)
+        head.addWidget(ttl, 1)
+        outer.addLayout(head)
+        self.body = QVBoxLayout()
+        self.body.setSpacing(6)
+        outer.addLayout(self.body)
+
+
+class Banner(QFrame):
+    """A dismissible one-line message shown above the work area."""
+
+    dismissed = Signal()
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.setObjectName("banner")
+        lay = QHBoxLayout(self)
+        lay.setContentsMargins(10, 6, 6, 6)
+        self.icon = QLabel()
+        self.icon.setFixedSize(18, 18)
+        self.label = QLabel("")
+        self.label.setWordWrap(True)
+        self.label.setTextInteractionFlags(Qt.TextSelectableByMouse)
+        self.close_btn = QToolButton()
+        self.close_btn.setAutoRaise(True)
+        self.close_btn.setToolTip("Dismiss")
+        self.close_btn.clicked.connect(self.hide_message)
+        lay.addWidget(self.icon, 0, Qt.AlignTop)
+        lay.addWidget(self.label, 1)
+        lay.addWidget(self.close_btn, 0, Qt.AlignTop)
+        self.hide()
+
+    def show_message(self, text: str) -> None:
+        self.label.setText(text)
+        self.show()
+
+    def hide_message(self) -> None:
+        self.label.setText("")
+        self.hide()
+        self.dismissed.emit()
+
+    def text(self) -> str:
+        return self.label.text() if self.isVisible() or not self.isHidden() else ""
+
+
+class CheckGrid(QWidget):
+    """Check boxes laid out in a fixed number of columns; ``changed`` on any toggle."""
+
+    changed = Signal()
+
+    def __init__(self, columns: int = 2, parent=None):
+        super().__init__(parent)
+        self._grid = QGridLayout(self)
+        self._grid.setContentsMargins(0, 0, 0, 0)
+        self._grid.setHorizontalSpacing(12)
+        self._grid.setVerticalSpacing(2)
+        self._cols = columns
+        self.boxes: dict[str, QCheckBox] = {}
+
+    def set_items(self, items: list[tuple[str, str]], checked=()) -> None:
+        for box in self.boxes.values():
+            self._grid.removeWidget(box)
+            box.deleteLater()
+        self.boxes = {}
+        for i, (name, tip) in enumerate(items):
+            box = QCheckBox(name)
+            box.setToolTip(tip)
+            box.setChecked(name in checked)
+            box.toggled.connect(self.changed)
+            self._grid.addWidget(box, i // self._cols, i % self._cols)
+            self.boxes[name] = box
+        self.changed.emit()
+
+    def checked(self) -> list[str]:
+        return [n for n, b in self.boxes.items() if b.isChecked() and b.isEnabled()]
+
+    def set_checked(self, names) -> None:
+        names = set(names)
+        for n, b in self.boxes.items():
+            b.setChecked(n in names and b.isEnabled())
