@@ -49,10 +49,12 @@ __all__ = ["NetRegressor", "NetClassifier", "DivergenceWarning"]
 #: a derivative below this counts as "flat" when measuring saturation (issue text: 0.05)
 SATURATION_THRESHOLD = 0.05
 #: rows of the training data used to measure layer health when there is no validation split
-HEALTH_PROBE_ROWS = 512
+HEALTH_PROBE_ROWS = 256
 #: activations whose derivative is piecewise constant: saturation is not defined for them
 _PIECEWISE_LINEAR = {"identity", "relu", "leaky_relu"}
 #: hidden activations that init="he" treats as the ReLU family
+#: hidden activations with f(1) == 1, which keep the ones column intact
+_FIXES_ONE = {"identity", "relu", "leaky_relu", "elu"}
 _HE_FAMILY = {"relu", "leaky_relu", "elu", "selu", "gelu", "silu", "softplus"}
 
 
@@ -156,7 +158,14 @@ def _hidden_names(activation, n_hidden):
 
 
 class _Net:
-    """Flat parameter buffer with per-layer views, buffers and the fused training step."""
+    """Flat parameter buffer with per-layer views, buffers and the fused training step.
+
+    Layer ``i`` is stored as one block ``P[i]`` of shape ``(fan_in + 1, fan_out)``:
+    its first ``fan_in`` rows are the weights ``W[i]`` and its last row is the
+    intercept ``b[i]``. Training inputs and hidden activations carry a trailing
+    column of ones, so one matrix product gives ``a @ W + b`` and, backwards,
+    ``a.T @ delta`` gives the weight and intercept gradients together.
+    """
 
     def __init__(self, units, hidden, head, dtype, leaky_slope):
         self.units = units
@@ -166,23 +175,32 @@ class _Net:
         self.dtype = dtype
         self.hp = [{"slope": leaky_slope} if h == "leaky_relu" else {} for h in hidden]
         shapes = list(zip(units[:-1], units[1:]))
-        n_coef = sum(a * b for a, b in shapes)
-        n_int = sum(b for _, b in shapes)
-        self.n_coef = n_coef
-        self.theta = np.zeros(n_coef + n_int, dtype=dtype)
-        self.grad = np.zeros_like(self.theta)
-        self.W, self.b, self.gW, self.gb = [], [], [], []
+        total = sum((a + 1) * b for a, b in shapes)
+        self.theta = np.zeros(total, dtype=dtype)
+        # row 0 is the gradient; row 1 is scratch for its square, so that Adam can
+        # update both moment vectors with one call per operation
+        self.gg = np.zeros((2, total), dtype=dtype)
+        self.grad = self.gg[0]
+        self.P, self.G, self.W, self.b, self.gW = [], [], [], [], []
         pos = 0
         for a, b in shapes:
-            self.W.append(self.theta[pos:pos + a * b].reshape(a, b))
-            self.gW.append(self.grad[pos:pos + a * b].reshape(a, b))
-            pos += a * b
-        for _, b in shapes:
-            self.b.append(self.theta[pos:pos + b])
-            self.gb.append(self.grad[pos:pos + b])
-            pos += b
-        self.coef_flat = self.theta[:n_coef]
-        self.gcoef_flat = self.grad[:n_coef]
+            block = self.theta[pos:pos + (a + 1) * b].reshape(a + 1, b)
+            gblock = self.grad[pos:pos + (a + 1) * b].reshape(a + 1, b)
+            self.P.append(block)
+            self.G.append(gblock)
+            self.W.append(block[:a])
+            self.b.append(block[a])
+            self.gW.append(gblock[:a])
+            pos += (a + 1) * b
+        self._coef_flat = [w.reshape(-1) for w in self.W]  # contiguous views
+        # 1 on weight entries, 0 on intercepts: the L2 penalty as one fused vector op
+        self.coef_mask = np.zeros_like(self.theta)
+        pos = 0
+        for a, b in shapes:
+            self.coef_mask[pos:pos + a * b] = 1
+            pos += (a + 1) * b
+        self._l2_buf = np.empty_like(self.theta)
+        self._l2_alpha = None
         self._bufs_for = 0
 
     # buffers ----------------------------------------------------------------
@@ -190,30 +208,52 @@ class _Net:
         if self._bufs_for >= m:
             return
         d = self.dtype
-        self.A = [np.empty((m, u), dtype=d) for u in self.units[1:]]  # activations
-        self.Z = [np.empty((m, u), dtype=d) if (i < len(self.hidden) and self.hidden[i].needs_z)
-                  or (i == len(self.hidden) and not self.head.canonical) else None
-                  for i, u in enumerate(self.units[1:])]
-        self.D = [np.empty((m, u), dtype=d) for u in self.units[1:]]  # deltas
+        n_hidden = len(self.hidden)
+        # hidden activations with a trailing ones column; the output without
+        self.Aaug = []
+        for i, u in enumerate(self.units[1:]):
+            if i < n_hidden:
+                buf = np.empty((m, u + 1), dtype=d)
+                buf[:, u] = 1
+            else:
+                buf = np.empty((m, u), dtype=d)
+            self.Aaug.append(buf)
+        # z copies (for derivatives that need the pre-activation) and deltas are as
+        # wide as the activation buffers, so elementwise work runs on contiguous memory
+        self.Z = [np.empty_like(self.Aaug[i]) if (i < n_hidden and self.hidden[i].needs_z)
+                  or (i == n_hidden and not self.head.canonical) else None
+                  for i in range(len(self.units) - 1)]
+        self.D = [np.empty_like(buf) for buf in self.Aaug]  # deltas
+        self.S = [np.empty_like(buf) for buf in self.Aaug[:-1]]  # scratch per hidden layer
         self._bufs_for = m
 
+    def layer_out(self, i, m):
+        """View of layer i's activation for m rows (without the ones column)."""
+        u = self.units[i + 1]
+        return self.Aaug[i][:m, :u]
+
     # passes -----------------------------------------------------------------
-    def forward(self, X, m):
-        """Fill self.A[:, :m] with every layer's output for the m rows of X."""
-        a = X
-        last = len(self.W) - 1
-        for i, (W, b) in enumerate(zip(self.W, self.b)):
-            out = self.A[i][:m]
-            np.matmul(a, W, out=out)
-            out += b
+    def forward(self, Xaug, m):
+        """Every layer's output for the m rows of ``Xaug`` (inputs + ones column)."""
+        a = Xaug
+        last = len(self.P) - 1
+        for i, P in enumerate(self.P):
+            out = self.layer_out(i, m)
+            np.matmul(a, P, out=out)
+            full = self.Aaug[i][:m]
             zbuf = self.Z[i]
             if zbuf is not None:
-                np.copyto(zbuf[:m], out)
+                np.copyto(zbuf[:m], full)
             if i < last:
-                self.hidden[i].apply_(out, **self.hp[i])
+                # apply on the whole contiguous buffer, then restore the ones column
+                # where the activation does not map 1 to 1
+                self.hidden[i].apply_(full, **self.hp[i])
+                if self.hidden_names[i] not in _FIXES_ONE:
+                    full[:, -1] = 1
+                a = full
             else:
                 self.head.apply_(out)
-            a = out
+                a = out
         return a
 
     def predict_raw(self, X, chunk=8192):
@@ -248,70 +288,88 @@ class _Net:
             return float(-np.mean(xlogy(y, q) + xlogy(1 - y, 1 - q), axis=0).sum())
         return float(-np.mean(xlogy(y, q), axis=0).sum())
 
-    def backward(self, X, y, m, alpha):
-        """Forward + backward on m rows; fills self.grad; returns the batch loss."""
-        p = self.forward(X, m)
-        last = len(self.W) - 1
+    def l2(self):
+        return sum(float(np.dot(c, c)) for c in self._coef_flat)
+
+    def backward(self, Xaug, y, m, alpha, scale=True):
+        """Forward + backward on m rows; fills self.grad; returns the batch loss.
+
+        With ``scale=False`` the gradient is left multiplied by ``m`` (the Adam
+        step folds the division into its own scaling, saving one pass).
+
+        ``Xaug`` holds the inputs with a trailing column of ones. The loss is the
+        head's data loss plus ``0.5 * alpha * sum ||W||^2 / m`` (scikit-learn's MLP).
+        """
+        p = self.forward(Xaug, m)
+        last = len(self.P) - 1
         delta = self.D[last][:m]
         np.subtract(p, y, out=delta)
         head = self.head
         if head.loss == "squared_error":
-            loss = 0.5 * float(np.dot(delta.ravel(), delta.ravel())) / delta.size
+            flat = delta.reshape(-1)
+            loss = 0.5 * float(np.dot(flat, flat)) / flat.size
         else:
             loss = self.data_loss(y, p)
         if not head.canonical:
             z = self.Z[last][:m] if self.Z[last] is not None else None
             delta *= head.delta_factor(z, p)
-        c = self.coef_flat
-        loss += (0.5 * alpha) * float(np.dot(c, c)) / m
+        if alpha:
+            # alpha * W in one pass over the flat buffer (zeros at the intercepts)
+            if self._l2_alpha != alpha:
+                self._alpha_mask = self.coef_mask * alpha
+                self._l2_alpha = alpha
+            l2buf = self._l2_buf
+            np.multiply(self.theta, self._alpha_mask, out=l2buf)
+            loss += 0.5 * float(np.dot(self.theta, l2buf)) / m
+        names = self.hidden_names
         for i in range(last, -1, -1):
-            a_prev = X if i == 0 else self.A[i - 1][:m]
-            np.matmul(a_prev.T, delta, out=self.gW[i])
-            np.sum(delta, axis=0, out=self.gb[i])
+            a_prev = Xaug if i == 0 else self.Aaug[i - 1][:m]
+            np.matmul(a_prev.T, delta, out=self.G[i])
             if i > 0:
+                # full width: the column for the ones is computed and then ignored
                 nd = self.D[i - 1][:m]
-                np.matmul(delta, self.W[i].T, out=nd)
-                h = self.hidden[i - 1]
-                name = self.hidden_names[i - 1]
-                ai = self.A[i - 1][:m]
+                np.matmul(delta, self.P[i].T, out=nd)
+                name = names[i - 1]
+                ai = self.Aaug[i - 1][:m]
+                sc = self.S[i - 1][:m]
                 if name == "relu":
-                    np.multiply(nd, ai > 0, out=nd)
+                    np.greater(ai, 0, out=sc)  # 1.0 where active (faster than a bool mask)
+                    nd *= sc
                 elif name == "identity":
                     pass
                 elif name == "tanh":
-                    # sklearn: delta *= 1 - Z**2
-                    nd *= 1 - ai ** 2
+                    # scikit-learn: delta *= 1 - Z**2
+                    np.multiply(ai, ai, out=sc)
+                    np.subtract(1, sc, out=sc)
+                    nd *= sc
                 elif name == "logistic":
                     nd *= ai
-                    nd *= 1 - ai
+                    np.subtract(1, ai, out=sc)
+                    nd *= sc
                 else:
                     zi = self.Z[i - 1][:m] if self.Z[i - 1] is not None else None
-                    nd *= h.derivative(zi, ai, **self.hp[i - 1])
-                delta = nd
+                    nd *= self.hidden[i - 1].derivative(zi, ai, **self.hp[i - 1])
+                delta = nd[:, :-1]
         if alpha:
-            self.gcoef_flat += alpha * self.coef_flat
-        self.grad /= m
+            self.grad += l2buf
+        if scale:
+            self.grad /= m
         return loss
 
-    def health(self, X, y):
+    def health(self, Xaug, y):
         """Per hidden layer: dead share, saturated share, data-loss gradient norm."""
-        m = X.shape[0]
+        m = Xaug.shape[0]
         self._ensure(m)
         # a full forward/backward on the probe rows, without the L2 term; the gradient
         # buffer is overwritten by the next batch anyway
-        self.backward(X, y, m, 0.0)
+        self.backward(Xaug, y, m, 0.0)
         gnorm = [float(np.linalg.norm(g)) for g in self.gW]
         dead, sat = [], []
+        tiny = np.finfo(self.dtype).tiny * 1e6
         for i, h in enumerate(self.hidden):
-            a = self.A[i][:m]
-            if h.needs_z:
-                # recompute z = a_prev @ W + b for the derivative
-                a_prev = X if i == 0 else self.A[i - 1][:m]
-                z = a_prev @ self.W[i] + self.b[i]
-            else:
-                z = None
+            a = self.layer_out(i, m)
+            z = self.Z[i][:m, :-1] if self.Z[i] is not None else None
             d = np.abs(h.derivative(z, a, **self.hp[i]))
-            tiny = np.finfo(self.dtype).tiny * 1e6
             dead_units = np.all(d <= tiny, axis=0)
             dead.append(float(dead_units.mean()))
             if self.hidden_names[i] in _PIECEWISE_LINEAR:
@@ -320,6 +378,14 @@ class _Net:
                 flat = (d < SATURATION_THRESHOLD).mean(axis=0) > 0.5
                 sat.append(float((flat & ~dead_units).mean()))
         return dead, sat, gnorm
+
+
+def _with_ones(X):
+    """``X`` with a trailing column of ones (C-contiguous)."""
+    out = np.empty((X.shape[0], X.shape[1] + 1), dtype=X.dtype)
+    out[:, :-1] = X
+    out[:, -1] = 1
+    return out
 
 
 # --------------------------------------------------------------------------- estimators
@@ -500,7 +566,6 @@ class _BaseNet(BaseEstimator):
             if X_val.shape[0] < 2:
                 raise ValueError("the validation set is too small; increase validation_fraction "
                                  "or use more rows")
-            X_tr = np.ascontiguousarray(X_tr)
             y_tr = np.ascontiguousarray(y_tr)
         else:
             X_tr, y_tr, X_val, y_val = X, y, None, None
@@ -510,9 +575,10 @@ class _BaseNet(BaseEstimator):
             warnings.warn("Got `batch_size` less than 1 or larger than sample size. "
                           "It is going to be clipped", stacklevel=3)
         net._ensure(bs)
+        X_tr = _with_ones(X_tr)
         if early:
-            k = min(4 * HEALTH_PROBE_ROWS, X_val.shape[0])
-            probe_X, probe_y = np.ascontiguousarray(X_val[:k]), np.ascontiguousarray(y_val[:k])
+            k = min(HEALTH_PROBE_ROWS, X_val.shape[0])
+            probe_X, probe_y = _with_ones(X_val[:k]), np.ascontiguousarray(y_val[:k])
         else:
             k = min(HEALTH_PROBE_ROWS, n)
             probe_X, probe_y = X_tr[:k], y_tr[:k]
@@ -521,10 +587,14 @@ class _BaseNet(BaseEstimator):
         tmp = np.empty_like(theta)
         solver = self.solver
         if solver == "adam":
-            m_buf = np.zeros_like(theta)
-            v_buf = np.zeros_like(theta)
+            mv = np.zeros((2, theta.size), dtype=theta.dtype)  # first and second moments
+            m_buf, v_buf = mv[0], mv[1]
+            gg = net.gg
             t_adam = 0
             b1, b2, eps = self.beta_1, self.beta_2, self.epsilon
+            betas = np.array([[b1], [b2]], dtype=theta.dtype)
+            coef = np.empty((2, 1), dtype=theta.dtype)
+            coef_for = 0
         else:
             vel = np.zeros_like(theta)
             lr = float(self.learning_rate_init)
@@ -554,17 +624,20 @@ class _BaseNet(BaseEstimator):
             for s in range(0, n, bs):
                 e = min(s + bs, n)
                 mb = e - s
-                loss = net.backward(Xs[s:e], ys[s:e], mb, alpha)
-                acc += loss * mb
                 if solver == "adam":
+                    # m = b1*m + (1-b1)*g and v = b2*v + (1-b2)*g^2 (Kingma & Ba 2015,
+                    # as scikit-learn's AdamOptimizer), with g = grad/mb folded in
+                    loss = net.backward(Xs[s:e], ys[s:e], mb, alpha, scale=False)
+                    acc += loss * mb
                     t_adam += 1
-                    np.multiply(grad, 1 - b1, out=tmp)
-                    m_buf *= b1
-                    m_buf += tmp
-                    np.multiply(grad, grad, out=tmp)
-                    tmp *= 1 - b2
-                    v_buf *= b2
-                    v_buf += tmp
+                    if coef_for != mb:
+                        coef[0, 0] = (1 - b1) / mb
+                        coef[1, 0] = (1 - b2) / (mb * mb)
+                        coef_for = mb
+                    np.multiply(grad, grad, out=gg[1])
+                    gg *= coef
+                    mv *= betas
+                    mv += gg
                     step = lr0 * math.sqrt(1 - b2 ** t_adam) / (1 - b1 ** t_adam)
                     np.sqrt(v_buf, out=tmp)
                     tmp += eps
@@ -572,6 +645,8 @@ class _BaseNet(BaseEstimator):
                     tmp *= -step
                     theta += tmp
                 else:
+                    loss = net.backward(Xs[s:e], ys[s:e], mb, alpha)
+                    acc += loss * mb
                     # sklearn's SGDOptimizer: v = mom*v - lr*g; nesterov: upd = mom*v - lr*g
                     vel *= mom
                     np.multiply(grad, lr, out=tmp)

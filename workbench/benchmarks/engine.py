@@ -1,0 +1,120 @@
+"""Engine speed: the NumPy engine vs scikit-learn's MLPRegressor vs the bare products.
+
+The standard workload (issue "Foundation and the network engine", section 5):
+20,000 rows x 32 features, two hidden layers of 128 ReLU units, batch 200,
+20 epochs of Adam, float32. All three are measured in the same process with one
+BLAS thread each (threadpoolctl), interleaved over several rounds; medians are
+reported, and the two ratios engine/scikit-learn and floor/engine.
+
+The floor is the same sequence of matrix products the engine performs per batch
+(three forward, three weight-gradient and two delta products) on buffers of the
+same shapes, with nothing else: no activation, loss, optimiser or Python
+bookkeeping.
+"""
+
+from __future__ import annotations
+
+import statistics
+import time
+import warnings
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+ROWS, FEATURES, WIDTH, BATCH, EPOCHS = 20_000, 32, 128, 200, 20
+
+
+def _data(rows, features, seed=0):
+    rng = np.random.default_rng(seed)
+    X = rng.standard_normal((rows, features)).astype(np.float32)
+    y = (np.sin(X[:, 0]) + X[:, 1] * X[:, 2] + 0.1 * rng.standard_normal(rows)).astype(np.float32)
+    return X, y
+
+
+def _params(epochs):
+    return dict(hidden_layer_sizes=(WIDTH, WIDTH), activation="relu", batch_size=BATCH,
+                max_iter=epochs, tol=0.0, n_iter_no_change=10**9, random_state=0, shuffle=True,
+                learning_rate_init=1e-3)
+
+
+def _time_engine(X, y, epochs):
+    from workbench.engine import NetRegressor
+
+    t = time.perf_counter()
+    NetRegressor(**_params(epochs), dtype="float32").fit(X, y)
+    return time.perf_counter() - t
+
+
+def _time_sklearn(X, y, epochs):
+    from sklearn.neural_network import MLPRegressor
+
+    t = time.perf_counter()
+    MLPRegressor(**_params(epochs)).fit(X, y)
+    return time.perf_counter() - t
+
+
+def _time_floor(X, epochs):
+    """The engine's matrix products alone, for the same number of batches."""
+    f = np.float32
+    rng = np.random.default_rng(1)
+    units = [X.shape[1], WIDTH, WIDTH, 1]
+    P = [(0.05 * rng.standard_normal((a + 1, b))).astype(f) for a, b in zip(units[:-1], units[1:])]
+    G = [np.empty_like(p) for p in P]
+    A = [np.ones((BATCH, u + 1), f) for u in units[1:-1]] + [np.empty((BATCH, 1), f)]
+    D = [np.empty_like(a) for a in A]
+    Xa = np.ones((X.shape[0], X.shape[1] + 1), f)
+    Xa[:, :-1] = X
+    n = X.shape[0]
+    t = time.perf_counter()
+    for _ in range(epochs):
+        for s in range(0, n, BATCH):
+            xb = Xa[s:s + BATCH]
+            m = xb.shape[0]
+            a = xb
+            for i in range(3):
+                out = A[i][:m, :units[i + 1]]
+                np.matmul(a, P[i], out=out)
+                a = A[i][:m]
+            delta = D[2][:m]
+            np.subtract(A[2][:m], 0.5, out=delta)
+            for i in (2, 1, 0):
+                np.matmul((xb if i == 0 else A[i - 1][:m]).T, delta, out=G[i])
+                if i:
+                    np.matmul(delta, P[i].T, out=D[i - 1][:m])
+                    D[i - 1][:m] *= 0.01
+                    delta = D[i - 1][:m, :-1]
+    return time.perf_counter() - t
+
+
+def run(quick: bool = False, rounds: int | None = None, threads: int = 1) -> dict:
+    """Measure the standard workload; ``quick`` shrinks it for smoke tests."""
+    rows = 2_000 if quick else ROWS
+    epochs = 2 if quick else EPOCHS
+    rounds = rounds or (1 if quick else 3)
+    X, y = _data(rows, FEATURES)
+    times = {"engine": [], "sklearn": [], "floor": []}
+    with threadpool_limits(limits=threads), warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        _time_engine(X[:400], y[:400], 1)  # warm caches and imports
+        for _ in range(rounds):
+            times["engine"].append(_time_engine(X, y, epochs))
+            times["sklearn"].append(_time_sklearn(X, y, epochs))
+            times["floor"].append(_time_floor(X, epochs))
+    med = {k: statistics.median(v) for k, v in times.items()}
+    figures = {
+        "engine_seconds": med["engine"],
+        "sklearn_seconds": med["sklearn"],
+        "floor_seconds": med["floor"],
+        "engine_over_sklearn": med["engine"] / med["sklearn"],
+        "floor_over_engine": med["floor"] / med["engine"],
+    }
+    lines = [
+        f"workload: {rows} rows x {FEATURES} features, 2 x {WIDTH} relu, batch {BATCH}, "
+        f"{epochs} epochs adam, float32, 1 BLAS thread, median of {rounds}",
+        f"  engine (NetRegressor)      {med['engine']:8.3f} s",
+        f"  scikit-learn MLPRegressor  {med['sklearn']:8.3f} s",
+        f"  matrix products alone      {med['floor']:8.3f} s",
+        f"  engine / scikit-learn      {figures['engine_over_sklearn']:8.3f}   (goal <= 0.35)",
+        f"  floor / engine             {figures['floor_over_engine']:8.3f}   (goal >= 0.60)",
+    ]
+    return {"title": "engine", "lines": lines, "figures": figures}
