@@ -29,7 +29,7 @@ QUICK_ROWS = 100_000
 SECONDS_BUDGET, MEMORY_BUDGET = 5.0, 3.0
 
 _CHILD = r"""
-import json, resource, sys, time
+import json, os, resource, sys, time
 from workbench.intake import load_table
 
 def rss():
@@ -37,12 +37,15 @@ def rss():
         return int(fh.read().split()[1]) * resource.getpagesize()
 
 before = rss()
+c0 = os.times()
 t = time.perf_counter()
 df, report = load_table(sys.argv[1])
 seconds = time.perf_counter() - t
+c1 = os.times()
+cpu = (c1.user - c0.user) + (c1.system - c0.system)
 peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
 numeric = df.select_dtypes("number")
-print(json.dumps({"seconds": seconds, "peak_extra": peak - before, "rows": int(df.shape[0]),
+print(json.dumps({"seconds": seconds, "cpu": cpu, "peak_extra": peak - before, "rows": int(df.shape[0]),
                   "columns": int(df.shape[1]), "payload": int(numeric.memory_usage(index=False).sum()),
                   "engine": report.engine}))
 """
@@ -84,7 +87,8 @@ def run(quick: bool = False) -> dict:
     -------
     dict
         ``{"title", "lines", "figures"}``; figures: ``rows``, ``columns``, ``file_mb``,
-        ``seconds`` (median), ``seconds_runs``, ``rows_per_second``, ``payload_mb``,
+        ``seconds`` (median wall time), ``seconds_runs``, ``cpu_seconds`` (median),
+        ``load_average`` (1-minute load before the runs: other work slows the wall time), ``rows_per_second``, ``payload_mb``,
         ``peak_mb``, ``memory_over_payload``, ``seconds_over_budget`` (seconds / 5 s),
         ``memory_over_budget`` (ratio / 3).
     """
@@ -93,15 +97,18 @@ def run(quick: bool = False) -> dict:
     with tempfile.TemporaryDirectory(prefix="workbench-bench-load-") as tmp:
         path = write_csv(Path(tmp) / "large.csv", rows)
         file_mb = path.stat().st_size / 1e6
+        load_before = os.getloadavg()[0]
         runs = [_one_run(path) for _ in range(repeats)]
     secs = [r["seconds"] for r in runs]
     med = statistics.median(secs)
+    cpu = statistics.median(r["cpu"] for r in runs)
     payload = runs[0]["payload"]
     peak = max(r["peak_extra"] for r in runs)
     ratio = peak / payload if payload else float("nan")
     figures = {
         "rows": rows, "columns": runs[0]["columns"], "file_mb": round(file_mb, 1),
         "seconds": round(med, 3), "seconds_runs": [round(s, 3) for s in secs],
+        "cpu_seconds": round(cpu, 3), "load_average": round(load_before, 2),
         "rows_per_second": round(rows / med), "payload_mb": round(payload / 1e6, 1),
         "peak_mb": round(peak / 1e6, 1), "memory_over_payload": round(ratio, 2),
         "seconds_over_budget": round(med / SECONDS_BUDGET, 3),
@@ -114,7 +121,9 @@ def run(quick: bool = False) -> dict:
     lines = [
         f"load_table on a {rows:,}-row x {figures['columns']}-column CSV ({file_mb:.0f} MB, "
         f"engine {runs[0]['engine']}): median {med:.2f} s over {repeats} fresh processes "
-        f"({', '.join(f'{s:.2f}' for s in secs)} s), {rows / med / 1e6:.2f} M rows/s",
+        f"({', '.join(f'{s:.2f}' for s in secs)} s), {rows / med / 1e6:.2f} M rows/s; "
+        f"CPU time {cpu:.2f} s (user + system, all threads); machine load average "
+        f"{load_before:.1f} on {os.cpu_count()} cores when it started",
         f"peak memory of the load {peak / 1e6:.0f} MB = {ratio:.2f} x the numeric payload "
         f"({payload / 1e6:.0f} MB); budget {SECONDS_BUDGET:g} s and {MEMORY_BUDGET:g} x"
         f"{verdict}",
