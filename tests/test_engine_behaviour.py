@@ -1,0 +1,323 @@
+"""How the estimators behave at the edges: divergence, bad parameters, per-layer
+activations, the per-epoch health history, pickling and dtypes.
+
+Outside references named per test: NumPy's ``np.tanh`` / ``np.maximum`` for a
+hand-written forward pass, ``scipy.special.expit`` for the logistic head, the
+definitions of issue 2 section 3 for dead units (derivative zero on every probe row)
+and saturated units (derivative below 0.05 on most rows), Python's ``pickle``.
+"""
+
+from __future__ import annotations
+
+import math
+import pickle
+import warnings
+
+import numpy as np
+import pytest
+from scipy import special
+from sklearn.exceptions import ConvergenceWarning
+
+from workbench import activations as act
+from workbench.engine import DivergenceWarning, NetClassifier, NetRegressor
+
+pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
+
+
+@pytest.fixture(scope="module")
+def data():
+    rng = np.random.default_rng(0)
+    X = rng.normal(size=(240, 4))
+    y = X @ np.array([1.0, -2.0, 0.5, 1.5]) + 0.1 * rng.normal(size=240)
+    return X, y
+
+
+# --------------------------------------------------------------------------- divergence
+
+
+@pytest.mark.parametrize("kw, target_scale", [
+    (dict(solver="sgd", learning_rate_init=10.0), 1.0),
+    (dict(solver="sgd", learning_rate_init=10.0, activation="gelu", early_stopping=True), 1.0),
+    (dict(solver="adam"), 1e30),  # a huge target overflows the float32 loss at once
+    (dict(solver="adam", dtype="float64"), 1e200),
+    (dict(solver="sgd", learning_rate_init=10.0, output_activation="exp"), "counts"),
+])
+def test_divergence_is_flagged_not_crashed(data, kw, target_scale):
+    """A non-finite loss stops training, sets diverged_, warns DivergenceWarning, keeps the
+    last finite parameters (so predictions are finite)."""
+    X, y = data
+    y = np.round(np.abs(y)) if target_scale == "counts" else y * target_scale
+    model = NetRegressor((8,), max_iter=50, random_state=0, **kw)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        model.fit(X, y)
+    kinds = [w.category for w in caught]
+    assert model.diverged_ is True
+    assert DivergenceWarning in kinds
+    assert ConvergenceWarning not in kinds  # it stopped on divergence, not on max_iter
+    assert model.n_iter_ < 50
+    assert not math.isfinite(model.loss_curve_[-1])
+    assert all(math.isfinite(v) for v in model.loss_curve_[:-1])
+    assert np.all(np.isfinite(model.predict(X)))
+    assert all(np.all(np.isfinite(c)) for c in model.coefs_ + model.intercepts_)
+
+
+def test_classifier_divergence_keeps_finite_probabilities(data):
+    """Log-loss is clipped (so finite), but exploding weights still end as a flagged fit."""
+    X, y = data
+    clf = NetClassifier((8,), solver="sgd", learning_rate_init=1e6, max_iter=50, random_state=0)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        clf.fit(X, y > 0)
+    assert clf.diverged_ is True
+    assert any(w.category is DivergenceWarning for w in caught)
+    p = clf.predict_proba(X)
+    assert np.all(np.isfinite(p))
+    np.testing.assert_allclose(p.sum(axis=1), 1.0)
+
+
+def test_healthy_fit_is_not_flagged(data):
+    X, y = data
+    model = NetRegressor((8,), max_iter=30, random_state=0).fit(X, y)
+    assert model.diverged_ is False
+    assert all(math.isfinite(v) for v in model.loss_curve_)
+
+
+# --------------------------------------------------------------------------- bad parameters
+
+
+def _message(excinfo):
+    return str(excinfo.value)
+
+
+def test_unknown_activation_lists_all_known(data):
+    X, y = data
+    with pytest.raises(ValueError) as info:
+        NetRegressor(activation="mish", max_iter=2).fit(X, y)
+    for name in act.hidden_names():
+        assert name in _message(info)
+
+
+def test_unknown_activation_in_a_tuple(data):
+    X, y = data
+    with pytest.raises(ValueError, match="unknown hidden activation"):
+        NetRegressor((4, 4), activation=("tanh", "cube"), max_iter=2).fit(X, y)
+
+
+def test_tuple_of_wrong_length(data):
+    X, y = data
+    with pytest.raises(ValueError, match="one per hidden layer"):
+        NetRegressor((4, 4), activation=("tanh", "relu", "relu"), max_iter=2).fit(X, y)
+
+
+@pytest.mark.parametrize("cls, task", [(NetRegressor, "regression"),
+                                       (NetClassifier, "classification")])
+def test_unknown_head_lists_the_tasks_heads(data, cls, task):
+    X, y = data
+    target = y if task == "regression" else y > 0
+    with pytest.raises(ValueError) as info:
+        cls((4,), output_activation="cube", max_iter=2).fit(X, target)
+    for name in act.head_names(task):
+        assert name in _message(info)
+
+
+def test_softmax_cannot_serve_regression(data):
+    X, y = data
+    with pytest.raises(ValueError, match="cannot serve regression"):
+        NetRegressor((4,), output_activation="softmax", max_iter=2).fit(X, y)
+
+
+def test_exp_head_cannot_serve_classification(data):
+    X, y = data
+    with pytest.raises(ValueError, match="cannot serve classification"):
+        NetClassifier((4,), output_activation="exp", max_iter=2).fit(X, y > 0)
+
+
+@pytest.mark.parametrize("head", ["relu", "softplus", "exp"])
+def test_non_negative_head_refuses_a_negative_target(data, head):
+    X, y = data
+    with pytest.raises(ValueError, match="negative") as info:
+        NetRegressor((4,), output_activation=head, max_iter=2).fit(X, y)
+    assert "identity" in _message(info)  # says what to use instead
+
+
+def test_bounded_head_refuses_target_above_one(data):
+    X, y = data
+    with pytest.raises(ValueError, match=r"\[0, 1\]"):
+        NetRegressor((4,), output_activation="logistic", max_iter=2).fit(X, np.abs(y))
+
+
+def test_logistic_head_cannot_serve_three_classes(data):
+    X, y = data
+    labels = np.digitize(y, [-1.0, 1.0])  # three classes
+    assert len(np.unique(labels)) == 3
+    with pytest.raises(ValueError, match="3 classes") as info:
+        NetClassifier((4,), output_activation="logistic", max_iter=2).fit(X, labels)
+    assert "softmax" in _message(info)
+
+
+def test_softmax_head_for_two_classes_is_refused(data):
+    X, y = data
+    with pytest.raises(ValueError, match="logistic"):
+        NetClassifier((4,), output_activation="softmax", max_iter=2).fit(X, y > 0)
+
+
+@pytest.mark.parametrize("param, value, choices", [
+    ("solver", "lbfgs", ["adam", "sgd"]),
+    ("learning_rate", "cosine", ["adaptive", "constant", "invscaling"]),
+    ("dtype", "float16", ["float32", "float64"]),
+    ("init", "xavier", ["glorot", "he"]),
+    ("alpha", -1.0, ["[0, inf"]),
+    ("momentum", 1.5, ["[0, 1]"]),
+    ("batch_size", 0, ["auto"]),
+])
+def test_invalid_parameters_name_the_valid_choices(data, param, value, choices):
+    X, y = data
+    with pytest.raises(ValueError) as info:
+        NetRegressor((4,), max_iter=2, **{param: value}).fit(X, y)
+    assert param in _message(info)
+    for c in choices:
+        assert c in _message(info)
+
+
+def test_aliases_are_accepted(data):
+    X, y = data
+    m = NetRegressor((4, 3), activation=("sigmoid", "swish"), output_activation="linear",
+                     max_iter=2).fit(X, y)
+    assert m.hidden_activations_ == ("logistic", "silu")
+    assert m.out_activation_ == "identity"
+
+
+# --------------------------------------------------------------------------- per-layer activations
+
+
+def test_tuple_activations_are_used_layer_by_layer(data):
+    """predict equals a hand-written forward pass: np.tanh, then np.maximum (ReLU), then the
+    logistic head (scipy.special.expit) for a bounded target."""
+    X, y = data
+    target = special.expit(y)  # in (0, 1)
+    m = NetRegressor((5, 4), activation=("tanh", "relu"), output_activation="logistic",
+                     dtype="float64", max_iter=20, random_state=0).fit(X, target)
+    assert m.hidden_activations_ == ("tanh", "relu")
+    W, b = m.coefs_, m.intercepts_
+    h1 = np.tanh(X @ W[0] + b[0])
+    h2 = np.maximum(h1 @ W[1] + b[1], 0)
+    ref = special.expit(h2 @ W[2] + b[2]).ravel()
+    np.testing.assert_allclose(m.predict(X), ref, rtol=1e-12)
+
+
+# --------------------------------------------------------------------------- history and health
+
+
+def test_history_has_one_entry_per_epoch(data):
+    X, y = data
+    m = NetRegressor((6, 5), activation=("relu", "tanh"), max_iter=7, random_state=0).fit(X, y)
+    h = m.history_
+    assert m.n_iter_ == 7
+    assert h["loss"] == m.loss_curve_
+    for key in ("dead", "saturated", "grad_norm"):
+        assert len(h[key]) == 7
+    for dead, sat, gn in zip(h["dead"], h["saturated"], h["grad_norm"]):
+        assert len(dead) == len(sat) == 2  # one share per hidden layer
+        assert all(0.0 <= v <= 1.0 for v in dead + sat)
+        assert len(gn) >= 2 and all(math.isfinite(g) and g >= 0 for g in gn)
+    assert h["val_score"] == []
+    assert m.health_ == {"dead": h["dead"][-1], "saturated": h["saturated"][-1],
+                         "grad_norm": h["grad_norm"][-1]}
+
+
+def test_history_with_early_stopping_records_validation_scores(data):
+    X, y = data
+    m = NetRegressor((6,), early_stopping=True, max_iter=15, random_state=0).fit(X, y)
+    assert len(m.history_["val_score"]) == m.n_iter_ == len(m.history_["dead"])
+    assert m.history_["val_score"] == m.validation_scores_
+
+
+def _warm_continue(model, X, y, **changes):
+    model.set_params(warm_start=True, max_iter=1, learning_rate_init=1e-9, **changes)
+    model.fit(X, y)
+    return model.history_
+
+
+def test_forced_dead_relu_layer_reports_dead_share_one(data):
+    """Huge negative biases: ReLU outputs 0 on every row, derivative 0, so every unit is dead
+    (Lu et al. 2019, "Dying ReLU and initialization": the dead-unit definition)."""
+    X, y = data
+    m = NetRegressor((10, 6), activation="relu", max_iter=3, random_state=0).fit(X, y)
+    m.intercepts_[0] = m.intercepts_[0] - 1e3
+    hist = _warm_continue(m, X, y)
+    assert hist["dead"][-1][0] == 1.0
+    assert hist["saturated"][-1][0] == 0.0  # saturation is not defined for ReLU
+    assert hist["grad_norm"][-1][0] == 0.0  # no gradient reaches a dead layer
+    assert len(hist["dead"]) == 4  # warm start appends to the history
+
+
+def test_saturated_tanh_layer_reports_high_saturation(data):
+    """Huge weights push tanh into its flat tails: 1 - tanh(z)^2 < 0.05 on most rows
+    (saturation as in Glorot & Bengio 2010, section 3)."""
+    X, y = data
+    m = NetRegressor((10,), activation="tanh", max_iter=3, random_state=0).fit(X, y)
+    before = m.history_["saturated"][-1][0]
+    m.coefs_[0] = m.coefs_[0] * 30.0
+    hist = _warm_continue(m, X, y)
+    sat = hist["saturated"][-1][0]
+    # the same share computed by hand on the training rows
+    z = X @ m.coefs_[0] + m.intercepts_[0]
+    by_hand = float(np.mean(np.mean(1 - np.tanh(z) ** 2 < 0.05, axis=0) > 0.5))
+    assert sat >= 0.9 and by_hand >= 0.9
+    assert before < 0.5
+    assert hist["dead"][-1][0] == 0.0
+
+
+def test_healthy_layer_reports_no_dead_units(data):
+    X, y = data
+    m = NetRegressor((10,), activation="leaky_relu", max_iter=5, random_state=0).fit(X, y)
+    assert m.health_["dead"] == [0.0]  # leaky ReLU never has a zero derivative
+
+
+# --------------------------------------------------------------------------- pickling, dtypes
+
+
+@pytest.mark.parametrize("cls", [NetRegressor, NetClassifier])
+def test_pickle_round_trip_predicts_the_same(data, cls):
+    X, y = data
+    target = y if cls is NetRegressor else np.digitize(y, [-1.0, 1.0])
+    m = cls((6,), activation="gelu", max_iter=5, random_state=0).fit(X, target)
+    clone = pickle.loads(pickle.dumps(m))
+    np.testing.assert_array_equal(clone.predict(X), m.predict(X))
+    if cls is NetClassifier:
+        np.testing.assert_array_equal(clone.predict_proba(X), m.predict_proba(X))
+        np.testing.assert_array_equal(clone.classes_, m.classes_)
+    assert clone.history_ == m.history_
+    # a reloaded model can keep training (n_iter_ counts the last fit, as in scikit-learn)
+    clone.set_params(warm_start=True, max_iter=2)
+    clone.fit(X, target)
+    assert clone.n_iter_ == 2 and len(clone.loss_curve_) == len(m.loss_curve_) + 2
+
+
+def test_float32_is_the_default(data):
+    X, y = data
+    m = NetRegressor((6,), max_iter=3, random_state=0).fit(X, y)
+    assert m.get_params()["dtype"] == "float32"
+    assert all(c.dtype == np.float32 for c in m.coefs_ + m.intercepts_)
+    assert m.predict(X).dtype == np.float32
+
+
+def test_float64_on_request(data):
+    X, y = data
+    m = NetClassifier((6,), max_iter=3, random_state=0, dtype="float64").fit(X, y > 0)
+    assert all(c.dtype == np.float64 for c in m.coefs_ + m.intercepts_)
+    assert m.predict_proba(X).dtype == np.float64
+
+
+def test_he_init_bound(data):
+    """init="he": uniform bound sqrt(6 / fan_in) for ReLU layers (He et al. 2015); the output
+    layer keeps scikit-learn's Glorot bound sqrt(6 / (fan_in + fan_out))."""
+    X, y = data
+    m = NetRegressor((400,), activation="relu", init="he", solver="sgd", learning_rate_init=1e-300,
+                     momentum=0.0, max_iter=1, random_state=0, dtype="float64").fit(X, y)
+    w0, w1 = m.coefs_
+    bound0 = math.sqrt(6 / 4)
+    assert np.max(np.abs(w0)) <= bound0 and np.max(np.abs(w0)) > 0.95 * bound0
+    bound1 = math.sqrt(6 / 401)
+    assert np.max(np.abs(w1)) <= bound1 and np.max(np.abs(w1)) > 0.95 * bound1
