@@ -69,6 +69,8 @@ DELIMITERS = (",", ";", "\t", "|")
 _DELIM_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
 _SNIFF_BYTES = 256 * 1024
 _SNIFF_LINES = 200
+#: block of the streaming CSV reader; column types are inferred from the first block
+_BLOCK_BYTES = 16 << 20
 
 _DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+\s*$")
 _DECIMAL_POINT = re.compile(r"^\s*[-+]?\d*\.\d+\s*$")
@@ -347,7 +349,7 @@ def _read_arrow(source, encoding: str, delim: str, decimal: str):
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
-    read = pacsv.ReadOptions(encoding=encoding, block_size=16 << 20, use_threads=True)
+    read = pacsv.ReadOptions(encoding=encoding, block_size=_BLOCK_BYTES, use_threads=True)
     parse = pacsv.ParseOptions(delimiter=delim, ignore_empty_lines=True)
     convert = pacsv.ConvertOptions(null_values=_NULL_MARKERS, strings_can_be_null=True,
                                    decimal_point=decimal,

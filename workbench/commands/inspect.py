@@ -1,4 +1,4 @@
-"""``workbench inspect FILE [--target COL] [--sheet NAME] [--json]``.
+"""``workbench inspect FILE [--target COL] [--sheet NAME] [--max-cells N] [--json]``.
 
 Prints the load report, the column profile, the target's kind with its evidence
 and the advised output head. Without ``--target`` the suggested target is
@@ -12,7 +12,7 @@ import json
 import sys
 
 from workbench.errors import InputError
-from workbench.intake import load_table
+from workbench.intake import DEFAULT_MAX_CELLS, load_table
 from workbench.profiling import advise, analyse_target, check_head, profile_table, to_jsonable
 
 NAME = "inspect"
@@ -25,12 +25,15 @@ def add_arguments(parser):
                         help="target column (default: the suggested one)")
     parser.add_argument("--sheet", metavar="NAME", default=None,
                         help="sheet of an .xlsx workbook (default: the first)")
+    parser.add_argument("--max-cells", metavar="N", type=int, default=DEFAULT_MAX_CELLS,
+                        help=f"size limit in cells, rows x columns (default {DEFAULT_MAX_CELLS:,})")
     parser.add_argument("--json", action="store_true", help="print one JSON object")
 
 
-def inspect_table(path, target: str | None = None, sheet: str | None = None) -> dict:
+def inspect_table(path, target: str | None = None, sheet: str | None = None,
+                  max_cells: int = DEFAULT_MAX_CELLS) -> dict:
     """Everything ``inspect`` reports, as the JSON-ready dict documented in README.md."""
-    df, report = load_table(path, sheet=sheet)
+    df, report = load_table(path, sheet=sheet, max_cells=max_cells)
     profile = profile_table(df, target=target)
     out = {
         "file": str(path),
@@ -137,7 +140,9 @@ def _print_text(d: dict, fh) -> None:
 
 
 def run(args) -> int:
-    d = inspect_table(args.file, target=args.target, sheet=args.sheet)
+    if args.max_cells < 1:
+        raise InputError(f"--max-cells must be a positive number of cells, got {args.max_cells}")
+    d = inspect_table(args.file, target=args.target, sheet=args.sheet, max_cells=args.max_cells)
     if args.json:
         json.dump(d, sys.stdout, indent=2, allow_nan=False)
         sys.stdout.write("\n")
