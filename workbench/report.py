@@ -1,0 +1,384 @@
+"""A self-contained HTML report of an exported configuration.
+
+:func:`render_report` returns one HTML document with everything inline: the
+style sheet, and the figures as PNG images embedded as ``data:`` URIs, drawn
+with Matplotlib's Agg canvas (the core never imports Qt). It holds
+
+- cautions: the scores are cross-validated estimates; check the model on fresh
+  data; follow your domain's review rules before it drives decisions;
+- the table (file, fingerprint, columns with their detected type and role) and
+  the target (kind and the rule that decided it);
+- the intake's advice for the output head and whether the exported
+  configuration followed it;
+- the ranked configurations with mean ± sd, the corrected t-test p-value and
+  the tie group (configurations not distinguishable from the best);
+- learning curves (training loss per epoch on every fold), the fold spread of
+  the test scores per configuration, and per-layer health (dead and saturated
+  units, gradient norms).
+
+Safety: every string that comes from the user's data (column names, category
+labels, file names, error messages) passes through :func:`html.escape`, and a
+Content-Security-Policy forbids scripts, so the report never carries live
+markup whatever the table contains.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+import math
+
+import numpy as np
+
+CAUTIONS = (
+    "These scores are cross-validated estimates from one table: they say how the "
+    "configuration did on held-out folds of that table, not how it will do on tomorrow's data.",
+    "Check the model on fresh data (rows collected after the sweep, or a hold-out the sweep "
+    "never saw) before relying on it.",
+    "Follow the review rules of your domain (validation, documentation, sign-off) before the "
+    "model drives decisions.",
+)
+
+_STYLE = """
+body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;margin:2em auto;max-width:70em;
+color:#1d1d1f;line-height:1.45;padding:0 1em}
+h1{font-size:1.5em}h2{font-size:1.2em;margin-top:2em;border-bottom:1px solid #ccc}
+table{border-collapse:collapse;margin:.5em 0;font-size:.9em}
+th,td{border:1px solid #ccc;padding:.25em .6em;text-align:left;vertical-align:top}
+th{background:#f2f2f2}tr.chosen td{font-weight:600;background:#eef6ff}
+tr.tied td:first-child{border-left:4px solid #2a7ab0}
+.caution{background:#fff6e0;border:1px solid #e0b040;padding:.6em 1em;border-radius:4px}
+.num{text-align:right;font-variant-numeric:tabular-nums}
+img{max-width:100%;height:auto;border:1px solid #eee}
+.muted{color:#666;font-size:.9em}
+"""
+
+#: at most this many configurations in the fold-spread and curve plots
+MAX_PLOTTED = 12
+
+
+def esc(value) -> str:
+    """HTML-escape any value (quotes included), ``None`` as an en dash."""
+    if value is None:
+        return "–"
+    return html.escape(str(value), quote=True)
+
+
+def _num(v, fmt=".4f") -> str:
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
+        return "–"
+    return esc(format(v, fmt))
+
+
+def _pct(v) -> str:
+    return "–" if v is None else esc(f"{100 * float(v):.0f}%")
+
+
+def _label(c: dict) -> str:
+    layers = ",".join(str(s) for s in c["layers"])
+    return f"#{c['rank']} {c['hidden']}/{c['head']} [{layers}]"
+
+
+# --------------------------------------------------------------------------- figures
+
+
+def _png(fig) -> str:
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    FigureCanvasAgg(fig)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=96, bbox_inches="tight")
+    return base64.b64encode(buf.getvalue()).decode("ascii")
+
+
+def _figure(w=8.0, h=3.6, ncols=1):
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(w, h))
+    axes = [fig.add_subplot(1, ncols, i + 1) for i in range(ncols)]
+    return fig, axes
+
+
+def _plain(text: str) -> str:
+    # Matplotlib reads $...$ as mathematics: keep labels literal
+    return str(text).replace("$", r"\$")
+
+
+def learning_curve_png(chosen: dict, trials_by_cfg: dict, ranked: list[dict]) -> str | None:
+    """Training loss per epoch: every fold of the chosen configuration, and the
+    mean curve of the leading configurations."""
+    mine = [t for t in trials_by_cfg.get(chosen["index"], []) if (t.get("history") or {}).get("loss")]
+    if not mine:
+        return None
+    fig, (a1, a2) = _figure(10, 3.6, 2)
+    for t in mine:
+        loss = [np.nan if v is None else v for v in t["history"]["loss"]]
+        a1.plot(np.arange(1, len(loss) + 1), loss, lw=1, alpha=.7)
+    a1.set_title(_plain(f"{_label(chosen)}: every fold"), fontsize=9)
+    a1.set_xlabel("epoch")
+    a1.set_ylabel("training loss")
+    for c in ranked[:6]:
+        curves = [t["history"]["loss"] for t in trials_by_cfg.get(c["index"], [])
+                  if (t.get("history") or {}).get("loss")]
+        if not curves:
+            continue
+        n = max(len(x) for x in curves)
+        m = np.full((len(curves), n), np.nan)
+        for i, x in enumerate(curves):
+            m[i, :len(x)] = [np.nan if v is None else v for v in x]
+        with np.errstate(all="ignore"):
+            import warnings
+
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)
+                mean = np.nanmean(m, axis=0)
+        a2.plot(np.arange(1, n + 1), mean, lw=2 if c["index"] == chosen["index"] else 1,
+                label=_plain(_label(c)))
+    a2.set_title("mean over folds, leading configurations", fontsize=9)
+    a2.set_xlabel("epoch")
+    a2.set_yscale("log")
+    a2.legend(fontsize=7)
+    a2.text(0.0, -0.28, "losses of different heads (squared error, Poisson, log-loss) are on "
+            "different scales", transform=a2.transAxes, fontsize=7, color="#666")
+    return _png(fig)
+
+
+def fold_spread_png(ranked: list[dict], metric: str, chosen_index: int) -> str | None:
+    """Test score of every fold, per configuration (best first); tie group in blue."""
+    shown = [c for c in ranked if any(t["test_score"] is not None for t in c["trials"])]
+    shown = shown[:MAX_PLOTTED]
+    if not shown:
+        return None
+    fig, (ax,) = _figure(8, 0.9 + 0.35 * len(shown))
+    rng = np.random.default_rng(0)
+    for row, c in enumerate(shown):
+        vals = [t["test_score"] for t in c["trials"] if t["test_score"] is not None]
+        y = np.full(len(vals), float(row)) + rng.uniform(-.15, .15, len(vals))
+        colour = "#2a7ab0" if c["tied_with_best"] else "#999999"
+        ax.scatter(vals, y, s=14, color=colour, alpha=.8)
+        if c["mean"] is not None:
+            ax.plot([c["mean"]] * 2, [row - .3, row + .3], color="black",
+                    lw=2.5 if c["index"] == chosen_index else 1.2)
+    ax.set_yticks(range(len(shown)))
+    ax.set_yticklabels([_plain(_label(c)) for c in shown], fontsize=8)
+    ax.invert_yaxis()
+    ax.set_xlabel(_plain(f"{metric} on each test fold (greater is better); bar = mean"))
+    return _png(fig)
+
+
+def health_png(chosen: dict, trials: list[dict]) -> str | None:
+    """Dead and saturated share per hidden layer over epochs (mean over folds)."""
+    hists = [t.get("history") or {} for t in trials]
+    dead = [h.get("dead") for h in hists if h.get("dead")]
+    sat = [h.get("saturated") for h in hists if h.get("saturated")]
+    if not dead:
+        return None
+    fig, (a1, a2) = _figure(10, 3.2, 2)
+    for ax, series, title in ((a1, dead, "dead units"), (a2, sat, "saturated units")):
+        if not series:
+            ax.set_visible(False)
+            continue
+        n_ep = max(len(s) for s in series)
+        n_layers = max(len(e) for s in series for e in s if e) if series else 0
+        for layer in range(n_layers):
+            m = np.full((len(series), n_ep), np.nan)
+            for i, s in enumerate(series):
+                for j, e in enumerate(s):
+                    if e and layer < len(e) and e[layer] is not None:
+                        m[i, j] = e[layer]
+            import warnings
+
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)
+                ax.plot(np.arange(1, n_ep + 1), np.nanmean(m, axis=0), label=f"layer {layer + 1}")
+        ax.set_ylim(-0.02, 1.02)
+        ax.set_title(f"{title} (share of the layer)", fontsize=9)
+        ax.set_xlabel("epoch")
+        ax.legend(fontsize=7)
+    return _png(fig)
+
+
+# --------------------------------------------------------------------------- sections
+
+
+def _layer_health_rows(trials: list[dict]) -> list[tuple[int, float | None, float | None,
+                                                         float | None]]:
+    per = {}
+    for t in trials:
+        h = t.get("health") or {}
+        for key in ("dead", "saturated", "grad_norm"):
+            for i, v in enumerate(h.get(key) or []):
+                if v is not None:
+                    per.setdefault(i, {}).setdefault(key, []).append(float(v))
+    rows = []
+    for i in sorted(per):
+        d = per[i]
+        rows.append((i + 1, *(float(np.mean(d[k])) if d.get(k) else None
+                              for k in ("dead", "saturated", "grad_norm"))))
+    return rows
+
+
+def _img(b64: str | None, alt: str) -> str:
+    if b64 is None:
+        return f'<p class="muted">{esc(alt)}: no per-epoch data was recorded.</p>'
+    return f'<p><img alt="{esc(alt)}" src="data:image/png;base64,{b64}"></p>'
+
+
+def render_report(results: dict, chosen: dict, configuration: dict | None, trials: list[dict],
+                  profile: dict | None = None) -> str:
+    """The report as one HTML document (string).
+
+    Parameters
+    ----------
+    results : dict
+        The sweep's ranked results (:meth:`workbench.store.Store.results`).
+    chosen : dict
+        The exported configuration (an entry of ``results["configurations"]``).
+    configuration : dict, optional
+        The export's ``configuration.json`` document (table, target, advice).
+    trials : list of dict
+        The sweep's stored trials with their history (:meth:`Store.trials`).
+    profile : dict, optional
+        The table's column profile (``TableProfile.to_dict()``).
+    """
+    conf = configuration or {}
+    ranked = results["configurations"]
+    by_cfg: dict[int, list[dict]] = {}
+    for t in trials:
+        by_cfg.setdefault(t["config_index"], []).append(t)
+    mine = by_cfg.get(chosen["index"], [])
+    table = conf.get("table", {})
+    target = conf.get("target", {})
+    advice = conf.get("advice")
+    model = conf.get("model", {})
+    metric = results["metric"]
+    out = []
+    w = out.append
+    w("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">")
+    w("<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; "
+      "img-src data:; style-src 'unsafe-inline'\">")
+    w(f"<title>{esc('Activation Workbench report: ' + str(results['target']))}</title>")
+    w(f"<style>{_STYLE}</style></head><body>")
+    w(f"<h1>Report: {esc(results['target'])} in {esc(table.get('file') or results['table'])}</h1>")
+    w(f"<p class=\"muted\">Sweep {esc(results['sweep_id'])} ({esc(results['state'])}), created "
+      f"{esc(results['created'])}; exported configuration at rank {esc(chosen['rank'])}.</p>")
+
+    w("<h2>Cautions</h2><div class=\"caution\"><ul>")
+    for c in CAUTIONS:
+        w(f"<li>{esc(c)}</li>")
+    w("</ul></div>")
+
+    # ---------------------------------------------------------------- table and target
+    w("<h2>Table and target</h2><table>")
+    for k, v in (("file", table.get("file") or results["table"]), ("SHA-256", table.get("sha256")),
+                 ("rows × columns", f"{table.get('rows', '?')} × {table.get('cols', '?')}"),
+                 ("target", results["target"]), ("target kind", results["target_kind"]),
+                 ("why this kind", target.get("rule")),
+                 ("rows used / dropped (missing target)",
+                  f"{target.get('rows_used', '?')} / {target.get('rows_dropped', '?')}")):
+        w(f"<tr><th>{esc(k)}</th><td>{esc(v)}</td></tr>")
+    if target.get("classes"):
+        w(f"<tr><th>classes</th><td>{esc(', '.join(str(c) for c in target['classes']))}</td></tr>")
+    w("</table>")
+    if profile and profile.get("columns"):
+        w("<table><tr><th>column</th><th>type</th><th>role</th><th>missing</th><th>distinct</th>"
+          "<th>note</th></tr>")
+        for col in profile["columns"]:
+            w(f"<tr><td>{esc(col.get('name'))}</td><td>{esc(col.get('type'))}</td>"
+              f"<td>{esc(col.get('role'))}</td><td class=\"num\">{esc(col.get('missing'))}</td>"
+              f"<td class=\"num\">{esc(col.get('distinct'))}</td>"
+              f"<td>{esc(col.get('reason') or '')}</td></tr>")
+        w("</table>")
+
+    # ---------------------------------------------------------------- advice
+    w("<h2>Advice and the exported configuration</h2>")
+    if advice:
+        followed = "followed" if advice.get("followed") else "did not follow"
+        w(f"<p>The intake advised the <b>{esc(advice['output_head'])}</b> output head with "
+          f"{esc(advice['loss'])} ({esc(advice.get('basis', 'common practice'))}): "
+          f"{esc(advice['reason'])}.</p>")
+        w(f"<p>The exported configuration <b>{esc(followed)}</b> the advice: it uses the "
+          f"<b>{esc(chosen['head'])}</b> head.</p>")
+    w("<table>")
+    rows = (("hidden activation", chosen["hidden"]), ("output head", chosen["head"]),
+            ("loss", model.get("loss_label") or model.get("loss")),
+            ("hidden layers", ",".join(str(s) for s in chosen["layers"])),
+            ("layer shapes", " → ".join(f"{a}×{b}" for a, b in model.get("layer_shapes", []))),
+            ("learning rate", f"{chosen['learning_rate']:g}"), ("alpha (L2)", f"{chosen['alpha']:g}"),
+            ("engine", chosen["engine"]),
+            (f"{metric} (mean ± sd over {chosen['n_scores']} folds)",
+             f"{_num(chosen['mean'])} ± {_num(chosen['sd'])}"),
+            ("rank", chosen["rank"]),
+            ("tied with the best", "yes" if chosen["tied_with_best"] else "no"))
+    for k, v in rows:
+        # _num already escaped its output; everything else is escaped here
+        cell = v if k.startswith(metric) else esc(v)
+        w(f"<tr><th>{esc(k)}</th><td>{cell}</td></tr>")
+    w("</table>")
+
+    # ---------------------------------------------------------------- ranking
+    n_tied = sum(1 for c in ranked if c["tied_with_best"])
+    corr = " with Holm's correction" if results.get("correction") == "holm" else ""
+    w("<h2>Ranked configurations</h2>")
+    w(f"<p>{esc(metric)}, greater is better. <b>Tie group</b> (marked ●): configurations the "
+      f"Nadeau-Bengio corrected resampled t-test{esc(corr)} cannot tell apart from the best at "
+      f"level {esc(results['significance_level'])} — {esc(n_tied)} of {esc(len(ranked))}. "
+      "Choosing among them on the mean alone is chasing noise.</p>")
+    w("<table><tr><th>rank</th><th>tie</th><th>hidden</th><th>head</th><th>layers</th><th>lr</th>"
+      "<th>alpha</th><th>mean ± sd</th><th>p</th><th>fit s</th><th>dead</th><th>sat.</th>"
+      "<th>engine</th><th>status</th></tr>")
+    for c in ranked:
+        cls = " ".join(x for x in ("chosen" if c["index"] == chosen["index"] else "",
+                                   "tied" if c["tied_with_best"] else "") if x)
+        w(f"<tr class=\"{cls}\"><td class=\"num\">{esc(c['rank'])}</td>"
+          f"<td>{'●' if c['tied_with_best'] else ''}</td><td>{esc(c['hidden'])}</td>"
+          f"<td>{esc(c['head'])}</td><td>{esc(','.join(str(s) for s in c['layers']))}</td>"
+          f"<td class=\"num\">{esc(format(c['learning_rate'], 'g'))}</td>"
+          f"<td class=\"num\">{esc(format(c['alpha'], 'g'))}</td>"
+          f"<td class=\"num\">{_num(c['mean'])} ± {_num(c['sd'])}</td>"
+          f"<td class=\"num\">{_num(c['p_value'], '.3f')}</td>"
+          f"<td class=\"num\">{_num(c['mean_fit_seconds'], '.2f')}</td>"
+          f"<td class=\"num\">{_pct(c['dead'])}</td><td class=\"num\">{_pct(c['saturated'])}</td>"
+          f"<td>{esc(c['engine'])}</td><td>{esc(c['status'])}</td></tr>")
+    w("</table>")
+    bad = [t for t in trials if t.get("error")]
+    if bad:
+        w(f"<p class=\"muted\">{esc(len(bad))} trial(s) diverged or failed; first message: "
+          f"{esc(bad[0]['error'])}</p>")
+
+    # ---------------------------------------------------------------- figures
+    w("<h2>Learning curves</h2>")
+    w(_img(learning_curve_png(chosen, by_cfg, [c for c in ranked if c['mean'] is not None]),
+           "learning curves"))
+    w("<h2>Fold spread</h2>")
+    w(_img(fold_spread_png(ranked, metric, chosen["index"]), "fold spread"))
+    w("<h2>Per-layer health of the exported configuration</h2>")
+    w("<p class=\"muted\">A unit is <i>dead</i> when its activation's derivative is zero on "
+      "every probe row (it no longer learns); <i>saturated</i> when the derivative is below "
+      "0.05 on most rows (it learns very slowly). Values are the last epoch's, averaged over "
+      "folds.</p>")
+    hrows = _layer_health_rows(mine)
+    if hrows:
+        w("<table><tr><th>hidden layer</th><th>dead</th><th>saturated</th>"
+          "<th>gradient norm</th></tr>")
+        for layer, d, s, g in hrows:
+            w(f"<tr><td class=\"num\">{esc(layer)}</td><td class=\"num\">{_pct(d)}</td>"
+              f"<td class=\"num\">{_pct(s)}</td><td class=\"num\">{_num(g, '.3g')}</td></tr>")
+        w("</table>")
+    w(_img(health_png(chosen, mine), "layer health over epochs"))
+
+    # ---------------------------------------------------------------- reproducibility
+    ev = conf.get("evaluation", {})
+    w("<h2>Reproducibility</h2><table>")
+    for k, v in (("cross-validation", f"{ev.get('folds', '?')} folds × {ev.get('repeats', '?')} "
+                                      f"repeats{' (stratified)' if ev.get('stratified') else ''}"),
+                 ("seed", ev.get("seed")),
+                 ("refit on every row with seed", (ev.get("final_fit") or {}).get("random_state"))):
+        w(f"<tr><th>{esc(k)}</th><td>{esc(v)}</td></tr>")
+    for lib, ver in (conf.get("libraries") or {}).items():
+        w(f"<tr><th>{esc(lib)}</th><td>{esc(ver)}</td></tr>")
+    w("</table><p class=\"muted\">Run <code>python reproduce.py</code> in the export folder to "
+      "re-run the cross-validation and compare every fold score with the stored one.</p>")
+    w("</body></html>\n")
+    return "\n".join(out)
