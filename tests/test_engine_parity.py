@@ -23,6 +23,8 @@ HIDDEN = ("identity", "logistic", "tanh", "relu")
 TASKS = ("regression", "poisson", "binary", "multiclass")
 RTOL = 1e-6
 
+pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
+
 
 def _data(task):
     if task in ("regression", "poisson"):
@@ -202,3 +204,52 @@ def test_float32_tracks_float64():
         b = MLPRegressor(**kw).fit(X, y)
     assert a.coefs_[0].dtype == np.float32
     np.testing.assert_allclose(a.loss_curve_, b.loss_curve_, rtol=1e-3)
+
+
+@pytest.mark.parametrize("solver", ["adam", "sgd"])
+def test_multi_output_regression_matches_sklearn(solver):
+    """Two regression targets: squared error averaged over outputs as MLPRegressor does."""
+    X, y = _data("regression")
+    Y = np.column_stack([y, np.sin(y)])
+    ours, ref = _pair("regression", "relu", solver)
+    _fit_both(ours, ref, X, Y)
+    np.testing.assert_allclose(ours.loss_curve_, ref.loss_curve_, rtol=RTOL)
+    assert ours.predict(X).shape == ref.predict(X).shape == (X.shape[0], 2)
+    np.testing.assert_allclose(ours.predict(X), ref.predict(X), rtol=RTOL, atol=1e-9)
+
+
+def test_multilabel_classification_matches_sklearn():
+    """Multilabel indicator target: one logistic output per label, log-loss summed over
+    labels, as MLPClassifier does."""
+    X, y = _data("multiclass")
+    Y = np.column_stack([y == 0, y == 1, X[:, 0] > 0]).astype(int)
+    ours, ref = _pair("binary", "tanh", "adam")
+    _fit_both(ours, ref, X, Y)
+    np.testing.assert_allclose(ours.loss_curve_, ref.loss_curve_, rtol=RTOL)
+    np.testing.assert_allclose(ours.predict_proba(X), ref.predict_proba(X), rtol=RTOL,
+                               atol=1e-9)
+    np.testing.assert_array_equal(ours.predict(X), ref.predict(X))
+
+
+def test_warm_start_with_early_stopping_matches_sklearn():
+    """warm_start + early_stopping: the validation history and best score carry over."""
+    X, y = _data("binary")
+    ours, ref = _pair("binary", "relu", "adam", warm_start=True, early_stopping=True,
+                      shuffle=True, max_iter=5, n_iter_no_change=3, tol=1e-4)
+    _fit_both(ours, ref, X, y)
+    _fit_both(ours, ref, X, y)
+    np.testing.assert_allclose(ours.validation_scores_, ref.validation_scores_, rtol=RTOL)
+    np.testing.assert_allclose(ours.loss_curve_, ref.loss_curve_, rtol=RTOL)
+    assert ours.n_iter_ == ref.n_iter_
+
+
+def test_batch_larger_than_the_data_is_clipped_like_sklearn():
+    """batch_size > n_samples: both warn and use the whole set as one batch."""
+    X, y = _data("regression")
+    ours, ref = _pair("regression", "tanh", "adam", batch_size=500)
+    with pytest.warns(UserWarning, match="clipped"):
+        ours.fit(X, y)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ref.fit(X, y)
+    np.testing.assert_allclose(ours.loss_curve_, ref.loss_curve_, rtol=RTOL)
