@@ -468,7 +468,8 @@ class _DaskExecutor:
         from distributed import wait
 
         try:
-            done, _ = wait(handles, timeout=timeout, return_when="FIRST_COMPLETED")
+            with self.client.as_current():
+                done, _ = wait(handles, timeout=timeout, return_when="FIRST_COMPLETED")
         except TimeoutError:
             return []
         out = []

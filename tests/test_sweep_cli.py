@@ -1,0 +1,164 @@
+"""``workbench sweep`` / ``show`` / ``history`` on the command line.
+
+Includes the crash-safety check of the issue: a sweep started in a subprocess is
+killed with SIGKILL after some trials are stored, resumed, and every trial is
+then stored exactly once with the scores of an uninterrupted run.
+"""
+
+import json
+import os
+import re
+import signal
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from workbench.cli import main
+from workbench.store import Store
+
+SAMPLES = Path(__file__).resolve().parents[1] / "sample_sets"
+KILN = SAMPLES / "kiln_batches.csv"
+SMALL = ["--hidden", "relu,gelu", "--layers", "8", "--folds", "3", "--repeats", "2",
+         "--epochs", "4"]
+
+CONFIG_KEYS = {"rank", "hidden", "head", "layers", "learning_rate", "alpha", "mean", "sd",
+               "p_value", "tied_with_best", "engine", "status", "trials"}
+TRIAL_KEYS = {"repeat", "fold", "test_score", "train_score", "fit_seconds", "epochs", "status"}
+
+
+def _scores(store_path, sweep_id):
+    with Store(store_path) as st:
+        return {(t["config_index"], t["repeat"], t["fold"]): t["test_score"]
+                for t in st.trials(sweep_id, with_history=False)}
+
+
+def _start(args, store):
+    """``workbench sweep`` in its own session (so the test can signal its whole group)."""
+    env = dict(os.environ, PYTHONUNBUFFERED="1")
+    return subprocess.Popen([sys.executable, "-m", "workbench", "sweep", *args, "--store",
+                             str(store)], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
+                            text=True, env=env, start_new_session=True)
+
+
+def _read_until(proc, n_done):
+    """Read the progress lines until ``n_done`` trials are stored; return the sweep id."""
+    sweep_id = None
+    for line in proc.stderr:
+        m = re.match(r"sweep (\S+): \d+ of \d+ trials", line)
+        if m:
+            sweep_id = m.group(1)
+        m = re.search(r"\] (\d+)/(\d+)", line)
+        if m and int(m.group(1)) >= n_done:
+            return sweep_id
+    raise AssertionError("the sweep ended before enough trials were stored")
+
+
+def test_sweep_json_show_and_history(tmp_path, capsys):
+    store = tmp_path / "s.sqlite"
+    out = tmp_path / "r.json"
+    rc = main(["sweep", str(KILN), "--target", "passes_inspection", "--hidden", "relu,gelu",
+               "--layers", "8", "--layers", "8,4", "--folds", "2", "--repeats", "1",
+               "--epochs", "3", "--metric", "accuracy", "--jobs", "2", "--store", str(store),
+               "--json", str(out)])
+    assert rc == 0
+    printed = capsys.readouterr().out
+    assert "tied with the best" in printed and "rank" in printed
+    res = json.loads(out.read_text())
+    assert res["metric"] == "accuracy" and res["state"] == "finished"
+    cfgs = res["configurations"]
+    assert len(cfgs) == 4 and [c["rank"] for c in cfgs] == [1, 2, 3, 4]
+    assert all(CONFIG_KEYS <= set(c) for c in cfgs)
+    assert all(TRIAL_KEYS <= set(t) and len(c["trials"]) == 2 for c in cfgs for t in c["trials"])
+    means = [c["mean"] for c in cfgs]
+    assert means == sorted(means, reverse=True)
+    assert {tuple(c["layers"]) for c in cfgs} == {(8,), (8, 4)}
+    assert cfgs[0]["tied_with_best"] and cfgs[0]["p_value"] is None
+
+    assert main(["show", res["sweep_id"], "--store", str(store), "--json"]) == 0
+    shown = json.loads(capsys.readouterr().out)
+    assert shown == res
+
+    assert main(["history", "--store", str(store), "--json"]) == 0
+    hist = json.loads(capsys.readouterr().out)
+    assert [(h["sweep_id"], h["state"], h["n_stored"]) for h in hist] == \
+        [(res["sweep_id"], "finished", 8)]
+
+
+def test_impossible_plans_and_bad_stores_exit_2(tmp_path, capsys):
+    rc = main(["sweep", str(SAMPLES / "greenhouse_temp.csv"), "--target",
+               "temp_change_next_hour", "--output", "relu,exp", "--store",
+               str(tmp_path / "s.sqlite")])
+    assert rc == 2
+    err = capsys.readouterr().err
+    assert "every requested output head is refused" in err and "negative values" in err
+    junk = tmp_path / "junk.sqlite"
+    junk.write_bytes(b"not a database" * 100)
+    assert main(["history", "--store", str(junk)]) == 2
+    assert "left untouched" in capsys.readouterr().err
+    assert junk.read_bytes() == b"not a database" * 100
+    assert main(["show", "nope", "--store", str(tmp_path / "s.sqlite")]) == 2
+    assert main(["sweep", str(KILN), "--store", str(tmp_path / "s.sqlite")]) == 2
+    assert "--target" in capsys.readouterr().err
+
+
+def test_sigkill_then_resume_stores_every_trial_exactly_once(tmp_path):
+    store = tmp_path / "s.sqlite"
+    args = [str(KILN), "--target", "passes_inspection", *SMALL, "--jobs", "1"]
+    n_trials = 2 * 3 * 2
+    proc = _start(args, store)
+    try:
+        sweep_id = _read_until(proc, 3)
+    finally:
+        os.killpg(proc.pid, signal.SIGKILL)
+        proc.wait()
+    assert proc.returncode == -signal.SIGKILL
+    with Store(store) as st:
+        sw = st.get_sweep(sweep_id)
+        assert sw["state"] == "interrupted"  # its process is gone
+        assert 3 <= sw["n_stored"] < n_trials
+        before = st.finished_keys(sweep_id)
+    assert main(["sweep", "--resume", sweep_id, "--store", str(store), "--jobs", "1",
+                 "--quiet"]) == 0
+    with Store(store) as st:
+        trials = st.trials(sweep_id, with_history=False)
+        assert st.get_sweep(sweep_id)["state"] == "finished"
+    keys = [(t["config_index"], t["repeat"], t["fold"]) for t in trials]
+    assert len(keys) == len(set(keys)) == n_trials
+    assert before <= set(keys)
+    # an uninterrupted run of the same plan gives the same scores
+    other = tmp_path / "o.sqlite"
+    assert main(["sweep", *args, "--store", str(other), "--quiet"]) == 0
+    with Store(other) as st:
+        fresh_id = st.list_sweeps()[0]["id"]
+    assert _scores(store, sweep_id) == _scores(other, fresh_id)
+
+
+def test_ctrl_c_exits_130_and_leaves_a_resumable_sweep(tmp_path):
+    store = tmp_path / "s.sqlite"
+    proc = _start([str(KILN), "--target", "passes_inspection", *SMALL, "--jobs", "2"], store)
+    try:
+        sweep_id = _read_until(proc, 1)
+        os.killpg(proc.pid, signal.SIGINT)  # what a terminal sends on Ctrl-C
+        err = proc.stderr.read()
+        proc.wait(timeout=60)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait()
+    assert proc.returncode == 130
+    assert f"workbench sweep --resume {sweep_id}" in err
+    with Store(store) as st:
+        sw = st.get_sweep(sweep_id)
+    assert sw["state"] == "interrupted" and sw["n_stored"] >= 1
+
+
+@pytest.mark.parametrize("bad", [["--folds", "1"], ["--metric", "r2"], ["--engine", "sklearn",
+                                                                         "--hidden", "gelu"]])
+def test_bad_options_exit_2(tmp_path, bad, capsys):
+    rc = main(["sweep", str(KILN), "--target", "passes_inspection", "--store",
+               str(tmp_path / "s.sqlite"), *bad])
+    assert rc == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("workbench: ") and "\n" not in err
