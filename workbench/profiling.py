@@ -77,6 +77,9 @@ MOSTLY_MISSING = 0.6
 MAX_CATEGORIES = 50
 #: integer codes 0..k-1 (or 1..k) with at most this many values are read as classes
 MAX_CODE_CLASSES = 10
+#: ... and only when every code holds at least this share of the rows (counts thin out
+#: in their tail; class labels rarely do), common practice
+MIN_CODE_SHARE = 0.05
 #: a classification target with more classes than this is refused
 MAX_CLASSES = 100
 #: free text: mean length of a value at least this, with spaces
@@ -92,6 +95,8 @@ _TARGET_WORDS = re.compile(
     r"price|amount|share|rate|count|change|score|quality|drawn|demand|sales|response)",
     re.I)
 _PERCENT_NAME = re.compile(r"(percent|pct|%)", re.I)
+_COUNT_NAME = re.compile(r"(count|number|^num_|^n_|_n$|qty|quantity|caught|visits|defects|"
+                         r"events|calls|arrivals|per_)", re.I)
 
 
 # --------------------------------------------------------------------------- columns
@@ -438,8 +443,14 @@ def _detect_kind(name: str, vals: pd.Series, ev: dict, numeric: bool):
         return "multiclass", f"text labels with {distinct} distinct classes", None
     lo, hi, integer = ev["min"], ev["max"], ev["integer_valued"]
     if integer and distinct <= MAX_CODE_CLASSES and lo in (0.0, 1.0) and hi - lo + 1 == distinct:
-        return "multiclass", (f"integer codes {lo:g}..{hi:g} ({distinct} values, at most "
-                              f"{MAX_CODE_CLASSES}) read as class labels (common practice)"), None
+        smallest = float(vals.value_counts(normalize=True).min())
+        if _COUNT_NAME.search(name):
+            pass  # the name says it counts something
+        elif smallest >= MIN_CODE_SHARE:
+            return "multiclass", (
+                f"integer codes {lo:g}..{hi:g} ({distinct} values, at most {MAX_CODE_CLASSES}, "
+                f"each at least {MIN_CODE_SHARE:.0%} of rows) read as class labels "
+                "(common practice)"), None
     if lo < 0:
         return "signed", f"takes negative values (min {lo:g}, max {hi:g})", None
     if integer and lo <= 1:
