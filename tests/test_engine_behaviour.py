@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 from scipy import special
 from sklearn.exceptions import ConvergenceWarning
+from sklearn.metrics import mean_squared_error
 
 from workbench import activations as act
 from workbench.engine import DivergenceWarning, NetClassifier, NetRegressor
@@ -54,6 +55,7 @@ def test_divergence_is_flagged_not_crashed(data, kw, target_scale):
     kinds = [w.category for w in caught]
     assert model.diverged_ is True
     assert DivergenceWarning in kinds
+    assert RuntimeWarning not in kinds  # no raw NumPy overflow noise reaches the user
     assert ConvergenceWarning not in kinds  # it stopped on divergence, not on max_iter
     assert model.n_iter_ < 50
     assert not math.isfinite(model.loss_curve_[-1])
@@ -269,6 +271,57 @@ def test_saturated_tanh_layer_reports_high_saturation(data):
     assert hist["dead"][-1][0] == 0.0
 
 
+def test_health_shares_match_a_hand_count(data):
+    """Dead share (ReLU output 0 on every training row) and saturated share (tanh derivative
+    1 - tanh(z)^2 below 0.05 on more than half the rows), counted by hand with NumPy."""
+    X, y = data
+    m = NetRegressor((8, 10), activation=("relu", "tanh"), max_iter=3, random_state=0,
+                     dtype="float64").fit(X, y)
+    m.intercepts_[0][:3] -= 50.0  # three of eight ReLU units dead
+    m.coefs_[1][:, :4] *= 40.0  # four of ten tanh units pushed into their tails
+    hist = _warm_continue(m, X, y)
+    z1 = X @ m.coefs_[0] + m.intercepts_[0]
+    a1 = np.maximum(z1, 0)
+    dead_by_hand = float(np.mean(np.all(a1 <= 0, axis=0)))
+    z2 = a1 @ m.coefs_[1] + m.intercepts_[1]
+    flat = np.mean(1 - np.tanh(z2) ** 2 < 0.05, axis=0) > 0.5
+    sat_by_hand = float(np.mean(flat))
+    assert dead_by_hand == 3 / 8
+    assert 0.2 <= sat_by_hand <= 0.6
+    assert hist["dead"][-1] == [dead_by_hand, 0.0]
+    assert hist["saturated"][-1] == [0.0, sat_by_hand]
+
+
+def test_grad_norm_is_the_data_loss_gradient_norm(data):
+    """grad_norm per layer = ||dL/dW|| of the half squared error (sklearn.metrics.
+    mean_squared_error / 2) on the training rows, by central finite differences."""
+    X, y = data
+    m = NetRegressor((3,), activation="tanh", max_iter=3, random_state=0,
+                     dtype="float64").fit(X, y)
+    hist = _warm_continue(m, X, y)
+    W = [c.copy() for c in m.coefs_]
+    b = [c.copy() for c in m.intercepts_]
+
+    def loss():
+        p = np.tanh(X @ W[0] + b[0]) @ W[1] + b[1]
+        return mean_squared_error(y, p.ravel()) / 2
+
+    h = 1e-6
+    norms = []
+    for layer in W:
+        g = np.empty_like(layer)
+        for idx in np.ndindex(layer.shape):
+            keep = layer[idx]
+            layer[idx] = keep + h
+            up = loss()
+            layer[idx] = keep - h
+            down = loss()
+            layer[idx] = keep
+            g[idx] = (up - down) / (2 * h)
+        norms.append(float(np.linalg.norm(g)))
+    np.testing.assert_allclose(hist["grad_norm"][-1], norms, rtol=1e-6)
+
+
 def test_healthy_layer_reports_no_dead_units(data):
     X, y = data
     m = NetRegressor((10,), activation="leaky_relu", max_iter=5, random_state=0).fit(X, y)
@@ -321,3 +374,32 @@ def test_he_init_bound(data):
     assert np.max(np.abs(w0)) <= bound0 and np.max(np.abs(w0)) > 0.95 * bound0
     bound1 = math.sqrt(6 / 401)
     assert np.max(np.abs(w1)) <= bound1 and np.max(np.abs(w1)) > 0.95 * bound1
+
+
+@pytest.mark.parametrize("dtype", ["float32", "float64"])
+@pytest.mark.parametrize("head", ["exp", "softplus", "relu", "logistic"])
+def test_extreme_inputs_give_finite_predictions_without_warnings(data, head, dtype):
+    """Issue 2 section 2 (numerically safe), at the estimator level: rows 1e4 times larger
+    than the training rows give finite predictions and no warning at all."""
+    X, y = data
+    target = special.expit(y) if head == "logistic" else np.round(np.abs(y))
+    m = NetRegressor((6,), activation="softplus", output_activation=head, max_iter=5,
+                     random_state=0, dtype=dtype).fit(X, target)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        p = m.predict(np.vstack([X * 1e4, -X * 1e4]))
+    assert np.all(np.isfinite(p)) and np.all(p >= 0)
+    if head == "logistic":
+        assert np.all(p <= 1)
+
+
+@pytest.mark.parametrize("n_classes", [2, 3])
+def test_extreme_inputs_give_finite_probabilities(data, n_classes):
+    X, y = data
+    labels = np.digitize(y, [-1.0, 1.0]) if n_classes == 3 else (y > 0).astype(int)
+    m = NetClassifier((6,), activation="selu", max_iter=5, random_state=0).fit(X, labels)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        p = m.predict_proba(X * 1e4)
+    assert np.all(np.isfinite(p))
+    np.testing.assert_allclose(p.sum(axis=1), 1.0, rtol=1e-5)
