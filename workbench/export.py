@@ -597,11 +597,11 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
     progress = on_progress or (lambda message, fraction: None)
     keys = parse_formats(formats)
     folder = Path(folder).expanduser().absolute()
-    _prepare_folder(folder)
 
     progress("reading the sweep", 0.0)
     results = store.results(sweep_id)
     chosen = choose_configuration(results, rank_or_best)
+    _prepare_folder(folder)
     plan = SweepPlan.from_dict(results["plan"])
     progress("loading the table", 0.05)
     data, fingerprint = load_data(plan)

@@ -197,10 +197,12 @@ def untrusted_types(names: list[str]) -> list[str]:
 
 def save_skops(pipeline, path: str | Path) -> Path:
     """Save a fitted pipeline in skops' format."""
+    import zipfile
+
     import skops.io as sio
 
     path = Path(path)
-    sio.dump(pipeline, path)
+    sio.dump(pipeline, path, compression=zipfile.ZIP_DEFLATED)
     return path
 
 

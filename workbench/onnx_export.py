@@ -477,45 +477,53 @@ def _walk(est):
     return seen
 
 
-def pipeline_column_kinds(pipeline, X) -> dict[str, str]:
-    """ONNX input kind of each column the pipeline reads, in table order.
+def required_column_kinds(pipeline) -> dict[str, str] | None:
+    """The columns a fitted pipeline reads, with their ONNX input kind.
 
-    Taken from the fitted ColumnTransformer when there is one: columns of a
-    group holding :class:`~workbench.preprocessing.DateParts` are datetimes,
-    of a group ending in a one-hot encoder are strings, the rest are numbers;
-    dropped columns are not inputs. Without a ColumnTransformer, from the dtypes
-    of ``X`` (:func:`column_kinds`).
+    Taken from the first fitted ColumnTransformer: columns of a group holding
+    :class:`~workbench.preprocessing.DateParts` are ``"datetime"``, of a group
+    with a one-hot encoder ``"string"``, the others ``"float"``; dropped columns
+    are not listed. Ordered as the table the pipeline was fitted on. None when
+    the pipeline has no fitted ColumnTransformer with column names.
     """
     from sklearn.compose import ColumnTransformer
     from sklearn.preprocessing import OneHotEncoder
 
     cts = [e for e in _walk(pipeline) if isinstance(e, ColumnTransformer)]
     if not cts or not hasattr(cts[0], "transformers_"):
-        return column_kinds(X)
+        return None
+    ct = cts[0]
+    names = [str(c) for c in getattr(ct, "feature_names_in_", [])]
     wanted = {}
-    for _, trans, cols in cts[0].transformers_:
-        if isinstance(trans, str):  # "drop" / "passthrough" remainder
-            if trans == "passthrough":
-                for c in _column_names(cols, X):
-                    wanted[c] = column_kinds(X[[c]])[c]
+    for _, trans, cols in ct.transformers_:
+        if isinstance(trans, str) and trans == "drop":
             continue
-        steps = _walk(trans)
-        if any(type(e).__name__ == "DateParts" for e in steps):
-            kind = "datetime"
-        elif any(isinstance(e, OneHotEncoder) for e in steps):
-            kind = "string"
-        else:
+        cols = list(np.atleast_1d(cols))
+        if cols and not isinstance(cols[0], str):
+            if not names:
+                return None
+            cols = [names[int(i)] for i in cols]
+        if isinstance(trans, str):  # passthrough: numbers
             kind = "float"
-        for c in _column_names(cols, X):
-            wanted[c] = kind
-    return {str(c): wanted[str(c)] for c in X.columns if str(c) in wanted}
+        else:
+            steps = _walk(trans)
+            if any(type(e).__name__ == "DateParts" for e in steps):
+                kind = "datetime"
+            elif any(isinstance(e, OneHotEncoder) for e in steps):
+                kind = "string"
+            else:
+                kind = "float"
+        for c in cols:
+            wanted[str(c)] = kind
+    order = names or list(wanted)
+    return {c: wanted[c] for c in order if c in wanted}
 
 
-def _column_names(cols, X) -> list[str]:
-    cols = list(np.atleast_1d(cols))
-    if cols and not isinstance(cols[0], str):
-        cols = [X.columns[i] for i in cols]
-    return [str(c) for c in cols]
+def pipeline_column_kinds(pipeline, X) -> dict[str, str]:
+    """ONNX input kind of each column the pipeline reads (see :func:`required_column_kinds`);
+    without a ColumnTransformer, from the dtypes of ``X`` (:func:`column_kinds`)."""
+    kinds = required_column_kinds(pipeline)
+    return column_kinds(X) if kinds is None else kinds
 
 
 def column_kinds(df) -> dict[str, str]:

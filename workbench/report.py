@@ -137,7 +137,9 @@ def learning_curve_png(chosen: dict, trials_by_cfg: dict, ranked: list[dict]) ->
                 label=_plain(_label(c)))
     a2.set_title("mean over folds, leading configurations", fontsize=9)
     a2.set_xlabel("epoch")
-    a2.set_yscale("log")
+    lo, hi = a2.get_ylim()
+    if lo > 0 and hi / lo > 20:
+        a2.set_yscale("log")
     a2.legend(fontsize=7)
     a2.text(0.0, -0.28, "losses of different heads (squared error, Poisson, log-loss) are on "
             "different scales", transform=a2.transAxes, fontsize=7, color="#666")
@@ -202,8 +204,7 @@ def health_png(chosen: dict, trials: list[dict]) -> str | None:
 # --------------------------------------------------------------------------- sections
 
 
-def _layer_health_rows(trials: list[dict]) -> list[tuple[int, float | None, float | None,
-                                                         float | None]]:
+def _layer_health_rows(trials: list[dict]) -> list[tuple]:
     per = {}
     for t in trials:
         h = t.get("health") or {}
@@ -211,11 +212,15 @@ def _layer_health_rows(trials: list[dict]) -> list[tuple[int, float | None, floa
             for i, v in enumerate(h.get(key) or []):
                 if v is not None:
                     per.setdefault(i, {}).setdefault(key, []).append(float(v))
+    with_dead = [i for i, d in per.items() if d.get("dead")]
+    n_hidden = max(with_dead) + 1 if with_dead else 0
     rows = []
     for i in sorted(per):
         d = per[i]
-        rows.append((i + 1, *(float(np.mean(d[k])) if d.get(k) else None
-                              for k in ("dead", "saturated", "grad_norm"))))
+        # gradient norms cover every weight layer, the output layer last
+        name = f"hidden {i + 1}" if i < n_hidden or not n_hidden else "output"
+        rows.append((name, *(float(np.mean(d[k])) if d.get(k) else None
+                             for k in ("dead", "saturated", "grad_norm"))))
     return rows
 
 
@@ -297,7 +302,7 @@ def render_report(results: dict, chosen: dict, configuration: dict | None, trial
         followed = "followed" if advice.get("followed") else "did not follow"
         w(f"<p>The intake advised the <b>{esc(advice['output_head'])}</b> output head with "
           f"{esc(advice['loss'])} ({esc(advice.get('basis', 'common practice'))}): "
-          f"{esc(advice['reason'])}.</p>")
+          f"{esc(str(advice['reason']).rstrip('.'))}.</p>")
         w(f"<p>The exported configuration <b>{esc(followed)}</b> the advice: it uses the "
           f"<b>{esc(chosen['head'])}</b> head.</p>")
     w("<table>")
@@ -360,7 +365,7 @@ def render_report(results: dict, chosen: dict, configuration: dict | None, trial
       "folds.</p>")
     hrows = _layer_health_rows(mine)
     if hrows:
-        w("<table><tr><th>hidden layer</th><th>dead</th><th>saturated</th>"
+        w("<table><tr><th>layer</th><th>dead</th><th>saturated</th>"
           "<th>gradient norm</th></tr>")
         for layer, d, s, g in hrows:
             w(f"<tr><td class=\"num\">{esc(layer)}</td><td class=\"num\">{_pct(d)}</td>"

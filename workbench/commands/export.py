@@ -1,0 +1,44 @@
+"""``workbench export SWEEP_ID [--config RANK|best] --to FOLDER [--formats ...] [--store PATH]``.
+
+Exports one configuration of a stored sweep (default: the best) into FOLDER:
+configuration JSON, the refitted pipeline (skops, joblib, ONNX), reproduce.py,
+the sweep's results as CSV and an HTML report, with a manifest of SHA-256
+checksums (see :mod:`workbench.export`). The folder is written atomically.
+Exit status 0, or 2 on bad input (unknown sweep or rank, folder not writable,
+unknown format, changed table).
+"""
+
+from __future__ import annotations
+
+import sys
+
+from workbench.export import FORMATS, export_configuration
+from workbench.store import Store
+
+NAME = "export"
+HELP = "Export one configuration of a stored sweep: model files, configuration, script, report."
+
+
+def add_arguments(parser):
+    parser.add_argument("sweep_id", metavar="SWEEP_ID", help="a sweep id (see workbench history)")
+    parser.add_argument("--config", metavar="RANK|best", default="best",
+                        help="which configuration: its rank in the results (1 = best) or 'best'")
+    parser.add_argument("--to", metavar="FOLDER", required=True, dest="folder",
+                        help="the export folder (an earlier export there is replaced whole)")
+    parser.add_argument("--formats", metavar="LIST", default=None,
+                        help=f"comma-separated subset of: {','.join(FORMATS)} (default: all)")
+    parser.add_argument("--store", metavar="PATH", default=None,
+                        help="the store file (default: the user's data folder)")
+    parser.add_argument("--quiet", action="store_true", help="print only the folder")
+
+
+def run(args) -> int:
+    def progress(message, fraction):
+        if not args.quiet:
+            print(f"[{100 * fraction:3.0f}%] {message}", file=sys.stderr)
+
+    with Store(args.store) as store:
+        folder = export_configuration(store, args.sweep_id, args.config, args.folder,
+                                      formats=args.formats, on_progress=progress)
+    print(folder)
+    return 0

@@ -1,0 +1,59 @@
+"""``workbench predict MODEL_FOLDER TABLE [--out FILE] [--joblib | --onnx] [--sheet NAME]``.
+
+Loads an exported model (``workbench export``) and writes one prediction per
+row of TABLE as CSV (to FILE, or to standard output): ``prediction`` and, for
+classifiers, ``probability_<class>`` per class. The skops file is used by
+default (only trusted types are loaded); ``--joblib`` unpickles the joblib file
+after checking its SHA-256 (unpickling runs code: use it only on folders you
+trust); ``--onnx`` predicts with onnxruntime. Exit status 0, or 2 on bad input
+(a changed model file, untrusted types, missing columns, ...).
+"""
+
+from __future__ import annotations
+
+import sys
+
+from workbench.errors import InputError
+from workbench.export import write_safe_csv
+from workbench.intake import load_table
+from workbench.predict import predict_table
+
+NAME = "predict"
+HELP = "Predict with an exported model folder; writes a CSV of predictions."
+
+
+def add_arguments(parser):
+    parser.add_argument("folder", metavar="MODEL_FOLDER", help="a folder written by workbench export")
+    parser.add_argument("table", metavar="TABLE", help="a .csv, .tsv, .xlsx or .parquet table")
+    parser.add_argument("--out", metavar="FILE", default=None,
+                        help="write the predictions here (default: standard output)")
+    parser.add_argument("--sheet", metavar="NAME", default=None, help="sheet of an .xlsx workbook")
+    which = parser.add_mutually_exclusive_group()
+    which.add_argument("--joblib", action="store_true",
+                       help="use the joblib pickle (runs code when loaded: trusted folders only)")
+    which.add_argument("--onnx", action="store_true", help="use the ONNX file with onnxruntime")
+
+
+def run(args) -> int:
+    kind = "joblib" if args.joblib else "onnx" if args.onnx else "skops"
+    df, _ = load_table(args.table, sheet=args.sheet)
+    out = predict_table(args.folder, df, kind=kind,
+                        warn=lambda msg: print(f"workbench: {msg}", file=sys.stderr))
+    rows = out.to_numpy(dtype=object).tolist()
+    if args.out:
+        try:
+            write_safe_csv(args.out, list(out.columns), rows)
+        except OSError as exc:
+            raise InputError(f"cannot write {args.out} ({exc.strerror}); choose another file") \
+                from None
+        print(f"workbench: {len(out)} prediction(s) written to {args.out}", file=sys.stderr)
+    else:
+        import csv
+
+        from workbench.export import neutralise_cell
+
+        w = csv.writer(sys.stdout)
+        w.writerow([neutralise_cell(c) for c in out.columns])
+        for r in rows:
+            w.writerow([neutralise_cell(v) for v in r])
+    return 0
