@@ -340,6 +340,12 @@ def build_pipeline(profile: TableProfile, target: TargetInfo, estimator, head: s
 
 
 def fitted_estimator(pipeline: Pipeline):
-    """The fitted network inside a fitted pipeline from :func:`build_pipeline`."""
+    """The network inside a pipeline from :func:`build_pipeline`.
+
+    For a fitted regression pipeline this is the fitted ``regressor_`` of the target
+    wrapper; before fitting, the configured (unfitted) ``regressor``.
+    """
     model = pipeline.named_steps["model"]
-    return model.regressor_ if isinstance(model, TransformedTargetRegressor) else model
+    if isinstance(model, TransformedTargetRegressor):
+        return getattr(model, "regressor_", model.regressor)
+    return model

@@ -1,0 +1,332 @@
+"""Leak-free preprocessing, target scaling by head, date parts, pipelines.
+
+Outside references: scikit-learn's ``StandardScaler`` (with and without centring),
+``MinMaxScaler`` and ``SimpleImputer`` semantics recomputed with NumPy
+(``numpy.nanmedian``, ``numpy.mean``), pandas' ``Series.dt`` calendar accessors
+for the date parts, and ``sklearn.model_selection.cross_validate`` /
+``KFold`` for the fold splits.
+"""
+
+from __future__ import annotations
+
+import pickle
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn.base import clone
+from sklearn.compose import ColumnTransformer, TransformedTargetRegressor
+from sklearn.model_selection import KFold, cross_validate
+from sklearn.neural_network import MLPClassifier, MLPRegressor
+from sklearn.pipeline import Pipeline
+from sklearn.preprocessing import MinMaxScaler, StandardScaler
+
+from workbench.errors import InputError
+from workbench.preprocessing import (
+    DateParts,
+    TargetScaler,
+    build_pipeline,
+    build_preprocessor,
+    feature_groups,
+    fitted_estimator,
+    target_scaling,
+)
+from workbench.profiling import analyse_target, profile_table, split_xy
+
+pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
+
+
+def _table(n=240, seed=0, target="signed"):
+    rng = np.random.default_rng(seed)
+    x1 = rng.normal(size=n)
+    x2 = rng.uniform(0, 10, n)
+    colour = rng.choice(["red", "green", "blue"], n)
+    df = pd.DataFrame({
+        "row_id": np.arange(n),
+        "x1": x1,
+        "x2": x2,
+        "k": rng.integers(0, 5, n),
+        "colour": colour,
+        "when": pd.Timestamp("2024-01-01") + pd.to_timedelta(rng.integers(0, 400, n), "D"),
+        "plant": "P1",
+    })
+    df.loc[rng.random(n) < 0.1, "x1"] = np.nan
+    df.loc[rng.random(n) < 0.1, "colour"] = np.nan
+    signal = np.sin(x1 * 2) + 0.3 * x2 + (colour == "red")
+    if target == "signed":
+        df["y"] = signal - signal.mean() + rng.normal(0, 0.1, n)
+    elif target == "non_negative":
+        df["y"] = np.maximum(signal, 0) * 3
+    elif target == "bounded":
+        df["y"] = 1 / (1 + np.exp(-(signal - signal.mean())))
+    elif target == "count":
+        df["y"] = rng.poisson(np.exp(0.3 * signal))
+    elif target == "binary":
+        df["y"] = np.where(signal > np.median(signal), "pass", "fail")
+    elif target == "multiclass":
+        df["y"] = np.array(["a", "b", "c"])[np.digitize(signal, np.quantile(signal, [1 / 3, 2 / 3]))]
+    return df
+
+
+def _setup(target="signed", **kw):
+    df = _table(target=target, **kw)
+    prof = profile_table(df, target="y")
+    t = analyse_target(df, "y")
+    X, y = split_xy(df, t)
+    return df, prof, t, X, y
+
+
+# --------------------------------------------------------------------------- column transformer
+
+
+def test_groups_and_output_width():
+    df, prof, t, X, y = _setup()
+    g = feature_groups(prof, t)
+    assert g == {"numeric": ["x1", "x2", "k"], "categorical": ["colour"], "datetime": ["when"]}
+    ct = build_preprocessor(prof, t)
+    assert isinstance(ct, ColumnTransformer) and ct.remainder == "drop"
+    Z = ct.fit_transform(X)
+    n_dates = len(ct.named_transformers_["datetime"].named_steps["parts"].parts_[0])
+    # 3 numeric + 3 colours (NaN imputed, so no extra level) + the varying date parts
+    assert Z.shape == (len(X), 3 + 3 + n_dates)
+    assert not np.isnan(Z).any()
+    names = list(ct.get_feature_names_out())
+    assert not any("row_id" in n or "plant" in n for n in names)  # ignored columns dropped
+    assert "categorical__colour_red" in names
+    # the numeric block equals median imputation + standardisation recomputed with numpy
+    raw = X[["x1", "x2", "k"]].to_numpy(float)
+    med = np.nanmedian(raw, axis=0)
+    filled = np.where(np.isnan(raw), med, raw)
+    np.testing.assert_allclose(Z[:, :3], (filled - filled.mean(0)) / filled.std(0), atol=1e-12)
+    # most-frequent imputation then one-hot: each row has exactly one colour
+    onehot = Z[:, 3:6]
+    assert set(np.unique(onehot)) == {0.0, 1.0} and np.all(onehot.sum(1) == 1)
+
+
+def test_unknown_category_is_ignored_at_predict():
+    df, prof, t, X, y = _setup()
+    ct = build_preprocessor(prof, t).fit(X)
+    X2 = X.head(3).copy()
+    X2["colour"] = ["purple", "red", "purple"]
+    Z = ct.transform(X2)
+    names = list(ct.get_feature_names_out())
+    cols = [i for i, n in enumerate(names) if n.startswith("categorical__colour_")]
+    np.testing.assert_array_equal(Z[:, cols].sum(1), [0, 1, 0])
+
+
+def test_no_features_is_an_input_error():
+    df = pd.DataFrame({"row_id": np.arange(20), "y": np.linspace(-1, 1, 20)})
+    prof = profile_table(df, target="y")
+    with pytest.raises(InputError, match="no column can be used as a feature"):
+        build_preprocessor(prof, analyse_target(df, "y"))
+
+
+# --------------------------------------------------------------------------- leakage
+
+
+def test_fold_fitted_pipeline_never_sees_held_out_rows():
+    df, prof, t, X, y = _setup()
+    pipe = build_pipeline(prof, t, MLPRegressor(hidden_layer_sizes=(4,), max_iter=20,
+                                                random_state=0), "identity")
+    cv = KFold(n_splits=4, shuffle=True, random_state=1)
+    res = cross_validate(pipe, X, y, cv=cv, return_estimator=True, return_indices=True)
+    full = X[["x1", "x2", "k"]].to_numpy(float)
+    for est, train, test in zip(res["estimator"], res["indices"]["train"],
+                                res["indices"]["test"]):
+        part = full[train]
+        num = est.named_steps["prep"].named_transformers_["numeric"]
+        med = np.nanmedian(part, axis=0)
+        np.testing.assert_allclose(num.named_steps["impute"].statistics_, med)
+        filled = np.where(np.isnan(part), med, part)
+        np.testing.assert_allclose(num.named_steps["scale"].mean_, filled.mean(0), rtol=1e-12)
+        np.testing.assert_allclose(num.named_steps["scale"].scale_, filled.std(0), rtol=1e-12)
+        # and it differs from what the whole table would give
+        all_filled = np.where(np.isnan(full), np.nanmedian(full, 0), full)
+        assert not np.allclose(num.named_steps["scale"].mean_, all_filled.mean(0))
+        # the target scaler is fitted on the training part's targets only
+        ts = est.named_steps["model"].transformer_
+        assert ts.offset_[0] == pytest.approx(y[train].mean())
+        assert ts.scale_[0] == pytest.approx(y[train].std())
+        assert len(np.intersect1d(train, test)) == 0
+
+
+def test_category_seen_only_in_held_out_rows_is_not_learned():
+    df, prof, t, X, y = _setup()
+    X = X.copy()
+    X.loc[X.index[-10:], "colour"] = "violet"
+    train = np.arange(len(X) - 10)
+    pipe = build_pipeline(prof, t, MLPRegressor(hidden_layer_sizes=(3,), max_iter=5,
+                                                random_state=0), "identity")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        pipe.fit(X.iloc[train], y[train])
+    enc = pipe.named_steps["prep"].named_transformers_["categorical"].named_steps["onehot"]
+    assert "violet" not in set(enc.categories_[0])
+    assert np.isfinite(pipe.predict(X.tail(10))).all()
+
+
+# --------------------------------------------------------------------------- target scaling
+
+
+def test_target_scaler_modes_match_scikit_learn_scalers():
+    rng = np.random.default_rng(4)
+    y = rng.gamma(2.0, 3.0, 300)
+    y2 = y.reshape(-1, 1)
+    std = TargetScaler("standard").fit(y2)
+    ref = StandardScaler().fit(y2)
+    np.testing.assert_allclose(std.transform(y2), ref.transform(y2), rtol=1e-12)
+    np.testing.assert_allclose(std.inverse_transform(ref.transform(y2)), y2, rtol=1e-12)
+
+    sc = TargetScaler("scale").fit(y2)
+    ref = StandardScaler(with_mean=False).fit(y2)
+    np.testing.assert_allclose(sc.transform(y2), ref.transform(y2), rtol=1e-12)
+    assert sc.offset_[0] == 0.0
+    assert np.all(sc.transform(y2) >= 0)  # no centring: the sign is kept, zero stays zero
+    assert sc.transform(np.zeros((1, 1)))[0, 0] == 0.0
+    np.testing.assert_allclose(sc.inverse_transform(sc.transform(y2)), y2, rtol=1e-12)
+
+    share = rng.uniform(0.1, 0.7, 300).reshape(-1, 1)
+    iv = TargetScaler("interval", low=0.0, high=1.0).fit(share)
+    ref = MinMaxScaler().fit(np.array([[0.0], [1.0]]))
+    np.testing.assert_allclose(iv.transform(share), ref.transform(share), rtol=1e-12)
+    pct = share * 100
+    iv = TargetScaler("interval", low=0.0, high=100.0).fit(pct)
+    ref = MinMaxScaler().fit(np.array([[0.0], [100.0]]))
+    np.testing.assert_allclose(iv.transform(pct), ref.transform(pct), rtol=1e-12)
+    np.testing.assert_allclose(iv.inverse_transform(ref.transform(pct)), pct, rtol=1e-12)
+    free = TargetScaler("interval").fit(pct)  # no interval: the training range, as MinMaxScaler
+    np.testing.assert_allclose(free.transform(pct), MinMaxScaler().fit_transform(pct),
+                               rtol=1e-12, atol=1e-15)
+    # 1-D in, 1-D out
+    assert std.transform(y).shape == y.shape and std.inverse_transform(y).shape == y.shape
+
+
+def test_target_scaler_constant_target_and_bad_mode():
+    c = np.full((5, 1), 4.0)
+    ts = TargetScaler("standard").fit(c)
+    assert ts.scale_[0] == 1.0  # as StandardScaler: zero variance -> scale 1
+    assert StandardScaler().fit(c).scale_[0] == 1.0
+    with pytest.raises(ValueError, match="mode must be"):
+        TargetScaler("log").fit(c)
+
+
+@pytest.mark.parametrize("head,mode", [("identity", "standard"), ("linear", "standard"),
+                                       ("relu", "scale"), ("softplus", "scale"),
+                                       ("exp", "scale"), ("logistic", "interval")])
+def test_scaling_follows_the_head(head, mode):
+    df, prof, t, X, y = _setup("bounded")
+    ts = target_scaling(t, head)
+    assert ts.mode == mode
+    if mode == "interval":
+        assert (ts.low, ts.high) == t.interval == (0.0, 1.0)
+
+
+# --------------------------------------------------------------------------- pipelines
+
+
+def test_sklearn_regressor_predictions_come_back_in_user_units():
+    df, prof, t, X, y = _setup("non_negative")
+    y = y * 1000.0  # large units: the network itself sees y / std
+    pipe = build_pipeline(prof, t, MLPRegressor(hidden_layer_sizes=(8,), max_iter=200,
+                                                random_state=0), "identity")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        pipe.fit(X, y)
+    model = pipe.named_steps["model"]
+    assert isinstance(model, TransformedTargetRegressor)
+    raw = fitted_estimator(pipe).predict(pipe.named_steps["prep"].transform(X))
+    np.testing.assert_allclose(pipe.predict(X), raw * y.std() + y.mean(), rtol=1e-10)
+    assert abs(np.mean(pipe.predict(X)) - y.mean()) < 0.2 * y.std()
+
+
+def test_sklearn_estimators_get_only_heads_they_have():
+    df, prof, t, X, y = _setup("count")
+    pipe = build_pipeline(prof, t, MLPRegressor(), "exp")
+    assert fitted_estimator(pipe).get_params()["loss"] == "poisson"
+    assert pipe.named_steps["model"].transformer.mode == "scale"
+    with pytest.raises(InputError, match="has no relu output head"):
+        build_pipeline(prof, t, MLPRegressor(), "relu")
+    df, prof, t, X, y = _setup("binary")
+    build_pipeline(prof, t, MLPClassifier(), "logistic")
+    with pytest.raises(InputError, match="always uses the logistic head"):
+        build_pipeline(prof, t, MLPClassifier(), "softmax")
+
+
+def test_refused_head_raises_the_guard_reason():
+    df, prof, t, X, y = _setup("signed")
+    with pytest.raises(InputError, match="never goes below 0"):
+        build_pipeline(prof, t, MLPRegressor(), "relu")
+
+
+def test_estimator_is_not_modified_and_pipeline_clones_and_pickles():
+    df, prof, t, X, y = _setup("multiclass")
+    est = MLPClassifier(hidden_layer_sizes=(6,), max_iter=30, random_state=0)
+    pipe = build_pipeline(prof, t, est, "softmax")
+    assert pipe.named_steps["model"] is not est
+    assert isinstance(pipe, Pipeline) and list(pipe.named_steps) == ["prep", "model"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        pipe.fit(X, y)
+        again = clone(pipe).fit(X, y)
+    assert not hasattr(est, "coefs_")
+    restored = pickle.loads(pickle.dumps(pipe))
+    np.testing.assert_array_equal(restored.predict(X), pipe.predict(X))
+    np.testing.assert_array_equal(again.predict(X), pipe.predict(X))
+    assert set(pipe.predict(X)) <= {"a", "b", "c"}
+
+
+@pytest.mark.parametrize("kind,head", [("signed", "identity"), ("non_negative", "relu"),
+                                       ("non_negative", "softplus"), ("count", "exp"),
+                                       ("bounded", "logistic"), ("binary", "logistic"),
+                                       ("multiclass", "softmax")])
+def test_engine_networks_in_pipelines(kind, head):
+    engine = pytest.importorskip("workbench.engine")
+    df, prof, t, X, y = _setup(kind)
+    cls = engine.NetClassifier if t.task == "classification" else engine.NetRegressor
+    pipe = build_pipeline(prof, t, cls(hidden_layer_sizes=(8,), max_iter=30, random_state=0),
+                          head)
+    assert fitted_estimator(pipe).get_params()["output_activation"] == head
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        pipe.fit(X, y)
+    net = fitted_estimator(pipe)
+    assert net.out_activation_ == head
+    pred = pipe.predict(X)
+    if kind in ("non_negative", "count"):
+        assert pred.min() >= 0.0  # the head's range survives the positive-only scaling
+    if kind == "bounded":
+        assert 0.0 <= pred.min() and pred.max() <= 1.0
+    if t.task == "classification":
+        assert set(pred) <= set(t.classes)
+    restored = pickle.loads(pickle.dumps(pipe))
+    np.testing.assert_allclose(restored.predict(X).astype(object) == pred, True)
+    clone(pipe)
+
+
+# --------------------------------------------------------------------------- date parts
+
+
+def test_date_parts_match_pandas_calendar():
+    s = pd.Series(pd.to_datetime(["2024-02-29 13:45", "1999-12-31 23:59", None,
+                                  "2026-01-05 00:00", "1969-07-20 20:17"]), name="when")
+    X = s.to_frame()
+    dp = DateParts().fit(X)
+    assert dp.parts_ == [["year", "month", "day", "weekday", "hour", "minute", "dayofyear"]]
+    Z = dp.transform(X)
+    ok = s.notna().to_numpy()
+    ref = np.column_stack([s.dt.year, s.dt.month, s.dt.day, s.dt.day_of_week, s.dt.hour,
+                           s.dt.minute, s.dt.day_of_year]).astype(float)
+    np.testing.assert_array_equal(Z[ok], ref[ok])
+    assert np.isnan(Z[~ok]).all()
+    assert list(dp.get_feature_names_out()) == [f"when_{p}" for p in dp.parts_[0]]
+
+
+def test_date_parts_drop_parts_constant_in_training():
+    X = pd.DataFrame({"d": pd.date_range("2024-03-01", periods=40, freq="D")})
+    dp = DateParts().fit(X)
+    assert "hour" not in dp.parts_[0] and "minute" not in dp.parts_[0]
+    assert "year" not in dp.parts_[0]  # every training date is in 2024
+    assert dp.transform(X).shape == (40, len(dp.parts_[0]))
+    with pytest.raises(ValueError, match="unknown date parts"):
+        DateParts(parts=("century",)).fit(X)
