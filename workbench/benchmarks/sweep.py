@@ -1,0 +1,153 @@
+"""Sweep speed: serial vs 2 jobs, and against a hand-written GridSearchCV.
+
+The fixed sweep (issue "The sweep", section 7): a 5,000-row binary table
+(``sklearn.datasets.make_classification`` with 10 numeric features plus one
+categorical column, written to a temporary CSV), hidden activations relu,
+tanh, gelu, silu, the logistic head, one hidden layer of 32 units, learning
+rates 0.001 and 0.01, 5 folds x 1 repeat, 20 epochs: 8 configurations, 40
+trials.
+
+Measured, in this order, each in a fresh worker pool:
+
+1. ``GridSearchCV(n_jobs=2)`` written by hand with scikit-learn's
+   ``MLPClassifier`` in the same preprocessing pipeline, over the
+   configurations scikit-learn can express (relu and tanh: 4 of the 8), with
+   the sweep's own folds and metric (``refit=False``: only the search);
+2. our sweep over the same 4 configurations with 2 jobs, once with
+   ``engine="auto"`` (scikit-learn's MLP, as GridSearchCV) and once with
+   ``engine="numpy"`` (the NumPy engine, float32);
+3. the whole sweep serially (1 job) and with 2 jobs: parallel efficiency
+   ``serial / (2 x two_jobs)``.
+
+Times are wall-clock and include starting the worker processes. Whether
+GridSearchCV's best configuration is our best or tied with it (corrected
+t-test, alpha 0.05) is reported.
+"""
+
+from __future__ import annotations
+
+import tempfile
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+ROWS, FEATURES = 5_000, 10
+
+
+def _table(path: Path, rows: int, seed: int = 0) -> None:
+    import pandas as pd
+    from sklearn.datasets import make_classification
+
+    X, y = make_classification(n_samples=rows, n_features=FEATURES, n_informative=6,
+                               n_redundant=2, flip_y=0.05, class_sep=0.8, random_state=seed)
+    df = pd.DataFrame(X, columns=[f"x{i}" for i in range(FEATURES)])
+    rng = np.random.default_rng(seed)
+    df["site"] = rng.choice(["north", "south", "east", "west"], size=rows)
+    df["outcome"] = np.where(y == 1, "pass", "fail")
+    df.to_csv(path, index=False)
+
+
+def _plan(path, hidden, engine, quick):
+    from workbench.plan import build_plan
+
+    return build_plan(path, "outcome", hidden=hidden, output="logistic", layers=["32"],
+                      learning_rates=["0.001", "0.01"], folds=2 if quick else 5, repeats=1,
+                      epochs=3 if quick else 20, metric="accuracy", engine=engine, seed=0)
+
+
+def _sweep(plan, store, jobs):
+    from workbench.runner import run_sweep
+
+    t = time.perf_counter()
+    out = run_sweep(plan, store=store, jobs=jobs)
+    return time.perf_counter() - t, out.sweep_id
+
+
+def _grid_search(plan, jobs=2):
+    from sklearn.model_selection import GridSearchCV
+    from sklearn.neural_network import MLPClassifier
+
+    from workbench.preprocessing import build_pipeline
+    from workbench.runner import load_data
+
+    data, _ = load_data(plan)
+    pipe = build_pipeline(
+        data.profile, data.target, MLPClassifier(max_iter=plan.epochs, random_state=0),
+        "logistic")
+    grid = {"model__activation": list(plan.hidden),
+            "model__hidden_layer_sizes": [tuple(s) for s in plan.layers],
+            "model__learning_rate_init": list(plan.learning_rates),
+            "model__alpha": list(plan.alphas)}
+    folds = plan.fold_indices(data.y)
+    cv = [folds[(r, f)] for r in range(plan.repeats) for f in range(plan.folds)]
+    search = GridSearchCV(pipe, grid, scoring=plan.metric, cv=cv, n_jobs=jobs, refit=False)
+    t = time.perf_counter()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        search.fit(data.X, data.y)
+    return time.perf_counter() - t, search.best_params_
+
+
+def run(quick: bool = False) -> dict:
+    """Measure the fixed sweep; ``quick`` shrinks it for smoke tests."""
+    from workbench.store import Store
+
+    rows = 1_000 if quick else ROWS
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = Path(tmp)
+        table = tmp / "bench_table.csv"
+        _table(table, rows)
+        store = Store(tmp / "bench.sqlite")
+        try:
+            sk_plan = _plan(table, "relu,tanh", "auto", quick)
+            t_grid, best_params = _grid_search(sk_plan)
+            t_same_auto, id_auto = _sweep(sk_plan, store, 2)
+            np_plan = _plan(table, "relu,tanh", "numpy", quick)
+            t_same_numpy, id_numpy = _sweep(np_plan, store, 2)
+            full = _plan(table, "relu,tanh,gelu,silu", "auto", quick)
+            t_serial, _ = _sweep(full, store, 1)
+            t_two, id_full = _sweep(full, store, 2)
+            res_auto = store.results(id_auto)
+            res_full = store.results(id_full)
+        finally:
+            store.close()
+    gs_key = (best_params["model__activation"], float(best_params["model__learning_rate_init"]))
+    ours = {(c["hidden"], c["learning_rate"]): c for c in res_auto["configurations"]}
+    g = ours[gs_key]
+    agree = "same best" if g["rank"] == 1 else ("tied with our best" if g["tied_with_best"]
+                                                else "NOT tied with our best")
+    efficiency = t_serial / (2.0 * t_two)
+    best_full = res_full["configurations"][0]
+    figures = {
+        "serial_seconds": t_serial,
+        "two_jobs_seconds": t_two,
+        "parallel_efficiency": efficiency,
+        "gridsearch_seconds": t_grid,
+        "ours_same_configs_auto_seconds": t_same_auto,
+        "ours_same_configs_numpy_seconds": t_same_numpy,
+        "ours_auto_over_gridsearch": t_same_auto / t_grid,
+        "ours_numpy_over_gridsearch": t_same_numpy / t_grid,
+        "gridsearch_best_agrees": g["rank"] == 1 or bool(g["tied_with_best"]),
+    }
+    n_cfg, n_trials = full.n_configurations, full.n_trials
+    lines = [
+        f"fixed sweep: {rows} rows, hidden relu/tanh/gelu/silu x logistic head x [32] x lr "
+        f"0.001/0.01, {full.folds} folds x {full.repeats} repeat, {full.epochs} epochs: "
+        f"{n_cfg} configurations, {n_trials} trials",
+        f"  serial (1 job)                    {t_serial:8.2f} s",
+        f"  2 jobs                            {t_two:8.2f} s",
+        f"  parallel efficiency               {efficiency:8.3f}   (goal >= 0.90)",
+        f"  best: {best_full['hidden']}/{best_full['head']} lr={best_full['learning_rate']:g} "
+        f"accuracy {best_full['mean']:.4f} ± {best_full['sd']:.4f}",
+        f"scikit-learn-expressible part: {sk_plan.n_configurations} configurations "
+        f"(relu, tanh), same folds and metric",
+        f"  GridSearchCV(n_jobs=2)            {t_grid:8.2f} s",
+        f"  ours, 2 jobs, engine auto         {t_same_auto:8.2f} s   "
+        f"ratio {t_same_auto / t_grid:.3f}",
+        f"  ours, 2 jobs, engine numpy        {t_same_numpy:8.2f} s   "
+        f"ratio {t_same_numpy / t_grid:.3f}   (goal <= 0.5)",
+        f"  GridSearchCV's best ({gs_key[0]}, lr={gs_key[1]:g}): {agree}",
+    ]
+    return {"title": "sweep", "lines": lines, "figures": figures}
