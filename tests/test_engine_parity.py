@@ -253,3 +253,16 @@ def test_batch_larger_than_the_data_is_clipped_like_sklearn():
         warnings.simplefilter("ignore")
         ref.fit(X, y)
     np.testing.assert_allclose(ours.loss_curve_, ref.loss_curve_, rtol=RTOL)
+
+
+@pytest.mark.parametrize("hidden", ["relu", "logistic"])
+@pytest.mark.parametrize("task", TASKS)
+def test_no_hidden_layer_matches_sklearn(task, hidden):
+    """hidden_layer_sizes=(): a generalised linear model trained by adam, as scikit-learn's
+    MLP allows (its Glorot factor still follows `activation`: 2 for logistic)."""
+    X, y = _data(task)
+    ours, ref = _pair(task, hidden, "adam", hidden_layer_sizes=())
+    _fit_both(ours, ref, X, y)
+    np.testing.assert_allclose(ours.loss_curve_, ref.loss_curve_, rtol=RTOL)
+    _assert_same_predictions(ours, ref, X, task)
+    assert ours.health_["dead"] == [] and len(ours.health_["grad_norm"]) == 1

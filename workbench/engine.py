@@ -540,7 +540,11 @@ class _BaseNet(BaseEstimator):
             # scikit-learn applies its rule by the hidden activation to every layer, the
             # output layer included; with one activation per layer, the output layer
             # follows the last hidden layer.
-            layer_act = hidden[min(i, len(hidden) - 1)]
+            if hidden:
+                layer_act = hidden[min(i, len(hidden) - 1)]
+            else:  # no hidden layer: scikit-learn still picks the rule by `activation`
+                layer_act = (act.resolve_hidden(self.activation)
+                             if isinstance(self.activation, str) else "")
             if self.init == "he" and i < len(hidden) and layer_act in _HE_FAMILY:
                 bound = math.sqrt(6.0 / fan_in)
             else:
