@@ -403,3 +403,19 @@ def test_extreme_inputs_give_finite_probabilities(data, n_classes):
         p = m.predict_proba(X * 1e4)
     assert np.all(np.isfinite(p))
     np.testing.assert_allclose(p.sum(axis=1), 1.0, rtol=1e-5)
+
+
+@pytest.mark.parametrize("hidden, factor", [("gelu", 6.0), ("selu", 6.0), ("logistic", 2.0),
+                                            ("softplus", 6.0)])
+def test_glorot_bound_for_every_activation(data, hidden, factor):
+    """init="glorot" (default): uniform in +-sqrt(factor / (fan_in + fan_out)), factor 6
+    (Glorot & Bengio 2010) and 2 for logistic, scikit-learn's rule, applied to every layer."""
+    X, y = data
+    m = NetRegressor((300, 200), activation=hidden, solver="sgd", learning_rate_init=1e-300,
+                     momentum=0.0, max_iter=1, random_state=0, dtype="float64").fit(X, y)
+    for c, (fan_in, fan_out) in zip(m.coefs_, [(4, 300), (300, 200), (200, 1)]):
+        bound = math.sqrt(factor / (fan_in + fan_out))
+        assert np.max(np.abs(c)) <= bound
+        assert np.max(np.abs(c)) > 0.9 * bound
+        # uniform: the variance is bound^2 / 3
+        assert np.var(c) == pytest.approx(bound ** 2 / 3, rel=0.35 if c.size < 300 else 0.1)
