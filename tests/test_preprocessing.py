@@ -330,3 +330,36 @@ def test_date_parts_drop_parts_constant_in_training():
     assert dp.transform(X).shape == (40, len(dp.parts_[0]))
     with pytest.raises(ValueError, match="unknown date parts"):
         DateParts(parts=("century",)).fit(X)
+
+
+def test_date_parts_far_from_1970_match_python_datetime():
+    import datetime as dt
+
+    days = [dt.datetime(1500, 3, 1, 10, 5), dt.datetime(9999, 12, 31, 23, 59),
+            dt.datetime(1900, 2, 28, 0, 0), dt.datetime(2000, 2, 29, 12, 30)]
+    X = pd.DataFrame({"d": np.array(days, dtype="datetime64[s]")})
+    Z = DateParts().fit(X).transform(X)
+    # outside reference: Python's proleptic Gregorian calendar
+    ref = [[d.year, d.month, d.day, d.weekday(), d.hour, d.minute, d.timetuple().tm_yday]
+           for d in days]
+    np.testing.assert_array_equal(Z, np.asarray(ref, dtype=float))
+
+
+def test_boolean_column_with_gaps_is_imputed_and_one_hot_encoded():
+    rng = np.random.default_rng(0)
+    n = 60
+    flag = pd.Series(rng.random(n) < 0.5, dtype=object)
+    flag[::7] = np.nan
+    df = pd.DataFrame({"flag": flag, "x": rng.normal(size=n), "y": rng.normal(size=n)})
+    prof = profile_table(df, target="y")
+    assert prof.column("flag").type == "boolean"
+    t = analyse_target(df, "y")
+    X, y = split_xy(df, t)
+    ct = build_preprocessor(prof, t).fit(X)
+    Z = ct.transform(X)
+    assert list(ct.get_feature_names_out()) == ["numeric__x", "categorical__flag_False",
+                                                "categorical__flag_True"]
+    most = flag.dropna().astype(bool).value_counts().idxmax()
+    gaps = flag.isna().to_numpy()
+    col = 2 if most else 1
+    assert np.all(Z[gaps, col] == 1.0)  # gaps filled with the most frequent value

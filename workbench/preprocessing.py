@@ -59,8 +59,6 @@ DATETIME_TYPES = ("datetime",)
 #: the parts :class:`DateParts` can produce, in output order
 DATE_PARTS = ("year", "month", "day", "weekday", "hour", "minute", "dayofyear")
 
-_NS_PER_DAY = 86_400 * 10**9
-
 
 class DateParts(TransformerMixin, BaseEstimator):
     """Expand datetime columns into numeric parts.
@@ -93,28 +91,28 @@ class DateParts(TransformerMixin, BaseEstimator):
                 s = X[c]
                 if not pd.api.types.is_datetime64_any_dtype(s.dtype):
                     s = pd.to_datetime(s, errors="coerce")
-                cols.append(s.to_numpy(dtype="datetime64[ns]"))
-            return np.column_stack(cols) if cols else np.empty((len(X), 0), "datetime64[ns]")
+                cols.append(s.to_numpy(dtype="datetime64[s]"))
+            return np.column_stack(cols) if cols else np.empty((len(X), 0), "datetime64[s]")
         arr = np.asarray(X)
         if arr.ndim == 1:
             arr = arr[:, None]
-        return arr.astype("datetime64[ns]")
+        return arr.astype("datetime64[s]")
 
     @staticmethod
     def _parts(col: np.ndarray) -> dict[str, np.ndarray]:
         nat = np.isnat(col)
-        ns = col.astype("datetime64[ns]")
-        days = ns.astype("datetime64[D]")
-        months = ns.astype("datetime64[M]")
-        years = ns.astype("datetime64[Y]")
+        secs = col.astype("datetime64[s]")  # seconds: years 1 to 9999 all fit
+        days = secs.astype("datetime64[D]")
+        months = secs.astype("datetime64[M]")
+        years = secs.astype("datetime64[Y]")
         out = {
             "year": years.astype(np.int64) + 1970.0,
             "month": (months.astype(np.int64) % 12) + 1.0,
             "day": (days - months.astype("datetime64[D]")).astype(np.int64) + 1.0,
             # 1970-01-01 was a Thursday (weekday 3 when Monday is 0)
             "weekday": (days.astype(np.int64) + 3) % 7 + 0.0,
-            "hour": ((ns - days).astype("timedelta64[h]").astype(np.int64)) + 0.0,
-            "minute": ((ns - days).astype("timedelta64[m]").astype(np.int64) % 60) + 0.0,
+            "hour": ((secs - days).astype("timedelta64[h]").astype(np.int64)) + 0.0,
+            "minute": ((secs - days).astype("timedelta64[m]").astype(np.int64) % 60) + 0.0,
             "dayofyear": (days - years.astype("datetime64[D]")).astype(np.int64) + 1.0,
         }
         for k in out:
