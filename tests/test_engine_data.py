@@ -1,6 +1,6 @@
 """The engine on real data that ships inside scikit-learn.
 
-Sources: ``sklearn.datasets.load_breast_cancer`` (Wolberg, Street & Mangasarian 1995,
+Sources: ``sklearn.datasets.load_breast_cancer`` (Street, Wolberg & Mangasarian 1993,
 569 rows, 30 features, binary) and ``sklearn.datasets.load_diabetes`` (Efron, Hastie,
 Johnstone & Tibshirani 2004, 442 rows, 10 features, target 25-346); scores by
 ``sklearn.model_selection.cross_val_score`` with plain 5-fold splits; reference model

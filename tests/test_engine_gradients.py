@@ -2,9 +2,9 @@
 
 For every hidden activation x output head pair the analytic gradient that
 ``workbench.engine._Net.backward`` writes into ``net.grad`` is compared with
-``(L(theta + h e_i) - L(theta - h e_i)) / 2h`` in float64 (the finite-difference
-gradient check of LeCun, Bottou, Orr & Mueller 1998, "Efficient BackProp", section 4.6; the
-same check scikit-learn's own MLP tests run). The loss values are compared with
+``(L(theta + h e_i) - L(theta - h e_i)) / 2h`` in float64 (central finite differences,
+the same kind of check scikit-learn's own MLP test suite runs on its backpropagation).
+The loss values are compared with
 ``sklearn.metrics`` (``mean_squared_error``, ``mean_poisson_deviance``, ``log_loss``).
 """
 
