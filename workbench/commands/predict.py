@@ -16,6 +16,7 @@ import sys
 from workbench.errors import InputError
 from workbench.export import write_safe_csv
 from workbench.intake import load_table
+from workbench.model_files import read_manifest
 from workbench.predict import predict_table
 
 NAME = "predict"
@@ -36,6 +37,7 @@ def add_arguments(parser):
 
 def run(args) -> int:
     kind = "joblib" if args.joblib else "onnx" if args.onnx else "skops"
+    read_manifest(args.folder)  # a wrong folder is reported before the table is read
     df, _ = load_table(args.table, sheet=args.sheet)
     out = predict_table(args.folder, df, kind=kind,
                         warn=lambda msg: print(f"workbench: {msg}", file=sys.stderr))

@@ -1,0 +1,171 @@
+"""``workbench predict``: the three model files agree, and bad files are refused.
+
+References: the joblib pipeline's own ``predict`` / ``predict_proba`` (scikit-learn)
+are the reference for the skops and ONNX paths (onnxruntime, 1e-4 in float32);
+SHA-256 via :mod:`hashlib`; skops' own ``get_untrusted_types`` decides what a file asks for.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import json
+
+import joblib
+import numpy as np
+import pandas as pd
+import pytest
+import skops.io as sio
+from export_helpers import CLF_TARGET, REG_TARGET, SCRIPT_COL, make_sweep
+from sklearn.base import BaseEstimator
+
+from workbench import model_files as mf
+from workbench.cli import main
+from workbench.errors import InputError
+from workbench.export import export_configuration
+from workbench.intake import load_table
+from workbench.predict import predict_table
+
+
+class Smuggled(BaseEstimator):
+    """A type no allow-list knows: a skops file naming it must be refused."""
+
+    def __init__(self, payload="rm -rf"):
+        self.payload = payload
+
+
+@pytest.fixture(scope="module")
+def exports(tmp_path_factory):
+    out = {}
+    for task in ("regression", "classification"):
+        base = tmp_path_factory.mktemp(task)
+        store, sweep_id, table = make_sweep(base, task, dtype="float32")
+        folder = export_configuration(store, sweep_id, "best", base / "model",
+                                      formats="json,skops,joblib,onnx")
+        store.close()
+        df, _ = load_table(table)
+        target = REG_TARGET if task == "regression" else CLF_TARGET
+        out[task] = (folder, table, df.drop(columns=[target]))
+    return out
+
+
+def _copy(folder, dest):
+    import shutil
+
+    shutil.copytree(folder, dest)
+    return dest
+
+
+def test_regression_files_agree(exports):
+    folder, _, X = exports["regression"]
+    ref = joblib.load(folder / mf.JOBLIB_NAME).predict(X)
+    msgs = []
+    by_skops = predict_table(folder, X)
+    by_joblib = predict_table(folder, X, "joblib", warn=msgs.append)
+    by_onnx = predict_table(folder, X, "onnx")
+    np.testing.assert_array_equal(by_skops["prediction"], ref)
+    np.testing.assert_array_equal(by_joblib["prediction"], ref)
+    np.testing.assert_allclose(by_onnx["prediction"], ref, rtol=1e-4, atol=1e-4)
+    assert list(by_skops.columns) == ["prediction"]
+    assert len(msgs) == 1 and "unpickling runs code" in msgs[0]
+
+
+def test_classifier_gives_probabilities(exports):
+    folder, _, X = exports["classification"]
+    pipe = joblib.load(folder / mf.JOBLIB_NAME)
+    got = predict_table(folder, X)
+    classes = list(pipe.classes_)
+    assert list(got.columns) == ["prediction"] + [f"probability_{c}" for c in classes]
+    proba = got[[f"probability_{c}" for c in classes]].to_numpy()
+    np.testing.assert_allclose(proba, pipe.predict_proba(X))
+    np.testing.assert_allclose(proba.sum(axis=1), 1.0)
+    onnx_got = predict_table(folder, X, "onnx")
+    np.testing.assert_allclose(onnx_got.iloc[:, 1:].to_numpy(), proba, atol=1e-4)
+    assert (onnx_got["prediction"].astype(str) == got["prediction"].astype(str)).all()
+
+
+def test_missing_columns_are_named(exports):
+    folder, _, X = exports["regression"]
+    short = X.drop(columns=[SCRIPT_COL, "size"])
+    for kind in ("skops", "onnx"):
+        with pytest.raises(InputError, match="lacks 2 column") as err:
+            predict_table(folder, short, kind)
+        assert SCRIPT_COL in str(err.value) and "'size'" in str(err.value)
+
+
+def test_text_in_a_numeric_column_is_reported(exports):
+    folder, _, X = exports["regression"]
+    bad = X.copy()
+    bad["size"] = bad["size"].astype(object)
+    bad.loc[4, "size"] = "n/a?"
+    with pytest.raises(InputError, match="row 5"):
+        predict_table(folder, bad)
+
+
+@pytest.mark.parametrize("name", [mf.SKOPS_NAME, mf.JOBLIB_NAME, mf.ONNX_NAME])
+def test_one_changed_byte_is_refused(exports, tmp_path, monkeypatch, capsys, name):
+    folder, table, _ = exports["regression"]
+    copy = _copy(folder, tmp_path / "copy")
+    data = bytearray((copy / name).read_bytes())
+    data[len(data) // 2] ^= 0x01
+    (copy / name).write_bytes(bytes(data))
+
+    def never(*a, **k):  # the pickle must not even be opened
+        raise AssertionError("joblib.load called on a tampered file")
+
+    monkeypatch.setattr(joblib, "load", never)
+    flag = {mf.SKOPS_NAME: [], mf.JOBLIB_NAME: ["--joblib"], mf.ONNX_NAME: ["--onnx"]}[name]
+    assert main(["predict", str(copy), str(table), *flag]) == 2
+    err = capsys.readouterr().err
+    assert "SHA-256" in err and "changed after export" in err and "Traceback" not in err
+
+
+def test_skops_file_naming_an_untrusted_type_is_refused(exports, tmp_path, capsys):
+    folder, table, _ = exports["regression"]
+    copy = _copy(folder, tmp_path / "copy")
+    pipe = sio.load(copy / mf.SKOPS_NAME, trusted=sio.get_untrusted_types(
+        file=copy / mf.SKOPS_NAME))
+    pipe.steps.append(("extra", Smuggled()))
+    sio.dump(pipe, copy / mf.SKOPS_NAME)
+    asked = sio.get_untrusted_types(file=copy / mf.SKOPS_NAME)
+    assert any(n.endswith("Smuggled") for n in asked)
+    # a consistent manifest, so that the refusal comes from the type check
+    manifest = json.loads((copy / mf.MANIFEST_NAME).read_text())
+    manifest["files"][mf.SKOPS_NAME]["sha256"] = hashlib.sha256(
+        (copy / mf.SKOPS_NAME).read_bytes()).hexdigest()
+    (copy / mf.MANIFEST_NAME).write_text(json.dumps(manifest))
+    assert main(["predict", str(copy), str(table)]) == 2
+    err = capsys.readouterr().err
+    assert "not trusted" in err and "Smuggled" in err
+
+
+def test_allow_list_is_explicit_and_complete():
+    # every estimator class the project defines is on the list, nothing else from workbench
+    names = mf.project_types()
+    assert {"workbench.engine.NetRegressor", "workbench.engine.NetClassifier",
+            "workbench.preprocessing.DateParts", "workbench.preprocessing.TargetScaler"} <= names
+    assert mf.untrusted_types(["builtins.eval", "os.system", "sklearn.pipeline.Pipeline",
+                               "numpy.float64", "workbench.engine.NetRegressor",
+                               "workbench.gui.Anything"]) == [
+        "builtins.eval", "os.system", "workbench.gui.Anything"]
+
+
+def test_cli_writes_a_spreadsheet_safe_csv(exports, tmp_path, capsys):
+    folder, table, X = exports["classification"]
+    out = tmp_path / "pred.csv"
+    assert main(["predict", str(folder), str(table), "--out", str(out)]) == 0
+    with open(out, newline="", encoding="utf-8") as fh:
+        rows = list(csv.reader(fh))
+    assert len(rows) == len(X) + 1
+    # the class "-yes" is user text: neutralised in the header and in the cells
+    assert "'probability_-yes" not in rows[0] and "probability_-yes" in rows[0]
+    assert all(not r[0].startswith(("-", "=", "+", "@")) for r in rows[1:])
+    assert {r[0] for r in rows[1:]} <= {"'-yes", "<b>no</b>"}
+    pd.read_csv(out)  # a plain CSV
+
+
+def test_not_an_export_folder(tmp_path, capsys):
+    table = tmp_path / "t.csv"
+    table.write_text("a,b\n1,2\n3,4\n")
+    assert main(["predict", str(tmp_path), str(table)]) == 2
+    assert "manifest.json" in capsys.readouterr().err
