@@ -329,6 +329,7 @@ def ranked_rows(store_path: str | None, sweep_id: str) -> dict:
             "key": f"{sweep_id}:{c['index']}",
             "index": c["index"],
             "rank": c["rank"] if ranked and c.get("mean") is not None else None,
+            "position": c["rank"],
             "hidden": c["hidden"], "head": c["head"],
             "layers": ",".join(str(s) for s in c["layers"]),
             "learning_rate": c["learning_rate"], "alpha": c["alpha"],
@@ -362,27 +363,26 @@ __all__ = ["InputError", "LoadedTable", "TargetSummary", "load", "summarise_targ
 
 
 def export_formats() -> list[tuple[str, str, str, bool]]:
-    """``(name, label, tooltip, checked by default)`` for each format of the export registry."""
-    try:
-        from workbench import export as ex
-    except ImportError:
-        return []
-    reg = getattr(ex, "FORMATS", None) or getattr(ex, "REGISTRY", None) or {}
+    """``(key, label, tooltip, checked by default)`` for each format of the export registry."""
+    from workbench.export import FORMATS
+
     out = []
-    for name, fmt in reg.items():
-        label = getattr(fmt, "label", None) or name
-        tip = getattr(fmt, "description", None) or getattr(fmt, "help", "") or ""
-        out.append((name, str(label), str(tip), bool(getattr(fmt, "default", True))))
+    for f in FORMATS.values():
+        tip = f"{f.description}\nFiles: {', '.join(f.files)}"
+        out.append((f.key, f.label, tip, True))
     return out
 
 
 def export(store_path: str | None, sweep_id: str, row: dict, folder: str,
-           formats: list[str]) -> str:
+           formats: list[str], on_progress=None) -> str:
     """Export one configuration of a stored sweep; returns the folder written."""
     from workbench.export import export_configuration
 
     if not formats:
         raise InputError("tick at least one export format")
-    out = export_configuration(_store(store_path), sweep_id, rank=row.get("rank"),
-                               folder=folder, formats=list(formats))
-    return str(getattr(out, "folder", out))
+    if not str(folder).strip():
+        raise InputError("choose a folder to export to")
+    rank = row.get("position") or row.get("rank") or "best"
+    out = export_configuration(_store(store_path), sweep_id, rank, folder, list(formats),
+                               on_progress=on_progress)
+    return str(out)

@@ -99,6 +99,8 @@ class MainWindow(QMainWindow):
     #: an export finished (its folder) or failed (message)
     exportDone = Signal(str)
     exportFailed = Signal(str)
+    #: progress of an export (message, fraction); emitted from the export's thread
+    exportProgress = Signal(str, float)
 
     def __init__(self, settings: Settings | None = None, store_path: str | None = None,
                  theme_choice: str | None = None):
@@ -132,6 +134,10 @@ class MainWindow(QMainWindow):
         self._update_actions()
         self._update_estimate()
         self._measure_speed()
+        self.exportProgress.connect(self._export_progress)
+
+    def _export_progress(self, message: str, fraction: float) -> None:
+        self.status.showMessage(f"Exporting: {message} ({100 * fraction:.0f} %)")
 
     def _measure_speed(self) -> None:
         """Read this machine's training speed from earlier trials (background)."""
@@ -791,7 +797,9 @@ class MainWindow(QMainWindow):
             self.show_message(msg)
             self.exportFailed.emit(msg)
 
-        run_task(lambda: core.export(store, sweep_id, row, folder, formats), done, failed)
+        progress = self.exportProgress.emit
+        run_task(lambda: core.export(store, sweep_id, row, folder, formats, progress),
+                 done, failed)
 
     def show_history(self) -> None:
         from workbench.gui.dialogs import HistoryDialog

@@ -80,6 +80,10 @@ class ResultsModel(QAbstractTableModel):
         self._index: dict[str, int] = {}
         self._order = np.zeros(0, dtype=np.int64)  # view row -> storage row
         self._keys: dict[str, np.ndarray] = {}
+        self._order_list: list[int] = []
+        self._disp: list[tuple | None] = []
+        self._bold = QFont()
+        self._bold.setBold(True)
         self._sort: tuple[int, Qt.SortOrder] | None = None
         self.tie_color = QColor("#e7eff7")
         self.muted_color = QColor("#5d646c")
@@ -101,36 +105,45 @@ class ResultsModel(QAbstractTableModel):
         return None
 
     def row_at(self, view_row: int) -> dict:
-        return self._rows[int(self._order[view_row])]
+        return self._rows[self._order_list[view_row]]
+
+    def _set_order(self, order: np.ndarray) -> None:
+        self._order = order
+        self._order_list = order.tolist()
+
+    _ROLES = frozenset({Qt.DisplayRole, SORT_ROLE, ROW_ROLE, KEY_ROLE, Qt.BackgroundRole,
+                        Qt.ForegroundRole, Qt.TextAlignmentRole, Qt.FontRole, Qt.ToolTipRole})
+    _RIGHT = int(Qt.AlignRight | Qt.AlignVCenter)
+    _LEFT = int(Qt.AlignLeft | Qt.AlignVCenter)
 
     def data(self, index, role=Qt.DisplayRole):
-        if not index.isValid():
+        if role not in self._ROLES or not index.isValid():
             return None
-        row = self._rows[int(self._order[index.row()])]
-        key = COLUMN_KEYS[index.column()]
+        i = self._order_list[index.row()]
+        col = index.column()
         if role == Qt.DisplayRole:
-            return self._display(row, key)
+            disp = self._disp[i]
+            if disp is None:
+                row = self._rows[i]
+                disp = self._disp[i] = tuple(self._display(row, k) for k in COLUMN_KEYS)
+            return disp[col]
+        row = self._rows[i]
+        key = COLUMN_KEYS[col]
+        if role == Qt.TextAlignmentRole:
+            return self._RIGHT if key in NUMERIC else self._LEFT
+        if role == Qt.BackgroundRole:
+            return self.tie_color if row.get("tied_with_best") else None
+        if role == Qt.ForegroundRole:
+            return self.muted_color if row.get("status") not in ("done", None) else None
+        if role == Qt.FontRole:
+            return self._bold if key == "mean" and row.get("rank") == 1 else None
         if role == SORT_ROLE:
             return self._sort_value(row, key)
         if role == ROW_ROLE:
             return row
         if role == KEY_ROLE:
             return row["key"]
-        if role == Qt.BackgroundRole and row.get("tied_with_best"):
-            return self.tie_color
-        if role == Qt.ForegroundRole and row.get("status") not in ("done", None):
-            return self.muted_color
-        if role == Qt.TextAlignmentRole:
-            if key in NUMERIC:
-                return int(Qt.AlignRight | Qt.AlignVCenter)
-            return int(Qt.AlignLeft | Qt.AlignVCenter)
-        if role == Qt.FontRole and key == "mean" and row.get("rank") == 1:
-            f = QFont()
-            f.setBold(True)
-            return f
-        if role == Qt.ToolTipRole:
-            return self._tooltip(row, key)
-        return None
+        return self._tooltip(row, key)
 
     @staticmethod
     def _display(row: dict, key: str) -> str:
@@ -183,7 +196,8 @@ class ResultsModel(QAbstractTableModel):
     def clear(self) -> None:
         self.beginResetModel()
         self._rows, self._index = [], {}
-        self._order = np.zeros(0, dtype=np.int64)
+        self._set_order(np.zeros(0, dtype=np.int64))
+        self._disp = []
         self._keys = {}
         self.endResetModel()
         self.rowsUpdated.emit()
@@ -192,7 +206,8 @@ class ResultsModel(QAbstractTableModel):
         self.beginResetModel()
         self._rows = [dict(r) for r in rows]
         self._index = {r["key"]: i for i, r in enumerate(self._rows)}
-        self._order = np.arange(len(self._rows), dtype=np.int64)
+        self._set_order(np.arange(len(self._rows), dtype=np.int64))
+        self._disp = [None] * len(self._rows)
         self._keys = {}
         self.endResetModel()
         if self._sort is not None:
@@ -209,6 +224,7 @@ class ResultsModel(QAbstractTableModel):
                 new.append(dict(r))
             elif self._rows[i] != r:
                 self._rows[i] = dict(r)
+                self._disp[i] = None
                 changed = True
         if changed:
             self._keys = {}
@@ -220,8 +236,9 @@ class ResultsModel(QAbstractTableModel):
             for r in new:
                 self._index[r["key"]] = len(self._rows)
                 self._rows.append(r)
-            self._order = np.concatenate(
-                [self._order, np.arange(start, len(self._rows), dtype=np.int64)])
+                self._disp.append(None)
+            self._set_order(np.concatenate(
+                [self._order, np.arange(start, len(self._rows), dtype=np.int64)]))
             self._keys = {}
             self.endInsertRows()
         if (changed or new) and self._sort is not None:
@@ -231,10 +248,10 @@ class ResultsModel(QAbstractTableModel):
 
     def rows(self) -> list[dict]:
         """Rows in the current (sorted) order."""
-        return [self._rows[int(i)] for i in self._order]
+        return [self._rows[i] for i in self._order_list]
 
     def key_at(self, view_row: int) -> str:
-        return self._rows[int(self._order[view_row])]["key"]
+        return self._rows[self._order_list[view_row]]["key"]
 
     def view_row_of(self, key: str) -> int:
         i = self._index.get(key)
@@ -278,8 +295,8 @@ class ResultsModel(QAbstractTableModel):
         idx = idx.astype(np.int64)
         self.layoutAboutToBeChanged.emit()
         old = self.persistentIndexList()
-        stored = [int(self._order[p.row()]) for p in old]
-        self._order = idx
+        stored = [self._order_list[p.row()] for p in old]
+        self._set_order(idx)
         inverse = np.empty(n, dtype=np.int64)
         inverse[idx] = np.arange(n)
         self.changePersistentIndexList(

@@ -52,12 +52,19 @@ class _Runnable(QRunnable):
         try:
             result = self.fn()
         except InputError as exc:
-            self.handle.failed.emit(str(exc))
+            self._send(self.handle.failed, str(exc))
         except Exception as exc:  # shown as one line in the window
             last = traceback.format_exception_only(type(exc), exc)[-1].strip()
-            self.handle.failed.emit(f"unexpected problem: {last}")
+            self._send(self.handle.failed, f"unexpected problem: {last}")
         else:
-            self.handle.succeeded.emit(result)
+            self._send(self.handle.succeeded, result)
+
+    @staticmethod
+    def _send(signal, value):
+        try:
+            signal.emit(value)
+        except RuntimeError:  # the receiver went away (window closed): nobody to tell
+            pass
 
 
 def run_task(fn: Callable, on_done: Callable, on_error: Callable | None = None) -> TaskHandle:

@@ -1,0 +1,258 @@
+"""The window, driven offscreen with pytest-qt: drop, choose, run, sort, select, export, stop.
+
+Waiting is done with ``qtbot.waitSignal`` / ``qtbot.waitUntil`` only. The
+reference for every loader message is :func:`workbench.intake.load_table`
+itself (the window must show exactly what the loader says); the reference for
+sorting is Python's ``sorted``.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import psutil
+import pytest
+from PySide6.QtCore import QMimeData, QPoint, QPointF, Qt, QUrl
+from PySide6.QtGui import QDragEnterEvent, QDropEvent
+from PySide6.QtWidgets import QApplication
+
+from workbench.errors import InputError
+from workbench.gui import core_adapter as core
+from workbench.gui.main_window import MainWindow
+from workbench.gui.models import COLUMN_KEYS
+from workbench.gui.settings import Settings
+from workbench.intake import load_table
+
+pytestmark = [
+    pytest.mark.gui,
+    # PySide6 6.12 flags the QPoint constructor of QDragEnterEvent, the only one it offers
+    pytest.mark.filterwarnings("ignore:Function.*QDragEnterEvent:DeprecationWarning"),
+]
+
+SAMPLES = Path(__file__).resolve().parents[1] / "sample_sets"
+
+
+@pytest.fixture
+def window(qtbot, tmp_path):
+    win = MainWindow(settings=Settings(tmp_path / "settings"),
+                     store_path=str(tmp_path / "store.sqlite"), theme_choice="light")
+    qtbot.addWidget(win)
+    win.resize(1280, 800)
+    win.show()
+    yield win
+    if win.sweep_running():
+        win.stop_sweep()
+        win._sweep.wait(10_000)
+
+
+def drop_file(win: MainWindow, path: Path) -> bool:
+    """Send a real drag-enter and drop of a file URL to the window; True if the enter was accepted."""
+    mime = QMimeData()
+    mime.setUrls([QUrl.fromLocalFile(str(path))])
+    centre = QPoint(win.width() // 2, win.height() // 2)
+    enter = QDragEnterEvent(centre, Qt.CopyAction, mime, Qt.LeftButton, Qt.NoModifier)
+    QApplication.sendEvent(win, enter)
+    accepted = enter.isAccepted()
+    drop = QDropEvent(QPointF(centre), Qt.CopyAction, mime, Qt.LeftButton, Qt.NoModifier)
+    QApplication.sendEvent(win, drop)
+    return accepted
+
+
+def load_by_drop(qtbot, win, path, timeout=20_000):
+    with qtbot.waitSignal(win.targetReady, timeout=timeout):
+        assert drop_file(win, path)
+
+
+def small_plan(win, hidden=("relu", "tanh"), epochs=4, folds=2, repeats=1, layers="6"):
+    s = win.setup
+    s.hidden_grid.set_checked(hidden)
+    s.layers_edit.setText(layers)
+    s.folds_spin.setValue(folds)
+    s.repeats_spin.setValue(repeats)
+    s.epochs_spin.setValue(epochs)
+    s.jobs_spin.setValue(2)
+
+
+def worker_processes() -> list[psutil.Process]:
+    """Live child processes that run trials (loky's resource tracker is not a worker)."""
+    out = []
+    for p in psutil.Process().children(recursive=True):
+        try:
+            if p.status() == psutil.STATUS_ZOMBIE:
+                continue
+            cmd = " ".join(p.cmdline())
+        except psutil.Error:
+            continue
+        if "resource_tracker" in cmd:
+            continue
+        out.append(p)
+    return out
+
+
+# --------------------------------------------------------------------------- the whole job
+
+
+def test_drop_run_sort_select_export(qtbot, window, tmp_path):
+    win = window
+    load_by_drop(qtbot, win, SAMPLES / "kiln_batches.csv")
+    assert win.table is not None and win.table.name == "kiln_batches.csv"
+    assert win.frame_model.rowCount() > 0
+    # the target: pick it explicitly, see its kind and the advised head
+    with qtbot.waitSignal(win.targetReady, timeout=10_000):
+        win.set_target("passes_inspection")
+    assert win.summary.target.kind == "binary"
+    assert "logistic" in win.setup.advice_label.text()
+    assert "common practice" in win.setup.advice_label.text()
+    # every activation check box explains itself (formula and range)
+    for name, box in win.setup.hidden_grid.boxes.items():
+        assert "range" in box.toolTip() and "f(z)" in box.toolTip(), name
+
+    # two hidden activations and one head
+    small_plan(win, hidden=("relu", "tanh"))
+    win.setup.head_grid.set_checked(["logistic"])
+    assert sorted(win.setup.hidden_grid.checked()) == ["relu", "tanh"]
+    assert win.setup.head_grid.checked() == ["logistic"]
+    assert "2 configurations" in win.setup.estimate_label.text()
+    assert "4 trials" in win.setup.estimate_label.text()
+
+    with qtbot.waitSignal(win.sweepEnded, timeout=60_000) as blocker:
+        win.run_sweep()
+        assert win.sweep_running()
+    assert blocker.args[0]["state"] == "finished", blocker.args[0]
+    qtbot.waitUntil(lambda: win.results_model.rowCount() == 2, timeout=5_000)
+    rows = win.results_model.rows()
+    assert {r["hidden"] for r in rows} == {"relu", "tanh"}
+    assert all(r["n_done"] == 2 and r["status"] == "done" for r in rows)
+
+    # sort by score, both ways, through the view (header click path)
+    col = COLUMN_KEYS.index("mean")
+    win.results_view.sortByColumn(col, Qt.DescendingOrder)
+    means = [win.proxy.row_at(i)["mean"] for i in range(win.proxy.rowCount())]
+    assert means == sorted(means, reverse=True)
+    win.results_view.sortByColumn(col, Qt.AscendingOrder)
+    means = [win.proxy.row_at(i)["mean"] for i in range(win.proxy.rowCount())]
+    assert means == sorted(means)
+
+    # select both rows: two learning curves, two fold-score sets, health bars
+    win.select_rows([0, 1])
+    assert len(win.selected_rows()) == 2
+    curves = win.curves.curve_items()
+    assert len(curves) == 2
+    for c in curves:
+        x, y = c.getData()
+        assert len(x) >= 1 and all(math.isfinite(v) for v in y)
+    assert len(win.spread.scatter_items()) == 2
+    assert win.health.bar_items()
+
+    # export the best configuration
+    win.select_rows([])
+    best = win.export_target_row()
+    assert best["rank"] == 1
+    out = tmp_path / "export"
+    from workbench.export import FORMATS
+
+    formats = [key for key, *_ in core.export_formats()]
+    assert formats == list(FORMATS)  # the dialog lists the registry
+    failures, written = [], []
+    win.exportFailed.connect(failures.append)
+    win.exportDone.connect(written.append)
+    win.export_configuration(best, str(out), formats)
+    qtbot.waitUntil(lambda: bool(failures or written), timeout=120_000)
+    assert not failures, failures
+    folder = Path(written[0])
+    assert folder == out.absolute() and folder.is_dir()
+    for fmt in FORMATS.values():
+        for name in fmt.files:
+            assert (folder / name).is_file() and (folder / name).stat().st_size > 0, name
+
+
+# --------------------------------------------------------------------------- bad input
+
+
+def _bad_files(tmp_path: Path) -> dict[str, Path]:
+    d = tmp_path / "bad"
+    d.mkdir()
+    files = {
+        "empty": d / "empty.csv",
+        "binary": d / "binary.csv",
+        "extension": d / "table.docx",
+        "ragged": d / "ragged.csv",
+        "header_only": d / "header.csv",
+    }
+    files["empty"].write_bytes(b"")
+    files["binary"].write_bytes(bytes(range(256)) * 8)
+    files["extension"].write_text("a,b\n1,2\n3,4\n")
+    files["ragged"].write_text("a,b,c\n1,2,3\n4,5\n6,7,8,9\n10,11,12\n")
+    files["header_only"].write_text("a,b,c\n")
+    return files
+
+
+def test_bad_files_show_the_loader_message_and_keep_the_table(qtbot, window, tmp_path):
+    win = window
+    load_by_drop(qtbot, win, SAMPLES / "coffee_roast.csv")
+    rows_before = win.frame_model.rowCount()
+    path_before = win.table.path
+    for case, path in _bad_files(tmp_path).items():
+        with pytest.raises(InputError) as ref:
+            load_table(path)
+        with qtbot.waitSignal(win.loadFailed, timeout=10_000) as blocker:
+            drop_file(win, path)
+        assert blocker.args[0] == str(ref.value), case
+        assert win.message_text() == str(ref.value), case
+        assert "\n" not in win.message_text()
+        assert win.table.path == path_before, case
+        assert win.frame_model.rowCount() == rows_before, case
+    # and the window still works: a good file loads again and clears the message
+    load_by_drop(qtbot, win, SAMPLES / "orchard_water.csv")
+    assert win.message_text() == ""
+    assert win.table.name == "orchard_water.csv"
+
+
+def test_a_drag_without_files_is_refused(window):
+    mime = QMimeData()
+    mime.setText("not a file")
+    ev = QDragEnterEvent(QPoint(10, 10), Qt.CopyAction, mime, Qt.LeftButton, Qt.NoModifier)
+    QApplication.sendEvent(window, ev)
+    assert not ev.isAccepted()
+
+
+def test_refused_heads_are_disabled_with_the_reason(qtbot, window):
+    # a signed target: heads that cannot go below zero are refused by the guard
+    load_by_drop(qtbot, window, SAMPLES / "greenhouse_temp.csv")
+    from workbench.profiling import check_head
+
+    info = window.summary.target
+    assert info.kind == "signed"
+    for name, box in window.setup.head_grid.boxes.items():
+        verdict = check_head(info, name)
+        assert box.isEnabled() == verdict.allowed, name
+        if not verdict.allowed:
+            assert verdict.reason in box.toolTip()
+            assert not box.isChecked()
+
+
+# --------------------------------------------------------------------------- stop
+
+
+def test_stop_keeps_finished_rows_and_leaves_no_worker(qtbot, window):
+    win = window
+    load_by_drop(qtbot, win, SAMPLES / "kiln_batches.csv")
+    # enough trials that the sweep is still running after the first ones finish
+    small_plan(win, hidden=("relu", "tanh", "gelu"), epochs=30, folds=3, repeats=3)
+    finished = []
+    win._progress_hook = finished
+    with qtbot.waitSignal(win.sweepEnded, timeout=120_000) as blocker:
+        win.run_sweep()
+        win._sweep.bridge.trialFinished.connect(lambda ev: finished.append(ev))
+        qtbot.waitUntil(lambda: len(finished) >= 2, timeout=60_000)
+        assert win.sweep_running()
+        win.stop_sweep()
+        # the run must end within 2 seconds of Stop
+        qtbot.waitUntil(lambda: not win.sweep_running(), timeout=2_000)
+    assert blocker.args[0]["state"] == "cancelled"
+    qtbot.waitUntil(lambda: win.results_model.rowCount() > 0, timeout=5_000)
+    done = sum(r["n_done"] for r in win.results_model.rows())
+    assert done >= 2
+    assert done < 27
+    qtbot.waitUntil(lambda: not worker_processes(), timeout=5_000)

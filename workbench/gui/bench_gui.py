@@ -1,0 +1,231 @@
+"""Window speed: sorting 10,000 results rows, and the event loop's longest stall in a sweep.
+
+Called by ``workbench bench --gui`` through :func:`run`. Two figures:
+
+1. Sorting: a :class:`~workbench.gui.models.ResultsModel` of 10,000 rows behind
+   the :class:`~workbench.gui.models.ResultsProxy` in a shown table view;
+   ``sortByColumn`` on several columns in both orders, including the repaint
+   that follows. Goal: under 100 ms. For scale, the same rows through Qt's
+   generic proxy sort (``QSortFilterProxyModel`` with a sort role, which asks
+   Python for every comparison) are timed too and reported as a ratio.
+2. Responsiveness: the real window runs a small sweep on a sample set while a
+   10 ms ``QTimer`` heartbeat records the gaps between its ticks. The longest
+   gap minus the interval is the longest stall of the event loop. Goal: at most
+   50 ms.
+"""
+
+from __future__ import annotations
+
+import os
+import statistics
+import tempfile
+import time
+from pathlib import Path
+
+HEARTBEAT_MS = 10
+
+
+def _rows(n: int, seed: int = 0) -> list[dict]:
+    import numpy as np
+
+    from workbench.activations import HIDDEN
+
+    rng = np.random.default_rng(seed)
+    hidden = list(HIDDEN)
+    heads = ["identity", "relu", "softplus", "exp", "logistic"]
+    out = []
+    for i in range(n):
+        m = float(rng.normal(0.7, 0.1))
+        out.append({
+            "key": f"bench:{i}", "index": i, "rank": i + 1,
+            "hidden": hidden[i % len(hidden)], "head": heads[(i // 7) % len(heads)],
+            "layers": ("32", "64", "64,32")[i % 3], "learning_rate": float(10 ** rng.uniform(-4, -1)),
+            "alpha": float(10 ** rng.uniform(-6, -2)), "mean": m, "sd": float(abs(rng.normal(0.02, 0.01))),
+            "p_value": float(rng.uniform()), "tied_with_best": bool(rng.uniform() < 0.1),
+            "fit_seconds": float(rng.uniform(0.1, 5)), "dead_pct": float(rng.uniform(0, 100)),
+            "saturated_pct": float(rng.uniform(0, 100)), "engine": ("numpy", "sklearn")[i % 2],
+            "status": "done", "n_done": 10, "n_total": 10, "message": "", "series": {},
+        })
+    return out
+
+
+def _time(fn, repeats: int) -> list[float]:
+    out = []
+    for _ in range(repeats):
+        t = time.perf_counter()
+        fn()
+        out.append(time.perf_counter() - t)
+    return out
+
+
+def bench_sort(n: int = 10_000, generic_n: int = 10_000, repeats: int = 3) -> dict:
+    from PySide6.QtCore import QSortFilterProxyModel, Qt
+    from PySide6.QtWidgets import QApplication, QTableView
+
+    from workbench.gui.models import COLUMN_KEYS, SORT_ROLE, ResultsModel, ResultsProxy
+
+    app = QApplication.instance() or QApplication([])
+    rows = _rows(n)
+    model = ResultsModel()
+    model.set_rows(rows)
+    proxy = ResultsProxy()
+    proxy.setSourceModel(model)
+    view = QTableView()
+    view.setModel(proxy)
+    view.setSortingEnabled(True)
+    view.resize(1000, 600)
+    view.show()
+    app.processEvents()
+    times = []
+    for key in ("mean", "hidden", "fit_seconds", "dead_pct"):
+        col = COLUMN_KEYS.index(key)
+        for order in (Qt.AscendingOrder, Qt.DescendingOrder):
+            def once(col=col, order=order):
+                view.sortByColumn(col, order)
+                app.processEvents()
+            model._keys = {}  # time the cold path: key column rebuilt from the rows
+            times += _time(once, repeats)
+    view.close()
+
+    # Qt's generic proxy sort over the same rows, for scale
+    generic_model = ResultsModel()
+    generic_model.set_rows(rows[:generic_n])
+    generic = QSortFilterProxyModel()
+    generic.setSortRole(SORT_ROLE)
+    generic.setSourceModel(generic_model)
+    col = COLUMN_KEYS.index("mean")
+    gen_times = _time(lambda: (generic.sort(col, Qt.AscendingOrder),
+                               generic.sort(col, Qt.DescendingOrder)), 1)
+    return {"rows": n, "median_s": statistics.median(times), "max_s": max(times),
+            "generic_rows": generic_n, "generic_s": gen_times[0] / 2}
+
+
+def _sample_table(folder: Path) -> Path:
+    here = Path(__file__).resolve().parents[2] / "sample_sets" / "kiln_batches.csv"
+    if here.is_file():
+        return here
+    import numpy as np
+
+    rng = np.random.default_rng(0)
+    p = folder / "bench_table.csv"
+    x = rng.normal(size=(600, 4))
+    y = (x[:, 0] + 0.5 * x[:, 1] + rng.normal(scale=0.5, size=600) > 0).astype(int)
+    lines = ["a,b,c,d,label"] + [",".join(f"{v:.4f}" for v in r) + f",{'yes' if t else 'no'}"
+                                 for r, t in zip(x, y)]
+    p.write_text("\n".join(lines) + "\n")
+    return p
+
+
+def bench_stall(quick: bool = False, timeout_s: float = 300.0) -> dict:
+    """Run a small sweep in the window and record the event loop's heartbeat gaps."""
+    from PySide6.QtCore import QElapsedTimer, QEventLoop, QTimer
+    from PySide6.QtWidgets import QApplication
+
+    from workbench.gui.main_window import MainWindow
+    from workbench.gui.settings import Settings
+
+    app = QApplication.instance() or QApplication([])
+    tmp = Path(tempfile.mkdtemp(prefix="wb-bench-gui-"))
+    win = MainWindow(settings=Settings(tmp / "settings"), store_path=str(tmp / "store.sqlite"))
+    win.resize(1280, 800)
+    win.show()
+    loop = QEventLoop()
+    state: dict = {"result": None}
+
+    def wait_for(signal, ms):
+        timer = QTimer()
+        timer.setSingleShot(True)
+        timer.timeout.connect(loop.quit)
+
+        def got(*a):
+            state["result"] = a
+            loop.quit()
+
+        signal.connect(got)
+        timer.start(int(ms))
+        loop.exec()
+        signal.disconnect(got)
+        return state["result"]
+
+    win.open_path(str(_sample_table(tmp)))
+    if wait_for(win.targetReady, 30_000) is None:
+        raise RuntimeError("the sample table did not load in time")
+    s = win.setup
+    s.hidden_grid.set_checked(["relu", "tanh"] if quick else ["relu", "tanh", "gelu", "silu"])
+    s.layers_edit.setText("16")
+    s.folds_spin.setValue(3)
+    s.repeats_spin.setValue(1 if quick else 2)
+    s.epochs_spin.setValue(20 if quick else 60)
+    s.jobs_spin.setValue(min(2, os.cpu_count() or 1))
+
+    gaps: list[float] = []
+    clock = QElapsedTimer()
+    beat = QTimer()
+    beat.setInterval(HEARTBEAT_MS)
+
+    def tick():
+        gaps.append(clock.restart() / 1000.0)
+
+    beat.timeout.connect(tick)
+    clock.start()
+    beat.start()
+    t0 = time.perf_counter()
+    win.run_sweep()
+    summary = wait_for(win.sweepEnded, timeout_s * 1000)
+    seconds = time.perf_counter() - t0
+    beat.stop()
+    win.close()
+    app.processEvents()
+    trials = win.results_model.rows()
+    n_trials = sum(r.get("n_done", 0) for r in trials)
+    gaps = gaps[1:]  # the first gap includes set-up
+    worst = max(gaps) if gaps else float("nan")
+    return {"stall_s": max(0.0, worst - HEARTBEAT_MS / 1000.0), "median_gap_s":
+            statistics.median(gaps) if gaps else float("nan"), "ticks": len(gaps),
+            "trials": n_trials, "seconds": seconds,
+            "state": (summary[0] if summary else {}).get("state", "timeout")}
+
+
+def run(quick: bool = False) -> dict:
+    """The window's figures for ``workbench bench --gui``.
+
+    Returns
+    -------
+    dict
+        ``{"title", "lines", "figures"}``; times in seconds, ratios plain.
+    """
+    os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+    sort = bench_sort(n=10_000, generic_n=2_000 if quick else 10_000, repeats=2 if quick else 3)
+    stall = bench_stall(quick=quick)
+    ratio = sort["generic_s"] / sort["median_s"] if sort["median_s"] > 0 else float("nan")
+    lines = [
+        f"sort {sort['rows']:,} rows through the proxy: median {sort['median_s'] * 1e3:.1f} ms, "
+        f"worst {sort['max_s'] * 1e3:.1f} ms (goal < 100 ms)",
+        f"  Qt's generic proxy sort of {sort['generic_rows']:,} rows: "
+        f"{sort['generic_s'] * 1e3:.0f} ms ({ratio:.0f}x our median)",
+        f"longest event-loop stall during a sweep of {stall['trials']} trials "
+        f"({stall['seconds']:.1f} s, {stall['ticks']} heartbeats of {HEARTBEAT_MS} ms): "
+        f"{stall['stall_s'] * 1e3:.1f} ms (goal <= 50 ms); median gap "
+        f"{stall['median_gap_s'] * 1e3:.1f} ms",
+    ]
+    figures = {
+        "sort_rows": sort["rows"],
+        "sort_median_s": sort["median_s"],
+        "sort_max_s": sort["max_s"],
+        "generic_sort_rows": sort["generic_rows"],
+        "generic_sort_s": sort["generic_s"],
+        "generic_over_ours": ratio,
+        "stall_max_s": stall["stall_s"],
+        "heartbeat_median_gap_s": stall["median_gap_s"],
+        "sweep_trials": stall["trials"],
+        "sweep_seconds": stall["seconds"],
+        "sweep_state": stall["state"],
+    }
+    return {"title": "Window (PySide6 + pyqtgraph)", "lines": lines, "figures": figures}
+
+
+if __name__ == "__main__":  # pragma: no cover
+    res = run(quick=True)
+    print(res["title"])
+    for line in res["lines"]:
+        print(" ", line)
