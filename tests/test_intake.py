@@ -359,3 +359,46 @@ def test_random_well_formed_csv_gives_a_table_or_an_input_error(tmp_path, n_cols
         assert df.shape[0] <= len(rows) and df.shape[1] <= n_cols
         if n_cols > 1 and len(rows) >= 2 and df.shape[1] == n_cols:
             assert rep.delimiter == delim
+
+
+# --------------------------------------------------------------------------- workbench inspect
+
+
+def test_inspect_xlsx_sheet_and_bad_target(tmp_path, capsys):
+    import json
+
+    path = tmp_path / "book.xlsx"
+    rng = np.random.default_rng(0)
+    other = pd.DataFrame({"a": rng.normal(size=30), "share": rng.uniform(0, 1, 30)})
+    with pd.ExcelWriter(path) as w:
+        _frame(30).to_excel(w, sheet_name="first", index=False)
+        other.to_excel(w, sheet_name="second", index=False)
+    assert main(["inspect", str(path), "--sheet", "second", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["load"]["sheet"] == "second" and d["rows"] == 30
+    assert d["target"]["name"] == "share" and d["target"]["kind"] == "bounded"
+    assert d["target"]["interval"] == [0.0, 1.0]
+    assert main(["inspect", str(path), "--target", "nope"]) == EXIT_BAD_INPUT
+    err = capsys.readouterr().err
+    assert "no column named 'nope'; the columns are: x, k, colour, y" in err
+    assert main(["inspect", str(path), "--sheet", "third"]) == EXIT_BAD_INPUT
+    assert "its sheets are: first, second" in capsys.readouterr().err
+
+
+def test_inspect_text_report_and_a_table_without_target(tmp_path, capsys):
+    path = tmp_path / "semi.csv"
+    _frame(40).to_csv(path, sep=";", decimal=",", index=False)
+    assert main(["inspect", str(path), "--target", "y"]) == 0
+    out = capsys.readouterr().out
+    assert "semicolon-separated" in out and "decimal comma" in out
+    assert "Target 'y' (given): signed (regression)" in out
+    assert "output head identity with squared_error loss" in out
+    ids = tmp_path / "ids.csv"
+    ids.write_text("code,note\n" + "".join(f"c{i},free text number {i} here and there\n"
+                                          for i in range(30)))
+    assert main(["inspect", str(ids), "--json"]) == 0
+    import json
+
+    d = json.loads(capsys.readouterr().out)
+    assert d["target"] is None and d["advice"] is None and "--target" in d["note"]
+    assert [c["role"] for c in d["columns"]] == ["ignore", "ignore"]

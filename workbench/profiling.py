@@ -76,13 +76,14 @@ MOSTLY_MISSING = 0.6
 #: common practice: text columns with more distinct values are not one-hot encoded
 MAX_CATEGORIES = 50
 #: integer codes 0..k-1 (or 1..k) with at most this many values are read as classes
+#: (common practice, like the other thresholds here)
 MAX_CODE_CLASSES = 10
 #: ... and only when every code holds at least this share of the rows (counts thin out
 #: in their tail; class labels rarely do), common practice
 MIN_CODE_SHARE = 0.05
-#: a classification target with more classes than this is refused
+#: a classification target with more classes than this is refused (common practice)
 MAX_CLASSES = 100
-#: free text: mean length of a value at least this, with spaces
+#: free text: mean length of a value at least this, with spaces (common practice)
 TEXT_MIN_LENGTH = 20
 
 HIDDEN_DEFAULT = "relu"
@@ -234,7 +235,7 @@ def profile_column(s: pd.Series) -> ColumnProfile:
             f"{share:.0%} of values missing (more than {MOSTLY_MISSING:.0%}, common practice)"
     elif distinct == 1:
         typ, role, reason = "constant", "ignore", f"one value only ({vals.iloc[0]!s})"
-    elif _looks_like_id(name, base, vals, n, missing):
+    elif _looks_like_id(name, base, vals, n, missing, distinct):
         typ, role, reason = "id", "ignore", "unique per row, like an identifier"
     elif base == "text":
         role, reason = "ignore", "free text (not encoded as a feature)"
@@ -248,10 +249,11 @@ def profile_column(s: pd.Series) -> ColumnProfile:
                          min=lo, max=hi, mean=mean, top=top, target_candidate=candidate)
 
 
-def _looks_like_id(name: str, base: str, vals: pd.Series, n: int, missing: int) -> bool:
+def _looks_like_id(name: str, base: str, vals: pd.Series, n: int, missing: int,
+                   distinct: int) -> bool:
     if missing or n < 3 or base not in ("integer", "categorical", "text"):
         return False
-    if vals.nunique() != n:
+    if distinct != n:
         return False
     if base == "integer":
         v = vals.to_numpy(dtype=np.float64)
