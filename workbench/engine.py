@@ -83,8 +83,8 @@ class _Interval:
     def describe(self):
         lo = "-inf" if self.low is None else self.low
         hi = "inf" if self.high is None else self.high
-        lb = "[" if self.closed in ("both", "left") else "("
-        rb = "]" if self.closed in ("both", "right") else ")"
+        lb = "[" if self.closed in ("both", "left") and self.low is not None else "("
+        rb = "]" if self.closed in ("both", "right") and self.high is not None else ")"
         kind = "an integer" if self.kind is numbers.Integral else "a number"
         return f"{kind} in {lb}{lo}, {hi}{rb}"
 
@@ -488,9 +488,13 @@ class _BaseNet(BaseEstimator):
         first_pass = not hasattr(self, "coefs_") or not self.warm_start
         X, y = validate_data(self, X, y, multi_output=True, y_numeric=self._task == "regression",
                              dtype=(np.float64, np.float32), reset=first_pass)
-        X = np.ascontiguousarray(X, dtype=dtype)
-        y = self._prepare_y(y, first_pass)
-        y = np.asarray(y, dtype=dtype)
+        with np.errstate(over="ignore"):
+            X = np.ascontiguousarray(X, dtype=dtype)
+            y = self._prepare_y(y, first_pass)
+            y = np.asarray(y, dtype=dtype)
+        if not (np.isfinite(X).all() and np.isfinite(y).all()):
+            raise ValueError(f"X or y has values too large for dtype={self.dtype!r}; rescale the "
+                             "data (or use dtype='float64')")
         if y.ndim == 1:
             y = y.reshape(-1, 1)
         head = self._resolve_head(y)
@@ -515,7 +519,6 @@ class _BaseNet(BaseEstimator):
                 self.best_loss_ = np.inf
                 self.validation_scores_ = None
                 self.best_validation_score_ = None
-            self.diverged_ = False
         else:
             if [c.shape for c in self.coefs_] != [w.shape for w in net.W]:
                 raise ValueError("warm_start needs the same layer shapes as the previous fit")
@@ -523,6 +526,7 @@ class _BaseNet(BaseEstimator):
                 w[...] = c
             for b, c in zip(net.b, self.intercepts_):
                 b[...] = c
+        self.diverged_ = False
         self._publish(net)
         self.n_outputs_ = y.shape[1]
         self.n_layers_ = len(units)
@@ -670,6 +674,12 @@ class _BaseNet(BaseEstimator):
                 self.diverged_ = True
                 self.loss_curve_.append(float(epoch_loss))
                 hist["loss"].append(float(epoch_loss))
+                if self.monitor_health:  # health of the parameters that are kept
+                    dead, sat, gn = net.health(probe_X, probe_y)
+                    hist["dead"].append(dead)
+                    hist["saturated"].append(sat)
+                    hist["grad_norm"].append(gn)
+                hist["seconds"].append(time.perf_counter() - t0)
                 warnings.warn(
                     f"training diverged at epoch {self.n_iter_} (non-finite loss); the "
                     "parameters of the last finite epoch are kept. Lower learning_rate_init.",
