@@ -402,3 +402,10 @@ def test_inspect_text_report_and_a_table_without_target(tmp_path, capsys):
     d = json.loads(capsys.readouterr().out)
     assert d["target"] is None and d["advice"] is None and "--target" in d["note"]
     assert [c["role"] for c in d["columns"]] == ["ignore", "ignore"]
+
+
+def test_infinite_numbers_are_read_as_missing_with_a_warning(tmp_path):
+    path = _write(tmp_path / "inf.csv", "a,b\n1.5,inf\n2.5,-inf\n3.5,4.0\n")
+    got, rep = load_table(path)
+    assert got["b"].isna().tolist() == [True, True, False]
+    assert any("2 infinite value(s)" in w for w in rep.warnings)

@@ -22,7 +22,8 @@ with no name and no values (a trailing delimiter) are dropped (and reported).
 ISO-like date / time text and date cells become ``datetime64`` columns
 (timezone-aware values are converted to UTC and made naive); boolean columns
 with gaps keep ``True`` / ``False`` / ``NaN`` in an object column; text cells
-are strings, missing cells are ``NaN``.
+are strings, missing cells are ``NaN``; infinite numbers are read as missing (with
+a warning in the report).
 
 LoadReport fields
 -----------------
@@ -599,6 +600,13 @@ def _normalise_column(s: pd.Series, report: LoadReport) -> pd.Series:
     dt = s.dtype
     if isinstance(dt, pd.DatetimeTZDtype):
         return s.dt.tz_convert("UTC").dt.tz_localize(None)
+    if pd.api.types.is_float_dtype(dt):
+        inf = np.isinf(s.to_numpy())
+        n_inf = int(inf.sum())
+        if n_inf:
+            report.warnings.append(f"column {s.name!r}: {n_inf} infinite value(s) read as missing")
+            return s.mask(inf)
+        return s
     if pd.api.types.is_numeric_dtype(dt) or pd.api.types.is_bool_dtype(dt) or \
             pd.api.types.is_datetime64_any_dtype(dt):
         return s
