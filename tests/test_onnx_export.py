@@ -240,8 +240,40 @@ def test_date_parts_graph_matches_pandas_calendar():
     parts = DateParts().fit(df)
     out = ox.run_onnx(ox.pipeline_to_onnx(parts, df), df)["variable"]
     ref = pd.DataFrame({"year": when.dt.year, "month": when.dt.month, "day": when.dt.day,
-                        "weekday": when.dt.weekday, "hour": when.dt.hour,
+                        "weekday": when.dt.day_of_week, "hour": when.dt.hour,
                         "minute": when.dt.minute, "dayofyear": when.dt.day_of_year})
     ref = ref[parts.parts_[0]].to_numpy(dtype=float)
     np.testing.assert_array_equal(out, ref.astype(np.float32))
     np.testing.assert_array_equal(out, parts.transform(df).astype(np.float32))
+
+
+@pytest.mark.parametrize(("task", "head"), [("regression", "identity"), ("regression", "exp"),
+                                            ("classification", "logistic"),
+                                            ("classification", "softmax")])
+def test_build_pipeline_with_sklearn_engine(task, head):
+    # the configurations a sweep trains with scikit-learn's own MLP (plan engine "sklearn")
+    from workbench.preprocessing import build_pipeline
+    from workbench.profiling import analyse_target, profile_table, split_xy
+
+    df, signal = _mixed_table(seed=5)
+    if task == "regression":
+        df["y"] = signal if head == "identity" else np.round(np.exp(signal / 1.5) * 5)
+        est = MLPRegressor(hidden_layer_sizes=(5,), activation="tanh", max_iter=30,
+                           random_state=0)
+    else:
+        q = [0.5] if head == "logistic" else [0.33, 0.66]
+        df["y"] = np.array(["lo", "mid", "hi"])[np.digitize(signal, np.quantile(signal, q))]
+        est = MLPClassifier(hidden_layer_sizes=(5,), activation="relu", max_iter=30,
+                            random_state=0)
+    prof, info = profile_table(df, target="y"), analyse_target(df, "y")
+    X, y = split_xy(df, info)
+    pipe = build_pipeline(prof, info, est, head)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        pipe.fit(X, y)
+    out = ox.run_onnx(ox.pipeline_to_onnx(pipe, X), X)
+    if task == "regression":
+        np.testing.assert_allclose(out["variable"].ravel(), pipe.predict(X), rtol=TOL, atol=TOL)
+    else:
+        np.testing.assert_allclose(out["probabilities"], pipe.predict_proba(X), atol=TOL)
+        np.testing.assert_array_equal(out["label"].ravel(), pipe.predict(X))

@@ -9,7 +9,9 @@ converters (a shape calculator plus a converter) for the steps it does not know:
   for every hidden activation of :data:`workbench.activations.HIDDEN` and every
   output head of :data:`workbench.activations.HEADS`;
 - the target scaler of :mod:`workbench.preprocessing` (predictions in user units);
-- the datetime-parts transformer of :mod:`workbench.preprocessing`.
+- the datetime-parts transformer of :mod:`workbench.preprocessing`;
+- scikit-learn's ``MLPRegressor`` too, because skl2onnx's own converter has no
+  exponential output (``loss="poisson"``); ``MLPClassifier`` keeps skl2onnx's.
 
 The network graph is the engine's forward pass written with standard ONNX
 operators (opset 17 or newer)::
@@ -324,6 +326,11 @@ def register_converters() -> None:
 
     register_network_estimator(NetRegressor, "regression")
     register_network_estimator(NetClassifier, "classification")
+    # skl2onnx's own MLPRegressor converter has no exponential output, which
+    # scikit-learn uses with loss="poisson"; the engine's converter covers both
+    from sklearn.neural_network import MLPRegressor
+
+    register_network_estimator(MLPRegressor, "regression")
     _register_preprocessing()
     _registered = True
 
