@@ -251,6 +251,8 @@ class MainWindow(QMainWindow):
         self.progress_label = QLabel("No sweep yet: load a table, tick what to sweep, then "
                                      "Run sweep (Ctrl+R).")
         self.progress_label.setObjectName("muted")
+        self.progress_label.setWordWrap(True)
+        self.progress_label.setMinimumWidth(120)
         sl.addWidget(self.progress, 2)
         sl.addWidget(self.progress_label, 3)
         rl.addWidget(strip)
@@ -307,6 +309,7 @@ class MainWindow(QMainWindow):
         bar.addWidget(self.tied_filter)
         self.results_note = QLabel("")
         self.results_note.setObjectName("muted")
+        self.results_note.setWordWrap(True)
         rv.addLayout(bar)
 
         self.results_model = ResultsModel(self)
@@ -691,6 +694,7 @@ class MainWindow(QMainWindow):
         self._sweep = None
         self._update_actions()
         self._measure_speed()
+        self._fit_columns()
         if self.results_view.selectionModel().selectedRows() == [] \
                 and self.proxy.rowCount() > 0:
             self.select_rows([0])
@@ -705,20 +709,32 @@ class MainWindow(QMainWindow):
         if not n:
             self.results_note.setText("")
             return
-        tied = sum(1 for r in self.results_model.rows() if r.get("tied_with_best"))
+        rows = self.results_model.rows()
+        tied = sum(1 for r in rows if r.get("tied_with_best"))
+        shared = []
+        for key, label in (("learning_rate", "learning rate"), ("alpha", "L2")):
+            vals = {r.get(key) for r in rows}
+            if len(vals) == 1 and None not in vals:
+                shared.append(f"{label} {next(iter(vals)):g}")
         note = (f"{n} configurations · metric {meta.get('metric', '?')} (greater is better) · "
-                f"◆ best and ◇ {max(0, tied - 1)} tied with it (Nadeau–Bengio corrected t-test, "
-                f"alpha = {meta.get('significance_level', 0.05)}, "
-                f"{meta.get('n_comparisons', 0)} comparisons, no multiplicity correction)")
+                f"◆ best, ◇ {max(0, tied - 1)} tied with it: not distinguishable at alpha = "
+                f"{meta.get('significance_level', 0.05)} (Nadeau–Bengio corrected t-test, "
+                f"{meta.get('n_comparisons', 0)} comparisons, uncorrected)"
+                + (f" · all with {', '.join(shared)}" if shared else ""))
         self.results_note.setText(note)
         self._selection_changed()
 
     def _fit_columns(self) -> None:
+        """Fit columns to their contents; hide learning rate / L2 when one value is shared."""
         view = self.results_view
+        rows = self.results_model.rows()
+        for key in ("learning_rate", "alpha"):
+            col = COLUMN_KEYS.index(key)
+            view.setColumnHidden(col, len({r.get(key) for r in rows}) <= 1)
         view.resizeColumnsToContents()
         hh = view.horizontalHeader()
         for i in range(self.results_model.columnCount()):
-            hh.resizeSection(i, min(max(hh.sectionSize(i) + 6, 44), 180))
+            hh.resizeSection(i, min(max(hh.sectionSize(i) + 8, 44), 180))
 
     def _refresh_filters(self, rows) -> None:
         for combo, key in ((self.head_filter, "head"), (self.hidden_filter, "hidden")):
@@ -822,6 +838,8 @@ class MainWindow(QMainWindow):
                 f"Sweep {sweep_id}: {payload['meta'].get('state', '')}, "
                 f"{payload['meta'].get('n_stored', 0)} of {payload['meta'].get('n_trials', 0)} "
                 "trials stored")
+            self._fit_columns()
+            self._update_actions()
             if self.proxy.rowCount():
                 self.select_rows([0])
 

@@ -127,12 +127,20 @@ class CurvesPanel(_Panel):
         if len(x) > 1:
             c_lo = pg.PlotDataItem(x, lo, pen=pg.mkPen(None))
             c_hi = pg.PlotDataItem(x, hi, pen=pg.mkPen(None))
-            fill = pg.FillBetweenItem(c_lo, c_hi, brush=QBrush(_alpha(color, 48)))
+            fill = pg.FillBetweenItem(c_lo, c_hi, brush=QBrush(_alpha(color, 38)))
             plot.addItem(fill)
         item = plot.plot(x, mean, pen=_pen(color, 2.0), name=label,
                          symbol="o" if len(x) == 1 else None, symbolBrush=color,
                          symbolPen=None, symbolSize=6)
         return item
+
+    def set_theme(self, theme):
+        bg = QColor(theme.plot_bg)
+        bg.setAlpha(215)
+        self.legend.setBrush(bg)
+        self.legend.setPen(_pen(QColor(theme.border), 1))
+        self.legend.setLabelTextColor(QColor(theme.plot_fg))
+        super().set_theme(theme)
 
     def set_series(self, series: list[dict]) -> None:
         self._series = list(series)
@@ -223,7 +231,6 @@ class HealthPanel(_Panel):
         self.share_plot.setYRange(0, 100, padding=0.02)
         self.grad_plot = self._plot("gradient norm", "hidden layer")
         self.grad_plot.setLogMode(y=True)
-        self.grad_plot.setXLink(self.share_plot)
         self.hint = QLabel("")
         self.hint.setObjectName("hint")
         self.hint.setWordWrap(True)
@@ -246,6 +253,7 @@ class HealthPanel(_Panel):
         n = max(1, len(self._series))
         width = 0.8 / n
         max_layers = 0
+        max_grad = 0
         any_grad = False
         for i, s in enumerate(self._series):
             color = self.theme.series_color(s["color"])
@@ -266,18 +274,28 @@ class HealthPanel(_Panel):
                                     pen=_pen(color, 1))
                 self.share_plot.addItem(b)
                 self._bars.append(b)
+            # gradient norms: one per weight matrix (into each hidden layer, then the output)
             g = np.asarray(h.get("grad_norm") or [], float)
+            gx = np.arange(1, len(g) + 1) - 0.4 + width * (i + 0.5)
             good = np.isfinite(g) & (g > 0)
             if good.any():
                 any_grad = True
-                self.grad_plot.plot(xs[:len(g)][good], g[good], pen=None, symbol="s",
+                max_grad = max(max_grad, len(g))
+                self.grad_plot.plot(gx[good], g[good], pen=None, symbol="s",
                                     symbolBrush=color, symbolPen=None, symbolSize=8)
         ticks = [(k, f"layer {k}") for k in range(1, max_layers + 1)]
-        for p in (self.share_plot, self.grad_plot):
-            p.getPlotItem().getAxis("bottom").setTicks([ticks])
+        self.share_plot.getPlotItem().getAxis("bottom").setTicks([ticks])
+        gticks = [(k, f"layer {k}" if k <= max_layers else "output")
+                  for k in range(1, max(max_grad, max_layers) + 1)]
+        self.grad_plot.getPlotItem().getAxis("bottom").setTicks([gticks])
         if max_layers:
             self.share_plot.setXRange(0.5, max_layers + 0.5, padding=0)
-        self.share_plot.setYRange(0, 100, padding=0.02)
+        if max_grad:
+            self.grad_plot.setXRange(0.5, max(max_grad, max_layers) + 0.5, padding=0)
+        top = max([float(b.opts["height"].max()) for b in self._bars if len(b.opts["height"])]
+                  or [0.0])
+        # small shares stay visible: the axis ends just above the tallest bar (at least 10 %)
+        self.share_plot.setYRange(0, min(100.0, max(10.0, top * 1.2)), padding=0.02)
         self.grad_plot.setVisible(any_grad or not self._series)
         hints = [h for s in self._series for h in s.get("hints", [])]
         self.hint.setText("\n".join(f"⚠ {h}" for h in hints[:4]))

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import os
 
-from PySide6.QtCore import Qt, Signal
+from PySide6.QtCore import Qt, QTimer, Signal
 from PySide6.QtWidgets import (
     QButtonGroup,
     QCheckBox,
@@ -197,11 +197,17 @@ class SetupPane(QWidget):
         self._summary: core.TargetSummary | None = None
 
     def resizeEvent(self, event) -> None:
-        # word-wrapped labels need their height for *this* width inside the scroll area
         super().resizeEvent(event)
+        self._refit()
+
+    def _refit(self) -> None:
+        """Word-wrapped labels need their height for *this* width inside the scroll area."""
         h = self.layout().totalHeightForWidth(self.width())
         if h > 0 and h != self.minimumHeight():
             self.setMinimumHeight(h)
+
+    def _texts_changed(self) -> None:
+        QTimer.singleShot(0, self._refit)
 
     @staticmethod
     def _spin(lo, hi, value, tip) -> QSpinBox:
@@ -230,6 +236,7 @@ class SetupPane(QWidget):
             self.shape_label.setText(
                 f"{rep.rows:,} rows × {rep.columns} columns · {rep.format}"
                 + ("" if not extra else " · " + "; ".join(extra)))
+            self._texts_changed()
             names = [c["name"] for c in table.columns]
             self.target_combo.addItems(names)
             pick = target or table.profile.suggested_target or (names[-1] if names else "")
@@ -281,6 +288,7 @@ class SetupPane(QWidget):
             note = f"Refused for this target: {', '.join(refused)} (hover for why). " + note
         self.head_note.setText(note)
         self._set_metrics(info.task, info.kind)
+        self._texts_changed()
 
     def _set_metrics(self, task: str, kind: str | None) -> None:
         from workbench.plan import default_metric
@@ -315,7 +323,9 @@ class SetupPane(QWidget):
         }
 
     def set_estimate(self, text: str, ok: bool) -> None:
-        self.estimate_label.setText(text)
+        if text != self.estimate_label.text():
+            self.estimate_label.setText(text)
+            self._texts_changed()
         self.run_button.setEnabled(ok)
 
 
