@@ -175,7 +175,7 @@ def test_breast_cancer_reaches_095_accuracy(bundled, tmp_path):
                       metric="accuracy")
     assert plan.n_configurations == 2 and plan.n_trials == 6
     with Store(tmp_path / "s.sqlite") as st:
-        out = run_sweep(plan, store=st, jobs=2)
+        out = run_sweep(plan, store=st, backend="inline")
         res = st.results(out.sweep_id)
     assert len(res["configurations"]) == 2
     assert res["configurations"][0]["mean"] >= 0.95

@@ -16,6 +16,8 @@ from pathlib import Path
 import pytest
 
 from workbench.cli import main
+from workbench.plan import SweepPlan
+from workbench.runner import run_sweep
 from workbench.store import Store
 
 SAMPLES = Path(__file__).resolve().parents[1] / "sample_sets"
@@ -128,11 +130,10 @@ def test_sigkill_then_resume_stores_every_trial_exactly_once(tmp_path):
     assert len(keys) == len(set(keys)) == n_trials
     assert before <= set(keys)
     # an uninterrupted run of the same plan gives the same scores
-    other = tmp_path / "o.sqlite"
-    assert main(["sweep", *args, "--store", str(other), "--quiet"]) == 0
-    with Store(other) as st:
-        fresh_id = st.list_sweeps()[0]["id"]
-    assert _scores(store, sweep_id) == _scores(other, fresh_id)
+    with Store(store) as st:
+        plan = SweepPlan.from_dict(st.get_sweep(sweep_id)["plan"])
+        fresh = run_sweep(plan, store=st, backend="inline")
+    assert _scores(store, sweep_id) == _scores(store, fresh.sweep_id)
 
 
 def test_ctrl_c_exits_130_and_leaves_a_resumable_sweep(tmp_path):

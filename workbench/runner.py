@@ -8,8 +8,9 @@ Where trials run
 ----------------
 - Locally (default): joblib's loky process pool with ``jobs`` workers (default:
   every core), each worker with a single BLAS thread, so nothing is
-  oversubscribed. The table goes to each worker once (the pool's initializer),
-  and work goes out one *trial* at a time, never more trials in flight than
+  oversubscribed. The pool stays warm between sweeps; the table goes to each
+  worker once per sweep (a temporary file it reads on its first trial), and
+  work goes out one *trial* at a time, never more trials in flight than
   workers, so both cores stay busy to the end and a cancel is prompt.
 - On a Dask distributed cluster (``cluster="tcp://HOST:PORT"`` or a
   ``distributed.Client``): the table is scattered to the workers once
@@ -75,9 +76,8 @@ from workbench.trials import (
     DONE,
     FAILED,
     TrialData,
-    init_worker,
     run_trial,
-    run_trial_in_worker,
+    run_trial_from_file,
 )
 
 #: a worker that dies under a trial costs the trial one attempt; one retry by default
@@ -383,27 +383,38 @@ class _InlineExecutor:
 
 
 class _LokyExecutor:
-    """loky processes; the table is installed once per worker by the initializer."""
+    """loky worker processes (joblib's reusable pool, kept warm between sweeps).
+
+    The table is written once per sweep to a temporary file that each worker
+    reads on its first trial (see :func:`workbench.trials.run_trial_from_file`).
+    """
 
     name = "processes"
 
     def __init__(self, jobs, data):
+        import tempfile
+
+        import joblib
+
         self.workers = int(jobs)
         if self.workers < 1:
             raise InputError(f"--jobs must be at least 1, got {jobs}")
-        self.data = data
+        self._dir = tempfile.TemporaryDirectory(prefix="workbench-sweep-")
+        self._path = f"{self._dir.name}/table.pkl"
+        joblib.dump(data, self._path)
+        self._token = secrets.token_hex(8)
         self._pool = None
 
     def _ensure(self):
         if self._pool is None:
-            from joblib.externals.loky import ProcessPoolExecutor
+            from joblib.externals.loky import get_reusable_executor
 
-            self._pool = ProcessPoolExecutor(max_workers=self.workers, initializer=init_worker,
-                                             initargs=(self.data,), env=dict(_THREAD_ENV))
+            self._pool = get_reusable_executor(max_workers=self.workers, env=dict(_THREAD_ENV),
+                                               reuse=True)
         return self._pool
 
     def submit(self, spec):
-        return self._ensure().submit(run_trial_in_worker, spec)
+        return self._ensure().submit(run_trial_from_file, self._token, self._path, spec)
 
     def wait(self, handles, timeout):
         from concurrent.futures import FIRST_COMPLETED, wait
@@ -422,16 +433,22 @@ class _LokyExecutor:
             for f in handles:
                 if f not in done:
                     out.append((f, None, "the worker pool broke while this trial ran"))
-            self.close(kill=True)
+            self._stop_pool()
         return out
 
-    def close(self, kill=False):
+    def _stop_pool(self):
         if self._pool is not None:
             try:
-                self._pool.shutdown(wait=not kill, kill_workers=kill)
+                self._pool.shutdown(wait=False, kill_workers=True)
             except Exception:  # pragma: no cover - a pool already broken
                 pass
             self._pool = None
+
+    def close(self, kill=False):
+        if kill:
+            self._stop_pool()
+        self._pool = None
+        self._dir.cleanup()
 
 
 class _DaskExecutor:
@@ -458,11 +475,14 @@ class _DaskExecutor:
                              "workers; start some workers first")
         self.workers = int(threads)
         self.data_future = self.client.scatter(data, broadcast=True, hash=False)
+        self._live = set()
 
     def submit(self, spec):
         key = (f"workbench-trial-{spec['config']['index']}-{spec['repeat']}-{spec['fold']}-"
                f"{spec['attempt']}-{secrets.token_hex(4)}")
-        return self.client.submit(run_trial, self.data_future, spec, key=key, pure=False)
+        fut = self.client.submit(run_trial, self.data_future, spec, key=key, pure=False)
+        self._live.add(fut)
+        return fut
 
     def wait(self, handles, timeout):
         from distributed import wait
@@ -474,6 +494,7 @@ class _DaskExecutor:
             return []
         out = []
         for f in done:
+            self._live.discard(f)
             if f.status == "finished":
                 out.append((f, f.result(), None))
             else:
@@ -483,6 +504,9 @@ class _DaskExecutor:
 
     def close(self, kill=False):
         try:
+            if kill and self._live:
+                self.client.cancel(list(self._live))
+            self._live.clear()
             self.data_future.release()
         except Exception:  # pragma: no cover
             pass

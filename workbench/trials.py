@@ -43,8 +43,8 @@ FINISHED_STATUSES = (DONE, DIVERGED, FAILED)
 class TrialData:
     """What every trial of a sweep reads: the table and the intake's findings.
 
-    Sent to each worker once (a process-pool initializer locally, a scattered
-    future on a Dask cluster), never with every trial.
+    Sent to each worker once (a file each local worker reads on its first
+    trial, a scattered future on a Dask cluster), never with every trial.
     """
 
     X: object  # pandas DataFrame of the feature columns
@@ -226,6 +226,13 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
         if _looks_diverged(exc):
             result["status"] = DIVERGED
             result["error"] = f"training diverged: {exc}"
+            try:  # keep the epochs and losses up to the blow-up
+                mlp, _ = _unwrap(pipe, X_tr)
+                if mlp is not None:
+                    result["epochs"] = int(getattr(mlp, "n_iter_", 0)) or None
+                    result["history"] = _history(mlp)
+            except Exception:  # the partial model may be unusable; the status says enough
+                pass
             return
         raise
     result["fit_seconds"] = time.perf_counter() - t0
@@ -266,19 +273,23 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
 
 # --------------------------------------------------------------------------- worker-process glue
 
-_WORKER_DATA: TrialData | None = None
+#: the table of the current sweep in this worker process: {token: TrialData}
+_WORKER_DATA: dict = {}
 
 
-def init_worker(data: TrialData) -> None:
-    """Process-pool initializer: keep the sweep's table in the worker."""
-    global _WORKER_DATA
-    _WORKER_DATA = data
+def run_trial_from_file(token: str, path: str, spec: dict) -> dict:
+    """Run a trial in a pool worker, reading the sweep's table once per worker.
 
+    The parent writes the :class:`TrialData` to ``path`` once per sweep
+    (``joblib.dump``); each worker loads it on its first trial of the sweep and
+    keeps it (one sweep's table at a time), so the table crosses to each
+    worker once however many trials it runs, and the worker pool can stay
+    alive from one sweep to the next.
+    """
+    data = _WORKER_DATA.get(token)
+    if data is None:
+        import joblib
 
-def run_trial_in_worker(spec: dict) -> dict:
-    """Run a trial on the table installed by :func:`init_worker`."""
-    if _WORKER_DATA is None:  # pragma: no cover - a pool without initializer
-        raise RuntimeError("worker has no table; start the pool with init_worker")
-    if spec.get("_crash_for_test"):
-        os._exit(17)  # simulate a worker killed mid-trial (tests only)
-    return run_trial(_WORKER_DATA, spec)
+        _WORKER_DATA.clear()
+        data = _WORKER_DATA[token] = joblib.load(path)
+    return run_trial(data, spec)
