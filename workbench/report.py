@@ -169,33 +169,51 @@ def fold_spread_png(ranked: list[dict], metric: str, chosen_index: int) -> str |
     return _png(fig)
 
 
-def health_png(chosen: dict, trials: list[dict]) -> str | None:
-    """Dead and saturated share per hidden layer over epochs (mean over folds)."""
-    hists = [t.get("history") or {} for t in trials]
-    dead = [h.get("dead") for h in hists if h.get("dead")]
-    sat = [h.get("saturated") for h in hists if h.get("saturated")]
-    if not dead:
-        return None
-    fig, (a1, a2) = _figure(10, 3.2, 2)
-    for ax, series, title in ((a1, dead, "dead units"), (a2, sat, "saturated units")):
-        if not series:
-            ax.set_visible(False)
-            continue
-        n_ep = max(len(s) for s in series)
-        n_layers = max(len(e) for s in series for e in s if e) if series else 0
-        for layer in range(n_layers):
-            m = np.full((len(series), n_ep), np.nan)
-            for i, s in enumerate(series):
-                for j, e in enumerate(s):
-                    if e and layer < len(e) and e[layer] is not None:
-                        m[i, j] = e[layer]
-            import warnings
+def _layer_means(series: list) -> list[np.ndarray]:
+    """``series[fold][epoch][layer]`` -> one per-epoch mean curve per layer (NaN-aware)."""
+    import warnings
 
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", RuntimeWarning)
-                ax.plot(np.arange(1, n_ep + 1), np.nanmean(m, axis=0), label=f"layer {layer + 1}")
-        ax.set_ylim(-0.02, 1.02)
-        ax.set_title(f"{title} (share of the layer)", fontsize=9)
+    n_ep = max(len(s) for s in series)
+    n_layers = max((len(e) for s in series for e in s if e), default=0)
+    curves = []
+    for layer in range(n_layers):
+        m = np.full((len(series), n_ep), np.nan)
+        for i, s in enumerate(series):
+            for j, e in enumerate(s):
+                if e and layer < len(e) and e[layer] is not None:
+                    m[i, j] = e[layer]
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            curves.append(np.nanmean(m, axis=0))
+    return curves
+
+
+def health_png(chosen: dict, trials: list[dict]) -> str | None:
+    """Dead and saturated share per hidden layer, and gradient norm per weight layer,
+    over epochs (mean over folds)."""
+    hists = [t.get("history") or {} for t in trials]
+    panels = [(key, [h.get(key) for h in hists if h.get(key)]) for key in
+              ("dead", "saturated", "grad_norm")]
+    panels = [(k, s) for k, s in panels if s]
+    if not panels:
+        return None
+    titles = {"dead": "dead units (share of the layer)",
+              "saturated": "saturated units (share of the layer)",
+              "grad_norm": "weight-gradient norm (last batch)"}
+    fig, axes = _figure(4.2 * len(panels), 3.2, len(panels))
+    for ax, (key, series) in zip(axes, panels):
+        curves = _layer_means(series)
+        for i, y in enumerate(curves):
+            label = (f"layer {i + 1}" if key != "grad_norm" or i < len(curves) - 1
+                     else "output layer")
+            ax.plot(np.arange(1, len(y) + 1), y, label=label)
+        if key == "grad_norm":
+            finite = np.concatenate([c[np.isfinite(c)] for c in curves]) if curves else []
+            if len(finite) and np.min(finite) > 0:
+                ax.set_yscale("log")
+        else:
+            ax.set_ylim(-0.02, 1.02)
+        ax.set_title(titles[key], fontsize=9)
         ax.set_xlabel("epoch")
         ax.legend(fontsize=7)
     return _png(fig)
