@@ -312,3 +312,23 @@ def test_guard_warns_for_unusual_but_possible_heads():
     for head in ("exp", "relu", "softplus"):
         chk = check_head(count, head)
         assert chk.allowed and not chk.warning and chk.reason == ""
+
+
+def test_user_role_changes():
+    rng = np.random.default_rng(0)
+    n = 100
+    df = pd.DataFrame({"serial": np.arange(n), "x": rng.normal(size=n),
+                       "note": [f"a long free text remark number {i}" for i in range(n)],
+                       "y": rng.normal(size=n)})
+    prof = profile_table(df, target="y")
+    assert [c.name for c in prof.feature_columns()] == ["x"]
+    p2 = prof.with_roles({"serial": "feature", "x": "ignore"})
+    assert p2.column("serial").type == "integer" and p2.column("serial").role == "feature"
+    assert [c.name for c in p2.feature_columns()] == ["serial"]
+    assert prof.column("serial").role == "ignore"  # the original is unchanged
+    with pytest.raises(InputError, match="free text"):
+        prof.with_roles({"note": "feature"})
+    with pytest.raises(InputError, match="no column named"):
+        prof.with_roles({"zz": "ignore"})
+    with pytest.raises(InputError, match="not valid"):
+        prof.with_roles({"x": "target"})

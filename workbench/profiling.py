@@ -22,6 +22,9 @@ its cardinality), ``datetime``, ``text`` (free text), ``id`` (unique per row),
 
 ``role`` is ``feature``, ``ignore`` (``reason`` says why) or ``target`` (the
 column given as ``target``; when none is given, the suggested target).
+``TableProfile.with_roles({column: "feature" | "ignore"})`` returns a copy with
+roles the user changed; ``TableProfile.feature_columns(target)`` lists the columns
+the preprocessing uses.
 
 Target
 ------
@@ -157,6 +160,44 @@ class TableProfile:
             if c.role == "feature" or (c.role == "target" and c.type not in _NEVER_FEATURE):
                 out.append(c)
         return out
+
+    def with_roles(self, roles: dict[str, str]) -> TableProfile:
+        """A copy with some columns' roles changed by the user.
+
+        Parameters
+        ----------
+        roles : dict
+            ``{column: "feature" | "ignore"}``. A column typed ``id``, ``constant`` or
+            ``missing`` made a feature is used as its ``base_type``.
+
+        Raises
+        ------
+        InputError
+            For an unknown column or role, or free text / an empty column made a feature.
+        """
+        cols = [ColumnProfile(**asdict(c)) for c in self.columns]
+        by_name = {c.name: c for c in cols}
+        for name, role in roles.items():
+            if name not in by_name:
+                raise InputError(f"no column named {name!r}; the columns are: "
+                                 f"{', '.join(by_name)}")
+            if role not in ("feature", "ignore"):
+                raise InputError(f"role {role!r} for {name!r} is not valid; use feature or ignore")
+            c = by_name[name]
+            if role == "feature" and c.role != "feature":
+                if c.distinct == 0:
+                    raise InputError(f"column {name!r} has no values and cannot be a feature; "
+                                     "leave it ignored")
+                if c.base_type == "text":
+                    raise InputError(f"column {name!r} is free text and cannot be a feature; "
+                                     "leave it ignored")
+                if c.type in ("id", "constant", "missing"):
+                    c.type = c.base_type
+                c.role, c.reason = "feature", "made a feature by the user"
+            elif role == "ignore":
+                c.role, c.reason = "ignore", "ignored by the user"
+        return TableProfile(rows=self.rows, columns=cols, suggested_target=self.suggested_target,
+                            target=self.target)
 
     def to_dict(self) -> dict:
         return {"rows": self.rows, "columns": [c.to_dict() for c in self.columns],
