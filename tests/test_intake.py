@@ -409,3 +409,19 @@ def test_infinite_numbers_are_read_as_missing_with_a_warning(tmp_path):
     got, rep = load_table(path)
     assert got["b"].isna().tolist() == [True, True, False]
     assert any("2 infinite value(s)" in w for w in rep.warnings)
+
+
+def test_load_benchmark_quick_run_reports_its_figures():
+    from workbench.benchmarks import load as bench_load
+
+    res = bench_load.run(quick=True)
+    assert set(res) == {"title", "lines", "figures"}
+    fig = res["figures"]
+    assert fig["rows"] == bench_load.QUICK_ROWS and fig["columns"] == 20
+    # 18 float64 + 2 int64 columns: the payload is rows x 20 x 8 bytes
+    assert fig["payload_mb"] == pytest.approx(bench_load.QUICK_ROWS * 20 * 8 / 1e6, rel=1e-3)
+    assert all(isinstance(v, int | float) for v in fig.values())
+    assert fig["seconds_min"] <= fig["seconds"] <= fig["seconds_max"]
+    assert fig["memory_over_payload"] == pytest.approx(fig["peak_mb"] / fig["payload_mb"],
+                                                       rel=0.02)
+    assert len(res["lines"]) == 2
