@@ -223,7 +223,7 @@ class MainWindow(QMainWindow):
         scroll.setWidgetResizable(True)
         scroll.setHorizontalScrollBarPolicy(Qt.ScrollBarAlwaysOff)
         scroll.setWidget(self.setup)
-        scroll.setMinimumWidth(340)
+        scroll.setMinimumWidth(280)
         scroll.setMaximumWidth(460)
         root.addWidget(scroll)
         self.setup.targetChosen.connect(self.set_target)
@@ -343,7 +343,7 @@ class MainWindow(QMainWindow):
         plots = QSplitter(Qt.Horizontal)
         plots.setChildrenCollapsible(False)
         for p in (self.curves, self.spread, self.health):
-            p.setMinimumWidth(220)
+            p.setMinimumWidth(140)
             plots.addWidget(p)
         plots.setSizes([420, 260, 320])
         vs = QSplitter(Qt.Vertical)

@@ -324,9 +324,15 @@ class ResultsProxy(QSortFilterProxyModel):
 
     def set_filters(self, head: str = "", hidden: str = "", text: str = "",
                     tied_only: bool = False) -> None:
+        new_api = hasattr(self, "beginFilterChange")  # Qt 6.10+
+        if new_api:
+            self.beginFilterChange()
         self._head, self._hidden = head, hidden
         self._text, self._tied_only = text.strip().lower(), tied_only
-        self.invalidateFilter()
+        if new_api:
+            self.endFilterChange(QSortFilterProxyModel.Direction.Rows)
+        else:  # pragma: no cover - older Qt
+            self.invalidateRowsFilter()
 
     def filterAcceptsRow(self, source_row, source_parent):
         if not (self._head or self._hidden or self._text or self._tied_only):

@@ -20,23 +20,23 @@ from PySide6.QtSvg import QSvgRenderer
 SERIES_LIGHT = (
     "#1f5fa8",  # deep blue
     "#e07b00",  # orange
-    "#1e8c7e",  # teal
-    "#b8468f",  # magenta
-    "#7a6a12",  # olive
-    "#6cb2e6",  # sky
-    "#4a4a4a",  # graphite
-    "#e5b42a",  # gold
+    "#6b2d6b",  # plum
+    "#3f94d1",  # sky
+    "#8a6a00",  # ochre
+    "#1a9988",  # teal
+    "#404040",  # graphite
+    "#d46a8e",  # rose
 )
-#: the same hues lifted for a dark background
+#: the same roles for a dark background (lighter, so lines stand out on dark grey)
 SERIES_DARK = (
-    "#5b9be0",
-    "#f29a32",
-    "#3cc0ad",
-    "#e07cc0",
-    "#c9b44a",
-    "#a6d4f5",
-    "#cfcfcf",
-    "#f2d16b",
+    "#5b9be0",  # blue
+    "#f29a32",  # orange
+    "#e8dfb0",  # cream
+    "#f5a3c0",  # pink
+    "#a58f2c",  # ochre
+    "#3cc0ad",  # teal
+    "#909090",  # grey
+    "#b5a0ff",  # lavender
 )
 
 

@@ -1,0 +1,347 @@
+"""The window's parts without a sweep: palette, settings, models, hints, the bridge, `open`.
+
+Outside references: the colour-vision-deficiency simulation matrices of
+Machado, Oliveira & Fernandes (2009, severity 1.0), the sRGB transfer function
+of IEC 61966-2-1 and the CIE 1976 L*a*b* colour difference (CIE 15:2004);
+WCAG 2.1's contrast-ratio definition for text; Python's ``sorted`` for sorting.
+"""
+
+from __future__ import annotations
+
+import itertools
+import threading
+
+import numpy as np
+import pytest
+from PySide6.QtCore import QByteArray, QObject, Qt
+
+from workbench.gui import theme as th
+from workbench.gui.bridge import SweepThread
+from workbench.gui.models import COLUMN_KEYS, ResultsModel, ResultsProxy
+from workbench.gui.plots import MOSTLY, health_hints
+from workbench.gui.settings import APPLICATION, ORGANISATION, Settings
+
+pytestmark = pytest.mark.gui
+
+# Machado, Oliveira & Fernandes (2009), Table 1, severity 1.0 (linear RGB)
+MACHADO_2009 = {
+    "protanopia": np.array([[0.152286, 1.052583, -0.204868],
+                            [0.114503, 0.786281, 0.099216],
+                            [-0.003882, -0.048116, 1.051998]]),
+    "deuteranopia": np.array([[0.367322, 0.860646, -0.227968],
+                              [0.280085, 0.672501, 0.047413],
+                              [-0.011820, 0.042940, 0.968881]]),
+    "tritanopia": np.array([[1.255528, -0.076749, -0.178779],
+                            [-0.078411, 0.930809, 0.147602],
+                            [0.004733, 0.691367, 0.303900]]),
+}
+# sRGB (D65) to XYZ, IEC 61966-2-1
+SRGB_TO_XYZ = np.array([[0.4124564, 0.3575761, 0.1804375],
+                        [0.2126729, 0.7151522, 0.0721750],
+                        [0.0193339, 0.1191920, 0.9503041]])
+WHITE_D65 = np.array([0.95047, 1.0, 1.08883])
+
+
+def _linear(hex_colour: str) -> np.ndarray:
+    c = np.array([int(hex_colour[i:i + 2], 16) for i in (1, 3, 5)], float) / 255.0
+    return np.where(c <= 0.04045, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)
+
+
+def _lab(linear_rgb: np.ndarray) -> np.ndarray:
+    xyz = SRGB_TO_XYZ @ np.clip(linear_rgb, 0, 1) / WHITE_D65
+    d = 6 / 29
+    f = np.where(xyz > d ** 3, np.cbrt(xyz), xyz / (3 * d * d) + 4 / 29)
+    return np.array([116 * f[1] - 16, 500 * (f[0] - f[1]), 200 * (f[1] - f[2])])
+
+
+def _relative_luminance(hex_colour: str) -> float:
+    return float(np.array([0.2126, 0.7152, 0.0722]) @ _linear(hex_colour))
+
+
+def _contrast(a: str, b: str) -> float:
+    la, lb = sorted((_relative_luminance(a), _relative_luminance(b)), reverse=True)
+    return (la + 0.05) / (lb + 0.05)
+
+
+def test_lab_conversion_matches_the_cie_white_and_black():
+    # CIE 15:2004: the white point has L* = 100, a* = b* = 0; black L* = 0
+    assert np.allclose(_lab(_linear("#ffffff")), [100, 0, 0], atol=0.05)
+    assert np.allclose(_lab(_linear("#000000")), [0, 0, 0], atol=1e-9)
+
+
+@pytest.mark.parametrize("theme", [th.LIGHT, th.DARK], ids=["light", "dark"])
+def test_series_colours_stay_apart_under_colour_vision_deficiency(theme):
+    """The first four series colours (the common case) differ by CIE76 dE >= 12 for
+    normal vision and under all three simulated dichromacies; all eight by >= 8."""
+    for vision in (None, *MACHADO_2009):
+        labs = []
+        for c in theme.series:
+            lin = _linear(c)
+            if vision is not None:
+                lin = MACHADO_2009[vision] @ lin
+            labs.append(_lab(lin))
+        for (i, a), (j, b) in itertools.combinations(enumerate(labs), 2):
+            de = float(np.linalg.norm(a - b))
+            need = 12.0 if max(i, j) < 4 else 8.0
+            assert de >= need, (theme.name, vision, theme.series[i], theme.series[j], de)
+
+
+@pytest.mark.parametrize("theme", [th.LIGHT, th.DARK], ids=["light", "dark"])
+def test_text_contrast_meets_wcag_aa(theme):
+    # WCAG 2.1 success criterion 1.4.3: 4.5:1 for normal text
+    pairs = [(theme.text, theme.window), (theme.text, theme.base), (theme.muted, theme.window),
+             (theme.muted, theme.base), (theme.text, theme.selection), (theme.text, theme.tie),
+             (theme.banner_text, theme.banner_bg), (theme.accent_text, theme.accent),
+             (theme.plot_fg, theme.plot_bg), (theme.warn, theme.base)]
+    for fg, bg in pairs:
+        assert _contrast(fg, bg) >= 4.5, (theme.name, fg, bg, _contrast(fg, bg))
+
+
+def test_style_sheet_fills_every_token():
+    for t in (th.LIGHT, th.DARK):
+        css = th.style_sheet(t)
+        assert css and "@" not in css.replace("@@", "")
+
+
+def test_icons_are_our_svgs_and_render(qapp):
+    for name in ("open", "run", "stop", "export", "history", "close", "warning", "app"):
+        ico = th.icon(name, "#123456")
+        assert not ico.isNull(), name
+        assert not ico.pixmap(24, 24).toImage().isNull()
+
+
+# --------------------------------------------------------------------------- settings
+
+
+def test_settings_live_in_the_folder_given_and_round_trip(qapp, tmp_path):
+    s = Settings(tmp_path / "cfg")
+    assert s.path.startswith(str(tmp_path))
+    assert APPLICATION in s.path
+    assert ORGANISATION not in ("", "QtProject")
+    s.set_geometry(QByteArray(b"\x01\x02geometry"))
+    s.set_last_folder(str(tmp_path))
+    for i in range(12):
+        (tmp_path / f"t{i}.csv").write_text("a,b\n1,2\n")
+        s.add_recent_file(str(tmp_path / f"t{i}.csv"))
+    s.add_recent_file(str(tmp_path / "t5.csv"))  # reopening moves it to the top
+    s.set_theme("dark")
+    s.sync()
+    again = Settings(tmp_path / "cfg")
+    assert bytes(again.geometry()) == b"\x01\x02geometry"
+    assert again.last_folder() == str(tmp_path)
+    recent = again.recent_files()
+    assert len(recent) == 8 and recent[0].endswith("t5.csv") and recent[1].endswith("t11.csv")
+    assert again.theme() == "dark"
+
+
+def test_window_remembers_its_geometry(qtbot, tmp_path):
+    from workbench.gui.main_window import MainWindow
+
+    folder = tmp_path / "cfg"
+    win = MainWindow(settings=Settings(folder), store_path=str(tmp_path / "s.sqlite"))
+    qtbot.addWidget(win)
+    win.show()
+    win.resize(770, 590)  # inside the offscreen platform's 800 x 600 screen
+    qtbot.waitUntil(lambda: win.width() == 770)
+    win.close()
+    win2 = MainWindow(settings=Settings(folder), store_path=str(tmp_path / "s.sqlite"))
+    qtbot.addWidget(win2)
+    assert (win2.width(), win2.height()) == (770, 590)
+
+
+def test_standard_shortcuts(qtbot, tmp_path):
+    from PySide6.QtGui import QKeySequence
+
+    from workbench.gui.main_window import MainWindow
+
+    win = MainWindow(settings=Settings(tmp_path / "cfg"), store_path=str(tmp_path / "s.sqlite"))
+    qtbot.addWidget(win)
+    assert QKeySequence(QKeySequence.Open) in win.open_action.shortcuts()
+    assert QKeySequence(QKeySequence.Quit) in win.quit_action.shortcuts()
+    assert QKeySequence("Ctrl+R") in win.run_action.shortcuts()
+    assert QKeySequence("Ctrl+E") in win.export_action.shortcuts()
+    assert win.stop_action.shortcuts()
+
+
+# --------------------------------------------------------------------------- models
+
+
+def _rows(n, seed=0):
+    rng = np.random.default_rng(seed)
+    names = ["relu", "tanh", "gelu", "elu"]
+    out = []
+    for i in range(n):
+        mean = float(rng.normal()) if i % 7 else None  # some configurations have no score yet
+        out.append({"key": f"k{i}", "rank": i + 1, "hidden": names[i % 4], "head": "identity",
+                    "layers": "8", "learning_rate": 0.001, "alpha": 0.0001, "mean": mean,
+                    "sd": 0.1, "p_value": float(rng.uniform()), "tied_with_best": i < 3,
+                    "fit_seconds": float(rng.uniform()), "dead_pct": float(rng.uniform(0, 100)),
+                    "saturated_pct": 0.0, "engine": "numpy", "status": "done", "n_done": 2,
+                    "n_total": 2})
+    return out
+
+
+@pytest.mark.parametrize("key", ["mean", "hidden", "fit_seconds", "dead_pct", "rank"])
+@pytest.mark.parametrize("order", [Qt.AscendingOrder, Qt.DescendingOrder])
+def test_proxy_sort_matches_python_sorted(qapp, key, order):
+    m = ResultsModel()
+    rows = _rows(300)
+    m.set_rows(rows)
+    p = ResultsProxy()
+    p.setSourceModel(m)
+    p.sort(COLUMN_KEYS.index(key), order)
+    got = [p.row_at(i)[key] for i in range(p.rowCount())]
+    present = [r[key] for r in rows if r[key] is not None]
+    if isinstance(present[0], str):
+        expect = sorted(present, reverse=order == Qt.DescendingOrder)
+        assert got == expect
+    else:
+        expect = sorted(present, reverse=order == Qt.DescendingOrder)
+        n_missing = sum(r[key] is None for r in rows)
+        assert got[:len(expect)] == expect
+        assert got[len(expect):] == [None] * n_missing  # missing scores always last
+
+
+def test_upsert_keeps_the_selection_and_the_sort(qapp):
+    from PySide6.QtCore import QItemSelectionModel
+
+    m = ResultsModel()
+    m.set_rows(_rows(20))
+    p = ResultsProxy()
+    p.setSourceModel(m)
+    sm = QItemSelectionModel(p)
+    col = COLUMN_KEYS.index("fit_seconds")
+    p.sort(col, Qt.DescendingOrder)
+    sm.select(p.index(0, 0), QItemSelectionModel.Select | QItemSelectionModel.Rows)
+    chosen = p.row_at(0)["key"]
+    changed = dict(_rows(20)[5], fit_seconds=99.0)
+    new = dict(_rows(21)[20], key="new", fit_seconds=50.0)
+    m.upsert([changed, new])
+    assert m.rowCount() == 21
+    assert p.row_at(0)["key"] == changed["key"]  # the updated row moved to the top
+    assert p.row_at(1)["key"] == "new"
+    assert [p.row_at(i.row())["key"] for i in sm.selectedRows()] == [chosen]
+
+
+def test_filters(qapp):
+    m = ResultsModel()
+    rows = _rows(40)
+    m.set_rows(rows)
+    p = ResultsProxy()
+    p.setSourceModel(m)
+    p.set_filters(hidden="gelu")
+    assert p.rowCount() == sum(r["hidden"] == "gelu" for r in rows)
+    p.set_filters(tied_only=True)
+    assert p.rowCount() == 3
+    p.set_filters(text="ELU")
+    assert p.rowCount() == sum("elu" in r["hidden"] for r in rows)
+    p.set_filters()
+    assert p.rowCount() == 40
+
+
+def test_display_marks_the_tie_group_in_words_not_only_colour(qapp):
+    m = ResultsModel()
+    rows = _rows(5)
+    rows[0]["rank"] = 1
+    m.set_rows(rows)
+    tie_col = COLUMN_KEYS.index("tied_with_best")
+    texts = [m.index(i, tie_col).data() for i in range(5)]
+    assert texts[0] == "◆ best" and texts[1] == "◇ tied" and texts[3] == ""
+    assert m.index(1, 0).data(Qt.BackgroundRole) is not None
+    assert m.index(3, 0).data(Qt.BackgroundRole) is None
+
+
+# --------------------------------------------------------------------------- hints
+
+
+def test_health_hints_name_the_layer_in_plain_words():
+    hints = health_hints("relu / identity [8,8]", "relu",
+                         {"dead": [0.9, 0.1], "saturated": [0.0, 0.0]})
+    assert len(hints) == 1 and "layer 1 is mostly dead" in hints[0] and "90%" in hints[0]
+    hints = health_hints("tanh", "tanh", {"dead": [0.0], "saturated": [MOSTLY + 0.01]})
+    assert len(hints) == 1 and "mostly saturated" in hints[0]
+    assert health_hints("x", "relu", {"dead": [MOSTLY], "saturated": []}) == []
+
+
+def test_health_panel_shows_the_hint(qtbot):
+    from workbench.gui.plots import HealthPanel
+
+    panel = HealthPanel()
+    qtbot.addWidget(panel)
+    health = {"dead": [0.8], "saturated": [0.0], "grad_norm": [0.5, 0.1]}
+    panel.set_series([{"key": "a", "label": "a", "color": 0, "health": health,
+                       "hints": health_hints("a", "relu", health)}])
+    assert not panel.hint.isHidden()
+    assert "mostly dead" in panel.hint.text()
+    assert len(panel.bar_items()) == 2
+
+
+# --------------------------------------------------------------------------- bridge
+
+
+def test_bridge_turns_events_into_signals_and_cancels(qtbot):
+    """A job that emits the core's events from the bridge thread; the GUI thread receives them."""
+    seen = []
+    main = threading.get_ident()
+
+    def job(on_event, cancel):
+        on_event({"type": "sweep_started", "sweep_id": "s1", "n_trials": 100})
+        for i in range(100):
+            if cancel.is_set():
+                return {"sweep_id": "s1", "state": "cancelled"}
+            on_event({"type": "trial_started", "sweep_id": "s1"})
+            on_event({"type": "trial_finished", "sweep_id": "s1", "n_finished": i + 1})
+            cancel.wait(0.01)
+        return {"sweep_id": "s1"}
+
+    class Receiver(QObject):  # a GUI-thread object, as the window is
+        def on_trial(self, ev):
+            seen.append((threading.get_ident(), ev))
+
+    receiver = Receiver()
+    ranked_in = []
+    sweep = SweepThread(job, ranker=lambda sid: ranked_in.append(threading.get_ident()) or sid,
+                        rank_interval=0.0)
+    sweep.bridge.trialFinished.connect(receiver.on_trial)
+    with qtbot.waitSignal(sweep.finished, timeout=10_000) as blocker:
+        sweep.start()
+        qtbot.waitUntil(lambda: len(seen) >= 3, timeout=5_000)
+        sweep.stop()
+    assert blocker.args[0]["state"] == "cancelled"
+    assert all(tid == main for tid, _ in seen)  # slots ran on the GUI thread
+    assert ranked_in and all(tid != main for tid in ranked_in)  # ranking ran off it
+    assert len(seen) < 100
+
+
+def test_bridge_reports_a_failed_job_in_one_line(qtbot):
+    from workbench.errors import InputError
+
+    def job(on_event, cancel):
+        raise InputError("the table has 3 rows, too few for 5 folds; use fewer folds")
+
+    sweep = SweepThread(job)
+    with qtbot.waitSignal(sweep.finished, timeout=5_000) as blocker:
+        sweep.start()
+    assert blocker.args[0]["state"] == "failed"
+    assert blocker.args[0]["message"].startswith("the table has 3 rows")
+
+
+# --------------------------------------------------------------------------- open command
+
+
+def test_open_command_needs_a_file_for_run():
+    from workbench.cli import main
+
+    assert main(["open", "--run"]) == 2
+
+
+def test_snapshot_of_a_bad_file_exits_2(tmp_path, capsys, monkeypatch):
+    from workbench.cli import main
+
+    monkeypatch.setenv("WORKBENCH_SETTINGS_DIR", str(tmp_path / "cfg"))
+    bad = tmp_path / "empty.csv"
+    bad.write_bytes(b"")
+    code = main(["open", str(bad), "--snapshot", str(tmp_path / "x.png"),
+                 "--store", str(tmp_path / "s.sqlite")])
+    assert code == 2
+    assert "empty" in capsys.readouterr().err.lower()
