@@ -5,8 +5,8 @@ An exported model folder holds the same fitted pipeline twice:
 ``model.skops``
     skops' format (:mod:`skops.io`). Loading it never runs code from the file:
     skops rebuilds only the types it is told to trust. :func:`load_skops`
-    trusts scikit-learn's and NumPy's types and the project's own estimators
-    (:func:`project_types`), and refuses a file that names anything else.
+    trusts scikit-learn's and NumPy's classes and the project's own estimators
+    (:data:`PROJECT_TYPES`), and refuses a file that names anything else.
 ``model.joblib``
     joblib's pickle, the ecosystem's habit. **Unpickling runs code**: a
     pickle can do anything the loading user can do, so load only folders you
@@ -37,7 +37,7 @@ MANIFEST_NAME = "manifest.json"
 MANIFEST_FORMAT = "activation-workbench-export"
 MANIFEST_VERSION = 1
 
-#: modules whose types a skops file may name (besides skops' own default trust)
+#: libraries whose classes a skops file may name (besides skops' own default trust)
 TRUSTED_PREFIXES = ("sklearn.", "numpy.")
 
 #: the libraries whose versions a manifest records
@@ -163,33 +163,68 @@ def verify_file(folder: str | Path, name: str, manifest: dict | None = None) -> 
 # --------------------------------------------------------------------------- trust
 
 
-def project_types() -> set[str]:
-    """Fully qualified names of the project's own estimator and transformer types.
+#: the project's own types a skops file may contain (explicit allow-list; a test
+#: checks that it names every estimator class of workbench.engine / workbench.preprocessing)
+PROJECT_TYPES = (
+    "workbench.engine.NetRegressor",
+    "workbench.engine.NetClassifier",
+    "workbench.preprocessing.DateParts",
+    "workbench.preprocessing.TargetScaler",
+)
 
-    These are the classes defined in :mod:`workbench.engine` and
-    :mod:`workbench.preprocessing` that derive from scikit-learn's
-    ``BaseEstimator``: the only project types a skops file may contain.
-    """
+
+def project_types() -> set[str]:
+    """Fully qualified names of the project's types that a skops file may name."""
+    return set(PROJECT_TYPES)
+
+
+def defined_project_estimators() -> set[str]:
+    """Estimator classes actually defined in :mod:`workbench.engine` and
+    :mod:`workbench.preprocessing` (what :data:`PROJECT_TYPES` must cover)."""
     import importlib
 
     from sklearn.base import BaseEstimator
 
     names = set()
     for mod_name in ("workbench.engine", "workbench.preprocessing"):
-        try:
-            mod = importlib.import_module(mod_name)
-        except ImportError:  # pragma: no cover - the module lands separately
-            continue
+        mod = importlib.import_module(mod_name)
         for _, obj in inspect.getmembers(mod, inspect.isclass):
-            if obj.__module__ == mod_name and issubclass(obj, BaseEstimator):
+            if obj.__module__ == mod_name and issubclass(obj, BaseEstimator) \
+                    and not obj.__name__.startswith("_"):  # private bases are never fitted
                 names.add(f"{obj.__module__}.{obj.__qualname__}")
     return names
 
 
+def _is_library_class(name: str) -> bool:
+    """Whether ``name`` is a class (not a function) of scikit-learn or NumPy."""
+    import importlib
+
+    if not name.startswith(TRUSTED_PREFIXES):
+        return False
+    module, _, attr = name.rpartition(".")
+    for _ in range(3):  # nested names: try shorter module paths
+        try:
+            obj = importlib.import_module(module)
+        except ImportError:
+            module, _, head = module.rpartition(".")
+            attr = f"{head}.{attr}"
+            if not module:
+                return False
+            continue
+        for part in attr.split("."):
+            obj = getattr(obj, part, None)
+        return isinstance(obj, type)
+    return False
+
+
 def untrusted_types(names: list[str]) -> list[str]:
-    """The subset of ``names`` (from :func:`skops.io.get_untrusted_types`) we refuse."""
+    """The subset of ``names`` (from :func:`skops.io.get_untrusted_types`) we refuse.
+
+    Trusted: the project's :data:`PROJECT_TYPES` and classes (never functions)
+    defined by scikit-learn or NumPy.
+    """
     allowed = project_types()
-    return [n for n in names if n not in allowed and not n.startswith(TRUSTED_PREFIXES)]
+    return [n for n in names if n not in allowed and not _is_library_class(n)]
 
 
 # --------------------------------------------------------------------------- save / load
