@@ -158,10 +158,33 @@ def test_logistic_head_cannot_serve_three_classes(data):
     assert "softmax" in _message(info)
 
 
-def test_softmax_head_for_two_classes_is_refused(data):
+def test_softmax_head_for_two_classes_is_two_units(data):
+    """A softmax over two units is the logistic unit re-parametrised: p1 = expit(z1 - z0).
+
+    Source: the identity softmax([z0, z1])[1] = scipy.special.expit(z1 - z0).
+    """
+    from scipy.special import expit
+
     X, y = data
-    with pytest.raises(ValueError, match="logistic"):
-        NetClassifier((4,), output_activation="softmax", max_iter=2).fit(X, y > 0)
+    labels = y > 0
+    clf = NetClassifier((4,), output_activation="softmax", max_iter=5, random_state=0,
+                        dtype="float64").fit(X, labels)
+    assert clf.n_outputs_ == 2 and clf.out_activation_ == "softmax"
+    proba = clf.predict_proba(X)
+    assert proba.shape == (len(X), 2)
+    np.testing.assert_allclose(proba.sum(axis=1), 1.0, rtol=1e-12)
+    # recompute the two output units by hand and compare with the logistic identity
+    a = np.maximum(X @ clf.coefs_[0] + clf.intercepts_[0], 0)
+    z = a @ clf.coefs_[1] + clf.intercepts_[1]
+    np.testing.assert_allclose(proba[:, 1], expit(z[:, 1] - z[:, 0]), rtol=1e-10)
+    np.testing.assert_array_equal(clf.predict(X), clf.classes_[(proba[:, 1] > 0.5).astype(int)])
+
+
+def test_logistic_head_for_three_classes_is_refused():
+    X = np.random.default_rng(0).standard_normal((30, 3))
+    y = np.repeat([0, 1, 2], 10)
+    with pytest.raises(ValueError, match="softmax"):
+        NetClassifier((4,), output_activation="logistic", max_iter=2).fit(X, y)
 
 
 @pytest.mark.parametrize("param, value, choices", [

@@ -465,6 +465,9 @@ class _BaseNet(BaseEstimator):
     def _score_val(self, X, y):  # pragma: no cover - overridden
         raise NotImplementedError
 
+    def _adapt_y(self, y, head):
+        return y
+
     # -- fit ----------------------------------------------------------------------
     def fit(self, X, y):
         """Fit the network to ``X`` and ``y``.
@@ -498,6 +501,7 @@ class _BaseNet(BaseEstimator):
         if y.ndim == 1:
             y = y.reshape(-1, 1)
         head = self._resolve_head(y)
+        y = self._adapt_y(y, head)
         n_samples, n_features = X.shape
         units = [n_features, *sizes, y.shape[1]]
         self._random_state = check_random_state(self.random_state)
@@ -906,24 +910,32 @@ class NetClassifier(ClassifierMixin, _BaseNet):
         return self._label_binarizer.transform(y)
 
     def _resolve_head(self, y2d):
-        multiclass = self._label_binarizer.y_type_ == "multiclass"
-        auto = "softmax" if multiclass else "logistic"
+        kind = self._label_binarizer.y_type_
+        auto = "softmax" if kind == "multiclass" else "logistic"
         name = auto if self.output_activation == "auto" else self.output_activation
         head = act.resolve_head(name, "classification")
-        if head.name != auto:
+        # a softmax over two units is a valid (if unusual) head for two classes;
+        # a logistic unit per class cannot give one distribution over 3+ classes
+        if head.name != auto and not (head.name == "softmax" and kind == "binary"):
             n = len(self.classes_)
             raise ValueError(
                 f"output head {head.name!r} cannot serve a target with {n} classes: use "
-                f"{auto!r} ('logistic' is for two classes, 'softmax' for three or more)")
+                f"{auto!r} ('logistic' is for two classes, 'softmax' for two or more)")
         return head
 
+    def _adapt_y(self, y, head):
+        # two classes under a softmax head: one unit per class, [1 - y, y]
+        if head.name == "softmax" and y.shape[1] == 1:
+            return np.ascontiguousarray(np.hstack([1 - y, y]))
+        return y
+
     def _score_val(self, p, y):
-        pred = self._decode(p)
-        y_true = self._label_binarizer.inverse_transform(y)
-        return float(accuracy_score(y_true, pred))
+        return float(accuracy_score(self._decode(y), self._decode(p)))
 
     def _decode(self, p):
-        if p.shape[1] == 1:
+        if p.shape[1] == 2 and self._label_binarizer.y_type_ == "binary":
+            p = p[:, 1]  # softmax over two units: the positive class's probability
+        elif p.shape[1] == 1:
             p = p.ravel()
         return self._label_binarizer.inverse_transform(p)
 
