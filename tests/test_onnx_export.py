@@ -277,3 +277,25 @@ def test_build_pipeline_with_sklearn_engine(task, head):
     else:
         np.testing.assert_allclose(out["probabilities"], pipe.predict_proba(X), atol=TOL)
         np.testing.assert_array_equal(out["label"].ravel(), pipe.predict(X))
+
+
+def test_numeric_category_codes_match_with_and_without_missing_values():
+    # scikit-learn's one-hot encoder treats 2 and 2.0 as the same category; so must the graph
+    rng = np.random.default_rng(2)
+    df = pd.DataFrame({"code": rng.integers(1, 5, 60), "x": rng.normal(size=60)})
+    pre = ColumnTransformer([
+        ("num", make_pipeline(SimpleImputer(strategy="median"), StandardScaler()), ["x"]),
+        ("cat", make_pipeline(SimpleImputer(strategy="most_frequent"),
+                              OneHotEncoder(handle_unknown="ignore")), ["code"]),
+    ])
+    pipe = make_pipeline(pre, NetRegressor((4,), "elu", max_iter=10, random_state=0))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        pipe.fit(df, df["code"] * 0.5 + df["x"])
+    model = ox.pipeline_to_onnx(pipe, df)
+    later = df.astype({"code": float})
+    later.loc[[0, 5], "code"] = np.nan  # new rows with gaps: the column turns float
+    for table in (df, later):
+        out = ox.run_onnx(model, table)
+        np.testing.assert_allclose(out["variable"].ravel(), pipe.predict(table), rtol=TOL,
+                                   atol=TOL)

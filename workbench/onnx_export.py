@@ -694,12 +694,30 @@ def _conversion_copy(pipeline):
     return pipeline
 
 
+def category_text(v) -> str:
+    """The text of one category value as both the graph and :func:`onnx_feed` spell it.
+
+    Numbers are spelled by value, so that ``2``, ``2.0`` and ``np.int64(2)``
+    (equal for scikit-learn's encoder) are the same string ``"2"``.
+    """
+    if isinstance(v, str):
+        return v
+    if isinstance(v, bool | np.bool_):
+        return "True" if v else "False"
+    if isinstance(v, int | np.integer):
+        return str(int(v))
+    if isinstance(v, float | np.floating):
+        f = float(v)
+        return str(int(f)) if f.is_integer() else repr(f)
+    return str(v)
+
+
 def _as_text(values) -> np.ndarray:
-    """Values as the strings :func:`onnx_feed` sends (``str(v)``; missing stays missing)."""
+    """Category values as text (:func:`category_text`); missing values stay missing."""
     import pandas as pd
 
-    return np.array([v if isinstance(v, str) or pd.isna(v) else str(v) for v in values],
-                    dtype=object)
+    return np.array([v if isinstance(v, str) or pd.isna(v) else category_text(v)
+                     for v in values], dtype=object)
 
 
 def _is_own(est) -> bool:
@@ -735,7 +753,7 @@ def onnx_feed(df, columns: list[dict], dtype: str = "float32") -> dict[str, np.n
             secs = (t - pd.Timestamp("1970-01-01")) // pd.Timedelta(seconds=1)
             arr = secs.fillna(np.iinfo(np.int64).min).to_numpy(dtype=np.int64)
         else:
-            arr = np.array(["" if pd.isna(v) else str(v) for v in s], dtype=object)
+            arr = np.array(["" if pd.isna(v) else category_text(v) for v in s], dtype=object)
         feed[col["input"]] = arr.reshape(-1, 1)
     return feed
 
