@@ -299,3 +299,14 @@ def test_numeric_category_codes_match_with_and_without_missing_values():
         out = ox.run_onnx(model, table)
         np.testing.assert_allclose(out["variable"].ravel(), pipe.predict(table), rtol=TOL,
                                    atol=TOL)
+
+
+def test_unseen_category_and_new_gaps_at_prediction_time():
+    # handle_unknown="ignore": an unseen category is all zeros in scikit-learn and in the graph
+    pipe = _fit(NetRegressor((4,), "relu", max_iter=5, random_state=0), _signal)
+    model = ox.pipeline_to_onnx(pipe, TABLE)
+    later = TABLE.copy()
+    later.loc[0, "colour"] = "purple"
+    later.loc[1, "x2"] = np.nan
+    np.testing.assert_allclose(ox.run_onnx(model, later)["variable"].ravel(),
+                               pipe.predict(later), rtol=TOL, atol=TOL)
