@@ -201,6 +201,20 @@ def test_diabetes_sweep(bundled, tmp_path):
     assert all(c["status"] == "done" for c in res["configurations"])
     assert res["configurations"][0]["mean"] > 0.3  # r2 of a linear model is about 0.5 here
     assert res["n_comparisons"] == 3
+    # refitting a stored configuration by hand reproduces its trial's score exactly
+    from workbench.preprocessing import build_pipeline
+    from workbench.runner import load_data
+    from workbench.trials import estimator_for
+
+    best = res["configurations"][0]
+    data, _ = load_data(plan)
+    tr, te = plan.fold_indices(data.y)[(0, 1)]
+    pipe = build_pipeline(data.profile, data.target,
+                          estimator_for(plan, best | {"index": best["index"]},
+                                        plan.model_seed(0, 1)), best["head"])
+    pipe.fit(data.X.iloc[tr], data.y[tr])
+    r2 = get_scorer("r2")(pipe, data.X.iloc[te], data.y[te])
+    assert r2 == next(t["test_score"] for t in best["trials"] if t["fold"] == 1)
 
 
 # --------------------------------------------------------------------------- determinism

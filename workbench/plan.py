@@ -564,7 +564,10 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
     lays = [parse_layers(v) for v in (layers or ["64"])]
     lrs = _numbers(learning_rates, "learning rate") or [0.001]
     als = _numbers(alphas, "alpha") or [0.0001]
-    return SweepPlan(table=str(table), target=target, task=info.task, target_kind=info.kind,
+    from pathlib import Path
+
+    # the absolute path, so that --resume works from any folder
+    return SweepPlan(table=str(Path(table).resolve()), target=target, task=info.task, target_kind=info.kind,
                      hidden=hid, heads=heads, layers=lays, learning_rates=lrs, alphas=als,
                      folds=folds, repeats=repeats, epochs=epochs, early_stopping=early_stopping,
                      metric=metric, engine=engine, seed=seed, batch_size=batch_size, dtype=dtype,

@@ -187,25 +187,11 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
             raise InputError(f"the table {plan.table} has changed since sweep {resume} started "
                              "(its SHA-256 fingerprint no longer matches), so the stored trials "
                              "cannot be combined with new ones; start a new sweep")
-        sweep_id = resume
-        store.set_state(sweep_id, RUNNING)
-        done = store.finished_keys(sweep_id)
     else:
         data, fingerprint = load_data(plan)
-        sweep_id = sweep_id or new_sweep_id()
-        store.create_sweep(sweep_id, plan.to_dict(), fingerprint,
-                           [c.to_dict() for c in plan.configurations()])
-        done = set()
-    try:
-        folds = plan.fold_indices(data.y)
-    except InputError:
-        store.set_state(sweep_id, INTERRUPTED)
-        raise
-    configs = plan.configurations()
-    todo = [t for t in plan.trials() if t.key not in done]
-    run = _Run(plan, configs, folds, sweep_id, store, emit, cancel, len(todo))
-    for t in store.trials(sweep_id, with_history=False):
-        run.note_score(t)
+    folds = plan.fold_indices(data.y)  # an impossible split fails before anything is stored
+    if jobs is not None and int(jobs) < 1:
+        raise InputError(f"--jobs must be at least 1, got {jobs}")
     if cluster is not None:
         executor = _DaskExecutor(cluster, data)
     elif backend == "inline":
@@ -214,6 +200,24 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
         executor = _LokyExecutor(jobs or default_jobs(), data)
     else:
         raise InputError(f"unknown backend {backend!r}; use processes or inline")
+    try:
+        if resume is not None:
+            sweep_id = resume
+            store.set_state(sweep_id, RUNNING)
+            done = store.finished_keys(sweep_id)
+        else:
+            sweep_id = sweep_id or new_sweep_id()
+            store.create_sweep(sweep_id, plan.to_dict(), fingerprint,
+                               [c.to_dict() for c in plan.configurations()])
+            done = set()
+    except BaseException:
+        executor.close(kill=True)
+        raise
+    configs = plan.configurations()
+    todo = [t for t in plan.trials() if t.key not in done]
+    run = _Run(plan, configs, folds, sweep_id, store, emit, cancel, len(todo))
+    for t in store.trials(sweep_id, with_history=False):
+        run.note_score(t)
     emit({"type": "sweep_started", "sweep_id": sweep_id, "n_trials": plan.n_trials,
           "n_todo": len(todo), "n_stored": len(done), "n_configurations": len(configs),
           "metric": plan.metric, "resumed": resume is not None, "backend": executor.name,

@@ -21,7 +21,8 @@ Layout (schema version :data:`SCHEMA_VERSION`, kept in SQLite's ``user_version``
     ``worker``, ``attempts``, ``finished``.
 
 The database runs in WAL mode, so the window and the export can read while a
-sweep writes. A file that is not a workbench store, or is damaged, is reported
+sweep writes (with their own :class:`Store` on the same file, or sharing one:
+its methods are serialised by a lock, so threads may share an instance). A file that is not a workbench store, or is damaged, is reported
 with :class:`InputError` and never touched; a store written by a newer program
 is refused; an older one is migrated in place (each step in :data:`MIGRATIONS`).
 
@@ -39,6 +40,7 @@ import os
 import socket
 import sqlite3
 import sys
+import threading
 from pathlib import Path
 
 from workbench.errors import InputError
@@ -186,6 +188,7 @@ class Store:
     """
 
     def __init__(self, path=None):
+        self._lock = threading.RLock()
         self.path = Path(path) if path is not None else default_store_path()
         if self.path.is_dir():
             raise InputError(f"store path {self.path} is a folder; pass a file name such as "
@@ -293,14 +296,19 @@ class Store:
     # ------------------------------------------------------------------ writing
     def _tx(self, statements):
         c = self._conn
-        c.execute("BEGIN IMMEDIATE")
-        try:
-            for sql, args in statements:
-                c.execute(sql, args)
-            c.execute("COMMIT")
-        except Exception:
-            c.execute("ROLLBACK")
-            raise
+        with self._lock:
+            c.execute("BEGIN IMMEDIATE")
+            try:
+                for sql, args in statements:
+                    c.execute(sql, args)
+                c.execute("COMMIT")
+            except BaseException:
+                c.execute("ROLLBACK")
+                raise
+
+    def _rows(self, sql, args=()):
+        with self._lock:
+            return self._conn.execute(sql, args).fetchall()
 
     def create_sweep(self, sweep_id: str, plan: dict, fingerprint: dict,
                      configurations: list[dict], versions: dict | None = None) -> None:
@@ -350,13 +358,13 @@ class Store:
         if d["state"] == RUNNING and d.get("host") == socket.gethostname() \
                 and not _pid_alive(d.get("pid")):
             d["state"] = INTERRUPTED
-        d["n_stored"] = self._conn.execute("SELECT COUNT(*) FROM trials WHERE sweep_id=?",
-                                           (d["id"],)).fetchone()[0]
+        d["n_stored"] = self._rows("SELECT COUNT(*) FROM trials WHERE sweep_id=?",
+                                   (d["id"],))[0][0]
         return d
 
     def list_sweeps(self) -> list[dict]:
         """Every sweep, newest first, with its state and the number of stored trials."""
-        rows = self._conn.execute("SELECT * FROM sweeps ORDER BY created DESC, id DESC").fetchall()
+        rows = self._rows("SELECT * FROM sweeps ORDER BY created DESC, id DESC")
         return [self._sweep_dict(r) for r in rows]
 
     def get_sweep(self, sweep_id: str) -> dict:
@@ -367,17 +375,17 @@ class Store:
         InputError
             naming the stored sweeps when ``sweep_id`` is unknown.
         """
-        row = self._conn.execute("SELECT * FROM sweeps WHERE id=?", (sweep_id,)).fetchone()
+        found = self._rows("SELECT * FROM sweeps WHERE id=?", (sweep_id,))
+        row = found[0] if found else None
         if row is None:
-            ids = [r[0] for r in self._conn.execute(
-                "SELECT id FROM sweeps ORDER BY created DESC LIMIT 5")]
+            ids = [r[0] for r in self._rows("SELECT id FROM sweeps ORDER BY created DESC LIMIT 5")]
             hint = f"recent sweeps: {', '.join(ids)}" if ids else "the store has no sweeps yet"
             raise InputError(f"no sweep {sweep_id!r} in {self.path}; {hint} (see workbench history)")
         return self._sweep_dict(row)
 
     def configurations(self, sweep_id: str) -> list[dict]:
-        rows = self._conn.execute("SELECT * FROM configurations WHERE sweep_id=? ORDER BY idx",
-                                  (sweep_id,)).fetchall()
+        rows = self._rows("SELECT * FROM configurations WHERE sweep_id=? ORDER BY idx",
+                          (sweep_id,))
         out = []
         for r in rows:
             out.append({"index": r["idx"], "hidden": r["hidden"], "head": r["head"],
@@ -388,9 +396,9 @@ class Store:
 
     def trials(self, sweep_id: str, with_history: bool = True) -> list[dict]:
         """The stored (finished) trials of a sweep, ordered by configuration, repeat, fold."""
-        rows = self._conn.execute(
+        rows = self._rows(
             "SELECT * FROM trials WHERE sweep_id=? ORDER BY config_index, repeat, fold",
-            (sweep_id,)).fetchall()
+            (sweep_id,))
         out = []
         for r in rows:
             d = dict(r)
@@ -406,7 +414,7 @@ class Store:
 
     def finished_keys(self, sweep_id: str) -> set[tuple[int, int, int]]:
         """``(config_index, repeat, fold)`` of every stored trial."""
-        return {(r[0], r[1], r[2]) for r in self._conn.execute(
+        return {(r[0], r[1], r[2]) for r in self._rows(
             "SELECT config_index, repeat, fold FROM trials WHERE sweep_id=?", (sweep_id,))}
 
     def results(self, sweep_id: str, *, alpha: float = 0.05, holm: bool = False) -> dict:

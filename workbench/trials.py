@@ -7,9 +7,13 @@ any Dask worker, serially or in parallel. It
 1. builds the pipeline with :func:`workbench.preprocessing.build_pipeline`
    (leak-free preprocessing and target scaling, fitted inside the fold),
 2. fits it on the fold's training rows with a single BLAS thread
-   (threadpoolctl), timing the fit,
+   (threadpoolctl), timing the network's fit (``fit_seconds``: the model
+   step, target scaling included; the fold's preprocessing is fitted once per
+   fold and worker and shared by every configuration, see
+   :func:`_fold_features`),
 3. scores the fold's test rows and its training rows with scikit-learn's
-   scorer (``sklearn.metrics.get_scorer``; greater is better),
+   scorer (``sklearn.metrics.get_scorer``; greater is better) applied to the
+   fitted pipeline's steps,
 4. returns a plain dict: scores, fit seconds, epochs run, the per-epoch
    history (training loss, validation score under early stopping, per-layer
    dead / saturated shares and gradient norms) and the last epoch's health,
@@ -24,13 +28,15 @@ NumPy engine; no gradient norms) and empty per-epoch health lists.
 
 from __future__ import annotations
 
+import collections
 import math
 import os
+import secrets
 import socket
 import time
 import traceback
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -51,6 +57,7 @@ class TrialData:
     y: object  # target values (numpy array)
     profile: object  # the intake's TableProfile
     target: object  # the intake's TargetInfo
+    token: str = field(default_factory=lambda: secrets.token_hex(8))  # names this table
 
 
 # --------------------------------------------------------------------------- estimators
@@ -83,6 +90,33 @@ def make_estimator(spec: dict):
     cls = NetClassifier if task == "classification" else NetRegressor
     return cls(activation=cfg["hidden"], output_activation=cfg["head"],
                dtype=spec.get("dtype", "float32"), **common)
+
+
+def estimator_for(plan, config, random_state: int = 0):
+    """The unfitted MLP a sweep uses for one configuration (for refits and export).
+
+    Parameters
+    ----------
+    plan : SweepPlan or dict
+        The sweep's plan (``SweepPlan.to_dict()`` form accepted, as stored).
+    config : Configuration or dict
+        One configuration of the plan (as stored by the store).
+    random_state : int
+        Seed of the weight initialisation and batch order.
+
+    Returns
+    -------
+    estimator
+        ``MLPClassifier``/``MLPRegressor`` or ``NetClassifier``/``NetRegressor``
+        with the configuration's parameters; hand it to
+        :func:`workbench.preprocessing.build_pipeline` with the configuration's head.
+    """
+    p = plan.to_dict() if hasattr(plan, "to_dict") else dict(plan)
+    c = config.to_dict() if hasattr(config, "to_dict") else dict(config)
+    return make_estimator({"config": c, "task": p["task"], "epochs": p["epochs"],
+                           "early_stopping": p.get("early_stopping", False),
+                           "batch_size": p.get("batch_size", "auto"),
+                           "dtype": p.get("dtype", "float32"), "random_state": random_state})
 
 
 def _unwrap(model, X):
@@ -206,6 +240,38 @@ def run_trial(data: TrialData, spec: dict) -> dict:
     return result
 
 
+#: fitted fold features kept per worker: {(token, repeat, fold): (X_train, X_test)}
+_FOLD_CACHE: collections.OrderedDict = collections.OrderedDict()
+#: how many folds' features a worker keeps (trials go out fold by fold, so a few suffice)
+FOLD_CACHE_SIZE = 3
+
+
+def _fold_features(data: TrialData, spec: dict, prep, train, test):
+    """The preprocessed training and test features of a fold, fitted on its training part.
+
+    The preprocessor does not depend on the configuration (target scaling lives
+    in the model step), so every configuration on a fold reuses the same fitted
+    features: exactly what ``Pipeline.fit`` would compute (``fit_transform`` on
+    the training rows, ``transform`` on the test rows), done once per fold and
+    worker. The arrays are read-only so that no estimator can alter them.
+    """
+    key = (data.token, int(spec["repeat"]), int(spec["fold"]))
+    hit = _FOLD_CACHE.get(key)
+    if hit is not None:
+        _FOLD_CACHE.move_to_end(key)
+        return hit
+    Xt_tr = np.asarray(prep.fit_transform(data.X.iloc[train], np.asarray(data.y)[train]))
+    Xt_te = np.asarray(prep.transform(data.X.iloc[test]))
+    Xt_tr.flags.writeable = False
+    Xt_te.flags.writeable = False
+    for k in [k for k in _FOLD_CACHE if k[0] != data.token]:
+        del _FOLD_CACHE[k]
+    _FOLD_CACHE[key] = (Xt_tr, Xt_te)
+    while len(_FOLD_CACHE) > FOLD_CACHE_SIZE:
+        _FOLD_CACHE.popitem(last=False)
+    return Xt_tr, Xt_te
+
+
 def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
     from sklearn.metrics import get_scorer
 
@@ -214,20 +280,21 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
     cfg = spec["config"]
     train = np.asarray(spec["train"])
     test = np.asarray(spec["test"])
-    X, y = data.X, np.asarray(data.y)
-    X_tr, y_tr = X.iloc[train], y[train]
-    X_te, y_te = X.iloc[test], y[test]
+    y = np.asarray(data.y)
+    y_tr, y_te = y[train], y[test]
     pipe = build_pipeline(data.profile, data.target, make_estimator(spec), cfg["head"])
+    prep, model = pipe.named_steps["prep"], pipe.named_steps["model"]
+    X_tr, X_te = _fold_features(data, spec, prep, train, test)
     t0 = time.perf_counter()
     try:
-        pipe.fit(X_tr, y_tr)
+        model.fit(X_tr, y_tr)
     except (ValueError, FloatingPointError, OverflowError) as exc:
         result["fit_seconds"] = time.perf_counter() - t0
         if _looks_diverged(exc):
             result["status"] = DIVERGED
             result["error"] = f"training diverged: {exc}"
             try:  # keep the epochs and losses up to the blow-up
-                mlp, _ = _unwrap(pipe, X_tr)
+                mlp, _ = _unwrap(model, X_tr)
                 if mlp is not None:
                     result["epochs"] = int(getattr(mlp, "n_iter_", 0)) or None
                     result["history"] = _history(mlp)
@@ -236,7 +303,7 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
             return
         raise
     result["fit_seconds"] = time.perf_counter() - t0
-    mlp, feats = _unwrap(pipe, X_tr)
+    mlp, feats = _unwrap(model, X_tr)
     if mlp is not None:
         result["epochs"] = int(getattr(mlp, "n_iter_", 0))
         result["history"] = _history(mlp)
@@ -254,8 +321,8 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
             return
     scorer = get_scorer(spec["metric"])
     try:
-        test_score = float(scorer(pipe, X_te, y_te))
-        train_score = float(scorer(pipe, X_tr, y_tr))
+        test_score = float(scorer(model, X_te, y_te))
+        train_score = float(scorer(model, X_tr, y_tr))
     except ValueError as exc:
         if _looks_diverged(exc):
             result["status"] = DIVERGED
