@@ -201,6 +201,8 @@ class _Net:
             pos += (a + 1) * b
         self._l2_buf = np.empty_like(self.theta)
         self._l2_alpha = None
+        self._keeps_one = [h in _FIXES_ONE for h in hidden]
+        self._view_cache = {}
         self._bufs_for = 0
 
     # buffers ----------------------------------------------------------------
@@ -225,6 +227,7 @@ class _Net:
                   for i in range(len(self.units) - 1)]
         self.D = [np.empty_like(buf) for buf in self.Aaug]  # deltas
         self.S = [np.empty_like(buf) for buf in self.Aaug[:-1]]  # scratch per hidden layer
+        self._view_cache = {}
         self._bufs_for = m
 
     def layer_out(self, i, m):
@@ -233,22 +236,37 @@ class _Net:
         return self.Aaug[i][:m, :u]
 
     # passes -----------------------------------------------------------------
+    def _views(self, m):
+        """Per-layer views of the buffers for batches of m rows (cached per m)."""
+        v = self._view_cache.get(m)
+        if v is None:
+            self._ensure(m)
+            v = []
+            for i in range(len(self.P)):
+                full = self.Aaug[i][:m]
+                z = self.Z[i][:m] if self.Z[i] is not None else None
+                d = self.D[i][:m]
+                hidden = i < len(self.hidden)
+                v.append((self.layer_out(i, m), full, z, d, d[:, :-1] if hidden else d,
+                          self.S[i][:m] if hidden else None))
+            self._view_cache[m] = v
+        return v
+
     def forward(self, Xaug, m):
         """Every layer's output for the m rows of ``Xaug`` (inputs + ones column)."""
         a = Xaug
         last = len(self.P) - 1
+        views = self._views(m)
         for i, P in enumerate(self.P):
-            out = self.layer_out(i, m)
+            out, full, zbuf, _, _, _ = views[i]
             np.matmul(a, P, out=out)
-            full = self.Aaug[i][:m]
-            zbuf = self.Z[i]
             if zbuf is not None:
-                np.copyto(zbuf[:m], full)
+                np.copyto(zbuf, full)
             if i < last:
                 # apply on the whole contiguous buffer, then restore the ones column
                 # where the activation does not map 1 to 1
                 self.hidden[i].apply_(full, **self.hp[i])
-                if self.hidden_names[i] not in _FIXES_ONE:
+                if not self._keeps_one[i]:
                     full[:, -1] = 1
                 a = full
             else:
@@ -302,7 +320,8 @@ class _Net:
         """
         p = self.forward(Xaug, m)
         last = len(self.P) - 1
-        delta = self.D[last][:m]
+        views = self._views(m)
+        delta = views[last][3]
         np.subtract(p, y, out=delta)
         head = self.head
         if head.loss == "squared_error":
@@ -311,8 +330,7 @@ class _Net:
         else:
             loss = self.data_loss(y, p)
         if not head.canonical:
-            z = self.Z[last][:m] if self.Z[last] is not None else None
-            delta *= head.delta_factor(z, p)
+            delta *= head.delta_factor(views[last][2], p)
         if alpha:
             # alpha * W in one pass over the flat buffer (zeros at the intercepts)
             if self._l2_alpha != alpha:
@@ -323,15 +341,13 @@ class _Net:
             loss += 0.5 * float(np.dot(self.theta, l2buf)) / m
         names = self.hidden_names
         for i in range(last, -1, -1):
-            a_prev = Xaug if i == 0 else self.Aaug[i - 1][:m]
+            a_prev = Xaug if i == 0 else views[i - 1][1]
             np.matmul(a_prev.T, delta, out=self.G[i])
             if i > 0:
                 # full width: the column for the ones is computed and then ignored
-                nd = self.D[i - 1][:m]
+                _, ai, zi, nd, nd_view, sc = views[i - 1]
                 np.matmul(delta, self.P[i].T, out=nd)
                 name = names[i - 1]
-                ai = self.Aaug[i - 1][:m]
-                sc = self.S[i - 1][:m]
                 if name == "relu":
                     np.greater(ai, 0, out=sc)  # 1.0 where active (faster than a bool mask)
                     nd *= sc
@@ -347,9 +363,8 @@ class _Net:
                     np.subtract(1, ai, out=sc)
                     nd *= sc
                 else:
-                    zi = self.Z[i - 1][:m] if self.Z[i - 1] is not None else None
                     nd *= self.hidden[i - 1].derivative(zi, ai, **self.hp[i - 1])
-                delta = nd[:, :-1]
+                delta = nd_view
         if alpha:
             self.grad += l2buf
         if scale:
