@@ -310,3 +310,9 @@ def test_unseen_category_and_new_gaps_at_prediction_time():
     later.loc[1, "x2"] = np.nan
     np.testing.assert_allclose(ox.run_onnx(model, later)["variable"].ravel(),
                                pipe.predict(later), rtol=TOL, atol=TOL)
+
+
+def test_boolean_labels_travel_as_text():
+    pipe = _fit(NetClassifier((4,), "relu", max_iter=5, random_state=0), BINARY == "high")
+    out = ox.run_onnx(ox.pipeline_to_onnx(pipe, TABLE), TABLE)
+    np.testing.assert_array_equal(out["label"].ravel(), pipe.predict(TABLE).astype(str))

@@ -231,8 +231,10 @@ def _net_regressor_convert(scope, operator, container):
 
 
 def _label_kind(classes) -> str:
+    # integer labels stay int64; everything else (text, booleans, floats) travels as text,
+    # spelled as str() spells the label (True, 0.5, ...)
     classes = np.asarray(classes)
-    if classes.dtype.kind in "iub":
+    if classes.dtype.kind in "iu":
         return "int"
     return "str"
 
