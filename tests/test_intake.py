@@ -425,3 +425,13 @@ def test_load_benchmark_quick_run_reports_its_figures():
     assert fig["memory_over_payload"] == pytest.approx(fig["peak_mb"] / fig["payload_mb"],
                                                        rel=0.02)
     assert len(res["lines"]) == 2
+
+
+def test_spreadsheet_sep_line_names_the_delimiter(tmp_path):
+    path = _write(tmp_path / "hint.csv", "sep=;\na;b\n1,5;x\n2,5;y\n")
+    got, rep = load_table(path)
+    assert rep.delimiter == ";" and rep.decimal == ","
+    assert list(got.columns) == ["a", "b"] and got["a"].tolist() == [1.5, 2.5]
+    bad = _write(tmp_path / "hint_bad.csv", "sep=;\na;b\n1;2\n3;4;5\n")
+    with pytest.raises(InputError, match="line 4 has 3 fields"):
+        load_table(bad)

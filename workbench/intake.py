@@ -1,8 +1,8 @@
 """Load a table from disk: one entry point, one report, one kind of error.
 
 :func:`load_table` reads ``.csv``, ``.tsv`` and ``.txt`` (delimiter sniffed among
-comma, semicolon, tab and pipe; decimal comma recognised when the delimiter is a
-semicolon; UTF-8 with or without BOM, UTF-16 with BOM, Latin-1 as the fallback),
+comma, semicolon, tab and pipe, or named by a spreadsheet's ``sep=;`` first line;
+decimal comma recognised when the delimiter is a semicolon; UTF-8 with or without BOM, UTF-16 with BOM, Latin-1 as the fallback),
 ``.xlsx`` (first sheet unless one is named; openpyxl) and ``.parquet`` (pyarrow).
 Text tables are parsed with pandas' pyarrow engine (multi-threaded, the fastest
 one pandas offers); pandas' C engine is the fallback for files pyarrow refuses.
@@ -73,6 +73,7 @@ _SNIFF_LINES = 200
 #: block of the streaming CSV reader; column types are inferred from the first block
 _BLOCK_BYTES = 16 << 20
 
+_SEP_HINT = re.compile(r'^"?sep=([,;\t|])"?$')
 _DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+\s*$")
 _DECIMAL_POINT = re.compile(r"^\s*[-+]?\d*\.\d+\s*$")
 _ISO_DATE = re.compile(
@@ -307,13 +308,16 @@ def _check_duplicates(names, fname: str):
                          "unique name in the header")
 
 
-def _first_ragged_line(source, encoding: str, delim: str) -> tuple[int, int, int] | None:
+def _first_ragged_line(source, encoding: str, delim: str,
+                       skip: int = 0) -> tuple[int, int, int] | None:
     """(line number, fields found, fields expected) of the first ragged row, or None."""
     if isinstance(source, bytes | bytearray):
         fh = io.TextIOWrapper(io.BytesIO(source), encoding=encoding, errors="replace", newline="")
     else:
         fh = open(source, encoding=encoding, errors="replace", newline="")  # noqa: SIM115
     with fh:
+        for _ in range(skip):
+            fh.readline()
         reader = csv.reader(fh, delimiter=delim)
         expected = None
         try:
@@ -324,7 +328,7 @@ def _first_ragged_line(source, encoding: str, delim: str) -> tuple[int, int, int
                     expected = len(row)
                     continue
                 if len(row) != expected:
-                    return reader.line_num, len(row), expected
+                    return reader.line_num + skip, len(row), expected
         except csv.Error:
             return None
     return None
@@ -337,7 +341,7 @@ _NULL_MARKERS = ["", "#N/A", "#N/A N/A", "#NA", "-1.#IND", "-1.#QNAN", "-NaN", "
                  "nan", "null"]
 
 
-def _read_arrow(source, encoding: str, delim: str, decimal: str):
+def _read_arrow(source, encoding: str, delim: str, decimal: str, skip: int = 0):
     """Parse with pyarrow's streaming CSV reader, one column at a time into pandas.
 
     Batches are kept per column and each column is converted (and its Arrow
@@ -350,7 +354,8 @@ def _read_arrow(source, encoding: str, delim: str, decimal: str):
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
-    read = pacsv.ReadOptions(encoding=encoding, block_size=_BLOCK_BYTES, use_threads=True)
+    read = pacsv.ReadOptions(encoding=encoding, block_size=_BLOCK_BYTES, use_threads=True,
+                             skip_rows=skip)
     parse = pacsv.ParseOptions(delimiter=delim, ignore_empty_lines=True)
     convert = pacsv.ConvertOptions(null_values=_NULL_MARKERS, strings_can_be_null=True,
                                    decimal_point=decimal,
@@ -401,7 +406,15 @@ def _read_text(p: Path, ext: str) -> tuple[pd.DataFrame, LoadReport]:
     lines = _sample_lines(text, truncated)
     if not lines:
         raise InputError(f"{p.name} contains only blank lines; choose a file that contains a table")
-    delim = _sniff_delimiter(lines, ext)
+    skip = 0
+    hint = _SEP_HINT.match(lines[0].strip())
+    if hint and text.lstrip().startswith(lines[0].strip()):
+        # a spreadsheet's "sep=;" first line names the delimiter
+        delim, skip, lines = hint.group(1), 1, lines[1:]
+        if not lines:
+            raise InputError(f"{p.name} has only a 'sep=' line; add a header and rows")
+    else:
+        delim = _sniff_delimiter(lines, ext)
     decimal = _sniff_decimal(lines, delim)
     header = _header_fields(lines, delim)
     _check_duplicates(header, p.name)
@@ -413,21 +426,22 @@ def _read_text(p: Path, ext: str) -> tuple[pd.DataFrame, LoadReport]:
     def src():
         return io.BytesIO(source) if isinstance(source, bytes) else str(p)
 
-    opts = dict(sep=delim, decimal=decimal, skip_blank_lines=True)
+    opts = dict(sep=delim, decimal=decimal, skip_blank_lines=True, skiprows=skip)
     df = None
     try:
-        df = _read_arrow(src(), read_enc, delim, decimal)
+        df = _read_arrow(src(), read_enc, delim, decimal, skip)
         report.engine = "pyarrow"
         if df is _NOT_UTF8:
             # invalid UTF-8 further down the file: read it again as Latin-1
             report.encoding = read_enc = "latin-1"
-            df = _read_arrow(src(), read_enc, delim, decimal)
+            df = _read_arrow(src(), read_enc, delim, decimal, skip)
             if df is _NOT_UTF8:  # pragma: no cover - Latin-1 decodes every byte
                 df = None
     except Exception:  # noqa: BLE001 - any pyarrow refusal: diagnose, then fall back
         df = None
     if df is None:
-        bad = _first_ragged_line(source if isinstance(source, bytes) else p, read_enc, delim)
+        bad = _first_ragged_line(source if isinstance(source, bytes) else p, read_enc, delim,
+                                 skip)
         if bad is not None:
             line, got, want = bad
             raise InputError(
