@@ -114,6 +114,13 @@ def load_data(plan: SweepPlan):
         raise InputError(f"target {plan.target!r} is now a {target.task} target, but the plan "
                          f"was made for {plan.task}; start a new sweep")
     profile = profile_table(df, target=plan.target)
+    for name, role in (plan.roles or {}).items():  # the user's role changes (the window)
+        try:
+            col = profile.column(name)
+        except KeyError:
+            raise InputError(f"column {name!r} of the plan's roles is not in {plan.table}; "
+                             "start a new sweep") from None
+        col.role, col.reason = role, "set by the user"
     X, y = split_xy(df, target)
     return TrialData(X=X, y=y, profile=profile, target=target), table_fingerprint(plan.table, df)
 
@@ -333,32 +340,41 @@ class _Run:
             if self.cancel.is_set():
                 self.cancel_running()
                 return True
-            # fill free workers; a suspect runs only on an otherwise idle pool
-            while len(self.running) < executor.workers:
-                if suspects:
-                    if self.running:
-                        break
-                    trial, attempt = suspects.popleft()
-                elif pending:
-                    trial, attempt = pending.popleft()
-                else:
-                    break
-                handle = executor.submit(self.spec(trial, attempt))
-                self.running[handle] = (trial, attempt)
-                self.started(trial, attempt)
-                if attempt > 1:
-                    break
+            self._fill(executor, pending, suspects)
             # a trial that finished is stored even when a cancel came meanwhile
+            to_store = []
             for handle, outcome, error in executor.wait(list(self.running), POLL_SECONDS):
                 trial, attempt = self.running.pop(handle)
                 if error is None:
                     outcome["attempts"] = attempt
-                    self.finished(outcome)
+                    to_store.append(outcome)
                 elif attempt <= retries:
                     suspects.append((trial, attempt + 1))
                 else:
-                    self.finished(self.lost(trial, attempt, error))
+                    to_store.append(self.lost(trial, attempt, error))
+            if to_store and executor.asynchronous and not self.cancel.is_set():
+                # hand the idle workers new trials before the commit, so they never wait for it
+                self._fill(executor, pending, suspects)
+            for res in to_store:
+                self.finished(res)
         return False
+
+    def _fill(self, executor, pending, suspects):
+        """Give free workers trials; a retried trial runs only on an otherwise idle pool."""
+        while len(self.running) < executor.workers:
+            if suspects:
+                if self.running:
+                    return
+                trial, attempt = suspects.popleft()
+            elif pending:
+                trial, attempt = pending.popleft()
+            else:
+                return
+            handle = executor.submit(self.spec(trial, attempt))
+            self.running[handle] = (trial, attempt)
+            self.started(trial, attempt)
+            if attempt > 1:
+                return
 
 
 # --------------------------------------------------------------------------- executors
@@ -367,6 +383,7 @@ class _Run:
 class _InlineExecutor:
     name = "inline"
     workers = 1
+    asynchronous = False  # submit() runs the trial at once
 
     def __init__(self, data):
         self.data = data
@@ -394,6 +411,7 @@ class _LokyExecutor:
     """
 
     name = "processes"
+    asynchronous = True
 
     def __init__(self, jobs, data):
         import tempfile
@@ -459,6 +477,7 @@ class _DaskExecutor:
     """Futures on a Dask distributed cluster; the table is scattered once."""
 
     name = "dask"
+    asynchronous = True
 
     def __init__(self, cluster, data):
         from distributed import Client

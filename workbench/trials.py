@@ -33,6 +33,7 @@ import math
 import os
 import secrets
 import socket
+import threading
 import time
 import traceback
 import warnings
@@ -244,6 +245,7 @@ def run_trial(data: TrialData, spec: dict) -> dict:
 _FOLD_CACHE: collections.OrderedDict = collections.OrderedDict()
 #: how many folds' features a worker keeps (trials go out fold by fold, so a few suffice)
 FOLD_CACHE_SIZE = 3
+_FOLD_LOCK = threading.Lock()
 
 
 def _fold_features(data: TrialData, spec: dict, prep, train, test):
@@ -256,19 +258,21 @@ def _fold_features(data: TrialData, spec: dict, prep, train, test):
     worker. The arrays are read-only so that no estimator can alter them.
     """
     key = (data.token, int(spec["repeat"]), int(spec["fold"]))
-    hit = _FOLD_CACHE.get(key)
-    if hit is not None:
-        _FOLD_CACHE.move_to_end(key)
-        return hit
+    with _FOLD_LOCK:  # Dask runs several trials per worker process, in threads
+        hit = _FOLD_CACHE.get(key)
+        if hit is not None:
+            _FOLD_CACHE.move_to_end(key)
+            return hit
     Xt_tr = np.asarray(prep.fit_transform(data.X.iloc[train], np.asarray(data.y)[train]))
     Xt_te = np.asarray(prep.transform(data.X.iloc[test]))
     Xt_tr.flags.writeable = False
     Xt_te.flags.writeable = False
-    for k in [k for k in _FOLD_CACHE if k[0] != data.token]:
-        del _FOLD_CACHE[k]
-    _FOLD_CACHE[key] = (Xt_tr, Xt_te)
-    while len(_FOLD_CACHE) > FOLD_CACHE_SIZE:
-        _FOLD_CACHE.popitem(last=False)
+    with _FOLD_LOCK:
+        for k in [k for k in _FOLD_CACHE if k[0] != data.token]:
+            del _FOLD_CACHE[k]
+        _FOLD_CACHE[key] = (Xt_tr, Xt_te)
+        while len(_FOLD_CACHE) > FOLD_CACHE_SIZE:
+            _FOLD_CACHE.popitem(last=False)
     return Xt_tr, Xt_te
 
 
