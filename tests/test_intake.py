@@ -435,3 +435,55 @@ def test_spreadsheet_sep_line_names_the_delimiter(tmp_path):
     bad = _write(tmp_path / "hint_bad.csv", "sep=;\na;b\n1;2\n3;4;5\n")
     with pytest.raises(InputError, match="line 4 has 3 fields"):
         load_table(bad)
+
+
+def test_nullable_parquet_columns_become_numpy_backed(tmp_path):
+    import warnings
+
+    from sklearn.neural_network import MLPRegressor
+
+    from workbench.preprocessing import build_pipeline
+    from workbench.profiling import analyse_target, profile_table, split_xy
+
+    rng = np.random.default_rng(0)
+    n = 50
+    df = pd.DataFrame({
+        "i": pd.array(list(range(25)) + [None] * 25, dtype="Int64"),
+        "f": pd.array(rng.normal(size=n), dtype="Float64"),
+        "b": pd.array([True, False, None, True, False] * 10, dtype="boolean"),
+        "s": pd.array(["a", "b", None, "c", "a"] * 10, dtype="string"),
+        "c": pd.Categorical(["x", "y"] * 25),
+        "y": rng.normal(size=n),
+    })
+    path = tmp_path / "nullable.parquet"
+    df.to_parquet(path)
+    got, _ = load_table(path)
+    assert got["i"].dtype == np.float64 and got["i"].isna().sum() == 25
+    assert got["b"].dtype == object and got["b"].isna().sum() == 10
+    assert got["s"].isna().sum() == 10 and got["c"].tolist() == df["c"].tolist()
+    # scikit-learn's imputers accept every column now (pd.NA would make them fail)
+    prof = profile_table(got, target="y")
+    t = analyse_target(got, "y")
+    X, y = split_xy(got, t)
+    pipe = build_pipeline(prof, t, MLPRegressor(hidden_layer_sizes=(3,), max_iter=3), "identity")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        pipe.fit(X, y)
+    assert np.isfinite(pipe.predict(X)).all()
+
+
+def test_many_blocks_give_the_same_table_as_pandas_c_parser(tmp_path, monkeypatch):
+    # small blocks: the column-by-column assembly of many Arrow chunks is exercised
+    monkeypatch.setattr(intake, "_BLOCK_BYTES", 16 << 10)
+    rng = np.random.default_rng(7)
+    n = 20_000
+    df = pd.DataFrame({"a": np.round(rng.normal(size=n), 5), "b": rng.integers(-50, 50, n),
+                       "c": rng.choice(["p", "q", "r"], n), "d": np.round(rng.uniform(size=n), 3)})
+    df.loc[rng.random(n) < 0.05, "a"] = np.nan
+    df.loc[rng.random(n) < 0.05, "c"] = np.nan
+    path = tmp_path / "blocks.csv"
+    df.to_csv(path, index=False)
+    got, rep = load_table(path)
+    assert rep.engine == "pyarrow"
+    ref = pd.read_csv(path, engine="c")
+    pd.testing.assert_frame_equal(got, ref, check_dtype=False)

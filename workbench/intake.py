@@ -22,7 +22,8 @@ with no name and no values (a trailing delimiter) are dropped (and reported).
 ISO-like date / time text and date cells become ``datetime64`` columns
 (timezone-aware values are converted to UTC and made naive); boolean columns
 with gaps keep ``True`` / ``False`` / ``NaN`` in an object column; text cells
-are strings, missing cells are ``NaN``; infinite numbers are read as missing (with
+are strings, missing cells are ``NaN`` (nullable and Arrow-backed columns of a
+Parquet file become NumPy-backed ones); infinite numbers are read as missing (with
 a warning in the report).
 
 LoadReport fields
@@ -610,7 +611,33 @@ def _tidy(df: pd.DataFrame, report: LoadReport, fname: str) -> pd.DataFrame:
     return df
 
 
+def _plain_dtypes(s: pd.Series) -> pd.Series:
+    """Nullable / Arrow-backed columns (pd.NA) as NumPy-backed ones (NaN), which
+    scikit-learn's imputers understand."""
+    dt = s.dtype
+    if not isinstance(dt, pd.api.extensions.ExtensionDtype) or \
+            isinstance(dt, pd.CategoricalDtype | pd.DatetimeTZDtype):
+        return s
+    if isinstance(dt, pd.StringDtype) and dt.na_value is not pd.NA:
+        return s  # pandas' default text dtype: missing is already NaN
+    has_na = bool(s.isna().any())
+    if pd.api.types.is_bool_dtype(dt):
+        if not has_na:
+            return s.astype(bool)
+        return s.astype(object).where(s.notna(), np.nan)
+    if pd.api.types.is_integer_dtype(dt) and not has_na:
+        return s.astype(np.int64)
+    if pd.api.types.is_numeric_dtype(dt):
+        return pd.Series(s.to_numpy(dtype=np.float64, na_value=np.nan), index=s.index,
+                         name=s.name)
+    if pd.api.types.is_datetime64_any_dtype(dt):
+        return pd.Series(s.to_numpy(dtype="datetime64[ns]", na_value=np.datetime64("NaT")),
+                         index=s.index, name=s.name)
+    return s.astype(object).where(s.notna(), np.nan)
+
+
 def _normalise_column(s: pd.Series, report: LoadReport) -> pd.Series:
+    s = _plain_dtypes(s)
     dt = s.dtype
     if isinstance(dt, pd.DatetimeTZDtype):
         return s.dt.tz_convert("UTC").dt.tz_localize(None)
