@@ -212,7 +212,7 @@ def test_changed_table_is_refused(tmp_path):
 
 
 def test_cli_exit_status(sweep, tmp_path, capsys):
-    store, sweep_id, *_ = sweep
+    store, sweep_id, table, *_ = sweep
     db = str(store.path)
     assert main(["export", sweep_id, "--to", str(tmp_path / "a"), "--formats", "json",
                  "--store", db, "--quiet"]) == 0
@@ -224,5 +224,20 @@ def test_cli_exit_status(sweep, tmp_path, capsys):
                  "--store", db]) == 2
     (tmp_path / "file").write_text("x")
     assert main(["export", sweep_id, "--to", str(tmp_path / "file"), "--store", db]) == 2
+    assert main(["export", sweep_id, "--to", str(tmp_path / "file" / "sub"), "--store", db]) == 2
+    # the table moved: --table names its new place, and its SHA-256 is checked
+    moved = tmp_path / "moved.csv"
+    moved.write_bytes(table.read_bytes())
+    table.rename(tmp_path / "hidden.csv")
+    try:
+        assert main(["export", sweep_id, "--to", str(tmp_path / "e"), "--store", db,
+                     "--formats", "json"]) == 2
+        assert "--table" in capsys.readouterr().err
+        assert main(["export", sweep_id, "--to", str(tmp_path / "e"), "--store", db,
+                     "--formats", "json", "--table", str(moved), "--quiet"]) == 0
+        conf = json.loads((tmp_path / "e" / ex.CONFIGURATION_NAME).read_text())
+        assert conf["table"]["path"] == str(moved)
+    finally:
+        (tmp_path / "hidden.csv").rename(table)
     err = capsys.readouterr().err
     assert err.count("workbench: ") >= 4 and "Traceback" not in err

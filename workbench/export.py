@@ -562,7 +562,7 @@ def _swap_into_place(tmp: Path, folder: Path) -> None:
 
 
 def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
-                         formats=None, on_progress=None) -> Path:
+                         formats=None, on_progress=None, table=None) -> Path:
     """Export one configuration of a stored sweep into ``folder``.
 
     Parameters
@@ -577,6 +577,10 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
         Keys of :data:`FORMATS` (default: all).
     on_progress : callable, optional
         ``on_progress(message, fraction)`` with ``fraction`` in [0, 1].
+    table : path, optional
+        Where the sweep's table is now, when the path stored with the sweep does
+        not reach it (e.g. a relative path and another working folder); its
+        SHA-256 must match the sweep's.
 
     Returns
     -------
@@ -603,6 +607,11 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
     chosen = choose_configuration(results, rank_or_best)
     _prepare_folder(folder)
     plan = SweepPlan.from_dict(results["plan"])
+    if table is not None:
+        plan.table = str(table)
+    if not Path(plan.table).expanduser().is_file():
+        raise InputError(f"the sweep's table {plan.table} is not found from {Path.cwd()}; "
+                         "give its current path (--table PATH; its SHA-256 is checked)")
     progress("loading the table", 0.05)
     data, fingerprint = load_data(plan)
     stored = results["fingerprint"]

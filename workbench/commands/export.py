@@ -1,4 +1,5 @@
-"""``workbench export SWEEP_ID [--config RANK|best] --to FOLDER [--formats ...] [--store PATH]``.
+"""``workbench export SWEEP_ID [--config RANK|best] --to FOLDER [--formats ...] [--store PATH]
+[--table PATH]``.
 
 Exports one configuration of a stored sweep (default: the best) into FOLDER:
 configuration JSON, the refitted pipeline (skops, joblib, ONNX), reproduce.py,
@@ -29,6 +30,9 @@ def add_arguments(parser):
                         help=f"comma-separated subset of: {','.join(FORMATS)} (default: all)")
     parser.add_argument("--store", metavar="PATH", default=None,
                         help="the store file (default: the user's data folder)")
+    parser.add_argument("--table", metavar="PATH", default=None,
+                        help="the sweep's table, when its stored path no longer reaches it "
+                             "(its SHA-256 must match)")
     parser.add_argument("--quiet", action="store_true", help="print only the folder")
 
 
@@ -39,6 +43,7 @@ def run(args) -> int:
 
     with Store(args.store) as store:
         folder = export_configuration(store, args.sweep_id, args.config, args.folder,
-                                      formats=args.formats, on_progress=progress)
+                                      formats=args.formats, on_progress=progress,
+                                      table=args.table)
     print(folder)
     return 0
