@@ -268,6 +268,10 @@ class SweepPlan:
     refused_heads, head_warnings : dict
         ``{head: reason}`` from the intake's compatibility guard: heads left out
         of the grid, and heads kept with a warning.
+    roles : dict
+        ``{column: "feature" | "ignore"}``: the user's changes to the profile's
+        column roles (the window's profile table); applied by
+        :func:`workbench.runner.load_data` before the preprocessing is built.
     """
 
     table: str
@@ -292,6 +296,7 @@ class SweepPlan:
     requested_output: str = "auto"
     refused_heads: dict = field(default_factory=dict)
     head_warnings: dict = field(default_factory=dict)
+    roles: dict = field(default_factory=dict)
 
     def __post_init__(self):
         self.validate()
@@ -306,6 +311,10 @@ class SweepPlan:
             self.heads = list(dict.fromkeys(resolve_head(h, self.task).name for h in self.heads))
         except ValueError as exc:
             raise InputError(str(exc)) from None
+        bad_roles = {c: r for c, r in dict(self.roles).items() if r not in ("feature", "ignore")}
+        if bad_roles or self.target in self.roles:
+            raise InputError(f"column roles must be feature or ignore (and not for the target), "
+                             f"got {bad_roles or {self.target: self.roles[self.target]}}")
         if not self.hidden:
             raise InputError("the plan has no hidden activation to try; name at least one")
         if not self.heads:
