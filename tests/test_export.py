@@ -225,6 +225,8 @@ def test_cli_exit_status(sweep, tmp_path, capsys):
     (tmp_path / "file").write_text("x")
     assert main(["export", sweep_id, "--to", str(tmp_path / "file"), "--store", db]) == 2
     assert main(["export", sweep_id, "--to", str(tmp_path / "file" / "sub"), "--store", db]) == 2
+    err = capsys.readouterr().err
+    assert err.count("workbench: ") >= 4 and "Traceback" not in err
     # the table moved: --table names its new place, and its SHA-256 is checked
     moved = tmp_path / "moved.csv"
     moved.write_bytes(table.read_bytes())
@@ -239,5 +241,3 @@ def test_cli_exit_status(sweep, tmp_path, capsys):
         assert conf["table"]["path"] == str(moved)
     finally:
         (tmp_path / "hidden.csv").rename(table)
-    err = capsys.readouterr().err
-    assert err.count("workbench: ") >= 4 and "Traceback" not in err
