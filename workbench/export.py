@@ -339,6 +339,11 @@ def build_configuration(ctx: ExportContext) -> dict:
                          "steps": ["DateParts()", "SimpleImputer(strategy='median')",
                                    "StandardScaler()"]},
             "target_scaling": scaling,
+            "ignored": [{"column": c.name, "type": c.type, "reason": c.reason}
+                        for c in ctx.data.profile.columns
+                        if c.name != target.name
+                        and c.name not in groups["numeric"] + groups["categorical"]
+                        + groups["datetime"]],
         },
         "model": {
             "engine": chosen["engine"],
