@@ -217,19 +217,45 @@ def test_a_drag_without_files_is_refused(window):
     assert not ev.isAccepted()
 
 
-def test_refused_heads_are_disabled_with_the_reason(qtbot, window):
-    # a signed target: heads that cannot go below zero are refused by the guard
-    load_by_drop(qtbot, window, SAMPLES / "greenhouse_temp.csv")
-    from workbench.profiling import check_head
+@pytest.mark.parametrize("table, kind", [("greenhouse_temp.csv", "signed"),
+                                         ("kiln_batches.csv", "binary")])
+def test_refused_heads_are_disabled_with_the_reason(qtbot, window, table, kind):
+    # the sweep's own guard (workbench.plan.resolve_heads) decides; the window only shows it
+    from workbench.plan import resolve_heads
 
+    load_by_drop(qtbot, window, SAMPLES / table)
     info = window.summary.target
-    assert info.kind == "signed"
+    assert info.kind == kind
+    refused_any = False
     for name, box in window.setup.head_grid.boxes.items():
-        verdict = check_head(info, name)
-        assert box.isEnabled() == verdict.allowed, name
-        if not verdict.allowed:
-            assert verdict.reason in box.toolTip()
+        try:
+            _, refused, _ = resolve_heads(info, [name])
+        except InputError as exc:
+            refused = {name: str(exc)}
+        assert box.isEnabled() == (name not in refused), name
+        if name in refused:
+            refused_any = True
+            assert refused[name] in box.toolTip()
             assert not box.isChecked()
+    assert refused_any
+
+
+def test_changed_roles_go_into_the_plan(qtbot, window):
+    load_by_drop(qtbot, window, SAMPLES / "coffee_roast.csv")
+    model = window.profile_model
+    target = window.summary.target.name
+    feature = next(c["name"] for c in model.columns() if c["role"] == "feature")
+    row = next(i for i, c in enumerate(model.columns()) if c["name"] == feature)
+    assert model.setData(model.index(row, 4), "ignore")
+    plan, msg = window._plan()
+    assert plan is not None, msg
+    assert plan.roles == {feature: "ignore"}
+    assert target not in plan.roles
+    # and the runner applies it: the column leaves the features
+    from workbench.runner import load_data
+
+    data, _ = load_data(plan)
+    assert data.profile.column(feature).role == "ignore"
 
 
 # --------------------------------------------------------------------------- stop

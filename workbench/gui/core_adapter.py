@@ -59,12 +59,36 @@ class TargetSummary:
         return self.target.task
 
 
+@dataclass(frozen=True)
+class HeadVerdict:
+    """The sweep's guard on one head: allowed, with a warning, or refused (and why)."""
+
+    allowed: bool
+    warning: bool
+    reason: str
+
+
+def head_verdict(info, head: str) -> HeadVerdict:
+    """What the sweep's plan would do with ``head`` (:func:`workbench.plan.resolve_heads`)."""
+    from workbench.plan import resolve_heads
+
+    try:
+        _, refused, warns = resolve_heads(info, [head])
+    except InputError as exc:
+        return HeadVerdict(False, False, str(exc))
+    if head in refused:
+        return HeadVerdict(False, False, refused[head])
+    if head in warns:
+        return HeadVerdict(True, True, warns[head])
+    return HeadVerdict(True, False, "")
+
+
 def summarise_target(df, name: str) -> TargetSummary:
-    from workbench.profiling import advise, analyse_target, check_head
+    from workbench.profiling import advise, analyse_target
 
     info = analyse_target(df, name)
     adv = advise(info)
-    heads = [(h, check_head(info, h)) for h in activations.head_names(info.task)]
+    heads = [(h, head_verdict(info, h)) for h in activations.head_names(info.task)]
     return TargetSummary(target=info, advice=adv, heads=heads)
 
 
@@ -121,37 +145,43 @@ def fmt_seconds(s: float | None) -> str:
 # --------------------------------------------------------------------------- plan
 
 
-def plan_supports_roles() -> bool:
-    """Whether the core's plan can carry role changes (ignored columns)."""
-    from workbench.plan import SweepPlan
-
-    return "ignore" in getattr(SweepPlan, "__dataclass_fields__", {})
-
-
 def build_plan(table: LoadedTable, summary: TargetSummary, choices: dict,
                roles: dict[str, str] | None = None):
-    """The core's :class:`SweepPlan` for the window's choices (InputError when impossible)."""
-    from workbench.plan import SweepPlan
+    """The core's :class:`SweepPlan` for the window's choices (InputError when impossible).
+
+    ``roles`` is the profile table's ``{column: role}``; the columns whose role
+    differs from the intake's profile go into the plan's ``roles``.
+    """
+    from workbench.plan import build_plan as core_build_plan
 
     info = summary.target
     if not choices.get("hidden"):
         raise InputError("tick at least one hidden activation to sweep")
     if not choices.get("heads"):
         raise InputError("tick at least one output head that the guard allows for this target")
-    kw = dict(table=str(table.path), target=info.name, task=info.task,
-              target_kind=info.kind, hidden=list(choices["hidden"]),
-              heads=list(choices["heads"]), layers=list(choices.get("layers") or ["32"]),
-              learning_rates=list(choices.get("learning_rates") or []),
-              alphas=list(choices.get("alphas") or []),
-              folds=int(choices["folds"]), repeats=int(choices["repeats"]),
-              epochs=int(choices["epochs"]), early_stopping=bool(choices.get("early_stopping")),
-              metric=choices.get("metric") or None, requested_output=",".join(choices["heads"]))
-    if roles and plan_supports_roles():
-        kw["ignore"] = sorted(n for n, r in roles.items() if r == "ignore")
-    try:
-        return SweepPlan(**kw)
-    except (TypeError, ValueError) as exc:
-        raise InputError(str(exc)) from None
+    for key, what in (("learning_rates", "learning rate"), ("alphas", "L2 strength")):
+        bad = [v for v in choices.get(key) or [] if isinstance(v, str)]
+        if bad:
+            raise InputError(f"{what} {bad[0]!r} is not a number; write e.g. 0.001 0.01")
+    plan = core_build_plan(
+        table.path, info.name, hidden=list(choices["hidden"]), output=list(choices["heads"]),
+        layers=list(choices.get("layers") or ["32"]),
+        learning_rates=list(choices.get("learning_rates") or []) or None,
+        alphas=list(choices.get("alphas") or []) or None,
+        folds=int(choices["folds"]), repeats=int(choices["repeats"]),
+        epochs=int(choices["epochs"]), early_stopping=bool(choices.get("early_stopping")),
+        metric=choices.get("metric") or None, df=table.df, target_info=info)
+    if roles:
+        base = {c["name"]: c["role"] for c in table.columns}
+        changed = {n: r for n, r in roles.items()
+                   if n != info.name and r != "target" and base.get(n) != r}
+        # the profile's own target candidate counts as a feature when another target is chosen
+        changed = {n: r for n, r in changed.items()
+                   if not (base.get(n) == "target" and r == "feature")}
+        if changed:
+            plan.roles = changed
+            plan.validate()
+    return plan
 
 
 def _work_units(layers, n_features: int, n_rows: float, epochs: float) -> float:
