@@ -323,6 +323,10 @@ def render_report(results: dict, chosen: dict, configuration: dict | None, trial
           f"{esc(str(advice['reason']).rstrip('.'))}.</p>")
         w(f"<p>The exported configuration <b>{esc(followed)}</b> the advice: it uses the "
           f"<b>{esc(chosen['head'])}</b> head.</p>")
+        if advice.get("hidden_default"):
+            same = "the usual default" if chosen["hidden"] == advice["hidden_default"] else (
+                f"instead of the usual default, {advice['hidden_default']}")
+            w(f"<p>Hidden layers: <b>{esc(chosen['hidden'])}</b>, {esc(same)}.</p>")
     w("<table>")
     rows = (("hidden activation", chosen["hidden"]), ("output head", chosen["head"]),
             ("loss", model.get("loss_label") or model.get("loss")),
