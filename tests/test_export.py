@@ -107,6 +107,17 @@ def test_reproduce_script_prints_the_stored_fold_scores(sweep):
         assert abs(printed[key] - value) <= 1e-9, key
 
 
+def test_reproduce_script_reports_a_mismatch(sweep, tmp_path):
+    folder = sweep[3]
+    conf = json.loads((folder / ex.CONFIGURATION_NAME).read_text())
+    conf["scores"]["fold_scores"][0]["test_score"] += 1e-6  # far above the 1e-9 tolerance
+    edited = tmp_path / "configuration.json"
+    edited.write_text(json.dumps(conf))
+    proc = subprocess.run([sys.executable, str(folder / ex.SCRIPT_NAME), "--config",
+                           str(edited)], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 1 and "MISMATCH" in proc.stdout
+
+
 def test_reproduce_script_refuses_a_changed_table(sweep, tmp_path):
     _, _, table, folder, _ = sweep
     changed = tmp_path / "changed.csv"
