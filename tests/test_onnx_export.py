@@ -149,7 +149,7 @@ def test_awkward_column_names_and_saved_file(tmp_path):
         pipe.fit(table, _signal)
     path = tmp_path / "m.onnx"
     onnx.save(ox.pipeline_to_onnx(pipe, table), str(path))
-    onnx.checker.check_model(str(path))
+    onnx.checker.check_model(onnx.load(str(path)), full_check=True)
     out = ox.run_onnx(path, table)
     np.testing.assert_allclose(out["variable"].ravel(), pipe.predict(table), rtol=TOL, atol=TOL)
     # columns are found by name, so the order of the table does not matter
