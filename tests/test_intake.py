@@ -359,6 +359,16 @@ def test_random_well_formed_csv_gives_a_table_or_an_input_error(tmp_path, n_cols
         assert df.shape[0] <= len(rows) and df.shape[1] <= n_cols
         if n_cols > 1 and len(rows) >= 2 and df.shape[1] == n_cols:
             assert rep.delimiter == delim
+        # whatever loads can be profiled; its suggested target is analysed or refused
+        from workbench.profiling import advise, analyse_target, profile_table
+
+        prof = profile_table(df)
+        assert len(prof.columns) == df.shape[1]
+        if prof.suggested_target is not None:
+            try:
+                advise(analyse_target(df, prof.suggested_target))
+            except InputError as exc:
+                assert "\n" not in str(exc)
 
 
 # --------------------------------------------------------------------------- workbench inspect

@@ -15,6 +15,8 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from sklearn.base import clone
 from sklearn.compose import ColumnTransformer, TransformedTargetRegressor
 from sklearn.model_selection import KFold, cross_validate
@@ -32,7 +34,7 @@ from workbench.preprocessing import (
     fitted_estimator,
     target_scaling,
 )
-from workbench.profiling import analyse_target, profile_table, split_xy
+from workbench.profiling import advise, analyse_target, profile_table, split_xy
 
 pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
 
@@ -83,7 +85,8 @@ def _setup(target="signed", **kw):
 def test_groups_and_output_width():
     df, prof, t, X, y = _setup()
     g = feature_groups(prof, t)
-    assert g == {"numeric": ["x1", "x2", "k"], "categorical": ["colour"], "datetime": ["when"]}
+    assert g == {"numeric": ["x1", "x2", "k"], "categorical": ["colour"], "boolean": [],
+                 "datetime": ["when"]}
     ct = build_preprocessor(prof, t)
     assert isinstance(ct, ColumnTransformer) and ct.remainder == "drop"
     Z = ct.fit_transform(X)
@@ -363,3 +366,75 @@ def test_boolean_column_with_gaps_is_imputed_and_one_hot_encoded():
     gaps = flag.isna().to_numpy()
     col = 2 if most else 1
     assert np.all(Z[gaps, col] == 1.0)  # gaps filled with the most frequent value
+
+
+def test_bool_column_without_gaps_is_one_hot_encoded():
+    rng = np.random.default_rng(1)
+    n = 40
+    df = pd.DataFrame({"flag": rng.random(n) < 0.5, "x": rng.normal(size=n),
+                       "y": rng.normal(size=n)})
+    prof = profile_table(df, target="y")
+    t = analyse_target(df, "y")
+    assert feature_groups(prof, t)["boolean"] == ["flag"]
+    X, y = split_xy(df, t)
+    ct = build_preprocessor(prof, t).fit(X)
+    Z = ct.transform(X)
+    np.testing.assert_array_equal(Z[:, 2], df["flag"].to_numpy(float))  # the True column
+
+
+def test_two_valued_float_target_is_regression():
+    df = pd.DataFrame({"x": np.arange(20.0), "y": [0.25, 1.75] * 10})
+    t = analyse_target(df, "y")
+    assert t.task == "regression" and t.kind == "non_negative"
+    df2 = pd.DataFrame({"x": np.arange(20.0), "y": [0.0, 1.0] * 10})
+    assert analyse_target(df2, "y").kind == "binary"  # whole numbers: class labels
+
+
+_KINDS = ["float", "int", "text", "bool", "date", "free", "empty"]
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 10**6), n=st.integers(2, 50),
+       kinds=st.lists(st.sampled_from(_KINDS), min_size=1, max_size=5),
+       target=st.sampled_from(["float", "int", "text", "bool", "positive", "share"]))
+def test_any_profiled_table_builds_and_fits_or_gives_an_input_error(seed, n, kinds, target):
+    rng = np.random.default_rng(seed)
+    cols = {}
+    for j, k in enumerate(kinds):
+        if k == "float":
+            v = pd.Series(rng.normal(size=n))
+        elif k == "int":
+            v = pd.Series(rng.integers(0, 5, n))
+        elif k == "text":
+            v = pd.Series(rng.choice(["a", "b", "c"], n).astype(object))
+        elif k == "bool":
+            v = pd.Series(rng.random(n) < 0.5)
+        elif k == "date":
+            v = pd.Series(pd.Timestamp("2020-01-01")
+                          + pd.to_timedelta(rng.integers(0, 900, n), "D"))
+        elif k == "free":
+            v = pd.Series([f"words {i} of a long remark" for i in rng.integers(0, 10**6, n)])
+        else:
+            v = pd.Series(np.full(n, np.nan))
+        if k in ("float", "text") and n > 3:
+            v[rng.random(n) < 0.2] = np.nan
+        cols[f"c{j}"] = v
+    cols["target"] = {"float": rng.normal(size=n), "int": rng.integers(0, 4, n),
+                      "text": rng.choice(["x", "y", "z"], n), "bool": rng.random(n) < 0.5,
+                      "positive": rng.gamma(1.0, 1.0, n), "share": rng.uniform(0, 1, n)}[target]
+    df = pd.DataFrame(cols)
+    try:
+        prof = profile_table(df, target="target")
+        t = analyse_target(df, "target")
+        head = advise(t).output_head
+        X, y = split_xy(df, t)
+        est = MLPClassifier if t.task == "classification" else MLPRegressor
+        if t.task == "regression" and head not in ("identity", "exp"):
+            head = "identity"  # scikit-learn's MLPRegressor has no other heads
+        pipe = build_pipeline(prof, t, est(hidden_layer_sizes=(2,), max_iter=2), head)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            pipe.fit(X, y)
+        assert len(pipe.predict(X)) == len(X)
+    except InputError as exc:
+        assert "\n" not in str(exc)

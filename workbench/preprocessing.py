@@ -5,8 +5,11 @@
 
 - ``"numeric"``: numeric, integer columns -> ``SimpleImputer(strategy="median")`` then
   ``StandardScaler()``;
-- ``"categorical"``: categorical and boolean columns -> ``SimpleImputer(strategy=
-  "most_frequent")`` then ``OneHotEncoder(handle_unknown="ignore", sparse_output=False)``;
+- ``"categorical"``: categorical columns and boolean columns with gaps (object dtype) ->
+  ``SimpleImputer(strategy="most_frequent")`` then ``OneHotEncoder(handle_unknown="ignore",
+  sparse_output=False)``;
+- ``"boolean"``: boolean columns of NumPy ``bool`` dtype (no gaps possible) ->
+  ``OneHotEncoder(handle_unknown="ignore", sparse_output=False)``;
 - ``"datetime"``: datetime columns -> :class:`DateParts` (numeric parts) then median
   imputation and ``StandardScaler()``;
 - every other column (role ``ignore``, and the target) is dropped (``remainder="drop"``).
@@ -228,12 +231,15 @@ def target_scaling(target: TargetInfo, head: str) -> TargetScaler:
 
 
 def feature_groups(profile: TableProfile, target: TargetInfo | str | None) -> dict[str, list[str]]:
-    """Column names per transformer group (numeric, categorical, datetime)."""
+    """Column names per transformer group (numeric, categorical, boolean, datetime)."""
     tname = target.name if isinstance(target, TargetInfo) else target
-    groups: dict[str, list[str]] = {"numeric": [], "categorical": [], "datetime": []}
+    groups: dict[str, list[str]] = {"numeric": [], "categorical": [], "boolean": [],
+                                    "datetime": []}
     for c in profile.feature_columns(tname):
         if c.type in NUMERIC_TYPES:
             groups["numeric"].append(c.name)
+        elif c.type == "boolean" and c.dtype == "bool":
+            groups["boolean"].append(c.name)  # a NumPy bool column has no gaps
         elif c.type in CATEGORICAL_TYPES:
             groups["categorical"].append(c.name)
         elif c.type in DATETIME_TYPES:
@@ -261,6 +267,11 @@ def build_preprocessor(profile: TableProfile, target: TargetInfo | str | None) -
             ("impute", SimpleImputer(strategy="most_frequent")),
             ("onehot", OneHotEncoder(handle_unknown="ignore", sparse_output=False)),
         ]), g["categorical"]))
+    if g["boolean"]:
+        # scikit-learn's SimpleImputer refuses bool arrays; they cannot have gaps anyway
+        steps.append(("boolean", Pipeline([
+            ("onehot", OneHotEncoder(handle_unknown="ignore", sparse_output=False)),
+        ]), g["boolean"]))
     if g["datetime"]:
         steps.append(("datetime", Pipeline([
             ("parts", DateParts()),

@@ -473,7 +473,7 @@ def _py(v):
 
 def _detect_kind(name: str, vals: pd.Series, ev: dict, numeric: bool):
     distinct = ev["distinct"]
-    if distinct == 2:
+    if distinct == 2 and (not numeric or ev["integer_valued"]):
         shown = ", ".join(str(x) for x in sorted(vals.unique().tolist(), key=_sort_key))
         return "binary", f"exactly two distinct values ({shown})", None
     if not numeric:
