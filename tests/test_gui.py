@@ -261,16 +261,17 @@ def test_changed_roles_go_into_the_plan(qtbot, window):
 # --------------------------------------------------------------------------- stop
 
 
-def test_stop_keeps_finished_rows_and_leaves_no_worker(qtbot, window):
+def test_stop_keeps_finished_rows_and_leaves_no_worker_then_resume(qtbot, window):
+    from workbench.gui.dialogs import HistoryDialog
+
     win = window
     load_by_drop(qtbot, win, SAMPLES / "kiln_batches.csv")
     # enough trials that the sweep is still running after the first ones finish
-    small_plan(win, hidden=("relu", "tanh", "gelu"), epochs=30, folds=3, repeats=3)
+    small_plan(win, hidden=("relu", "tanh", "gelu"), epochs=25, folds=3, repeats=2)
     finished = []
-    win._progress_hook = finished
     with qtbot.waitSignal(win.sweepEnded, timeout=120_000) as blocker:
         win.run_sweep()
-        win._sweep.bridge.trialFinished.connect(lambda ev: finished.append(ev))
+        win._sweep.bridge.trialFinished.connect(finished.append, Qt.DirectConnection)
         qtbot.waitUntil(lambda: len(finished) >= 2, timeout=60_000)
         assert win.sweep_running()
         win.stop_sweep()
@@ -279,6 +280,50 @@ def test_stop_keeps_finished_rows_and_leaves_no_worker(qtbot, window):
     assert blocker.args[0]["state"] == "cancelled"
     qtbot.waitUntil(lambda: win.results_model.rowCount() > 0, timeout=5_000)
     done = sum(r["n_done"] for r in win.results_model.rows())
-    assert done >= 2
-    assert done < 27
+    assert 2 <= done < 18
+    qtbot.waitUntil(lambda: not worker_processes(), timeout=5_000)
+    sweep_id = win.sweep_id
+
+    # the history lists it as interrupted; Resume runs only the missing trials
+    dlg = HistoryDialog(win, win.store_path)
+    qtbot.addWidget(dlg)
+    qtbot.waitUntil(lambda: dlg.table.rowCount() > 0, timeout=5_000)
+    assert dlg.selected()["sweep_id"] == sweep_id
+    assert dlg.selected()["state"] == "interrupted"
+    assert dlg.resume_btn.isEnabled()
+    dlg.reopenRequested.connect(win.reopen_sweep)
+    dlg.resumeRequested.connect(win.resume_sweep)
+    with qtbot.waitSignal(win.sweepEnded, timeout=120_000) as blocker:
+        dlg.resume_btn.click()
+    assert blocker.args[0]["state"] == "finished"
+    assert blocker.args[0]["sweep_id"] == sweep_id
+    qtbot.waitUntil(lambda: all(r["n_done"] == r["n_total"] == 6
+                                for r in win.results_model.rows()), timeout=5_000)
+    assert win.results_model.rowCount() == 3
+    from workbench.store import Store
+
+    with Store(win.store_path) as store:
+        keys = [(t["config_index"], t["repeat"], t["fold"]) for t in store.trials(sweep_id)]
+    assert len(keys) == len(set(keys)) == 18  # every trial exactly once
+
+
+def test_closing_during_a_sweep_asks_then_stops_cleanly(qtbot, window, monkeypatch):
+    from PySide6.QtWidgets import QMessageBox
+
+    win = window
+    load_by_drop(qtbot, win, SAMPLES / "orchard_water.csv")
+    small_plan(win, hidden=("relu", "tanh"), epochs=200, folds=3, repeats=2)
+    asked = []
+
+    def answer(*args, **kw):
+        asked.append(args)
+        return QMessageBox.Yes
+
+    monkeypatch.setattr(QMessageBox, "question", staticmethod(answer))
+    with qtbot.waitSignal(win.sweepEnded, timeout=30_000):
+        win.run_sweep()
+        qtbot.waitUntil(lambda: win._progress["running"] > 0, timeout=20_000)
+        win.close()
+        assert asked  # the window asked before stopping
+    qtbot.waitUntil(lambda: not win.isVisible(), timeout=5_000)
     qtbot.waitUntil(lambda: not worker_processes(), timeout=5_000)

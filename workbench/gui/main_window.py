@@ -606,7 +606,7 @@ class MainWindow(QMainWindow):
         b.ranked.connect(self._on_ranked)
         self._sweep.finished.connect(self._on_sweep_done)
         self._progress = {"done": 0, "total": total, "best": None, "t0": time.monotonic(),
-                          "running": 0}
+                          "running": 0, "stored": 0}
         self.progress.setRange(0, max(1, total))
         self.progress.setValue(0)
         self.progress.show()
@@ -624,24 +624,27 @@ class MainWindow(QMainWindow):
 
     def _on_sweep_started(self, ev: dict) -> None:
         self.sweep_id = ev.get("sweep_id", self.sweep_id)
-        total = int(ev.get("n_trials") or ev.get("total") or self._progress["total"] or 0)
-        done = int(ev.get("n_done") or ev.get("already_done") or 0)
-        self._progress["total"] = total
-        self._progress["done"] = done
+        total = int(ev.get("n_trials") or self._progress["total"] or 0)
+        stored = int(ev.get("n_stored") or 0)
+        self._progress.update(total=total, done=stored, stored=stored)
+        if ev.get("metric"):
+            self.results_meta.setdefault("metric", ev["metric"])
         self.progress.setRange(0, max(1, total))
-        self.progress.setValue(done)
+        self.progress.setValue(stored)
 
     def _on_trial_started(self, ev: dict) -> None:
         self._progress["running"] += 1
 
     def _on_trial_finished(self, ev: dict) -> None:
         p = self._progress
-        p["done"] += 1
+        if ev.get("n_finished") is not None:
+            p["done"] = p.get("stored", 0) + int(ev["n_finished"])
+        else:
+            p["done"] += 1
         p["running"] = max(0, p["running"] - 1)
-        if ev.get("best") is not None:
-            p["best"] = ev["best"]
-        elif ev.get("best_score") is not None:
-            p["best"] = ev["best_score"]
+        if ev.get("best_mean") is not None:
+            p["best"] = ev["best_mean"]
+            p["best_label"] = ev.get("best_label") or ""
         self.progress.setValue(min(p["done"], self.progress.maximum()))
 
     def _update_progress_text(self) -> None:
@@ -655,7 +658,9 @@ class MainWindow(QMainWindow):
             parts.append(f"about {core.fmt_seconds(elapsed / p['done'] * remaining)} left")
         if p["best"] is not None:
             metric = self.results_meta.get("metric", "")
-            parts.append(f"best so far {p['best']:.4f} {metric}".rstrip())
+            label = p.get("best_label") or ""
+            parts.append(f"best so far {p['best']:.4f} {metric}".rstrip()
+                         + (f" ({label})" if label and self.sweep_running() else ""))
         if not self.sweep_running():
             self._tick.stop()
         self.progress_label.setText(" · ".join(parts))
@@ -833,6 +838,7 @@ class MainWindow(QMainWindow):
             self.results_model.clear()
             self.sweep_id = sweep_id
             self._on_ranked(payload)
+            self._show_plan(payload["meta"].get("plan") or {})
             self.tabs.setCurrentIndex(1)
             self.progress_label.setText(
                 f"Sweep {sweep_id}: {payload['meta'].get('state', '')}, "
@@ -844,6 +850,28 @@ class MainWindow(QMainWindow):
                 self.select_rows([0])
 
         run_task(lambda: core.ranked_rows(store, sweep_id), done, self.show_message)
+
+    def _show_plan(self, plan: dict) -> None:
+        """Show a stored sweep's plan in the set-up column (loading its table if needed)."""
+        table = plan.get("table")
+        if not table:
+            return
+        same = self.table is not None and \
+            Path(self.table.path).resolve() == Path(table).resolve()
+        if same and self.summary is not None and self.summary.target.name == plan.get("target"):
+            self.setup.apply_plan(plan)
+            return
+        if not Path(table).is_file():
+            self.show_message(f"the table of this sweep, {table}, is no longer there; its "
+                              "results are shown, but it cannot be resumed from here")
+            return
+
+        def ready(_name, plan=plan):
+            self.targetReady.disconnect(ready)
+            self.setup.apply_plan(plan)
+
+        self.targetReady.connect(ready)
+        self.open_path(table, plan.get("target"))
 
     # ================================================================== state
     def _update_actions(self) -> None:

@@ -322,6 +322,21 @@ class SetupPane(QWidget):
             "cluster": self.cluster_edit.text().strip() if self.cluster_radio.isChecked() else None,
         }
 
+    def apply_plan(self, plan: dict) -> None:
+        """Show a stored plan's choices (the sweep's hidden activations, heads, grid, CV)."""
+        self.hidden_grid.set_checked(plan.get("hidden") or [])
+        self.head_grid.set_checked(plan.get("heads") or [])
+        self.layers_edit.setText("; ".join(",".join(str(w) for w in shape)
+                                           for shape in plan.get("layers") or [[32]]))
+        self.lr_edit.setText(" ".join(f"{v:g}" for v in plan.get("learning_rates") or [0.001]))
+        self.alpha_edit.setText(" ".join(f"{v:g}" for v in plan.get("alphas") or [0.0001]))
+        self.folds_spin.setValue(int(plan.get("folds", 5)))
+        self.repeats_spin.setValue(int(plan.get("repeats", 2)))
+        self.epochs_spin.setValue(int(plan.get("epochs", 100)))
+        self.early_check.setChecked(bool(plan.get("early_stopping")))
+        if plan.get("metric"):
+            self.metric_combo.setCurrentText(plan["metric"])
+
     def set_estimate(self, text: str, ok: bool) -> None:
         if text != self.estimate_label.text():
             self.estimate_label.setText(text)
