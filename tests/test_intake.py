@@ -497,3 +497,14 @@ def test_many_blocks_give_the_same_table_as_pandas_c_parser(tmp_path, monkeypatc
     assert rep.engine == "pyarrow"
     ref = pd.read_csv(path, engine="c")
     pd.testing.assert_frame_equal(got, ref, check_dtype=False)
+
+
+def test_far_too_large_text_table_is_refused_before_reading(tmp_path, monkeypatch):
+    monkeypatch.setattr(intake, "_SNIFF_BYTES", 256)
+    path = tmp_path / "wide.csv"
+    _frame(400).to_csv(path, index=False)
+    calls = []
+    monkeypatch.setattr(intake, "_read_arrow", lambda *a, **k: calls.append(a))
+    with pytest.raises(InputError, match=r"holds about [\d,]+ cells .* over the size limit"):
+        load_table(path, max_cells=200)
+    assert calls == []  # refused from the estimate, nothing parsed

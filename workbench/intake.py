@@ -148,7 +148,7 @@ def load_table(path, sheet: str | None = None, max_cells: int = DEFAULT_MAX_CELL
             f"{p.name} is {size / 1e6:.1f} MB, over the size limit of {max_bytes / 1e6:.1f} MB; "
             "use a smaller extract of the table or raise the limit")
     if ext in TEXT_EXTENSIONS:
-        df, report = _read_text(p, ext)
+        df, report = _read_text(p, ext, max_cells)
     elif ext in EXCEL_EXTENSIONS:
         df, report = _read_excel(p, sheet)
     else:
@@ -383,7 +383,8 @@ def _read_arrow(source, encoding: str, delim: str, decimal: str, skip: int = 0):
     return df
 
 
-def _read_text(p: Path, ext: str) -> tuple[pd.DataFrame, LoadReport]:
+def _read_text(p: Path, ext: str, max_cells: int = DEFAULT_MAX_CELLS
+               ) -> tuple[pd.DataFrame, LoadReport]:
     head = _read_head(p)
     enc = _detect_encoding(p, head)
     size = p.stat().st_size
@@ -423,6 +424,16 @@ def _read_text(p: Path, ext: str) -> tuple[pd.DataFrame, LoadReport]:
                         decimal=decimal)
     if len(lines) == 1:
         raise InputError(f"{p.name} has a header but no data rows; add rows below the header")
+    if truncated:
+        # refuse a table far over the cell limit before reading it: estimate its rows
+        # from the mean length of the sampled lines
+        per_line = max(1.0, len("\n".join(lines).encode(read_enc, errors="replace")) / len(lines))
+        total = len(source) if isinstance(source, bytes) else size
+        estimate = int(total / per_line) * max(1, len(header))
+        if estimate > 2 * max_cells:
+            raise InputError(
+                f"{p.name} holds about {estimate:,} cells ({total / 1e6:.0f} MB), over the size "
+                f"limit of {max_cells:,} cells; use a sample of the rows or raise the limit")
 
     def src():
         return io.BytesIO(source) if isinstance(source, bytes) else str(p)
