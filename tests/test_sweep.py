@@ -169,6 +169,7 @@ def test_complete_small_sweep_on_each_sample_set(tmp_path, name, target, kind, m
     assert types.count("trial_started") == 4 and types.count("trial_finished") == 4
 
 
+@pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
 def test_breast_cancer_reaches_095_accuracy(bundled, tmp_path):
     plan = build_plan(bundled / "breast_cancer.csv", "target", hidden="relu,tanh",
                       layers=["16"], folds=3, repeats=1, epochs=60, learning_rates=["0.01"],
@@ -190,6 +191,7 @@ def test_breast_cancer_reaches_095_accuracy(bundled, tmp_path):
     assert cfg["trials"][0]["test_score"] == pytest.approx(acc, abs=1e-12)
 
 
+@pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
 def test_diabetes_sweep(bundled, tmp_path):
     plan = build_plan(bundled / "diabetes.csv", "target", hidden="relu,silu", output="identity",
                       layers=["16"], folds=3, repeats=1, epochs=60, learning_rates=["0.01"],
@@ -270,7 +272,12 @@ def test_a_dead_worker_costs_only_its_trial(tmp_path):
     kills = []
 
     def workers():
-        return [p for p in me.children(recursive=True) if "loky" in " ".join(p.cmdline())]
+        out = []
+        for p in me.children(recursive=True):
+            cmd = " ".join(p.cmdline())
+            if "loky" in cmd and "resource_tracker" not in cmd:
+                out.append(p)
+        return out
 
     def on_event(ev):
         # kill the pool under the first trial, and again under the first retry
