@@ -79,6 +79,10 @@ def _fmt(v) -> str:
     return str(v)
 
 
+def _pct(v) -> str:
+    return "-" if v is None else f"{v:.1%}"
+
+
 def _print_text(d: dict, fh) -> None:
     ld = d["load"]
     w = fh.write
@@ -117,7 +121,7 @@ def _print_text(d: dict, fh) -> None:
     w(f"\nTarget {t['name']!r} ({src}): {t['kind']} ({t['task']})\n")
     w(f"  because: {ev['rule']}\n")
     w(f"  evidence: dtype {ev['dtype']}, min {_fmt(ev['min'])}, max {_fmt(ev['max'])}, "
-      f"distinct {ev['distinct']}, zeros {_fmt(ev['zero_share'])}, "
+      f"distinct {ev['distinct']}, zeros {_pct(ev['zero_share'])}, "
       f"missing {ev['missing_share']:.1%}\n")
     if t["rows_dropped"]:
         w(f"  {t['rows_dropped']} row(s) with a missing target will be dropped\n")
