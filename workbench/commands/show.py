@@ -41,13 +41,14 @@ def _pct(v):
 def format_results(res: dict) -> str:
     """The ranked results as a text table (tie group marked with ``=``)."""
     head = ["rank", "hidden", "head", "layers", "lr", "alpha", f"{res['metric']} mean ± sd",
-            "p", "tied", "fit s", "dead", "sat", "engine", "status"]
+            "p", "tied", "gap", "fit s", "dead", "sat", "engine", "status"]
     rows = []
     for c in res["configurations"]:
         ms = "-" if c["mean"] is None else f"{_fmt(c['mean'])} ± {_fmt(c['sd'])}"
         rows.append([str(c["rank"]), c["hidden"], c["head"], ",".join(map(str, c["layers"])),
                      f"{c['learning_rate']:g}", f"{c['alpha']:g}", ms, _fmt(c["p_value"], ".3f"),
-                     "=" if c["tied_with_best"] else "", _fmt(c["mean_fit_seconds"], ".2f"),
+                     "=" if c["tied_with_best"] else "", _fmt(c["train_test_gap"], "+.3f"),
+                     _fmt(c["mean_fit_seconds"], ".2f"),
                      _pct(c["dead"]), _pct(c["saturated"]), c["engine"], c["status"]])
     widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h)
               for i, h in enumerate(head)]
@@ -60,6 +61,8 @@ def format_results(res: dict) -> str:
         lines.append("  ".join(v.ljust(w) for v, w in zip(r, widths)))
     n_tied = sum(1 for c in res["configurations"] if c["tied_with_best"])
     corr = " with Holm's correction" if res["correction"] == "holm" else ""
+    lines.append("gap = mean training score minus mean test score (overfitting shows as a "
+                 "large positive gap); dead / sat = mean share of dead / saturated hidden units.")
     lines.append(f"= tied with the best: not distinguishable at alpha {res['significance_level']:g} "
                  f"by the Nadeau-Bengio corrected t-test{corr} ({n_tied} configuration(s) in the "
                  f"tie group, {res['n_comparisons']} comparison(s) with the best).")
