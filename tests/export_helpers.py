@@ -31,8 +31,11 @@ def hostile_table(n: int = 54, seed: int = 0) -> pd.DataFrame:
     return df
 
 
-def make_sweep(tmp_path, task: str = "regression", dtype: str = "float64"):
-    """Run a tiny sweep inline; return ``(store, sweep_id, table_path)``."""
+def make_sweep(tmp_path, task: str = "regression", dtype: str = "float64", roles=None):
+    """Run a tiny sweep inline; return ``(store, sweep_id, table_path)``.
+
+    ``roles`` are the user's column-role changes (as the window's profile table sets them).
+    """
     from workbench.plan import build_plan
     from workbench.runner import run_sweep
     from workbench.store import Store
@@ -48,6 +51,9 @@ def make_sweep(tmp_path, task: str = "regression", dtype: str = "float64"):
     df.to_csv(path, index=False)
     plan = build_plan(str(path), target, hidden=hidden, output=output, layers=["5"], folds=3,
                       repeats=2, epochs=12, dtype=dtype, seed=3)
+    if roles:
+        plan.roles = dict(roles)
+        plan.validate()
     store = Store(tmp_path / "store.sqlite")
     outcome = run_sweep(plan, store=store, backend="inline")
     return store, outcome.sweep_id, path

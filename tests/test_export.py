@@ -29,7 +29,9 @@ from workbench.model_files import MANIFEST_NAME
 @pytest.fixture(scope="module")
 def sweep(tmp_path_factory):
     base = tmp_path_factory.mktemp("export")
-    store, sweep_id, table = make_sweep(base, "regression", dtype="float64")
+    # the user set one column to "ignore": the export and reproduce.py must honour it
+    store, sweep_id, table = make_sweep(base, "regression", dtype="float64",
+                                        roles={"size": "ignore"})
     folder = base / "winner"
     ex.export_configuration(store, sweep_id, "best", folder)
     yield store, sweep_id, table, folder, base
@@ -61,8 +63,14 @@ def test_configuration_validates_against_the_shipped_schema(sweep):
     # contents that the issue lists
     assert conf["table"]["sha256"] == hashlib.sha256(table.read_bytes()).hexdigest()
     assert conf["target"]["name"] == REG_TARGET and conf["target"]["kind"] == "signed"
-    assert SCRIPT_COL in conf["preprocessing"]["numeric"]["columns"]
-    assert FORMULA_COL in conf["preprocessing"]["categorical"]["columns"]
+    groups = conf["preprocessing"]["groups"]
+    assert SCRIPT_COL in groups["numeric"]["columns"]
+    assert FORMULA_COL in groups["categorical"]["columns"]
+    assert groups["numeric"]["steps"] == ["SimpleImputer(strategy='median')", "StandardScaler()"]
+    assert "when" in groups["datetime"]["columns"]
+    assert all("size" not in g["columns"] for g in groups.values())
+    assert {"column": "size", "type": "numeric", "reason": "set by the user"} in \
+        conf["preprocessing"]["ignored"]
     assert conf["model"]["output_head"] == "identity" and conf["model"]["loss"] == "squared_error"
     shapes = conf["model"]["layer_shapes"]
     assert shapes[-1][1] == 1 and all(a[1] == b[0] for a, b in zip(shapes, shapes[1:]))

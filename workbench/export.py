@@ -285,6 +285,19 @@ def _layer_shapes(ctx: ExportContext) -> list[list[int]]:
     return [[a, b] for a, b in zip(sizes[:-1], sizes[1:])]
 
 
+def preprocessing_groups(profile, target) -> dict:
+    """``{group: {"columns": [...], "steps": [...]}}`` of the ColumnTransformer the
+    pipeline builds (steps as scikit-learn prints them)."""
+    from workbench.preprocessing import build_preprocessor
+
+    out = {}
+    for name, trans, cols in build_preprocessor(profile, target).transformers:
+        steps = trans.steps if hasattr(trans, "steps") else [(name, trans)]
+        out[name] = {"columns": [str(c) for c in cols],
+                     "steps": [repr(step) for _, step in steps]}
+    return out
+
+
 def build_configuration(ctx: ExportContext) -> dict:
     """The ``configuration.json`` document (see the shipped JSON Schema)."""
     from workbench.activations import LOSS_LABELS, resolve_head
@@ -330,20 +343,14 @@ def build_configuration(ctx: ExportContext) -> dict:
                    "rows_used": int(len(ctx.data.y)), "rows_dropped": int(target.rows_dropped),
                    "rule": target.evidence.get("rule")},
         "preprocessing": {
-            "numeric": {"columns": groups["numeric"],
-                        "steps": ["SimpleImputer(strategy='median')", "StandardScaler()"]},
-            "categorical": {"columns": groups["categorical"],
-                            "steps": ["SimpleImputer(strategy='most_frequent')",
-                                      "OneHotEncoder(handle_unknown='ignore')"]},
-            "datetime": {"columns": groups["datetime"], "parts": list(DATE_PARTS),
-                         "steps": ["DateParts()", "SimpleImputer(strategy='median')",
-                                   "StandardScaler()"]},
+            "groups": preprocessing_groups(ctx.data.profile, target),
+            "date_parts": list(DATE_PARTS),
             "target_scaling": scaling,
             "ignored": [{"column": c.name, "type": c.type, "reason": c.reason}
                         for c in ctx.data.profile.columns
                         if c.name != target.name
-                        and c.name not in groups["numeric"] + groups["categorical"]
-                        + groups["datetime"]],
+                        and not any(c.name in cols for cols in groups.values())],
+            "roles_set_by_user": _jsonable(res["plan"].get("roles") or {}),
         },
         "model": {
             "engine": chosen["engine"],
@@ -752,6 +759,9 @@ def main(argv=None):
               f"not {conf['target']['kind']}", file=sys.stderr)
         return 2
     profile = profile_table(df, target=name)
+    for column, role in (conf["plan"].get("roles") or {}).items():  # the user's choices
+        col = profile.column(column)
+        col.role, col.reason = role, "set by the user"
     X, y = split_xy(df, target)
     model = conf["model"]
     scorer = get_scorer(conf["evaluation"]["metric"])
