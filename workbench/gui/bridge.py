@@ -35,6 +35,8 @@ class SweepBridge(QObject):
         returns a summary (at least ``sweep_id``).
     ranker : callable, optional
         ``ranker(sweep_id) -> object`` (the rows to show); called on this thread.
+    cleanup : callable, optional
+        Called on this thread after the last ranking (e.g. to close a store).
     rank_interval : float
         Least number of seconds between two intermediate rankings.
     """
@@ -46,9 +48,11 @@ class SweepBridge(QObject):
     #: the end of the job: {"state": "finished" | "cancelled" | "failed", "message", "sweep_id", ...}
     done = Signal(dict)
 
-    def __init__(self, job: Callable, ranker: Callable | None = None, rank_interval: float = 0.3):
+    def __init__(self, job: Callable, ranker: Callable | None = None, rank_interval: float = 0.3,
+                 cleanup: Callable | None = None):
         super().__init__()
         self._job = job
+        self._cleanup = cleanup
         self._ranker = ranker
         self._interval = float(rank_interval)
         self.cancel_event = threading.Event()
@@ -107,6 +111,11 @@ class SweepBridge(QObject):
             summary["sweep_id"] = self._sweep_id
         self._sweep_id = summary["sweep_id"]
         self._rank(force=True)
+        if self._cleanup is not None:
+            try:
+                self._cleanup()
+            except Exception:  # pragma: no cover - closing a store is best effort
+                pass
         self.done.emit(summary)
 
 
@@ -121,9 +130,9 @@ class SweepThread(QObject):
     finished = Signal(dict)
 
     def __init__(self, job: Callable, ranker: Callable | None = None, parent=None,
-                 rank_interval: float = 0.3):
+                 rank_interval: float = 0.3, cleanup: Callable | None = None):
         super().__init__(parent)
-        self.bridge = SweepBridge(job, ranker, rank_interval)
+        self.bridge = SweepBridge(job, ranker, rank_interval, cleanup)
         self.thread = QThread()
         self.thread.setObjectName("sweep-bridge")
         self.bridge.moveToThread(self.thread)

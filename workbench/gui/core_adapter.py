@@ -9,10 +9,19 @@ into the plain dicts the Qt models and plot panels read.
 from __future__ import annotations
 
 import math
-import threading
 from dataclasses import dataclass, field
 from pathlib import Path
 
+# The core is imported here, on the GUI thread, once; worker threads then only call into
+# it. (First imports of these modules from several pool threads at once made CPython 3.11
+# abort at exit with a refcount error.)
+import workbench.commands.history  # noqa: F401
+import workbench.intake  # noqa: F401
+import workbench.plan  # noqa: F401
+import workbench.profiling  # noqa: F401
+import workbench.ranking  # noqa: F401
+import workbench.runner  # noqa: F401
+import workbench.store  # noqa: F401
 from workbench import activations
 from workbench.errors import InputError
 
@@ -200,7 +209,8 @@ def machine_speed(store_path: str | None) -> float | None:
     import numpy as np
 
     try:
-        store = _store(store_path)
+        session = StoreSession(store_path)
+        store = session.store
         host = socket.gethostname()
         ratios = []
         for sw in store.list_sweeps()[:10]:
@@ -214,6 +224,7 @@ def machine_speed(store_path: str | None) -> float | None:
                     continue
                 w = _work_units(c["layers"], n_feat, t.get("n_train") or 1, t["epochs"])
                 ratios.append(t["fit_seconds"] / w)
+        session.close()
         return float(np.median(ratios)) if ratios else None
     except Exception:
         return None
@@ -240,38 +251,53 @@ def plan_summary(plan, choices: dict, speed: float | None, n_rows: int, n_featur
 
 # --------------------------------------------------------------------------- store, sweep
 
-_LOCAL = threading.local()
+class StoreSession:
+    """One :class:`workbench.store.Store`, opened on first use in the thread that uses it.
+
+    A sweep's job and its ranker share one session on the bridge thread; short
+    tasks open their own with ``with StoreSession(path) as store:``.
+    """
+
+    def __init__(self, path: str | None):
+        self.path = path
+        self._store = None
+
+    @property
+    def store(self):
+        if self._store is None:
+            from workbench.store import Store
+
+            self._store = Store(self.path)
+        return self._store
+
+    def close(self) -> None:
+        if self._store is not None:
+            self._store.close()
+            self._store = None
+
+    def __enter__(self):
+        return self.store
+
+    def __exit__(self, *exc):
+        self.close()
 
 
-def _store(path: str | None):
-    """A Store for this thread (SQLite connections are cheap to keep, costly to reopen)."""
-    from workbench.store import Store, default_store_path
-
-    key = str(path or default_store_path())
-    cache = getattr(_LOCAL, "stores", None)
-    if cache is None:
-        cache = _LOCAL.stores = {}
-    if key not in cache:
-        cache[key] = Store(path)
-    return cache[key]
-
-
-def run_plan(plan, choices: dict, store_path: str | None, on_event, cancel) -> dict:
+def run_plan(plan, choices: dict, session: StoreSession, on_event, cancel) -> dict:
     """Run a new sweep with the core's runner (blocks; call it on the bridge thread)."""
     from workbench.runner import run_sweep
 
-    out = run_sweep(plan, store=_store(store_path), jobs=int(choices.get("jobs") or 1),
+    out = run_sweep(plan, store=session.store, jobs=int(choices.get("jobs") or 1),
                     cluster=choices.get("cluster") or None, on_event=on_event, cancel=cancel)
     return {"sweep_id": out.sweep_id,
             "state": "finished" if out.state == "finished" else "cancelled",
             "n_finished": out.n_finished}
 
 
-def resume(sweep_id: str, store_path: str | None, jobs: int, on_event, cancel) -> dict:
+def resume(sweep_id: str, session: StoreSession, jobs: int, on_event, cancel) -> dict:
     """Run the missing trials of a stored sweep."""
     from workbench.runner import run_sweep
 
-    out = run_sweep(resume=sweep_id, store=_store(store_path), jobs=int(jobs or 1),
+    out = run_sweep(resume=sweep_id, store=session.store, jobs=int(jobs or 1),
                     on_event=on_event, cancel=cancel)
     return {"sweep_id": out.sweep_id,
             "state": "finished" if out.state == "finished" else "cancelled",
@@ -282,7 +308,8 @@ def history(store_path: str | None) -> list[dict]:
     """The stored sweeps, newest first (the ``workbench history --json`` objects)."""
     from workbench.commands.history import sweep_summaries
 
-    return sweep_summaries(_store(store_path))
+    with StoreSession(store_path) as store:
+        return sweep_summaries(store)
 
 
 def _band(curves: list[list[float]]) -> dict | None:
@@ -329,7 +356,7 @@ def _layer_means(trials: list[dict], key: str) -> list[float]:
     return out
 
 
-def ranked_rows(store_path: str | None, sweep_id: str) -> dict:
+def ranked_rows(store, sweep_id: str) -> dict:
     """The ranking of a stored sweep as rows for the results table and series for the plots.
 
     Returns
@@ -340,7 +367,9 @@ def ranked_rows(store_path: str | None, sweep_id: str) -> dict:
     """
     from workbench.gui.plots import health_hints
 
-    store = _store(store_path)
+    if not hasattr(store, "results"):  # a path: open the store for this call only
+        with StoreSession(store) as opened:
+            return ranked_rows(opened, sweep_id)
     res = store.results(sweep_id)
     per_cfg = int(res["plan"]["folds"]) * int(res["plan"]["repeats"])
     full = {}
@@ -413,6 +442,7 @@ def export(store_path: str | None, sweep_id: str, row: dict, folder: str,
     if not str(folder).strip():
         raise InputError("choose a folder to export to")
     rank = row.get("position") or row.get("rank") or "best"
-    out = export_configuration(_store(store_path), sweep_id, rank, folder, list(formats),
-                               on_progress=on_progress)
+    with StoreSession(store_path) as store:
+        out = export_configuration(store, sweep_id, rank, folder, list(formats),
+                                   on_progress=on_progress)
     return str(out)

@@ -178,7 +178,7 @@ class MainWindow(QMainWindow):
         for name, label in (("system", "Follow the system"), ("light", "Light"),
                             ("dark", "Dark")):
             a = QAction(label, self, checkable=True)
-            a.triggered.connect(lambda _=False, n=name: self.apply_theme(n))
+            a.triggered.connect(lambda *_, n=name: self.apply_theme(n))
             self.theme_actions[name] = a
 
     def _build_menus(self) -> None:
@@ -425,7 +425,7 @@ class MainWindow(QMainWindow):
         for i, path in enumerate(files, start=1):
             a = self.recent_menu.addAction(f"&{i} {Path(path).name}")
             a.setToolTip(path)
-            a.triggered.connect(lambda _=False, p=path: self.open_path(p))
+            a.triggered.connect(lambda *_, p=path: self.open_path(p))
         self.recent_menu.addSeparator()
         self.recent_menu.addAction("Clear list", self.settings.clear_recent_files)
 
@@ -572,33 +572,32 @@ class MainWindow(QMainWindow):
             self.show_message(msg)
             return
         choices = self.setup.choices()
-        store = self.store_path
+        session = core.StoreSession(self.store_path)
 
         def job(on_event, cancel):
-            return core.run_plan(plan, choices, store, on_event, cancel)
+            return core.run_plan(plan, choices, session, on_event, cancel)
 
-        self._start(job, total=plan.n_trials)
+        self._start(job, session, total=plan.n_trials)
 
     def resume_sweep(self, sweep_id: str) -> None:
         if self.sweep_running():
             return
-        store = self.store_path
+        session = core.StoreSession(self.store_path)
         jobs = self.setup.choices()["jobs"]
 
         def job(on_event, cancel):
-            return core.resume(sweep_id, store, jobs, on_event, cancel)
+            return core.resume(sweep_id, session, jobs, on_event, cancel)
 
         self.sweep_id = sweep_id
-        self._start(job, total=0, keep_rows=True)
+        self._start(job, session, total=0, keep_rows=True)
 
-    def _start(self, job, total: int, keep_rows: bool = False) -> None:
+    def _start(self, job, session, total: int, keep_rows: bool = False) -> None:
         self.banner.hide_message()
         if not keep_rows:
             self.results_model.clear()
             self._plot_selection([])
-        store = self.store_path
-        self._sweep = SweepThread(job, ranker=lambda sid: core.ranked_rows(store, sid),
-                                  parent=self)
+        self._sweep = SweepThread(job, ranker=lambda sid: core.ranked_rows(session.store, sid),
+                                  parent=self, cleanup=session.close)
         b = self._sweep.bridge
         b.sweepStarted.connect(self._on_sweep_started)
         b.trialFinished.connect(self._on_trial_finished)
