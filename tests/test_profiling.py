@@ -332,3 +332,16 @@ def test_user_role_changes():
         prof.with_roles({"zz": "ignore"})
     with pytest.raises(InputError, match="not valid"):
         prof.with_roles({"x": "target"})
+
+
+def test_suggested_target_prefers_strong_names_then_the_last_column():
+    rng = np.random.default_rng(0)
+    n = 80
+    base = {"age": rng.integers(20, 80, n), "heart_rate": rng.normal(70, 8, n),
+            "bmi": rng.normal(25, 3, n)}
+    df = pd.DataFrame({**base, "risk": rng.normal(size=n)})
+    assert profile_table(df).suggested_target == "risk"  # last column beats a word match
+    df = pd.DataFrame({"label": rng.choice(["a", "b"], n), **base})
+    assert profile_table(df).suggested_target == "label"  # a strong name beats position
+    df = pd.DataFrame({**base, "row_id": np.arange(n)})
+    assert profile_table(df).suggested_target == "bmi"  # ignored columns are never suggested

@@ -92,7 +92,8 @@ TEXT_MIN_LENGTH = 20
 HIDDEN_DEFAULT = "relu"
 HIDDEN_TO_SWEEP = ("relu", "tanh", "leaky_relu", "gelu", "silu")
 
-_ID_NAME = re.compile(r"(^|[_\s.-])(id|key|uuid|guid|code|no|nr|index|idx)$|^id|_id$", re.I)
+_ID_NAME = re.compile(r"(^|[_\s.-])(id|key|uuid|guid|code|no|nr|index|idx)$|^id([_\s.-]|$)",
+                      re.I)
 _TARGET_STRONG = re.compile(r"^(target|label|labels|y|class|outcome|response)$", re.I)
 _TARGET_WORDS = re.compile(
     r"(target|label|class|outcome|result|grade|pass|passed|passes|fail|status|yield|"
@@ -305,15 +306,16 @@ def _looks_like_id(name: str, base: str, vals: pd.Series, n: int, missing: int,
     return True
 
 
-def _target_score(i: int, n_cols: int, c: ColumnProfile) -> float:
+def _target_score(c: ColumnProfile, first: bool, last: bool) -> float:
+    """How much a candidate column looks like the target (common practice)."""
     score = 0.0
     if _TARGET_STRONG.match(c.name):
         score += 4
     elif _TARGET_WORDS.search(c.name):
         score += 2
-    if i == n_cols - 1:
-        score += 1.5  # common practice: the target is often the last column
-    if i == 0:
+    if last:
+        score += 2.5  # the target is usually the last column (after any ignored ones)
+    if first:
         score += 0.25
     return score
 
@@ -335,10 +337,9 @@ def profile_table(df: pd.DataFrame, target: str | None = None) -> TableProfile:
         raise InputError(_no_column_message(target, df))
     cols = [profile_column(df[c]) for c in df.columns]
     best, best_score = None, 0.0
-    for i, c in enumerate(cols):
-        if not c.target_candidate:
-            continue
-        sc = _target_score(i, len(cols), c)
+    candidates = [c for c in cols if c.target_candidate]
+    for i, c in enumerate(candidates):
+        sc = _target_score(c, first=i == 0, last=i == len(candidates) - 1)
         if sc > best_score:
             best, best_score = c.name, sc
     chosen = target if target is not None else best
