@@ -374,3 +374,24 @@ def test_numpy_engine_matches_scikit_learn_at_sweep_level(bundled, tmp_path, tab
         s, ep = scores["numpy"][k]
         assert ep == ep_ref
         assert s == pytest.approx(s_ref, abs=1e-6)
+
+
+def test_trials_record_history_health_and_validation_scores(tmp_path):
+    """Per-epoch loss, validation score (early stopping) and per-layer health are stored."""
+    plan = build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection", hidden="relu,gelu",
+                      layers=["8,4"], folds=2, repeats=1, epochs=6, early_stopping=True)
+    with Store(tmp_path / "s.sqlite") as st:
+        out = run_sweep(plan, store=st, backend="inline")
+        trials = st.trials(out.sweep_id)
+    assert len(trials) == 4
+    for t in trials:
+        h = t["history"]
+        assert t["status"] == "done" and len(h["loss"]) == t["epochs"] >= 1
+        assert len(h["val_score"]) == t["epochs"]  # early stopping scores every epoch
+        assert len(t["health"]["dead"]) == 2 and len(t["health"]["saturated"]) == 2
+        assert all(0.0 <= v <= 1.0 for v in t["health"]["dead"] + t["health"]["saturated"])
+        if t["engine"] == "numpy":  # the NumPy engine records health every epoch
+            assert len(h["dead"]) == len(h["grad_norm"]) == t["epochs"]
+            # one gradient norm per weight matrix: two hidden layers and the output layer
+            assert all(len(layer) == 3 for layer in h["grad_norm"])
+        assert t["fit_seconds"] > 0 and t["n_train"] + t["n_test"] == 2500
