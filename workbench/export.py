@@ -262,9 +262,9 @@ def final_fit_seed(plan) -> int:
 
 
 def _estimator_info(plan, chosen) -> tuple[str, dict]:
-    from workbench.trials import make_estimator
+    from workbench.trials import estimator_for
 
-    est = make_estimator(trial_spec(plan, chosen, 0, 0, [], []))
+    est = estimator_for(plan, trial_spec(plan, chosen, 0, 0, [], [])["config"])
     params = est.get_params(deep=False)
     params.pop("random_state", None)
     cls = type(est)
@@ -531,12 +531,11 @@ def fit_final_pipeline(plan, chosen: dict, data):
     from threadpoolctl import threadpool_limits
 
     from workbench.preprocessing import build_pipeline
-    from workbench.trials import make_estimator
+    from workbench.trials import estimator_for
 
-    n = len(data.y)
-    spec = trial_spec(plan, chosen, 0, 0, np.arange(n), np.arange(0))
-    spec["random_state"] = final_fit_seed(plan)
-    pipe = build_pipeline(data.profile, data.target, make_estimator(spec), chosen["head"])
+    config = trial_spec(plan, chosen, 0, 0, [], [])["config"]
+    est = estimator_for(plan, config, random_state=final_fit_seed(plan))
+    pipe = build_pipeline(data.profile, data.target, est, chosen["head"])
     with threadpool_limits(limits=1), warnings.catch_warnings(), \
             np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
         warnings.simplefilter("ignore")
