@@ -197,12 +197,22 @@ class Store:
         if existed:
             self._check_header()
         else:
-            self.path.parent.mkdir(parents=True, exist_ok=True)
+            try:
+                self.path.parent.mkdir(parents=True, exist_ok=True)
+            except OSError as exc:
+                raise InputError(f"cannot create the folder of the store {self.path} "
+                                 f"({exc.strerror}); pass --store with a writable path") from None
+        self._conn = None
         try:
             self._conn = sqlite3.connect(str(self.path), timeout=30, isolation_level=None,
                                          check_same_thread=False)
             self._conn.row_factory = sqlite3.Row
             self._open(existed)
+        except sqlite3.OperationalError as exc:
+            self._close_quietly()
+            raise InputError(f"cannot open the store {self.path} ({exc}); check that it is "
+                             "writable and not locked by another program, or pass --store with "
+                             "another file") from None
         except sqlite3.DatabaseError as exc:
             self._close_quietly()
             raise InputError(f"the store {self.path} is damaged or not a workbench store "
@@ -276,7 +286,8 @@ class Store:
 
     def _close_quietly(self):
         try:
-            self._conn.close()
+            if self._conn is not None:
+                self._conn.close()
         except Exception:  # pragma: no cover
             pass
 
