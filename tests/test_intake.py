@@ -508,3 +508,24 @@ def test_far_too_large_text_table_is_refused_before_reading(tmp_path, monkeypatc
     with pytest.raises(InputError, match=r"holds about [\d,]+ cells .* over the size limit"):
         load_table(path, max_cells=200)
     assert calls == []  # refused from the estimate, nothing parsed
+
+
+@pytest.mark.parametrize("raw,expected", [
+    (b"a,b\r\n1,2\r\n3,4\r\n", [[1, 2], [3, 4]]),  # Windows line ends
+    (b"a,b\r1,2\r3,4\r", [[1, 2], [3, 4]]),  # old Mac line ends
+    (b"a,b\n1,2\n3,4", [[1, 2], [3, 4]]),  # no final newline
+    (b"\n\na,b\n1,2\n3,4\n", [[1, 2], [3, 4]]),  # blank lines before the header
+    (b'"a","b"\n1,2\n3,4\n', [[1, 2], [3, 4]]),  # quoted header
+])
+def test_line_endings_and_layout(tmp_path, raw, expected):
+    got, _ = load_table(_write(tmp_path / "t.csv", raw))
+    assert list(got.columns) == ["a", "b"] and got.values.tolist() == expected
+
+
+def test_thousands_points_and_padding_spaces(tmp_path):
+    path = _write(tmp_path / "eu.csv", "amount;name;n\n1.234,5; x ;3\n2.000;y;4\n12,25;  ;5\n")
+    got, rep = load_table(path)
+    assert rep.decimal == ","
+    np.testing.assert_allclose(got["amount"].to_numpy(), [1234.5, 2000.0, 12.25])
+    assert got["name"].tolist()[:2] == ["x", "y"] and pd.isna(got["name"].iloc[2])
+    assert got["n"].tolist() == [3, 4, 5]

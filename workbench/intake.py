@@ -75,7 +75,9 @@ _SNIFF_LINES = 200
 _BLOCK_BYTES = 16 << 20
 
 _SEP_HINT = re.compile(r'^"?sep=([,;\t|])"?$')
-_DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+\s*$")
+_DECIMAL_COMMA = re.compile(r"^\s*[-+]?(\d+|\d{1,3}(\.\d{3})+),\d+\s*$")
+#: a number written with a decimal comma, optionally with "." between thousands
+_COMMA_NUMBER = re.compile(r"^[-+]?(\d+|\d{1,3}(\.\d{3})+)(,\d+)?$")
 _DECIMAL_POINT = re.compile(r"^\s*[-+]?\d*\.\d+\s*$")
 _ISO_DATE = re.compile(
     r"^\d{4}[-/]\d{1,2}[-/]\d{1,2}([ T]\d{1,2}:\d{2}(:\d{2}(\.\d+)?)?(Z|[+-]\d{2}:?\d{2})?)?$"
@@ -683,6 +685,24 @@ def _normalise_column(s: pd.Series, report: LoadReport) -> pd.Series:
             # mixed cells (numbers and text, e.g. from a spreadsheet): all text
             report.warnings.append(f"column {s.name!r} mixes numbers and text; read as text")
             return s.map(lambda v: v if isinstance(v, str) else str(v)).where(s.notna(), np.nan)
+    # text: surrounding spaces are not part of a value
+    if isinstance(dt, pd.StringDtype) or pd.api.types.is_object_dtype(dt):
+        stripped = s.str.strip()
+        if not stripped.equals(s):
+            s = stripped.where(stripped != "", np.nan)
+            vals = s.dropna()
+            if len(vals) == 0:
+                return s
+            sample = vals.iloc[:200]
+    # decimal-comma numbers with thousands points ("1.234,5") in a semicolon table
+    if report.decimal == ",":
+        str_sample = sample.astype(str)
+        if str_sample.map(lambda v: _COMMA_NUMBER.match(v) is not None).all():
+            txt = vals.astype(str)
+            if txt.map(lambda v: _COMMA_NUMBER.match(v) is not None).all():
+                num = pd.to_numeric(txt.str.replace(".", "", regex=False)
+                                    .str.replace(",", ".", regex=False), errors="coerce")
+                return num.reindex(s.index).astype(np.float64)
     # text: ISO-like dates become datetimes
     str_sample = sample.astype(str).str.strip()
     if len(str_sample) and str_sample.map(lambda v: _ISO_DATE.match(v) is not None).all():
