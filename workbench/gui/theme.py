@@ -182,10 +182,13 @@ def style_sheet(theme: Theme) -> str:
 
 
 def apply(app, theme: Theme) -> None:
-    """Apply ``theme`` to the whole application."""
+    """Apply ``theme`` to the whole application (once: re-styling every widget is costly)."""
+    if app.property("workbenchTheme") == theme.name:
+        return
     app.setStyle("Fusion")
     app.setPalette(qpalette(theme))
     app.setStyleSheet(style_sheet(theme))
+    app.setProperty("workbenchTheme", theme.name)
 
 
 _ICON_CACHE: dict[tuple[str, str], QIcon] = {}
