@@ -316,3 +316,14 @@ def test_boolean_labels_travel_as_text():
     pipe = _fit(NetClassifier((4,), "relu", max_iter=5, random_state=0), BINARY == "high")
     out = ox.run_onnx(ox.pipeline_to_onnx(pipe, TABLE), TABLE)
     np.testing.assert_array_equal(out["label"].ravel(), pipe.predict(TABLE).astype(str))
+
+
+@pytest.mark.parametrize("hidden", ["relu", "gelu"])
+def test_binary_target_under_a_softmax_head(hidden):
+    """Two classes with a two-unit softmax head: onnxruntime agrees with predict_proba."""
+    pipe = _fit(NetClassifier((6,), hidden, output_activation="softmax", max_iter=15,
+                              random_state=1), BINARY)
+    assert pipe[-1].n_outputs_ == 2
+    out = ox.run_onnx(ox.pipeline_to_onnx(pipe, TABLE), TABLE)
+    np.testing.assert_allclose(out["probabilities"], pipe.predict_proba(TABLE), atol=TOL)
+    np.testing.assert_array_equal(out["label"].ravel(), pipe.predict(TABLE))
