@@ -62,6 +62,7 @@ from __future__ import annotations
 import collections
 import datetime as _dt
 import secrets
+import sqlite3
 import threading
 import time
 from dataclasses import dataclass
@@ -292,7 +293,11 @@ class _Run:
                    "label": self.configs[trial.config_index].label, "time": time.time()})
 
     def finished(self, res):
-        self.store.add_trial(self.sweep_id, res)
+        try:
+            self.store.add_trial(self.sweep_id, res)
+        except sqlite3.IntegrityError:
+            # stored meanwhile by another process resuming the same sweep: keep that copy
+            pass
         self.n_finished += 1
         self.note_score(res)
         self._emit_finished(res)
