@@ -529,3 +529,10 @@ def test_thousands_points_and_padding_spaces(tmp_path):
     np.testing.assert_allclose(got["amount"].to_numpy(), [1234.5, 2000.0, 12.25])
     assert got["name"].tolist()[:2] == ["x", "y"] and pd.isna(got["name"].iloc[2])
     assert got["n"].tolist() == [3, 4, 5]
+
+
+def test_xlsx_over_the_size_limit(tmp_path):
+    path = tmp_path / "big.xlsx"
+    _frame(60).to_excel(path, index=False)
+    with pytest.raises(InputError, match="over the size limit of 100 cells"):
+        load_table(path, max_cells=100)

@@ -152,7 +152,7 @@ def load_table(path, sheet: str | None = None, max_cells: int = DEFAULT_MAX_CELL
     if ext in TEXT_EXTENSIONS:
         df, report = _read_text(p, ext, max_cells)
     elif ext in EXCEL_EXTENSIONS:
-        df, report = _read_excel(p, sheet)
+        df, report = _read_excel(p, sheet, max_cells)
     else:
         df, report = _read_parquet(p)
     report.file_bytes = size
@@ -491,7 +491,8 @@ def _read_text(p: Path, ext: str, max_cells: int = DEFAULT_MAX_CELLS
 # --------------------------------------------------------------------------- xlsx, parquet
 
 
-def _read_excel(p: Path, sheet: str | None) -> tuple[pd.DataFrame, LoadReport]:
+def _read_excel(p: Path, sheet: str | None, max_cells: int = DEFAULT_MAX_CELLS
+                ) -> tuple[pd.DataFrame, LoadReport]:
     try:
         import openpyxl
     except ImportError as exc:  # pragma: no cover - it is a dependency
@@ -517,8 +518,17 @@ def _read_excel(p: Path, sheet: str | None) -> tuple[pd.DataFrame, LoadReport]:
         else:
             raise InputError(f"{p.name} has no sheet named {sheet!r}; its sheets are: "
                              f"{', '.join(names)}")
+        ws = wb[chosen]
         try:
-            rows = list(wb[chosen].iter_rows(values_only=True))
+            declared = int(ws.max_row or 0) * int(ws.max_column or 0)
+        except (TypeError, ValueError):
+            declared = 0
+        if declared > 2 * max_cells:
+            raise InputError(f"{p.name}: sheet {chosen!r} spans about {declared:,} cells, over "
+                             f"the size limit of {max_cells:,} cells; use a sample of the rows "
+                             "or raise the limit")
+        try:
+            rows = list(ws.iter_rows(values_only=True))
         except Exception as exc:  # noqa: BLE001
             raise InputError(f"{p.name}: sheet {chosen!r} could not be read "
                              f"({type(exc).__name__}); save the workbook again") from exc
