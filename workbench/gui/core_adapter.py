@@ -235,9 +235,14 @@ def machine_speed(store_path: str | None) -> tuple[float, str] | None:
         return None
 
 
+_CALIBRATION: list[float] = []
+
+
 def calibrate_speed(rows: int = 2000, features: int = 10, width: int = 32,
                     epochs: int = 5) -> float:
-    """Seconds per unit of work of the project's engine, from one small timed fit."""
+    """Seconds per unit of work of the project's engine, from one small timed fit (once)."""
+    if _CALIBRATION:
+        return _CALIBRATION[0]
     import time
     import warnings
 
@@ -255,7 +260,8 @@ def calibrate_speed(rows: int = 2000, features: int = 10, width: int = 32,
         t = time.perf_counter()
         net.fit(X, y)
         seconds = time.perf_counter() - t
-    return seconds / _work_units((width,), features, rows, epochs)
+    _CALIBRATION.append(seconds / _work_units((width,), features, rows, epochs))
+    return _CALIBRATION[0]
 
 
 def plan_summary(plan, choices: dict, speed: tuple[float, str] | None, n_rows: int,
