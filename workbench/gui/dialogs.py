@@ -139,7 +139,8 @@ class HistoryDialog(QDialog):
                 if j == 1 and r["state"] == "interrupted":
                     item.setToolTip("Stopped before the end; Resume runs only the missing trials")
                 self.table.setItem(i, j, item)
-        self.note.setText(f"{len(rows)} sweeps stored." if rows else
+        self.note.setText((f"{len(rows)} sweep{'s' if len(rows) != 1 else ''} stored; "
+                           "double-click one to show its results.") if rows else
                           "No sweeps stored yet: run one from the main window.")
         if rows:
             self.table.selectRow(0)

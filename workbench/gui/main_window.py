@@ -277,7 +277,9 @@ class MainWindow(QMainWindow):
         self.profile_view.setEditTriggers(QAbstractItemView.AllEditTriggers)
         self.profile_view.verticalHeader().hide()
         self.profile_view.verticalHeader().setDefaultSectionSize(22)
-        self.profile_view.horizontalHeader().setSectionResizeMode(QHeaderView.Stretch)
+        ph = self.profile_view.horizontalHeader()
+        ph.setSectionResizeMode(QHeaderView.ResizeToContents)
+        ph.setStretchLastSection(True)
         self.profile_view.setAlternatingRowColors(True)
         data.addWidget(self._titled("First rows", self.preview))
         data.addWidget(self._titled(

@@ -403,6 +403,9 @@ class FrameModel(QAbstractTableModel):
                 pass
             if isinstance(v, float):
                 return f"{v:.6g}"
+            if hasattr(v, "hour") and hasattr(v, "date") and callable(v.date) \
+                    and (v.hour, v.minute, v.second, getattr(v, "microsecond", 0)) == (0, 0, 0, 0):
+                return str(v.date())  # a date at midnight reads as a date
             return str(v)
         if role == Qt.TextAlignmentRole:
             kind = self._df.dtypes.iloc[index.column()].kind
@@ -418,7 +421,7 @@ class ProfileModel(QAbstractTableModel):
     """The column profile: name, type, missing share, role (editable)."""
 
     roleChanged = Signal(str, str)  # column name, new role
-    HEADERS = ("Column", "Type", "Missing", "Distinct", "Role")
+    HEADERS = ("Column", "Type", "Missing", "Distinct", "Role", "Why")
 
     def __init__(self, parent=None):
         super().__init__(parent)
@@ -475,6 +478,8 @@ class ProfileModel(QAbstractTableModel):
                 return f"{100.0 * float(c.get('missing', 0.0)):.1f} %"
             if col == 3:
                 return "" if c.get("distinct") is None else str(c["distinct"])
+            if col == 5:
+                return c.get("note") or ""
             return c["role"]
         if role == Qt.ToolTipRole:
             return c.get("note") or None

@@ -64,7 +64,7 @@ class SetupPane(QWidget):
         row = QHBoxLayout()
         row.addWidget(QLabel("Target"))
         self.target_combo = QComboBox()
-        self.target_combo.setMinimumContentsLength(12)
+        self.target_combo.setMinimumContentsLength(10)
         self.target_combo.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
         self.target_combo.setToolTip("The column to predict")
         self.target_combo.currentTextChanged.connect(self._target_changed)
@@ -72,7 +72,13 @@ class SetupPane(QWidget):
         self.kind_badge = QLabel("")
         self.kind_badge.setObjectName("kindBadge")
         self.kind_badge.hide()
-        row.addWidget(self.kind_badge)
+        kind_row = QHBoxLayout()
+        self.kind_title = QLabel("Detected kind")
+        self.kind_title.setObjectName("muted")
+        self.kind_title.hide()
+        kind_row.addWidget(self.kind_title)
+        kind_row.addWidget(self.kind_badge)
+        kind_row.addStretch(1)
         self.evidence_label = QLabel("")
         self.evidence_label.setObjectName("muted")
         self.evidence_label.setWordWrap(True)
@@ -82,6 +88,7 @@ class SetupPane(QWidget):
         for w in (self.file_label, self.shape_label):
             s1.body.addWidget(w)
         s1.body.addLayout(row)
+        s1.body.addLayout(kind_row)
         s1.body.addWidget(self.evidence_label)
         s1.body.addWidget(self.advice_label)
         lay.addWidget(s1)
@@ -255,6 +262,7 @@ class SetupPane(QWidget):
         self._summary = summary
         if summary is None:
             self.kind_badge.hide()
+            self.kind_title.hide()
             self.evidence_label.setText("")
             self.advice_label.setText("")
             self.head_grid.set_items([])
@@ -265,6 +273,7 @@ class SetupPane(QWidget):
         self.kind_badge.setText(info.kind.replace("_", "-"))
         self.kind_badge.setToolTip(f"{info.task}: detected target kind")
         self.kind_badge.show()
+        self.kind_title.show()
         self.evidence_label.setText(core.evidence_text(info))
         self.advice_label.setText(
             f"Advised head: <b>{_escape(adv.output_head)}</b> with {_escape(adv.loss.replace('_', ' '))}"
