@@ -8,6 +8,7 @@ the result has been delivered.
 
 from __future__ import annotations
 
+import atexit
 import traceback
 from collections.abc import Callable
 
@@ -78,3 +79,14 @@ def run_task(fn: Callable, on_done: Callable, on_error: Callable | None = None) 
 def wait_all(ms: int = 10_000) -> bool:
     """Wait for every pooled task (used when the window closes)."""
     return QThreadPool.globalInstance().waitForDone(ms)
+
+
+@atexit.register
+def _drain() -> None:
+    # a pooled task still running Python while the interpreter finalizes can abort it
+    try:
+        pool = QThreadPool.globalInstance()
+        pool.waitForDone(10_000)
+        pool.clear()
+    except RuntimeError:  # pragma: no cover - Qt already gone
+        pass
