@@ -300,6 +300,35 @@ def test_a_dead_worker_costs_only_its_trial(tmp_path):
     assert all(t["status"] == "done" for t in trials if t not in failed)
 
 
+def test_a_lost_dask_worker_costs_only_its_trial(tmp_path):
+    """Kill the only worker process of a LocalCluster mid-sweep: the scattered table is sent
+    again to its replacement, the lost trial is retried, and the sweep completes."""
+    import psutil
+    from distributed import LocalCluster
+
+    plan = build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection", hidden="relu,tanh",
+                      layers=["8"], folds=2, repeats=1, epochs=5)
+    me = psutil.Process()
+    before = {p.pid for p in me.children(recursive=True)}
+    killed = []
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, host="127.0.0.1",
+                      dashboard_address=None) as cluster:
+        def on_event(ev):
+            if ev["type"] == "trial_started" and ev["config_index"] == 1 and not killed:
+                for p in me.children(recursive=True):
+                    if p.pid not in before and "spawn_main" in " ".join(p.cmdline()):
+                        p.kill()
+                        killed.append(p.pid)
+
+        with Store(tmp_path / "s.sqlite") as st:
+            out = run_sweep(plan, store=st, cluster=cluster.scheduler_address,
+                            on_event=on_event)
+            trials = st.trials(out.sweep_id, with_history=False)
+    assert killed and out.state == "finished"
+    assert len(trials) == plan.n_trials and all(t["status"] == "done" for t in trials)
+    assert max(t["attempts"] for t in trials) == 2  # the killed trial ran twice
+
+
 def test_cancel_keeps_finished_trials_and_resume_runs_exactly_the_rest(tmp_path):
     plan = build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection", hidden="relu,gelu",
                       layers=["8"], folds=3, repeats=1, epochs=4)

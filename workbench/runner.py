@@ -502,6 +502,7 @@ class _DaskExecutor:
             raise InputError(f"the Dask cluster at {self.client.scheduler.address} has no "
                              "workers; start some workers first")
         self.workers = int(threads)
+        self.data = data
         self.data_future = self.client.scatter(data, broadcast=True, hash=False)
         self._live = set()
 
@@ -517,17 +518,25 @@ class _DaskExecutor:
 
         try:
             with self.client.as_current():
-                done, _ = wait(handles, timeout=timeout, return_when="FIRST_COMPLETED")
-        except TimeoutError:
-            return []
-        out = []
+                wait(handles, timeout=timeout, return_when="FIRST_COMPLETED")
+        except Exception:  # TimeoutError, or a future cancelled with its lost input
+            pass
+        done = [f for f in handles if f.status != "pending"]
+        out, lost = [], False
         for f in done:
             self._live.discard(f)
             if f.status == "finished":
                 out.append((f, f.result(), None))
-            else:
+                continue
+            try:
                 exc = f.exception()
-                out.append((f, None, f"{type(exc).__name__}: {exc}"))
+            except BaseException as err:  # a cancelled future raises instead
+                exc = err
+            out.append((f, None, f"{type(exc).__name__}: {exc}"))
+            lost = True
+        if lost and self.data_future.status != "finished":
+            # the table went down with the last worker holding it: send it again
+            self.data_future = self.client.scatter(self.data, broadcast=True, hash=False)
         return out
 
     def close(self, kill=False):
