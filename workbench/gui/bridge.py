@@ -58,6 +58,7 @@ class SweepBridge(QObject):
         self.cancel_event = threading.Event()
         self._sweep_id = None
         self._last_rank = 0.0
+        self._rank_seconds = 0.0
         self._dirty = False
 
     def cancel(self) -> None:
@@ -68,7 +69,9 @@ class SweepBridge(QObject):
         if self._ranker is None or self._sweep_id is None:
             return
         now = time.monotonic()
-        if not force and (not self._dirty or now - self._last_rank < self._interval):
+        # rank at most every `interval` s, and never spend more than a fifth of the time on it
+        wait = max(self._interval, 5.0 * self._rank_seconds)
+        if not force and (not self._dirty or now - self._last_rank < wait):
             return
         self._last_rank = now
         self._dirty = False
@@ -76,6 +79,8 @@ class SweepBridge(QObject):
             rows = self._ranker(self._sweep_id)
         except Exception:  # a ranking hiccup must not end the sweep
             return
+        finally:
+            self._rank_seconds = time.monotonic() - now
         self.ranked.emit(rows)
 
     def _on_event(self, event: dict) -> None:
