@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import itertools
 import threading
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -345,3 +346,30 @@ def test_snapshot_of_a_bad_file_exits_2(tmp_path, capsys, monkeypatch):
                  "--store", str(tmp_path / "s.sqlite")])
     assert code == 2
     assert "empty" in capsys.readouterr().err.lower()
+
+
+def test_gui_bench_sort_part_runs_small(qapp):
+    # a smoke test of the benchmark's sorting part (figures, not assertions on time)
+    from workbench.gui.bench_gui import bench_sort
+
+    res = bench_sort(n=300, generic_n=50, repeats=1)
+    assert res["rows"] == 300 and res["median_s"] > 0 and res["generic_s"] > 0
+
+
+def test_plan_summary_counts_configurations_and_trials(qapp, tmp_path):
+    from workbench.gui import core_adapter as core
+
+    table = core.load(str(Path(__file__).resolve().parents[1] / "sample_sets"
+                          / "greenhouse_temp.csv"))
+    summary = core.summarise_target(table.df, table.profile.suggested_target)
+    choices = {"hidden": ["relu", "tanh", "gelu"], "heads": ["identity"],
+               "layers": ["8", "16,8"], "learning_rates": [0.001, 0.01], "alphas": [0.0001],
+               "folds": 3, "repeats": 2, "epochs": 5, "jobs": 2, "metric": "r2"}
+    plan = core.build_plan(table, summary, choices)
+    # the grid is the product of the choices (3 x 1 x 2 x 2 x 1), each on 3 folds x 2 repeats
+    assert plan.n_configurations == 12 and plan.n_trials == 72
+    text = core.plan_summary(plan, choices, (1e-8, "from earlier trials on this computer"),
+                             *table.df.shape)
+    assert "12 configurations × 3 folds × 2 repeats = 72 trials" in text
+    assert "About" in text
+    assert "cluster" in core.plan_summary(plan, dict(choices, cluster="tcp://h:1"), None, 10, 2)

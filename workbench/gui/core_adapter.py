@@ -270,11 +270,13 @@ def plan_summary(plan, choices: dict, speed: tuple[float, str] | None, n_rows: i
     n_cfg, n_trials = plan.n_configurations, plan.n_trials
     text = (f"{n_cfg} configuration{'s' if n_cfg != 1 else ''} × {plan.folds} folds × "
             f"{plan.repeats} repeat{'s' if plan.repeats != 1 else ''} = {n_trials} trials")
+    if choices.get("cluster"):
+        return text + "\nOn a Dask cluster the time depends on its workers."
     if speed is None:
         return text + "\nTime estimate: measuring this computer…"
     speed, source = speed
     n_feat = max(1, int(n_features))
-    workers = 4 if choices.get("cluster") else max(1, int(choices.get("jobs") or 1))
+    workers = max(1, int(choices.get("jobs") or 1))
     train_rows = n_rows * (plan.folds - 1) / plan.folds
     total = 0.0
     for c in plan.configurations():
