@@ -200,6 +200,9 @@ class MainWindow(QMainWindow):
         tm = m.addMenu("&Theme")
         for a in self.theme_actions.values():
             tm.addAction(a)
+        m = mb.addMenu("&Help")
+        m.addAction("&Keyboard shortcuts", self.show_shortcuts)
+        m.addAction("&About Activation Workbench", self.show_about)
 
         tb = self.addToolBar("Main")
         tb.setObjectName("mainToolbar")
@@ -223,9 +226,15 @@ class MainWindow(QMainWindow):
         scroll.setWidgetResizable(True)
         scroll.setHorizontalScrollBarPolicy(Qt.ScrollBarAlwaysOff)
         scroll.setWidget(self.setup)
-        scroll.setMinimumWidth(280)
-        scroll.setMaximumWidth(460)
-        root.addWidget(scroll)
+        left = QWidget()
+        left.setMinimumWidth(280)
+        left.setMaximumWidth(460)
+        ll = QVBoxLayout(left)
+        ll.setContentsMargins(0, 0, 0, 0)
+        ll.setSpacing(0)
+        ll.addWidget(scroll, 1)
+        ll.addWidget(self.setup.footer)
+        root.addWidget(left)
         self.setup.targetChosen.connect(self.set_target)
         self.setup.planChanged.connect(self._update_estimate)
         self.setup.runRequested.connect(self.run_sweep)
@@ -358,7 +367,7 @@ class MainWindow(QMainWindow):
         tl.addWidget(self.results_note)
         vs.addWidget(tablebox)
         vs.addWidget(plots)
-        vs.setSizes([230, 380])
+        vs.setSizes([260, 350])
         rv.addWidget(vs, 1)
         self.tabs.addTab(res, "Results")
 
@@ -773,6 +782,10 @@ class MainWindow(QMainWindow):
         self._plot_selection(self.selected_rows()[:MAX_PLOTTED])
 
     def _plot_selection(self, rows: list[dict]) -> None:
+        n_sel = len(self.results_view.selectionModel().selectedRows())
+        if n_sel > MAX_PLOTTED:
+            self.status.showMessage(f"{n_sel} rows selected; the plots show the first "
+                                    f"{MAX_PLOTTED}.", 5000)
         series = []
         for i, r in enumerate(rows):
             s = dict(r.get("series") or {})
@@ -784,6 +797,25 @@ class MainWindow(QMainWindow):
         self.curves.set_series(series)
         self.spread.set_series(series)
         self.health.set_series(series)
+
+    def show_shortcuts(self) -> None:
+        rows = []
+        for a in (self.open_action, self.run_action, self.stop_action, self.export_action,
+                  self.history_action, self.quit_action):
+            keys = ", ".join(k.toString(QKeySequence.NativeText) for k in a.shortcuts())
+            rows.append(f"<tr><td>{a.text().replace('&', '').rstrip('…')}</td>"
+                        f"<td>&nbsp;&nbsp;<b>{keys}</b></td></tr>")
+        QMessageBox.information(self, "Keyboard shortcuts", "<table>" + "".join(rows) + "</table>")
+
+    def show_about(self) -> None:
+        from workbench import __version__
+
+        QMessageBox.about(
+            self, "About Activation Workbench",
+            f"<b>Activation Workbench {__version__}</b><p>Test hidden-layer and output-layer "
+            "activation choices for small networks on your own table, under repeated "
+            "cross-validation.</p><p>Scores are cross-validated estimates: check the winner "
+            "on fresh data before it drives decisions.</p>")
 
     # ================================================================== export, history
     def export_target_row(self) -> dict | None:

@@ -193,12 +193,19 @@ class SetupPane(QWidget):
         self.estimate_label = QLabel("")
         self.estimate_label.setObjectName("estimate")
         self.estimate_label.setWordWrap(True)
-        s4.body.addWidget(self.estimate_label)
         self.run_button = QPushButton("Run sweep")
         self.run_button.setObjectName("primary")
         self.run_button.clicked.connect(self.runRequested)
-        s4.body.addWidget(self.run_button)
+        self.run_button.setToolTip("Run the sweep (Ctrl+R)")
         lay.addWidget(s4)
+        # the estimate and the Run button live in a footer below the scrolling cards
+        self.footer = QWidget()
+        self.footer.setObjectName("setupFooter")
+        fl = QVBoxLayout(self.footer)
+        fl.setContentsMargins(8, 6, 8, 8)
+        fl.setSpacing(6)
+        fl.addWidget(self.estimate_label)
+        fl.addWidget(self.run_button)
         lay.addStretch(1)
 
         self._summary: core.TargetSummary | None = None
@@ -347,9 +354,7 @@ class SetupPane(QWidget):
             self.metric_combo.setCurrentText(plan["metric"])
 
     def set_estimate(self, text: str, ok: bool) -> None:
-        if text != self.estimate_label.text():
-            self.estimate_label.setText(text)
-            self._texts_changed()
+        self.estimate_label.setText(text)
         self.run_button.setEnabled(ok)
 
 
