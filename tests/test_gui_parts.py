@@ -373,3 +373,23 @@ def test_plan_summary_counts_configurations_and_trials(qapp, tmp_path):
     assert "12 configurations × 3 folds × 2 repeats = 72 trials" in text
     assert "About" in text
     assert "cluster" in core.plan_summary(plan, dict(choices, cluster="tcp://h:1"), None, 10, 2)
+
+
+def test_theme_switch_recolours_the_window_and_is_remembered(qtbot, tmp_path):
+    from PySide6.QtGui import QPalette
+    from PySide6.QtWidgets import QApplication
+
+    from workbench.gui.main_window import MainWindow
+
+    win = MainWindow(settings=Settings(tmp_path / "cfg"), store_path=str(tmp_path / "s.sqlite"),
+                     theme_choice="light")
+    qtbot.addWidget(win)
+    win.apply_theme("dark")
+    app = QApplication.instance()
+    assert app.property("workbenchTheme") == "dark"
+    assert app.palette().color(QPalette.Window).name() == th.DARK.window
+    assert win.curves.loss_plot.backgroundBrush().color().name() == th.DARK.plot_bg
+    assert win.theme_actions["dark"].isChecked() and not win.theme_actions["light"].isChecked()
+    assert Settings(tmp_path / "cfg").theme() == "dark"
+    win.apply_theme("light")
+    assert app.palette().color(QPalette.Window).name() == th.LIGHT.window

@@ -135,6 +135,13 @@ class MainWindow(QMainWindow):
         self._update_estimate()
         self._measure_speed()
         self.exportProgress.connect(self._export_progress)
+        hints = QApplication.styleHints()
+        if hasattr(hints, "colorSchemeChanged"):
+            hints.colorSchemeChanged.connect(self._system_scheme_changed)
+
+    def _system_scheme_changed(self, *_):
+        if self._theme_choice == "system":
+            self.apply_theme("system")
 
     def _export_progress(self, message: str, fraction: float) -> None:
         self.status.showMessage(f"Exporting: {message} ({100 * fraction:.0f} %)")
