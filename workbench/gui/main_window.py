@@ -353,6 +353,8 @@ class MainWindow(QMainWindow):
             hh.resizeSection(i, widths.get(k, 80))
         hh.setSortIndicator(0, Qt.AscendingOrder)
         self.results_view.selectionModel().selectionChanged.connect(self._selection_changed)
+        self.results_view.setContextMenuPolicy(Qt.ActionsContextMenu)
+        self.results_view.addAction(self.export_action)
         self.results_model.rowsUpdated.connect(self._rows_updated)
 
         self.curves = CurvesPanel()
@@ -465,8 +467,10 @@ class MainWindow(QMainWindow):
 
     def dragEnterEvent(self, event) -> None:
         md = event.mimeData()
-        if md.hasUrls() and any(u.isLocalFile() for u in md.urls()):
+        files = [u for u in md.urls() if u.isLocalFile()] if md.hasUrls() else []
+        if files:
             event.acceptProposedAction()
+            self.status.showMessage(f"Drop to open {Path(files[0].toLocalFile()).name}", 3000)
         else:
             event.ignore()
 
@@ -480,6 +484,9 @@ class MainWindow(QMainWindow):
             event.ignore()
             return
         event.acceptProposedAction()
+        if len(urls) > 1:
+            self.status.showMessage(f"{len(urls)} files dropped; opening the first, "
+                                    f"{Path(urls[0].toLocalFile()).name}.", 6000)
         self.open_path(urls[0].toLocalFile())
 
     def open_path(self, path: str, target: str | None = None) -> None:
