@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
+import numpy as np
 import psutil
 import pytest
 from PySide6.QtCore import QMimeData, QPoint, QPointF, Qt, QUrl
@@ -144,6 +145,19 @@ def test_drop_run_sort_select_export(qtbot, window, tmp_path):
         assert len(x) >= 1 and all(math.isfinite(v) for v in y)
     assert len(win.spread.scatter_items()) == 2
     assert win.health.bar_items()
+    # what is drawn is what the store holds: the mean over folds of each trial's loss curve,
+    # and every fold score (numpy's mean over the stored histories is the reference)
+    from workbench.store import Store
+
+    with Store(win.store_path) as store:
+        stored = store.trials(win.sweep_id)
+    for item, row in zip(curves, win.selected_rows()):
+        trials = [t for t in stored if t["config_index"] == row["index"]]
+        losses = np.array([t["history"]["loss"] for t in trials], float)
+        np.testing.assert_allclose(item.getData()[1], losses.mean(axis=0), rtol=1e-12)
+    for sc, row in zip(win.spread.scatter_items(), win.selected_rows()):
+        scores = sorted(t["test_score"] for t in stored if t["config_index"] == row["index"])
+        assert sorted(sc.getData()[1].tolist()) == pytest.approx(scores, rel=1e-12)
 
     # export the best configuration
     win.select_rows([])
