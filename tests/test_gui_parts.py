@@ -393,3 +393,18 @@ def test_theme_switch_recolours_the_window_and_is_remembered(qtbot, tmp_path):
     assert Settings(tmp_path / "cfg").theme() == "dark"
     win.apply_theme("light")
     assert app.palette().color(QPalette.Window).name() == th.LIGHT.window
+
+
+def test_curve_band_is_mean_and_sd_over_the_folds_that_reached_each_epoch():
+    from workbench.gui.core_adapter import _band
+
+    band = _band([[1.0, 2.0, 3.0], [3.0, 4.0], [5.0]])
+    # epoch 3 is reached by one fold only and is left out (a band needs two)
+    assert band["x"] == [1, 2]
+    np.testing.assert_allclose(band["mean"], [np.mean([1, 3, 5]), np.mean([2, 4])])
+    sd = np.array([np.std([1, 3, 5]), np.std([2, 4])])
+    np.testing.assert_allclose(band["lo"], np.array(band["mean"]) - sd)
+    np.testing.assert_allclose(band["hi"], np.array(band["mean"]) + sd)
+    assert _band([]) is None and _band([[], []]) is None
+    single = _band([[0.5, 0.25]])
+    assert single["mean"] == [0.5, 0.25] and single["lo"] == single["hi"] == [0.5, 0.25]
