@@ -346,7 +346,9 @@ class _Net:
             if i > 0:
                 # full width: the column for the ones is computed and then ignored
                 _, ai, zi, nd, nd_view, sc = views[i - 1]
-                np.matmul(delta, self.P[i].T, out=nd)
+                # np.dot, not np.matmul: matmul takes a slow non-BLAS path when the
+                # inner dimension is 1 (a single-output layer); dot calls sgemm/dgemm
+                np.dot(delta, self.P[i].T, out=nd)
                 name = names[i - 1]
                 if name == "relu":
                     np.greater(ai, 0, out=sc)  # 1.0 where active (faster than a bool mask)

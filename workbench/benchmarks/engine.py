@@ -80,7 +80,7 @@ def _time_floor(X, epochs):
             for i in (2, 1, 0):
                 np.matmul((xb if i == 0 else A[i - 1][:m]).T, delta, out=G[i])
                 if i:
-                    np.matmul(delta, P[i].T, out=D[i - 1][:m])
+                    np.dot(delta, P[i].T, out=D[i - 1][:m])
                     D[i - 1][:m] *= 0.01
                     delta = D[i - 1][:m, :-1]
     return time.perf_counter() - t
