@@ -76,7 +76,7 @@ def fmt_pct(x) -> str:
 class ResultsModel(QAbstractTableModel):
     """One row per configuration of a sweep.
 
-    Rows are plain dicts (see :func:`workbench.gui.core_adapter.configuration_row`)
+    Rows are plain dicts (see :func:`workbench.gui.core_adapter.ranked_rows`)
     identified by their ``key``; :meth:`upsert` adds new ones and updates known
     ones in place so that selections survive a sweep's updates.
     """
@@ -270,14 +270,6 @@ class ResultsModel(QAbstractTableModel):
         """Rows in the current (sorted) order."""
         return [self._rows[i] for i in self._order_list]
 
-    def key_at(self, view_row: int) -> str:
-        return self._rows[self._order_list[view_row]]["key"]
-
-    def view_row_of(self, key: str) -> int:
-        i = self._index.get(key)
-        if i is None:
-            return -1
-        return int(np.flatnonzero(self._order == i)[0])
 
     # --- sorting (NumPy, stable) ----------------------------------------------
     def _key_array(self, key: str) -> np.ndarray:
@@ -322,9 +314,6 @@ class ResultsModel(QAbstractTableModel):
         self.changePersistentIndexList(
             old, [self.index(int(inverse[s]), p.column()) for s, p in zip(stored, old)])
         self.layoutChanged.emit()
-
-    def sort_state(self) -> tuple[int, Qt.SortOrder] | None:
-        return self._sort
 
 
 class ResultsProxy(QSortFilterProxyModel):

@@ -71,9 +71,6 @@ class Banner(QFrame):
         self.hide()
         self.dismissed.emit()
 
-    def text(self) -> str:
-        return self.label.text() if self.isVisible() or not self.isHidden() else ""
-
 
 class CheckGrid(QWidget):
     """Check boxes laid out in a fixed number of columns; ``changed`` on any toggle."""
