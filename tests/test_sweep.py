@@ -239,6 +239,10 @@ def test_same_scores_with_1_or_2_jobs_and_on_a_dask_local_cluster(tmp_path):
         s1, s2, s3 = (_scores(st, o.sweep_id) for o in (one, two, dask))
     assert len(s1) == plan.n_trials
     assert s1 == s2 == s3  # exactly equal, not approximately
+    # the sweep's warm pool is its own: joblib (scikit-learn's n_jobs) still works beside it
+    from joblib import Parallel, delayed
+
+    assert Parallel(n_jobs=2)(delayed(abs)(-i) for i in range(3)) == [0, 1, 2]
 
 
 # --------------------------------------------------------------------------- failures

@@ -408,8 +408,51 @@ class _InlineExecutor:
         pass
 
 
+#: the sweep's own loky pool, kept warm between sweeps: {"executor", "workers"}
+_POOL: dict = {}
+_POOL_LOCK = threading.Lock()
+#: idle pool workers exit after this many seconds (and are started again when needed)
+POOL_IDLE_SECONDS = 300
+
+
+def _warm_pool(workers: int):
+    """The warm pool with ``workers`` processes (a new one when the size differs).
+
+    The sweep keeps its own loky executor rather than the process-wide one that
+    joblib (and so scikit-learn's ``n_jobs``) shares, so that neither can
+    reconfigure the other's workers.
+    """
+    from joblib.externals.loky import ProcessPoolExecutor
+
+    with _POOL_LOCK:
+        ex = _POOL.get("executor")
+        if ex is not None and _POOL.get("workers") != workers:
+            _shutdown(ex)
+            ex = None
+        if ex is None:
+            ex = ProcessPoolExecutor(max_workers=workers, timeout=POOL_IDLE_SECONDS,
+                                     env=dict(_THREAD_ENV))
+            _POOL.update(executor=ex, workers=workers)
+        return ex
+
+
+def _shutdown(ex):
+    try:
+        ex.shutdown(wait=False, kill_workers=True)
+    except Exception:  # pragma: no cover - a pool already broken
+        pass
+
+
+def _drop_pool(ex):
+    """Stop a pool (after a worker death or a cancel) and forget it if it is the warm one."""
+    with _POOL_LOCK:
+        if _POOL.get("executor") is ex:
+            _POOL.clear()
+    _shutdown(ex)
+
+
 class _LokyExecutor:
-    """loky worker processes (joblib's reusable pool, kept warm between sweeps).
+    """loky worker processes (the sweep's own pool, kept warm between sweeps).
 
     The table is written once per sweep to a temporary file that each worker
     reads on its first trial (see :func:`workbench.trials.run_trial_from_file`).
@@ -434,14 +477,15 @@ class _LokyExecutor:
 
     def _ensure(self):
         if self._pool is None:
-            from joblib.externals.loky import get_reusable_executor
-
-            self._pool = get_reusable_executor(max_workers=self.workers, env=dict(_THREAD_ENV),
-                                               reuse=True)
+            self._pool = _warm_pool(self.workers)
         return self._pool
 
     def submit(self, spec):
-        return self._ensure().submit(run_trial_from_file, self._token, self._path, spec)
+        try:
+            return self._ensure().submit(run_trial_from_file, self._token, self._path, spec)
+        except Exception:  # a warm pool broken while idle (a worker killed): start afresh
+            self._stop_pool()
+            return self._ensure().submit(run_trial_from_file, self._token, self._path, spec)
 
     def wait(self, handles, timeout):
         from concurrent.futures import FIRST_COMPLETED, wait
@@ -465,10 +509,7 @@ class _LokyExecutor:
 
     def _stop_pool(self):
         if self._pool is not None:
-            try:
-                self._pool.shutdown(wait=False, kill_workers=True)
-            except Exception:  # pragma: no cover - a pool already broken
-                pass
+            _drop_pool(self._pool)
             self._pool = None
 
     def close(self, kill=False):
