@@ -6,7 +6,8 @@ trial to the :class:`workbench.store.Store` the moment it arrives.
 
 Where trials run
 ----------------
-- Locally (default): joblib's loky process pool with ``jobs`` workers (default:
+- Locally (default): a loky process pool (the executor joblib is built on;
+  the sweep's own, not joblib's shared one) with ``jobs`` workers (default:
   every core), each worker with a single BLAS thread, so nothing is
   oversubscribed. The pool stays warm between sweeps; the table goes to each
   worker once per sweep (a temporary file it reads on its first trial), and
