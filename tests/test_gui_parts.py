@@ -408,3 +408,16 @@ def test_curve_band_is_mean_and_sd_over_the_folds_that_reached_each_epoch():
     assert _band([]) is None and _band([[], []]) is None
     single = _band([[0.5, 0.25]])
     assert single["mean"] == [0.5, 0.25] and single["lo"] == single["hi"] == [0.5, 0.25]
+
+
+def test_upsert_of_unchanged_rows_touches_nothing(qapp):
+    m = ResultsModel()
+    rows = _rows(10)
+    rows[2]["mean"] = float("nan")  # NaN != NaN must not count as a change
+    m.set_rows(rows)
+    seen = []
+    m.dataChanged.connect(lambda *a: seen.append(a))
+    assert m.upsert([dict(r) for r in rows]) == []
+    assert not seen
+    assert m.upsert([dict(rows[4], n_done=3)]) == [rows[4]["key"]]
+    assert len(seen) == 1 and m.last_changed == {rows[4]["key"]}

@@ -745,13 +745,20 @@ class MainWindow(QMainWindow):
             vals = {r.get(key) for r in rows}
             if len(vals) == 1 and None not in vals:
                 shared.append(f"{label} {next(iter(vals)):g}")
+        self.results_note.setText(self._note_text(rows, tied, shared, meta, n))
+        # redraw the plots only when a selected configuration changed
+        selected = {r["key"] for r in self.selected_rows()}
+        if selected & self.results_model.last_changed:
+            self._selection_changed()
+
+    @staticmethod
+    def _note_text(rows, tied, shared, meta, n) -> str:
         note = (f"{n} configurations · metric {meta.get('metric', '?')} (greater is better) · "
                 f"◆ best, ◇ {max(0, tied - 1)} tied with it: not distinguishable at alpha = "
                 f"{meta.get('significance_level', 0.05)} (Nadeau–Bengio corrected t-test, "
                 f"{meta.get('n_comparisons', 0)} comparisons, uncorrected)"
                 + (f" · all with {', '.join(shared)}" if shared else ""))
-        self.results_note.setText(note)
-        self._selection_changed()
+        return note
 
     def _fit_columns(self) -> None:
         """Fit columns to their contents; hide learning rate / L2 when one value is shared."""

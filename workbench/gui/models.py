@@ -91,6 +91,8 @@ class ResultsModel(QAbstractTableModel):
         self._keys: dict[str, np.ndarray] = {}
         self._order_list: list[int] = []
         self._disp: list[tuple | None] = []
+        #: keys of the rows the last update touched (every row after a reset)
+        self.last_changed: set[str] = set()
         self._bold = QFont()
         self._bold.setBold(True)
         self._sort: tuple[int, Qt.SortOrder] | None = None
@@ -220,6 +222,7 @@ class ResultsModel(QAbstractTableModel):
         self._disp = []
         self._keys = {}
         self.endResetModel()
+        self.last_changed = set()
         self.rowsUpdated.emit()
 
     def set_rows(self, rows: Iterable[dict]) -> None:
@@ -232,24 +235,37 @@ class ResultsModel(QAbstractTableModel):
         self.endResetModel()
         if self._sort is not None:
             self.sort(*self._sort)
+        self.last_changed = set(self._index)
         self.rowsUpdated.emit()
 
-    def upsert(self, rows: Iterable[dict]) -> None:
-        """Update known configurations in place and append new ones."""
-        new = []
-        changed = False
+    @staticmethod
+    def signature(row: dict) -> tuple:
+        """What identifies a row's content (NaN-safe; a row changes when trials arrive)."""
+        return tuple(repr(row.get(k)) for k in (
+            "n_done", "status", "rank", "position", "tied_with_best", "mean", "sd", "p_value",
+            "fit_seconds", "dead_pct", "saturated_pct", "message"))
+
+    def upsert(self, rows: Iterable[dict]) -> list[str]:
+        """Update known configurations in place and append new ones.
+
+        Returns the keys of the rows that changed or were added.
+        """
+        new, changed = [], []
         for r in rows:
             i = self._index.get(r["key"])
             if i is None:
                 new.append(dict(r))
-            elif self._rows[i] != r:
+            elif self.signature(self._rows[i]) != self.signature(r):
                 self._rows[i] = dict(r)
                 self._disp[i] = None
-                changed = True
+                changed.append(i)
         if changed:
             self._keys = {}
-            self.dataChanged.emit(self.index(0, 0),
-                                  self.index(len(self._rows) - 1, len(RESULT_COLUMNS) - 1))
+            inverse = {s: v for v, s in enumerate(self._order_list)}
+            last = len(RESULT_COLUMNS) - 1
+            for i in changed:
+                v = inverse[i]
+                self.dataChanged.emit(self.index(v, 0), self.index(v, last))
         if new:
             start = len(self._rows)
             self.beginInsertRows(QModelIndex(), start, start + len(new) - 1)
@@ -263,8 +279,11 @@ class ResultsModel(QAbstractTableModel):
             self.endInsertRows()
         if (changed or new) and self._sort is not None:
             self.sort(*self._sort)
-        if changed or new:
+        keys = [self._rows[i]["key"] for i in changed] + [r["key"] for r in new]
+        if keys:
+            self.last_changed = set(keys)
             self.rowsUpdated.emit()
+        return keys
 
     def rows(self) -> list[dict]:
         """Rows in the current (sorted) order."""
