@@ -222,6 +222,8 @@ def test_diabetes_sweep(bundled, tmp_path):
 # --------------------------------------------------------------------------- determinism
 
 
+# the in-process Dask worker trains in a thread, where warning filters are process-wide
+@pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
 def test_same_scores_with_1_or_2_jobs_and_on_a_dask_local_cluster(tmp_path):
     from distributed import LocalCluster
 
