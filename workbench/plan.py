@@ -502,12 +502,6 @@ def resolve_heads(target, output="auto") -> tuple[list[str], dict, dict]:
     for n in dict.fromkeys(wanted):
         chk = check_head(target, n)
         name = chk.head or n
-        if chk.allowed and target.kind == "binary" and name == "softmax":
-            # both engines give a two-class target the logistic head; a softmax over two
-            # classes is the same model written twice, so the grid would repeat itself
-            refused[name] = ("a two-class target uses the logistic head (a softmax over two "
-                             "classes is the same model); use logistic")
-            continue
         if not chk.allowed:
             refused[name] = chk.reason
         elif name not in heads:
