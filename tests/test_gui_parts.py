@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from PySide6.QtCore import QByteArray, QObject, Qt
+from PySide6.QtCore import QByteArray, QObject, Qt, Signal
 
 from workbench.gui import theme as th
 from workbench.gui.bridge import SweepThread
@@ -421,3 +421,19 @@ def test_upsert_of_unchanged_rows_touches_nothing(qapp):
     assert not seen
     assert m.upsert([dict(rows[4], n_done=3)]) == [rows[4]["key"]]
     assert len(seen) == 1 and m.last_changed == {rows[4]["key"]}
+
+
+def test_signal_emits_keep_the_bool_refcounts(qapp):
+    """PySide6 6.12.0 under CPython 3.11 dropped a reference to True on every Signal.emit(),
+    which aborted the window after a few thousand signals; pyproject excludes that release."""
+    import sys
+
+    class Emitter(QObject):
+        sig = Signal(object)
+
+    e = Emitter()
+    e.sig.connect(lambda *_: None)
+    before = sys.getrefcount(True), sys.getrefcount(False)
+    for _ in range(2000):
+        e.sig.emit(True)
+    assert (sys.getrefcount(True), sys.getrefcount(False)) == before
