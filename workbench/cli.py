@@ -28,8 +28,16 @@ def _command_modules():
     return mods
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with a one-line usage error (exit status 2) instead of the usage block."""
+
+    def error(self, message):
+        message = " ".join(str(message).split())
+        self.exit(EXIT_BAD_INPUT, f"{self.prog}: {message}; see {self.prog} --help\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="workbench",
         description=(
             "Test hidden-layer and output-layer activation choices on your own table "
