@@ -6,9 +6,14 @@ tables, a store in tmp_path, `workbench.cli.main(argv)` in-process with capsys.
 
 from __future__ import annotations
 
+import json
+
+import numpy as np
+import pandas as pd
 import pytest
 
 from workbench.cli import main
+from workbench.commands.show import format_results
 
 
 def _err_line(capsys) -> str:
@@ -33,3 +38,44 @@ def test_usage_errors_are_one_line_with_exit_2(capsys, argv, words):
     line = _err_line(capsys)
     assert words in line and "--help" in line
     assert not line.startswith("usage:")
+
+
+@pytest.fixture(scope="module")
+def swept(tmp_path_factory):
+    """One tiny finished sweep (8 configurations, lr varying) in its own store."""
+    folder = tmp_path_factory.mktemp("cli_user")
+    rng = np.random.default_rng(3)
+    n = 80
+    x = rng.normal(size=n)
+    df = pd.DataFrame({"reading": x.round(3), "site": rng.choice(["north", "south"], n),
+                       "passed": np.where(x + 0.3 * rng.normal(size=n) > 0, "yes", "no")})
+    table = folder / "t.csv"
+    df.to_csv(table, index=False)
+    store = folder / "s.sqlite"
+    out = folder / "r.json"
+    rc = main(["sweep", str(table), "--target", "passed", "--hidden", "relu,leaky_relu",
+               "--layers", "8", "--layers", "8,4", "--learning-rate", "0.001,0.01",
+               "--folds", "2", "--repeats", "1", "--epochs", "3", "--jobs", "1",
+               "--store", str(store), "--json", str(out), "--quiet"])
+    assert rc == 0
+    res = json.loads(out.read_text())
+    return {"folder": folder, "table": table, "store": store, "res": res}
+
+
+def test_ranked_table_fits_100_columns(swept):
+    # leaky_relu is the longest hidden name and the learning rate varies: the widest usual table
+    text = format_results(swept["res"])
+    lines = text.splitlines()
+    assert max(len(line) for line in lines) <= 100, text
+    assert all(line == line.rstrip() for line in lines)
+    header = next(line for line in lines if line.startswith("rank"))
+    assert "lr" in header.split() and "alpha" not in header.split()  # shared alpha: named once
+    assert "every configuration: alpha 0.0001" in text
+    assert "status" not in header  # every configuration is done
+    assert any(line.startswith("1 =") for line in lines)  # the best is in its own tie group
+
+
+def test_tiny_p_values_read_below_one_in_a_thousand(swept):
+    res = json.loads(json.dumps(swept["res"]))
+    res["configurations"][1]["p_value"] = 1e-7
+    assert "<0.001" in format_results(res) and " 0.000 " not in format_results(res)

@@ -12,6 +12,7 @@ from __future__ import annotations
 import json
 import math
 import sys
+import textwrap
 
 from workbench.store import Store
 
@@ -38,34 +39,70 @@ def _pct(v):
     return "-" if v is None else f"{100 * v:.0f}%"
 
 
-def format_results(res: dict) -> str:
-    """The ranked results as a text table (tie group marked with ``=``)."""
-    head = ["rank", "hidden", "head", "layers", "lr", "alpha", f"{res['metric']} mean ± sd",
-            "p", "tied", "gap", "fit s", "dead", "sat", "engine", "status"]
-    rows = []
-    for c in res["configurations"]:
-        ms = "-" if c["mean"] is None else f"{_fmt(c['mean'])} ± {_fmt(c['sd'])}"
-        rows.append([str(c["rank"]), c["hidden"], c["head"], ",".join(map(str, c["layers"])),
-                     f"{c['learning_rate']:g}", f"{c['alpha']:g}", ms, _fmt(c["p_value"], ".3f"),
-                     "=" if c["tied_with_best"] else "", _fmt(c["train_test_gap"], "+.3f"),
-                     _fmt(c["mean_fit_seconds"], ".2f"),
-                     _pct(c["dead"]), _pct(c["saturated"]), c["engine"], c["status"]])
+def _table(head: list[str], rows: list[list[str]]) -> list[str]:
     widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h)
               for i, h in enumerate(head)]
-    lines = [f"sweep {res['sweep_id']} ({res['state']}): {res['target']} ({res['target_kind']}) "
-             f"in {res['table']}, metric {res['metric']} (greater is better), "
-             f"{res['n_stored']}/{res['n_trials']} trials"]
-    lines.append("  ".join(h.ljust(w) for h, w in zip(head, widths)))
-    lines.append("  ".join("-" * w for w in widths))
-    for r in rows:
-        lines.append("  ".join(v.ljust(w) for v, w in zip(r, widths)))
-    n_tied = sum(1 for c in res["configurations"] if c["tied_with_best"])
+    lines = ["  ".join(h.ljust(w) for h, w in zip(head, widths)).rstrip(),
+             "  ".join("-" * w for w in widths)]
+    lines += ["  ".join(v.ljust(w) for v, w in zip(r, widths)).rstrip() for r in rows]
+    return lines
+
+
+def format_results(res: dict, width: int = 100) -> str:
+    """The ranked results as a text table that fits ``width`` columns in the usual sweeps.
+
+    The tie group is marked with ``=`` beside the rank. A learning rate or L2
+    strength shared by every configuration is named once above the table
+    instead of in a column, and the status column appears only when some
+    configuration is not ``done``.
+    """
+    cfgs = res["configurations"]
+    lrs = {f"{c['learning_rate']:g}" for c in cfgs}
+    alphas = {f"{c['alpha']:g}" for c in cfgs}
+    show_status = any(c["status"] != "done" for c in cfgs)
+    cols = [("rank", lambda c: f"{c['rank']} =" if c["tied_with_best"] else str(c["rank"])),
+            ("hidden", lambda c: c["hidden"]), ("head", lambda c: c["head"]),
+            ("layers", lambda c: ",".join(map(str, c["layers"])))]
+    if len(lrs) > 1:
+        cols.append(("lr", lambda c: f"{c['learning_rate']:g}"))
+    if len(alphas) > 1:
+        cols.append(("alpha", lambda c: f"{c['alpha']:g}"))
+    cols += [("mean ± sd", lambda c: "-" if c["mean"] is None
+              else f"{_fmt(c['mean'])} ± {_fmt(c['sd'])}"),
+             ("p", lambda c: "<0.001" if c["p_value"] is not None and 0 <= c["p_value"] < 5e-4
+              else _fmt(c["p_value"], ".3f")),
+             ("gap", lambda c: _fmt(c["train_test_gap"], "+.3f")),
+             ("fit s", lambda c: _fmt(c["mean_fit_seconds"], ".2f")),
+             ("dead", lambda c: _pct(c["dead"])), ("sat", lambda c: _pct(c["saturated"])),
+             ("engine", lambda c: c["engine"])]
+    if show_status:
+        cols.append(("status", lambda c: c["status"]))
+    rows = [[f(c) for _, f in cols] for c in cfgs]
+
+    def wrap(text):
+        return textwrap.wrap(text, width=width, break_on_hyphens=False,
+                             subsequent_indent="  ")
+
+    shared = []
+    if len(lrs) == 1:
+        shared.append(f"learning rate {next(iter(lrs))}")
+    if len(alphas) == 1:
+        shared.append(f"alpha {next(iter(alphas))}")
+    lines = [f"sweep {res['sweep_id']} ({res['state']}): {res['n_stored']}/{res['n_trials']} "
+             "trials stored"]
+    lines += wrap(f"target {res['target']} ({res['target_kind']}) in {res['table']}")
+    lines += wrap(f"metric {res['metric']} (greater is better)"
+                  + (f"; every configuration: {', '.join(shared)}" if shared else ""))
+    lines += _table([h for h, _ in cols], rows)
+    n_tied = sum(1 for c in cfgs if c["tied_with_best"])
     corr = " with Holm's correction" if res["correction"] == "holm" else ""
-    lines.append("gap = mean training score minus mean test score (overfitting shows as a "
-                 "large positive gap); dead / sat = mean share of dead / saturated hidden units.")
-    lines.append(f"= tied with the best: not distinguishable at alpha {res['significance_level']:g} "
-                 f"by the Nadeau-Bengio corrected t-test{corr} ({n_tied} configuration(s) in the "
-                 f"tie group, {res['n_comparisons']} comparison(s) with the best).")
+    lines += wrap("mean ± sd of the fold scores; p = Nadeau-Bengio corrected t-test against the "
+                  "best; gap = mean training score minus mean test score (overfitting shows as "
+                  "a large positive gap); dead / sat = mean share of dead / saturated hidden "
+                  "units.")
+    lines += wrap(f"= tied with the best: not distinguishable at alpha "
+                  f"{res['significance_level']:g}{corr} ({n_tied} configuration(s) in the tie "
+                  f"group, {res['n_comparisons']} comparison(s) with the best).")
     return "\n".join(lines)
 
 
