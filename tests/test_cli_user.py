@@ -79,3 +79,14 @@ def test_tiny_p_values_read_below_one_in_a_thousand(swept):
     res = json.loads(json.dumps(swept["res"]))
     res["configurations"][1]["p_value"] = 1e-7
     assert "<0.001" in format_results(res) and " 0.000 " not in format_results(res)
+
+
+def test_history_table_is_compact(swept, capsys):
+    assert main(["history", "--store", str(swept["store"])]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert lines[0].split()[:4] == ["sweep", "state", "created", "(UTC)"]
+    created = swept["res"]["created"]  # ISO-8601 UTC, e.g. 2026-12-01T23:12:47+00:00
+    assert created[:10] + " " + created[11:16] in lines[1] and "+00:00" not in lines[1]
+    assert all(line == line.rstrip() for line in lines)
+    fixed = lines[1].replace(str(swept["table"]), "")  # all but the table's path
+    assert len(fixed) <= 80

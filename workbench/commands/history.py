@@ -37,6 +37,11 @@ def sweep_summaries(store: Store) -> list[dict]:
     return out
 
 
+def _minute(iso: str | None) -> str:
+    """``2026-12-01T23:12:47+00:00`` -> ``2026-12-01 23:12`` (the store's times are UTC)."""
+    return "-" if not iso else iso[:16].replace("T", " ")
+
+
 def run(args) -> int:
     with Store(args.store) as store:
         rows = sweep_summaries(store)
@@ -48,11 +53,10 @@ def run(args) -> int:
     if not rows:
         print(f"no sweeps stored in {path}")
         return 0
-    head = ["sweep", "state", "created", "trials", "metric", "target", "table"]
-    table = [[r["sweep_id"], r["state"], r["created"], f"{r['n_stored']}/{r['n_trials']}",
+    head = ["sweep", "state", "created (UTC)", "trials", "metric", "target", "table"]
+    table = [[r["sweep_id"], r["state"], _minute(r["created"]), f"{r['n_stored']}/{r['n_trials']}",
               r["metric"], r["target"], r["table"]] for r in rows]
     widths = [max(len(h), *(len(t[i]) for t in table)) for i, h in enumerate(head)]
-    print("  ".join(h.ljust(w) for h, w in zip(head, widths)))
-    for t in table:
-        print("  ".join(v.ljust(w) for v, w in zip(t, widths)))
+    for t in [head, *table]:
+        print("  ".join(v.ljust(w) for v, w in zip(t, widths)).rstrip())
     return 0
