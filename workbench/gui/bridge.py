@@ -11,6 +11,10 @@ While the sweep runs, the bridge also asks the core for the ranking of what
 has finished so far (``ranker``), at most every ``rank_interval`` seconds and
 once more at the end, and hands the rows over with :attr:`SweepBridge.ranked`.
 That work also happens on the bridge's thread.
+
+The worker processes the sweep starts on this computer are given a lower CPU
+priority (``nice`` +10, :data:`WORKER_NICENESS`) as they appear, so that on a
+small machine the window keeps getting the processor while every core trains.
 """
 
 from __future__ import annotations
@@ -23,6 +27,31 @@ from collections.abc import Callable
 from PySide6.QtCore import QObject, QThread, Signal, Slot
 
 from workbench.errors import InputError
+
+#: niceness given to local worker processes (higher = lower priority; never lowered)
+WORKER_NICENESS = 10
+
+
+def lower_worker_priority(seen: set[int], niceness: int = WORKER_NICENESS) -> int:
+    """Renice the child processes not yet in ``seen``; return how many were changed."""
+    try:
+        import psutil
+
+        children = psutil.Process().children(recursive=True)
+    except Exception:  # pragma: no cover - psutil missing or process table unreadable
+        return 0
+    changed = 0
+    for child in children:
+        if child.pid in seen:
+            continue
+        seen.add(child.pid)
+        try:
+            if child.nice() < niceness:
+                child.nice(niceness)
+                changed += 1
+        except Exception:  # gone already, or not ours to change
+            continue
+    return changed
 
 
 class SweepBridge(QObject):
@@ -59,6 +88,8 @@ class SweepBridge(QObject):
         self._sweep_id = None
         self._last_rank = 0.0
         self._rank_seconds = 0.0
+        self._niced: set[int] = set()
+        self._started = 0
         self._dirty = False
 
     def cancel(self) -> None:
@@ -89,6 +120,10 @@ class SweepBridge(QObject):
             self._sweep_id = event.get("sweep_id", self._sweep_id)
             self.sweepStarted.emit(dict(event))
         elif kind == "trial_started":
+            self._started += 1
+            workers = int(event.get("workers") or 2)
+            if self._started <= 2 * workers or self._started % 25 == 0:
+                lower_worker_priority(self._niced)  # new (or respawned) workers
             self.trialStarted.emit(dict(event))
         elif kind == "trial_finished":
             self._dirty = True

@@ -285,6 +285,8 @@ class MainWindow(QMainWindow):
         self.preview.setAlternatingRowColors(True)
         self.preview.verticalHeader().setDefaultSectionSize(22)
         self.preview.horizontalHeader().setDefaultSectionSize(110)
+        # fit columns to the first rows only: measuring all 200 took a second on wide tables
+        self.preview.horizontalHeader().setResizeContentsPrecision(25)
         self.profile_model = ProfileModel(self)
         self.profile_model.roleChanged.connect(self._role_changed)
         self.profile_view = QTableView()
