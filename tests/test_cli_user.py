@@ -90,3 +90,15 @@ def test_history_table_is_compact(swept, capsys):
     assert all(line == line.rstrip() for line in lines)
     fixed = lines[1].replace(str(swept["table"]), "")  # all but the table's path
     assert len(fixed) <= 80
+
+
+def test_every_option_with_a_default_says_it_in_its_help():
+    import argparse
+
+    from workbench.cli import build_parser
+
+    sub = next(a for a in build_parser()._actions if isinstance(a, argparse._SubParsersAction))
+    silent = [(name, a.option_strings) for name, p in sub.choices.items() for a in p._actions
+              if a.default not in (None, False, argparse.SUPPRESS)
+              and "default" not in (a.help or "")]
+    assert silent == []

@@ -23,7 +23,8 @@ HELP = "Export one configuration of a stored sweep: model files, configuration, 
 def add_arguments(parser):
     parser.add_argument("sweep_id", metavar="SWEEP_ID", help="a sweep id (see workbench history)")
     parser.add_argument("--config", metavar="RANK|best", default="best",
-                        help="which configuration: its rank in the results (1 = best) or 'best'")
+                        help="which configuration: its rank in the results (1 = best) or 'best' "
+                             "(default best)")
     parser.add_argument("--to", metavar="FOLDER", required=True, dest="folder",
                         help="the export folder (an earlier export there is replaced whole)")
     parser.add_argument("--formats", metavar="LIST", default=None,

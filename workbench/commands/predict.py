@@ -28,7 +28,8 @@ def add_arguments(parser):
     parser.add_argument("table", metavar="TABLE", help="a .csv, .tsv, .xlsx or .parquet table")
     parser.add_argument("--out", metavar="FILE", default=None,
                         help="write the predictions here (default: standard output)")
-    parser.add_argument("--sheet", metavar="NAME", default=None, help="sheet of an .xlsx workbook")
+    parser.add_argument("--sheet", metavar="NAME", default=None,
+                        help="sheet of an .xlsx workbook (default: the first)")
     which = parser.add_mutually_exclusive_group()
     which.add_argument("--joblib", action="store_true",
                        help="use the joblib pickle (runs code when loaded: trusted folders only)")

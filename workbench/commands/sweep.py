@@ -29,14 +29,15 @@ HELP = ("Sweep hidden activations x output heads x layers x learning rates x alp
 def add_arguments(parser):
     parser.add_argument("file", metavar="FILE", nargs="?", default=None,
                         help="a .csv, .tsv, .txt, .xlsx or .parquet table (not with --resume)")
-    parser.add_argument("--target", metavar="COL", default=None, help="the target column")
-    parser.add_argument("--sheet", metavar="NAME", default=None, help="sheet of an .xlsx workbook")
+    parser.add_argument("--target", metavar="COL", default=None, help="the target column (required, except with --resume)")
+    parser.add_argument("--sheet", metavar="NAME", default=None,
+                        help="sheet of an .xlsx workbook (default: the first)")
     parser.add_argument("--hidden", metavar="LIST", default="default",
                         help="hidden activations, comma-separated, or 'all' (default: relu, tanh, "
                              "leaky_relu, gelu, silu)")
     parser.add_argument("--output", metavar="auto|all|LIST", default="auto",
                         help="output heads: 'auto' (the advised head), 'all' (every head the "
-                             "compatibility guard accepts) or names")
+                             "compatibility guard accepts) or names (default auto)")
     parser.add_argument("--layers", metavar="SHAPE", action="append", default=None,
                         help="hidden-layer shape, e.g. 64 or 64,32; repeat for several "
                              "(default 64)")
@@ -45,10 +46,10 @@ def add_arguments(parser):
                              "(default 0.001)")
     parser.add_argument("--alpha", metavar="A", action="append", default=None,
                         help="L2 strength(s), comma-separated or repeated (default 0.0001)")
-    parser.add_argument("--folds", type=int, default=5, help="K folds (default 5)")
-    parser.add_argument("--repeats", type=int, default=2,
+    parser.add_argument("--folds", type=int, metavar="K", default=5, help="K folds (default 5)")
+    parser.add_argument("--repeats", type=int, metavar="R", default=2,
                         help="R repeats of the K folds, each with its own seed (default 2)")
-    parser.add_argument("--epochs", type=int, default=200, help="maximum epochs (default 200)")
+    parser.add_argument("--epochs", type=int, metavar="N", default=200, help="maximum epochs (default 200)")
     parser.add_argument("--early-stopping", action="store_true",
                         help="hold out 10%% of each training fold and stop when it stalls")
     parser.add_argument("--metric", metavar="NAME", default=None,
@@ -57,16 +58,17 @@ def add_arguments(parser):
                              "neg_mean_poisson_deviance counts with the exp head)")
     parser.add_argument("--engine", choices=("auto", "numpy", "sklearn"), default="auto",
                         help="auto: scikit-learn's MLP where it can express the configuration, "
-                             "the NumPy engine otherwise")
+                             "the NumPy engine otherwise (default auto)")
     parser.add_argument("--dtype", choices=("float32", "float64"), default="float32",
                         help="precision of the NumPy engine (default float32)")
-    parser.add_argument("--jobs", type=int, default=None,
+    parser.add_argument("--jobs", type=int, metavar="N", default=None,
                         help="worker processes (default: every core)")
     parser.add_argument("--cluster", metavar="ADDR", default=None,
-                        help="run on a Dask distributed scheduler, e.g. tcp://10.0.0.5:8786")
+                        help="run on a Dask distributed scheduler, e.g. tcp://10.0.0.5:8786 "
+                             "(default: local worker processes)")
     parser.add_argument("--store", metavar="PATH", default=None,
                         help="the store file (default: the user's data folder)")
-    parser.add_argument("--seed", type=int, default=0, help="seed of folds and weights (default 0)")
+    parser.add_argument("--seed", type=int, metavar="S", default=0, help="seed of folds and weights (default 0)")
     parser.add_argument("--holm", action="store_true",
                         help="judge ties with Holm's correction for the number of comparisons")
     parser.add_argument("--json", metavar="OUT", default=None,
