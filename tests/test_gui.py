@@ -289,6 +289,9 @@ def test_stop_keeps_finished_rows_and_leaves_no_worker_then_resume(qtbot, window
         win._sweep.bridge.trialFinished.connect(finished.append, Qt.DirectConnection)
         qtbot.waitUntil(lambda: len(finished) >= 2, timeout=60_000)
         assert win.sweep_running()
+        # the workers yield the processor to the window (bridge.WORKER_NICENESS)
+        workers = worker_processes()
+        assert workers and all(p.nice() >= 10 for p in workers)
         win.stop_sweep()
         # the run must end within 2 seconds of Stop
         qtbot.waitUntil(lambda: not win.sweep_running(), timeout=2_000)
