@@ -102,3 +102,19 @@ def test_every_option_with_a_default_says_it_in_its_help():
               if a.default not in (None, False, argparse.SUPPRESS)
               and "default" not in (a.help or "")]
     assert silent == []
+
+
+@pytest.mark.parametrize("backend, workers, words", [
+    ("processes", 2, "on 2 worker processes"), ("processes", 1, "on 1 worker process"),
+    ("dask", 4, "on 4 dask workers"), ("inline", 1, "in this process")])
+def test_progress_says_where_trials_run_in_words(backend, workers, words):
+    import io
+
+    from workbench.commands.sweep import Progress
+
+    out = io.StringIO()
+    Progress(stream=out)({"type": "sweep_started", "sweep_id": "S", "n_todo": 4, "n_trials": 4,
+                          "n_configurations": 2, "resumed": False, "backend": backend,
+                          "workers": workers})
+    line = out.getvalue().strip()
+    assert line.endswith(words) and "(s)" not in line.split(")")[-1]

@@ -85,6 +85,16 @@ def _clock(seconds: float) -> str:
     return f"{h}:{m:02d}:{s:02d}" if h else f"{m}:{s:02d}"
 
 
+def _where(backend: str, workers: int) -> str:
+    """Where the trials run, in words: ``on 2 worker processes``."""
+    n = int(workers)
+    if backend == "inline":
+        return "in this process"
+    if backend == "processes":
+        return f"on {n} worker process{'es' if n != 1 else ''}"
+    return f"on {n} {backend} worker{'s' if n != 1 else ''}"
+
+
 class Progress:
     """Draws the event stream as a progress bar on stderr.
 
@@ -114,8 +124,8 @@ class Progress:
             if not self.quiet:
                 what = "resuming" if ev["resumed"] else "sweep"
                 self._line(f"{what} {ev['sweep_id']}: {ev['n_todo']} of {ev['n_trials']} trials "
-                           f"to run ({ev['n_configurations']} configurations) on "
-                           f"{ev['workers']} {ev['backend']} worker(s)", newline=True)
+                           f"to run ({ev['n_configurations']} configurations) "
+                           f"{_where(ev['backend'], ev['workers'])}", newline=True)
         elif kind == "trial_finished" and ev["status"] != "cancelled":
             self.n_done = ev["n_finished"]
             if ev["status"] != "done":
