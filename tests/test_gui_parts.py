@@ -437,3 +437,26 @@ def test_signal_emits_keep_the_bool_refcounts(qapp):
     for _ in range(2000):
         e.sig.emit(True)
     assert (sys.getrefcount(True), sys.getrefcount(False)) == before
+
+
+def test_open_run_snapshot_flow(qapp, tmp_path, monkeypatch):
+    """`workbench open FILE --run --snapshot PNG`: load, run the default sweep (made tiny here),
+    save a picture of the window and exit 0."""
+    from PySide6.QtGui import QImage
+
+    from workbench.gui.app import run_app
+
+    monkeypatch.setenv("WORKBENCH_SETTINGS_DIR", str(tmp_path / "cfg"))
+    png = tmp_path / "shot.png"
+    code = run_app(str(Path(__file__).resolve().parents[1] / "sample_sets" / "kiln_batches.csv"),
+                   run=True, snapshot=str(png), store=str(tmp_path / "s.sqlite"),
+                   sweep_overrides={"folds_spin": 2, "repeats_spin": 1, "epochs_spin": 3})
+    assert code == 0
+    img = QImage(str(png))
+    assert (img.width(), img.height()) == (1280, 800)
+    from workbench.store import Store
+
+    with Store(tmp_path / "s.sqlite") as store:
+        sweeps = store.list_sweeps()
+    assert len(sweeps) == 1 and sweeps[0]["state"] == "finished"
+    assert sweeps[0]["n_stored"] == sweeps[0]["n_trials"]
