@@ -118,3 +118,25 @@ def test_progress_says_where_trials_run_in_words(backend, workers, words):
                           "workers": workers})
     line = out.getvalue().strip()
     assert line.endswith(words) and "(s)" not in line.split(")")[-1]
+
+
+@pytest.fixture(scope="module")
+def onnx_only(swept):
+    folder = swept["folder"] / "onnx_only"
+    assert main(["export", swept["res"]["sweep_id"], "--to", str(folder), "--formats", "onnx",
+                 "--store", str(swept["store"]), "--quiet"]) == 0
+    return folder
+
+
+def test_predict_names_the_model_file_the_export_does_have(swept, onnx_only, capsys):
+    capsys.readouterr()
+    assert main(["predict", str(onnx_only), str(swept["table"])]) == 2
+    line = _err_line(capsys)
+    assert "model.skops is missing" in line and "--onnx" in line
+    assert main(["predict", str(onnx_only), str(swept["table"]), "--onnx"]) == 0
+
+
+def test_predict_on_a_folder_that_does_not_exist(swept, capsys):
+    missing = swept["folder"] / "no_such_export"
+    assert main(["predict", str(missing), str(swept["table"])]) == 2
+    assert "does not exist" in _err_line(capsys)

@@ -114,6 +114,8 @@ def read_manifest(folder: str | Path) -> dict:
         when the folder has no readable manifest.
     """
     path = Path(folder) / MANIFEST_NAME
+    if not Path(folder).exists():
+        raise InputError(f"{folder} does not exist; give a folder written by `workbench export`")
     if not path.is_file():
         raise InputError(f"{path.parent} has no {MANIFEST_NAME}; "
                          "give a folder written by `workbench export`")
@@ -145,8 +147,12 @@ def verify_file(folder: str | Path, name: str, manifest: dict | None = None) -> 
     manifest = read_manifest(folder) if manifest is None else manifest
     path = folder / name
     if not path.is_file():
-        raise InputError(f"{path} is missing; export the model with this format "
-                         f"or choose another")
+        options = {"model.skops": "no option", "model.joblib": "--joblib",
+                   "model.onnx": "--onnx"}
+        other = [f"{f} ({options[f]})" for f in options if f != name and (folder / f).is_file()]
+        hint = (f"it has {' and '.join(other)}: use that, or export again with this format"
+                if other else "export the model again with this format")
+        raise InputError(f"{path} is missing from this export; {hint}")
     entry = manifest["files"].get(name)
     if not isinstance(entry, dict) or "sha256" not in entry:
         raise InputError(f"{name} is not listed in {MANIFEST_NAME}, so it cannot be checked; "
