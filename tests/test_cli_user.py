@@ -140,3 +140,15 @@ def test_predict_on_a_folder_that_does_not_exist(swept, capsys):
     missing = swept["folder"] / "no_such_export"
     assert main(["predict", str(missing), str(swept["table"])]) == 2
     assert "does not exist" in _err_line(capsys)
+
+
+def test_reading_commands_never_create_a_store(tmp_path, capsys):
+    store = tmp_path / "new" / "s.sqlite"
+    assert main(["history", "--store", str(store)]) == 0
+    assert "no sweeps stored" in capsys.readouterr().out
+    assert main(["history", "--store", str(store), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out) == []
+    for argv in (["show", "SOME_ID"], ["export", "SOME_ID", "--to", str(tmp_path / "e")]):
+        assert main([*argv, "--store", str(store)]) == 2
+        assert "no store at" in _err_line(capsys)
+    assert not (tmp_path / "new").exists()

@@ -105,6 +105,22 @@ MIGRATIONS: dict[int, str] = {}
 _TABLES = {"sweeps", "configurations", "trials"}
 
 
+def existing_store_path(path=None) -> Path:
+    """The store file a reading command opens, which must already exist.
+
+    Raises
+    ------
+    InputError
+        when there is no file at ``path`` (default :func:`default_store_path`), so
+        that reading commands never create an empty store or its folders.
+    """
+    path = Path(path) if path is not None else default_store_path()
+    if not path.exists():
+        raise InputError(f"there is no store at {path}; run a sweep first, or pass --store "
+                         "with the file your sweeps were stored in")
+    return path
+
+
 def default_store_path() -> Path:
     """``sweeps.sqlite`` in the user's data folder (platformdirs)."""
     import platformdirs

@@ -14,7 +14,7 @@ from __future__ import annotations
 import sys
 
 from workbench.export import FORMATS, export_configuration
-from workbench.store import Store
+from workbench.store import Store, existing_store_path
 
 NAME = "export"
 HELP = "Export one configuration of a stored sweep: model files, configuration, script, report."
@@ -42,7 +42,7 @@ def run(args) -> int:
         if not args.quiet:
             print(f"[{100 * fraction:3.0f}%] {message}", file=sys.stderr)
 
-    with Store(args.store) as store:
+    with Store(existing_store_path(args.store)) as store:
         folder = export_configuration(store, args.sweep_id, args.config, args.folder,
                                       formats=args.formats, on_progress=progress,
                                       table=args.table)

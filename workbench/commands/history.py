@@ -12,8 +12,9 @@ from __future__ import annotations
 
 import json
 import sys
+from pathlib import Path
 
-from workbench.store import Store
+from workbench.store import Store, default_store_path
 
 NAME = "history"
 HELP = "List the stored sweeps with their state (running, finished, interrupted)."
@@ -43,6 +44,13 @@ def _minute(iso: str | None) -> str:
 
 
 def run(args) -> int:
+    path = Path(args.store) if args.store is not None else default_store_path()
+    if not path.exists():  # listing must not create a store (nor its folders)
+        if args.json:
+            print("[]")
+        else:
+            print(f"no sweeps stored in {path} (no store file there yet)")
+        return 0
     with Store(args.store) as store:
         rows = sweep_summaries(store)
         path = store.path

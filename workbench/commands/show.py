@@ -14,7 +14,7 @@ import math
 import sys
 import textwrap
 
-from workbench.store import Store
+from workbench.store import Store, existing_store_path
 
 NAME = "show"
 HELP = "Print one stored sweep's ranked results (table or JSON)."
@@ -107,7 +107,7 @@ def format_results(res: dict, width: int = 100) -> str:
 
 
 def run(args) -> int:
-    with Store(args.store) as store:
+    with Store(existing_store_path(args.store)) as store:
         res = store.results(args.sweep_id, holm=args.holm)
     if args.json:
         json.dump(res, sys.stdout, indent=2, allow_nan=False)
