@@ -152,3 +152,13 @@ def test_reading_commands_never_create_a_store(tmp_path, capsys):
         assert main([*argv, "--store", str(store)]) == 2
         assert "no store at" in _err_line(capsys)
     assert not (tmp_path / "new").exists()
+
+
+def test_store_under_a_file_says_which_path_is_a_file(tmp_path, capsys):
+    blocker = tmp_path / "notes.txt"
+    blocker.write_text("not a folder\n")
+    table = tmp_path / "t.csv"
+    pd.DataFrame({"x": range(12), "y": ["a", "b"] * 6}).to_csv(table, index=False)
+    assert main(["sweep", str(table), "--target", "y", "--store",
+                 str(blocker / "s.sqlite")]) == 2
+    assert f"{blocker} is a file, not a folder" in _err_line(capsys)

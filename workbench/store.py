@@ -216,8 +216,11 @@ class Store:
             try:
                 self.path.parent.mkdir(parents=True, exist_ok=True)
             except OSError as exc:
+                blocker = next((p for p in self.path.parents if p.exists()), None)
+                why = (f"{blocker} is a file, not a folder" if blocker is not None
+                       and not blocker.is_dir() else exc.strerror)
                 raise InputError(f"cannot create the folder of the store {self.path} "
-                                 f"({exc.strerror}); pass --store with a writable path") from None
+                                 f"({why}); pass --store with a writable path") from None
         self._conn = None
         try:
             self._conn = sqlite3.connect(str(self.path), timeout=30, isolation_level=None,
