@@ -442,3 +442,30 @@ def test_glorot_bound_for_every_activation(data, hidden, factor):
         assert np.max(np.abs(c)) > 0.9 * bound
         # uniform: the variance is bound^2 / 3
         assert np.var(c) == pytest.approx(bound ** 2 / 3, rel=0.35 if c.size < 300 else 0.1)
+
+
+def test_network_health_of_a_scikit_learn_mlp_matches_the_engine():
+    """The same weights give the same health whichever estimator trained them.
+
+    Reference: scikit-learn's MLPRegressor trains the weights; the engine trained
+    with the same random_state follows the same trajectory (parity tests), so its
+    last-epoch ``health_`` (itself checked against finite differences above) must
+    equal :func:`workbench.engine.network_health` on scikit-learn's final weights.
+    """
+    from sklearn.neural_network import MLPRegressor
+
+    from workbench.engine import network_health
+
+    rng = np.random.default_rng(3)
+    X = rng.standard_normal((300, 5))
+    y = np.tanh(X[:, 0]) + 0.5 * X[:, 1] ** 2
+    kw = dict(hidden_layer_sizes=(9, 6), activation="tanh", max_iter=8, random_state=0,
+              shuffle=False)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        ref = MLPRegressor(**kw).fit(X, y)
+        ours = NetRegressor(**kw, dtype="float64").fit(X, y)
+    got = network_health(ref.coefs_, ref.intercepts_, "tanh", "identity", "regression", X, y)
+    for key in ("dead", "saturated", "grad_norm"):
+        np.testing.assert_allclose(got[key], ours.health_[key], rtol=1e-6, atol=1e-12)
+    assert len(got["grad_norm"]) == 3  # two hidden layers and the output layer

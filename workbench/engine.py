@@ -44,10 +44,11 @@ from sklearn.utils.validation import check_is_fitted, column_or_1d, validate_dat
 
 from workbench import activations as act
 
-__all__ = ["NetRegressor", "NetClassifier", "DivergenceWarning"]
+__all__ = ["NetRegressor", "NetClassifier", "DivergenceWarning", "network_health"]
 
 #: a derivative below this counts as "flat" when measuring saturation (issue text: 0.05)
 SATURATION_THRESHOLD = 0.05
+LEAKY_SLOPE_DEFAULT = 0.01
 #: rows of the training data used to measure layer health when there is no validation split
 HEALTH_PROBE_ROWS = 256
 #: activations whose derivative is piecewise constant: saturation is not defined for them
@@ -403,6 +404,47 @@ def _with_ones(X):
     out[:, :-1] = X
     out[:, -1] = 1
     return out
+
+
+def network_health(coefs, intercepts, hidden, head, task, X, Y, *, leaky_slope=LEAKY_SLOPE_DEFAULT):
+    """Dead share, saturated share and data-loss gradient norm of every hidden layer.
+
+    The engine's own definitions (see :class:`NetRegressor`), for any fitted
+    multilayer perceptron given as weight and intercept lists, e.g. a scikit-learn
+    ``MLPRegressor``/``MLPClassifier`` after training.
+
+    Parameters
+    ----------
+    coefs, intercepts : list of ndarray
+    hidden : str or sequence of str
+        Hidden activation(s).
+    head : str
+        Output head name; ``task`` is "regression" or "classification".
+    X : ndarray (n_samples, n_features)
+        Probe rows as the network sees them (after preprocessing).
+    Y : ndarray (n_samples, n_outputs)
+        Targets as the network sees them (scaled target; one-hot / 0-1 labels).
+
+    Returns
+    -------
+    dict with lists ``dead``, ``saturated`` and ``grad_norm``, one value per hidden layer.
+    """
+    units = [coefs[0].shape[0]] + [c.shape[1] for c in coefs]
+    names = _hidden_names(hidden, len(units) - 2)
+    dtype = np.dtype(np.float64)
+    net = _Net(units, names, act.resolve_head(head, task), dtype, float(leaky_slope))
+    for w, c in zip(net.W, coefs):
+        w[...] = c
+    for b, c in zip(net.b, intercepts):
+        b[...] = c
+    k = min(HEALTH_PROBE_ROWS, len(X))
+    Xp = _with_ones(np.asarray(X, dtype=dtype)[:k])
+    Yp = np.asarray(Y, dtype=dtype)[:k]
+    if Yp.ndim == 1:
+        Yp = Yp.reshape(-1, 1)
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
+        dead, sat, gn = net.health(Xp, Yp)
+    return {"dead": dead, "saturated": sat, "grad_norm": gn}
 
 
 # --------------------------------------------------------------------------- estimators

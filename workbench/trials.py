@@ -138,33 +138,46 @@ def _unwrap(model, X):
     return None, X
 
 
-def _final_health(mlp, X, hidden: str) -> dict:
-    """Dead / saturated share per hidden layer of a fitted scikit-learn MLP.
-
-    The same definitions as the NumPy engine: a unit is dead when its
-    activation's derivative is zero on every probe row; saturated when the
-    derivative is below ``SATURATION_THRESHOLD`` on more than half of the rows
-    (not defined for piecewise-linear activations, reported as 0).
-    """
-    from workbench import activations as act
-    from workbench.engine import HEALTH_PROBE_ROWS, SATURATION_THRESHOLD
-
-    a = np.asarray(X, dtype=np.float64)[:HEALTH_PROBE_ROWS]
-    f = act.get_hidden(hidden)
-    dead, sat = [], []
-    piecewise = hidden in ("identity", "relu", "leaky_relu")
-    for W, b in zip(mlp.coefs_[:-1], mlp.intercepts_[:-1]):
-        z = a @ W + b
-        a = f.forward(z)
-        d = np.abs(f.derivative(z, a))
-        dead_units = np.all(d <= np.finfo(np.float64).tiny * 1e6, axis=0)
-        dead.append(float(dead_units.mean()))
-        if piecewise:
-            sat.append(0.0)
+def _network_targets(model, mlp, y):
+    """``y`` as the network inside ``model`` saw it: scaled target or 0/1 label columns."""
+    y = np.asarray(y)
+    for _ in range(10):
+        if hasattr(model, "coefs_"):
+            break
+        if hasattr(model, "steps"):
+            model = model.steps[-1][1]
+        elif hasattr(model, "regressor_"):  # TransformedTargetRegressor: its scaler
+            y = model.transformer_.transform(y.reshape(-1, 1)) if hasattr(
+                model, "transformer_") and model.transformer_ is not None else y
+            model = model.regressor_
         else:
-            flat = (d < SATURATION_THRESHOLD).mean(axis=0) > 0.5
-            sat.append(float((flat & ~dead_units).mean()))
-    return {"dead": dead, "saturated": sat, "grad_norm": []}
+            break
+    if hasattr(mlp, "classes_"):
+        from sklearn.preprocessing import LabelBinarizer
+
+        Y = LabelBinarizer().fit(mlp.classes_).transform(y)
+        if Y.shape[1] == 1 and mlp.coefs_[-1].shape[1] == 2:
+            Y = np.hstack([1 - Y, Y])
+        return Y
+    return np.asarray(y, dtype=np.float64).reshape(len(y), -1)
+
+
+def _final_health(model, mlp, X, y, hidden: str) -> dict:
+    """Dead / saturated share and gradient norm per hidden layer of a fitted
+    scikit-learn MLP, measured after training with the NumPy engine's own
+    definitions (:func:`workbench.engine.network_health`); scikit-learn records
+    no per-epoch health, so only the final state is known.
+    """
+    from workbench.engine import network_health
+
+    head = getattr(mlp, "out_activation_", "identity")
+    task = "classification" if hasattr(mlp, "classes_") else "regression"
+    return network_health(mlp.coefs_, mlp.intercepts_, hidden, head, task, X,
+                          _network_targets(model, mlp, y))
+
+
+def _clean_health(health: dict) -> dict:
+    return {k: _clean(health.get(k, [])) for k in ("dead", "saturated", "grad_norm")}
 
 
 def _clean(values):
@@ -316,7 +329,8 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
             result["health"] = {k: _clean(health.get(k, [])) for k in ("dead", "saturated",
                                                                          "grad_norm")}
         elif cfg["engine"] == "sklearn":
-            result["health"] = _final_health(mlp, feats, cfg["hidden"])
+            result["health"] = _clean_health(_final_health(model, mlp, feats, y_tr,
+                                                           cfg["hidden"]))
         losses = getattr(mlp, "loss_curve_", None) or []
         if getattr(mlp, "diverged_", False) or any(not math.isfinite(v) for v in losses):
             result["status"] = DIVERGED
