@@ -162,3 +162,17 @@ def test_store_under_a_file_says_which_path_is_a_file(tmp_path, capsys):
     assert main(["sweep", str(table), "--target", "y", "--store",
                  str(blocker / "s.sqlite")]) == 2
     assert f"{blocker} is a file, not a folder" in _err_line(capsys)
+
+
+@pytest.mark.parametrize("values, output, words", [
+    (np.linspace(-3, 3, 40), "auto", "negative values"),   # signed target
+    ((np.arange(40) * 7) % 31, "all", "--output exp only"),  # count target; heads that reach 0
+])
+def test_poisson_deviance_refused_where_it_is_undefined(tmp_path, capsys, values, output, words):
+    # scikit-learn's mean_poisson_deviance requires y >= 0 and y_pred > 0
+    table = tmp_path / "t.csv"
+    pd.DataFrame({"x": np.arange(40.0), "y": values}).to_csv(table, index=False)
+    store = tmp_path / "s.sqlite"
+    assert main(["sweep", str(table), "--target", "y", "--output", output, "--metric",
+                 "neg_mean_poisson_deviance", "--store", str(store)]) == 2
+    assert words in _err_line(capsys)

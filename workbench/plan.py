@@ -68,6 +68,9 @@ ENGINES = ("auto", "numpy", "sklearn")
 #: heads whose predictions are always > 0, so the Poisson deviance is defined
 _POSITIVE_HEADS = {"exp"}
 
+#: scikit-learn scorers that are undefined unless every prediction is > 0
+_POSITIVE_PREDICTION_METRICS = {"neg_mean_poisson_deviance", "neg_mean_gamma_deviance"}
+
 
 def default_metric(kind: str, heads=None) -> str:
     """The metric a sweep uses when the user names none.
@@ -343,6 +346,16 @@ class SweepPlan:
         if self.metric is None:
             self.metric = default_metric(self.target_kind, self.heads)
         self.metric = check_metric(self.metric, self.task, self.target_kind)
+        if self.metric in _POSITIVE_PREDICTION_METRICS:
+            if self.target_kind == "signed":
+                raise InputError(f"metric {self.metric!r} is undefined for a target with negative "
+                                 "values; choose r2, neg_root_mean_squared_error or "
+                                 "neg_mean_absolute_error")
+            unsafe = [h for h in self.heads if h not in _POSITIVE_HEADS]
+            if unsafe:
+                raise InputError(f"metric {self.metric!r} is undefined for predictions of 0 or "
+                                 f"below, which the head(s) {', '.join(unsafe)} can give; use it "
+                                 "with --output exp only, or choose another metric such as r2")
         # raises for an engine that cannot express a combination
         self.configurations()
 
