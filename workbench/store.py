@@ -159,11 +159,14 @@ def library_versions() -> dict:
            "numpy": numpy.__version__, "scipy": scipy.__version__,
            "scikit-learn": sklearn.__version__, "pandas": pandas.__version__,
            "joblib": joblib.__version__}
-    try:
-        import distributed
+    # read the installed version without importing the package: importing Dask's
+    # distributed pulls in tornado, yaml and more, holding the interpreter for most
+    # of a second (the window's event loop would stall while a sweep starts)
+    from importlib import metadata
 
-        out["distributed"] = distributed.__version__
-    except ImportError:  # pragma: no cover
+    try:
+        out["distributed"] = metadata.version("distributed")
+    except metadata.PackageNotFoundError:  # pragma: no cover
         pass
     return out
 
