@@ -176,3 +176,12 @@ def test_poisson_deviance_refused_where_it_is_undefined(tmp_path, capsys, values
     assert main(["sweep", str(table), "--target", "y", "--output", output, "--metric",
                  "neg_mean_poisson_deviance", "--store", str(store)]) == 2
     assert words in _err_line(capsys)
+
+
+@pytest.mark.parametrize("address", ["nonsense", "tcp://scheduler:abc"])
+def test_malformed_cluster_address_is_one_line(tmp_path, capsys, address):
+    table = tmp_path / "t.csv"
+    pd.DataFrame({"x": range(12), "y": ["a", "b"] * 6}).to_csv(table, index=False)
+    assert main(["sweep", str(table), "--target", "y", "--cluster", address, "--quiet",
+                 "--store", str(tmp_path / "s.sqlite")]) == 2
+    assert "tcp://HOST:PORT" in _err_line(capsys)

@@ -520,6 +520,20 @@ class _LokyExecutor:
         self._dir.cleanup()
 
 
+def _check_scheduler_address(address: str) -> None:
+    """Refuse a malformed scheduler address before a Dask client is made for it."""
+    from distributed.comm import parse_address
+    from distributed.comm.addressing import parse_host_port
+
+    try:
+        scheme, location = parse_address(address)
+        if scheme in ("tcp", "tls", "ws", "wss", "ucx"):
+            parse_host_port(location)
+    except (ValueError, TypeError) as exc:
+        raise InputError(f"{address!r} is not a Dask scheduler address ({exc}); write it as "
+                         "tcp://HOST:PORT, e.g. tcp://10.0.0.5:8786") from None
+
+
 class _DaskExecutor:
     """Futures on a Dask distributed cluster; the table is scattered once."""
 
@@ -530,6 +544,7 @@ class _DaskExecutor:
         from distributed import Client
 
         if isinstance(cluster, str):
+            _check_scheduler_address(cluster)
             try:
                 self.client = Client(cluster, timeout=20, set_as_default=False)
             except OSError as exc:
