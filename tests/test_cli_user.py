@@ -7,6 +7,7 @@ tables, a store in tmp_path, `workbench.cli.main(argv)` in-process with capsys.
 from __future__ import annotations
 
 import json
+import sys
 
 import numpy as np
 import pandas as pd
@@ -185,3 +186,11 @@ def test_malformed_cluster_address_is_one_line(tmp_path, capsys, address):
     assert main(["sweep", str(table), "--target", "y", "--cluster", address, "--quiet",
                  "--store", str(tmp_path / "s.sqlite")]) == 2
     assert "tcp://HOST:PORT" in _err_line(capsys)
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="the display check is Linux's")
+def test_window_without_a_display_is_one_line(monkeypatch, capsys):
+    for var in ("DISPLAY", "WAYLAND_DISPLAY", "QT_QPA_PLATFORM"):
+        monkeypatch.delenv(var, raising=False)
+    assert main([]) == 2  # plain `workbench` opens the window
+    assert "no display" in _err_line(capsys)

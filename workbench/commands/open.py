@@ -8,6 +8,9 @@ which serves the README's screenshot and reviewers.
 
 from __future__ import annotations
 
+import os
+import sys
+
 NAME = "open"
 HELP = "Open the window (optionally load a table, run the default sweep, save a PNG)."
 
@@ -35,6 +38,13 @@ def run(args) -> int:
         raise InputError(f"--size {args.size!r} is not WIDTHxHEIGHT, e.g. 1280x800") from None
     if args.file is None and (args.run or args.target):
         raise InputError("--run and --target need a FILE to load")
+    if (sys.platform.startswith("linux") and args.snapshot is None
+            and not any(os.environ.get(v) for v in ("DISPLAY", "WAYLAND_DISPLAY",
+                                                    "QT_QPA_PLATFORM"))):
+        # Qt would abort with a page of plugin messages
+        raise InputError("there is no display to open the window on (DISPLAY and "
+                         "WAYLAND_DISPLAY are unset); run it on a desktop, add --snapshot PNG, "
+                         "or use the commands: workbench --help")
     from workbench.gui.app import run_app  # lazy: the core never imports Qt
 
     return run_app(args.file, target=args.target, run=args.run, snapshot=args.snapshot,
