@@ -194,3 +194,12 @@ def test_window_without_a_display_is_one_line(monkeypatch, capsys):
         monkeypatch.delenv(var, raising=False)
     assert main([]) == 2  # plain `workbench` opens the window
     assert "no display" in _err_line(capsys)
+
+
+def test_runaway_scores_keep_the_table_narrow(swept):
+    res = json.loads(json.dumps(swept["res"]))
+    worst = res["configurations"][-1]
+    worst.update(mean=-82106246831161.53, sd=2396889588259.4258, train_test_gap=-1.585e13)
+    text = format_results(res)
+    assert "-8.211e+13 ± 2.397e+12" in text and "-1.585e+13" in text
+    assert max(len(line) for line in text.splitlines()) <= 100

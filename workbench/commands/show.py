@@ -32,6 +32,8 @@ def add_arguments(parser):
 def _fmt(v, spec=".4f"):
     if v is None or (isinstance(v, float) and not math.isfinite(v)):
         return "-"
+    if spec.endswith("f") and abs(v) >= 1e4:  # a runaway score: 4 significant digits
+        spec = spec[:-1].split(".")[0] + ".4g"
     return format(v, spec)
 
 
