@@ -77,6 +77,11 @@ class SweepBridge(QObject):
     #: the end of the job: {"state": "finished" | "cancelled" | "failed", "message", "sweep_id", ...}
     done = Signal(dict)
 
+    #: seconds the job waits after the thread starts, so the window can paint the results
+    #: tab it just switched to before the core starts loading the table (both need the
+    #: interpreter; together they stalled the event loop for over 100 ms)
+    START_DELAY = 0.08
+
     def __init__(self, job: Callable, ranker: Callable | None = None, rank_interval: float = 0.3,
                  cleanup: Callable | None = None):
         super().__init__()
@@ -135,6 +140,7 @@ class SweepBridge(QObject):
     @Slot()
     def run(self) -> None:
         summary: dict = {"state": "failed", "message": "", "sweep_id": None}
+        self.cancel_event.wait(self.START_DELAY)  # returns at once when cancelled
         try:
             result = self._job(self._on_event, self.cancel_event) or {}
             summary.update(result)
