@@ -68,16 +68,25 @@ def run_app(path: str | None = None, target: str | None = None, run: bool = Fals
 
     def finish():
         if snapshot:
-            app.processEvents()
-            Path(snapshot).parent.mkdir(parents=True, exist_ok=True)
-            if not win.grab().save(str(snapshot)):
-                print(f"workbench: could not write {snapshot}", file=sys.stderr)
-                status["code"] = EXIT_BAD_INPUT
-            else:
-                print(f"saved {snapshot}")
-        if scripted:
+            # let queued work land first (the estimate, plot redraws) and the layouts
+            # settle, so the picture shows the window as a user would see it
+            from PySide6.QtCore import QTimer
+
+            QTimer.singleShot(400, grab_and_quit)
+        elif scripted:
             win.close()
             app.quit()
+
+    def grab_and_quit():
+        app.processEvents()
+        Path(snapshot).parent.mkdir(parents=True, exist_ok=True)
+        if not win.grab().save(str(snapshot)):
+            print(f"workbench: could not write {snapshot}", file=sys.stderr)
+            status["code"] = EXIT_BAD_INPUT
+        else:
+            print(f"saved {snapshot}")
+        win.close()
+        app.quit()
 
     def on_target(_name):
         win.targetReady.disconnect(on_target)

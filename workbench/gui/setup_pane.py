@@ -193,6 +193,8 @@ class SetupPane(QWidget):
         self.estimate_label = QLabel("")
         self.estimate_label.setObjectName("estimate")
         self.estimate_label.setWordWrap(True)
+        # room for three lines always, so a longer estimate never squeezes the footer
+        self.estimate_label.setMinimumHeight(3 * self.estimate_label.fontMetrics().lineSpacing() + 4)
         self.run_button = QPushButton("Run sweep")
         self.run_button.setObjectName("primary")
         self.run_button.clicked.connect(self.runRequested)
