@@ -356,6 +356,13 @@ class _Net:
                     nd *= sc
                 elif name == "identity":
                     pass
+                elif name == "leaky_relu":
+                    # derivative 1 where active, slope elsewhere: 1 - (1 - slope) * [a <= 0]
+                    slope = self.hp[i - 1]["slope"]
+                    np.greater(ai, 0, out=sc)
+                    sc *= 1.0 - slope
+                    sc += slope
+                    nd *= sc
                 elif name == "tanh":
                     # scikit-learn: delta *= 1 - Z**2
                     np.multiply(ai, ai, out=sc)
