@@ -205,3 +205,20 @@ def test_runaway_scores_keep_the_table_narrow(swept):
     normal = max(len(line) for line in format_results(swept["res"]).splitlines())
     # only the two widened cells grow: mean ± sd by at most 7, gap by at most 4 characters
     assert max(len(line) for line in text.splitlines()) <= normal + 11
+
+
+def test_os_errors_reach_the_user_as_one_line(monkeypatch, capsys):
+    """A file-system failure deep in a command (here: a full disk) is one line, exit 2."""
+    import errno
+
+    from workbench import cli
+    from workbench.commands import history
+
+    def boom(args):
+        raise OSError(errno.ENOSPC, "No space left on device", "/tmp/store.sqlite")
+
+    monkeypatch.setattr(history, "run", boom)
+    code = cli.main(["history"])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert err.count("\n") == 1 and "No space left on device" in err and "Traceback" not in err

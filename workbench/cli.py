@@ -69,6 +69,15 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_CANCELLED
     except BrokenPipeError:
         return 0
+    except MemoryError:
+        print("workbench: not enough memory for this job; use a smaller table, fewer "
+              "configurations or fewer --jobs", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except OSError as exc:  # a disk, permission or file-system problem the command met
+        where = f" ({exc.filename})" if getattr(exc, "filename", None) else ""
+        print(f"workbench: {exc.strerror or exc}{where}; check the path and free space, "
+              "then run the command again", file=sys.stderr)
+        return EXIT_BAD_INPUT
 
 
 if __name__ == "__main__":  # pragma: no cover
