@@ -193,7 +193,6 @@ class _Net:
             self.b.append(block[a])
             self.gW.append(gblock[:a])
             pos += (a + 1) * b
-        self._coef_flat = [w.reshape(-1) for w in self.W]  # contiguous views
         # 1 on weight entries, 0 on intercepts: the L2 penalty as one fused vector op
         self.coef_mask = np.zeros_like(self.theta)
         pos = 0
@@ -306,9 +305,6 @@ class _Net:
         if self.head.name == "logistic":  # binary (and multilabel) log-loss
             return float(-np.mean(xlogy(y, q) + xlogy(1 - y, 1 - q), axis=0).sum())
         return float(-np.mean(xlogy(y, q), axis=0).sum())
-
-    def l2(self):
-        return sum(float(np.dot(c, c)) for c in self._coef_flat)
 
     def backward(self, Xaug, y, m, alpha, scale=True):
         """Forward + backward on m rows; fills self.grad; returns the batch loss.
