@@ -262,16 +262,7 @@ class Store:
                 raise sqlite3.DatabaseError(f"integrity check failed: {ok}")
         if version == 0 and not tables:
             c.execute("PRAGMA journal_mode = WAL")
-            c.execute("BEGIN IMMEDIATE")
-            try:
-                for statement in _SCHEMA_V1.split(";"):
-                    if statement.strip():
-                        c.execute(statement)
-                c.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
-                c.execute("COMMIT")
-            except Exception:
-                c.execute("ROLLBACK")
-                raise
+            self._apply_script(_SCHEMA_V1, SCHEMA_VERSION)
             return
         if version == 0 or not _TABLES <= tables:
             raise InputError(f"{self.path} is an SQLite database but not a workbench store "
@@ -288,23 +279,27 @@ class Store:
             c.execute("PRAGMA journal_mode = WAL")
 
     def _migrate(self, version: int):
-        c = self._conn
         while version < SCHEMA_VERSION:
             step = MIGRATIONS.get(version)
             if step is None:
                 raise InputError(f"the store {self.path} has schema version {version}, which this "
                                  "program cannot migrate; pass --store with another file")
-            c.execute("BEGIN IMMEDIATE")
-            try:
-                for s in step.split(";"):
-                    if s.strip():
-                        c.execute(s)
-                c.execute(f"PRAGMA user_version = {version + 1}")
-                c.execute("COMMIT")
-            except Exception:
-                c.execute("ROLLBACK")
-                raise
+            self._apply_script(step, version + 1)
             version += 1
+
+    def _apply_script(self, script: str, new_version: int):
+        """Run ``script`` and set the schema version in one transaction (all or nothing)."""
+        c = self._conn
+        c.execute("BEGIN IMMEDIATE")
+        try:
+            for statement in script.split(";"):
+                if statement.strip():
+                    c.execute(statement)
+            c.execute(f"PRAGMA user_version = {int(new_version)}")
+            c.execute("COMMIT")
+        except Exception:
+            c.execute("ROLLBACK")
+            raise
 
     def _close_quietly(self):
         try:
