@@ -49,20 +49,19 @@ def _check_columns(df: pd.DataFrame, kinds: dict[str, str]) -> pd.DataFrame:
         s = out[col]
         if kind == "float" and not (pd.api.types.is_numeric_dtype(s)
                                     or pd.api.types.is_bool_dtype(s)):
-            parsed = pd.to_numeric(s, errors="coerce")
-            bad = s.notna() & parsed.isna()
-            if bad.any():
-                raise InputError(f"column {col!r} must hold numbers but row {int(bad.idxmax()) + 1}"
-                                 f" has {str(s[bad].iloc[0])[:40]!r}; fix or blank those cells")
-            out[col] = parsed
+            out[col] = _parsed(col, s, pd.to_numeric(s, errors="coerce"), "numbers")
         elif kind == "datetime" and not pd.api.types.is_datetime64_any_dtype(s):
-            parsed = pd.to_datetime(s, errors="coerce")
-            bad = s.notna() & parsed.isna()
-            if bad.any():
-                raise InputError(f"column {col!r} must hold dates but row {int(bad.idxmax()) + 1} "
-                                 f"has {str(s[bad].iloc[0])[:40]!r}; fix or blank those cells")
-            out[col] = parsed
+            out[col] = _parsed(col, s, pd.to_datetime(s, errors="coerce"), "dates")
     return out
+
+
+def _parsed(col, raw, parsed, what: str):
+    """``parsed``, unless a filled cell of ``raw`` failed to parse (then a one-line error)."""
+    bad = raw.notna() & parsed.isna()
+    if bad.any():
+        raise InputError(f"column {col!r} must hold {what} but row {int(bad.idxmax()) + 1} "
+                         f"has {str(raw[bad].iloc[0])[:40]!r}; fix or blank those cells")
+    return parsed
 
 
 def _result_frame(pred, proba, classes) -> pd.DataFrame:
