@@ -36,9 +36,9 @@ def make_sweep(tmp_path, task: str = "regression", dtype: str = "float64", roles
 
     ``roles`` are the user's column-role changes (as the window's profile table sets them).
     """
-    from workbench.plan import build_plan
-    from workbench.runner import run_sweep
-    from workbench.store import Store
+    from workbench.sweep.plan import build_plan
+    from workbench.sweep.runner import run_sweep
+    from workbench.sweep.store import Store
 
     df = hostile_table()
     if task == "regression":

@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 from scipy import integrate, optimize, special, stats
 
-from workbench import activations as act
+from workbench.nets import activations as act
 
 HIDDEN = act.hidden_names()
 
@@ -405,7 +405,7 @@ def test_float32_normal_cdf_matches_scipy_ndtr():
     """
     from scipy.special import ndtr
 
-    from workbench.activations import _normal_cdf
+    from workbench.nets.activations import _normal_cdf
 
     z = np.linspace(-12, 12, 200_001).astype(np.float32)
     ref = ndtr(z.astype(np.float64))

@@ -19,8 +19,8 @@ from scipy import special
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.metrics import mean_squared_error
 
-from workbench import activations as act
-from workbench.engine import DivergenceWarning, NetClassifier, NetRegressor
+from workbench.nets import activations as act
+from workbench.nets.engine import DivergenceWarning, NetClassifier, NetRegressor
 
 pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
 
@@ -450,11 +450,11 @@ def test_network_health_of_a_scikit_learn_mlp_matches_the_engine():
     Reference: scikit-learn's MLPRegressor trains the weights; the engine trained
     with the same random_state follows the same trajectory (parity tests), so its
     last-epoch ``health_`` (itself checked against finite differences above) must
-    equal :func:`workbench.engine.network_health` on scikit-learn's final weights.
+    equal :func:`workbench.nets.engine.network_health` on scikit-learn's final weights.
     """
     from sklearn.neural_network import MLPRegressor
 
-    from workbench.engine import network_health
+    from workbench.nets.engine import network_health
 
     rng = np.random.default_rng(3)
     X = rng.standard_normal((300, 5))

@@ -15,7 +15,7 @@ from __future__ import annotations
 import pytest
 from sklearn.utils.estimator_checks import parametrize_with_checks
 
-from workbench.engine import NetClassifier, NetRegressor
+from workbench.nets.engine import NetClassifier, NetRegressor
 
 _FAST = dict(max_iter=100, learning_rate_init=0.01, random_state=0)
 

@@ -20,7 +20,7 @@ from sklearn.neural_network import MLPClassifier
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
-from workbench.engine import NetClassifier, NetRegressor
+from workbench.nets.engine import NetClassifier, NetRegressor
 
 pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
 

@@ -1,7 +1,7 @@
 """Full-network gradients of the engine checked by central finite differences.
 
 For every hidden activation x output head pair the analytic gradient that
-``workbench.engine._Net.backward`` writes into ``net.grad`` is compared with
+``workbench.nets.engine._Net.backward`` writes into ``net.grad`` is compared with
 ``(L(theta + h e_i) - L(theta - h e_i)) / 2h`` in float64 (central finite differences,
 the same kind of check scikit-learn's own MLP test suite runs on its backpropagation).
 The loss values are compared with
@@ -15,9 +15,9 @@ import pytest
 from scipy import special
 from sklearn.metrics import log_loss, mean_poisson_deviance, mean_squared_error
 
-from workbench import activations as act
-from workbench import engine
-from workbench.engine import _Net
+from workbench.nets import activations as act
+from workbench.nets import engine
+from workbench.nets.engine import _Net
 
 HIDDEN = act.hidden_names()
 HEAD_KEYS = list(act.HEADS)  # (task, name) for all seven heads

@@ -17,7 +17,7 @@ from sklearn.datasets import make_classification, make_regression
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.neural_network import MLPClassifier, MLPRegressor
 
-from workbench.engine import NetClassifier, NetRegressor
+from workbench.nets.engine import NetClassifier, NetRegressor
 
 HIDDEN = ("identity", "logistic", "tanh", "relu")
 TASKS = ("regression", "poisson", "binary", "multiclass")

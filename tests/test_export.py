@@ -20,10 +20,10 @@ import numpy as np
 import pytest
 from export_helpers import FORMULA_COL, REG_TARGET, SCRIPT_COL, make_sweep
 
-from workbench import export as ex
 from workbench.cli import main
 from workbench.errors import InputError
-from workbench.model_files import MANIFEST_NAME
+from workbench.export import bundle as ex
+from workbench.export.model_files import MANIFEST_NAME
 
 
 @pytest.fixture(scope="module")

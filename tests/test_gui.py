@@ -1,7 +1,7 @@
 """The window, driven offscreen with pytest-qt: drop, choose, run, sort, select, export, stop.
 
 Waiting is done with ``qtbot.waitSignal`` / ``qtbot.waitUntil`` only. The
-reference for every loader message is :func:`workbench.intake.load_table`
+reference for every loader message is :func:`workbench.data.intake.load_table`
 itself (the window must show exactly what the loader says); the reference for
 sorting is Python's ``sorted``.
 """
@@ -18,12 +18,12 @@ from PySide6.QtCore import QMimeData, QPoint, QPointF, Qt, QUrl
 from PySide6.QtGui import QDragEnterEvent, QDropEvent
 from PySide6.QtWidgets import QApplication
 
+from workbench.data.intake import load_table
 from workbench.errors import InputError
 from workbench.gui import core_adapter as core
 from workbench.gui.main_window import MainWindow
 from workbench.gui.models import COLUMN_KEYS
 from workbench.gui.settings import Settings
-from workbench.intake import load_table
 
 pytestmark = [
     pytest.mark.gui,
@@ -147,7 +147,7 @@ def test_drop_run_sort_select_export(qtbot, window, tmp_path):
     assert win.health.bar_items()
     # what is drawn is what the store holds: the mean over folds of each trial's loss curve,
     # and every fold score (numpy's mean over the stored histories is the reference)
-    from workbench.store import Store
+    from workbench.sweep.store import Store
 
     with Store(win.store_path) as store:
         stored = store.trials(win.sweep_id)
@@ -164,7 +164,7 @@ def test_drop_run_sort_select_export(qtbot, window, tmp_path):
     best = win.export_target_row()
     assert best["rank"] == 1
     out = tmp_path / "export"
-    from workbench.export import FORMATS
+    from workbench.export.bundle import FORMATS
 
     formats = [key for key, *_ in core.export_formats()]
     assert formats == list(FORMATS)  # the dialog lists the registry
@@ -234,8 +234,8 @@ def test_a_drag_without_files_is_refused(window):
 @pytest.mark.parametrize("table, kind, any_refused", [("greenhouse_temp.csv", "signed", True),
                                                       ("kiln_batches.csv", "binary", False)])
 def test_refused_heads_are_disabled_with_the_reason(qtbot, window, table, kind, any_refused):
-    # the sweep's own guard (workbench.plan.resolve_heads) decides; the window only shows it
-    from workbench.plan import resolve_heads
+    # the sweep's own guard (workbench.sweep.plan.resolve_heads) decides; the window only shows it
+    from workbench.sweep.plan import resolve_heads
 
     load_by_drop(qtbot, window, SAMPLES / table)
     info = window.summary.target
@@ -267,7 +267,7 @@ def test_changed_roles_go_into_the_plan(qtbot, window):
     assert plan.roles == {feature: "ignore"}
     assert target not in plan.roles
     # and the runner applies it: the column leaves the features
-    from workbench.runner import load_data
+    from workbench.sweep.runner import load_data
 
     data, _ = load_data(plan)
     assert data.profile.column(feature).role == "ignore"
@@ -318,7 +318,7 @@ def test_stop_keeps_finished_rows_and_leaves_no_worker_then_resume(qtbot, window
     qtbot.waitUntil(lambda: all(r["n_done"] == r["n_total"] == 6
                                 for r in win.results_model.rows()), timeout=5_000)
     assert win.results_model.rowCount() == 3
-    from workbench.store import Store
+    from workbench.sweep.store import Store
 
     with Store(win.store_path) as store:
         keys = [(t["config_index"], t["repeat"], t["fold"]) for t in store.trials(sweep_id)]

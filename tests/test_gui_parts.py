@@ -454,7 +454,7 @@ def test_open_run_snapshot_flow(qapp, tmp_path, monkeypatch):
     assert code == 0
     img = QImage(str(png))
     assert (img.width(), img.height()) == (1280, 800)
-    from workbench.store import Store
+    from workbench.sweep.store import Store
 
     with Store(tmp_path / "s.sqlite") as store:
         sweeps = store.list_sweeps()

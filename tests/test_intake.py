@@ -20,10 +20,10 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-import workbench.intake as intake
+import workbench.data.intake as intake
 from workbench.cli import main
+from workbench.data.intake import LoadReport, load_table
 from workbench.errors import EXIT_BAD_INPUT, InputError
-from workbench.intake import LoadReport, load_table
 
 
 def _frame(n=30, seed=0):
@@ -360,7 +360,7 @@ def test_random_well_formed_csv_gives_a_table_or_an_input_error(tmp_path, n_cols
         if n_cols > 1 and len(rows) >= 2 and df.shape[1] == n_cols:
             assert rep.delimiter == delim
         # whatever loads can be profiled; its suggested target is analysed or refused
-        from workbench.profiling import advise, analyse_target, profile_table
+        from workbench.data.profiling import advise, analyse_target, profile_table
 
         prof = profile_table(df)
         assert len(prof.columns) == df.shape[1]
@@ -452,8 +452,8 @@ def test_nullable_parquet_columns_become_numpy_backed(tmp_path):
 
     from sklearn.neural_network import MLPRegressor
 
-    from workbench.preprocessing import build_pipeline
-    from workbench.profiling import analyse_target, profile_table, split_xy
+    from workbench.data.preprocessing import build_pipeline
+    from workbench.data.profiling import analyse_target, profile_table, split_xy
 
     rng = np.random.default_rng(0)
     n = 50

@@ -20,10 +20,10 @@ from sklearn.neural_network import MLPClassifier, MLPRegressor
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import OneHotEncoder, StandardScaler
 
-from workbench import onnx_export as ox
-from workbench.activations import HEADS, HIDDEN
-from workbench.engine import NetClassifier, NetRegressor
 from workbench.errors import InputError
+from workbench.export import onnx_graph as ox
+from workbench.nets.activations import HEADS, HIDDEN
+from workbench.nets.engine import NetClassifier, NetRegressor
 
 TOL = 1e-4
 
@@ -52,7 +52,7 @@ MULTI = np.digitize(_signal, np.quantile(_signal, [1 / 3, 2 / 3]))
 
 
 def _preprocessor():
-    # the shape of workbench.preprocessing's ColumnTransformer: median + scaling for
+    # the shape of workbench.data.preprocessing's ColumnTransformer: median + scaling for
     # numbers, most frequent + one-hot for categories
     return ColumnTransformer([
         ("num", make_pipeline(SimpleImputer(strategy="median"), StandardScaler()), ["x1", "x2"]),
@@ -188,8 +188,8 @@ def _mixed_table(n=80, seed=0):
 
 @pytest.mark.parametrize("head", ["identity", "relu", "logistic", "exp"])
 def test_build_pipeline_regression_with_target_scaling(head):
-    from workbench.preprocessing import build_pipeline
-    from workbench.profiling import analyse_target, profile_table, split_xy
+    from workbench.data.preprocessing import build_pipeline
+    from workbench.data.profiling import analyse_target, profile_table, split_xy
 
     df, signal = _mixed_table()
     target = {"identity": signal, "relu": signal - signal.min(),
@@ -210,8 +210,8 @@ def test_build_pipeline_regression_with_target_scaling(head):
 
 
 def test_build_pipeline_classification_with_dates_and_booleans():
-    from workbench.preprocessing import build_pipeline
-    from workbench.profiling import analyse_target, profile_table, split_xy
+    from workbench.data.preprocessing import build_pipeline
+    from workbench.data.profiling import analyse_target, profile_table, split_xy
 
     df, signal = _mixed_table(seed=3)
     df["grade"] = np.digitize(signal, np.quantile(signal, [0.33, 0.66])).astype(str)
@@ -230,7 +230,7 @@ def test_build_pipeline_classification_with_dates_and_booleans():
 
 def test_date_parts_graph_matches_pandas_calendar():
     # reference: pandas' own calendar accessors (.dt.year, .dt.month, ...)
-    from workbench.preprocessing import DateParts
+    from workbench.data.preprocessing import DateParts
 
     when = pd.Series(pd.to_datetime([
         "1900-03-01 00:00", "1969-12-31 23:59:59", "1970-01-01", "2000-02-29 12:30",
@@ -252,8 +252,8 @@ def test_date_parts_graph_matches_pandas_calendar():
                                             ("classification", "softmax")])
 def test_build_pipeline_with_sklearn_engine(task, head):
     # the configurations a sweep trains with scikit-learn's own MLP (plan engine "sklearn")
-    from workbench.preprocessing import build_pipeline
-    from workbench.profiling import analyse_target, profile_table, split_xy
+    from workbench.data.preprocessing import build_pipeline
+    from workbench.data.profiling import analyse_target, profile_table, split_xy
 
     df, signal = _mixed_table(seed=5)
     if task == "regression":

@@ -19,12 +19,12 @@ import skops.io as sio
 from export_helpers import CLF_TARGET, REG_TARGET, SCRIPT_COL, make_sweep
 from sklearn.base import BaseEstimator
 
-from workbench import model_files as mf
 from workbench.cli import main
+from workbench.data.intake import load_table
 from workbench.errors import InputError
-from workbench.export import export_configuration
-from workbench.intake import load_table
-from workbench.predict import predict_table
+from workbench.export import model_files as mf
+from workbench.export.bundle import export_configuration
+from workbench.export.predict import predict_table
 
 
 class Smuggled(BaseEstimator):
@@ -141,14 +141,14 @@ def test_skops_file_naming_an_untrusted_type_is_refused(exports, tmp_path, capsy
 
 def test_allow_list_is_explicit_and_complete():
     assert mf.defined_project_estimators() <= set(mf.PROJECT_TYPES), (
-        "a new estimator class exists in workbench.engine / workbench.preprocessing: add it to "
-        "workbench.model_files.PROJECT_TYPES so exported skops files containing it load")
+        "a new estimator class exists in workbench.nets.engine / workbench.data.preprocessing: add it to "
+        "workbench.export.model_files.PROJECT_TYPES so exported skops files containing it load")
     assert mf.untrusted_types([
         "builtins.eval", "os.system", "sklearn.pipeline.Pipeline", "numpy.dtype",
         "sklearn.neural_network._stochastic_optimizers.AdamOptimizer",
         "numpy.load",  # a NumPy function, not a class
         "sklearn.utils.validation.check_array",  # a function
-        "workbench.engine.NetRegressor", "workbench.gui.Anything", "sklearn.no.such.Thing",
+        "workbench.nets.engine.NetRegressor", "workbench.gui.Anything", "sklearn.no.such.Thing",
     ]) == ["builtins.eval", "os.system", "numpy.load", "sklearn.utils.validation.check_array",
            "workbench.gui.Anything", "sklearn.no.such.Thing"]
 

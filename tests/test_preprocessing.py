@@ -24,8 +24,7 @@ from sklearn.neural_network import MLPClassifier, MLPRegressor
 from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import MinMaxScaler, StandardScaler
 
-from workbench.errors import InputError
-from workbench.preprocessing import (
+from workbench.data.preprocessing import (
     DateParts,
     TargetScaler,
     build_pipeline,
@@ -34,7 +33,8 @@ from workbench.preprocessing import (
     fitted_estimator,
     target_scaling,
 )
-from workbench.profiling import advise, analyse_target, profile_table, split_xy
+from workbench.data.profiling import advise, analyse_target, profile_table, split_xy
+from workbench.errors import InputError
 
 pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
 
@@ -284,7 +284,7 @@ def test_estimator_is_not_modified_and_pipeline_clones_and_pickles():
                                        ("bounded", "logistic"), ("binary", "logistic"),
                                        ("multiclass", "softmax")])
 def test_engine_networks_in_pipelines(kind, head):
-    engine = pytest.importorskip("workbench.engine")
+    engine = pytest.importorskip("workbench.nets.engine")
     df, prof, t, X, y = _setup(kind)
     cls = engine.NetClassifier if t.task == "classification" else engine.NetRegressor
     pipe = build_pipeline(prof, t, cls(hidden_layer_sizes=(8,), max_iter=30, random_state=0),

@@ -4,7 +4,7 @@ Outside references: scikit-learn's bundled datasets (``load_breast_cancer`` is a
 binary problem, ``load_iris`` / ``load_wine`` have three classes, ``load_diabetes``'s
 target lies in [25, 346]); NumPy / ``numpy.unique`` recompute every piece of
 evidence; ``scipy.stats.poisson`` draws a count target; the head ranges come from
-:mod:`workbench.activations`, itself checked against SciPy.
+:mod:`workbench.nets.activations`, itself checked against SciPy.
 """
 
 from __future__ import annotations
@@ -15,9 +15,7 @@ import pytest
 from scipy import stats
 from sklearn import datasets
 
-from workbench.activations import HEADS
-from workbench.errors import InputError
-from workbench.profiling import (
+from workbench.data.profiling import (
     HIDDEN_TO_SWEEP,
     KINDS,
     TASK_OF_KIND,
@@ -28,6 +26,8 @@ from workbench.profiling import (
     profile_table,
     split_xy,
 )
+from workbench.errors import InputError
+from workbench.nets.activations import HEADS
 
 
 def _bundled(name):

@@ -66,7 +66,7 @@ def test_core_imports_without_qt():
     """Import every module outside workbench/gui in a fresh interpreter: no Qt module may end
     up in sys.modules (the core must stay usable headless)."""
     modules = _core_modules()
-    assert "workbench.engine" in modules and "workbench.activations" in modules
+    assert "workbench.nets.engine" in modules and "workbench.nets.activations" in modules
     code = (
         "import importlib, sys\n"
         f"mods = {modules!r}\n"

@@ -16,8 +16,8 @@ from html.parser import HTMLParser
 import pytest
 from export_helpers import FORMULA_COL, REG_TARGET, SCRIPT_COL, make_sweep
 
-from workbench import report
-from workbench.export import export_configuration
+from workbench.export import report
+from workbench.export.bundle import export_configuration
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
@@ -138,7 +138,7 @@ def test_every_user_string_is_escaped(name):
 
 
 def test_report_core_does_not_import_qt():
-    code = ("import sys; from workbench import report, export\n"
+    code = ("import sys; from workbench.export import bundle, report\n"
             "fig, (ax,) = report._figure(); ax.plot([1, 2]); report._png(fig)\n"
             "bad = [m for m in sys.modules if m.split('.')[0] in "
             "('PySide6', 'pyqtgraph', 'shiboken6') or m == 'matplotlib.pyplot']\n"

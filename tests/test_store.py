@@ -14,9 +14,9 @@ import sys
 import platformdirs
 import pytest
 
-from workbench import store as store_mod
 from workbench.errors import InputError
-from workbench.store import SCHEMA_VERSION, Store, default_store_path, table_fingerprint
+from workbench.sweep import store as store_mod
+from workbench.sweep.store import SCHEMA_VERSION, Store, default_store_path, table_fingerprint
 
 PLAN = {"folds": 2, "repeats": 1, "metric": "r2", "table": "t.csv", "target": "y",
         "task": "regression", "target_kind": "signed"}

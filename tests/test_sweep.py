@@ -22,15 +22,15 @@ from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
 from workbench.errors import InputError
-from workbench.plan import (
+from workbench.sweep.plan import (
     SweepPlan,
     build_plan,
     choose_engine,
     default_metric,
     sklearn_can_express,
 )
-from workbench.runner import run_sweep
-from workbench.store import Store
+from workbench.sweep.runner import run_sweep
+from workbench.sweep.store import Store
 
 SAMPLES = Path(__file__).resolve().parents[1] / "sample_sets"
 
@@ -204,9 +204,9 @@ def test_diabetes_sweep(bundled, tmp_path):
     assert res["configurations"][0]["mean"] > 0.3  # r2 of a linear model is about 0.5 here
     assert res["n_comparisons"] == 3
     # refitting a stored configuration by hand reproduces its trial's score exactly
-    from workbench.preprocessing import build_pipeline
-    from workbench.runner import load_data
-    from workbench.trials import estimator_for
+    from workbench.data.preprocessing import build_pipeline
+    from workbench.sweep.runner import load_data
+    from workbench.sweep.trials import estimator_for
 
     best = res["configurations"][0]
     data, _ = load_data(plan)

@@ -16,9 +16,9 @@ from pathlib import Path
 import pytest
 
 from workbench.cli import main
-from workbench.plan import SweepPlan
-from workbench.runner import run_sweep
-from workbench.store import Store
+from workbench.sweep.plan import SweepPlan
+from workbench.sweep.runner import run_sweep
+from workbench.sweep.store import Store
 
 SAMPLES = Path(__file__).resolve().parents[1] / "sample_sets"
 KILN = SAMPLES / "kiln_batches.csv"

@@ -41,7 +41,7 @@ def _params(epochs):
 
 
 def _time_engine(X, y, epochs):
-    from workbench.engine import NetRegressor
+    from workbench.nets.engine import NetRegressor
 
     t, c = time.perf_counter(), time.process_time()
     NetRegressor(**_params(epochs), dtype="float32").fit(X, y)

@@ -1,4 +1,4 @@
-"""Table loading speed and memory: :func:`workbench.intake.load_table` on a large CSV.
+"""Table loading speed and memory: :func:`workbench.data.intake.load_table` on a large CSV.
 
 The workload (issue "Data intake", section 1): a 1,000,000-row x 20-column CSV of
 numbers (18 real-valued columns with four decimals, 2 integer columns), written
@@ -30,7 +30,7 @@ SECONDS_BUDGET, MEMORY_BUDGET = 5.0, 3.0
 
 _CHILD = r"""
 import json, os, resource, sys, time
-from workbench.intake import load_table
+from workbench.data.intake import load_table
 
 def rss():
     with open("/proc/self/statm") as fh:
@@ -129,7 +129,7 @@ def run(quick: bool = False) -> dict:
         f"({payload / 1e6:.0f} MB); budget {SECONDS_BUDGET:g} s and {MEMORY_BUDGET:g} x"
         f"{verdict}",
     ]
-    return {"title": "Loading a large CSV (workbench.intake.load_table)", "lines": lines,
+    return {"title": "Loading a large CSV (workbench.data.intake.load_table)", "lines": lines,
             "figures": figures}
 
 

@@ -53,7 +53,7 @@ def _table(path: Path, rows: int, seed: int = 0) -> None:
 
 
 def _plan(path, hidden, engine, quick):
-    from workbench.plan import build_plan
+    from workbench.sweep.plan import build_plan
 
     return build_plan(path, "outcome", hidden=hidden, output="logistic", layers=["32"],
                       learning_rates=["0.001", "0.01"], folds=2 if quick else 5, repeats=1,
@@ -61,7 +61,7 @@ def _plan(path, hidden, engine, quick):
 
 
 def _sweep(plan, store, jobs):
-    from workbench.runner import run_sweep
+    from workbench.sweep.runner import run_sweep
 
     t = time.perf_counter()
     out = run_sweep(plan, store=store, jobs=jobs)
@@ -72,8 +72,8 @@ def _grid_search(plan, jobs=2):
     from sklearn.model_selection import GridSearchCV
     from sklearn.neural_network import MLPClassifier
 
-    from workbench.preprocessing import build_pipeline
-    from workbench.runner import load_data
+    from workbench.data.preprocessing import build_pipeline
+    from workbench.sweep.runner import load_data
 
     t = time.perf_counter()  # reading the table is part of the job, as in our sweep
     data, _ = load_data(plan)
@@ -135,7 +135,7 @@ def run(quick: bool = False, rounds: int | None = None) -> dict:
     or restarted when they alternate); later runs find it warm, as repeated
     sweeps in the window do.
     """
-    from workbench.store import Store
+    from workbench.sweep.store import Store
 
     rows = 1_000 if quick else ROWS
     rounds = rounds or (1 if quick else 3)

@@ -4,7 +4,7 @@
 Exports one configuration of a stored sweep (default: the best) into FOLDER:
 configuration JSON, the refitted pipeline (skops, joblib, ONNX), reproduce.py,
 the sweep's results as CSV and an HTML report, with a manifest of SHA-256
-checksums (see :mod:`workbench.export`). The folder is written atomically.
+checksums (see :mod:`workbench.export.bundle`). The folder is written atomically.
 Exit status 0, or 2 on bad input (unknown sweep or rank, folder not writable,
 unknown format, changed table).
 """
@@ -13,8 +13,8 @@ from __future__ import annotations
 
 import sys
 
-from workbench.export import FORMATS, export_configuration
-from workbench.store import Store, existing_store_path
+from workbench.export.bundle import FORMATS, export_configuration
+from workbench.sweep.store import Store, existing_store_path
 
 NAME = "export"
 HELP = "Export one configuration of a stored sweep: model files, configuration, script, report."

@@ -14,7 +14,7 @@ import json
 import sys
 from pathlib import Path
 
-from workbench.store import Store, default_store_path
+from workbench.sweep.store import Store, default_store_path
 
 NAME = "history"
 HELP = "List the stored sweeps with their state (running, finished, interrupted)."

@@ -11,9 +11,9 @@ from __future__ import annotations
 import json
 import sys
 
+from workbench.data.intake import DEFAULT_MAX_CELLS, load_table
+from workbench.data.profiling import advise, analyse_target, check_head, profile_table, to_jsonable
 from workbench.errors import InputError
-from workbench.intake import DEFAULT_MAX_CELLS, load_table
-from workbench.profiling import advise, analyse_target, check_head, profile_table, to_jsonable
 
 NAME = "inspect"
 HELP = "Load a table, profile its columns, detect the target kind and advise the output head."

@@ -13,11 +13,11 @@ from __future__ import annotations
 
 import sys
 
+from workbench.data.intake import load_table
 from workbench.errors import InputError
-from workbench.export import write_safe_csv
-from workbench.intake import load_table
-from workbench.model_files import read_manifest
-from workbench.predict import predict_table
+from workbench.export.bundle import write_safe_csv
+from workbench.export.model_files import read_manifest
+from workbench.export.predict import predict_table
 
 NAME = "predict"
 HELP = "Predict with an exported model folder; writes a CSV of predictions."
@@ -53,7 +53,7 @@ def run(args) -> int:
     else:
         import csv
 
-        from workbench.export import neutralise_cell
+        from workbench.export.bundle import neutralise_cell
 
         w = csv.writer(sys.stdout)
         w.writerow([neutralise_cell(c) for c in out.columns])

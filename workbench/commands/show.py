@@ -14,7 +14,7 @@ import math
 import sys
 import textwrap
 
-from workbench.store import Store, existing_store_path
+from workbench.sweep.store import Store, existing_store_path
 
 NAME = "show"
 HELP = "Print one stored sweep's ranked results (table or JSON)."

@@ -1,7 +1,7 @@
 """``workbench sweep FILE --target COL [options]``: run an activation sweep.
 
-Builds a :class:`workbench.plan.SweepPlan` from the options, runs it with
-:func:`workbench.runner.run_sweep` (worker processes, or a Dask cluster with
+Builds a :class:`workbench.sweep.plan.SweepPlan` from the options, runs it with
+:func:`workbench.sweep.runner.run_sweep` (worker processes, or a Dask cluster with
 ``--cluster``), shows a progress bar on stderr (elapsed time, ETA, best score
 so far), stores every trial as it finishes and prints the ranked table at the
 end. ``--json OUT`` writes the full results (the object documented in
@@ -180,9 +180,9 @@ def _write_json(res: dict, out: str) -> None:
 
 def run(args) -> int:
     from workbench.commands.show import format_results
-    from workbench.plan import build_plan
-    from workbench.runner import run_sweep
-    from workbench.store import Store
+    from workbench.sweep.plan import build_plan
+    from workbench.sweep.runner import run_sweep
+    from workbench.sweep.store import Store
 
     if args.resume is None:
         if args.file is None:

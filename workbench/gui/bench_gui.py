@@ -30,7 +30,7 @@ HEARTBEAT_MS = 10
 def _rows(n: int, seed: int = 0) -> list[dict]:
     import numpy as np
 
-    from workbench.activations import HIDDEN
+    from workbench.nets.activations import HIDDEN
 
     rng = np.random.default_rng(seed)
     hidden = list(HIDDEN)

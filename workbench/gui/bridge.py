@@ -2,7 +2,7 @@
 
 :class:`SweepBridge` is a QObject moved to its own :class:`QThread`. Its
 ``run`` slot calls a *job* (normally :func:`workbench.gui.core_adapter.run_plan`,
-which calls :func:`workbench.runner.run_sweep`; the trials themselves run in
+which calls :func:`workbench.sweep.runner.run_sweep`; the trials themselves run in
 worker processes) with an ``on_event`` callback and a ``threading.Event`` for
 cancelling. Each event dict of the core becomes a signal; those signals cross
 to the GUI thread as queued connections, so the GUI thread only draws.

@@ -16,14 +16,14 @@ from pathlib import Path
 # it. (First imports of these modules from several pool threads at once made CPython 3.11
 # abort at exit with a refcount error.)
 import workbench.commands.history  # noqa: F401
-import workbench.intake  # noqa: F401
-import workbench.plan  # noqa: F401
-import workbench.profiling  # noqa: F401
-import workbench.ranking  # noqa: F401
-import workbench.runner  # noqa: F401
-import workbench.store  # noqa: F401
-from workbench import activations
+import workbench.data.intake  # noqa: F401
+import workbench.data.profiling  # noqa: F401
+import workbench.sweep.plan  # noqa: F401
+import workbench.sweep.ranking  # noqa: F401
+import workbench.sweep.runner  # noqa: F401
+import workbench.sweep.store  # noqa: F401
 from workbench.errors import InputError
+from workbench.nets import activations
 
 # --------------------------------------------------------------------------- table
 
@@ -45,8 +45,8 @@ class LoadedTable:
 
 def load(path: str) -> LoadedTable:
     """Load and profile a table (raises InputError with the loader's one-line message)."""
-    from workbench.intake import load_table
-    from workbench.profiling import profile_table
+    from workbench.data.intake import load_table
+    from workbench.data.profiling import profile_table
 
     df, report = load_table(path)
     profile = profile_table(df)
@@ -78,8 +78,8 @@ class HeadVerdict:
 
 
 def head_verdict(info, head: str) -> HeadVerdict:
-    """What the sweep's plan would do with ``head`` (:func:`workbench.plan.resolve_heads`)."""
-    from workbench.plan import resolve_heads
+    """What the sweep's plan would do with ``head`` (:func:`workbench.sweep.plan.resolve_heads`)."""
+    from workbench.sweep.plan import resolve_heads
 
     try:
         _, refused, warns = resolve_heads(info, [head])
@@ -93,7 +93,7 @@ def head_verdict(info, head: str) -> HeadVerdict:
 
 
 def summarise_target(df, name: str) -> TargetSummary:
-    from workbench.profiling import advise, analyse_target
+    from workbench.data.profiling import advise, analyse_target
 
     info = analyse_target(df, name)
     adv = advise(info)
@@ -161,7 +161,7 @@ def build_plan(table: LoadedTable, summary: TargetSummary, choices: dict,
     ``roles`` is the profile table's ``{column: role}``; the columns whose role
     differs from the intake's profile go into the plan's ``roles``.
     """
-    from workbench.plan import build_plan as core_build_plan
+    from workbench.sweep.plan import build_plan as core_build_plan
 
     info = summary.target
     if not choices.get("hidden"):
@@ -248,7 +248,7 @@ def calibrate_speed(rows: int = 2000, features: int = 10, width: int = 32,
 
     import numpy as np
 
-    from workbench.engine import NetRegressor
+    from workbench.nets.engine import NetRegressor
 
     rng = np.random.default_rng(0)
     X = rng.standard_normal((rows, features)).astype(np.float32)
@@ -295,7 +295,7 @@ def plan_summary(plan, choices: dict, speed: tuple[float, str] | None, n_rows: i
 # --------------------------------------------------------------------------- store, sweep
 
 class StoreSession:
-    """One :class:`workbench.store.Store`, opened on first use in the thread that uses it.
+    """One :class:`workbench.sweep.store.Store`, opened on first use in the thread that uses it.
 
     A sweep's job and its ranker share one session on the bridge thread; short
     tasks open their own with ``with StoreSession(path) as store:``.
@@ -308,7 +308,7 @@ class StoreSession:
     @property
     def store(self):
         if self._store is None:
-            from workbench.store import Store
+            from workbench.sweep.store import Store
 
             self._store = Store(self.path)
         return self._store
@@ -327,7 +327,7 @@ class StoreSession:
 
 def run_plan(plan, choices: dict, session: StoreSession, on_event, cancel) -> dict:
     """Run a new sweep with the core's runner (blocks; call it on the bridge thread)."""
-    from workbench.runner import run_sweep
+    from workbench.sweep.runner import run_sweep
 
     out = run_sweep(plan, store=session.store, jobs=int(choices.get("jobs") or 1),
                     cluster=choices.get("cluster") or None, on_event=on_event, cancel=cancel)
@@ -338,7 +338,7 @@ def run_plan(plan, choices: dict, session: StoreSession, on_event, cancel) -> di
 
 def resume(sweep_id: str, session: StoreSession, jobs: int, on_event, cancel) -> dict:
     """Run the missing trials of a stored sweep."""
-    from workbench.runner import run_sweep
+    from workbench.sweep.runner import run_sweep
 
     out = run_sweep(resume=sweep_id, store=session.store, jobs=int(jobs or 1),
                     on_event=on_event, cancel=cancel)
@@ -466,7 +466,7 @@ __all__ = ["InputError", "LoadedTable", "TargetSummary", "load", "summarise_targ
 
 def export_formats() -> list[tuple[str, str, str, bool]]:
     """``(key, label, tooltip, checked by default)`` for each format of the export registry."""
-    from workbench.export import FORMATS
+    from workbench.export.bundle import FORMATS
 
     out = []
     for f in FORMATS.values():
@@ -478,7 +478,7 @@ def export_formats() -> list[tuple[str, str, str, bool]]:
 def export(store_path: str | None, sweep_id: str, row: dict, folder: str,
            formats: list[str], on_progress=None) -> str:
     """Export one configuration of a stored sweep; returns the folder written."""
-    from workbench.export import export_configuration
+    from workbench.export.bundle import export_configuration
 
     if not formats:
         raise InputError("tick at least one export format")

@@ -309,7 +309,7 @@ class SetupPane(QWidget):
         self._texts_changed()
 
     def _set_metrics(self, task: str, kind: str | None) -> None:
-        from workbench.plan import default_metric
+        from workbench.sweep.plan import default_metric
 
         self.metric_combo.blockSignals(True)
         self.metric_combo.clear()

@@ -1,7 +1,7 @@
 """Predict with an exported model folder (written by ``workbench export``).
 
 Three ways to load the model, all checked against the folder's manifest first
-(SHA-256 of each file, :mod:`workbench.model_files`):
+(SHA-256 of each file, :mod:`workbench.export.model_files`):
 
 ``skops`` (default)
     ``model.skops``, loading only scikit-learn, NumPy and workbench types;
@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 
 from workbench.errors import InputError
-from workbench.model_files import (
+from workbench.export.model_files import (
     ONNX_NAME,
     load_model,
     read_manifest,
@@ -109,7 +109,7 @@ def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> 
     if kind == "onnx":
         import onnx
 
-        from workbench.onnx_export import onnx_columns, run_onnx
+        from workbench.export.onnx_graph import onnx_columns, run_onnx
 
         path = verify_file(folder, ONNX_NAME, manifest)
         model = onnx.load(str(path))
@@ -123,7 +123,7 @@ def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> 
 
     from sklearn.base import is_classifier
 
-    from workbench.onnx_export import required_column_kinds
+    from workbench.export.onnx_graph import required_column_kinds
 
     pipe = load_model(folder, kind, warn=warn)
     kinds = required_column_kinds(pipe)

@@ -51,9 +51,9 @@ from sklearn.impute import SimpleImputer
 from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, StandardScaler
 
-from workbench.activations import resolve_head
+from workbench.data.profiling import TableProfile, TargetInfo, check_head
 from workbench.errors import InputError
-from workbench.profiling import TableProfile, TargetInfo, check_head
+from workbench.nets.activations import resolve_head
 
 NUMERIC_TYPES = ("numeric", "integer")
 CATEGORICAL_TYPES = ("categorical", "boolean")
@@ -331,7 +331,7 @@ def build_pipeline(profile: TableProfile, target: TargetInfo, estimator, head: s
     Raises
     ------
     InputError
-        When the head cannot serve the target (see :func:`workbench.profiling.check_head`)
+        When the head cannot serve the target (see :func:`workbench.data.profiling.check_head`)
         or the estimator does not offer the head.
     """
     chk = check_head(target, head)

@@ -4,7 +4,7 @@ Layout (schema version :data:`SCHEMA_VERSION`, kept in SQLite's ``user_version``
 
 ``sweeps``
     one row per sweep: ``id``, ``state`` (running, finished, interrupted),
-    ``plan`` (the :class:`workbench.plan.SweepPlan` as JSON), ``fingerprint``
+    ``plan`` (the :class:`workbench.sweep.plan.SweepPlan` as JSON), ``fingerprint``
     (the table file's SHA-256, its shape and columns, as JSON), ``versions``
     (Python and library versions, as JSON), ``created``, ``updated``,
     ``finished`` (ISO-8601 UTC), ``host`` and ``pid`` of the process running it,
@@ -448,8 +448,8 @@ class Store:
     def results(self, sweep_id: str, *, alpha: float = 0.05, holm: bool = False) -> dict:
         """The sweep's ranked results, in the form of ``workbench sweep --json``.
 
-        See :func:`workbench.ranking.sweep_results`.
+        See :func:`workbench.sweep.ranking.sweep_results`.
         """
-        from workbench.ranking import sweep_results
+        from workbench.sweep.ranking import sweep_results
 
         return sweep_results(self, sweep_id, alpha=alpha, holm=holm)

@@ -6,7 +6,7 @@ their meaning overlaps with :class:`sklearn.neural_network.MLPRegressor` /
 follow the same arithmetic (loss definitions, L2 penalty, Glorot initialisation,
 Adam bias correction, SGD momentum, early stopping, batch order), so that with the
 same ``random_state`` both produce the same ``loss_curve_``. Beyond scikit-learn they
-accept every hidden activation of :mod:`workbench.activations` (one for all layers
+accept every hidden activation of :mod:`workbench.nets.activations` (one for all layers
 or one per layer), every output head with its matched loss, and record the health
 of each hidden layer per epoch (dead units, saturated units, gradient norms).
 
@@ -42,7 +42,7 @@ from sklearn.utils import check_random_state
 from sklearn.utils.multiclass import type_of_target, unique_labels
 from sklearn.utils.validation import check_is_fitted, column_or_1d, validate_data
 
-from workbench import activations as act
+from workbench.nets import activations as act
 
 __all__ = ["NetRegressor", "NetClassifier", "DivergenceWarning", "network_health"]
 
@@ -846,7 +846,7 @@ class NetRegressor(RegressorMixin, _BaseNet):
         Units per hidden layer.
     activation : str or tuple of str, default="relu"
         Hidden activation, one for all layers or one per hidden layer; any name in
-        :data:`workbench.activations.HIDDEN` (aliases ``sigmoid``, ``swish``).
+        :data:`workbench.nets.activations.HIDDEN` (aliases ``sigmoid``, ``swish``).
     output_activation : str, default="auto"
         Output head: ``identity`` (squared error), ``exp`` (Poisson deviance),
         ``relu``, ``softplus`` (squared error, non-negative targets) or ``logistic``
@@ -891,7 +891,7 @@ class NetRegressor(RegressorMixin, _BaseNet):
     Examples
     --------
     >>> from sklearn.datasets import load_diabetes
-    >>> from workbench.engine import NetRegressor
+    >>> from workbench.nets.engine import NetRegressor
     >>> X, y = load_diabetes(return_X_y=True)
     >>> net = NetRegressor((16,), "tanh", output_activation="relu", max_iter=5,
     ...                    random_state=0).fit(X, y / y.std())
@@ -944,7 +944,7 @@ class NetClassifier(ClassifierMixin, _BaseNet):
     Examples
     --------
     >>> from sklearn.datasets import load_iris
-    >>> from workbench.engine import NetClassifier
+    >>> from workbench.nets.engine import NetClassifier
     >>> X, y = load_iris(return_X_y=True)
     >>> clf = NetClassifier((8,), "gelu", max_iter=5, random_state=0).fit(X, y)
     >>> clf.predict_proba(X[:1]).shape

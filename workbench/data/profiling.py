@@ -43,7 +43,7 @@ those rows dropped.
 Advice and guard
 ----------------
 :func:`advise(target) <advise>` returns an :class:`Advice`: ``output_head`` (a
-head name of :mod:`workbench.activations`), ``loss`` (``squared_error``,
+head name of :mod:`workbench.nets.activations`), ``loss`` (``squared_error``,
 ``poisson`` or ``log_loss``), ``reason`` (one sentence), ``hidden`` (the default
 hidden activation, ``relu``), ``hidden_to_sweep`` (tuple of hidden activations
 worth sweeping), ``heads_to_sweep`` (tuple of heads worth comparing, the advised
@@ -66,8 +66,8 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 import pandas as pd
 
-from workbench.activations import HEAD_ALIASES, HEADS, resolve_head
 from workbench.errors import InputError
+from workbench.nets.activations import HEAD_ALIASES, HEADS, resolve_head
 
 KINDS = ("binary", "multiclass", "signed", "non_negative", "count", "bounded")
 TASK_OF_KIND = {"binary": "classification", "multiclass": "classification",

@@ -15,7 +15,7 @@ it).
 
 Each configuration names the engine that trains it: scikit-learn's own
 ``MLPRegressor`` / ``MLPClassifier`` where it can express the combination
-(hidden activation in :data:`workbench.activations.SKLEARN_HIDDEN` and the head
+(hidden activation in :data:`workbench.nets.activations.SKLEARN_HIDDEN` and the head
 scikit-learn uses for the task: identity or exp with the Poisson loss for
 regression, logistic / softmax for classification), the project's NumPy engine
 otherwise. ``engine="numpy"`` or ``"sklearn"`` overrides the choice
@@ -43,8 +43,8 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from workbench.activations import SKLEARN_HEADS, SKLEARN_HIDDEN, resolve_head, resolve_hidden
 from workbench.errors import InputError
+from workbench.nets.activations import SKLEARN_HEADS, SKLEARN_HIDDEN, resolve_head, resolve_hidden
 
 PLAN_VERSION = 1
 
@@ -241,7 +241,7 @@ class SweepPlan:
         The intake's target kind (binary, multiclass, signed, non_negative,
         count, bounded).
     hidden : list of str
-        Hidden activations to try (names from :data:`workbench.activations.HIDDEN`).
+        Hidden activations to try (names from :data:`workbench.nets.activations.HIDDEN`).
     heads : list of str
         Output heads to try, already resolved (no ``"auto"``) and accepted by
         the compatibility guard.
@@ -274,7 +274,7 @@ class SweepPlan:
     roles : dict
         ``{column: "feature" | "ignore"}``: the user's changes to the profile's
         column roles (the window's profile table); applied by
-        :func:`workbench.runner.load_data` before the preprocessing is built.
+        :func:`workbench.sweep.runner.load_data` before the preprocessing is built.
     """
 
     table: str
@@ -498,8 +498,8 @@ def resolve_heads(target, output="auto") -> tuple[list[str], dict, dict]:
     InputError
         when every requested head is refused, naming each and why.
     """
-    from workbench.activations import head_names
-    from workbench.profiling import advise, check_head
+    from workbench.data.profiling import advise, check_head
+    from workbench.nets.activations import head_names
 
     names = _split_list(output) or ["auto"]
     wanted = []
@@ -537,7 +537,7 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
     Parameters
     ----------
     table : str
-        The table's path (loaded with :func:`workbench.intake.load_table`
+        The table's path (loaded with :func:`workbench.data.intake.load_table`
         unless ``df`` is given).
     target : str
         Target column.
@@ -558,11 +558,11 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
     InputError
         for a bad table, target or option, or when every requested head is refused.
     """
-    from workbench.activations import hidden_names
-    from workbench.profiling import HIDDEN_TO_SWEEP, analyse_target
+    from workbench.data.profiling import HIDDEN_TO_SWEEP, analyse_target
+    from workbench.nets.activations import hidden_names
 
     if df is None:
-        from workbench.intake import load_table
+        from workbench.data.intake import load_table
 
         df, _ = load_table(table, sheet=sheet)
     info = target_info if target_info is not None else analyse_target(df, target)

@@ -170,12 +170,12 @@ def verify_file(folder: str | Path, name: str, manifest: dict | None = None) -> 
 
 
 #: the project's own types a skops file may contain (explicit allow-list; a test
-#: checks that it names every estimator class of workbench.engine / workbench.preprocessing)
+#: checks that it names every estimator class of workbench.nets.engine / workbench.data.preprocessing)
 PROJECT_TYPES = (
-    "workbench.engine.NetRegressor",
-    "workbench.engine.NetClassifier",
-    "workbench.preprocessing.DateParts",
-    "workbench.preprocessing.TargetScaler",
+    "workbench.nets.engine.NetRegressor",
+    "workbench.nets.engine.NetClassifier",
+    "workbench.data.preprocessing.DateParts",
+    "workbench.data.preprocessing.TargetScaler",
 )
 
 
@@ -185,14 +185,14 @@ def project_types() -> set[str]:
 
 
 def defined_project_estimators() -> set[str]:
-    """Estimator classes actually defined in :mod:`workbench.engine` and
-    :mod:`workbench.preprocessing` (what :data:`PROJECT_TYPES` must cover)."""
+    """Estimator classes actually defined in :mod:`workbench.nets.engine` and
+    :mod:`workbench.data.preprocessing` (what :data:`PROJECT_TYPES` must cover)."""
     import importlib
 
     from sklearn.base import BaseEstimator
 
     names = set()
-    for mod_name in ("workbench.engine", "workbench.preprocessing"):
+    for mod_name in ("workbench.nets.engine", "workbench.data.preprocessing"):
         mod = importlib.import_module(mod_name)
         for _, obj in inspect.getmembers(mod, inspect.isclass):
             if obj.__module__ == mod_name and issubclass(obj, BaseEstimator) \

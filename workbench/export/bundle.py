@@ -18,7 +18,7 @@ joblib     model.joblib                    the same pipeline pickled (loading ru
 onnx       model.onnx                      the same pipeline as ONNX (opset 17+)
 script     reproduce.py                    re-runs the cross-validation, prints the scores
 csv        configurations.csv, trials.csv  the sweep's full results, spreadsheet-safe
-report     report.html                     a self-contained report (see workbench.report)
+report     report.html                     a self-contained report (see workbench.export.report)
 =========  ==============================  ==============================================
 
 plus ``manifest.json`` (SHA-256 of every file and the library versions). The
@@ -51,7 +51,7 @@ import numpy as np
 
 from workbench import __version__
 from workbench.errors import InputError
-from workbench.model_files import (
+from workbench.export.model_files import (
     JOBLIB_NAME,
     MANIFEST_NAME,
     ONNX_NAME,
@@ -246,7 +246,7 @@ def choose_configuration(results: dict, rank_or_best="best") -> dict:
 
 
 def trial_spec(plan, chosen: dict, repeat: int, fold: int, train, test) -> dict:
-    """The trial description the runner gives :func:`workbench.trials.run_trial`."""
+    """The trial description the runner gives :func:`workbench.sweep.trials.run_trial`."""
     cfg = {"index": chosen["index"], "hidden": chosen["hidden"], "head": chosen["head"],
            "layers": list(chosen["layers"]), "learning_rate": chosen["learning_rate"],
            "alpha": chosen["alpha"], "engine": chosen["engine"]}
@@ -262,7 +262,7 @@ def final_fit_seed(plan) -> int:
 
 
 def _estimator_info(plan, chosen) -> tuple[str, dict]:
-    from workbench.trials import estimator_for
+    from workbench.sweep.trials import estimator_for
 
     est = estimator_for(plan, trial_spec(plan, chosen, 0, 0, [], [])["config"])
     params = est.get_params(deep=False)
@@ -272,7 +272,7 @@ def _estimator_info(plan, chosen) -> tuple[str, dict]:
 
 
 def _layer_shapes(ctx: ExportContext) -> list[list[int]]:
-    from workbench.preprocessing import build_preprocessor
+    from workbench.data.preprocessing import build_preprocessor
 
     X = ctx.data.X
     n_in = int(build_preprocessor(ctx.data.profile, ctx.data.target).fit_transform(X).shape[1])
@@ -288,7 +288,7 @@ def _layer_shapes(ctx: ExportContext) -> list[list[int]]:
 def preprocessing_groups(profile, target) -> dict:
     """``{group: {"columns": [...], "steps": [...]}}`` of the ColumnTransformer the
     pipeline builds (steps as scikit-learn prints them)."""
-    from workbench.preprocessing import build_preprocessor
+    from workbench.data.preprocessing import build_preprocessor
 
     out = {}
     for name, trans, cols in build_preprocessor(profile, target).transformers:
@@ -300,9 +300,9 @@ def preprocessing_groups(profile, target) -> dict:
 
 def build_configuration(ctx: ExportContext) -> dict:
     """The ``configuration.json`` document (see the shipped JSON Schema)."""
-    from workbench.activations import LOSS_LABELS, resolve_head
-    from workbench.preprocessing import DATE_PARTS, feature_groups, target_scaling
-    from workbench.profiling import advise
+    from workbench.data.preprocessing import DATE_PARTS, feature_groups, target_scaling
+    from workbench.data.profiling import advise
+    from workbench.nets.activations import LOSS_LABELS, resolve_head
 
     plan, chosen, res, target = ctx.plan, ctx.chosen, ctx.results, ctx.data.target
     head = resolve_head(chosen["head"], plan.task)
@@ -463,7 +463,7 @@ def _write_joblib(ctx: ExportContext, folder: Path):
 def _write_onnx(ctx: ExportContext, folder: Path):
     import onnx
 
-    from workbench.onnx_export import pipeline_to_onnx
+    from workbench.export.onnx_graph import pipeline_to_onnx
 
     model = pipeline_to_onnx(ctx.pipeline, ctx.data.X.head(50))
     onnx.save(model, str(folder / ONNX_NAME))
@@ -514,7 +514,7 @@ def _write_csv(ctx: ExportContext, folder: Path):
                "Table, target, advice, ranking with the tie group, learning curves, fold "
                "spread, layer health and cautions, in one file.", (REPORT_NAME,))
 def _write_report(ctx: ExportContext, folder: Path):
-    from workbench.report import render_report
+    from workbench.export.report import render_report
 
     html_text = render_report(ctx.results, ctx.chosen, ctx.configuration, ctx.trials,
                               profile=ctx.profile)
@@ -530,8 +530,8 @@ def fit_final_pipeline(plan, chosen: dict, data):
 
     from threadpoolctl import threadpool_limits
 
-    from workbench.preprocessing import build_pipeline
-    from workbench.trials import estimator_for
+    from workbench.data.preprocessing import build_pipeline
+    from workbench.sweep.trials import estimator_for
 
     config = trial_spec(plan, chosen, 0, 0, [], [])["config"]
     est = estimator_for(plan, config, random_state=final_fit_seed(plan))
@@ -580,7 +580,7 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
 
     Parameters
     ----------
-    store : workbench.store.Store
+    store : workbench.sweep.store.Store
     sweep_id : str
     rank_or_best : int or "best"
         Rank in the sweep's results (1 is the best).
@@ -606,8 +606,8 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
         for an unknown sweep or rank, a table that changed since the sweep, a
         folder that cannot be written, or an unknown format.
     """
-    from workbench.plan import SweepPlan
-    from workbench.runner import load_data
+    from workbench.sweep.plan import SweepPlan
+    from workbench.sweep.runner import load_data
 
     if folder is None:
         raise InputError("give the folder to export to (--to FOLDER)")
@@ -701,15 +701,15 @@ from sklearn.metrics import get_scorer
 from sklearn.neural_network import MLPClassifier, MLPRegressor
 from threadpoolctl import threadpool_limits
 
-from workbench.engine import NetClassifier, NetRegressor
-from workbench.intake import load_table
-from workbench.preprocessing import build_pipeline
-from workbench.profiling import analyse_target, profile_table, split_xy
+from workbench.nets.engine import NetClassifier, NetRegressor
+from workbench.data.intake import load_table
+from workbench.data.preprocessing import build_pipeline
+from workbench.data.profiling import analyse_target, profile_table, split_xy
 
 #: the only estimators a configuration may name
 ESTIMATORS = {
-    "workbench.engine.NetRegressor": NetRegressor,
-    "workbench.engine.NetClassifier": NetClassifier,
+    "workbench.nets.engine.NetRegressor": NetRegressor,
+    "workbench.nets.engine.NetClassifier": NetClassifier,
     "sklearn.neural_network.MLPRegressor": MLPRegressor,
     "sklearn.neural_network.MLPClassifier": MLPClassifier,
 }

@@ -1,8 +1,8 @@
 """Run a sweep: trials in worker processes or on a Dask cluster, stored as they finish.
 
-:func:`run_sweep` runs every trial of a :class:`workbench.plan.SweepPlan` (or the
+:func:`run_sweep` runs every trial of a :class:`workbench.sweep.plan.SweepPlan` (or the
 missing ones of a stored sweep, with ``resume=``) and commits each finished
-trial to the :class:`workbench.store.Store` the moment it arrives.
+trial to the :class:`workbench.sweep.store.Store` the moment it arrives.
 
 Where trials run
 ----------------
@@ -71,9 +71,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from workbench.errors import InputError
-from workbench.plan import SweepPlan
-from workbench.store import FINISHED, INTERRUPTED, RUNNING, Store, table_fingerprint
-from workbench.trials import (
+from workbench.sweep.plan import SweepPlan
+from workbench.sweep.store import FINISHED, INTERRUPTED, RUNNING, Store, table_fingerprint
+from workbench.sweep.trials import (
     CANCELLED,
     DONE,
     FAILED,
@@ -107,8 +107,8 @@ def new_sweep_id() -> str:
 
 def load_data(plan: SweepPlan):
     """Load the plan's table; return ``(TrialData, fingerprint)``."""
-    from workbench.intake import load_table
-    from workbench.profiling import analyse_target, profile_table, split_xy
+    from workbench.data.intake import load_table
+    from workbench.data.profiling import analyse_target, profile_table, split_xy
 
     df, _ = load_table(plan.table, sheet=plan.sheet)
     target = analyse_target(df, plan.target)
@@ -456,7 +456,7 @@ class _LokyExecutor:
     """loky worker processes (the sweep's own pool, kept warm between sweeps).
 
     The table is written once per sweep to a temporary file that each worker
-    reads on its first trial (see :func:`workbench.trials.run_trial_from_file`).
+    reads on its first trial (see :func:`workbench.sweep.trials.run_trial_from_file`).
     """
 
     name = "processes"

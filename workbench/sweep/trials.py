@@ -4,7 +4,7 @@
 its seed, so the same trial gives the same numbers in any worker process, on
 any Dask worker, serially or in parallel. It
 
-1. builds the pipeline with :func:`workbench.preprocessing.build_pipeline`
+1. builds the pipeline with :func:`workbench.data.preprocessing.build_pipeline`
    (leak-free preprocessing and target scaling, fitted inside the fold),
 2. fits it on the fold's training rows with a single BLAS thread
    (threadpoolctl), timing the network's fit (``fit_seconds``: the model
@@ -86,7 +86,7 @@ def make_estimator(spec: dict):
             return MLPClassifier(activation=cfg["hidden"], **common)
         loss = "poisson" if cfg["head"] == "exp" else "squared_error"
         return MLPRegressor(loss=loss, activation=cfg["hidden"], **common)
-    from workbench.engine import NetClassifier, NetRegressor
+    from workbench.nets.engine import NetClassifier, NetRegressor
 
     cls = NetClassifier if task == "classification" else NetRegressor
     return cls(activation=cfg["hidden"], output_activation=cfg["head"],
@@ -110,7 +110,7 @@ def estimator_for(plan, config, random_state: int = 0):
     estimator
         ``MLPClassifier``/``MLPRegressor`` or ``NetClassifier``/``NetRegressor``
         with the configuration's parameters; hand it to
-        :func:`workbench.preprocessing.build_pipeline` with the configuration's head.
+        :func:`workbench.data.preprocessing.build_pipeline` with the configuration's head.
     """
     p = plan.to_dict() if hasattr(plan, "to_dict") else dict(plan)
     c = config.to_dict() if hasattr(config, "to_dict") else dict(config)
@@ -165,10 +165,10 @@ def _network_targets(model, mlp, y):
 def _final_health(model, mlp, X, y, hidden: str) -> dict:
     """Dead / saturated share and gradient norm per hidden layer of a fitted
     scikit-learn MLP, measured after training with the NumPy engine's own
-    definitions (:func:`workbench.engine.network_health`); scikit-learn records
+    definitions (:func:`workbench.nets.engine.network_health`); scikit-learn records
     no per-epoch health, so only the final state is known.
     """
-    from workbench.engine import network_health
+    from workbench.nets.engine import network_health
 
     head = getattr(mlp, "out_activation_", "identity")
     task = "classification" if hasattr(mlp, "classes_") else "regression"
@@ -217,7 +217,7 @@ def run_trial(data: TrialData, spec: dict) -> dict:
     ----------
     data : TrialData
     spec : dict
-        ``config`` (a :class:`workbench.plan.Configuration` as a dict),
+        ``config`` (a :class:`workbench.sweep.plan.Configuration` as a dict),
         ``repeat``, ``fold``, ``train`` and ``test`` (row positions),
         ``random_state``, ``task``, ``metric``, ``epochs``, ``early_stopping``,
         ``batch_size``, ``dtype``.
@@ -292,7 +292,7 @@ def _fold_features(data: TrialData, spec: dict, prep, train, test):
 def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
     from sklearn.metrics import get_scorer
 
-    from workbench.preprocessing import build_pipeline
+    from workbench.data.preprocessing import build_pipeline
 
     cfg = spec["config"]
     train = np.asarray(spec["train"])

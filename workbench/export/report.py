@@ -255,7 +255,7 @@ def render_report(results: dict, chosen: dict, configuration: dict | None, trial
     Parameters
     ----------
     results : dict
-        The sweep's ranked results (:meth:`workbench.store.Store.results`).
+        The sweep's ranked results (:meth:`workbench.sweep.store.Store.results`).
     chosen : dict
         The exported configuration (an entry of ``results["configurations"]``).
     configuration : dict, optional

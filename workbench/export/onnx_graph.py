@@ -5,11 +5,11 @@ own steps (``ColumnTransformer``, ``SimpleImputer``, ``StandardScaler``,
 ``OneHotEncoder``, ``MLPRegressor``, ``MLPClassifier``); this module registers
 converters (a shape calculator plus a converter) for the steps it does not know:
 
-- :class:`workbench.engine.NetRegressor` and :class:`workbench.engine.NetClassifier`,
-  for every hidden activation of :data:`workbench.activations.HIDDEN` and every
-  output head of :data:`workbench.activations.HEADS`;
-- the target scaler of :mod:`workbench.preprocessing` (predictions in user units);
-- the datetime-parts transformer of :mod:`workbench.preprocessing`;
+- :class:`workbench.nets.engine.NetRegressor` and :class:`workbench.nets.engine.NetClassifier`,
+  for every hidden activation of :data:`workbench.nets.activations.HIDDEN` and every
+  output head of :data:`workbench.nets.activations.HEADS`;
+- the target scaler of :mod:`workbench.data.preprocessing` (predictions in user units);
+- the datetime-parts transformer of :mod:`workbench.data.preprocessing`;
 - scikit-learn's ``MLPRegressor`` too, because skl2onnx's own converter has no
   exponential output (``loss="poisson"``); ``MLPClassifier`` keeps skl2onnx's.
 
@@ -44,14 +44,14 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from workbench.activations import (
+from workbench.errors import InputError
+from workbench.nets.activations import (
     ELU_ALPHA,
     LEAKY_SLOPE,
     SELU_ALPHA,
     SELU_LAMBDA,
     resolve_hidden,
 )
-from workbench.errors import InputError
 
 #: the opset every export targets (the issue asks for 17 or newer)
 TARGET_OPSET = 17
@@ -324,7 +324,7 @@ def register_converters() -> None:
     global _registered
     if _registered:
         return
-    from workbench.engine import NetClassifier, NetRegressor
+    from workbench.nets.engine import NetClassifier, NetRegressor
 
     register_network_estimator(NetRegressor, "regression")
     register_network_estimator(NetClassifier, "classification")
@@ -338,11 +338,11 @@ def register_converters() -> None:
 
 
 def _register_preprocessing() -> None:
-    """Converters for the steps of :mod:`workbench.preprocessing` skl2onnx lacks."""
+    """Converters for the steps of :mod:`workbench.data.preprocessing` skl2onnx lacks."""
     from skl2onnx import update_registered_converter
     from sklearn.compose import TransformedTargetRegressor
 
-    from workbench.preprocessing import DateParts
+    from workbench.data.preprocessing import DateParts
 
     update_registered_converter(TransformedTargetRegressor, "WorkbenchTransformedTarget",
                                 _ttr_shape, _ttr_convert)
@@ -356,7 +356,7 @@ def _register_preprocessing() -> None:
 def _target_affine(ttr) -> tuple[np.ndarray, np.ndarray]:
     """``(scale, offset)`` with ``prediction = raw * scale + offset`` for a fitted wrapper.
 
-    Knows :class:`workbench.preprocessing.TargetScaler` (``offset_``, ``scale_``),
+    Knows :class:`workbench.data.preprocessing.TargetScaler` (``offset_``, ``scale_``),
     scikit-learn's ``StandardScaler`` and the identity (no transformer).
     """
     t = getattr(ttr, "transformer_", None)
@@ -490,7 +490,7 @@ def required_column_kinds(pipeline) -> dict[str, str] | None:
     """The columns a fitted pipeline reads, with their ONNX input kind.
 
     Taken from the first fitted ColumnTransformer: columns of a group holding
-    :class:`~workbench.preprocessing.DateParts` are ``"datetime"``, of a group
+    :class:`~workbench.data.preprocessing.DateParts` are ``"datetime"``, of a group
     with a one-hot encoder ``"string"``, the others ``"float"``; dropped columns
     are not listed. Ordered as the table the pipeline was fitted on. None when
     the pipeline has no fitted ColumnTransformer with column names.

@@ -1,0 +1,1 @@
+"""Tables in: reading a file, profiling its columns and target, leak-free preprocessing."""

@@ -1,0 +1,1 @@
+"""The networks: activation and head registry, losses, optimizers and the NumPy engine."""
