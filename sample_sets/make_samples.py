@@ -273,9 +273,9 @@ def check_nonlinearity(folder: Path = HERE) -> list[tuple[str, str, float, float
     from sklearn.neural_network import MLPClassifier, MLPRegressor
     from sklearn.pipeline import Pipeline
 
-    from workbench.intake import load_table
-    from workbench.preprocessing import build_pipeline, build_preprocessor
-    from workbench.profiling import advise, analyse_target, profile_table, split_xy
+    from workbench.data.intake import load_table
+    from workbench.data.preprocessing import build_pipeline, build_preprocessor
+    from workbench.data.profiling import advise, analyse_target, profile_table, split_xy
 
     rows = []
     for name in TABLES:
