@@ -26,18 +26,6 @@ def add_arguments(parser):
     parser.add_argument("--json", action="store_true", help="print a JSON list")
 
 
-def sweep_summaries(store: Store) -> list[dict]:
-    out = []
-    for s in store.list_sweeps():
-        p = s["plan"]
-        out.append({"sweep_id": s["id"], "state": s["state"], "created": s["created"],
-                    "updated": s["updated"], "finished": s["finished"], "table": p["table"],
-                    "target": p["target"], "metric": p["metric"],
-                    "n_configurations": s["n_configurations"], "n_trials": s["n_trials"],
-                    "n_stored": s["n_stored"]})
-    return out
-
-
 def _minute(iso: str | None) -> str:
     """``2026-12-01T23:12:47+00:00`` -> ``2026-12-01 23:12`` (the store's times are UTC)."""
     return "-" if not iso else iso[:16].replace("T", " ")
@@ -52,7 +40,7 @@ def run(args) -> int:
             print(f"no sweeps stored in {path} (no store file there yet)")
         return 0
     with Store(args.store) as store:
-        rows = sweep_summaries(store)
+        rows = store.sweep_summaries()
         path = store.path
     if args.json:
         json.dump(rows, sys.stdout, indent=2)

@@ -15,7 +15,6 @@ from pathlib import Path
 # The core is imported here, on the GUI thread, once; worker threads then only call into
 # it. (First imports of these modules from several pool threads at once made CPython 3.11
 # abort at exit with a refcount error.)
-import workbench.commands.history  # noqa: F401
 import workbench.data.intake  # noqa: F401
 import workbench.data.profiling  # noqa: F401
 import workbench.sweep.plan  # noqa: F401
@@ -349,10 +348,8 @@ def resume(sweep_id: str, session: StoreSession, jobs: int, on_event, cancel) ->
 
 def history(store_path: str | None) -> list[dict]:
     """The stored sweeps, newest first (the ``workbench history --json`` objects)."""
-    from workbench.commands.history import sweep_summaries
-
     with StoreSession(store_path) as store:
-        return sweep_summaries(store)
+        return store.sweep_summaries()
 
 
 def _band(curves: list[list[float]]) -> dict | None:

@@ -395,6 +395,22 @@ class Store:
         rows = self._rows("SELECT * FROM sweeps ORDER BY created DESC, id DESC")
         return [self._sweep_dict(r) for r in rows]
 
+    def sweep_summaries(self) -> list[dict]:
+        """One flat dict per stored sweep, newest first: what ``history`` lists.
+
+        Keys: ``sweep_id, state, created, updated, finished, table, target, metric,
+        n_configurations, n_trials, n_stored``.
+        """
+        out = []
+        for s in self.list_sweeps():
+            p = s["plan"]
+            out.append({"sweep_id": s["id"], "state": s["state"], "created": s["created"],
+                        "updated": s["updated"], "finished": s["finished"],
+                        "table": p["table"], "target": p["target"], "metric": p["metric"],
+                        "n_configurations": s["n_configurations"],
+                        "n_trials": s["n_trials"], "n_stored": s["n_stored"]})
+        return out
+
     def get_sweep(self, sweep_id: str) -> dict:
         """One sweep's row (plan, fingerprint, versions as dicts).
 
