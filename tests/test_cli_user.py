@@ -222,3 +222,16 @@ def test_os_errors_reach_the_user_as_one_line(monkeypatch, capsys):
     err = capsys.readouterr().err
     assert code == 2
     assert err.count("\n") == 1 and "No space left on device" in err and "Traceback" not in err
+
+
+def test_every_setting_a_core_message_can_name_has_a_flag():
+    """The core names settings (workbench.errors.SETTINGS); the CLI must phrase every one."""
+    from workbench import cli
+    from workbench.errors import SETTINGS, InputError
+
+    assert set(cli.SETTING_FLAGS) == set(SETTINGS)
+    exc = InputError("the number of folds must be at least 2, got 1", setting="folds")
+    assert cli.phrase_error(exc).endswith("(set with --folds)")
+    assert "--" not in str(exc)  # the core's own words stay free of flags
+    with pytest.raises(ValueError):
+        InputError("x", setting="no_such_setting")

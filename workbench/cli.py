@@ -14,6 +14,41 @@ import sys
 from workbench import __version__
 from workbench.errors import EXIT_BAD_INPUT, EXIT_CANCELLED, InputError
 
+#: How the command line sets each setting a core message may name (workbench.errors.SETTINGS).
+SETTING_FLAGS = {
+    "table": "the FILE argument",
+    "sheet": "--sheet",
+    "target": "--target",
+    "kind": "--kind",
+    "roles": "--role",
+    "hidden": "--hidden",
+    "heads": "--output",
+    "layers": "--layers",
+    "learning_rate": "--learning-rate",
+    "alpha": "--alpha",
+    "folds": "--folds",
+    "repeats": "--repeats",
+    "epochs": "--epochs",
+    "metric": "--metric",
+    "engine": "--engine",
+    "seed": "--seed",
+    "jobs": "--jobs",
+    "cluster": "--cluster",
+    "store": "--store",
+    "sweep": "the SWEEP_ID argument",
+    "config": "--config",
+    "formats": "--formats",
+    "folder": "--to",
+    "model": "--joblib or --onnx",
+    "rope": "--rope",
+}
+
+
+def phrase_error(exc: InputError) -> str:
+    """The core's one-line message, with the flag that sets what it is about."""
+    flag = SETTING_FLAGS.get(exc.setting) if getattr(exc, "setting", None) else None
+    return f"{exc} (set with {flag})" if flag else str(exc)
+
 
 def _command_modules():
     import workbench.commands as pkg
@@ -62,7 +97,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return int(args._run(args) or 0)
     except InputError as exc:
-        print(f"workbench: {exc}", file=sys.stderr)
+        print(f"workbench: {phrase_error(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         print("workbench: cancelled", file=sys.stderr)
