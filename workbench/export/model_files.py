@@ -20,7 +20,6 @@ An exported model folder holds the same fitted pipeline twice:
 
 from __future__ import annotations
 
-import hashlib
 import inspect
 import json
 import platform
@@ -28,6 +27,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 
 from workbench import __version__
+from workbench.data.hashing import sha256_of
 from workbench.errors import InputError
 
 SKOPS_NAME = "model.skops"
@@ -51,13 +51,6 @@ _PICKLE_WARNING = ("unpickling runs code: load a joblib file only from a folder 
 # --------------------------------------------------------------------------- checksums
 
 
-def sha256_of(path: str | Path, chunk: int = 1 << 20) -> str:
-    """SHA-256 hex digest of a file (FIPS 180-4, via :mod:`hashlib`)."""
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        while block := fh.read(chunk):
-            h.update(block)
-    return h.hexdigest()
 
 
 def library_versions() -> dict[str, str]:

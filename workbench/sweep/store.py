@@ -34,7 +34,6 @@ and :meth:`Store.get_sweep`; ``workbench sweep --resume`` finishes it.
 from __future__ import annotations
 
 import datetime as _dt
-import hashlib
 import json
 import os
 import socket
@@ -43,6 +42,7 @@ import sys
 import threading
 from pathlib import Path
 
+from workbench.data.hashing import sha256_of
 from workbench.errors import InputError
 
 SCHEMA_VERSION = 1
@@ -132,17 +132,9 @@ def now_iso() -> str:
     return _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")
 
 
-def file_sha256(path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
-
-
 def table_fingerprint(path, df) -> dict:
     """SHA-256 of the file, the table's shape and its column names."""
-    return {"sha256": file_sha256(path), "rows": int(df.shape[0]), "cols": int(df.shape[1]),
+    return {"sha256": sha256_of(path), "rows": int(df.shape[0]), "cols": int(df.shape[1]),
             "columns": [str(c) for c in df.columns], "file": str(Path(path).name)}
 
 
