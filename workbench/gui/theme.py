@@ -117,16 +117,8 @@ THEMES = {"light": LIGHT, "dark": DARK}
 
 
 def resources_dir() -> Path:
-    """Folder holding the icons and the style sheet.
-
-    Looks beside the package first (an installed copy), then at the
-    repository's top-level ``resources/`` folder (an editable install).
-    """
-    here = Path(__file__).resolve().parent
-    for cand in (here.parent / "resources", here.parent.parent / "resources"):
-        if (cand / "style.qss").is_file():
-            return cand
-    return here.parent.parent / "resources"
+    """Folder holding the icons and the style sheet: package data inside ``workbench``."""
+    return Path(__file__).resolve().parent.parent / "resources"
 
 
 def system_prefers_dark() -> bool:
