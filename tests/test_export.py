@@ -24,6 +24,7 @@ from workbench.cli import main
 from workbench.errors import InputError
 from workbench.export import bundle as ex
 from workbench.export.model_files import MANIFEST_NAME
+from workbench.sweep.results import sweep_results
 
 
 @pytest.fixture(scope="module")
@@ -74,7 +75,7 @@ def test_configuration_validates_against_the_shipped_schema(sweep):
     assert conf["model"]["output_head"] == "identity" and conf["model"]["loss"] == "squared_error"
     shapes = conf["model"]["layer_shapes"]
     assert shapes[-1][1] == 1 and all(a[1] == b[0] for a, b in zip(shapes, shapes[1:]))
-    res = store.results(sweep_id)
+    res = sweep_results(store, sweep_id)
     best = res["configurations"][0]
     assert conf["scores"]["mean"] == pytest.approx(best["mean"], abs=1e-12)
     assert np.mean([s["test_score"] for s in conf["scores"]["fold_scores"]]) == \
@@ -108,7 +109,7 @@ def test_reproduce_script_prints_the_stored_fold_scores(sweep):
     assert proc.returncode == 0, proc.stdout + proc.stderr
     printed = {(int(m[1]), int(m[2])): float(m[3]) for m in re.finditer(
         r"^repeat (\d+) fold (\d+): (\S+)", proc.stdout, re.M)}
-    best = store.results(sweep_id)["configurations"][0]
+    best = sweep_results(store, sweep_id)["configurations"][0]
     stored = {(t["repeat"], t["fold"]): t["test_score"] for t in best["trials"]}
     assert set(printed) == set(stored) and len(stored) == 6
     for key, value in stored.items():

@@ -29,6 +29,7 @@ from workbench.sweep.plan import (
     default_metric,
     sklearn_can_express,
 )
+from workbench.sweep.results import sweep_results
 from workbench.sweep.runner import run_sweep
 from workbench.sweep.store import Store
 
@@ -149,7 +150,7 @@ def test_complete_small_sweep_on_each_sample_set(tmp_path, name, target, kind, m
     events = []
     with Store(tmp_path / "s.sqlite") as st:
         out = run_sweep(plan, store=st, backend="inline", on_event=events.append)
-        res = st.results(out.sweep_id)
+        res = sweep_results(st, out.sweep_id)
     assert out.state == "finished" and out.n_finished == 4
     assert [c["status"] for c in res["configurations"]] == ["done", "done"]
     assert sum(len(c["trials"]) for c in res["configurations"]) == 4
@@ -177,7 +178,7 @@ def test_breast_cancer_reaches_095_accuracy(bundled, tmp_path):
     assert plan.n_configurations == 2 and plan.n_trials == 6
     with Store(tmp_path / "s.sqlite") as st:
         out = run_sweep(plan, store=st, backend="inline")
-        res = st.results(out.sweep_id)
+        res = sweep_results(st, out.sweep_id)
     assert len(res["configurations"]) == 2
     assert res["configurations"][0]["mean"] >= 0.95
     # the stored test score is scikit-learn's accuracy scorer on the fold
@@ -199,7 +200,7 @@ def test_diabetes_sweep(bundled, tmp_path):
     assert plan.n_configurations == 4 and plan.n_trials == 12
     with Store(tmp_path / "s.sqlite") as st:
         out = run_sweep(plan, store=st, backend="inline")
-        res = st.results(out.sweep_id)
+        res = sweep_results(st, out.sweep_id)
     assert all(c["status"] == "done" for c in res["configurations"])
     assert res["configurations"][0]["mean"] > 0.3  # r2 of a linear model is about 0.5 here
     assert res["n_comparisons"] == 3
@@ -256,7 +257,7 @@ def test_a_diverging_configuration_ends_diverged_and_the_rest_completes(tmp_path
                       learning_rates=["10", "0.01"])
     with Store(tmp_path / "s.sqlite") as st:
         out = run_sweep(plan, store=st, backend="inline")
-        res = st.results(out.sweep_id)
+        res = sweep_results(st, out.sweep_id)
     assert out.state == "finished"
     by = {(c["hidden"], c["learning_rate"]): c for c in res["configurations"]}
     for h in ("relu", "gelu"):
@@ -353,7 +354,7 @@ def test_cancel_keeps_finished_trials_and_resume_runs_exactly_the_rest(tmp_path)
         kept = st.finished_keys(out.sweep_id)
         assert len(kept) == 2
         assert st.get_sweep(out.sweep_id)["state"] == "interrupted"
-        assert st.results(out.sweep_id)["state"] == "interrupted"
+        assert sweep_results(st, out.sweep_id)["state"] == "interrupted"
         started = []
         again = run_sweep(store=st, resume=out.sweep_id, backend="inline",
                           on_event=lambda e: started.append(e) if e["type"] == "trial_started"
@@ -400,7 +401,7 @@ def test_numpy_engine_matches_scikit_learn_at_sweep_level(bundled, tmp_path, tab
                               layers=["8"], folds=2, repeats=1, epochs=15, engine=engine,
                               dtype="float64", learning_rates=["0.01"], metric=metric)
             out = run_sweep(plan, store=st, backend="inline")
-            res = st.results(out.sweep_id)
+            res = sweep_results(st, out.sweep_id)
             assert {c["engine"] for c in res["configurations"]} == {engine}
             scores[engine] = {(c["hidden"], t["fold"]): (t["test_score"], t["epochs"])
                               for c in res["configurations"] for t in c["trials"]}

@@ -135,6 +135,7 @@ def run(quick: bool = False, rounds: int | None = None) -> dict:
     or restarted when they alternate); later runs find it warm, as repeated
     sweeps in the window do.
     """
+    from workbench.sweep.results import sweep_results
     from workbench.sweep.store import Store
 
     rows = 1_000 if quick else ROWS
@@ -155,8 +156,8 @@ def run(quick: bool = False, rounds: int | None = None) -> dict:
             t_serial, _ = _best_of(rounds, _sweep, full, store, 1)
             t_two, id_full = _best_of(rounds, _sweep, full, store, 2)
             ceiling = min(ceiling_before, _machine_ceiling())
-            res_auto = store.results(id_auto)
-            res_full = store.results(id_full)
+            res_auto = sweep_results(store, id_auto)
+            res_full = sweep_results(store, id_full)
         finally:
             store.close()
     gs_key = (best_params["model__activation"], float(best_params["model__learning_rate_init"]))

@@ -14,6 +14,7 @@ import math
 import sys
 import textwrap
 
+from workbench.sweep.results import sweep_results
 from workbench.sweep.store import Store, existing_store_path
 
 NAME = "show"
@@ -110,7 +111,7 @@ def format_results(res: dict, width: int = 100) -> str:
 
 def run(args) -> int:
     with Store(existing_store_path(args.store)) as store:
-        res = store.results(args.sweep_id, holm=args.holm)
+        res = sweep_results(store, args.sweep_id, holm=args.holm)
     if args.json:
         json.dump(res, sys.stdout, indent=2, allow_nan=False)
         sys.stdout.write("\n")

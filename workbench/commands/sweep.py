@@ -181,6 +181,7 @@ def _write_json(res: dict, out: str) -> None:
 def run(args) -> int:
     from workbench.commands.show import format_results
     from workbench.sweep.plan import build_plan
+    from workbench.sweep.results import sweep_results
     from workbench.sweep.runner import run_sweep
     from workbench.sweep.store import Store
 
@@ -221,7 +222,7 @@ def run(args) -> int:
             else:
                 print("\nworkbench: cancelled", file=sys.stderr)
             return EXIT_CANCELLED
-        res = store.results(outcome.sweep_id, holm=args.holm)
+        res = sweep_results(store, outcome.sweep_id, holm=args.holm)
     finally:
         store.close()
     if args.json:

@@ -607,6 +607,7 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
         folder that cannot be written, or an unknown format.
     """
     from workbench.sweep.plan import SweepPlan
+    from workbench.sweep.results import sweep_results
     from workbench.sweep.runner import load_data
 
     if folder is None:
@@ -616,7 +617,7 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
     folder = Path(folder).expanduser().absolute()
 
     progress("reading the sweep", 0.0)
-    results = store.results(sweep_id)
+    results = sweep_results(store, sweep_id)
     chosen = choose_configuration(results, rank_or_best)
     _prepare_folder(folder)
     plan = SweepPlan.from_dict(results["plan"])

@@ -18,7 +18,7 @@ from pathlib import Path
 import workbench.data.intake  # noqa: F401
 import workbench.data.profiling  # noqa: F401
 import workbench.sweep.plan  # noqa: F401
-import workbench.sweep.ranking  # noqa: F401
+import workbench.sweep.results  # noqa: F401
 import workbench.sweep.runner  # noqa: F401
 import workbench.sweep.store  # noqa: F401
 from workbench.errors import InputError
@@ -407,10 +407,10 @@ def ranked_rows(store, sweep_id: str) -> dict:
     """
     from workbench.gui.plots import health_hints
 
-    if not hasattr(store, "results"):  # a path: open the store for this call only
+    if not hasattr(store, "trials"):  # a path: open the store for this call only
         with StoreSession(store) as opened:
             return ranked_rows(opened, sweep_id)
-    res = store.results(sweep_id)
+    res = workbench.sweep.results.sweep_results(store, sweep_id)
     per_cfg = int(res["plan"]["folds"]) * int(res["plan"]["repeats"])
     full = {}
     for t in store.trials(sweep_id, with_history=True):

@@ -452,12 +452,3 @@ class Store:
         """``(config_index, repeat, fold)`` of every stored trial."""
         return {(r[0], r[1], r[2]) for r in self._rows(
             "SELECT config_index, repeat, fold FROM trials WHERE sweep_id=?", (sweep_id,))}
-
-    def results(self, sweep_id: str, *, alpha: float = 0.05, holm: bool = False) -> dict:
-        """The sweep's ranked results, in the form of ``workbench sweep --json``.
-
-        See :func:`workbench.sweep.ranking.sweep_results`.
-        """
-        from workbench.sweep.ranking import sweep_results
-
-        return sweep_results(self, sweep_id, alpha=alpha, holm=holm)

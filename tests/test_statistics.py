@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from workbench.sweep.ranking import corrected_ttest, holm, rank
+from workbench.sweep.statistics import corrected_ttest, holm, rank
 
 # ten paired fold scores (K=5 folds x R=2 repeats) of two configurations
 A = np.array([0.91, 0.93, 0.90, 0.94, 0.92, 0.95, 0.90, 0.93, 0.91, 0.94])
