@@ -21,7 +21,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 import workbench.data.intake as intake
-from workbench.cli import main
+from workbench.cli import main, phrase_error
 from workbench.data.intake import LoadReport, load_table
 from workbench.errors import EXIT_BAD_INPUT, InputError
 
@@ -102,8 +102,23 @@ def test_xlsx_first_and_named_sheet(tmp_path):
     got2, rep2 = load_table(path, sheet="second")
     assert rep2.sheet == "second" and got2.shape == b.shape
     np.testing.assert_allclose(got2["y"].to_numpy(float), b["y"].to_numpy())
-    with pytest.raises(InputError, match="no sheet named 'third'.*first, second"):
+    with pytest.raises(InputError, match="no sheet named 'third'.*first, second") as info:
         load_table(path, sheet="third")
+    assert info.value.setting == "sheet"
+
+
+def test_sheet_messages_speak_of_the_worksheet_not_a_flag(tmp_path):
+    path = tmp_path / "book.xlsx"
+    with pd.ExcelWriter(path) as w:
+        _frame(12).to_excel(w, sheet_name="data", index=False)
+        pd.DataFrame().to_excel(w, sheet_name="blank", index=False)
+    with pytest.raises(InputError, match="sheet 'blank' is empty; choose the worksheet") as info:
+        load_table(path, sheet="blank")
+    assert info.value.setting == "sheet" and "--" not in str(info.value)
+    csv_path = tmp_path / "t.csv"
+    _frame(12).to_csv(csv_path, index=False)
+    _, rep = load_table(csv_path, sheet="data")  # a text table has no sheets: a warning
+    assert rep.warnings == ["the worksheet 'data' is not used: only .xlsx workbooks have sheets"]
 
 
 def test_parquet_round_trip(tmp_path):
@@ -233,10 +248,13 @@ def test_bad_input_corpus(tmp_path, capsys, case, make, fragment):
     msg = str(info.value)
     assert fragment in msg
     assert "\n" not in msg and ";" in msg  # one line: what is wrong; what to do
+    assert info.value.setting == "table" and "--" not in msg  # a setting, in words
     code = main(["inspect", str(path)])
     out, err = capsys.readouterr()
     assert code == EXIT_BAD_INPUT
-    assert err.strip() == f"workbench: {msg}"
+    # the command line says the core's line, then the argument that sets the table
+    assert err.strip() == f"workbench: {phrase_error(info.value)}"
+    assert err.strip().endswith("(set with the FILE argument)")
     assert "Traceback" not in err and out == ""
 
 
@@ -392,7 +410,7 @@ def test_inspect_xlsx_sheet_and_bad_target(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "no column named 'nope'; the columns are: x, k, colour, y" in err
     assert main(["inspect", str(path), "--sheet", "third"]) == EXIT_BAD_INPUT
-    assert "its sheets are: first, second" in capsys.readouterr().err
+    assert "its sheets are: first, second (set with --sheet)" in capsys.readouterr().err
 
 
 def test_inspect_text_report_and_a_table_without_target(tmp_path, capsys):

@@ -330,8 +330,59 @@ def test_user_role_changes():
         prof.with_roles({"note": "feature"})
     with pytest.raises(InputError, match="no column named"):
         prof.with_roles({"zz": "ignore"})
-    with pytest.raises(InputError, match="not valid"):
+    with pytest.raises(InputError, match="not valid") as info:
         prof.with_roles({"x": "target"})
+    assert info.value.setting == "roles"
+    with pytest.raises(InputError, match="'y' is the target") as info:
+        prof.with_roles({"y": "ignore"})
+    assert info.value.setting == "roles"
+    # ignoring a column the profile already ignores keeps the profile's reason
+    assert prof.with_roles({"serial": "ignore"}).column("serial").reason == \
+        prof.column("serial").reason
+
+
+def test_an_id_column_made_a_feature_gets_its_base_type_and_reaches_the_pipeline():
+    """The user turns an identifier into a feature: the fitted preprocessing must use it.
+
+    Reference: scikit-learn's ``StandardScaler`` on the column itself (the numeric group
+    is median-imputed, then standardised; there is nothing to impute here).
+    """
+    from sklearn.neural_network import MLPRegressor
+    from sklearn.preprocessing import StandardScaler
+
+    from workbench.data.preprocessing import build_pipeline, feature_groups
+
+    rng = np.random.default_rng(3)
+    n = 60
+    df = pd.DataFrame({"serial": np.arange(100, 100 + n), "x": rng.normal(size=n),
+                       "plot_code": [f"P{i:03d}" for i in range(n)],
+                       "y": rng.normal(size=n)})
+    prof = profile_table(df, target="y")
+    assert prof.column("serial").type == "id" and prof.column("serial").base_type == "integer"
+    assert prof.column("plot_code").type == "id"
+    assert "serial" not in feature_groups(prof, "y")["numeric"]
+    user = prof.with_roles({"serial": "feature", "plot_code": "feature"})
+    assert user.column("serial").type == "integer" and user.column("serial").role == "feature"
+    assert user.column("plot_code").type == "categorical"
+    assert feature_groups(user, "y")["numeric"] == ["serial", "x"]
+    assert feature_groups(user, "y")["categorical"] == ["plot_code"]
+
+    target = analyse_target(df, "y")
+    X, y = split_xy(df, target)
+    pipe = build_pipeline(user, target, MLPRegressor(hidden_layer_sizes=(3,), max_iter=5,
+                                                     random_state=0), "identity")
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        pipe.fit(X, y)
+    prep = pipe.named_steps["prep"]
+    names = list(prep.get_feature_names_out())
+    assert "numeric__serial" in names
+    assert sum(n.startswith("categorical__plot_code_") for n in names) == n
+    got = prep.transform(X)[:, names.index("numeric__serial")]
+    want = StandardScaler().fit_transform(df[["serial"]].to_numpy(float))[:, 0]
+    np.testing.assert_allclose(got, want, rtol=1e-12)
 
 
 def test_suggested_target_prefers_strong_names_then_the_last_column():

@@ -106,10 +106,6 @@ class LoadReport:
     def to_dict(self) -> dict:
         return asdict(self)
 
-    @property
-    def delimiter_name(self) -> str | None:
-        return _DELIM_NAMES.get(self.delimiter, self.delimiter) if self.delimiter else None
-
 
 # --------------------------------------------------------------------------- entry point
 
@@ -144,11 +140,12 @@ def load_table(path, sheet: str | None = None, max_cells: int = DEFAULT_MAX_CELL
     ext = p.suffix.lower()
     size = p.stat().st_size
     if size == 0:
-        raise InputError(f"{p.name} is empty (0 bytes); choose a file that contains a table")
+        raise InputError(f"{p.name} is empty (0 bytes); choose a file that contains a table",
+                         setting="table")
     if size > max_bytes:
         raise InputError(
             f"{p.name} is {size / 1e6:.1f} MB, over the size limit of {max_bytes / 1e6:.1f} MB; "
-            "use a smaller extract of the table or raise the limit")
+            "use a smaller extract of the table or raise the limit", setting="table")
     if ext in TEXT_EXTENSIONS:
         df, report = _read_text(p, ext, max_cells)
     elif ext in EXCEL_EXTENSIONS:
@@ -157,13 +154,15 @@ def load_table(path, sheet: str | None = None, max_cells: int = DEFAULT_MAX_CELL
         df, report = _read_parquet(p)
     report.file_bytes = size
     if sheet is not None and report.format != "xlsx":
-        report.warnings.append(f"--sheet {sheet!r} ignored: only .xlsx workbooks have sheets")
+        report.warnings.append(f"the worksheet {sheet!r} is not used: only .xlsx workbooks "
+                               "have sheets")
     df = _tidy(df, report, p.name)
     cells = int(df.shape[0]) * int(df.shape[1])
     if cells > max_cells:
         raise InputError(
             f"{p.name} has {df.shape[0]:,} rows x {df.shape[1]:,} columns = {cells:,} cells, "
-            f"over the size limit of {max_cells:,} cells; use a sample of the rows or raise the limit")
+            f"over the size limit of {max_cells:,} cells; use a sample of the rows or raise the limit",
+            setting="table")
     report.rows, report.columns = int(df.shape[0]), int(df.shape[1])
     report.seconds = time.perf_counter() - t0
     return df, report
@@ -173,12 +172,14 @@ def _check_path(path) -> Path:
     try:
         p = Path(os.fspath(path)).expanduser()
     except TypeError as exc:
-        raise InputError(f"not a file path: {path!r}; give the path of a table file") from exc
+        raise InputError(f"not a file path: {path!r}; give the path of a table file",
+                         setting="table") from exc
     name = str(p)
     if not p.exists():
-        raise InputError(f"no such file: {name}; check the path and the spelling")
+        raise InputError(f"no such file: {name}; check the path and the spelling", setting="table")
     if p.is_dir():
-        raise InputError(f"{name} is a folder, not a file; choose a table file inside it")
+        raise InputError(f"{name} is a folder, not a file; choose a table file inside it",
+                         setting="table")
     ext = p.suffix.lower()
     if ext not in SUPPORTED:
         hint = ""
@@ -186,15 +187,17 @@ def _check_path(path) -> Path:
             hint = " (save the sheet as .xlsx or .csv)"
         shown = ext or "(no extension)"
         raise InputError(
-            f"{p.name}: unsupported file type {shown}{hint}; use .csv, .tsv, .txt, .xlsx or .parquet")
+            f"{p.name}: unsupported file type {shown}{hint}; use .csv, .tsv, .txt, .xlsx or .parquet",
+            setting="table")
     try:
         with open(p, "rb") as fh:
             fh.read(1)
     except PermissionError as exc:
         raise InputError(f"no permission to read {name}; change its permissions or copy it "
-                         "somewhere you can read") from exc
+                         "somewhere you can read", setting="table") from exc
     except OSError as exc:
-        raise InputError(f"cannot read {name} ({exc.strerror or exc}); check the file") from exc
+        raise InputError(f"cannot read {name} ({exc.strerror or exc}); check the file",
+                         setting="table") from exc
     return p
 
 
@@ -226,10 +229,10 @@ def _detect_encoding(p: Path, head: bytes) -> str:
     for magic, what in _MAGIC:
         if head.startswith(magic):
             raise InputError(f"{p.name} is {what}, not a text table; save it as CSV or give it "
-                             "its proper extension")
+                             "its proper extension", setting="table")
     if b"\x00" in head:
         raise InputError(f"{p.name} contains binary data (NUL bytes), not a text table; "
-                         "export the table as CSV (UTF-8)")
+                         "export the table as CSV (UTF-8)", setting="table")
     try:
         # a cut in the middle of a multi-byte character at the end is fine
         codecs.getincrementaldecoder("utf-8")().decode(head, final=False)
@@ -240,7 +243,8 @@ def _detect_encoding(p: Path, head: bytes) -> str:
     controls = sum(1 for ch in text if ord(ch) < 32 and ch not in "\t\r\n\f\v")
     if text and controls / len(text) > 0.05:
         raise InputError(f"{p.name} looks like a binary file ({controls} control characters in "
-                         "its first part), not a text table; export the table as CSV (UTF-8)")
+                         "its first part), not a text table; export the table as CSV (UTF-8)",
+                         setting="table")
     return enc
 
 
@@ -308,7 +312,7 @@ def _check_duplicates(names, fname: str):
     if dups:
         shown = ", ".join(repr(d) for d in dups[:5])
         raise InputError(f"{fname} has duplicate column names: {shown}; give every column a "
-                         "unique name in the header")
+                         "unique name in the header", setting="table")
 
 
 def _first_ragged_line(source, encoding: str, delim: str,
@@ -397,7 +401,7 @@ def _read_text(p: Path, ext: str, max_cells: int = DEFAULT_MAX_CELLS
             source = p.read_bytes().decode("utf-16").encode("utf-8")
         except UnicodeDecodeError as exc:
             raise InputError(f"{p.name} starts with a UTF-16 mark but is not valid UTF-16; "
-                             "save it again as UTF-8 CSV") from exc
+                             "save it again as UTF-8 CSV", setting="table") from exc
         text = source[:_SNIFF_BYTES].decode("utf-8", errors="ignore")
         truncated = len(source) > _SNIFF_BYTES
         read_enc = "utf-8"
@@ -409,14 +413,16 @@ def _read_text(p: Path, ext: str, max_cells: int = DEFAULT_MAX_CELLS
         read_enc = enc
     lines = _sample_lines(text, truncated)
     if not lines:
-        raise InputError(f"{p.name} contains only blank lines; choose a file that contains a table")
+        raise InputError(f"{p.name} contains only blank lines; choose a file that contains a table",
+                         setting="table")
     skip = 0
     hint = _SEP_HINT.match(lines[0].strip())
     if hint and text.lstrip().startswith(lines[0].strip()):
         # a spreadsheet's "sep=;" first line names the delimiter
         delim, skip, lines = hint.group(1), 1, lines[1:]
         if not lines:
-            raise InputError(f"{p.name} has only a 'sep=' line; add a header and rows")
+            raise InputError(f"{p.name} has only a 'sep=' line; add a header and rows",
+                             setting="table")
     else:
         delim = _sniff_delimiter(lines, ext)
     decimal = _sniff_decimal(lines, delim)
@@ -425,7 +431,8 @@ def _read_text(p: Path, ext: str, max_cells: int = DEFAULT_MAX_CELLS
     report = LoadReport(path=str(p), format="csv", encoding=enc, delimiter=delim,
                         decimal=decimal)
     if len(lines) == 1:
-        raise InputError(f"{p.name} has a header but no data rows; add rows below the header")
+        raise InputError(f"{p.name} has a header but no data rows; add rows below the header",
+                         setting="table")
     if truncated:
         # refuse a table far over the cell limit before reading it: estimate its rows
         # from the mean length of the sampled lines
@@ -435,7 +442,8 @@ def _read_text(p: Path, ext: str, max_cells: int = DEFAULT_MAX_CELLS
         if estimate > 2 * max_cells:
             raise InputError(
                 f"{p.name} holds about {estimate:,} cells ({total / 1e6:.0f} MB), over the size "
-                f"limit of {max_cells:,} cells; use a sample of the rows or raise the limit")
+                f"limit of {max_cells:,} cells; use a sample of the rows or raise the limit",
+                setting="table")
 
     def src():
         return io.BytesIO(source) if isinstance(source, bytes) else str(p)
@@ -461,7 +469,7 @@ def _read_text(p: Path, ext: str, max_cells: int = DEFAULT_MAX_CELLS
             raise InputError(
                 f"{p.name}: line {line} has {got} fields but the header has {want} "
                 f"({_DELIM_NAMES[delim]}-separated); fix that row (and any after it) so every "
-                "row has the same number of fields")
+                "row has the same number of fields", setting="table")
         for attempt_enc in dict.fromkeys((read_enc, "latin-1")):
             try:
                 df = pd.read_csv(src(), engine="c", encoding=attempt_enc, low_memory=False,
@@ -473,18 +481,19 @@ def _read_text(p: Path, ext: str, max_cells: int = DEFAULT_MAX_CELLS
                 continue
             except pd.errors.EmptyDataError as exc:
                 raise InputError(f"{p.name} has no columns to read; choose a file that contains "
-                                 "a table") from exc
+                                 "a table", setting="table") from exc
             except (pd.errors.ParserError, ValueError, csv.Error, OverflowError,
                     MemoryError) as exc:
                 msg = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
                 raise InputError(f"{p.name} could not be parsed as a "
                                  f"{_DELIM_NAMES[delim]}-separated table ({msg}); check that it "
-                                 "is a plain text table") from exc
+                                 "is a plain text table", setting="table") from exc
         if df is None:
             raise InputError(f"{p.name} could not be decoded as UTF-8 or Latin-1 text; save it "
-                             "again as UTF-8 CSV")
+                             "again as UTF-8 CSV", setting="table")
     if df.shape[0] == 0:
-        raise InputError(f"{p.name} has a header but no data rows; add rows below the header")
+        raise InputError(f"{p.name} has a header but no data rows; add rows below the header",
+                         setting="table")
     return df, report
 
 
@@ -500,24 +509,25 @@ def _read_excel(p: Path, sheet: str | None, max_cells: int = DEFAULT_MAX_CELLS
                          "`pip install openpyxl`") from exc
     if not zipfile.is_zipfile(p):
         raise InputError(f"{p.name} is not a valid .xlsx workbook (not a zip archive); open it "
-                         "in a spreadsheet program and save it again as .xlsx")
+                         "in a spreadsheet program and save it again as .xlsx", setting="table")
     try:
         wb = openpyxl.load_workbook(p, read_only=True, data_only=True)
     except Exception as exc:  # noqa: BLE001 - openpyxl raises many kinds on broken files
         raise InputError(f"{p.name} is a corrupt or unreadable .xlsx workbook "
                          f"({type(exc).__name__}); open it in a spreadsheet program and save it "
-                         "again") from exc
+                         "again", setting="table") from exc
     try:
         names = wb.sheetnames
         if not names:
-            raise InputError(f"{p.name} has no sheets; choose a workbook that contains a table")
+            raise InputError(f"{p.name} has no sheets; choose a workbook that contains a table",
+                             setting="table")
         if sheet is None:
             chosen = names[0]
         elif sheet in names:
             chosen = sheet
         else:
             raise InputError(f"{p.name} has no sheet named {sheet!r}; its sheets are: "
-                             f"{', '.join(names)}")
+                             f"{', '.join(names)}", setting="sheet")
         ws = wb[chosen]
         try:
             declared = int(ws.max_row or 0) * int(ws.max_column or 0)
@@ -526,18 +536,19 @@ def _read_excel(p: Path, sheet: str | None, max_cells: int = DEFAULT_MAX_CELLS
         if declared > 2 * max_cells:
             raise InputError(f"{p.name}: sheet {chosen!r} spans about {declared:,} cells, over "
                              f"the size limit of {max_cells:,} cells; use a sample of the rows "
-                             "or raise the limit")
+                             "or raise the limit", setting="table")
         try:
             rows = list(ws.iter_rows(values_only=True))
         except Exception as exc:  # noqa: BLE001
             raise InputError(f"{p.name}: sheet {chosen!r} could not be read "
-                             f"({type(exc).__name__}); save the workbook again") from exc
+                             f"({type(exc).__name__}); save the workbook again",
+                             setting="table") from exc
     finally:
         wb.close()
     rows = [r for r in rows if r is not None and any(v is not None and v != "" for v in r)]
     if not rows:
-        raise InputError(f"{p.name}: sheet {chosen!r} is empty; choose the sheet with the table "
-                         "(--sheet NAME)")
+        raise InputError(f"{p.name}: sheet {chosen!r} is empty; choose the worksheet that holds "
+                         "the table", setting="sheet")
     header = list(rows[0])
     while header and header[-1] is None:
         header.pop()
@@ -546,7 +557,7 @@ def _read_excel(p: Path, sheet: str | None, max_cells: int = DEFAULT_MAX_CELLS
     _check_duplicates([h for h in header if h is not None], p.name)
     if len(rows) == 1:
         raise InputError(f"{p.name}: sheet {chosen!r} has a header but no data rows; add rows "
-                         "below the header")
+                         "below the header", setting="table")
     body = [list(r) + [None] * (width - len(r)) for r in rows[1:]]
     cols = [("" if h is None else str(h)) for h in header]
     df = pd.DataFrame(body, columns=range(width))
@@ -572,18 +583,21 @@ def _read_parquet(p: Path) -> tuple[pd.DataFrame, LoadReport]:
         table = pq.read_table(p)
     except Exception as exc:  # noqa: BLE001 - arrow raises ArrowInvalid, OSError, ...
         raise InputError(f"{p.name} is a corrupt or unreadable Parquet file "
-                         f"({type(exc).__name__}); write it again or export the table as CSV") from exc
+                         f"({type(exc).__name__}); write it again or export the table as CSV",
+                         setting="table") from exc
     _check_duplicates(table.column_names, p.name)
     if table.num_columns == 0:
-        raise InputError(f"{p.name} has no columns; choose a file that contains a table")
+        raise InputError(f"{p.name} has no columns; choose a file that contains a table",
+                         setting="table")
     if table.num_rows == 0:
-        raise InputError(f"{p.name} has column names but no data rows; choose a file with rows")
+        raise InputError(f"{p.name} has column names but no data rows; choose a file with rows",
+                         setting="table")
     try:
         df = table.to_pandas()
     except Exception as exc:  # noqa: BLE001
         raise InputError(f"{p.name}: its column types cannot be converted to a table "
                          f"({type(exc).__name__}); export it with plain numeric and text "
-                         "columns") from exc
+                         "columns", setting="table") from exc
     df = df.reset_index(drop=True)
     return df, LoadReport(path=str(p), format="parquet", engine="pyarrow")
 
@@ -612,7 +626,8 @@ def _tidy(df: pd.DataFrame, report: LoadReport, fname: str) -> pd.DataFrame:
     df = df.copy(deep=False)
     df.columns = names
     if df.shape[1] == 0:
-        raise InputError(f"{fname} has no columns with values; choose a file that contains a table")
+        raise InputError(f"{fname} has no columns with values; choose a file that contains a table",
+                         setting="table")
     empty = np.ones(df.shape[0], dtype=bool)
     for i in range(df.shape[1]):
         empty &= df.iloc[:, i].isna().to_numpy()
@@ -622,10 +637,11 @@ def _tidy(df: pd.DataFrame, report: LoadReport, fname: str) -> pd.DataFrame:
         report.rows_dropped += n_empty
         report.drop_reasons.append(f"{n_empty} empty row(s) (every cell missing)")
     if df.shape[0] == 0:
-        raise InputError(f"{fname} has a header but no data rows; add rows below the header")
+        raise InputError(f"{fname} has a header but no data rows; add rows below the header",
+                         setting="table")
     if df.shape[0] < MIN_ROWS:
         raise InputError(f"{fname} has a single data row; a table needs at least {MIN_ROWS} rows "
-                         "(cross-validation needs many more), so add rows")
+                         "(cross-validation needs many more), so add rows", setting="table")
     for i in range(df.shape[1]):
         col = df.iloc[:, i]
         new = _normalise_column(col, report)

@@ -280,7 +280,8 @@ def build_preprocessor(profile: TableProfile, target: TargetInfo | str | None) -
         ]), g["datetime"]))
     if not steps:
         raise InputError("no column can be used as a feature (all are ignored or the target); "
-                         "add feature columns to the table")
+                         "make a column a feature or add feature columns to the table",
+                         setting="roles")
     return ColumnTransformer(steps, remainder="drop", sparse_threshold=0.0,
                              verbose_feature_names_out=True)
 
@@ -297,7 +298,7 @@ def _configure_estimator(estimator, target: TargetInfo, head: str):
         natural = "logistic" if len(target.classes or []) <= 2 else "softmax"
         if head != natural:
             raise InputError(f"{kind} always uses the {natural} head for this target; use the "
-                             f"workbench engine to try the {head} head")
+                             f"workbench engine to try the {head} head", setting="engine")
         return est
     if head == "identity":
         if "loss" in params:
@@ -307,7 +308,7 @@ def _configure_estimator(estimator, target: TargetInfo, head: str):
         est.set_params(loss="poisson")
         return est
     raise InputError(f"{kind} has no {head} output head; use the workbench engine (NetRegressor) "
-                     "to try it")
+                     "to try it", setting="engine")
 
 
 def build_pipeline(profile: TableProfile, target: TargetInfo, estimator, head: str) -> Pipeline:
@@ -336,7 +337,7 @@ def build_pipeline(profile: TableProfile, target: TargetInfo, estimator, head: s
     """
     chk = check_head(target, head)
     if not chk.allowed:
-        raise InputError(chk.reason)
+        raise InputError(chk.reason, setting="heads")
     head = chk.head
     prep = build_preprocessor(profile, target)
     est = _configure_estimator(estimator, target, head)

@@ -23,8 +23,10 @@ its cardinality), ``datetime``, ``text`` (free text), ``id`` (unique per row),
 ``role`` is ``feature``, ``ignore`` (``reason`` says why) or ``target`` (the
 column given as ``target``; when none is given, the suggested target).
 ``TableProfile.with_roles({column: "feature" | "ignore"})`` returns a copy with
-roles the user changed; ``TableProfile.feature_columns(target)`` lists the columns
-the preprocessing uses.
+roles the user changed; it is the only way the project applies the user's roles
+(the window, the sweep's runner and an export's refit all call it), so an
+identifier made a feature gets its ``base_type`` back everywhere.
+``TableProfile.feature_columns(target)`` lists the columns the preprocessing uses.
 
 Target
 ------
@@ -67,7 +69,7 @@ import numpy as np
 import pandas as pd
 
 from workbench.errors import InputError
-from workbench.nets.activations import HEAD_ALIASES, HEADS, resolve_head
+from workbench.nets.activations import HEADS, resolve_head
 
 KINDS = ("binary", "multiclass", "signed", "non_negative", "count", "bounded")
 TASK_OF_KIND = {"binary": "classification", "multiclass": "classification",
@@ -165,37 +167,53 @@ class TableProfile:
     def with_roles(self, roles: dict[str, str]) -> TableProfile:
         """A copy with some columns' roles changed by the user.
 
+        This is the one rule for applying the user's column roles: the window's
+        profile table, the sweep's runner and an export's refit all go through it,
+        so a column means the same thing to each of them.
+
         Parameters
         ----------
         roles : dict
             ``{column: "feature" | "ignore"}``. A column typed ``id``, ``constant`` or
-            ``missing`` made a feature is used as its ``base_type``.
+            ``missing`` made a feature is used as its ``base_type`` (an identifier made of
+            whole numbers becomes an ``integer`` feature, and so on); making a feature of a
+            column that already is one, or ignoring an ignored one, changes nothing.
+
+        Returns
+        -------
+        TableProfile
+            A new profile; this one is left unchanged.
 
         Raises
         ------
         InputError
-            For an unknown column or role, or free text / an empty column made a feature.
+            (``setting="roles"``) for an unknown column or role, a role for the target
+            column, or free text / an empty column made a feature.
         """
         cols = [ColumnProfile(**asdict(c)) for c in self.columns]
         by_name = {c.name: c for c in cols}
         for name, role in roles.items():
             if name not in by_name:
                 raise InputError(f"no column named {name!r}; the columns are: "
-                                 f"{', '.join(by_name)}")
+                                 f"{', '.join(by_name)}", setting="roles")
             if role not in ("feature", "ignore"):
-                raise InputError(f"role {role!r} for {name!r} is not valid; use feature or ignore")
+                raise InputError(f"role {role!r} for {name!r} is not valid; use feature or ignore",
+                                 setting="roles")
+            if self.target is not None and name == self.target:
+                raise InputError(f"column {name!r} is the target, so it is neither a feature nor "
+                                 "ignored; choose another target first", setting="roles")
             c = by_name[name]
             if role == "feature" and c.role != "feature":
                 if c.distinct == 0:
                     raise InputError(f"column {name!r} has no values and cannot be a feature; "
-                                     "leave it ignored")
+                                     "leave it ignored", setting="roles")
                 if c.base_type == "text":
                     raise InputError(f"column {name!r} is free text and cannot be a feature; "
-                                     "leave it ignored")
+                                     "leave it ignored", setting="roles")
                 if c.type in ("id", "constant", "missing"):
                     c.type = c.base_type
                 c.role, c.reason = "feature", "made a feature by the user"
-            elif role == "ignore":
+            elif role == "ignore" and c.role != "ignore":
                 c.role, c.reason = "ignore", "ignored by the user"
         return TableProfile(rows=self.rows, columns=cols, suggested_target=self.suggested_target,
                             target=self.target)
@@ -334,7 +352,7 @@ def profile_table(df: pd.DataFrame, target: str | None = None) -> TableProfile:
     TableProfile
     """
     if target is not None and target not in df.columns:
-        raise InputError(_no_column_message(target, df))
+        raise InputError(_no_column_message(target, df), setting="target")
     cols = [profile_column(df[c]) for c in df.columns]
     best, best_score = None, 0.0
     candidates = [c for c in cols if c.target_candidate]
@@ -404,7 +422,7 @@ def analyse_target(df: pd.DataFrame, name: str, kind: str | None = None,
         target (dates, free text, too many classes) or does not fit a forced kind.
     """
     if name not in df.columns:
-        raise InputError(_no_column_message(name, df))
+        raise InputError(_no_column_message(name, df), setting="target")
     s = df[name]
     n = len(s)
     miss = s.isna().to_numpy()
@@ -412,9 +430,10 @@ def analyse_target(df: pd.DataFrame, name: str, kind: str | None = None,
     vals = s[~miss]
     if len(vals) == 0:
         raise InputError(f"target {name!r} has no values (every cell is missing); choose "
-                         "another target column")
+                         "another target column", setting="target")
     if kind is not None and kind not in KINDS:
-        raise InputError(f"unknown target kind {kind!r}; choose one of: {', '.join(KINDS)}")
+        raise InputError(f"unknown target kind {kind!r}; choose one of: {', '.join(KINDS)}",
+                         setting="kind")
     if interval is not None:
         kind = "bounded"
     distinct = int(vals.nunique())
@@ -424,15 +443,17 @@ def analyse_target(df: pd.DataFrame, name: str, kind: str | None = None,
                 "negative_share": None, "integer_valued": None}
     if distinct == 1:
         raise InputError(f"target {name!r} has a single value ({vals.iloc[0]!s}) in every row; "
-                         "there is nothing to predict, choose another target column")
+                         "there is nothing to predict, choose another target column",
+                         setting="target")
     if pd.api.types.is_datetime64_any_dtype(s.dtype):
         raise InputError(f"target {name!r} holds dates; predict a number or a class instead "
-                         "(e.g. a duration computed from the dates)")
+                         "(e.g. a duration computed from the dates)", setting="target")
     numeric = pd.api.types.is_numeric_dtype(s.dtype) and not pd.api.types.is_bool_dtype(s.dtype)
     if numeric:
         v = vals.to_numpy(dtype=np.float64)
         if not np.all(np.isfinite(v)):
-            raise InputError(f"target {name!r} contains infinite values; remove or replace them")
+            raise InputError(f"target {name!r} contains infinite values; remove or replace them",
+                             setting="target")
         ev.update(min=float(v.min()), max=float(v.max()), mean=float(v.mean()),
                   std=float(v.std()), zero_share=float(np.mean(v == 0)),
                   negative_share=float(np.mean(v < 0)), integer_valued=_integer_valued(v))
@@ -451,7 +472,7 @@ def analyse_target(df: pd.DataFrame, name: str, kind: str | None = None,
         if distinct > MAX_CLASSES:
             raise InputError(f"target {name!r} has {distinct} distinct values, too many classes "
                              f"(at most {MAX_CLASSES}); choose another target or treat it as a "
-                             "number")
+                             "number", setting="target")
         counts = vals.value_counts()
         classes = sorted(counts.index.tolist(), key=_sort_key)
         ev["class_counts"] = {str(k): int(counts[k]) for k in classes}
@@ -483,7 +504,8 @@ def _detect_kind(name: str, vals: pd.Series, ev: dict, numeric: bool):
         if distinct > MAX_CLASSES or distinct > 0.5 * len(vals):
             raise InputError(
                 f"target {name!r} is text with {distinct} distinct values, which looks like an "
-                "identifier or free text, not classes; choose another target column")
+                "identifier or free text, not classes; choose another target column",
+                setting="target")
         return "multiclass", f"text labels with {distinct} distinct classes", None
     lo, hi, integer = ev["min"], ev["max"], ev["integer_valued"]
     if integer and distinct <= MAX_CODE_CLASSES and lo in (0.0, 1.0) and hi - lo + 1 == distinct:
@@ -512,23 +534,25 @@ def _detect_kind(name: str, vals: pd.Series, ev: dict, numeric: bool):
 def _check_forced_kind(name, kind, ev, numeric, distinct, interval) -> str:
     if kind == "binary" and distinct != 2:
         raise InputError(f"target {name!r} has {distinct} distinct values, not 2, so it cannot "
-                         "be binary; choose multiclass or a regression kind")
+                         "be binary; choose multiclass or a regression kind", setting="kind")
     if TASK_OF_KIND[kind] == "regression" and not numeric:
         raise InputError(f"target {name!r} is not numeric, so it cannot be a {kind} regression "
-                         "target; choose binary or multiclass")
+                         "target; choose binary or multiclass", setting="kind")
     if kind in ("non_negative", "count") and ev["min"] < 0:
         raise InputError(f"target {name!r} has negative values (min {ev['min']:g}), so it "
-                         f"cannot be {kind}; choose signed")
+                         f"cannot be {kind}; choose signed", setting="kind")
     if kind == "count" and not ev["integer_valued"]:
         raise InputError(f"target {name!r} has non-integer values, so it cannot be a count; "
-                         "choose non_negative")
+                         "choose non_negative", setting="kind")
     if kind == "bounded" and interval is not None:
         lo, hi = float(interval[0]), float(interval[1])
         if not lo < hi:
-            raise InputError(f"interval ({lo:g}, {hi:g}) is empty; give low < high")
+            raise InputError(f"interval ({lo:g}, {hi:g}) is empty; give low < high",
+                             setting="kind")
         if ev["min"] < lo or ev["max"] > hi:
             raise InputError(f"target {name!r} has values outside [{lo:g}, {hi:g}] (min "
-                             f"{ev['min']:g}, max {ev['max']:g}); widen the interval")
+                             f"{ev['min']:g}, max {ev['max']:g}); widen the interval",
+                             setting="kind")
     return f"{kind} as requested"
 
 
@@ -703,11 +727,6 @@ def check_head(target: TargetInfo, head: str) -> HeadCheck:
     return HeadCheck(True, True,
                      f"the {name} head is unusual for a {target.kind} target (usual: {usual})"
                      f"{extra}", name, h.loss)
-
-
-def canonical_head(head: str) -> str:
-    key = head.strip().lower()
-    return HEAD_ALIASES.get(key, key)
 
 
 # --------------------------------------------------------------------------- helpers
