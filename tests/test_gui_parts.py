@@ -19,8 +19,8 @@ from PySide6.QtCore import QByteArray, QObject, Qt, Signal
 from workbench.gui import theme as th
 from workbench.gui.bridge import SweepThread
 from workbench.gui.models import COLUMN_KEYS, ResultsModel, ResultsProxy
-from workbench.gui.plots import MOSTLY, health_hints
 from workbench.gui.settings import APPLICATION, ORGANISATION, Settings
+from workbench.sweep.diagnosis import health_hints
 
 pytestmark = pytest.mark.gui
 
@@ -253,15 +253,6 @@ def test_display_marks_the_tie_group_in_words_not_only_colour(qapp):
 
 
 # --------------------------------------------------------------------------- hints
-
-
-def test_health_hints_name_the_layer_in_plain_words():
-    hints = health_hints("relu / identity [8,8]", "relu",
-                         {"dead": [0.9, 0.1], "saturated": [0.0, 0.0]})
-    assert len(hints) == 1 and "layer 1 is mostly dead" in hints[0] and "90%" in hints[0]
-    hints = health_hints("tanh", "tanh", {"dead": [0.0], "saturated": [MOSTLY + 0.01]})
-    assert len(hints) == 1 and "mostly saturated" in hints[0]
-    assert health_hints("x", "relu", {"dead": [MOSTLY], "saturated": []}) == []
 
 
 def test_health_panel_shows_the_hint(qtbot):

@@ -1,14 +1,14 @@
 """The three plot panels beside the results: learning curves, fold spread, layer health.
 
 Each panel takes a list of *series*, one per selected configuration, as built
-by :func:`workbench.gui.core_adapter.series_for`::
+by :func:`workbench.gui.core_adapter.ranked_rows` (each row's ``series``)::
 
     {"key": str, "label": str, "color": int,          # index into the theme's series colours
      "loss": {"x", "mean", "lo", "hi"} or None,        # training loss per epoch, over folds
      "val":  {"x", "mean", "lo", "hi"} or None,        # validation score per epoch
      "fold_scores": [float, ...], "mean": float, "sd": float,
      "health": {"dead": [..], "saturated": [..], "grad_norm": [..] or []},   # per layer, shares
-     "hints": [str, ...]}                               # plain-words hints for this configuration
+     "hints": [str, ...]}          # plain-words hints (workbench.sweep.diagnosis.health_hints)
 
 Panels draw only: no statistics are computed here.
 """
@@ -106,7 +106,6 @@ class CurvesPanel(_Panel):
         self.legend = self.loss_plot.getPlotItem().addLegend(offset=(-8, 8), labelTextSize="8pt")
         self._finish()
         self._curves: list[pg.PlotDataItem] = []
-        self._val_curves: list[pg.PlotDataItem] = []
         self.set_series([])
 
     def plots(self):
@@ -115,9 +114,6 @@ class CurvesPanel(_Panel):
     def curve_items(self) -> list[pg.PlotDataItem]:
         """The mean training-loss curves now drawn, one per configuration."""
         return list(self._curves)
-
-    def val_curve_items(self) -> list[pg.PlotDataItem]:
-        return list(self._val_curves)
 
     def _draw(self, plot: pg.PlotWidget, band: dict, color: QColor, label: str | None):
         x = np.asarray(band["x"], dtype=float)
@@ -147,7 +143,7 @@ class CurvesPanel(_Panel):
         self.loss_plot.clear()
         self.val_plot.clear()
         self.legend.clear()
-        self._curves, self._val_curves = [], []
+        self._curves = []
         any_val = False
         for s in self._series:
             color = self.theme.series_color(s["color"])
@@ -155,7 +151,7 @@ class CurvesPanel(_Panel):
                 self._curves.append(self._draw(self.loss_plot, s["loss"], color, s["label"]))
             if s.get("val"):
                 any_val = True
-                self._val_curves.append(self._draw(self.val_plot, s["val"], color, None))
+                self._draw(self.val_plot, s["val"], color, None)
         if not self._series:
             self.note.setText("Select one or more rows of the results to see their curves.")
         elif not any_val:
@@ -216,10 +212,6 @@ class SpreadPanel(_Panel):
                               "Numbers follow the legend order.")
         else:
             self.note.setText("")
-
-
-#: above this share of dead or saturated units a layer is called "mostly" so (common practice)
-MOSTLY = 0.5
 
 
 class HealthPanel(_Panel):
@@ -313,19 +305,3 @@ class HealthPanel(_Panel):
                               "units (stuck on a flat part). Last epoch, mean over folds."
                               + ("" if any_grad else " Gradient norms are recorded by the "
                                  "NumPy engine only."))
-
-
-def health_hints(label: str, hidden: str, health: dict) -> list[str]:
-    """Plain-words hints for a configuration whose layers are mostly dead or saturated."""
-    out = []
-    for k, share in enumerate(health.get("dead") or [], start=1):
-        if share is not None and math.isfinite(share) and share > MOSTLY:
-            out.append(f"{label}: layer {k} is mostly dead ({share:.0%} of its units never "
-                       "switch on), so it passes little signal; a leaky or smooth activation "
-                       "(leaky_relu, elu, softplus) or a smaller learning rate usually helps.")
-    for k, share in enumerate(health.get("saturated") or [], start=1):
-        if share is not None and math.isfinite(share) and share > MOSTLY:
-            out.append(f"{label}: layer {k} is mostly saturated ({share:.0%} of its units sit "
-                       f"on the flat ends of {hidden}), so its gradients vanish; scaled inputs, "
-                       "a smaller learning rate or a non-saturating activation usually help.")
-    return out
