@@ -17,6 +17,7 @@ from pathlib import Path
 # abort at exit with a refcount error.)
 import workbench.data.intake  # noqa: F401
 import workbench.data.profiling  # noqa: F401
+import workbench.sweep.diagnosis  # noqa: F401
 import workbench.sweep.plan  # noqa: F401
 import workbench.sweep.results  # noqa: F401
 import workbench.sweep.runner  # noqa: F401
@@ -405,7 +406,7 @@ def ranked_rows(store, sweep_id: str) -> dict:
         ``{"meta": the sweep's results without its configurations,
         "rows": [row dict per configuration]}``.
     """
-    from workbench.gui.plots import health_hints
+    from workbench.sweep.diagnosis import health_hints
 
     if not hasattr(store, "trials"):  # a path: open the store for this call only
         with StoreSession(store) as opened:
