@@ -55,13 +55,6 @@ class Settings:
     def set_geometry(self, data: QByteArray) -> None:
         self.qs.setValue("window/geometry", data)
 
-    def window_state(self) -> QByteArray | None:
-        v = self.qs.value("window/state")
-        return v if isinstance(v, QByteArray) and not v.isEmpty() else None
-
-    def set_window_state(self, data: QByteArray) -> None:
-        self.qs.setValue("window/state", data)
-
     # folders and files -------------------------------------------------------
     def last_folder(self) -> str:
         return str(self.qs.value("files/last_folder", "") or "")
