@@ -13,7 +13,6 @@ import json
 import re
 import subprocess
 import sys
-from pathlib import Path
 
 import jsonschema
 import numpy as np
@@ -22,8 +21,20 @@ from export_helpers import FORMULA_COL, REG_TARGET, SCRIPT_COL, make_sweep
 
 from workbench.cli import main
 from workbench.errors import InputError
-from workbench.export import bundle as ex
+from workbench.export import configuration as conf_doc
+from workbench.export.bundle import export_configuration
+from workbench.export.configuration import CONFIGURATION_NAME, SCHEMA_NAME
+from workbench.export.formats import (
+    FORMATS,
+    SCRIPT_NAME,
+    ExportFormat,
+    format_choices,
+    parse_formats,
+)
 from workbench.export.model_files import MANIFEST_NAME
+from workbench.export.report import REPORT_NAME
+from workbench.export.results_csv import CONFIGURATIONS_CSV, TRIALS_CSV
+from workbench.export.safe_csv import neutralise_cell
 from workbench.sweep.results import sweep_results
 
 
@@ -34,14 +45,14 @@ def sweep(tmp_path_factory):
     store, sweep_id, table = make_sweep(base, "regression", dtype="float64",
                                         roles={"size": "ignore"})
     folder = base / "winner"
-    ex.export_configuration(store, sweep_id, "best", folder)
+    export_configuration(store, sweep_id, "best", folder)
     yield store, sweep_id, table, folder, base
     store.close()
 
 
 def test_every_format_is_written_with_a_manifest(sweep):
     _, _, _, folder, _ = sweep
-    expected = {f for fmt in ex.FORMATS.values() for f in fmt.files} | {MANIFEST_NAME}
+    expected = {f for fmt in FORMATS.values() for f in fmt.files} | {MANIFEST_NAME}
     assert {p.name for p in folder.iterdir()} == expected
     manifest = json.loads((folder / MANIFEST_NAME).read_text())
     assert set(manifest["files"]) == expected - {MANIFEST_NAME}
@@ -55,12 +66,12 @@ def test_every_format_is_written_with_a_manifest(sweep):
 
 def test_configuration_validates_against_the_shipped_schema(sweep):
     store, sweep_id, table, folder, _ = sweep
-    conf = json.loads((folder / ex.CONFIGURATION_NAME).read_text())
-    schema = json.loads((Path(ex.__file__).parent / "schemas" / ex.SCHEMA_NAME).read_text())
+    conf = json.loads((folder / CONFIGURATION_NAME).read_text())
+    schema = json.loads((conf_doc.SCHEMA_PATH).read_text())
     jsonschema.Draft202012Validator.check_schema(schema)
     jsonschema.Draft202012Validator(schema).validate(conf)  # raises on any violation
     # the copy next to the configuration is the shipped schema
-    assert json.loads((folder / ex.SCHEMA_NAME).read_text()) == schema
+    assert json.loads((folder / SCHEMA_NAME).read_text()) == schema
     # contents that the issue lists
     assert conf["table"]["sha256"] == hashlib.sha256(table.read_bytes()).hexdigest()
     assert conf["target"]["name"] == REG_TARGET and conf["target"]["kind"] == "signed"
@@ -87,24 +98,24 @@ def test_configuration_validates_against_the_shipped_schema(sweep):
 
 def test_schema_rejects_a_broken_configuration(sweep):
     folder = sweep[3]
-    conf = json.loads((folder / ex.CONFIGURATION_NAME).read_text())
+    conf = json.loads((folder / CONFIGURATION_NAME).read_text())
     bad = json.loads(json.dumps(conf))
     bad["model"]["output_head"] = "cubic"
     with pytest.raises(InputError, match="model/output_head"):
-        ex.validate_configuration(bad)
+        conf_doc.validate_configuration(bad)
     bad = json.loads(json.dumps(conf))
     del bad["scores"]["fold_scores"]
     with pytest.raises(InputError, match="fold_scores"):
-        ex.validate_configuration(bad)
+        conf_doc.validate_configuration(bad)
     bad = json.loads(json.dumps(conf))
     bad["table"]["sha256"] = "not-a-hash"
     with pytest.raises(InputError, match="sha256"):
-        ex.validate_configuration(bad)
+        conf_doc.validate_configuration(bad)
 
 
 def test_reproduce_script_prints_the_stored_fold_scores(sweep):
     store, sweep_id, _, folder, _ = sweep
-    proc = subprocess.run([sys.executable, str(folder / ex.SCRIPT_NAME)], capture_output=True,
+    proc = subprocess.run([sys.executable, str(folder / SCRIPT_NAME)], capture_output=True,
                           text=True, timeout=120, cwd=str(folder.parent))
     assert proc.returncode == 0, proc.stdout + proc.stderr
     printed = {(int(m[1]), int(m[2])): float(m[3]) for m in re.finditer(
@@ -118,11 +129,11 @@ def test_reproduce_script_prints_the_stored_fold_scores(sweep):
 
 def test_reproduce_script_reports_a_mismatch(sweep, tmp_path):
     folder = sweep[3]
-    conf = json.loads((folder / ex.CONFIGURATION_NAME).read_text())
+    conf = json.loads((folder / CONFIGURATION_NAME).read_text())
     conf["scores"]["fold_scores"][0]["test_score"] += 1e-6  # far above the 1e-9 tolerance
     edited = tmp_path / "configuration.json"
     edited.write_text(json.dumps(conf))
-    proc = subprocess.run([sys.executable, str(folder / ex.SCRIPT_NAME), "--config",
+    proc = subprocess.run([sys.executable, str(folder / SCRIPT_NAME), "--config",
                            str(edited)], capture_output=True, text=True, timeout=120)
     assert proc.returncode == 1 and "MISMATCH" in proc.stdout
 
@@ -131,17 +142,17 @@ def test_reproduce_script_refuses_a_changed_table(sweep, tmp_path):
     _, _, table, folder, _ = sweep
     changed = tmp_path / "changed.csv"
     changed.write_bytes(table.read_bytes() + b"\n")
-    proc = subprocess.run([sys.executable, str(folder / ex.SCRIPT_NAME), "--table",
+    proc = subprocess.run([sys.executable, str(folder / SCRIPT_NAME), "--table",
                            str(changed)], capture_output=True, text=True, timeout=60)
     assert proc.returncode == 2 and "SHA-256" in proc.stderr
 
 
 @pytest.mark.parametrize("trigger", ["=", "+", "-", "@", "\t", "\r"])
 def test_neutralise_cell_quotes_every_owasp_trigger(trigger):
-    assert ex.neutralise_cell(trigger + "cmd|' /C calc'!A0") == "'" + trigger + "cmd|' /C calc'!A0"
-    assert ex.neutralise_cell("plain " + trigger) == "plain " + trigger
+    assert neutralise_cell(trigger + "cmd|' /C calc'!A0") == "'" + trigger + "cmd|' /C calc'!A0"
+    assert neutralise_cell("plain " + trigger) == "plain " + trigger
     # numbers are written as numbers, never quoted
-    assert ex.neutralise_cell(-0.5) == "-0.5" and ex.neutralise_cell(3) == "3"
+    assert neutralise_cell(-0.5) == "-0.5" and neutralise_cell(3) == "3"
 
 
 def _cells(path):
@@ -151,64 +162,64 @@ def _cells(path):
 
 def test_csv_has_no_live_formula(sweep):
     folder = sweep[3]
-    for name in (ex.CONFIGURATIONS_CSV, ex.TRIALS_CSV):
+    for name in (CONFIGURATIONS_CSV, TRIALS_CSV):
         for cell in _cells(folder / name):
             if cell[:1] in ("=", "+", "@", "\t", "\r"):
                 pytest.fail(f"live formula cell {cell!r} in {name}")
             if cell.startswith("-"):  # only numbers may start with a minus sign
                 float(cell)
-    cells = _cells(folder / ex.CONFIGURATIONS_CSV)
+    cells = _cells(folder / CONFIGURATIONS_CSV)
     assert "'" + REG_TARGET in cells  # the hostile target name is there, neutralised
-    with open(folder / ex.CONFIGURATIONS_CSV, newline="", encoding="utf-8") as fh:
+    with open(folder / CONFIGURATIONS_CSV, newline="", encoding="utf-8") as fh:
         rows = list(csv.DictReader(fh))
     assert sum(r["exported"] == "true" for r in rows) == 1
     assert [int(r["rank"]) for r in rows] == list(range(1, len(rows) + 1))
 
 
 def test_formats_registry_for_the_dialog():
-    keys = [k for k, _ in ex.format_choices()]
+    keys = [k for k, _ in format_choices()]
     assert keys == ["json", "skops", "joblib", "onnx", "script", "csv", "report"]
-    assert all(label for _, label in ex.format_choices())
-    assert ex.parse_formats("script") == ["json", "script"]  # the script reads the JSON
-    assert ex.parse_formats(None) == keys
+    assert all(label for _, label in format_choices())
+    assert parse_formats("script") == ["json", "script"]  # the script reads the JSON
+    assert parse_formats(None) == keys
     with pytest.raises(InputError, match="pdf"):
-        ex.parse_formats("json,pdf")
+        parse_formats("json,pdf")
 
 
 def test_partial_export_and_rank_choice(sweep, tmp_path):
     store, sweep_id, *_ = sweep
-    out = ex.export_configuration(store, sweep_id, 2, tmp_path / "second", formats="csv,json")
+    out = export_configuration(store, sweep_id, 2, tmp_path / "second", formats="csv,json")
     names = {p.name for p in out.iterdir()}
-    assert names == {ex.CONFIGURATIONS_CSV, ex.TRIALS_CSV, ex.CONFIGURATION_NAME,
-                     ex.SCHEMA_NAME, MANIFEST_NAME}
-    conf = json.loads((out / ex.CONFIGURATION_NAME).read_text())
+    assert names == {CONFIGURATIONS_CSV, TRIALS_CSV, CONFIGURATION_NAME,
+                     SCHEMA_NAME, MANIFEST_NAME}
+    conf = json.loads((out / CONFIGURATION_NAME).read_text())
     assert conf["scores"]["rank"] == 2
     with pytest.raises(InputError, match="rank from 1 to"):
-        ex.export_configuration(store, sweep_id, 9, tmp_path / "nine", formats="json")
+        export_configuration(store, sweep_id, 9, tmp_path / "nine", formats="json")
     assert not (tmp_path / "nine").exists()
 
 
 def test_existing_export_is_replaced_whole_or_not_at_all(sweep, tmp_path, monkeypatch):
     store, sweep_id, *_ = sweep
     folder = tmp_path / "exp"
-    ex.export_configuration(store, sweep_id, "best", folder, formats="json,csv")
+    export_configuration(store, sweep_id, "best", folder, formats="json,csv")
     before = {p.name: p.read_bytes() for p in folder.iterdir()}
 
     def broken(ctx, dest):
-        (dest / ex.REPORT_NAME).write_text("half a report")
+        (dest / REPORT_NAME).write_text("half a report")
         raise RuntimeError("disk trouble")
 
-    fmt = ex.FORMATS["report"]
-    monkeypatch.setitem(ex.FORMATS, "report", ex.ExportFormat(
+    fmt = FORMATS["report"]
+    monkeypatch.setitem(FORMATS, "report", ExportFormat(
         fmt.key, fmt.label, fmt.description, fmt.files, fmt.needs_model, broken))
     with pytest.raises(RuntimeError):
-        ex.export_configuration(store, sweep_id, "best", folder, formats="json,csv,report")
+        export_configuration(store, sweep_id, "best", folder, formats="json,csv,report")
     after = {p.name: p.read_bytes() for p in folder.iterdir()}
     assert after == before  # the old export, untouched
     assert [p.name for p in tmp_path.iterdir()] == ["exp"]  # no temporary folder left
     monkeypatch.undo()
-    ex.export_configuration(store, sweep_id, 2, folder, formats="json")
-    assert {p.name for p in folder.iterdir()} == {ex.CONFIGURATION_NAME, ex.SCHEMA_NAME,
+    export_configuration(store, sweep_id, 2, folder, formats="json")
+    assert {p.name for p in folder.iterdir()} == {CONFIGURATION_NAME, SCHEMA_NAME,
                                                   MANIFEST_NAME}
 
 
@@ -218,7 +229,7 @@ def test_a_folder_that_is_not_an_export_is_refused(sweep, tmp_path):
     mine.mkdir()
     (mine / "thesis.txt").write_text("precious")
     with pytest.raises(InputError, match="not a workbench export"):
-        ex.export_configuration(store, sweep_id, "best", mine, formats="json")
+        export_configuration(store, sweep_id, "best", mine, formats="json")
     assert (mine / "thesis.txt").read_text() == "precious"
     assert [p.name for p in mine.iterdir()] == ["thesis.txt"]
 
@@ -227,7 +238,7 @@ def test_changed_table_is_refused(tmp_path):
     store, sweep_id, table = make_sweep(tmp_path, "classification")
     table.write_text(table.read_text() + table.read_text().splitlines()[1] + "\n")
     with pytest.raises(InputError, match="changed since sweep"):
-        ex.export_configuration(store, sweep_id, "best", tmp_path / "out", formats="json")
+        export_configuration(store, sweep_id, "best", tmp_path / "out", formats="json")
     store.close()
 
 
@@ -257,7 +268,7 @@ def test_cli_exit_status(sweep, tmp_path, capsys):
         assert "--table" in capsys.readouterr().err
         assert main(["export", sweep_id, "--to", str(tmp_path / "e"), "--store", db,
                      "--formats", "json", "--table", str(moved), "--quiet"]) == 0
-        conf = json.loads((tmp_path / "e" / ex.CONFIGURATION_NAME).read_text())
+        conf = json.loads((tmp_path / "e" / CONFIGURATION_NAME).read_text())
         assert conf["table"]["path"] == str(moved)
     finally:
         (tmp_path / "hidden.csv").rename(table)

@@ -31,6 +31,9 @@ import math
 
 import numpy as np
 
+#: the report's file name in an export folder
+REPORT_NAME = "report.html"
+
 CAUTIONS = (
     "These scores are cross-validated estimates from one table: they say how the "
     "configuration did on held-out folds of that table, not how it will do on tomorrow's data.",
