@@ -15,9 +15,9 @@ import sys
 
 from workbench.data.intake import load_table
 from workbench.errors import InputError
-from workbench.export.bundle import write_safe_csv
 from workbench.export.model_files import read_manifest
 from workbench.export.predict import predict_table
+from workbench.export.safe_csv import write_safe_csv
 
 NAME = "predict"
 HELP = "Predict with an exported model folder; writes a CSV of predictions."
@@ -51,12 +51,5 @@ def run(args) -> int:
                 from None
         print(f"workbench: {len(out)} prediction(s) written to {args.out}", file=sys.stderr)
     else:
-        import csv
-
-        from workbench.export.bundle import neutralise_cell
-
-        w = csv.writer(sys.stdout)
-        w.writerow([neutralise_cell(c) for c in out.columns])
-        for r in rows:
-            w.writerow([neutralise_cell(v) for v in r])
+        write_safe_csv(sys.stdout, list(out.columns), rows)
     return 0
