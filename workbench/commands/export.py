@@ -4,7 +4,8 @@
 Exports one configuration of a stored sweep (default: the best) into FOLDER:
 configuration JSON, the refitted pipeline (skops, joblib, ONNX), reproduce.py,
 the sweep's results as CSV and an HTML report, with a manifest of SHA-256
-checksums (see :mod:`workbench.export.bundle`). The folder is written atomically.
+checksums (see :mod:`workbench.export.bundle`; the formats are listed in
+:mod:`workbench.export.formats`). The folder is written atomically.
 Exit status 0, or 2 on bad input (unknown sweep or rank, folder not writable,
 unknown format, changed table).
 """
@@ -13,7 +14,9 @@ from __future__ import annotations
 
 import sys
 
-from workbench.export.bundle import FORMATS, export_configuration
+from workbench.errors import InputError
+from workbench.export.bundle import export_configuration
+from workbench.export.formats import FORMATS
 from workbench.sweep.store import Store, existing_store_path
 
 NAME = "export"
@@ -43,8 +46,13 @@ def run(args) -> int:
             print(f"[{100 * fraction:3.0f}%] {message}", file=sys.stderr)
 
     with Store(existing_store_path(args.store)) as store:
-        folder = export_configuration(store, args.sweep_id, args.config, args.folder,
-                                      formats=args.formats, on_progress=progress,
-                                      table=args.table)
+        try:
+            folder = export_configuration(store, args.sweep_id, args.config, args.folder,
+                                          formats=args.formats, on_progress=progress,
+                                          table=args.table)
+        except InputError as exc:
+            if exc.setting == "table":  # here the table is set with --table, not an argument
+                raise InputError(f"{exc} (set with --table)") from None
+            raise
     print(folder)
     return 0

@@ -51,8 +51,6 @@ _PICKLE_WARNING = ("unpickling runs code: load a joblib file only from a folder 
 # --------------------------------------------------------------------------- checksums
 
 
-
-
 def library_versions() -> dict[str, str]:
     """Versions of Python, the project and the libraries an export depends on."""
     from importlib.metadata import PackageNotFoundError, version
@@ -108,10 +106,11 @@ def read_manifest(folder: str | Path) -> dict:
     """
     path = Path(folder) / MANIFEST_NAME
     if not Path(folder).exists():
-        raise InputError(f"{folder} does not exist; give a folder written by `workbench export`")
+        raise InputError(f"{folder} does not exist; give a folder written by the workbench's "
+                         "export")
     if not path.is_file():
         raise InputError(f"{path.parent} has no {MANIFEST_NAME}; "
-                         "give a folder written by `workbench export`")
+                         "give a folder written by the workbench's export")
     try:
         manifest = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
@@ -140,12 +139,11 @@ def verify_file(folder: str | Path, name: str, manifest: dict | None = None) -> 
     manifest = read_manifest(folder) if manifest is None else manifest
     path = folder / name
     if not path.is_file():
-        options = {"model.skops": "no option", "model.joblib": "--joblib",
-                   "model.onnx": "--onnx"}
-        other = [f"{f} ({options[f]})" for f in options if f != name and (folder / f).is_file()]
-        hint = (f"it has {' and '.join(other)}: use that, or export again with this format"
-                if other else "export the model again with this format")
-        raise InputError(f"{path} is missing from this export; {hint}")
+        other = [f for f in (SKOPS_NAME, JOBLIB_NAME, ONNX_NAME)
+                 if f != name and (folder / f).is_file()]
+        hint = (f"it has {' and '.join(other)}: use that model file instead, or export "
+                "again with this format" if other else "export the model again with this format")
+        raise InputError(f"{path} is missing from this export; {hint}", setting="model")
     entry = manifest["files"].get(name)
     if not isinstance(entry, dict) or "sha256" not in entry:
         raise InputError(f"{name} is not listed in {MANIFEST_NAME}, so it cannot be checked; "
@@ -315,8 +313,8 @@ def load_model(folder: str | Path, kind: str = "skops", warn=print):
     """
     folder = Path(folder)
     if not folder.is_dir():
-        raise InputError(f"{folder} is not a folder; give the folder written by "
-                         "`workbench export`")
+        raise InputError(f"{folder} is not a folder; give the folder written by the "
+                         "workbench's export")
     manifest = read_manifest(folder)
     if kind == "skops":
         return load_skops(verify_file(folder, SKOPS_NAME, manifest))

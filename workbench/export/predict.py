@@ -79,7 +79,7 @@ def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> 
     Parameters
     ----------
     folder : path
-        An export folder (``workbench export --to FOLDER``).
+        An export folder (written by :func:`workbench.export.bundle.export_configuration`).
     df : pandas.DataFrame
         A table with (at least) the columns the model was trained on.
     kind : {"skops", "joblib", "onnx"}
@@ -102,8 +102,8 @@ def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> 
         raise ValueError(f"kind must be one of {KINDS}, not {kind!r}")
     folder = Path(folder)
     if not folder.is_dir():
-        raise InputError(f"{folder} is not a folder; give the folder written by "
-                         "`workbench export`")
+        raise InputError(f"{folder} is not a folder; give the folder written by the "
+                         "workbench's export")
     manifest = read_manifest(folder)
     classes = manifest.get("classes")
     if kind == "onnx":
