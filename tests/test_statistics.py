@@ -16,7 +16,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from workbench.sweep.statistics import corrected_ttest, holm, rank
+from workbench.sweep import statistics
+from workbench.sweep.statistics import ALPHA, corrected_ttest, holm, is_tied, rank
 
 # ten paired fold scores (K=5 folds x R=2 repeats) of two configurations
 A = np.array([0.91, 0.93, 0.90, 0.94, 0.92, 0.95, 0.90, 0.93, 0.91, 0.94])
@@ -128,3 +129,23 @@ def test_holm_option_can_widen_the_tie_group():
     corrected = rank(scores, n, t, use_holm=True)
     assert not plain["stats"][1]["tied_with_best"]
     assert corrected["stats"][1]["tied_with_best"]
+
+
+def test_tie_rule_is_p_at_least_alpha():
+    """The documented rule: tied with the best when p >= alpha (p = alpha does not reject)."""
+    assert is_tied(ALPHA) and is_tied(0.5)
+    assert not is_tied(np.nextafter(ALPHA, 0.0))
+    assert not is_tied(None)
+    assert is_tied(0.1, alpha=0.1) and not is_tied(0.0999, alpha=0.1)
+
+
+@pytest.mark.parametrize("use_holm", [False, True])
+def test_rank_ties_a_comparison_whose_p_value_is_exactly_alpha(monkeypatch, use_holm):
+    keys = [(r, f) for r in range(2) for f in range(5)]
+    sizes = dict.fromkeys(keys, 400), dict.fromkeys(keys, 100)
+    scores = {0: _scores(A), 1: _scores(B)}  # one comparison: Holm's p equals the raw p
+    for p, tied in ((ALPHA, True), (np.nextafter(ALPHA, 0.0), False)):
+        monkeypatch.setattr(statistics, "corrected_ttest", lambda a, b, ntr, nte, p=p: (2.0, p))
+        st = rank(scores, *sizes, use_holm=use_holm)["stats"][1]
+        assert st["p_value"] == st["p_value_holm"] == p
+        assert st["tied_with_best"] is tied

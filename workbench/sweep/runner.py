@@ -106,7 +106,13 @@ def new_sweep_id() -> str:
 
 
 def load_data(plan: SweepPlan):
-    """Load the plan's table; return ``(TrialData, fingerprint)``."""
+    """Load the plan's table; return ``(TrialData, fingerprint)``.
+
+    The plan's column roles (``plan.roles``) are applied with
+    :meth:`workbench.data.profiling.TableProfile.with_roles`, the one rule for
+    them: a column typed ``id`` or ``constant`` that the user makes a feature is
+    used as its base type.
+    """
     from workbench.data.intake import load_table
     from workbench.data.profiling import analyse_target, profile_table, split_xy
 
@@ -114,15 +120,14 @@ def load_data(plan: SweepPlan):
     target = analyse_target(df, plan.target)
     if target.task != plan.task:
         raise InputError(f"target {plan.target!r} is now a {target.task} target, but the plan "
-                         f"was made for {plan.task}; start a new sweep")
+                         f"was made for {plan.task}; start a new sweep", setting="target")
     profile = profile_table(df, target=plan.target)
-    for name, role in (plan.roles or {}).items():  # the user's role changes (the window)
-        try:
-            col = profile.column(name)
-        except KeyError:
-            raise InputError(f"column {name!r} of the plan's roles is not in {plan.table}; "
-                             "start a new sweep") from None
-        col.role, col.reason = role, "set by the user"
+    roles = dict(plan.roles or {})  # the user's role changes (the window's profile table)
+    gone = [name for name in roles if name not in {c.name for c in profile.columns}]
+    if gone:
+        raise InputError(f"column {gone[0]!r} of the plan's column roles is not in "
+                         f"{plan.table}; start a new sweep", setting="roles")
+    profile = profile.with_roles(roles)
     X, y = split_xy(df, target)
     return TrialData(X=X, y=y, profile=profile, target=target), table_fingerprint(plan.table, df)
 
