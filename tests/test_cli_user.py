@@ -167,7 +167,7 @@ def test_store_under_a_file_says_which_path_is_a_file(tmp_path, capsys):
 
 @pytest.mark.parametrize("values, output, words", [
     (np.linspace(-3, 3, 40), "auto", "negative values"),   # signed target
-    ((np.arange(40) * 7) % 31, "all", "--output exp only"),  # count target; heads that reach 0
+    ((np.arange(40) * 7) % 31, "all", "the exp output head only"),  # count target; heads that reach 0
 ])
 def test_poisson_deviance_refused_where_it_is_undefined(tmp_path, capsys, values, output, words):
     # scikit-learn's mean_poisson_deviance requires y >= 0 and y_pred > 0

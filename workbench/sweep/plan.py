@@ -90,7 +90,8 @@ def default_metric(kind: str, heads=None) -> str:
         The heads the sweep will try.
     """
     if kind not in DEFAULT_METRIC:
-        raise InputError(f"unknown target kind {kind!r}; expected one of: {', '.join(DEFAULT_METRIC)}")
+        raise InputError(f"unknown target kind {kind!r}; expected one of: "
+                         f"{', '.join(DEFAULT_METRIC)}", setting="kind")
     metric = DEFAULT_METRIC[kind]
     if metric == "neg_mean_poisson_deviance" and heads is not None:
         if not set(heads) <= _POSITIVE_HEADS:
@@ -111,16 +112,17 @@ def check_metric(metric: str, task: str, kind: str | None = None) -> str:
     name = str(metric).strip()
     if name not in get_scorer_names():
         offered = ", ".join(CLASSIFICATION_METRICS if task == "classification" else REGRESSION_METRICS)
-        raise InputError(f"unknown metric {metric!r}; choose a scikit-learn scorer name such as: {offered}")
+        raise InputError(f"unknown metric {metric!r}; choose a scikit-learn scorer name such as: "
+                         f"{offered}", setting="metric")
     if task == "classification" and name in REGRESSION_METRICS:
         raise InputError(f"metric {name!r} is for regression but the target is a classification "
-                         f"target; choose one of: {', '.join(CLASSIFICATION_METRICS)}")
+                         f"target; choose one of: {', '.join(CLASSIFICATION_METRICS)}", setting="metric")
     if task == "regression" and name in CLASSIFICATION_METRICS:
         raise InputError(f"metric {name!r} is for classification but the target is a regression "
-                         f"target; choose one of: {', '.join(REGRESSION_METRICS)}")
+                         f"target; choose one of: {', '.join(REGRESSION_METRICS)}", setting="metric")
     if name == "roc_auc" and kind == "multiclass":
         raise InputError("metric 'roc_auc' needs a binary target; for a multiclass target use "
-                         "'roc_auc_ovr' or 'balanced_accuracy'")
+                         "'roc_auc_ovr' or 'balanced_accuracy'", setting="metric")
     return name
 
 
@@ -144,15 +146,16 @@ def choose_engine(requested: str, task: str, hidden: str, head: str,
                   kind: str | None = None) -> str:
     """The engine that trains one configuration ("numpy" or "sklearn")."""
     if requested not in ENGINES:
-        raise InputError(f"unknown engine {requested!r}; choose one of: {', '.join(ENGINES)}")
+        raise InputError(f"unknown engine {requested!r}; choose one of: {', '.join(ENGINES)}",
+                         setting="engine")
     can = sklearn_can_express(task, hidden, head, kind)
     if requested == "auto":
         return "sklearn" if can else "numpy"
     if requested == "sklearn" and not can:
         raise InputError(
             f"scikit-learn's MLP cannot express hidden {hidden!r} with head {head!r} for "
-            f"{task}; use --engine auto or numpy (it offers hidden "
-            f"{', '.join(SKLEARN_HIDDEN)} with its own output layer)")
+            f"{task}; choose the engine auto or numpy (it offers hidden "
+            f"{', '.join(SKLEARN_HIDDEN)} with its own output layer)", setting="engine")
     return requested
 
 
@@ -166,11 +169,12 @@ def parse_layers(text) -> tuple[int, ...]:
             sizes = tuple(int(p) for p in parts)
         except ValueError:
             raise InputError(f"hidden-layer shape {text!r} is not a list of integers; "
-                             "write e.g. 64 or 64,32") from None
+                             "write e.g. 64 or 64,32", setting="layers") from None
     else:
         sizes = tuple(int(s) for s in text)
     if not sizes or any(s < 1 for s in sizes):
-        raise InputError(f"hidden-layer shape {text!r} needs one or more positive widths, e.g. 64,32")
+        raise InputError(f"hidden-layer shape {text!r} needs one or more positive widths, e.g. "
+                         "64,32", setting="layers")
     return sizes
 
 
@@ -311,30 +315,39 @@ class SweepPlan:
             raise InputError(f"task must be regression or classification, not {self.task!r}")
         try:
             self.hidden = list(dict.fromkeys(resolve_hidden(h) for h in self.hidden))
+        except ValueError as exc:
+            raise InputError(str(exc), setting="hidden") from None
+        try:
             self.heads = list(dict.fromkeys(resolve_head(h, self.task).name for h in self.heads))
         except ValueError as exc:
-            raise InputError(str(exc)) from None
+            raise InputError(str(exc), setting="heads") from None
         bad_roles = {c: r for c, r in dict(self.roles).items() if r not in ("feature", "ignore")}
         if bad_roles or self.target in self.roles:
             raise InputError(f"column roles must be feature or ignore (and not for the target), "
-                             f"got {bad_roles or {self.target: self.roles[self.target]}}")
+                             f"got {bad_roles or {self.target: self.roles[self.target]}}", setting="roles")
         if not self.hidden:
-            raise InputError("the plan has no hidden activation to try; name at least one")
+            raise InputError("the plan has no hidden activation to try; name at least one",
+                             setting="hidden")
         if not self.heads:
-            raise InputError("the plan has no output head to try; name at least one")
+            raise InputError("the plan has no output head to try; name at least one",
+                             setting="heads")
         self.layers = list(dict.fromkeys(parse_layers(s) for s in self.layers))
         self.learning_rates = list(dict.fromkeys(float(v) for v in self.learning_rates))
         self.alphas = list(dict.fromkeys(float(v) for v in self.alphas))
         if not self.learning_rates or any(not np.isfinite(v) or v <= 0 for v in self.learning_rates):
-            raise InputError("learning rates must be positive numbers, e.g. 0.001")
+            raise InputError("learning rates must be positive numbers, e.g. 0.001",
+                             setting="learning_rate")
         if not self.alphas or any(not np.isfinite(v) or v < 0 for v in self.alphas):
-            raise InputError("L2 strengths (alpha) must be numbers >= 0, e.g. 0.0001")
+            raise InputError("L2 strengths (alpha) must be numbers >= 0, e.g. 0.0001", setting="alpha")
         if int(self.folds) < 2:
-            raise InputError(f"--folds must be at least 2, got {self.folds}")
+            raise InputError(f"the number of folds must be at least 2, got {self.folds}",
+                             setting="folds")
         if int(self.repeats) < 1:
-            raise InputError(f"--repeats must be at least 1, got {self.repeats}")
+            raise InputError(f"the number of repeats must be at least 1, got {self.repeats}",
+                             setting="repeats")
         if int(self.epochs) < 1:
-            raise InputError(f"--epochs must be at least 1, got {self.epochs}")
+            raise InputError(f"the number of epochs must be at least 1, got {self.epochs}",
+                             setting="epochs")
         self.folds, self.repeats, self.epochs = int(self.folds), int(self.repeats), int(self.epochs)
         self.seed = int(self.seed)
         if self.dtype not in ("float32", "float64"):
@@ -350,12 +363,13 @@ class SweepPlan:
             if self.target_kind == "signed":
                 raise InputError(f"metric {self.metric!r} is undefined for a target with negative "
                                  "values; choose r2, neg_root_mean_squared_error or "
-                                 "neg_mean_absolute_error")
+                                 "neg_mean_absolute_error", setting="metric")
             unsafe = [h for h in self.heads if h not in _POSITIVE_HEADS]
             if unsafe:
                 raise InputError(f"metric {self.metric!r} is undefined for predictions of 0 or "
                                  f"below, which the head(s) {', '.join(unsafe)} can give; use it "
-                                 "with --output exp only, or choose another metric such as r2")
+                                 "with the exp output head only, or choose another metric such "
+                                 "as r2", setting="metric")
         # raises for an engine that cannot express a combination
         self.configurations()
 
@@ -422,13 +436,13 @@ class SweepPlan:
         n = len(y)
         if n < 2 * self.folds:
             raise InputError(f"the table has {n} usable rows, too few for {self.folds} folds; "
-                             "use fewer folds or more rows")
+                             "use fewer folds or more rows", setting="folds")
         if self.task == "classification":
             _, counts = np.unique(y.astype(str), return_counts=True)
             if counts.min() < self.folds:
                 raise InputError(f"the rarest class has {counts.min()} rows, fewer than the "
-                                 f"{self.folds} folds; use --folds {max(2, int(counts.min()))} "
-                                 "or merge rare classes")
+                                 f"{self.folds} folds; use {max(2, int(counts.min()))} folds "
+                                 "or merge rare classes", setting="folds")
         out = {}
         for r in range(self.repeats):
             ys = y.astype(str) if self.task == "classification" else y
@@ -471,13 +485,14 @@ def _split_list(value) -> list[str]:
     return out
 
 
-def _numbers(value, what: str) -> list[float]:
+def _numbers(value, what: str, setting: str) -> list[float]:
     out = []
     for p in _split_list(value):
         try:
             out.append(float(p))
         except ValueError:
-            raise InputError(f"{what} {p!r} is not a number; write e.g. 0.001") from None
+            raise InputError(f"{what} {p!r} is not a number; write e.g. 0.001",
+                             setting=setting) from None
     return out
 
 
@@ -524,7 +539,7 @@ def resolve_heads(target, output="auto") -> tuple[list[str], dict, dict]:
     if not heads:
         why = "; ".join(f"{h}: {r}" for h, r in refused.items())
         raise InputError(f"every requested output head is refused for target {target.name!r} "
-                         f"({target.kind}): {why}")
+                         f"({target.kind}): {why}", setting="heads")
     return heads, refused, warns
 
 
@@ -578,8 +593,8 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
             hid.append(n)
     heads, refused, warns = resolve_heads(info, output)
     lays = [parse_layers(v) for v in (layers or ["64"])]
-    lrs = _numbers(learning_rates, "learning rate") or [0.001]
-    als = _numbers(alphas, "alpha") or [0.0001]
+    lrs = _numbers(learning_rates, "learning rate", "learning_rate") or [0.001]
+    als = _numbers(alphas, "alpha", "alpha") or [0.0001]
     from pathlib import Path
 
     # the absolute path, so that --resume works from any folder

@@ -186,13 +186,17 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
     emit = on_event if on_event is not None else (lambda event: None)
     if (plan is None) == (resume is None):
         raise InputError("give either a plan for a new sweep or the id of a sweep to resume")
+    if jobs is not None and int(jobs) < 1:
+        raise InputError(f"the number of worker processes must be at least 1, got {jobs}",
+                         setting="jobs")
     if resume is not None:
         sweep = store.get_sweep(resume)
         if sweep["state"] == FINISHED and sweep["n_stored"] >= sweep["n_trials"]:
-            raise InputError(f"sweep {resume} is already finished; see workbench show {resume}")
+            raise InputError(f"sweep {resume} is already finished; its results are stored, "
+                             "there is nothing left to run", setting="sweep")
         if sweep["state"] == RUNNING:
             raise InputError(f"sweep {resume} is still running (process {sweep['pid']} on "
-                             f"{sweep['host']}); wait for it or stop it first")
+                             f"{sweep['host']}); wait for it or stop it first", setting="sweep")
         plan = SweepPlan.from_dict(sweep["plan"])
         data, fingerprint = load_data(plan)
         stored = sweep["fingerprint"]
@@ -200,12 +204,11 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
                 or fingerprint["columns"] != stored["columns"]:
             raise InputError(f"the table {plan.table} has changed since sweep {resume} started "
                              "(its SHA-256 fingerprint no longer matches), so the stored trials "
-                             "cannot be combined with new ones; start a new sweep")
+                             "cannot be combined with new ones; start a new sweep",
+                             setting="sweep")
     else:
         data, fingerprint = load_data(plan)
     folds = plan.fold_indices(data.y)  # an impossible split fails before anything is stored
-    if jobs is not None and int(jobs) < 1:
-        raise InputError(f"--jobs must be at least 1, got {jobs}")
     if cluster is not None:
         executor = _DaskExecutor(cluster, data)
     elif backend == "inline":
@@ -473,8 +476,6 @@ class _LokyExecutor:
         import joblib
 
         self.workers = int(jobs)
-        if self.workers < 1:
-            raise InputError(f"--jobs must be at least 1, got {jobs}")
         self._dir = tempfile.TemporaryDirectory(prefix="workbench-sweep-")
         self._path = f"{self._dir.name}/table.pkl"
         joblib.dump(data, self._path)
@@ -536,7 +537,7 @@ def _check_scheduler_address(address: str) -> None:
             parse_host_port(location)
     except (ValueError, TypeError) as exc:
         raise InputError(f"{address!r} is not a Dask scheduler address ({exc}); write it as "
-                         "tcp://HOST:PORT, e.g. tcp://10.0.0.5:8786") from None
+                         "tcp://HOST:PORT, e.g. tcp://10.0.0.5:8786", setting="cluster") from None
 
 
 class _DaskExecutor:
@@ -554,15 +555,15 @@ class _DaskExecutor:
                 self.client = Client(cluster, timeout=20, set_as_default=False)
             except OSError as exc:
                 raise InputError(f"cannot reach the Dask scheduler at {cluster} ({exc}); check "
-                                 "the address (tcp://HOST:PORT) and that the scheduler runs") \
-                    from None
+                                 "the address (tcp://HOST:PORT) and that the scheduler runs",
+                                 setting="cluster") from None
             self._own = True
         else:
             self.client, self._own = cluster, False
         threads = sum(self.client.nthreads().values())
         if threads < 1:
             raise InputError(f"the Dask cluster at {self.client.scheduler.address} has no "
-                             "workers; start some workers first")
+                             "workers; start some workers first", setting="cluster")
         self.workers = int(threads)
         self.data = data
         self.data_future = self.client.scatter(data, broadcast=True, hash=False)

@@ -116,8 +116,8 @@ def existing_store_path(path=None) -> Path:
     """
     path = Path(path) if path is not None else default_store_path()
     if not path.exists():
-        raise InputError(f"there is no store at {path}; run a sweep first, or pass --store "
-                         "with the file your sweeps were stored in")
+        raise InputError(f"there is no store at {path}; run a sweep first, or choose the store "
+                         "file your sweeps were stored in", setting="store")
     return path
 
 
@@ -202,8 +202,8 @@ class Store:
         self._lock = threading.RLock()
         self.path = Path(path) if path is not None else default_store_path()
         if self.path.is_dir():
-            raise InputError(f"store path {self.path} is a folder; pass a file name such as "
-                             f"{self.path / STORE_FILENAME}")
+            raise InputError(f"the store path {self.path} is a folder; give a file name such as "
+                             f"{self.path / STORE_FILENAME}", setting="store")
         existed = self.path.exists() and self.path.stat().st_size > 0
         if existed:
             self._check_header()
@@ -215,7 +215,8 @@ class Store:
                 why = (f"{blocker} is a file, not a folder" if blocker is not None
                        and not blocker.is_dir() else exc.strerror)
                 raise InputError(f"cannot create the folder of the store {self.path} "
-                                 f"({why}); pass --store with a writable path") from None
+                                 f"({why}); choose a writable store path",
+                                 setting="store") from None
         self._conn = None
         try:
             self._conn = sqlite3.connect(str(self.path), timeout=30, isolation_level=None,
@@ -225,13 +226,13 @@ class Store:
         except sqlite3.OperationalError as exc:
             self._close_quietly()
             raise InputError(f"cannot open the store {self.path} ({exc}); check that it is "
-                             "writable and not locked by another program, or pass --store with "
-                             "another file") from None
+                             "writable and not locked by another program, or choose another "
+                             "store file", setting="store") from None
         except sqlite3.DatabaseError as exc:
             self._close_quietly()
             raise InputError(f"the store {self.path} is damaged or not a workbench store "
-                             f"({exc}); it was left untouched; move it away or pass --store "
-                             "with another file") from None
+                             f"({exc}); it was left untouched; move it away or choose another "
+                             "store file", setting="store") from None
 
     # ------------------------------------------------------------------ opening
     def _check_header(self):
@@ -239,8 +240,8 @@ class Store:
             head = fh.read(16)
         if head != b"SQLite format 3\x00":
             raise InputError(f"the store {self.path} is not an SQLite database (damaged or "
-                             "another kind of file); it was left untouched; move it away or pass "
-                             "--store with another file")
+                             "another kind of file); it was left untouched; move it away or "
+                             "choose another store file", setting="store")
 
     def _open(self, existed: bool):
         c = self._conn
@@ -259,11 +260,12 @@ class Store:
         if version == 0 or not _TABLES <= tables:
             raise InputError(f"{self.path} is an SQLite database but not a workbench store "
                              f"(tables: {', '.join(sorted(tables)) or 'none'}); it was left "
-                             "untouched; pass --store with another file")
+                             "untouched; choose another store file", setting="store")
         if version > SCHEMA_VERSION:
             raise InputError(f"the store {self.path} was written by a newer workbench (schema "
                              f"version {version}, this program reads up to {SCHEMA_VERSION}); "
-                             "upgrade the workbench or pass --store with another file")
+                             "upgrade the workbench or choose another store file",
+                             setting="store")
         if version < SCHEMA_VERSION:
             self._migrate(version)
         mode = c.execute("PRAGMA journal_mode").fetchone()[0]
@@ -275,7 +277,8 @@ class Store:
             step = MIGRATIONS.get(version)
             if step is None:
                 raise InputError(f"the store {self.path} has schema version {version}, which this "
-                                 "program cannot migrate; pass --store with another file")
+                                 "program cannot migrate; choose another store file",
+                                 setting="store")
             self._apply_script(step, version + 1)
             version += 1
 
@@ -416,7 +419,7 @@ class Store:
         if row is None:
             ids = [r[0] for r in self._rows("SELECT id FROM sweeps ORDER BY created DESC LIMIT 5")]
             hint = f"recent sweeps: {', '.join(ids)}" if ids else "the store has no sweeps yet"
-            raise InputError(f"no sweep {sweep_id!r} in {self.path}; {hint} (see workbench history)")
+            raise InputError(f"no sweep {sweep_id!r} in {self.path}; {hint}", setting="sweep")
         return self._sweep_dict(row)
 
     def configurations(self, sweep_id: str) -> list[dict]:
