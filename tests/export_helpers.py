@@ -14,6 +14,8 @@ SCRIPT_COL = '<script>alert("x")</script>'
 FORMULA_COL = '=HYPERLINK("http://evil.example","click")'
 REG_TARGET = '=HYPERLINK("http://evil.example","score")'
 CLF_TARGET = "@outcome"
+#: whole numbers unique per row: profiled as an identifier (type id, ignored) by default
+ID_COL = "ticket"
 
 
 def hostile_table(n: int = 54, seed: int = 0) -> pd.DataFrame:
@@ -31,16 +33,20 @@ def hostile_table(n: int = 54, seed: int = 0) -> pd.DataFrame:
     return df
 
 
-def make_sweep(tmp_path, task: str = "regression", dtype: str = "float64", roles=None):
+def make_sweep(tmp_path, task: str = "regression", dtype: str = "float64", roles=None,
+               with_id: bool = False):
     """Run a tiny sweep inline; return ``(store, sweep_id, table_path)``.
 
-    ``roles`` are the user's column-role changes (as the window's profile table sets them).
+    ``roles`` are the user's column-role changes (as the window's profile table sets them);
+    ``with_id`` adds :data:`ID_COL`, an identifier-like column a user may make a feature.
     """
     from workbench.sweep.plan import build_plan
     from workbench.sweep.runner import run_sweep
     from workbench.sweep.store import Store
 
     df = hostile_table()
+    if with_id:
+        df[ID_COL] = np.random.default_rng(1).permutation(len(df)) + 1000
     if task == "regression":
         df = df.drop(columns=[CLF_TARGET])
         target, hidden, output = REG_TARGET, "relu,gelu", "identity"

@@ -2,22 +2,27 @@
 
 References: SHA-256 via :mod:`hashlib` (FIPS 180-4); JSON Schema draft 2020-12 via
 the ``jsonschema`` library; formula-injection triggers from OWASP's "CSV Injection"
-page (=, +, -, @, tab, carriage return); CSV parsing with :mod:`csv` (RFC 4180).
+page (=, +, -, @, tab, carriage return); CSV parsing with :mod:`csv` (RFC 4180);
+the fitted ColumnTransformer's own ``get_feature_names_out`` (scikit-learn) says
+which columns reach the model.
 """
 
 from __future__ import annotations
 
 import csv
 import hashlib
+import importlib.util
 import json
 import re
 import subprocess
 import sys
+from pathlib import Path
 
+import joblib
 import jsonschema
 import numpy as np
 import pytest
-from export_helpers import FORMULA_COL, REG_TARGET, SCRIPT_COL, make_sweep
+from export_helpers import FORMULA_COL, ID_COL, REG_TARGET, SCRIPT_COL, make_sweep
 
 from workbench.cli import main
 from workbench.errors import InputError
@@ -26,12 +31,13 @@ from workbench.export.bundle import export_configuration
 from workbench.export.configuration import CONFIGURATION_NAME, SCHEMA_NAME
 from workbench.export.formats import (
     FORMATS,
+    REPRODUCE_SOURCE,
     SCRIPT_NAME,
     ExportFormat,
     format_choices,
     parse_formats,
 )
-from workbench.export.model_files import MANIFEST_NAME
+from workbench.export.model_files import JOBLIB_NAME, MANIFEST_NAME
 from workbench.export.report import REPORT_NAME
 from workbench.export.results_csv import CONFIGURATIONS_CSV, TRIALS_CSV
 from workbench.export.safe_csv import neutralise_cell
@@ -41,9 +47,11 @@ from workbench.sweep.results import sweep_results
 @pytest.fixture(scope="module")
 def sweep(tmp_path_factory):
     base = tmp_path_factory.mktemp("export")
-    # the user set one column to "ignore": the export and reproduce.py must honour it
+    # the user set one column to "ignore" and made the identifier-like ID_COL a feature:
+    # the sweep, the export's refit and reproduce.py must all honour both
     store, sweep_id, table = make_sweep(base, "regression", dtype="float64",
-                                        roles={"size": "ignore"})
+                                        roles={"size": "ignore", ID_COL: "feature"},
+                                        with_id=True)
     folder = base / "winner"
     export_configuration(store, sweep_id, "best", folder)
     yield store, sweep_id, table, folder, base
@@ -81,8 +89,8 @@ def test_configuration_validates_against_the_shipped_schema(sweep):
     assert groups["numeric"]["steps"] == ["SimpleImputer(strategy='median')", "StandardScaler()"]
     assert "when" in groups["datetime"]["columns"]
     assert all("size" not in g["columns"] for g in groups.values())
-    assert {"column": "size", "type": "numeric", "reason": "set by the user"} in \
-        conf["preprocessing"]["ignored"]
+    assert conf["preprocessing"]["ignored"] == [
+        {"column": "size", "type": "numeric", "reason": "ignored by the user"}]
     assert conf["model"]["output_head"] == "identity" and conf["model"]["loss"] == "squared_error"
     shapes = conf["model"]["layer_shapes"]
     assert shapes[-1][1] == 1 and all(a[1] == b[0] for a, b in zip(shapes, shapes[1:]))
@@ -125,6 +133,68 @@ def test_reproduce_script_prints_the_stored_fold_scores(sweep):
     assert set(printed) == set(stored) and len(stored) == 6
     for key, value in stored.items():
         assert abs(printed[key] - value) <= 1e-9, key
+    # float64, same seeds, same rows, same code: the scores are the stored ones exactly
+    differences = [float(d) for d in re.findall(r"difference (\S+)$", proc.stdout, re.M)]
+    assert differences == [0.0] * 6
+
+
+def test_reproduce_script_is_the_shipped_module(sweep):
+    folder = sweep[3]
+    assert (folder / SCRIPT_NAME).read_bytes() == REPRODUCE_SOURCE.read_bytes()
+    assert REPRODUCE_SOURCE.parent == Path(conf_doc.__file__).parent  # inside the package
+
+
+def _load_copied_script(folder):
+    spec = importlib.util.spec_from_file_location("copied_reproduce", folder / SCRIPT_NAME)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
+def _model_inputs(pipe) -> set[str]:
+    """Columns the fitted preprocessing passes on (scikit-learn's ``group__column`` names)."""
+    return {name.split("__", 1)[1] for name in pipe.named_steps["prep"].get_feature_names_out()}
+
+
+def test_column_made_a_feature_reaches_the_refitted_pipeline(sweep):
+    folder = sweep[3]
+    pipe = joblib.load(folder / JOBLIB_NAME)
+    inputs = _model_inputs(pipe)
+    assert ID_COL in inputs  # typed as its base type (integer), not dropped as an id
+    assert "size" not in inputs  # and the column the user ignored stays out
+    conf = json.loads((folder / CONFIGURATION_NAME).read_text())
+    assert ID_COL in conf["preprocessing"]["groups"]["numeric"]["columns"]
+    assert conf["model"]["layer_shapes"][0][0] == len(pipe.named_steps["prep"]
+                                                      .get_feature_names_out())
+
+
+@pytest.mark.filterwarnings("ignore:Stochastic Optimizer")  # 12 epochs: a smoke fit
+def test_column_made_a_feature_reaches_the_reproduce_pipeline(sweep):
+    _, _, table, folder, _ = sweep
+    script = _load_copied_script(folder)
+    conf = json.loads((folder / CONFIGURATION_NAME).read_text())
+    assert conf["plan"]["roles"] == {"size": "ignore", ID_COL: "feature"}
+    profile, target, X, y = script.load_inputs(conf, table)
+    pipe = script.fold_pipeline(conf, profile, target, seed=0).fit(X, y)
+    assert _model_inputs(pipe) == _model_inputs(joblib.load(folder / JOBLIB_NAME))
+    assert ID_COL in _model_inputs(pipe) and "size" not in _model_inputs(pipe)
+
+
+@pytest.mark.parametrize("engine", ["numpy", "sklearn"])
+@pytest.mark.parametrize("task, head", [("regression", "identity"),
+                                        ("classification", "logistic")])
+def test_reproduce_rebuilds_the_estimator_the_sweep_used(engine, task, head):
+    from workbench.sweep.trials import estimator_for
+
+    script = _load_copied_script(REPRODUCE_SOURCE.parent)
+    plan = {"task": task, "epochs": 7, "dtype": "float64", "batch_size": 16}
+    chosen = {"hidden": "tanh", "head": head, "layers": [4, 3], "learning_rate": 0.02,
+              "alpha": 1e-3, "engine": engine}
+    name, params = conf_doc.estimator_description(plan, chosen)
+    rebuilt = script.make_estimator({"estimator": name, "hyperparameters": params}, seed=11)
+    used = estimator_for(plan, chosen, random_state=11)
+    assert type(rebuilt) is type(used)
+    assert rebuilt.get_params() == used.get_params()
 
 
 def test_reproduce_script_reports_a_mismatch(sweep, tmp_path):

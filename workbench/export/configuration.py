@@ -51,7 +51,12 @@ def jsonable(obj):
     return obj
 
 
-def _estimator_info(plan, chosen) -> tuple[str, dict]:
+def estimator_description(plan, chosen: dict) -> tuple[str, dict]:
+    """The estimator a configuration trains, as ``(qualified class name, parameters)``.
+
+    The name is what :data:`workbench.export.reproduce.ESTIMATORS` looks up; the
+    parameters (without ``random_state``, which is per fold) rebuild it there.
+    """
     from workbench.sweep.trials import estimator_for
 
     est = estimator_for(plan, chosen)
@@ -96,7 +101,7 @@ def build_configuration(ctx: ExportContext) -> dict:
 
     plan, chosen, res, target = ctx.plan, ctx.chosen, ctx.results, ctx.data.target
     head = resolve_head(chosen["head"], plan.task)
-    estimator, params = _estimator_info(plan, chosen)
+    estimator, params = estimator_description(plan, chosen)
     advice = advise(target)
     scaling = None
     if plan.task == "regression":
