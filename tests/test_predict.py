@@ -19,6 +19,7 @@ import skops.io as sio
 from export_helpers import CLF_TARGET, REG_TARGET, SCRIPT_COL, make_sweep
 from sklearn.base import BaseEstimator
 
+import workbench.commands.predict as predict_command
 from workbench.cli import main
 from workbench.data.intake import load_table
 from workbench.errors import InputError
@@ -165,6 +166,33 @@ def test_cli_writes_a_spreadsheet_safe_csv(exports, tmp_path, capsys):
     assert all(not r[0].startswith(("-", "=", "+", "@")) for r in rows[1:])
     assert {r[0] for r in rows[1:]} <= {"'-yes", "<b>no</b>"}
     pd.read_csv(out)  # a plain CSV
+
+
+def test_cli_standard_output_is_the_same_safe_csv(exports, tmp_path, capsys):
+    folder, table, X = exports["classification"]
+    out = tmp_path / "pred.csv"
+    assert main(["predict", str(folder), str(table), "--out", str(out)]) == 0
+    capsys.readouterr()
+    assert main(["predict", str(folder), str(table)]) == 0
+    printed = capsys.readouterr().out
+    assert printed == out.read_bytes().decode("utf-8")  # one writer for both
+    rows = list(csv.reader(printed.splitlines()))
+    assert {r[0] for r in rows[1:]} <= {"'-yes", "<b>no</b>"} and len(rows) == len(X) + 1
+
+
+@pytest.mark.parametrize("trigger", ["=", "+", "-", "@"])
+def test_cli_standard_output_neutralises_formula_cells(exports, monkeypatch, capsys, trigger):
+    """Class labels and cells that a spreadsheet would run as formulas (OWASP "CSV
+    Injection": =, +, -, @) reach standard output quoted; numbers stay numbers."""
+    folder, table, _ = exports["classification"]
+    label = trigger + 'HYPERLINK("http://evil.example","x")'
+    hostile = pd.DataFrame({"prediction": [label, "plain", trigger + "1+2"],
+                            f"probability_{label}": [0.25, -0.5, 1.0]})
+    monkeypatch.setattr(predict_command, "predict_table", lambda *a, **k: hostile)
+    assert main(["predict", str(folder), str(table)]) == 0
+    rows = list(csv.reader(capsys.readouterr().out.splitlines()))
+    assert rows == [["prediction", f"probability_{label}"],
+                    ["'" + label, "0.25"], ["plain", "-0.5"], ["'" + trigger + "1+2", "1.0"]]
 
 
 def test_not_an_export_folder(tmp_path, capsys):
