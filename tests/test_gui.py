@@ -15,13 +15,14 @@ import numpy as np
 import psutil
 import pytest
 from PySide6.QtCore import QMimeData, QPoint, QPointF, Qt, QUrl
-from PySide6.QtGui import QDragEnterEvent, QDropEvent
+from PySide6.QtGui import QAction, QDragEnterEvent, QDropEvent
 from PySide6.QtWidgets import QApplication
 
 from workbench.data.intake import load_table
 from workbench.errors import InputError
 from workbench.gui import core_adapter as core
 from workbench.gui.main_window import MainWindow
+from workbench.gui.messages import SETTING_LABELS, phrase
 from workbench.gui.models import COLUMN_KEYS
 from workbench.gui.settings import Settings
 
@@ -212,8 +213,10 @@ def test_bad_files_show_the_loader_message_and_keep_the_table(qtbot, window, tmp
             load_table(path)
         with qtbot.waitSignal(win.loadFailed, timeout=10_000) as blocker:
             drop_file(win, path)
-        assert blocker.args[0] == str(ref.value), case
-        assert win.message_text() == str(ref.value), case
+        # the loader's own line, then where the window sets the table
+        assert ref.value.setting == "table", case
+        assert blocker.args[0] == phrase(ref.value), case
+        assert win.message_text() == f"{ref.value} ({SETTING_LABELS['table']})", case
         assert "\n" not in win.message_text()
         assert win.table.path == path_before, case
         assert win.frame_model.rowCount() == rows_before, case
@@ -271,6 +274,93 @@ def test_changed_roles_go_into_the_plan(qtbot, window):
 
     data, _ = load_data(plan)
     assert data.profile.column(feature).role == "ignore"
+
+
+def _profile_row(model, name: str) -> int:
+    return next(i for i, c in enumerate(model.columns()) if c["name"] == name)
+
+
+def test_an_id_made_a_feature_in_the_window_reaches_the_fitted_preprocessing(qtbot, window):
+    """The window applies roles with the core's rule (TableProfile.with_roles): an id column
+    made a feature shows its base type, and the sweep's data uses it as that type."""
+    from workbench.data.preprocessing import build_preprocessor
+    from workbench.sweep.runner import load_data
+
+    load_by_drop(qtbot, window, SAMPLES / "coffee_roast.csv")
+    model = window.profile_model
+    row = _profile_row(model, "roast_id")
+    intake = model.columns()[row]
+    assert intake["kind"] == "id" and intake["role"] == "ignore"
+    assert model.setData(model.index(row, 4), "feature")
+    shown = model.columns()[row]
+    assert shown["role"] == "feature" and shown["kind"] == "integer"
+    assert model.index(row, 1).data() == "integer"  # the Type column the user sees
+    plan, msg = window._plan()
+    assert plan is not None, msg
+    assert plan.roles == {"roast_id": "feature"}
+    data, _ = load_data(plan)
+    names = build_preprocessor(data.profile, data.target).fit(data.X).get_feature_names_out()
+    assert "numeric__roast_id" in list(names)
+    # back to ignore: the intake's type and reason return and the plan has no roles
+    assert model.setData(model.index(row, 4), "ignore")
+    assert model.columns()[row] == intake
+    plan, msg = window._plan()
+    assert plan is not None and not plan.roles, msg
+    # a plan the window cannot make: the estimate shows the phrased message
+    window.setup.alpha_edit.setText("0.001 abc")
+    plan, msg = window._plan()
+    assert plan is None and msg.endswith(f"({SETTING_LABELS['alpha']})")
+    qtbot.waitUntil(lambda: window.setup.estimate_label.text() == msg)
+
+
+def test_free_text_made_a_feature_is_refused_with_the_core_message(qtbot, window, tmp_path):
+    rng = np.random.default_rng(0)
+    n = 80
+    words = ["dry", "early", "late", "north", "shaded", "wet", "windy", "warm"]
+    remark = [" ".join(rng.choice(words, 6)) + f" visit {i}" for i in range(n)]
+    path = tmp_path / "notes.csv"
+    import pandas as pd
+
+    pd.DataFrame({"x": rng.normal(size=n), "remark": remark,
+                  "yield_kg": rng.uniform(1, 9, n).round(2)}).to_csv(path, index=False)
+    load_by_drop(qtbot, window, path)
+    model = window.profile_model
+    row = _profile_row(model, "remark")
+    assert model.columns()[row]["role"] == "ignore"
+    with pytest.raises(InputError) as ref:
+        window.table.profile.with_roles({"remark": "feature"})
+    model.setData(model.index(row, 4), "feature")
+    assert model.columns()[row]["role"] == "ignore"  # the pick is undone
+    assert window.message_text() == phrase(ref.value)
+    assert window.message_text().endswith(f"({SETTING_LABELS['roles']})")
+    plan, msg = window._plan()
+    assert plan is not None and not plan.roles, msg
+
+
+def test_the_window_has_every_control_its_messages_name(qtbot, window):
+    """Each quoted label in SETTING_LABELS is a real label, button, action, tab or header."""
+    import re
+
+    from PySide6.QtWidgets import QAbstractButton, QLabel, QTabWidget
+
+    from workbench.gui.dialogs import ExportDialog
+
+    dialog = ExportDialog(window, {"rank": 1, "hidden": "relu", "head": "identity",
+                                   "layers": "8", "learning_rate": 0.001, "alpha": 0.0001})
+    qtbot.addWidget(dialog)
+    texts = set()
+    for root in (window, dialog):
+        texts |= {w.text() for w in root.findChildren(QLabel)}
+        texts |= {w.text() for w in root.findChildren(QAbstractButton)}
+        for tabs in root.findChildren(QTabWidget):
+            texts |= {tabs.tabText(i) for i in range(tabs.count())}
+    texts |= {a.text() for a in window.findChildren(QAction)}
+    texts |= set(window.profile_model.HEADERS)
+    texts = {t.replace("&", "") for t in texts}
+    quoted = [q for words in SETTING_LABELS.values() for q in re.findall("“([^”]+)”", words)]
+    assert len(quoted) >= 15
+    missing = [q for q in quoted if q not in texts]
+    assert missing == []
 
 
 # --------------------------------------------------------------------------- stop

@@ -309,13 +309,16 @@ def test_bridge_reports_a_failed_job_in_one_line(qtbot):
     from workbench.errors import InputError
 
     def job(on_event, cancel):
-        raise InputError("the table has 3 rows, too few for 5 folds; use fewer folds")
+        raise InputError("the table has 3 rows, too few for 5 folds; use fewer folds",
+                         setting="folds")
 
     sweep = SweepThread(job)
     with qtbot.waitSignal(sweep.finished, timeout=5_000) as blocker:
         sweep.start()
     assert blocker.args[0]["state"] == "failed"
-    assert blocker.args[0]["message"].startswith("the table has 3 rows")
+    # phrased for the window: the core's line, then the control that sets the folds
+    assert blocker.args[0]["message"] == ("the table has 3 rows, too few for 5 folds; use fewer "
+                                          "folds (set with the “Folds” box in the set-up column)")
 
 
 # --------------------------------------------------------------------------- open command

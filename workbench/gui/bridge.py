@@ -27,6 +27,7 @@ from collections.abc import Callable
 from PySide6.QtCore import QObject, QThread, Signal, Slot
 
 from workbench.errors import InputError
+from workbench.gui.messages import phrase
 
 #: niceness given to local worker processes (higher = lower priority; never lowered)
 WORKER_NICENESS = 10
@@ -147,7 +148,7 @@ class SweepBridge(QObject):
             if "state" not in result:
                 summary["state"] = "cancelled" if self.cancel_event.is_set() else "finished"
         except InputError as exc:
-            summary.update(state="failed", message=str(exc))
+            summary.update(state="failed", message=phrase(exc))
         except KeyboardInterrupt:
             summary.update(state="cancelled", message="stopped")
         except Exception as exc:  # shown in the window, never a traceback dialog

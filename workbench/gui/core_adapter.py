@@ -50,9 +50,38 @@ def load(path: str) -> LoadedTable:
 
     df, report = load_table(path)
     profile = profile_table(df)
-    cols = [{"name": c.name, "kind": c.type, "missing": c.missing_share,
+    return LoadedTable(path=str(path), df=df, report=report, profile=profile,
+                       columns=profile_rows(profile))
+
+
+def profile_rows(profile) -> list[dict]:
+    """A profile's columns as the profile table's rows (name, kind, missing, role, note)."""
+    return [{"name": c.name, "kind": c.type, "missing": c.missing_share,
              "distinct": c.distinct, "role": c.role, "note": c.reason} for c in profile.columns]
-    return LoadedTable(path=str(path), df=df, report=report, profile=profile, columns=cols)
+
+
+def user_roles(table: LoadedTable, roles: dict[str, str], target: str) -> dict[str, str]:
+    """The roles the user changed in the profile table, as ``{column: "feature" | "ignore"}``.
+
+    ``roles`` is the profile table's ``{column: role}``. The target and the columns whose
+    role is the intake's are left out; so is the intake's suggested target when another
+    column is the target and it is shown as a feature (the core counts it as one already).
+    """
+    base = {c["name"]: c["role"] for c in table.columns}
+    return {n: r for n, r in roles.items()
+            if n != target and r != "target" and base.get(n) != r
+            and not (base.get(n) == "target" and r == "feature")}
+
+
+def apply_roles(table: LoadedTable, roles: dict[str, str], target: str) -> list[dict]:
+    """The profile table's rows once the core has applied the user's roles.
+
+    The roles go through :meth:`workbench.data.profiling.TableProfile.with_roles`, the
+    same rule the sweep's runner and an export's refit apply: an identifier made a
+    feature shows (and is used as) its base type; free text or an empty column made a
+    feature is refused with an :class:`InputError` (``setting="roles"``).
+    """
+    return profile_rows(table.profile.with_roles(user_roles(table, roles, target)))
 
 
 @dataclass
@@ -84,6 +113,7 @@ def head_verdict(info, head: str) -> HeadVerdict:
     try:
         _, refused, warns = resolve_heads(info, [head])
     except InputError as exc:
+        # shown on the head's own box, so the core's words need no pointer to the control
         return HeadVerdict(False, False, str(exc))
     if head in refused:
         return HeadVerdict(False, False, refused[head])
@@ -159,19 +189,22 @@ def build_plan(table: LoadedTable, summary: TargetSummary, choices: dict,
     """The core's :class:`SweepPlan` for the window's choices (InputError when impossible).
 
     ``roles`` is the profile table's ``{column: role}``; the columns whose role
-    differs from the intake's profile go into the plan's ``roles``.
+    differs from the intake's profile (:func:`user_roles`) go into the plan's ``roles``.
     """
     from workbench.sweep.plan import build_plan as core_build_plan
 
     info = summary.target
     if not choices.get("hidden"):
-        raise InputError("tick at least one hidden activation to sweep")
+        raise InputError("tick at least one hidden activation to sweep", setting="hidden")
     if not choices.get("heads"):
-        raise InputError("tick at least one output head that the guard allows for this target")
-    for key, what in (("learning_rates", "learning rate"), ("alphas", "L2 strength")):
+        raise InputError("tick at least one output head that the guard allows for this target",
+                         setting="heads")
+    for key, what, setting in (("learning_rates", "learning rate", "learning_rate"),
+                               ("alphas", "L2 strength", "alpha")):
         bad = [v for v in choices.get(key) or [] if isinstance(v, str)]
         if bad:
-            raise InputError(f"{what} {bad[0]!r} is not a number; write e.g. 0.001 0.01")
+            raise InputError(f"{what} {bad[0]!r} is not a number; write e.g. 0.001 0.01",
+                             setting=setting)
     plan = core_build_plan(
         table.path, info.name, hidden=list(choices["hidden"]), output=list(choices["heads"]),
         layers=list(choices.get("layers") or ["32"]),
@@ -181,13 +214,9 @@ def build_plan(table: LoadedTable, summary: TargetSummary, choices: dict,
         epochs=int(choices["epochs"]), early_stopping=bool(choices.get("early_stopping")),
         metric=choices.get("metric") or None, df=table.df, target_info=info)
     if roles:
-        base = {c["name"]: c["role"] for c in table.columns}
-        changed = {n: r for n, r in roles.items()
-                   if n != info.name and r != "target" and base.get(n) != r}
-        # the profile's own target candidate counts as a feature when another target is chosen
-        changed = {n: r for n, r in changed.items()
-                   if not (base.get(n) == "target" and r == "feature")}
+        changed = user_roles(table, roles, info.name)
         if changed:
+            table.profile.with_roles(changed)  # the core's rule refuses what it cannot use
             plan.roles = changed
             plan.validate()
     return plan
@@ -479,9 +508,9 @@ def export(store_path: str | None, sweep_id: str, row: dict, folder: str,
     from workbench.export.bundle import export_configuration
 
     if not formats:
-        raise InputError("tick at least one export format")
+        raise InputError("tick at least one export format", setting="formats")
     if not str(folder).strip():
-        raise InputError("choose a folder to export to")
+        raise InputError("choose a folder to export to", setting="folder")
     rank = row.get("position") or row.get("rank") or "best"
     with StoreSession(store_path) as store:
         out = export_configuration(store, sweep_id, rank, folder, list(formats),

@@ -43,6 +43,7 @@ from PySide6.QtWidgets import (
 from workbench.gui import core_adapter as core
 from workbench.gui import theme as th
 from workbench.gui.bridge import SweepThread
+from workbench.gui.messages import phrase
 from workbench.gui.models import (
     COLUMN_KEYS,
     ROLES,
@@ -561,9 +562,19 @@ class MainWindow(QMainWindow):
 
         run_task(lambda: core.summarise_target(df, name), done, failed)
 
-    def _role_changed(self, column: str, role: str) -> None:
+    def _role_changed(self, column: str, role: str, previous: str) -> None:
+        """The user picked a role in the column profile: the core applies it or refuses it."""
         if role == "target":
             self.set_target(column)
+        elif self.table is not None:
+            try:
+                rows = core.apply_roles(self.table, self.profile_model.roles(),
+                                        self.setup.target())
+            except core.InputError as exc:
+                self.profile_model.set_role(column, previous)
+                self.show_message(phrase(exc))
+                return
+            self.profile_model.refresh(rows)
         self._update_estimate()
 
     # ================================================================== plan
@@ -574,7 +585,7 @@ class MainWindow(QMainWindow):
             plan = core.build_plan(self.table, self.summary, self.setup.choices(),
                                    self.profile_model.roles())
         except core.InputError as exc:
-            return None, str(exc)
+            return None, phrase(exc)
         return plan, ""
 
     def _update_estimate(self) -> None:

@@ -426,19 +426,43 @@ ROLES = ("feature", "target", "ignore")
 
 
 class ProfileModel(QAbstractTableModel):
-    """The column profile: name, type, missing share, role (editable)."""
+    """The column profile: name, type, missing share, role (editable).
 
-    roleChanged = Signal(str, str)  # column name, new role
+    The model only holds what the core said; a role the user picks is applied by the
+    core (:func:`workbench.gui.core_adapter.apply_roles`) and the rows it returns are
+    shown with :meth:`refresh`, or the pick is undone with :meth:`set_role`.
+    """
+
+    roleChanged = Signal(str, str, str)  # column name, new role, previous role
     HEADERS = ("Column", "Type", "Missing", "Distinct", "Role", "Why")
 
     def __init__(self, parent=None):
         super().__init__(parent)
         self._cols: list[dict] = []
+        self._base: dict[str, str] = {}
 
     def set_columns(self, cols: list[dict]) -> None:
         self.beginResetModel()
         self._cols = [dict(c) for c in cols]
+        self._base = {c["name"]: c["role"] for c in self._cols}  # the intake's roles
         self.endResetModel()
+
+    def refresh(self, cols: list[dict]) -> None:
+        """Show the core's type and note for each column (the roles stay as they are)."""
+        by_name = {c["name"]: c for c in cols}
+        for i, c in enumerate(self._cols):
+            new = by_name.get(c["name"])
+            if new is not None and (new["kind"], new["note"]) != (c.get("kind"), c.get("note")):
+                c["kind"], c["note"] = new["kind"], new["note"]
+                self.dataChanged.emit(self.index(i, 0), self.index(i, len(self.HEADERS) - 1))
+
+    def set_role(self, name: str, role: str) -> None:
+        """Show ``role`` for column ``name`` without announcing it as the user's pick."""
+        for i, c in enumerate(self._cols):
+            if c["name"] == name and c["role"] != role:
+                c["role"] = role
+                ix = self.index(i, 4)
+                self.dataChanged.emit(ix, ix)
 
     def columns(self) -> list[dict]:
         return [dict(c) for c in self._cols]
@@ -447,9 +471,13 @@ class ProfileModel(QAbstractTableModel):
         return {c["name"]: c["role"] for c in self._cols}
 
     def set_target(self, name: str) -> None:
+        """Make ``name`` the target; the former target gets its intake role back (the
+        intake's suggested target is a feature when another column is the target)."""
         for i, c in enumerate(self._cols):
+            base = self._base.get(c["name"], "feature")
             new = "target" if c["name"] == name else (
-                "feature" if c["role"] == "target" else c["role"])
+                ("feature" if base == "target" else base) if c["role"] == "target"
+                else c["role"])
             if new != c["role"]:
                 c["role"] = new
                 ix = self.index(i, 4)
@@ -505,7 +533,7 @@ class ProfileModel(QAbstractTableModel):
         c = self._cols[index.row()]
         if c["role"] == value:
             return False
-        c["role"] = value
+        previous, c["role"] = c["role"], value
         self.dataChanged.emit(index, index)
-        self.roleChanged.emit(c["name"], value)
+        self.roleChanged.emit(c["name"], value, previous)
         return True

@@ -1,7 +1,8 @@
 """Run one short core call (load, profile, export, read the store) off the GUI thread.
 
 ``run_task(fn, on_done, on_error)`` puts ``fn()`` on Qt's global thread pool and
-delivers its result (or its :class:`InputError` message) to the GUI thread
+delivers its result (or its :class:`InputError` message, phrased by
+:func:`workbench.gui.messages.phrase`) to the GUI thread
 through a queued signal. The returned :class:`TaskHandle` is kept alive until
 the result has been delivered.
 """
@@ -15,6 +16,7 @@ from collections.abc import Callable
 from PySide6.QtCore import QObject, QRunnable, QThreadPool, Signal, Slot
 
 from workbench.errors import InputError
+from workbench.gui.messages import phrase
 
 _LIVE: set = set()
 
@@ -53,7 +55,7 @@ class _Runnable(QRunnable):
         try:
             result = self.fn()
         except InputError as exc:
-            self._send(self.handle.failed, str(exc))
+            self._send(self.handle.failed, phrase(exc))
         except Exception as exc:  # shown as one line in the window
             last = traceback.format_exception_only(type(exc), exc)[-1].strip()
             self._send(self.handle.failed, f"unexpected problem: {last}")
