@@ -10,8 +10,8 @@ A *configuration* is one point of the grid (hidden x head x layers x learning
 rate x alpha). A *trial* is one configuration on one fold of one repeat, so a
 plan has ``n_configurations * K * R`` trials. Every configuration sees the same
 folds and, on a given fold, the same weight-initialisation seed, so that the
-fold scores of two configurations are paired (the ranking's t-test relies on
-it).
+fold scores of two configurations are paired (the corrected t-test of
+:mod:`workbench.sweep.statistics` relies on it).
 
 Each configuration names the engine that trains it: scikit-learn's own
 ``MLPRegressor`` / ``MLPClassifier`` where it can express the combination

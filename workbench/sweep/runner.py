@@ -410,8 +410,7 @@ class _InlineExecutor:
         return self._n
 
     def wait(self, handles, timeout):
-        out = [(h, self._results.pop(h), None) for h in handles]
-        return out
+        return [(h, self._results.pop(h), None) for h in handles]
 
     def close(self, kill=False):
         pass
@@ -479,7 +478,7 @@ class _LokyExecutor:
         self._dir = tempfile.TemporaryDirectory(prefix="workbench-sweep-")
         self._path = f"{self._dir.name}/table.pkl"
         joblib.dump(data, self._path)
-        self._token = secrets.token_hex(8)
+        self._token = data.token
         self._pool = None
 
     def _ensure(self):

@@ -41,9 +41,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-#: trial statuses
+#: trial statuses (a cancelled trial is never stored)
 DONE, DIVERGED, FAILED, CANCELLED = "done", "diverged", "failed", "cancelled"
-FINISHED_STATUSES = (DONE, DIVERGED, FAILED)
 
 
 @dataclass
@@ -326,8 +325,7 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
         result["history"] = _history(mlp)
         health = getattr(mlp, "health_", None)
         if health is not None:
-            result["health"] = {k: _clean(health.get(k, [])) for k in ("dead", "saturated",
-                                                                         "grad_norm")}
+            result["health"] = _clean_health(health)
         elif cfg["engine"] == "sklearn":
             result["health"] = _clean_health(_final_health(model, mlp, feats, y_tr,
                                                            cfg["hidden"]))
