@@ -326,13 +326,13 @@ def test_canonical_links():
 
 @pytest.mark.parametrize("name", ["relu", "softplus", "logistic"])
 def test_non_canonical_head_derivative_by_finite_differences(name):
-    """delta_factor(z, a) = d head / dz, checked by central finite differences (float64)."""
+    """Head.derivative(z, a) = d head / dz, checked by central finite differences (float64)."""
     head = act.resolve_head(name, "regression")
     z = _GRID.reshape(-1, 1)
     h = 1e-6
     fd = (_head_out("regression", name, z + h) - _head_out("regression", name, z - h)) / (2 * h)
     a = _head_out("regression", name, z)
-    np.testing.assert_allclose(head.delta_factor(z.copy(), a), fd, rtol=1e-6, atol=1e-8)
+    np.testing.assert_allclose(head.derivative(z.copy(), a), fd, rtol=1e-6, atol=1e-8)
 
 
 # --------------------------------------------------------------------------- numerical safety
@@ -382,7 +382,7 @@ def test_heads_safe_for_large_inputs(key, dtype):
     with _strict():
         out = head.apply_(z.copy())
         if not head.canonical:
-            fac = head.delta_factor(z.copy(), out)
+            fac = head.derivative(z.copy(), out)
             assert np.all(np.isfinite(fac))
     assert out.dtype == dtype
     assert np.all(np.isfinite(out))

@@ -1,7 +1,7 @@
 """Full-network gradients of the engine checked by central finite differences.
 
 For every hidden activation x output head pair the analytic gradient that
-``workbench.nets.engine._Net.backward`` writes into ``net.grad`` is compared with
+``workbench.nets.network.Network.backward`` writes into ``net.grad`` is compared with
 ``(L(theta + h e_i) - L(theta - h e_i)) / 2h`` in float64 (central finite differences,
 the same kind of check scikit-learn's own MLP test suite runs on its backpropagation).
 The loss values are compared with
@@ -16,8 +16,7 @@ from scipy import special
 from sklearn.metrics import log_loss, mean_poisson_deviance, mean_squared_error
 
 from workbench.nets import activations as act
-from workbench.nets import engine
-from workbench.nets.engine import _Net
+from workbench.nets.network import Network, with_ones
 
 HIDDEN = act.hidden_names()
 HEAD_KEYS = list(act.HEADS)  # (task, name) for all seven heads
@@ -47,20 +46,18 @@ def _targets(key, rng, m):
 
 
 def _batch(X):
-    """The rows as ``_Net.backward`` takes them (the engine appends a ones column for the
-    intercepts when it has the ``_with_ones`` helper)."""
-    with_ones = getattr(engine, "_with_ones", None)
-    return with_ones(X) if with_ones is not None else X
+    """The rows as ``Network.backward`` takes them: a trailing ones column for the intercepts."""
+    return with_ones(X)
 
 
 def _pre_activations(net, X, hidden, slope=0.01):
     """Every layer's z = a W + b, with the registry's forward functions (tested elsewhere
     against SciPy)."""
     zs, a = [], X
-    for i, (W, b) in enumerate(zip(net.W, net.b)):
+    for i, (W, b) in enumerate(zip(net.weights, net.intercepts)):
         z = a @ W + b
         zs.append(z)
-        if i < len(net.W) - 1:
+        if i < len(net.weights) - 1:
             fn = act.HIDDEN[hidden[i]]
             params = {"slope": slope} if fn.name == "leaky_relu" else {}
             a = fn.forward(z.copy(), **params)
@@ -69,9 +66,7 @@ def _pre_activations(net, X, hidden, slope=0.01):
 
 def _ready(net, m):
     """Buffers for m rows (the engine preallocates them)."""
-    ensure = getattr(net, "_ensure", None)
-    if ensure is not None:
-        ensure(m)
+    net.ensure(m)
 
 
 def _build(hidden, key, seed, leaky_slope=0.01):
@@ -80,7 +75,7 @@ def _build(hidden, key, seed, leaky_slope=0.01):
     units = [N_FEATURES, *LAYERS, _n_out(key)]
     for attempt in range(200):
         rng = np.random.default_rng(1000 * seed + attempt)
-        net = _Net(units, list(hidden), head, np.dtype(np.float64), leaky_slope)
+        net = Network(units, list(hidden), head, np.dtype(np.float64), leaky_slope)
         net.theta[...] = rng.normal(scale=0.8, size=net.theta.size)
         X = rng.normal(size=(N_ROWS, N_FEATURES))
         zs = _pre_activations(net, X, hidden, leaky_slope)
@@ -192,7 +187,7 @@ def test_loss_matches_sklearn_metrics(key, alpha):
         ref = log_loss(y.argmax(axis=1), p, labels=[0, 1, 2])
     else:
         ref = log_loss(y.ravel(), p.ravel())
-    ref += 0.5 * alpha * sum(float(np.sum(W * W)) for W in net.W) / N_ROWS
+    ref += 0.5 * alpha * sum(float(np.sum(W * W)) for W in net.weights) / N_ROWS
     assert loss == pytest.approx(ref, rel=1e-12)
 
 
@@ -200,10 +195,10 @@ def test_log_loss_is_clipped_as_sklearn_does():
     """A confident wrong prediction: probabilities clipped to [eps, 1 - eps] (float64 eps),
     the clipping scikit-learn's MLP applies before sklearn.metrics.log_loss-style averaging."""
     head = act.resolve_head("logistic", "classification")
-    net = _Net([1, 1, 1], ["identity"], head, np.dtype(np.float64), 0.01)
+    net = Network([1, 1, 1], ["identity"], head, np.dtype(np.float64), 0.01)
     _ready(net, 2)
-    net.W[0][...] = 1.0
-    net.W[1][...] = 1000.0
+    net.weights[0][...] = 1.0
+    net.weights[1][...] = 1000.0
     X = np.array([[1.0], [-1.0]])
     y = np.array([[0.0], [1.0]])
     loss = net.backward(_batch(X), y, 2, 0.0)

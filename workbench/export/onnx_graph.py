@@ -20,11 +20,10 @@ operators (opset 17 or newer)::
     for each hidden layer:  a = f(a @ W + b)
     out = head(a @ W + b)
 
-Hidden activations map to ``Identity``, ``Sigmoid``, ``Tanh``, ``Relu``,
-``LeakyRelu``, ``Elu``, ``Selu``, ``Softplus``; GELU (exact erf form) is
-composed as ``0.5 * z * (1 + Erf(z / sqrt(2)))`` and SiLU as ``z * Sigmoid(z)``.
-Heads map to ``Identity``, ``Sigmoid``, ``Softmax``, ``Exp`` (after the same
-overflow clip as the engine), ``Relu`` and ``Softplus``.
+Each hidden activation and each head is emitted by the ONNX form its registry
+entry carries (:attr:`workbench.nets.activations.Activation.onnx`,
+:attr:`workbench.nets.activations.Head.onnx`); this module only wires the layers
+together. :class:`_Emitter` is the graph builder those forms write into.
 
 Tables are fed as one ONNX input per column (numeric columns as float tensors,
 text and category columns as string tensors, datetime columns as int64 seconds
@@ -33,25 +32,17 @@ feed from a DataFrame.
 
 References
 ----------
-ONNX operator specification, https://onnx.ai/onnx/operators/ (opset 17):
-``Elu`` (alpha), ``Selu`` (alpha, gamma), ``LeakyRelu`` (alpha), ``Erf``, ``Softmax``.
+ONNX operator specification, https://onnx.ai/onnx/operators/ (opset 17).
 """
 
 from __future__ import annotations
 
-import math
 from collections.abc import Sequence
 
 import numpy as np
 
 from workbench.errors import InputError
-from workbench.nets.activations import (
-    ELU_ALPHA,
-    LEAKY_SLOPE,
-    SELU_ALPHA,
-    SELU_LAMBDA,
-    resolve_hidden,
-)
+from workbench.nets.activations import HIDDEN, LEAKY_SLOPE, resolve_head, resolve_hidden_layers
 
 #: the opset every export targets (the issue asks for 17 or newer)
 TARGET_OPSET = 17
@@ -69,34 +60,34 @@ _registered = False
 # --------------------------------------------------------------------------- network spec
 
 
-def network_spec(est) -> dict:
+def network_spec(est, task: str | None = None) -> dict:
     """The pieces of a fitted multilayer network the ONNX graph needs.
 
     Works for the project's engine (``activation`` may be one name or one per
     hidden layer, ``out_activation_`` any registered head, ``leaky_slope``) and
     for scikit-learn's ``MLPRegressor`` / ``MLPClassifier``.
 
+    Parameters
+    ----------
+    est : fitted estimator
+    task : {"regression", "classification"}, optional
+        Whose head ``out_activation_`` names; by default classification when
+        ``est`` has ``classes_``.
+
     Returns
     -------
     dict
         ``coefs`` (list of arrays), ``intercepts``, ``hidden`` (one canonical
-        activation name per hidden layer), ``head`` (output activation name) and
-        ``slope`` (leaky ReLU slope).
+        activation name per hidden layer), ``head`` (the output head's registry
+        entry, :class:`workbench.nets.activations.Head`) and ``slope`` (leaky ReLU slope).
     """
     coefs = [np.asarray(w) for w in est.coefs_]
     intercepts = [np.asarray(b) for b in est.intercepts_]
-    n_hidden = len(coefs) - 1
-    act = getattr(est, "hidden_activations_", None) or est.activation
-    if isinstance(act, str):
-        hidden = [resolve_hidden(act)] * n_hidden
-    else:
-        hidden = [resolve_hidden(a) for a in act]
-        if len(hidden) == 1 and n_hidden != 1:
-            hidden = hidden * n_hidden
-        if len(hidden) != n_hidden:
-            raise ValueError(
-                f"{len(hidden)} activations given for {n_hidden} hidden layers")
-    head = str(est.out_activation_).lower()
+    names = getattr(est, "hidden_activations_", None) or est.activation
+    hidden = resolve_hidden_layers(names, len(coefs) - 1)
+    if task is None:
+        task = "classification" if hasattr(est, "classes_") else "regression"
+    head = resolve_head(str(est.out_activation_), task)
     slope = float(getattr(est, "leaky_slope", LEAKY_SLOPE))
     return {"coefs": coefs, "intercepts": intercepts, "hidden": hidden, "head": head,
             "slope": slope}
@@ -135,56 +126,6 @@ class _Emitter:
         return out
 
 
-def _hidden(em: _Emitter, name: str, z: str, slope: float) -> str:
-    """Emit ``f(z)`` for hidden activation ``name``; returns the output name."""
-    if name == "identity":
-        return z
-    if name == "logistic":
-        return em.node("Sigmoid", [z])
-    if name == "tanh":
-        return em.node("Tanh", [z])
-    if name == "relu":
-        return em.node("Relu", [z])
-    if name == "leaky_relu":
-        return em.node("LeakyRelu", [z], alpha=float(slope))
-    if name == "elu":
-        return em.node("Elu", [z], alpha=float(ELU_ALPHA))
-    if name == "selu":
-        return em.node("Selu", [z], alpha=float(SELU_ALPHA), gamma=float(SELU_LAMBDA))
-    if name == "softplus":
-        return em.node("Softplus", [z])
-    if name == "gelu":
-        # Hendrycks & Gimpel (2016): z * Phi(z), Phi(z) = (1 + erf(z / sqrt 2)) / 2
-        scaled = em.node("Mul", [z, em.const("inv_sqrt2", 1.0 / math.sqrt(2.0))])
-        e = em.node("Erf", [scaled])
-        one_plus = em.node("Add", [e, em.const("one", 1.0)])
-        half_z = em.node("Mul", [z, em.const("half", 0.5)])
-        return em.node("Mul", [half_z, one_plus])
-    if name == "silu":
-        return em.node("Mul", [z, em.node("Sigmoid", [z])])
-    raise ValueError(f"no ONNX form for hidden activation {name!r}")
-
-
-def _head(em: _Emitter, name: str, z: str, output: str | None = None) -> str:
-    """Emit the output head ``name`` applied to ``z``."""
-    if name == "identity":
-        return em.node("Identity", [z], output=output)
-    if name == "logistic":
-        return em.node("Sigmoid", [z], output=output)
-    if name == "softmax":
-        return em.node("Softmax", [z], output=output, axis=1)
-    if name == "relu":
-        return em.node("Relu", [z], output=output)
-    if name == "softplus":
-        return em.node("Softplus", [z], output=output)
-    if name == "exp":
-        # the engine clips at log(max finite) - 1 so that e^z stays finite
-        hi = float(np.log(np.finfo(em.np_dtype).max) - 1.0)
-        clipped = em.node("Min", [z, em.const("exp_clip", hi)])
-        return em.node("Exp", [clipped], output=output)
-    raise ValueError(f"no ONNX form for output head {name!r}")
-
-
 def _forward(em: _Emitter, spec: dict, x: str, output: str | None = None) -> str:
     a = em.node("Cast", [x], hint="net_input", to=em.dtype)
     n = len(spec["coefs"])
@@ -193,9 +134,11 @@ def _forward(em: _Emitter, spec: dict, x: str, output: str | None = None) -> str
         bn = em.const(f"b{i}", np.reshape(b, (1, -1)))
         z = em.node("Add", [em.node("MatMul", [a, wn]), bn], hint=f"z{i}")
         if i < n - 1:
-            a = _hidden(em, spec["hidden"][i], z, spec["slope"])
+            # the activation's ONNX form is its registry entry's
+            activation = HIDDEN[spec["hidden"][i]]
+            a = activation.onnx(em, z, **activation.with_params(slope=spec["slope"]))
         else:
-            return _head(em, spec["head"], z, output=output)
+            return spec["head"].onnx(em, z, output=output)
     raise ValueError("a network needs at least one layer")  # pragma: no cover
 
 
@@ -223,7 +166,7 @@ def _net_regressor_shape(operator):
 
 def _net_regressor_convert(scope, operator, container):
     em = _Emitter(scope, container, _proto_dtype(operator.inputs[0].type))
-    spec = network_spec(operator.raw_operator)
+    spec = network_spec(operator.raw_operator, "regression")
     _forward(em, spec, operator.inputs[0].full_name, output=operator.outputs[0].full_name)
 
 
@@ -253,7 +196,7 @@ def _net_classifier_shape(operator):
 def _net_classifier_convert(scope, operator, container):
     est = operator.raw_operator
     em = _Emitter(scope, container, _proto_dtype(operator.inputs[0].type))
-    spec = network_spec(est)
+    spec = network_spec(est, "classification")
     classes = np.asarray(est.classes_)
     proba_out = operator.outputs[1].full_name
     width = spec["coefs"][-1].shape[1]

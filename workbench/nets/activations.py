@@ -1,11 +1,24 @@
-"""Hidden activations and output heads: one registry, used everywhere.
+"""Hidden activations and output heads: one registry, the one place for each fact.
 
-Each hidden activation carries its function, its derivative, its range and a
-formula / one-line description (the window's tooltips read them). Each output
-head carries its activation, the loss it is matched with, the task it serves
-and the range of values it can produce (the compatibility guard reads it).
+Each hidden activation (:class:`Activation`) carries its function, its derivative,
+its range, its ONNX form, the facts the engine and the health measurement read
+(whether it saturates, whether it is piecewise linear, whether it maps 1 to 1,
+which initialisation family it belongs to, scikit-learn's Glorot factor for it),
+its aliases and a formula / one-line description (the window's tooltips read
+them). Each output head (:class:`Head`) carries its activation, its derivative
+when it is not the canonical link of its loss, the loss it is matched with
+(:mod:`workbench.nets.losses`), the task it serves, the range of values it can
+produce (the compatibility guard reads it) and its ONNX form.
 
-The engine never branches on names: it looks functions up here.
+Nothing else lists these names or facts: the engine, the health measurement, the
+ONNX converter and the configuration schema's test all read them here.
+
+ONNX forms are written against a small graph-builder protocol, so this module
+needs no ONNX import: ``graph.node(op, inputs, output=None, **attributes)`` adds
+one node of the standard ``ai.onnx`` domain and returns its output name,
+``graph.const(hint, value)`` adds a constant in the graph's float type and returns
+its name, and ``graph.np_dtype`` is that float type
+(:class:`workbench.export.onnx_graph._Emitter` implements it).
 
 References
 ----------
@@ -19,6 +32,10 @@ References
 - Hendrycks & Gimpel (2016), "Gaussian error linear units (GELUs)" (exact erf form).
 - Elfwing, Uchibe & Doya (2018), "Sigmoid-weighted linear units for neural network
   function approximation" (SiLU); Ramachandran, Zoph & Le (2017) call it swish.
+- Glorot & Bengio (2010), "Understanding the difficulty of training deep feedforward
+  neural networks" (uniform bound sqrt(6 / (fan_in + fan_out))).
+- He, Zhang, Ren & Sun (2015), "Delving deep into rectifiers" (bound sqrt(6 / fan_in)).
+- ONNX operator specification, https://onnx.ai/onnx/operators/ (opset 17).
 """
 
 from __future__ import annotations
@@ -30,107 +47,138 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.special import expit, ndtr
 
+from workbench.nets import losses
+from workbench.nets.losses import LOSS_LABELS, Loss
+
 # Klambauer et al. (2017), eq. 14 / section "SELU": the fixed-point constants.
 SELU_ALPHA = 1.6732632423543772848170429916717
 SELU_LAMBDA = 1.0507009873554804934193349852946
 ELU_ALPHA = 1.0  # Clevert et al. (2016) use alpha = 1 throughout
 LEAKY_SLOPE = 0.01  # Maas et al. (2013)
+#: Glorot & Bengio (2010): uniform bound sqrt(6 / (fan_in + fan_out))
+GLOROT_FACTOR = 6.0
+#: scikit-learn's MLP uses sqrt(2 / (fan_in + fan_out)) for logistic layers
+GLOROT_FACTOR_LOGISTIC = 2.0
+#: He et al. (2015): uniform bound sqrt(6 / fan_in) for rectifier layers
+HE_FACTOR = 6.0
 
 _SQRT_HALF = 1.0 / math.sqrt(2.0)
 _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 
 INF = math.inf
 
+__all__ = ["Activation", "Head", "HIDDEN", "HEADS", "HIDDEN_ALIASES", "HEAD_ALIASES",
+           "SKLEARN_HIDDEN", "SKLEARN_HEADS", "LOSS_LABELS", "hidden_names", "head_names",
+           "resolve_hidden", "get_hidden", "resolve_hidden_layers", "resolve_head", "glorot_bound"]
+
 
 # --------------------------------------------------------------------------- hidden
 
 
+def glorot_bound(fan_in: int, fan_out: int, factor: float = GLOROT_FACTOR) -> float:
+    """Half-width ``sqrt(factor / (fan_in + fan_out))`` of Glorot's uniform initialisation."""
+    return math.sqrt(factor / (fan_in + fan_out))
+
+
 @dataclass(frozen=True)
 class Activation:
-    """A hidden-layer activation.
+    """A hidden-layer activation and every fact the program knows about it.
 
-    ``forward(z, **params)`` returns ``f(z)`` as a new array; ``apply_(z, **params)``
-    overwrites ``z`` with ``f(z)`` and returns it (the engine's fast path).
-    ``derivative(z, a, **params)`` returns ``f'(z)`` given both the
-    pre-activation ``z`` and the activation ``a = f(z)``; when
-    ``needs_z`` is false it only reads ``a``, so the engine need not keep ``z``.
+    Attributes
+    ----------
+    name : str
+    forward : callable
+        ``forward(z, **params)`` returns ``f(z)`` as a new array.
+    apply_ : callable
+        ``apply_(z, **params)`` overwrites ``z`` with ``f(z)`` and returns it (the
+        engine's fast path).
+    derivative : callable
+        ``derivative(z, a, out=None, **params)`` returns ``f'(z)`` given the
+        pre-activation ``z`` and the activation ``a = f(z)``, written into ``out``
+        (shaped like ``a``) when given. When ``needs_z`` is false it reads only
+        ``a`` (``z`` may be None), so the engine need not keep ``z``. Training and
+        the health measurement both use this function.
+    onnx : callable
+        ``onnx(graph, z, output=None, **params)`` emits ``f(z)`` with standard ONNX
+        operators (see the module docstring) and returns the output's name.
+    low, high : float
+        The range: infimum and supremum of ``f``.
+    formula, description : str
+    needs_z : bool
+    saturates : bool
+        The derivative is smooth and tends to 0 in a tail, so a unit can sit where
+        it barely learns; the health measurement counts such units.
+    piecewise_linear : bool
+        The derivative is piecewise constant (no saturation is defined: a unit is
+        either dead or fully active).
+    keeps_one : bool
+        ``f(1) == 1`` exactly, so applying ``f`` to a buffer with a trailing column
+        of ones leaves that column intact.
+    he_init : bool
+        A rectifier-shaped activation (``f(z) ~ z`` above zero, small below): the
+        estimators' ``init="he"`` gives its layers He et al.'s bound.
+    glorot_factor : float
+        ``factor`` in the Glorot bound ``sqrt(factor / (fan_in + fan_out))``.
+    low_attained : bool
+        Whether ``f`` reaches ``low`` (closed range) or only approaches it.
+    in_sklearn : bool
+        scikit-learn's own MLP implements it.
+    aliases : tuple of str
+        Other names accepted for it.
+    params : dict
+        The activation's parameters and their defaults (``slope`` of leaky ReLU).
     """
 
     name: str
     forward: Callable
     apply_: Callable
     derivative: Callable
+    onnx: Callable
     low: float
     high: float
     formula: str
     description: str
     needs_z: bool = True
     saturates: bool = False
+    piecewise_linear: bool = False
+    keeps_one: bool = False
+    he_init: bool = False
+    glorot_factor: float = GLOROT_FACTOR
+    low_attained: bool = True
+    in_sklearn: bool = False
+    aliases: tuple = ()
     params: dict = field(default_factory=dict)
+
+    def with_params(self, **values) -> dict:
+        """The activation's parameters, with the given ``values`` for those it has.
+
+        Values for parameters it does not have are ignored, so a caller can pass
+        every setting it knows (e.g. ``slope``) to every activation.
+        """
+        return {k: values.get(k, v) for k, v in self.params.items()}
+
+    def init_bound(self, fan_in: int, fan_out: int, he: bool = False) -> float:
+        """Half-width of the uniform initialisation of a layer with this activation.
+
+        ``sqrt(6 / fan_in)`` (He et al. 2015) when ``he`` is asked for and the
+        activation is rectifier-shaped, else ``sqrt(glorot_factor / (fan_in + fan_out))``
+        (Glorot & Bengio 2010, with scikit-learn's factor 2 for logistic).
+        """
+        if he and self.he_init:
+            return math.sqrt(HE_FACTOR / fan_in)
+        return glorot_bound(fan_in, fan_out, self.glorot_factor)
 
     @property
     def range_text(self) -> str:
         lo = "-inf" if self.low == -INF else f"{self.low:g}"
         hi = "inf" if self.high == INF else f"{self.high:g}"
-        lo_b = "(" if self.low == -INF or self.name in _OPEN_LOW else "["
+        lo_b = "(" if self.low == -INF or not self.low_attained else "["
         hi_b = ")"
         return f"{lo_b}{lo}, {hi}{hi_b}"
 
     @property
     def tooltip(self) -> str:
         return f"{self.name}: {self.formula}; range {self.range_text}. {self.description}"
-
-
-_OPEN_LOW = {"logistic", "tanh", "softplus", "elu", "selu"}
-
-
-def _identity(z, **_):
-    return np.array(z, copy=True)
-
-
-def _identity_(z, **_):
-    return z
-
-
-def _identity_d(z, a, **_):
-    return np.ones_like(a)
-
-
-def _logistic(z, **_):
-    return expit(z)
-
-
-def _logistic_(z, **_):
-    return expit(z, out=z)
-
-
-def _logistic_d(z, a, **_):
-    return a * (1.0 - a)
-
-
-def _tanh(z, **_):
-    return np.tanh(z)
-
-
-def _tanh_(z, **_):
-    return np.tanh(z, out=z)
-
-
-def _tanh_d(z, a, **_):
-    return 1.0 - a * a
-
-
-def _relu(z, **_):
-    return np.maximum(z, 0)
-
-
-def _relu_(z, **_):
-    return np.maximum(z, 0, out=z)
-
-
-def _relu_d(z, a, **_):
-    # scikit-learn's convention: the derivative at 0 is 0 (it tests a == 0).
-    return (a > 0).astype(a.dtype)
 
 
 # np.where is avoided below: on batch-sized arrays it is about ten times slower than
@@ -142,9 +190,94 @@ def _as_float(z):
     return z if z.dtype.kind == "f" else z.astype(np.float64)
 
 
-def _step(z):
-    """1.0 where z > 0, else 0.0, in z's float type."""
-    return np.greater(z, 0).astype(z.dtype)
+def _into(out, values, dtype):
+    """``values`` in ``out`` when given, else as an array of ``dtype``."""
+    if out is None:
+        return values.astype(dtype, copy=False)
+    np.copyto(out, values, casting="same_kind")
+    return out
+
+
+def _op(op, **attributes):
+    """The ONNX form of an activation that is one standard operator."""
+    def form(graph, z, output=None, **_):
+        return graph.node(op, [z], output=output, **attributes)
+
+    form.__doc__ = f"``{op}``"
+    return form
+
+
+# identity -------------------------------------------------------------------------
+
+
+def _identity(z, **_):
+    return np.array(z, copy=True)
+
+
+def _identity_(z, **_):
+    return z
+
+
+def _identity_d(z, a, out=None, **_):
+    if out is None:
+        return np.ones_like(a)
+    out.fill(1)
+    return out
+
+
+def _identity_onnx(graph, z, output=None, **_):
+    # a hidden identity layer needs no node; an output must still be produced by one
+    return z if output is None else graph.node("Identity", [z], output=output)
+
+
+# logistic, tanh --------------------------------------------------------------------
+
+
+def _logistic(z, **_):
+    return expit(z)
+
+
+def _logistic_(z, **_):
+    return expit(z, out=z)
+
+
+def _logistic_d(z, a, out=None, **_):
+    out = np.subtract(1.0, a, out=out)
+    out *= a
+    return out
+
+
+def _tanh(z, **_):
+    return np.tanh(z)
+
+
+def _tanh_(z, **_):
+    return np.tanh(z, out=z)
+
+
+def _tanh_d(z, a, out=None, **_):
+    out = np.multiply(a, a, out=out)
+    np.subtract(1.0, out, out=out)
+    return out
+
+
+# relu, leaky relu -------------------------------------------------------------------
+
+
+def _relu(z, **_):
+    return np.maximum(z, 0)
+
+
+def _relu_(z, **_):
+    return np.maximum(z, 0, out=z)
+
+
+def _relu_d(z, a, out=None, **_):
+    # scikit-learn's convention: the derivative at 0 is 0 (it tests a == 0).
+    if out is None:
+        out = np.empty_like(a)
+    np.greater(a, 0, out=out)  # 1.0 where active (faster than a boolean mask)
+    return out
 
 
 def _leaky(z, slope=LEAKY_SLOPE, **_):
@@ -157,11 +290,24 @@ def _leaky_(z, slope=LEAKY_SLOPE, **_):
     return np.maximum(z, z * slope, out=z)
 
 
-def _leaky_d(z, a, slope=LEAKY_SLOPE, **_):
-    d = _step(a)
-    d *= 1.0 - slope
-    d += slope
-    return d
+def _leaky_d(z, a, out=None, slope=LEAKY_SLOPE, **_):
+    # 1 where active, slope elsewhere: slope + (1 - slope) * [a > 0]
+    out = _relu_d(z, a, out)
+    out *= 1.0 - slope
+    out += slope
+    return out
+
+
+def _leaky_onnx(graph, z, output=None, slope=LEAKY_SLOPE, **_):
+    return graph.node("LeakyRelu", [z], output=output, alpha=float(slope))
+
+
+# elu, selu ----------------------------------------------------------------------------
+
+
+def _step(z):
+    """1.0 where z > 0, else 0.0, in z's float type."""
+    return np.greater(z, 0).astype(z.dtype)
 
 
 def _elu_core(z, alpha):
@@ -194,9 +340,13 @@ def _elu_gate(z, alpha, scale):
     return d
 
 
-def _elu_d(z, a, alpha=ELU_ALPHA, **_):
+def _elu_d(z, a, out=None, alpha=ELU_ALPHA, **_):
     # for z <= 0: d/dz alpha*(e^z - 1) = alpha*e^z; 1 above zero
-    return _elu_gate(z, alpha, 1.0).astype(a.dtype, copy=False)
+    return _into(out, _elu_gate(z, alpha, 1.0), a.dtype)
+
+
+def _elu_onnx(graph, z, output=None, alpha=ELU_ALPHA, **_):
+    return graph.node("Elu", [z], output=output, alpha=float(alpha))
 
 
 def _selu(z, **_):
@@ -210,12 +360,15 @@ def _selu_(z, **_):
     return z
 
 
-def _selu_d(z, a, **_):
+def _selu_d(z, a, out=None, **_):
     # lambda*alpha*e^z for z <= 0, lambda above zero
-    return _elu_gate(z, SELU_ALPHA, SELU_LAMBDA).astype(a.dtype, copy=False)
+    return _into(out, _elu_gate(z, SELU_ALPHA, SELU_LAMBDA), a.dtype)
 
 
-def _fast_expit(z):
+# gelu, silu, softplus -------------------------------------------------------------------
+
+
+def _fast_expit(z, out=None):
     """The logistic function as 0.5 * (1 + tanh(z / 2)), an exact identity.
 
     NumPy's tanh is vectorised; scipy.special.expit is several times slower on the
@@ -223,7 +376,7 @@ def _fast_expit(z):
     value underflows to 0 where expit would give a tiny positive number.
     """
     z = np.asarray(z)
-    s = np.multiply(z, 0.5)
+    s = np.multiply(z, 0.5, out=out)
     np.tanh(s, out=s)
     s += 1
     s *= 0.5
@@ -299,11 +452,19 @@ def _gelu_(z, **_):
     return z
 
 
-def _gelu_d(z, a, **_):
+def _gelu_d(z, a, out=None, **_):
     # d/dz z*Phi(z) = Phi(z) + z*phi(z); Phi(z) = a / z from the forward pass
     cdf = _gate_from_output(z, a)
     pdf = _INV_SQRT_2PI * np.exp(-0.5 * z * z)
-    return (cdf + z * pdf).astype(a.dtype, copy=False)
+    return _into(out, cdf + z * pdf, a.dtype)
+
+
+def _gelu_onnx(graph, z, output=None, **_):
+    # Hendrycks & Gimpel (2016): z * Phi(z), Phi(z) = (1 + erf(z / sqrt 2)) / 2
+    scaled = graph.node("Mul", [z, graph.const("inv_sqrt2", _SQRT_HALF)])
+    one_plus = graph.node("Add", [graph.node("Erf", [scaled]), graph.const("one", 1.0)])
+    half_z = graph.node("Mul", [z, graph.const("half", 0.5)])
+    return graph.node("Mul", [half_z, one_plus], output=output)
 
 
 def _silu(z, **_):
@@ -316,10 +477,18 @@ def _silu_(z, **_):
     return z
 
 
-def _silu_d(z, a, **_):
-    # d/dz z*s(z) = s + z*s*(1 - s), with s = sigmoid(z) = a / z from the forward pass
+def _silu_d(z, a, out=None, **_):
+    # d/dz z*s(z) = s + z*s*(1 - s) = s*(1 + z*(1 - s)), with s = sigmoid(z) = a / z
     s = _gate_from_output(z, a)
-    return (s * (1.0 + z * (1.0 - s))).astype(a.dtype, copy=False)
+    out = np.subtract(1.0, s, out=out)
+    out *= z
+    out += 1.0
+    out *= s
+    return out
+
+
+def _silu_onnx(graph, z, output=None, **_):
+    return graph.node("Mul", [z, graph.node("Sigmoid", [z])], output=output)
 
 
 def _softplus(z, **_):
@@ -339,9 +508,13 @@ def _softplus_(z, **_):
     return z
 
 
-def _softplus_d(z, a, **_):
-    return _fast_expit(z).astype(a.dtype, copy=False)
+def _softplus_d(z, a, out=None, **_):
+    if out is None:
+        return _fast_expit(z).astype(a.dtype, copy=False)
+    return _fast_expit(z, out=out)
 
+
+# the registry --------------------------------------------------------------------------
 
 HIDDEN: dict[str, Activation] = {}
 
@@ -350,43 +523,63 @@ def _register(act: Activation):
     HIDDEN[act.name] = act
 
 
-_register(Activation("identity", _identity, _identity_, _identity_d, -INF, INF, "f(z) = z",
-                     "No non-linearity: the network stays a linear model.", needs_z=False))
-_register(Activation("logistic", _logistic, _logistic_, _logistic_d, 0.0, 1.0,
-                     "f(z) = 1 / (1 + e^-z)",
-                     "Smooth and bounded; saturates for large |z| so gradients can vanish.",
-                     needs_z=False, saturates=True))
-_register(Activation("tanh", _tanh, _tanh_, _tanh_d, -1.0, 1.0, "f(z) = tanh(z)",
-                     "Zero-centred and bounded; saturates for large |z|.", needs_z=False,
-                     saturates=True))
-_register(Activation("relu", _relu, _relu_, _relu_d, 0.0, INF, "f(z) = max(0, z)",
-                     "The usual default; units stuck below zero stop learning (dead units).",
-                     needs_z=False))
-_register(Activation("leaky_relu", _leaky, _leaky_, _leaky_d, -INF, INF,
-                     "f(z) = z if z > 0 else a*z (a = 0.01)",
-                     "ReLU with a small slope below zero, so units cannot die completely.",
-                     needs_z=False, params={"slope": LEAKY_SLOPE}))
-_register(Activation("elu", _elu, _elu_, _elu_d, -ELU_ALPHA, INF,
-                     "f(z) = z if z > 0 else a*(e^z - 1) (a = 1)",
-                     "Smooth below zero with a negative floor; mean activations nearer zero.",
-                     params={"alpha": ELU_ALPHA}))
-_register(Activation("selu", _selu, _selu_, _selu_d, -SELU_LAMBDA * SELU_ALPHA, INF,
-                     "f(z) = l*z if z > 0 else l*a*(e^z - 1) (l = 1.0507, a = 1.6733)",
-                     "Scaled ELU whose constants keep activations near zero mean, unit variance."))
-_register(Activation("gelu", _gelu, _gelu_, _gelu_d, -0.16997120747990, INF,
-                     "f(z) = z * Phi(z) (Phi = standard normal CDF, exact erf form)",
-                     "Smooth ReLU-like gate weighted by the normal CDF."))
-_register(Activation("silu", _silu, _silu_, _silu_d, -0.27846454276107, INF,
-                     "f(z) = z / (1 + e^-z)",
-                     "Smooth, non-monotonic ReLU-like gate (also called swish)."))
-_register(Activation("softplus", _softplus, _softplus_, _softplus_d, 0.0, INF,
-                     "f(z) = log(1 + e^z)",
-                     "A smooth ReLU that is never exactly flat, so never dead."))
+_register(Activation(
+    "identity", _identity, _identity_, _identity_d, _identity_onnx, -INF, INF, "f(z) = z",
+    "No non-linearity: the network stays a linear model.", needs_z=False,
+    piecewise_linear=True, keeps_one=True, in_sklearn=True, aliases=("linear",)))
+_register(Activation(
+    "logistic", _logistic, _logistic_, _logistic_d, _op("Sigmoid"), 0.0, 1.0,
+    "f(z) = 1 / (1 + e^-z)",
+    "Smooth and bounded; saturates for large |z| so gradients can vanish.",
+    needs_z=False, saturates=True, glorot_factor=GLOROT_FACTOR_LOGISTIC, low_attained=False,
+    in_sklearn=True, aliases=("sigmoid",)))
+_register(Activation(
+    "tanh", _tanh, _tanh_, _tanh_d, _op("Tanh"), -1.0, 1.0, "f(z) = tanh(z)",
+    "Zero-centred and bounded; saturates for large |z|.", needs_z=False, saturates=True,
+    low_attained=False, in_sklearn=True))
+_register(Activation(
+    "relu", _relu, _relu_, _relu_d, _op("Relu"), 0.0, INF, "f(z) = max(0, z)",
+    "The usual default; units stuck below zero stop learning (dead units).",
+    needs_z=False, piecewise_linear=True, keeps_one=True, he_init=True, in_sklearn=True))
+_register(Activation(
+    "leaky_relu", _leaky, _leaky_, _leaky_d, _leaky_onnx, -INF, INF,
+    "f(z) = z if z > 0 else a*z (a = 0.01)",
+    "ReLU with a small slope below zero, so units cannot die completely.",
+    needs_z=False, piecewise_linear=True, keeps_one=True, he_init=True,
+    params={"slope": LEAKY_SLOPE}))
+_register(Activation(
+    "elu", _elu, _elu_, _elu_d, _elu_onnx, -ELU_ALPHA, INF,
+    "f(z) = z if z > 0 else a*(e^z - 1) (a = 1)",
+    "Smooth below zero with a negative floor; mean activations nearer zero.",
+    saturates=True, keeps_one=True, he_init=True, low_attained=False,
+    params={"alpha": ELU_ALPHA}))
+_register(Activation(
+    "selu", _selu, _selu_, _selu_d,
+    _op("Selu", alpha=float(SELU_ALPHA), gamma=float(SELU_LAMBDA)),
+    -SELU_LAMBDA * SELU_ALPHA, INF,
+    "f(z) = l*z if z > 0 else l*a*(e^z - 1) (l = 1.0507, a = 1.6733)",
+    "Scaled ELU whose constants keep activations near zero mean, unit variance.",
+    saturates=True, he_init=True, low_attained=False))
+_register(Activation(
+    "gelu", _gelu, _gelu_, _gelu_d, _gelu_onnx, -0.16997120747990, INF,
+    "f(z) = z * Phi(z) (Phi = standard normal CDF, exact erf form)",
+    "Smooth ReLU-like gate weighted by the normal CDF.", saturates=True, he_init=True))
+_register(Activation(
+    "silu", _silu, _silu_, _silu_d, _silu_onnx, -0.27846454276107, INF,
+    "f(z) = z / (1 + e^-z)",
+    "Smooth, non-monotonic ReLU-like gate (also called swish).", saturates=True,
+    he_init=True, aliases=("swish",)))
+_register(Activation(
+    "softplus", _softplus, _softplus_, _softplus_d, _op("Softplus"), 0.0, INF,
+    "f(z) = log(1 + e^z)",
+    "A smooth ReLU that is never exactly flat, so never dead.", saturates=True,
+    he_init=True, low_attained=False))
 
-HIDDEN_ALIASES = {"sigmoid": "logistic", "swish": "silu", "linear": "identity"}
+#: alias -> canonical name of a hidden activation
+HIDDEN_ALIASES = {alias: a.name for a in HIDDEN.values() for alias in a.aliases}
 
 #: hidden activations scikit-learn's own MLP implements
-SKLEARN_HIDDEN = ("identity", "logistic", "tanh", "relu")
+SKLEARN_HIDDEN = tuple(a.name for a in HIDDEN.values() if a.in_sklearn)
 
 
 def hidden_names() -> list[str]:
@@ -402,7 +595,7 @@ def resolve_hidden(name: str) -> str:
         naming every valid choice when ``name`` is unknown.
     """
     if not isinstance(name, str):
-        raise ValueError(f"activation must be a string, got {name!r}")
+        raise ValueError(f"the hidden activation must be a name, got {name!r}")
     key = name.strip().lower()
     key = HIDDEN_ALIASES.get(key, key)
     if key not in HIDDEN:
@@ -415,6 +608,24 @@ def get_hidden(name: str) -> Activation:
     return HIDDEN[resolve_hidden(name)]
 
 
+def resolve_hidden_layers(activation, n_hidden: int) -> list[str]:
+    """Canonical activation name per hidden layer, from one name or one name per layer.
+
+    Raises
+    ------
+    ValueError
+        for an unknown name, or when the number of names is not the number of layers.
+    """
+    if isinstance(activation, str):
+        return [resolve_hidden(activation)] * n_hidden
+    names = list(activation) if hasattr(activation, "__iter__") else [activation]
+    if len(names) != n_hidden:
+        raise ValueError(
+            f"{len(names)} hidden activations are given but there are {n_hidden} hidden "
+            "layers; give one name for all layers or one per hidden layer")
+    return [resolve_hidden(n) for n in names]
+
+
 # --------------------------------------------------------------------------- output heads
 
 
@@ -425,37 +636,78 @@ def _softmax_(z):
     return z
 
 
+def _softmax_onnx(graph, z, output=None, **_):
+    return graph.node("Softmax", [z], output=output, axis=1)
+
+
+def _exp_clip(dtype) -> float:
+    """The largest z whose e^z stays finite (with a margin) in ``dtype``."""
+    return float(np.log(np.finfo(dtype).max) - 1.0)
+
+
 def _exp_(z):
     # clip so that e^z stays finite in the array's precision (no overflow warnings)
-    hi = np.log(np.finfo(z.dtype).max) - 1.0
-    np.minimum(z, hi, out=z)
+    np.minimum(z, _exp_clip(z.dtype), out=z)
     return np.exp(z, out=z)
+
+
+def _exp_onnx(graph, z, output=None, **_):
+    clipped = graph.node("Min", [z, graph.const("exp_clip", _exp_clip(graph.np_dtype))])
+    return graph.node("Exp", [clipped], output=output)
 
 
 @dataclass(frozen=True)
 class Head:
     """An output head: output activation + matched loss + the task it serves.
 
-    ``apply_(z)`` overwrites the output pre-activation with the prediction.
-    ``delta_factor(z, a)`` is the head's derivative that the output delta must
-    carry when the head is *not* the canonical link of its loss (None when it
-    is canonical, so that delta = prediction - target).
+    Attributes
+    ----------
+    name, task : str
+        ``task`` is "regression" or "classification".
+    loss_fn : :class:`workbench.nets.losses.Loss`
+        The loss the head is matched with (``loss`` is its name).
+    apply_ : callable
+        ``apply_(z)`` overwrites the output pre-activation with the prediction.
+    onnx : callable
+        The head's ONNX form (see :class:`Activation`).
+    low, high : float
+        The values the head can produce (the compatibility guard reads them).
+    formula, description, serves : str
+    derivative : callable or None
+        ``derivative(z, a, out=None)``, d head / dz, which the output delta must
+        carry when the head is *not* the canonical link of its loss; None when it
+        is (then the delta is prediction - target).
+    distribution : bool
+        The outputs form one probability distribution over the classes (softmax),
+        so two classes need two output units.
+    in_sklearn : bool
+        scikit-learn's own MLP uses this head for the task.
+    aliases : tuple of str
     """
 
     name: str
-    task: str  # "regression" or "classification"
-    loss: str  # "squared_error", "poisson", "log_loss"
+    task: str
+    loss_fn: Loss
     apply_: Callable
+    onnx: Callable
     low: float
     high: float
     formula: str
     description: str
     serves: str
-    delta_factor: Callable | None = None
+    derivative: Callable | None = None
+    distribution: bool = False
+    in_sklearn: bool = False
+    aliases: tuple = ()
+
+    @property
+    def loss(self) -> str:
+        """The matched loss's name (``squared_error``, ``poisson``, ``log_loss``)."""
+        return self.loss_fn.name
 
     @property
     def canonical(self) -> bool:
-        return self.delta_factor is None
+        return self.derivative is None
 
     @property
     def key(self) -> tuple[str, str]:
@@ -465,15 +717,22 @@ class Head:
     def tooltip(self) -> str:
         lo = "-inf" if self.low == -INF else f"{self.low:g}"
         hi = "inf" if self.high == INF else f"{self.high:g}"
-        return (f"{self.name}: {self.formula}, range [{lo}, {hi}], loss {LOSS_LABELS[self.loss]}. "
+        return (f"{self.name}: {self.formula}, range [{lo}, {hi}], loss {self.loss_fn.label}. "
                 f"{self.description}")
 
+    def output_delta(self, y, p, z, out):
+        """The error at the output pre-activation ``z``, per row, into ``out``.
 
-LOSS_LABELS = {
-    "squared_error": "half squared error",
-    "poisson": "half Poisson deviance",
-    "log_loss": "log-loss (cross-entropy)",
-}
+        ``dl/dz = dl/dp * dp/dz``: for a canonical link this is ``p - y``
+        (McCullagh & Nelder 1989); otherwise the loss's gradient times the head's
+        derivative (``z`` must then be the pre-activation, ``p`` the prediction).
+        """
+        if self.derivative is None:
+            return np.subtract(p, y, out=out)
+        self.loss_fn.gradient(y, p, out=out)
+        out *= self.derivative(z, p)
+        return out
+
 
 HEADS: dict[tuple[str, str], Head] = {}
 
@@ -482,41 +741,43 @@ def _register_head(h: Head):
     HEADS[h.key] = h
 
 
-_register_head(Head("identity", "regression", "squared_error", lambda z: z, -INF, INF,
-                    "y = z", "Linear output for a signed (or any real) target.",
-                    serves="signed regression"))
-_register_head(Head("exp", "regression", "poisson", _exp_, 0.0, INF, "y = e^z",
-                    "Positive output matched with the Poisson deviance, for counts.",
-                    serves="count regression"))
-_register_head(Head("relu", "regression", "squared_error", lambda z: np.maximum(z, 0, out=z),
-                    0.0, INF, "y = max(0, z)",
-                    "Non-negative output; exact zeros are reachable.",
-                    serves="non-negative regression",
-                    delta_factor=lambda z, a: (a > 0).astype(a.dtype)))
-_register_head(Head("softplus", "regression", "squared_error",
-                    _softplus_, 0.0, INF, "y = log(1 + e^z)",
-                    "Smooth non-negative output that never goes flat.",
-                    serves="non-negative regression",
-                    delta_factor=lambda z, a: _fast_expit(z).astype(a.dtype, copy=False)))
-_register_head(Head("logistic", "regression", "squared_error", lambda z: expit(z, out=z),
-                    0.0, 1.0, "y = 1 / (1 + e^-z)",
-                    "Output bounded in [0, 1], for a target scaled to its known interval.",
-                    serves="bounded regression",
-                    delta_factor=lambda z, a: a * (1.0 - a)))
-_register_head(Head("logistic", "classification", "log_loss", lambda z: expit(z, out=z),
-                    0.0, 1.0, "p = 1 / (1 + e^-z)",
-                    "Probability of the positive class, matched with log-loss.",
-                    serves="binary classification"))
-_register_head(Head("softmax", "classification", "log_loss", _softmax_, 0.0, 1.0,
-                    "p_k = e^z_k / sum_j e^z_j",
-                    "One probability per class, summing to one, matched with log-loss.",
-                    serves="multiclass classification"))
+_register_head(Head(
+    "identity", "regression", losses.SQUARED_ERROR, _identity_, _identity_onnx, -INF, INF,
+    "y = z", "Linear output for a signed (or any real) target.", serves="signed regression",
+    in_sklearn=True, aliases=("linear",)))
+_register_head(Head(
+    "exp", "regression", losses.POISSON, _exp_, _exp_onnx, 0.0, INF, "y = e^z",
+    "Positive output matched with the Poisson deviance, for counts.",
+    serves="count regression", in_sklearn=True))
+_register_head(Head(
+    "relu", "regression", losses.SQUARED_ERROR, _relu_, _op("Relu"), 0.0, INF,
+    "y = max(0, z)", "Non-negative output; exact zeros are reachable.",
+    serves="non-negative regression", derivative=_relu_d))
+_register_head(Head(
+    "softplus", "regression", losses.SQUARED_ERROR, _softplus_, _op("Softplus"), 0.0, INF,
+    "y = log(1 + e^z)", "Smooth non-negative output that never goes flat.",
+    serves="non-negative regression", derivative=_softplus_d))
+_register_head(Head(
+    "logistic", "regression", losses.SQUARED_ERROR, _logistic_, _op("Sigmoid"), 0.0, 1.0,
+    "y = 1 / (1 + e^-z)",
+    "Output bounded in [0, 1], for a target scaled to its known interval.",
+    serves="bounded regression", derivative=_logistic_d, aliases=("sigmoid",)))
+_register_head(Head(
+    "logistic", "classification", losses.BINARY_LOG_LOSS, _logistic_, _op("Sigmoid"),
+    0.0, 1.0, "p = 1 / (1 + e^-z)",
+    "Probability of the positive class, matched with log-loss.",
+    serves="binary classification", in_sklearn=True, aliases=("sigmoid",)))
+_register_head(Head(
+    "softmax", "classification", losses.LOG_LOSS, _softmax_, _softmax_onnx, 0.0, 1.0,
+    "p_k = e^z_k / sum_j e^z_j",
+    "One probability per class, summing to one, matched with log-loss.",
+    serves="multiclass classification", distribution=True, in_sklearn=True))
 
-HEAD_ALIASES = {"linear": "identity", "sigmoid": "logistic"}
+#: alias -> canonical name of an output head
+HEAD_ALIASES = {alias: h.name for h in HEADS.values() for alias in h.aliases}
 
-#: the head scikit-learn's own MLP uses, per (task, loss)
-SKLEARN_HEADS = {("regression", "identity"), ("regression", "exp"),
-                 ("classification", "logistic"), ("classification", "softmax")}
+#: the heads scikit-learn's own MLP uses, as (task, name)
+SKLEARN_HEADS = {h.key for h in HEADS.values() if h.in_sklearn}
 
 
 def head_names(task: str | None = None) -> list[str]:
@@ -536,7 +797,7 @@ def resolve_head(name: str, task: str) -> Head:
         naming the valid heads for the task, or saying why a head cannot serve it.
     """
     if not isinstance(name, str):
-        raise ValueError(f"output_activation must be a string, got {name!r}")
+        raise ValueError(f"the output head must be a name, got {name!r}")
     key = name.strip().lower()
     key = HEAD_ALIASES.get(key, key)
     if (task, key) in HEADS:

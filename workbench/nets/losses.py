@@ -1,0 +1,133 @@
+"""The losses the output heads are matched with: value and gradient of each.
+
+Every loss is written as scikit-learn's multilayer perceptron defines it, so that
+the engine's ``loss_curve_`` equals ``MLPRegressor``'s / ``MLPClassifier``'s:
+
+- half squared error, the mean over rows *and* outputs of ``(y - p)^2 / 2``
+  (``sklearn.metrics.mean_squared_error / 2``);
+- half Poisson deviance, per output the mean over rows of
+  ``y log(y / p) - y + p``, summed over outputs
+  (``sklearn.metrics.mean_poisson_deviance / 2`` for one output);
+- log-loss: for one probability per row and label (the logistic head) the binary
+  cross-entropy summed over labels; for one distribution per row (the softmax
+  head) the multinomial cross-entropy (``sklearn.metrics.log_loss``). Probabilities
+  are clipped to ``[eps, 1 - eps]`` first (``eps`` of the array's float type), as
+  scikit-learn's MLP does.
+
+``gradient(y, p, out=None)`` is the derivative of the *per-row* loss with respect
+to the prediction ``p``, the quantity backpropagation starts from. For one
+output it is ``n_rows`` times the derivative of ``value``; for several outputs of
+the squared error it is ``n_outputs`` times that again, because scikit-learn's MLP
+reports the squared error averaged over outputs but backpropagates the sum (its
+gradient is ``p - y`` per output). The gradients are those of the unclipped
+formulas.
+
+When the head is the loss's canonical link (identity for squared error, exp for
+Poisson, logistic / softmax for log-loss; McCullagh & Nelder 1989, section 2.2.4)
+the chain rule collapses and the error at the output pre-activation is simply
+``p - y``; the engine uses that shortcut (:meth:`workbench.nets.activations.Head.output_delta`).
+
+References
+----------
+- McCullagh & Nelder (1989), "Generalized Linear Models", 2nd ed. (deviances, canonical links).
+- scikit-learn, ``sklearn.neural_network.MLPRegressor`` / ``MLPClassifier`` (loss definitions).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.special import xlogy
+
+
+@dataclass(frozen=True)
+class Loss:
+    """One loss: its name, its label for people, its value and its gradient.
+
+    Attributes
+    ----------
+    name : str
+        The loss family as settings and documents spell it (``squared_error``,
+        ``poisson``, ``log_loss``); the binary and multinomial log-losses share it.
+    label : str
+        The loss in words (tooltips, reports).
+    value : callable
+        ``value(y, p) -> float``, the mean loss of the rows (see the module docstring).
+    gradient : callable
+        ``gradient(y, p, out=None) -> ndarray``, the derivative of each row's loss
+        with respect to ``p``, written into ``out`` when given.
+    """
+
+    name: str
+    label: str
+    value: Callable
+    gradient: Callable
+
+
+def _half_squared_error(y, p):
+    residual = np.subtract(p, y)
+    flat = residual.reshape(-1)
+    # the dot product is the fastest sum of squares on batch-sized arrays
+    return 0.5 * float(np.dot(flat, flat)) / flat.size
+
+
+def _half_squared_error_gradient(y, p, out=None):
+    return np.subtract(p, y, out=out)
+
+
+def _half_poisson_deviance(y, p):
+    return float(np.mean(xlogy(y, y / p) - y + p, axis=0).sum())
+
+
+def _half_poisson_deviance_gradient(y, p, out=None):
+    # d/dp (y log(y / p) - y + p) = 1 - y / p
+    out = np.divide(y, p, out=out)
+    np.subtract(1.0, out, out=out)
+    return out
+
+
+def _clipped(p):
+    eps = np.finfo(p.dtype).eps
+    return np.clip(p, eps, 1 - eps)
+
+
+def _binary_log_loss(y, p):
+    q = _clipped(p)
+    return float(-np.mean(xlogy(y, q) + xlogy(1 - y, 1 - q), axis=0).sum())
+
+
+def _binary_log_loss_gradient(y, p, out=None):
+    # d/dp -(y log p + (1 - y) log(1 - p)) = (p - y) / (p (1 - p))
+    out = np.subtract(p, y, out=out)
+    out /= p
+    out /= 1.0 - p
+    return out
+
+
+def _multinomial_log_loss(y, p):
+    return float(-np.mean(xlogy(y, _clipped(p)), axis=0).sum())
+
+
+def _multinomial_log_loss_gradient(y, p, out=None):
+    # d/dp_k -sum_j y_j log p_j = -y_k / p_k
+    out = np.divide(y, p, out=out)
+    np.negative(out, out=out)
+    return out
+
+
+SQUARED_ERROR = Loss("squared_error", "half squared error", _half_squared_error,
+                     _half_squared_error_gradient)
+POISSON = Loss("poisson", "half Poisson deviance", _half_poisson_deviance,
+               _half_poisson_deviance_gradient)
+BINARY_LOG_LOSS = Loss("log_loss", "log-loss (cross-entropy)", _binary_log_loss,
+                       _binary_log_loss_gradient)
+LOG_LOSS = Loss("log_loss", "log-loss (cross-entropy)", _multinomial_log_loss,
+                _multinomial_log_loss_gradient)
+
+#: every loss a head may be matched with
+ALL = (SQUARED_ERROR, POISSON, BINARY_LOG_LOSS, LOG_LOSS)
+
+#: loss name -> label, for documents and tooltips
+LOSS_LABELS = {loss.name: loss.label for loss in ALL}

@@ -1,0 +1,257 @@
+"""The network's arithmetic: a flat parameter buffer, the forward and the backward pass.
+
+:class:`Network` holds every weight and intercept in one contiguous vector
+(``theta``), so that an optimiser step is a handful of vector operations over it,
+and preallocated per-layer buffers that the passes write into (``out=``). Each
+hidden activation and the output head come from
+:mod:`workbench.nets.activations`; the network looks their functions up once,
+when it is built, and never branches on their names.
+
+Layer ``i`` is stored as one block of shape ``(fan_in + 1, fan_out)``: its first
+``fan_in`` rows are the weights and its last row is the intercept. Training inputs
+and hidden activations carry a trailing column of ones, so one matrix product
+gives ``a @ W + b`` and, backwards, ``a.T @ delta`` gives the weight and intercept
+gradients together.
+
+References
+----------
+- Rumelhart, Hinton & Williams (1986), "Learning representations by
+  back-propagating errors" (the backward pass).
+- scikit-learn, ``sklearn.neural_network.MLPRegressor`` (the L2 term
+  ``0.5 * alpha * ||W||^2 / n_rows``, weights only).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from workbench.nets import activations as act
+
+
+def with_ones(X):
+    """``X`` with a trailing column of ones (C-contiguous)."""
+    out = np.empty((X.shape[0], X.shape[1] + 1), dtype=X.dtype)
+    out[:, :-1] = X
+    out[:, -1] = 1
+    return out
+
+
+@dataclass(frozen=True, slots=True)
+class Layer:
+    """One layer's parameters (views into ``Network.theta``) and its activation.
+
+    ``activation`` is the registry entry of a hidden layer's activation, or None
+    for the output layer (whose activation is the network's head); ``params`` are
+    the activation's parameters (e.g. the leaky slope).
+    """
+
+    block: np.ndarray  # (fan_in + 1, fan_out): weights, then the intercept row
+    grad_block: np.ndarray  # the same shape, in Network.grad
+    weights: np.ndarray
+    intercept: np.ndarray
+    weight_grad: np.ndarray
+    activation: act.Activation | None
+    params: dict
+
+
+@dataclass(frozen=True, slots=True)
+class LayerBuffers:
+    """One layer's work buffers for a batch of ``m`` rows (views, no copies).
+
+    ``output`` is the layer's activation; ``output_ones`` the same buffer with the
+    trailing column of ones (hidden layers; the output layer has none, so both are
+    the same array). ``pre`` keeps the pre-activation when the activation's
+    derivative needs it (else None). ``delta_ones`` is the error at the
+    pre-activation, as wide as ``output_ones``; ``delta`` is it without the ones
+    column, the width the layer below multiplies. ``scratch`` holds a hidden
+    layer's derivative.
+    """
+
+    output: np.ndarray
+    output_ones: np.ndarray
+    pre: np.ndarray | None
+    delta_ones: np.ndarray
+    delta: np.ndarray
+    scratch: np.ndarray | None
+
+
+class Network:
+    """Flat parameters, per-layer views and buffers, and the forward/backward passes.
+
+    Parameters
+    ----------
+    units : list of int
+        Input width, each hidden layer's width, output width.
+    hidden : list of str
+        Canonical hidden activation name per hidden layer.
+    head : :class:`workbench.nets.activations.Head`
+    dtype : numpy dtype
+    leaky_slope : float
+        The ``slope`` parameter of the activations that have one.
+    """
+
+    def __init__(self, units, hidden, head, dtype, leaky_slope=act.LEAKY_SLOPE):
+        self.units = list(units)
+        self.hidden_names = list(hidden)
+        self.hidden = [act.HIDDEN[name] for name in hidden]
+        self.head = head
+        self.dtype = dtype
+        shapes = list(zip(self.units[:-1], self.units[1:]))
+        total = sum((fan_in + 1) * fan_out for fan_in, fan_out in shapes)
+        self.theta = np.zeros(total, dtype=dtype)
+        self.grad = np.zeros(total, dtype=dtype)
+        # 1 on weight entries, 0 on intercepts: the L2 penalty as one fused vector op
+        self.coef_mask = np.zeros_like(self.theta)
+        self.layers: list[Layer] = []
+        pos = 0
+        for i, (fan_in, fan_out) in enumerate(shapes):
+            size = (fan_in + 1) * fan_out
+            block = self.theta[pos:pos + size].reshape(fan_in + 1, fan_out)
+            grad_block = self.grad[pos:pos + size].reshape(fan_in + 1, fan_out)
+            activation = self.hidden[i] if i < len(self.hidden) else None
+            params = activation.with_params(slope=leaky_slope) if activation else {}
+            self.layers.append(Layer(block, grad_block, block[:fan_in], block[fan_in],
+                                     grad_block[:fan_in], activation, params))
+            self.coef_mask[pos:pos + fan_in * fan_out] = 1
+            pos += size
+        self.weights = [layer.weights for layer in self.layers]
+        self.intercepts = [layer.intercept for layer in self.layers]
+        self.weight_grads = [layer.weight_grad for layer in self.layers]
+        self._l2_buf = np.empty_like(self.theta)
+        self._l2_alpha = None
+        self._alpha_mask = None
+        self._buffers_for = 0
+        self._views_by_rows: dict[int, list[LayerBuffers]] = {}
+
+    # buffers ----------------------------------------------------------------
+    def ensure(self, rows):
+        """Allocate the work buffers for batches of up to ``rows`` rows."""
+        if self._buffers_for >= rows:
+            return
+        n_hidden = len(self.hidden)
+        self._outputs, self._pres, self._deltas, self._scratch = [], [], [], []
+        for i, width in enumerate(self.units[1:]):
+            hidden = i < n_hidden
+            # hidden activations carry a trailing ones column; the output does not
+            output = np.empty((rows, width + 1 if hidden else width), dtype=self.dtype)
+            if hidden:
+                output[:, width] = 1
+            needs_pre = self.hidden[i].needs_z if hidden else not self.head.canonical
+            # pre-activation copies, deltas and scratch are as wide as the outputs, so
+            # elementwise work runs on contiguous memory
+            self._outputs.append(output)
+            self._pres.append(np.empty_like(output) if needs_pre else None)
+            self._deltas.append(np.empty_like(output))
+            self._scratch.append(np.empty_like(output) if hidden else None)
+        self._views_by_rows = {}
+        self._buffers_for = rows
+
+    def buffers(self, rows) -> list[LayerBuffers]:
+        """Per-layer views of the work buffers for batches of ``rows`` rows (cached)."""
+        views = self._views_by_rows.get(rows)
+        if views is None:
+            self.ensure(rows)
+            views = []
+            for i, width in enumerate(self.units[1:]):
+                output_ones = self._outputs[i][:rows]
+                pre = self._pres[i]
+                delta_ones = self._deltas[i][:rows]
+                scratch = self._scratch[i]
+                views.append(LayerBuffers(
+                    output=output_ones[:, :width], output_ones=output_ones,
+                    pre=None if pre is None else pre[:rows], delta_ones=delta_ones,
+                    delta=delta_ones[:, :width],
+                    scratch=None if scratch is None else scratch[:rows]))
+            self._views_by_rows[rows] = views
+        return views
+
+    # passes -----------------------------------------------------------------
+    def forward(self, X_ones, rows):
+        """Every layer's output for the ``rows`` rows of ``X_ones`` (inputs + ones column);
+        returns the prediction (a view into the output layer's buffer)."""
+        below = X_ones
+        views = self.buffers(rows)
+        head = self.head
+        for layer, buf in zip(self.layers, views):
+            np.matmul(below, layer.block, out=buf.output)
+            if buf.pre is not None:
+                np.copyto(buf.pre, buf.output_ones)
+            activation = layer.activation
+            if activation is None:
+                head.apply_(buf.output)
+                return buf.output
+            # apply on the whole contiguous buffer, then restore the ones column
+            # where the activation does not map 1 to 1
+            activation.apply_(buf.output_ones, **layer.params)
+            if not activation.keeps_one:
+                buf.output_ones[:, -1] = 1
+            below = buf.output_ones
+        raise ValueError("a network needs at least one layer")  # pragma: no cover
+
+    def predict_raw(self, X, chunk=8192):
+        """Forward pass allocating fresh arrays (used for predict / validation)."""
+        outs = []
+        for s in range(0, X.shape[0], chunk):
+            a = X[s:s + chunk]
+            for layer in self.layers:
+                z = a @ layer.weights
+                z += layer.intercept
+                if layer.activation is None:
+                    a = self.head.apply_(z)
+                else:
+                    a = layer.activation.apply_(z, **layer.params)
+            outs.append(a)
+        if not outs:
+            return np.empty((0, self.units[-1]), dtype=self.dtype)
+        return outs[0] if len(outs) == 1 else np.concatenate(outs)
+
+    def data_loss(self, y, p):
+        """The head's matched loss (:mod:`workbench.nets.losses`), without the L2 term."""
+        return self.head.loss_fn.value(y, p)
+
+    def _l2(self, alpha, rows):
+        """``alpha * W`` (zeros at the intercepts) into a buffer; returns its loss term."""
+        if self._l2_alpha != alpha:
+            self._alpha_mask = self.coef_mask * alpha
+            self._l2_alpha = alpha
+        np.multiply(self.theta, self._alpha_mask, out=self._l2_buf)
+        return 0.5 * float(np.dot(self.theta, self._l2_buf)) / rows
+
+    def backward(self, X_ones, y, rows, alpha, scale=True):
+        """Forward + backward on ``rows`` rows; fills ``self.grad``; returns the batch loss.
+
+        The loss is the head's data loss plus ``0.5 * alpha * sum ||W||^2 / rows``
+        (scikit-learn's MLP). ``self.grad`` receives its gradient; with
+        ``scale=False`` the gradient is left multiplied by ``rows`` (the optimisers
+        fold the division into their own step, see :mod:`workbench.nets.optimizers`).
+        """
+        p = self.forward(X_ones, rows)
+        views = self.buffers(rows)
+        top = views[-1]
+        self.head.output_delta(y, p, top.pre, top.delta)
+        loss = self.head.loss_fn.value(y, p)
+        if alpha:
+            loss += self._l2(alpha, rows)
+        delta = top.delta
+        for i in range(len(self.layers) - 1, -1, -1):
+            layer = self.layers[i]
+            below = X_ones if i == 0 else views[i - 1].output_ones
+            np.matmul(below.T, delta, out=layer.grad_block)
+            if i == 0:
+                break
+            buf, under = views[i - 1], self.layers[i - 1]
+            # full width: the column for the ones is computed and then ignored.
+            # np.dot, not np.matmul: matmul takes a slow non-BLAS path when the
+            # inner dimension is 1 (a single-output layer); dot calls sgemm/dgemm
+            np.dot(delta, layer.block.T, out=buf.delta_ones)
+            slope = under.activation.derivative(buf.pre, buf.output_ones, out=buf.scratch,
+                                                **under.params)
+            np.multiply(buf.delta_ones, slope, out=buf.delta_ones)
+            delta = buf.delta
+        if alpha:
+            self.grad += self._l2_buf
+        if scale:
+            self.grad /= rows
+        return loss
