@@ -312,6 +312,42 @@ def test_changed_table_is_refused(tmp_path):
     store.close()
 
 
+def test_core_messages_name_settings_not_flags(sweep, tmp_path):
+    """The core names the setting (``workbench.errors.SETTINGS``); only the front ends
+    know how their users set it."""
+    store, sweep_id, *_ = sweep
+    (tmp_path / "file").write_text("x")
+    (tmp_path / "mine").mkdir()
+    (tmp_path / "mine" / "notes.txt").write_text("mine")
+    cases = [
+        (dict(formats="json,pdf"), "formats"),
+        (dict(rank_or_best="first"), "config"),
+        (dict(rank_or_best=99), "config"),
+        (dict(folder=None), "folder"),
+        (dict(folder=tmp_path / "file"), "folder"),
+        (dict(folder=tmp_path / "mine"), "folder"),
+        (dict(table=tmp_path / "nowhere.csv"), "table"),
+    ]
+    for change, setting in cases:
+        kwargs = dict(rank_or_best="best", folder=tmp_path / "out", formats="json") | change
+        with pytest.raises(InputError) as err:
+            export_configuration(store, sweep_id, **kwargs)
+        assert err.value.setting == setting, change
+        assert "--" not in str(err.value), str(err.value)
+
+
+def test_cli_adds_the_flag_of_the_setting(sweep, tmp_path, capsys):
+    store, sweep_id, *_ = sweep
+    db = str(store.path)
+    for args, flag in [(["--formats", "pdf"], "--formats"), (["--config", "first"], "--config"),
+                       (["--table", str(tmp_path / "nowhere.csv")], "--table")]:
+        assert main(["export", sweep_id, "--to", str(tmp_path / "x"), "--store", db,
+                     "--quiet", *args]) == 2
+        err = capsys.readouterr().err
+        assert err.startswith("workbench: ") and err.count("\n") == 1, err
+        assert err.rstrip().endswith(f"(set with {flag})"), err
+
+
 def test_cli_exit_status(sweep, tmp_path, capsys):
     store, sweep_id, table, *_ = sweep
     db = str(store.path)

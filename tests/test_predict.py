@@ -200,3 +200,19 @@ def test_not_an_export_folder(tmp_path, capsys):
     table.write_text("a,b\n1,2\n3,4\n")
     assert main(["predict", str(tmp_path), str(table)]) == 2
     assert "manifest.json" in capsys.readouterr().err
+
+
+def test_a_missing_model_file_names_the_setting(exports, tmp_path, capsys):
+    folder, table, X = exports["regression"]
+    copy = _copy(folder, tmp_path / "copy")
+    (copy / mf.SKOPS_NAME).unlink()
+    with pytest.raises(InputError) as err:
+        predict_table(copy, X)
+    assert err.value.setting == "model" and "--" not in str(err.value)
+    assert mf.JOBLIB_NAME in str(err.value) and mf.ONNX_NAME in str(err.value)
+    assert main(["predict", str(copy), str(table)]) == 2
+    assert capsys.readouterr().err.rstrip().endswith("(set with --joblib or --onnx)")
+    for where in (tmp_path / "absent", tmp_path / "copy" / mf.MANIFEST_NAME):
+        with pytest.raises(InputError) as err:
+            predict_table(where, X)
+        assert "--" not in str(err.value) and "`" not in str(err.value)
