@@ -198,6 +198,21 @@ def test_derivative_matches_closed_form(name):
                                rtol=1e-12, atol=1e-14)
 
 
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+@pytest.mark.parametrize("name", HIDDEN)
+def test_derivative_into_a_buffer(name, dtype):
+    """``derivative(z, a, out=buf)`` (the engine's form) writes f'(z) into ``buf`` and returns
+    it; same closed-form references as above, float32 to float32 precision."""
+    a = act.get_hidden(name)
+    z = _GRID.astype(dtype)
+    value = a.forward(z.copy(), **a.params)
+    buf = np.full_like(z, np.nan)
+    got = a.derivative(z.copy() if a.needs_z else None, value, out=buf, **a.params)
+    assert got is buf
+    np.testing.assert_allclose(buf, _reference_derivative(name, _GRID),
+                               rtol=1e-5 if dtype == np.float32 else 1e-12, atol=1e-6)
+
+
 @pytest.mark.parametrize("name", HIDDEN)
 def test_derivative_matches_central_finite_differences(name):
     """f'(z) ~ (f(z+h) - f(z-h)) / 2h, float64, away from the kinks (h = 1e-6)."""
@@ -225,6 +240,127 @@ def test_range_is_what_the_function_reaches(name):
         # asymptotic infimum: reached in the limit z -> -inf
         assert float(_reference(name, np.array([-40.0]))[0]) == pytest.approx(a.low, abs=1e-9)
     assert a.description and a.formula and a.name in a.tooltip
+
+
+# --------------------------------------------------------------------------- the registry's facts
+# Each flag the engine, the health measurement or the initialisation reads is checked
+# here against the outside definitions above (_reference, _reference_derivative).
+
+_WIDE = np.linspace(-50.0, 50.0, 2001)
+
+
+@pytest.mark.parametrize("name", HIDDEN)
+def test_piecewise_linear_flag(name):
+    """piecewise_linear: the closed-form derivative takes at most two values (one per
+    side of the kink) on a grid that avoids the kink."""
+    values = np.unique(np.round(_reference_derivative(name, _GRID), 12))
+    assert act.HIDDEN[name].piecewise_linear == (len(values) <= 2)
+
+
+@pytest.mark.parametrize("name", HIDDEN)
+def test_saturates_flag(name):
+    """saturates: a smooth derivative that falls below the health threshold in a tail
+    (Glorot & Bengio 2010, section 3: saturated units learn slowly). ReLU's derivative
+    is 0 below zero too, but that is a dead unit, not a saturated one."""
+    from workbench.nets.health import SATURATION_THRESHOLD
+
+    tails = np.abs(_reference_derivative(name, np.array([-50.0, 50.0])))
+    smooth = not act.HIDDEN[name].piecewise_linear
+    assert act.HIDDEN[name].saturates == (smooth and tails.min() < SATURATION_THRESHOLD)
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+@pytest.mark.parametrize("name", HIDDEN)
+def test_keeps_one_flag(name, dtype):
+    """keeps_one: f(1) == 1 exactly, from the outside definition, and the in-place form
+    leaves a column of ones intact in both float types (the engine relies on it)."""
+    a = act.HIDDEN[name]
+    assert a.keeps_one == (float(_reference(name, np.array([1.0]))[0]) == 1.0)
+    ones = np.ones((4, 3), dtype=dtype)
+    assert a.keeps_one == bool(np.all(a.apply_(ones, **a.params) == 1))
+
+
+@pytest.mark.parametrize("name", HIDDEN)
+def test_he_init_flag(name):
+    """he_init marks the rectifier-shaped activations He et al. (2015, section 2.2) derive
+    their bound for: f(z) ~ z far above zero and |f(z)| << |z| far below zero. Applying
+    it to the smooth rectifiers (ELU, SELU, GELU, SiLU, softplus) is common practice."""
+    z = np.array([-50.0, 50.0])
+    below, above = _reference(name, z) / z
+    assert act.HIDDEN[name].he_init == (abs(above - 1) < 0.1 and abs(below) < 0.1)
+
+
+def test_init_bounds():
+    """Glorot & Bengio 2010, eq. 16: sqrt(6 / (fan_in + fan_out)); scikit-learn's MLP uses
+    factor 2 for logistic (checked against its draws in test_engine_parity); He et al.
+    2015: sqrt(6 / fan_in), only for he_init activations."""
+    for a in act.HIDDEN.values():
+        factor = 2.0 if a.name == "logistic" else 6.0
+        assert a.init_bound(30, 10) == pytest.approx(math.sqrt(factor / 40), rel=1e-15)
+        he = math.sqrt(6 / 30) if a.he_init else math.sqrt(factor / 40)
+        assert a.init_bound(30, 10, he=True) == pytest.approx(he, rel=1e-15)
+
+
+@pytest.mark.parametrize("name", HIDDEN)
+def test_low_attained_flag(name):
+    """low_attained: the finite infimum is reached at a finite z (a minimum, for ReLU, GELU
+    and SiLU) rather than only approached as z -> -inf (logistic, tanh, ELU, SELU, softplus)."""
+    a = act.HIDDEN[name]
+    if not math.isfinite(a.low):
+        assert a.range_text.startswith("(")
+        return
+    lowest = float(np.min(_reference(name, np.linspace(-5.0, 0.0, 500_001))))
+    assert a.low_attained == (lowest <= a.low + 1e-9)
+    assert a.range_text.startswith("[" if a.low_attained else "(")
+
+
+def test_with_params_passes_only_an_activations_own_parameters():
+    """The engine hands its leaky slope to every layer; only leaky ReLU takes it."""
+    for a in act.HIDDEN.values():
+        got = a.with_params(slope=0.3)
+        assert set(got) == set(a.params)
+        if "slope" in a.params:
+            assert got["slope"] == 0.3
+
+
+def test_sklearn_lists_match_sklearn():
+    """SKLEARN_HIDDEN / SKLEARN_HEADS against scikit-learn itself: the activations its MLP
+    accepts (its parameter constraints) and the output activations it picks per task."""
+    import warnings
+
+    from sklearn.exceptions import ConvergenceWarning
+    from sklearn.neural_network import MLPClassifier, MLPRegressor
+
+    options = set(MLPRegressor._parameter_constraints["activation"][0].options)
+    assert set(act.SKLEARN_HIDDEN) == options
+    rng = np.random.default_rng(0)
+    X = rng.normal(size=(30, 2))
+    heads = set()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        for loss in ("squared_error", "poisson"):
+            m = MLPRegressor(hidden_layer_sizes=(3,), loss=loss, max_iter=2).fit(X, rng.poisson(2.0, 30))
+            heads.add(("regression", m.out_activation_))
+        for n_classes in (2, 3):
+            m = MLPClassifier(hidden_layer_sizes=(3,), max_iter=2).fit(X, np.arange(30) % n_classes)
+            heads.add(("classification", m.out_activation_))
+    assert act.SKLEARN_HEADS == heads
+
+
+def test_schema_enums_are_the_registrys_names():
+    """The exported configuration's JSON schema lists exactly the registry's hidden
+    activations, heads and losses (so a new entry cannot be left out of it)."""
+    import json
+    from pathlib import Path
+
+    import workbench.export
+
+    path = Path(workbench.export.__file__).parent / "schemas" / "configuration.schema.json"
+    model = json.loads(path.read_text(encoding="utf-8"))["properties"]["model"]["properties"]
+    assert set(model["hidden_activation"]["enum"]) == set(act.HIDDEN)
+    assert set(model["output_head"]["enum"]) == set(act.head_names())
+    assert set(model["loss"]["enum"]) == {h.loss for h in act.HEADS.values()}
+    assert set(act.LOSS_LABELS) == {h.loss for h in act.HEADS.values()}
 
 
 # --------------------------------------------------------------------------- aliases / errors
