@@ -11,6 +11,7 @@ import warnings
 
 import numpy as np
 import onnx
+import onnx.numpy_helper
 import pandas as pd
 import pytest
 from sklearn.compose import ColumnTransformer
@@ -157,6 +158,97 @@ def test_awkward_column_names_and_saved_file(tmp_path):
     np.testing.assert_array_equal(out["variable"], out2["variable"])
     with pytest.raises(InputError, match="colour name"):
         ox.run_onnx(path, table.drop(columns=[names["colour"]]))
+
+
+# --------------------------------------------------------------------------- the registry's forms
+
+
+class _Graph:
+    """A minimal graph builder with the protocol the registry's ONNX forms write into
+    (``node``, ``const``, ``np_dtype``), built with ``onnx.helper``."""
+
+    def __init__(self, np_dtype):
+        self.np_dtype = np_dtype
+        self.nodes, self.inits, self._n = [], [], 0
+
+    def _name(self, hint):
+        self._n += 1
+        return f"{hint}_{self._n}"
+
+    def node(self, op, inputs, output=None, **attributes):
+        out = output or self._name(op.lower())
+        self.nodes.append(onnx.helper.make_node(op, list(inputs), [out], **attributes))
+        return out
+
+    def const(self, hint, value):
+        name = self._name(hint)
+        self.inits.append(onnx.numpy_helper.from_array(np.asarray(value, self.np_dtype), name))
+        return name
+
+    def run(self, form, z, **params):
+        import onnxruntime as ort
+
+        elem = onnx.helper.np_dtype_to_tensor_dtype(np.dtype(self.np_dtype))
+        out = form(self, "z", output="y", **params)
+        assert out == "y"
+        graph = onnx.helper.make_graph(
+            self.nodes, "form", [onnx.helper.make_tensor_value_info("z", elem, list(z.shape))],
+            [onnx.helper.make_tensor_value_info("y", elem, list(z.shape))], self.inits)
+        model = onnx.helper.make_model(graph, opset_imports=[onnx.helper.make_opsetid("", 17)])
+        sess = ort.InferenceSession(model.SerializeToString(), providers=["CPUExecutionProvider"])
+        return sess.run(None, {"z": z})[0]
+
+
+_Z = np.linspace(-6, 6, 49, dtype=np.float32).reshape(-1, 1)
+
+
+@pytest.mark.parametrize("name", list(HIDDEN))
+def test_every_hidden_activation_has_an_onnx_form(name):
+    """The registry entry's ONNX form, run alone by onnxruntime, computes the entry's own
+    forward function (itself checked against SciPy in test_activations)."""
+    entry = HIDDEN[name]
+    params = entry.with_params(slope=0.2)
+    got = _Graph(np.float32).run(entry.onnx, _Z, **params)
+    np.testing.assert_allclose(got, entry.forward(_Z.astype(np.float64), **params), rtol=2e-6,
+                               atol=2e-6)
+
+
+@pytest.mark.parametrize("key", list(HEADS), ids=lambda k: f"{k[0]}-{k[1]}")
+def test_every_head_has_an_onnx_form(key):
+    head = HEADS[key]
+    z = np.hstack([_Z, -_Z, 0.5 * _Z]) if head.distribution else _Z
+    got = _Graph(np.float32).run(head.onnx, z)
+    np.testing.assert_allclose(got, head.apply_(z.astype(np.float64)), rtol=2e-6, atol=2e-6)
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_exp_head_form_clips_as_the_engine_in_each_float_type(dtype):
+    """e^z is clipped below the float type's overflow in the graph as in the engine."""
+    head = HEADS[("regression", "exp")]
+    z = np.array([[-5.0], [1.0], [1e4]], dtype=dtype)
+    got = _Graph(dtype).run(head.onnx, z)
+    assert np.all(np.isfinite(got))
+    np.testing.assert_allclose(got, head.apply_(z.copy()), rtol=1e-6)
+
+
+def test_the_converter_emits_the_registrys_form(monkeypatch):
+    """The graph is built from the registry entry's form: replace tanh's form and the
+    exported graph changes with it (and no longer agrees with the pipeline)."""
+    import dataclasses
+
+    from workbench.nets import activations as act
+
+    def cubic(graph, z, output=None, **_):
+        return graph.node("Mul", [z, graph.node("Mul", [z, z])], output=output)
+
+    pipe = _fit(NetRegressor((4,), "tanh", max_iter=5, random_state=0), _signal)
+    ops = {n.op_type for n in ox.pipeline_to_onnx(pipe, TABLE).graph.node}
+    assert "Tanh" in ops
+    monkeypatch.setitem(act.HIDDEN, "tanh", dataclasses.replace(act.HIDDEN["tanh"], onnx=cubic))
+    model = ox.pipeline_to_onnx(pipe, TABLE)
+    assert "Tanh" not in {n.op_type for n in model.graph.node}
+    assert not np.allclose(ox.run_onnx(model, TABLE)["variable"].ravel(), pipe.predict(TABLE),
+                           rtol=TOL, atol=TOL)
 
 
 def test_opset_below_17_is_refused():
