@@ -33,7 +33,7 @@ from sklearn.model_selection import KFold, StratifiedKFold, cross_val_predict, c
 from sklearn.neural_network import MLPClassifier
 
 from workbench.sweep import bbc as bbc_module
-from workbench.sweep.bbc import SUPPORTED, bbc_cv, bootstrap_counts, supports
+from workbench.sweep.bbc import SUPPORTED, OutOfFold, bbc_cv, bootstrap_counts, supports
 
 # ----------------------------------------------------------------- the reference loop
 
@@ -207,6 +207,8 @@ def test_columns_restrict_the_candidates():
     np.testing.assert_array_equal(sub.selected, np.array([4, 1])[sliced.selected])
     np.testing.assert_allclose(sub.oob_scores, sliced.oob_scores)
     assert sub.best_column in (4, 1)
+    held = OutOfFold(y, preds, folds, "r2").bbc([4, 1], n_boot=30, seed=2)
+    np.testing.assert_array_equal(held.oob_scores, sub.oob_scores)
     assert sub.to_dict()["estimate"] == sliced.estimate
 
 

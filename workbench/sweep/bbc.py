@@ -64,7 +64,9 @@ on 10,000 rows x 50 configurations x B = 1,000.
 Interface
 ---------
 :func:`bbc_cv` (y, predictions, folds, metric, columns=None, n_boot=1000,
-level=0.95, seed=0) -> :class:`BBCResult`; ``BBCResult.to_dict()`` gives
+level=0.95, seed=0) -> :class:`BBCResult` (or the same through
+:class:`OutOfFold`, which holds y, predictions, folds and metric together,
+with ``OutOfFold.bbc(columns, n_boot, level, seed)``); ``BBCResult.to_dict()`` gives
 ``{estimate, low, high, method, level, n_boot, n_used}`` for the results
 document (``corrected_best``). :func:`supports` says whether a metric can be
 corrected.
@@ -93,8 +95,9 @@ SUPPORTED = ("accuracy", "balanced_accuracy", "roc_auc", "neg_log_loss", "r2",
 
 _CLASSIFICATION = {"accuracy", "balanced_accuracy", "roc_auc", "neg_log_loss"}
 
-#: elements of the working array of the ROC AUC (about 64 MB in float32)
-_CHUNK_ELEMENTS = 16_000_000
+#: elements of the ROC AUC's working array (16 MB in float32; larger ones run slower,
+#: out of cache)
+_CHUNK_ELEMENTS = 4_000_000
 
 #: running sums over rows at least this wide use a row loop (vectorised along the
 #: row), narrower ones numpy.cumsum (fewer Python steps)
@@ -165,6 +168,35 @@ class BBCResult:
                 "n_used": self.n_used}
 
 
+@dataclass(frozen=True)
+class OutOfFold:
+    """A sweep's stored out-of-fold predictions: the inputs of :func:`bbc_cv` in one place.
+
+    Attributes
+    ----------
+    y : ndarray of shape (N,)
+        True target (class codes 0..k-1 for classifiers).
+    predictions : list of ndarray
+        Per repeat, (N, C) values or (N, C, k) probabilities; column c is the
+        c-th configuration in the caller's order.
+    folds : list of ndarray
+        Per repeat, the test fold of each row.
+    metric : str
+        scikit-learn scorer name (one of :data:`SUPPORTED`).
+    """
+
+    y: np.ndarray
+    predictions: list
+    folds: list
+    metric: str
+
+    def bbc(self, columns=None, *, n_boot: int = 1000, level: float = 0.95,
+            seed: int = 0) -> BBCResult:
+        """:func:`bbc_cv` over these predictions, restricted to ``columns``."""
+        return bbc_cv(self.y, self.predictions, self.folds, self.metric, columns=columns,
+                      n_boot=n_boot, level=level, seed=seed)
+
+
 def bootstrap_counts(n_rows: int, n_boot: int, seed: int) -> np.ndarray:
     """How often each row is drawn in each bootstrap sample, shape (n_rows, n_boot).
 
@@ -173,10 +205,13 @@ def bootstrap_counts(n_rows: int, n_boot: int, seed: int) -> np.ndarray:
     (rows first) as float32, the layout the scoring uses.
     """
     rng = np.random.default_rng(seed)
-    idx = rng.integers(0, n_rows, size=(n_boot, n_rows))
-    # flat position of (row, sample) in the rows-first layout
-    flat = idx * n_boot + np.arange(n_boot, dtype=idx.dtype)[:, None]
-    counts = np.bincount(flat.ravel(), minlength=n_boot * n_rows)
+    idx = rng.integers(0, n_rows, size=(n_boot, n_rows), dtype=np.int64)
+    # in place (fresh arrays of this size cost page faults): the flat position of
+    # (row, sample) in the rows-first layout
+    idx *= n_boot
+    idx += np.arange(n_boot, dtype=np.int64)[:, None]
+    counts = np.bincount(idx.ravel(), minlength=n_boot * n_rows)
+    del idx
     return counts.astype(np.float32).reshape(n_rows, n_boot)
 
 
@@ -287,6 +322,10 @@ class _Fold:
         score_pos = self.score[self.pos]
         score_neg = self.score[self.neg]
         chunk = max(1, min(cols.size, _CHUNK_ELEMENTS // max(1, (n_neg + 1) * n_b)))
+        # working arrays reused across chunks (fresh ones cost page faults)
+        cum_buf = np.empty(((n_neg + 1) * chunk, n_b), dtype=wn.dtype)
+        credit_buf = np.empty((n_pos * chunk, n_b), dtype=wn.dtype)
+        extra_buf = None
         for start in range(0, cols.size, chunk):
             cc = cols[start:start + chunk]
             q = cc.size
@@ -299,9 +338,11 @@ class _Fold:
             for j in range(q):
                 lo[:, j] = np.searchsorted(sorted_neg[:, j], s_pos[:, j], side="left")
                 hi[:, j] = np.searchsorted(sorted_neg[:, j], s_pos[:, j], side="right")
-            # row 0 of wn_pad is zero: position 0 of the running sum is "no negative below"
-            gather = np.vstack([np.zeros((1, q), dtype=np.intp), order + 1])
-            cum = wn_pad[gather.ravel()]  # ((n_neg + 1) * q, B'), row i * q + j
+            # row i * q + j of cum: negative weights of column j in score order, row 0
+            # (from the zero row of wn_pad) standing for "no negative below"
+            gather = np.vstack([np.zeros((1, q), dtype=np.intp), order + 1]).ravel()
+            cum = cum_buf[:gather.size]
+            np.take(wn_pad, gather, axis=0, out=cum, mode="clip")
             if q * n_b >= _LOOP_MIN_WIDTH:
                 rows = cum.reshape(n_neg + 1, q * n_b)
                 for i in range(1, n_neg + 1):  # long rows: the running sum is vectorised
@@ -310,12 +351,17 @@ class _Fold:
                 cum3 = cum.reshape(n_neg + 1, q, n_b)
                 np.cumsum(cum3, axis=0, out=cum3)
             qi = np.arange(q)[None, :]
-            credit = cum[(lo * q + qi).ravel()].reshape(n_pos, q, n_b)
+            credit = credit_buf[:n_pos * q]
+            np.take(cum, (lo * q + qi).ravel(), axis=0, out=credit, mode="clip")
             half = 1.0
             if not np.array_equal(lo, hi):  # ties between a positive and negatives
-                credit += cum[(hi * q + qi).ravel()].reshape(n_pos, q, n_b)
+                if extra_buf is None:
+                    extra_buf = np.empty_like(credit_buf)
+                extra = extra_buf[:n_pos * q]
+                np.take(cum, (hi * q + qi).ravel(), axis=0, out=extra, mode="clip")
+                credit += extra
                 half = 0.5
-            num = np.einsum("pqb,pb->bq", credit, wp, dtype=acc)
+            num = np.einsum("pqb,pb->bq", credit.reshape(n_pos, q, n_b), wp, dtype=acc)
             out[:, start:start + q] = half * num.astype(float)
         with np.errstate(invalid="ignore", divide="ignore"):
             denom = w_pos * w_neg
