@@ -9,10 +9,10 @@ timed twice: wall clock and the process's CPU time. With one BLAS thread the wor
 is single-threaded, so CPU time is the steadier figure on a shared machine (other
 processes steal wall time, not CPU time); both are printed.
 
-The floor is the same sequence of matrix products the engine performs per batch
-(three forward, three weight-gradient and two delta products) on buffers of the
-same shapes, with nothing else: no activation, loss, optimiser or Python
-bookkeeping.
+The floor is the same sequence of matrix products the engine's backward pass
+(:meth:`workbench.nets.network.Network.backward`) performs per batch (three
+forward, three weight-gradient and two delta products) on buffers of the same
+shapes, with nothing else: no activation, loss, optimiser or Python bookkeeping.
 """
 
 from __future__ import annotations
