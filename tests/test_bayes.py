@@ -18,6 +18,7 @@ from workbench.errors import InputError
 from workbench.sweep.bayes import (
     Comparison,
     check_rope,
+    compare_with_best,
     correlated_ttest,
     decide,
     default_rope,
@@ -205,3 +206,21 @@ def test_to_dict_is_plain():
     assert set(d) >= {"mean", "scale", "df", "rope", "p_worse", "p_equivalent", "p_better",
                       "interval"}
     assert d["interval"] == list(c.interval())
+
+
+def test_compare_with_best_tests_every_row_against_the_highest_mean():
+    rng = np.random.default_rng(21)
+    base = 0.8 + rng.normal(0, 0.02, 10)
+    scores = np.vstack([base - 0.05 + rng.normal(0, 0.003, 10),   # clearly worse
+                        base + 0.01,                               # the best
+                        base + 0.0095 + rng.normal(0, 0.0005, 10),  # equivalent
+                        base + rng.normal(0, 0.02, 10)])           # noisy
+    rows = compare_with_best(scores, rho=0.2, rope=0.01)
+    assert [r["decision"] for r in rows][:3] == ["worse", "best", "equivalent"]
+    assert rows[1]["p_better"] is None and rows[1]["difference"] == 0.0
+    for c in (0, 2, 3):
+        ref = baycomp.CorrelatedTTest(scores[1], scores[c], rope=0.01, runs=2).probs()
+        got = rows[c]
+        assert (got["p_worse"], got["p_equivalent"], got["p_better"]) == \
+            pytest.approx(ref, abs=1e-9)
+        assert got["difference"] == pytest.approx(scores[c].mean() - scores[1].mean())

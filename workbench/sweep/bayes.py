@@ -44,6 +44,10 @@ Edge cases (defined here; :func:`correlated_ttest` returns them):
   probabilities, the scale and the interval are NaN and :func:`decide`
   answers "undecided".
 
+:func:`compare_with_best` applies the test to every configuration of a
+sweep against the best one (the ranked table's ``p_better``,
+``p_equivalent``, ``p_worse`` and ``decision``).
+
 The decision rule (:func:`decide`, Benavoli et al. 2017, section 3.1, with
 their 95 % threshold): *equivalent* when P(equivalent) >= 0.95, *worse*
 when P(worse) >= 0.95, *better* when P(better) >= 0.95, otherwise
@@ -360,3 +364,40 @@ def check_rope(value) -> float:
         raise InputError(f"the region of practical equivalence must be a number >= 0, "
                          f"got {value!r}", setting="rope")
     return rope
+
+
+def compare_with_best(scores, *, rho: float, rope: float,
+                      threshold: float = THRESHOLD) -> list[dict]:
+    """Every configuration against the best (highest mean), for the ranked table.
+
+    Parameters
+    ----------
+    scores : array-like of shape (C, J)
+        Row c: configuration c's fold scores, on the same J folds in the same
+        order for every row.
+    rho, rope, threshold
+        As in :func:`correlated_ttest` and :func:`decide`.
+
+    Returns
+    -------
+    list of dict, one per row
+        ``{difference, p_better, p_equivalent, p_worse, decision}`` of the row
+        against the best (``difference`` its mean minus the best's). The best
+        row (the first on equal means) has ``decision`` "best", difference 0
+        and no probabilities (None).
+    """
+    x = np.asarray(scores, dtype=float)
+    if x.ndim != 2 or x.shape[0] == 0:
+        raise ValueError("scores must be a (configurations, folds) array")
+    best = int(np.argmax(x.mean(axis=1)))
+    out = []
+    for c in range(x.shape[0]):
+        if c == best:
+            out.append({"difference": 0.0, "p_better": None, "p_equivalent": None,
+                        "p_worse": None, "decision": "best"})
+            continue
+        cmp = correlated_ttest(x[c], x[best], rho=rho, rope=rope)
+        out.append({"difference": cmp.mean, "p_better": cmp.p_better,
+                    "p_equivalent": cmp.p_equivalent, "p_worse": cmp.p_worse,
+                    "decision": decide(cmp, threshold=threshold)})
+    return out
