@@ -270,7 +270,7 @@ class _BaseNet(BaseEstimator):
     def _resolve_head(self, y2d):  # pragma: no cover - overridden
         raise NotImplementedError
 
-    def _score_val(self, X, y):  # pragma: no cover - overridden
+    def _score_val(self, p, y):  # pragma: no cover - overridden
         raise NotImplementedError
 
     def _adapt_y(self, y, head):

@@ -192,24 +192,24 @@ class Network:
 
     def predict_raw(self, X, chunk=8192):
         """Forward pass allocating fresh arrays (used for predict / validation)."""
-        outs = []
-        for s in range(0, X.shape[0], chunk):
-            a = X[s:s + chunk]
+        parts = []
+        for start in range(0, X.shape[0], chunk):
+            values = X[start:start + chunk]
             for layer in self.layers:
-                z = a @ layer.weights
-                z += layer.intercept
+                pre = values @ layer.weights
+                pre += layer.intercept
                 if layer.activation is None:
-                    a = self.head.apply_(z)
+                    values = self.head.apply_(pre)
                 else:
-                    a = layer.activation.apply_(z, **layer.params)
-            outs.append(a)
-        if not outs:
+                    values = layer.activation.apply_(pre, **layer.params)
+            parts.append(values)
+        if not parts:
             return np.empty((0, self.units[-1]), dtype=self.dtype)
-        return outs[0] if len(outs) == 1 else np.concatenate(outs)
+        return parts[0] if len(parts) == 1 else np.concatenate(parts)
 
-    def data_loss(self, y, p):
+    def data_loss(self, y, prediction):
         """The head's matched loss (:mod:`workbench.nets.losses`), without the L2 term."""
-        return self.head.loss_fn.value(y, p)
+        return self.head.loss_fn.value(y, prediction)
 
     def _l2(self, alpha, rows):
         """``alpha * W`` (zeros at the intercepts) into a buffer; returns its loss term."""
@@ -227,11 +227,11 @@ class Network:
         ``scale=False`` the gradient is left multiplied by ``rows`` (the optimisers
         fold the division into their own step, see :mod:`workbench.nets.optimizers`).
         """
-        p = self.forward(X_ones, rows)
+        prediction = self.forward(X_ones, rows)
         views = self.buffers(rows)
         top = views[-1]
-        self.head.output_delta(y, p, top.pre, top.delta)
-        loss = self.head.loss_fn.value(y, p)
+        self.head.output_delta(y, prediction, top.pre, top.delta)
+        loss = self.head.loss_fn.value(y, prediction)
         if alpha:
             loss += self._l2(alpha, rows)
         delta = top.delta
