@@ -25,6 +25,27 @@ A plan is plain data: :meth:`SweepPlan.to_dict` gives a JSON-able dict and
 :meth:`SweepPlan.from_dict` reads it back (the store keeps it in the sweep row,
 ``--resume`` rebuilds the sweep from it).
 
+Baselines
+---------
+Beside the networks every plan (by default) evaluates two *reference
+configurations* on the same folds, with the same preprocessing and metric
+(:data:`BASELINES`): ``constant``, scikit-learn's ``DummyRegressor(strategy="mean")``
+/ ``DummyClassifier(strategy="prior")``, and ``linear``, ``Ridge`` /
+``LogisticRegression`` (see :func:`workbench.sweep.trials.make_baseline`). They are
+trials like the networks' (stored, resumed, run on Dask, with out-of-fold
+predictions) but are not configurations of the grid: :meth:`SweepPlan.configurations`,
+:attr:`SweepPlan.n_configurations`, :attr:`SweepPlan.n_trials` and
+:meth:`SweepPlan.trials` count the networks only; :meth:`SweepPlan.baseline_configurations`
+and :meth:`SweepPlan.baseline_trials` give the references, indexed after the
+grid (``n_configurations + j``), so that no network index changes.
+
+Learning rates
+--------------
+``learning_rates=["tune"]`` (``--learning-rate tune``; or ``tune_learning_rate=True``)
+puts :data:`LEARNING_RATE_GRID` in the grid, so that every hidden activation x
+head is tried at the same learning rates -- an equal tuning budget per
+candidate.
+
 Examples
 --------
 >>> plan = SweepPlan(table="t.csv", target="y", task="regression",
@@ -46,7 +67,33 @@ import numpy as np
 from workbench.errors import InputError
 from workbench.nets.activations import SKLEARN_HEADS, SKLEARN_HIDDEN, resolve_head, resolve_hidden
 
-PLAN_VERSION = 1
+#: 2: ``baselines`` and ``tune_learning_rate`` (plans of version 1 had no baselines)
+PLAN_VERSION = 2
+
+#: the reference configurations a plan can run beside the networks, in this order
+BASELINES = ("constant", "linear")
+
+#: the learning rates ``"tune"`` stands for (Adam's initial step size).
+#:
+#: Three values evenly spaced on a log scale from 1e-3 to 3e-2:
+#:
+#: - 1e-3 is Adam's default step size (Kingma & Ba 2015, Algorithm 1; also
+#:   scikit-learn's ``learning_rate_init`` default), the usual starting point;
+#: - 3e-2 is about the largest rate at which Adam still trains small networks on
+#:   standardised tabular inputs without diverging, in the batch sizes used here
+#:   (common practice; from memory, not from a cited study);
+#: - 5.5e-3 is their geometric mean sqrt(1e-3 x 3e-2) = 5.48e-3 rounded to two
+#:   significant figures, so the ratio between neighbours is about 5.5 both ways.
+#:
+#: Searching a learning rate on a log scale rather than a linear one is common
+#: practice (Bergstra & Bengio 2012, "Random search for hyper-parameter
+#: optimization", JMLR 13, sample it log-uniformly). Every hidden activation x
+#: head gets the same three values, so a ranking does not reflect which
+#: activation one shared rate happens to suit (Choi et al. 2019; Dodge et al. 2019).
+LEARNING_RATE_GRID = (0.001, 0.0055, 0.03)
+
+#: the word that stands for :data:`LEARNING_RATE_GRID` in a list of learning rates
+TUNE = "tune"
 
 #: scikit-learn scorer names the sweep offers, per task
 CLASSIFICATION_METRICS = ("accuracy", "balanced_accuracy", "roc_auc", "neg_log_loss")
@@ -218,6 +265,32 @@ class Configuration:
 
 
 @dataclass(frozen=True)
+class Baseline:
+    """A reference configuration: a constant predictor or a linear model.
+
+    ``index`` follows the grid's (``n_configurations + j``); ``name`` is one of
+    :data:`BASELINES`. The estimator itself is made by
+    :func:`workbench.sweep.trials.make_baseline`.
+    """
+
+    index: int
+    name: str
+    kind: str = "baseline"
+    engine: str = "sklearn"
+
+    @property
+    def label(self) -> str:
+        return f"baseline {self.name}"
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+    @classmethod
+    def from_dict(cls, d: dict) -> Baseline:
+        return cls(index=int(d["index"]), name=d["name"])
+
+
+@dataclass(frozen=True)
 class Trial:
     """One configuration on one fold of one repeat."""
 
@@ -252,7 +325,15 @@ class SweepPlan:
     layers : list of tuple of int
         Hidden-layer shapes, e.g. ``[(64,), (64, 32)]``.
     learning_rates, alphas : list of float
-        Adam's initial learning rates and L2 strengths to try.
+        Adam's initial learning rates and L2 strengths to try. The word
+        ``"tune"`` among the learning rates stands for :data:`LEARNING_RATE_GRID`
+        (and sets ``tune_learning_rate``); it cannot be mixed with numbers.
+    tune_learning_rate : bool
+        Try every configuration at each rate of :data:`LEARNING_RATE_GRID`;
+        it replaces ``learning_rates`` (what the window's "tune" choice sets).
+    baselines : list of str
+        Reference configurations run on the same folds (names from
+        :data:`BASELINES`; default both, ``[]`` for none).
     folds, repeats : int
         K and R of the repeated (stratified) K-fold cross-validation.
     epochs : int
@@ -304,6 +385,8 @@ class SweepPlan:
     refused_heads: dict = field(default_factory=dict)
     head_warnings: dict = field(default_factory=dict)
     roles: dict = field(default_factory=dict)
+    tune_learning_rate: bool = False
+    baselines: list[str] = field(default_factory=lambda: list(BASELINES))
 
     def __post_init__(self):
         self.validate()
@@ -332,7 +415,22 @@ class SweepPlan:
             raise InputError("the plan has no output head to try; name at least one",
                              setting="heads")
         self.layers = list(dict.fromkeys(parse_layers(s) for s in self.layers))
-        self.learning_rates = list(dict.fromkeys(float(v) for v in self.learning_rates))
+        rates = _split_list(self.learning_rates) if isinstance(self.learning_rates, str) \
+            else list(self.learning_rates)
+        words = [isinstance(v, str) and v.strip().lower() == TUNE for v in rates]
+        if any(words):
+            if not all(words):
+                raise InputError(f"give either {TUNE!r} or a list of learning rates, not both",
+                                 setting="learning_rate")
+            self.tune_learning_rate = True
+        self.tune_learning_rate = bool(self.tune_learning_rate)
+        if self.tune_learning_rate:
+            rates = list(LEARNING_RATE_GRID)
+        try:
+            self.learning_rates = list(dict.fromkeys(float(v) for v in rates))
+        except (TypeError, ValueError):
+            raise InputError(f"learning rates must be positive numbers or {TUNE!r}, e.g. 0.001",
+                             setting="learning_rate") from None
         self.alphas = list(dict.fromkeys(float(v) for v in self.alphas))
         if not self.learning_rates or any(not np.isfinite(v) or v <= 0 for v in self.learning_rates):
             raise InputError("learning rates must be positive numbers, e.g. 0.001",
@@ -350,6 +448,12 @@ class SweepPlan:
                              setting="epochs")
         self.folds, self.repeats, self.epochs = int(self.folds), int(self.repeats), int(self.epochs)
         self.seed = int(self.seed)
+        baselines = [str(b).strip().lower() for b in _split_list(self.baselines)]
+        unknown = [b for b in baselines if b not in BASELINES]
+        if unknown:
+            raise InputError(f"unknown baseline {unknown[0]!r}; choose from: "
+                             f"{', '.join(BASELINES)}")
+        self.baselines = [b for b in BASELINES if b in baselines]  # fixed order, no repeats
         if self.dtype not in ("float32", "float64"):
             raise InputError(f"dtype must be float32 or float64, not {self.dtype!r}")
         if self.batch_size != "auto":
@@ -385,6 +489,16 @@ class SweepPlan:
                                                    self.target_kind)))
         return out
 
+    def baseline_configurations(self) -> list[Baseline]:
+        """The reference configurations, indexed after the grid (module docstring)."""
+        n = self.n_configurations
+        return [Baseline(n + j, name) for j, name in enumerate(self.baselines)]
+
+    def baseline_trials(self) -> list[Trial]:
+        """Every baseline trial, ordered repeat-major then fold then baseline."""
+        return [Trial(b.index, r, f) for r in range(self.repeats) for f in range(self.folds)
+                for b in self.baseline_configurations()]
+
     @property
     def n_configurations(self) -> int:
         return (len(self.hidden) * len(self.heads) * len(self.layers)
@@ -392,6 +506,7 @@ class SweepPlan:
 
     @property
     def n_trials(self) -> int:
+        """Trials of the networks (the baselines' trials are not counted)."""
         return self.n_configurations * self.folds * self.repeats
 
     def trials(self) -> list[Trial]:
@@ -466,6 +581,8 @@ class SweepPlan:
         if version > PLAN_VERSION:
             raise InputError(f"this plan was written by a newer workbench (plan version {version}); "
                              "upgrade the workbench to read it")
+        if version < 2:  # sweeps stored before baselines existed ran none
+            d.setdefault("baselines", [])
         d["layers"] = [tuple(s) for s in d.get("layers", [(64,)])]
         known = set(cls.__dataclass_fields__)
         return cls(**{k: v for k, v in d.items() if k in known})
@@ -491,7 +608,8 @@ def _numbers(value, what: str, setting: str) -> list[float]:
         try:
             out.append(float(p))
         except ValueError:
-            raise InputError(f"{what} {p!r} is not a number; write e.g. 0.001",
+            hint = f"0.001 (or {TUNE})" if setting == "learning_rate" else "0.001"
+            raise InputError(f"{what} {p!r} is not a number; write e.g. {hint}",
                              setting=setting) from None
     return out
 
@@ -546,7 +664,8 @@ def resolve_heads(target, output="auto") -> tuple[list[str], dict, dict]:
 def build_plan(table, target: str, *, hidden="default", output="auto", layers=None,
                learning_rates=None, alphas=None, folds=5, repeats=2, epochs=200,
                early_stopping=False, metric=None, engine="auto", seed=0, batch_size="auto",
-               dtype="float32", sheet=None, df=None, target_info=None) -> SweepPlan:
+               dtype="float32", sheet=None, df=None, target_info=None,
+               baselines=BASELINES) -> SweepPlan:
     """A :class:`SweepPlan` from command-line style choices.
 
     Parameters
@@ -565,7 +684,10 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
     layers : list of str or tuple, optional
         Hidden-layer shapes, e.g. ``["64", "64,32"]``; default ``[(64,)]``.
     learning_rates, alphas : list, optional
-        Defaults ``[0.001]`` and ``[0.0001]`` (scikit-learn's defaults).
+        Defaults ``[0.001]`` and ``[0.0001]`` (scikit-learn's defaults). The
+        learning rates may be ``"tune"`` (:data:`LEARNING_RATE_GRID`).
+    baselines : list of str, optional
+        Reference configurations (default :data:`BASELINES`; ``[]`` for none).
     Other parameters are those of :class:`SweepPlan`.
 
     Raises
@@ -593,7 +715,13 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
             hid.append(n)
     heads, refused, warns = resolve_heads(info, output)
     lays = [parse_layers(v) for v in (layers or ["64"])]
-    lrs = _numbers(learning_rates, "learning rate", "learning_rate") or [0.001]
+    words = _split_list(learning_rates)
+    tune = any(w.lower() == TUNE for w in words)
+    if tune and any(w.lower() != TUNE for w in words):
+        raise InputError(f"give either {TUNE!r} or a list of learning rates, not both",
+                         setting="learning_rate")
+    lrs = list(LEARNING_RATE_GRID) if tune else \
+        (_numbers(words, "learning rate", "learning_rate") or [0.001])
     als = _numbers(alphas, "alpha", "alpha") or [0.0001]
     from pathlib import Path
 
@@ -603,4 +731,5 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
                      folds=folds, repeats=repeats, epochs=epochs, early_stopping=early_stopping,
                      metric=metric, engine=engine, seed=seed, batch_size=batch_size, dtype=dtype,
                      sheet=sheet, requested_output=",".join(_split_list(output)) or "auto",
-                     refused_heads=refused, head_warnings=warns)
+                     refused_heads=refused, head_warnings=warns, tune_learning_rate=tune,
+                     baselines=list(baselines))
