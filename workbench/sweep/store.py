@@ -20,11 +20,39 @@ Layout (schema version :data:`SCHEMA_VERSION`, kept in SQLite's ``user_version``
     ``error``, ``n_train``, ``n_test``, ``history`` and ``health`` (JSON),
     ``worker``, ``attempts``, ``finished``.
 
+``baselines`` (schema 2)
+    the reference configurations of each sweep (constant predictor, linear
+    model): ``sweep_id``, ``idx`` (after the grid's: ``n_configurations + j``),
+    ``name``, ``estimator`` (one line naming it). Their trials are rows of
+    ``trials`` like the networks' but are kept out of :meth:`Store.trials`,
+    :meth:`Store.finished_keys` and the counts (``n_trials``, ``n_stored``),
+    which are the networks'; :meth:`Store.baseline_trials` reads them.
+``sweep_rows`` (schema 2)
+    what places out-of-fold predictions on the table's rows, written once per
+    sweep: ``sweep_id``, ``n_rows`` (N, the rows with a target), ``repeats``,
+    ``target`` (the target of every row: float64 values for regression, int32
+    class codes for classification, little-endian), ``classes`` (JSON list of the
+    class labels in code order -- scikit-learn's ``classes_`` order -- or NULL)
+    and ``folds`` (int32, ``repeats x N``: the test fold of each row in each
+    repeat, the plan's reproducible fold assignment).
+``predictions`` (schema 2)
+    the out-of-fold predictions of each *done* trial, inserted in the same
+    transaction as its ``trials`` row: ``sweep_id, config_index, repeat, fold``
+    (the same key), ``n_rows``, ``n_columns`` (1 for a regressor, the number of
+    classes for a classifier) and ``vals``: float32 little-endian,
+    ``n_rows x n_columns`` row-major, the rows being the fold's test rows in
+    ascending order (those with ``folds[repeat] == fold``).
+
 The database runs in WAL mode, so the window and the export can read while a
 sweep writes (with their own :class:`Store` on the same file, or sharing one:
 its methods are serialised by a lock, so threads may share an instance). A file that is not a workbench store, or is damaged, is reported
 with :class:`InputError` and never touched; a store written by a newer program
 is refused; an older one is migrated in place (each step in :data:`MIGRATIONS`).
+
+Out-of-fold predictions (:meth:`Store.out_of_fold`) come back as an
+:class:`OutOfFold`: per repeat an N x C matrix (N x C x n_classes for a
+classifier) over the sweep's configurations, with the target and the fold of
+each row -- what :func:`workbench.sweep.bbc.bbc_cv` takes.
 
 A sweep whose state is ``running`` but whose process is gone (killed, crashed,
 machine rebooted) is reported as ``interrupted`` by :meth:`Store.list_sweeps`
@@ -40,12 +68,15 @@ import socket
 import sqlite3
 import sys
 import threading
+from dataclasses import dataclass
 from pathlib import Path
+
+import numpy as np
 
 from workbench.data.hashing import sha256_of
 from workbench.errors import InputError
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 STORE_FILENAME = "sweeps.sqlite"
 
 RUNNING, FINISHED, INTERRUPTED = "running", "finished", "interrupted"
@@ -99,8 +130,44 @@ CREATE TABLE trials (
 );
 """
 
-#: migration steps: MIGRATIONS[v] upgrades a store from version v to v + 1
-MIGRATIONS: dict[int, str] = {}
+#: schema 2: baselines, the rows' targets and folds, out-of-fold predictions
+_SCHEMA_V2 = """
+CREATE TABLE baselines (
+    sweep_id TEXT NOT NULL REFERENCES sweeps(id),
+    idx INTEGER NOT NULL,
+    name TEXT NOT NULL,
+    estimator TEXT NOT NULL,
+    PRIMARY KEY (sweep_id, idx)
+);
+CREATE TABLE sweep_rows (
+    sweep_id TEXT PRIMARY KEY REFERENCES sweeps(id),
+    n_rows INTEGER NOT NULL,
+    repeats INTEGER NOT NULL,
+    target BLOB NOT NULL,
+    classes TEXT,
+    folds BLOB NOT NULL
+);
+CREATE TABLE predictions (
+    sweep_id TEXT NOT NULL,
+    config_index INTEGER NOT NULL,
+    repeat INTEGER NOT NULL,
+    fold INTEGER NOT NULL,
+    n_rows INTEGER NOT NULL,
+    n_columns INTEGER NOT NULL,
+    vals BLOB NOT NULL,
+    PRIMARY KEY (sweep_id, config_index, repeat, fold),
+    FOREIGN KEY (sweep_id, config_index, repeat, fold)
+        REFERENCES trials(sweep_id, config_index, repeat, fold)
+);
+"""
+
+#: migration steps: MIGRATIONS[v] upgrades a store from version v to v + 1; a new
+#: store is made at version 1 and brought up by the same steps, so a new and a
+#: migrated store have the same tables
+MIGRATIONS: dict[int, str] = {1: _SCHEMA_V2}
+
+#: little-endian storage types of the arrays kept as BLOBs
+_F32, _F64, _I32 = "<f4", "<f8", "<i4"
 
 _TABLES = {"sweeps", "configurations", "trials"}
 
@@ -182,6 +249,58 @@ def _pid_alive(pid: int | None) -> bool:
         return True
 
 
+@dataclass(frozen=True)
+class OutOfFold:
+    """A sweep's out-of-fold predictions, placed on the table's rows.
+
+    Attributes
+    ----------
+    y : ndarray of shape (N,)
+        The target of every row with a target: float64 values (user units) for
+        regression, int64 class codes 0..k-1 (positions in ``classes``) for
+        classification.
+    classes : list or None
+        The class labels in code order (scikit-learn's ``classes_`` order);
+        None for regression.
+    folds : list of R ndarrays of shape (N,)
+        Per repeat, the test fold of each row.
+    predictions : list of R float32 ndarrays of shape (N, C) or (N, C, k)
+        Per repeat, column j holds configuration ``columns[j]``'s prediction for
+        each row, made by the trial that held the row out: values for
+        regressors, class probabilities (last axis in ``classes`` order) for
+        classifiers. NaN where no prediction is stored (a trial not run yet,
+        diverged or failed, or stored before predictions were kept).
+    columns : ndarray of shape (C,)
+        The configuration index of each column (baselines after the grid's).
+    complete : ndarray of shape (C,), bool
+        True for a column with a finite prediction for every row in every
+        repeat: the columns :func:`workbench.sweep.bbc.bbc_cv` can take
+        (see :meth:`completed`).
+    """
+
+    y: np.ndarray
+    classes: list | None
+    folds: list
+    predictions: list
+    columns: np.ndarray
+    complete: np.ndarray
+
+    def select(self, columns) -> OutOfFold:
+        """The same rows for the configurations ``columns`` (indices), in that order."""
+        pos = {int(c): j for j, c in enumerate(self.columns)}
+        try:
+            take = np.asarray([pos[int(c)] for c in columns], dtype=np.intp)
+        except KeyError as exc:
+            raise ValueError(f"configuration {exc.args[0]} is not among the columns") from None
+        return OutOfFold(self.y, self.classes, self.folds,
+                         [np.ascontiguousarray(p[:, take]) for p in self.predictions],
+                         self.columns[take], self.complete[take])
+
+    def completed(self) -> OutOfFold:
+        """Only the complete columns (every row predicted in every repeat)."""
+        return self.select(self.columns[self.complete])
+
+
 class Store:
     """The SQLite store of sweeps and trials.
 
@@ -255,7 +374,8 @@ class Store:
                 raise sqlite3.DatabaseError(f"integrity check failed: {ok}")
         if version == 0 and not tables:
             c.execute("PRAGMA journal_mode = WAL")
-            self._apply_script(_SCHEMA_V1, SCHEMA_VERSION)
+            self._apply_script(_SCHEMA_V1, 1)
+            self._migrate(1)
             return
         if version == 0 or not _TABLES <= tables:
             raise InputError(f"{self.path} is an SQLite database but not a workbench store "
@@ -334,8 +454,14 @@ class Store:
             return self._conn.execute(sql, args).fetchall()
 
     def create_sweep(self, sweep_id: str, plan: dict, fingerprint: dict,
-                     configurations: list[dict], versions: dict | None = None) -> None:
-        """Insert a sweep (state ``running``) and its grid, in one transaction."""
+                     configurations: list[dict], versions: dict | None = None,
+                     baselines: list[dict] | None = None, rows: dict | None = None) -> None:
+        """Insert a sweep (state ``running``), its grid, its baselines and rows, in one
+        transaction.
+
+        ``baselines``: ``[{"index", "name", "estimator"}]``; ``rows``:
+        ``{"target", "folds", "classes"}`` as :meth:`put_rows` takes them.
+        """
         t = now_iso()
         n_cfg = len(configurations)
         n_trials = n_cfg * int(plan["folds"]) * int(plan["repeats"])
@@ -349,8 +475,48 @@ class Store:
                           (sweep_id, int(c["index"]), c["hidden"], c["head"],
                            ",".join(str(s) for s in c["layers"]), float(c["learning_rate"]),
                            float(c["alpha"]), c["engine"])))
+        for b in baselines or []:
+            stmts.append(("INSERT INTO baselines VALUES (?,?,?,?)",
+                          (sweep_id, int(b["index"]), b["name"], b["estimator"])))
+        if rows is not None:
+            stmts.append(self._rows_statement(sweep_id, rows["target"], rows["folds"],
+                                              rows.get("classes")))
         self._tx(stmts)
 
+    @staticmethod
+    def _rows_statement(sweep_id, target, folds, classes):
+        folds = np.asarray(folds)
+        if folds.ndim != 2:
+            raise ValueError("folds must be an array of shape (repeats, N)")
+        n = folds.shape[1]
+        target = np.asarray(target).reshape(-1)
+        if target.shape[0] != n:
+            raise ValueError(f"the target has {target.shape[0]} rows, the folds {n}")
+        if classes is None:
+            blob = target.astype(_F64).tobytes()
+            labels = None
+        else:
+            blob = target.astype(_I32).tobytes()
+            labels = json.dumps([c.item() if hasattr(c, "item") else c for c in classes],
+                                default=str)
+        return ("INSERT INTO sweep_rows (sweep_id, n_rows, repeats, target, classes, folds) "
+                "VALUES (?,?,?,?,?,?)",
+                (sweep_id, int(n), int(folds.shape[0]), blob, labels,
+                 folds.astype(_I32).tobytes()))
+
+    def put_rows(self, sweep_id: str, target, folds, classes=None) -> None:
+        """Store what places a sweep's out-of-fold predictions on rows (once per sweep).
+
+        Parameters
+        ----------
+        target : array of shape (N,)
+            Regression: the target values. Classification: class codes 0..k-1.
+        folds : array of shape (repeats, N)
+            The test fold of each row in each repeat.
+        classes : sequence, optional
+            The class labels in code order (classification only).
+        """
+        self._tx([self._rows_statement(sweep_id, target, folds, classes)])
     def set_state(self, sweep_id: str, state: str) -> None:
         """Mark a sweep running (by this process), finished or interrupted."""
         if state not in (RUNNING, FINISHED, INTERRUPTED):
@@ -361,8 +527,13 @@ class Store:
                     os.getpid(), sweep_id))])
 
     def add_trial(self, sweep_id: str, result: dict) -> None:
-        """Commit one finished trial in its own transaction."""
-        self._tx([(
+        """Commit one finished trial in its own transaction.
+
+        ``result["predictions"]`` (when present and not None: an array of the
+        fold's test rows in ascending order, shape (n_test,) or (n_test, k)) is
+        stored as float32 in the same transaction.
+        """
+        stmts = [(
             "INSERT INTO trials (sweep_id, config_index, repeat, fold, status, test_score, "
             "train_score, fit_seconds, epochs, engine, error, n_train, n_test, history, health, "
             "worker, attempts, finished) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
@@ -371,7 +542,18 @@ class Store:
              result.get("fit_seconds"), result.get("epochs"), result.get("engine"),
              result.get("error"), result.get("n_train"), result.get("n_test"),
              json.dumps(result.get("history") or {}), json.dumps(result.get("health") or {}),
-             result.get("worker"), int(result.get("attempts", 1)), now_iso()))])
+             result.get("worker"), int(result.get("attempts", 1)), now_iso()))]
+        pred = result.get("predictions")
+        if pred is not None:
+            pred = np.asarray(pred)
+            values = pred.reshape(pred.shape[0], -1)
+            stmts.append((
+                "INSERT INTO predictions (sweep_id, config_index, repeat, fold, n_rows, "
+                "n_columns, vals) VALUES (?,?,?,?,?,?,?)",
+                (sweep_id, int(result["config_index"]), int(result["repeat"]),
+                 int(result["fold"]), int(values.shape[0]), int(values.shape[1]),
+                 np.ascontiguousarray(values, dtype=_F32).tobytes())))
+        self._tx(stmts)
 
     # ------------------------------------------------------------------ reading
     def _sweep_dict(self, row) -> dict:
@@ -381,8 +563,8 @@ class Store:
         if d["state"] == RUNNING and d.get("host") == socket.gethostname() \
                 and not _pid_alive(d.get("pid")):
             d["state"] = INTERRUPTED
-        d["n_stored"] = self._rows("SELECT COUNT(*) FROM trials WHERE sweep_id=?",
-                                   (d["id"],))[0][0]
+        d["n_stored"] = self._rows("SELECT COUNT(*) FROM trials WHERE sweep_id=? AND "
+                                   "config_index < ?", (d["id"], d["n_configurations"]))[0][0]
         return d
 
     def list_sweeps(self) -> list[dict]:
@@ -433,11 +615,35 @@ class Store:
                         "engine": r["engine"]})
         return out
 
+    def _n_configurations(self, sweep_id: str) -> int:
+        found = self._rows("SELECT n_configurations FROM sweeps WHERE id=?", (sweep_id,))
+        return int(found[0][0]) if found else 0
+
     def trials(self, sweep_id: str, with_history: bool = True) -> list[dict]:
-        """The stored (finished) trials of a sweep, ordered by configuration, repeat, fold."""
+        """The stored (finished) trials of a sweep's networks, ordered by configuration,
+        repeat, fold (the baselines' trials: :meth:`baseline_trials`)."""
         rows = self._rows(
-            "SELECT * FROM trials WHERE sweep_id=? ORDER BY config_index, repeat, fold",
-            (sweep_id,))
+            "SELECT * FROM trials WHERE sweep_id=? AND config_index < ? "
+            "ORDER BY config_index, repeat, fold", (sweep_id, self._n_configurations(sweep_id)))
+        return self._trial_dicts(rows, with_history)
+
+    def baselines(self, sweep_id: str) -> list[dict]:
+        """The sweep's reference configurations: ``[{"index", "name", "estimator"}]``."""
+        return [{"index": r["idx"], "name": r["name"], "estimator": r["estimator"]}
+                for r in self._rows("SELECT * FROM baselines WHERE sweep_id=? ORDER BY idx",
+                                    (sweep_id,))]
+
+    def baseline_trials(self, sweep_id: str) -> list[dict]:
+        """The stored trials of the sweep's baselines, as :meth:`trials` gives them plus
+        ``name``, ordered by baseline, repeat, fold."""
+        rows = self._rows(
+            "SELECT t.*, b.name AS name FROM trials t JOIN baselines b ON "
+            "b.sweep_id = t.sweep_id AND b.idx = t.config_index WHERE t.sweep_id=? "
+            "ORDER BY t.config_index, t.repeat, t.fold", (sweep_id,))
+        return self._trial_dicts(rows, with_history=False)
+
+    @staticmethod
+    def _trial_dicts(rows, with_history: bool) -> list[dict]:
         out = []
         for r in rows:
             d = dict(r)
@@ -451,7 +657,111 @@ class Store:
             out.append(d)
         return out
 
-    def finished_keys(self, sweep_id: str) -> set[tuple[int, int, int]]:
-        """``(config_index, repeat, fold)`` of every stored trial."""
-        return {(r[0], r[1], r[2]) for r in self._rows(
-            "SELECT config_index, repeat, fold FROM trials WHERE sweep_id=?", (sweep_id,))}
+    def finished_keys(self, sweep_id: str, baselines: bool = False) -> set[tuple[int, int, int]]:
+        """``(config_index, repeat, fold)`` of every stored network trial (and, with
+        ``baselines``, of every stored baseline trial too)."""
+        sql, args = "SELECT config_index, repeat, fold FROM trials WHERE sweep_id=?", (sweep_id,)
+        if not baselines:
+            sql, args = sql + " AND config_index < ?", args + (self._n_configurations(sweep_id),)
+        return {(r[0], r[1], r[2]) for r in self._rows(sql, args)}
+
+    # ------------------------------------------------------------------ out-of-fold predictions
+    def sweep_rows(self, sweep_id: str) -> dict | None:
+        """What places predictions on rows: ``{"target", "classes", "folds"}``.
+
+        ``target`` (N,) float64 values or int64 class codes; ``classes`` the
+        labels in code order or None; ``folds`` (repeats, N) int64 test folds.
+        None when the sweep was stored before predictions were kept.
+        """
+        found = self._rows("SELECT * FROM sweep_rows WHERE sweep_id=?", (sweep_id,))
+        if not found:
+            return None
+        r = found[0]
+        n, reps = int(r["n_rows"]), int(r["repeats"])
+        classes = json.loads(r["classes"]) if r["classes"] is not None else None
+        target = np.frombuffer(r["target"], dtype=_F64 if classes is None else _I32)
+        target = target.astype(np.float64 if classes is None else np.int64)
+        folds = np.frombuffer(r["folds"], dtype=_I32).astype(np.int64).reshape(reps, n)
+        return {"target": target, "classes": classes, "folds": folds}
+
+    def trial_predictions(self, sweep_id: str, config_index: int, repeat: int,
+                          fold: int) -> tuple[np.ndarray, np.ndarray] | None:
+        """One trial's out-of-fold predictions: ``(rows, values)`` or None.
+
+        ``rows`` (n_test,) the test rows in ascending order; ``values`` float32
+        (n_test,) for a regressor, (n_test, n_classes) for a classifier.
+        """
+        found = self._rows("SELECT n_rows, n_columns, vals FROM predictions WHERE sweep_id=? "
+                           "AND config_index=? AND repeat=? AND fold=?",
+                           (sweep_id, int(config_index), int(repeat), int(fold)))
+        rows = self.sweep_rows(sweep_id)
+        if not found or rows is None:
+            return None
+        values = _values(found[0])
+        if rows["classes"] is None:
+            values = values[:, 0]
+        return np.flatnonzero(rows["folds"][int(repeat)] == int(fold)), values
+
+    def out_of_fold(self, sweep_id: str, configurations=None, *,
+                    baselines: bool = False) -> OutOfFold | None:
+        """The sweep's out-of-fold predictions, per repeat, over configurations.
+
+        Parameters
+        ----------
+        sweep_id : str
+        configurations : sequence of int, optional
+            Configuration indices, one column each, in this order (default: every
+            network configuration of the grid, in index order).
+        baselines : bool
+            Also the baselines, as columns after those (their indices follow the
+            grid's; see :meth:`baselines`).
+
+        Returns
+        -------
+        OutOfFold or None
+            Per repeat an N x C float32 matrix (N x C x n_classes for a
+            classifier), with the target and the test fold of each row; None
+            when the sweep was stored before predictions were kept.
+        """
+        rows = self.sweep_rows(sweep_id)
+        if rows is None:
+            return None
+        cols = list(range(self._n_configurations(sweep_id))) if configurations is None \
+            else [int(c) for c in configurations]
+        if baselines:
+            cols += [b["index"] for b in self.baselines(sweep_id)]
+        pos = {c: j for j, c in enumerate(cols)}
+        folds = rows["folds"]
+        reps, n = folds.shape
+        k = len(rows["classes"]) if rows["classes"] is not None else None
+        shape = (n, len(cols)) if k is None else (n, len(cols), k)
+        preds = [np.full(shape, np.nan, dtype=np.float32) for _ in range(reps)]
+        where: dict[tuple[int, int], np.ndarray] = {}
+        for r in self._rows("SELECT config_index, repeat, fold, n_rows, n_columns, vals FROM "
+                            "predictions WHERE sweep_id=?", (sweep_id,)):
+            j = pos.get(int(r["config_index"]))
+            if j is None:
+                continue
+            key = (int(r["repeat"]), int(r["fold"]))
+            if key not in where:
+                where[key] = np.flatnonzero(folds[key[0]] == key[1])
+            at = where[key]
+            values = _values(r)
+            if values.shape[0] != at.size:
+                raise ValueError(f"trial {tuple(r)[:3]} stored {values.shape[0]} predictions "
+                                 f"for a fold of {at.size} rows")
+            if k is None:
+                preds[key[0]][at, j] = values[:, 0]
+            else:
+                preds[key[0]][at, j, :] = values
+        finite = [np.isfinite(p).reshape(n, len(cols), -1).all(axis=(0, 2)) for p in preds]
+        complete = np.logical_and.reduce(finite) if finite else np.zeros(len(cols), bool)
+        return OutOfFold(y=rows["target"], classes=rows["classes"], folds=list(folds),
+                         predictions=preds, columns=np.asarray(cols, dtype=np.int64),
+                         complete=np.asarray(complete, dtype=bool))
+
+
+def _values(row) -> np.ndarray:
+    """A stored prediction BLOB as float32 (n_rows, n_columns)."""
+    return np.frombuffer(row["vals"], dtype=_F32).reshape(int(row["n_rows"]),
+                                                          int(row["n_columns"]))
