@@ -122,8 +122,10 @@ def _table_with_a_row_number(path):
     df.to_csv(path, index=False)
 
 
-def _fitted_pipelines(monkeypatch, plan, store):
-    """Run ``plan`` inline; return every pipeline the trials built (fitted by them)."""
+def _fitted_pipelines(monkeypatch, plan, store, preprocessors=None):
+    """Run ``plan`` inline; return every network pipeline the trials built (fitted by
+    them); every ColumnTransformer built (networks' and baselines') goes to
+    ``preprocessors``."""
     built = []
 
     def spy(*args, **kwargs):
@@ -131,12 +133,24 @@ def _fitted_pipelines(monkeypatch, plan, store):
         built.append(pipe)
         return pipe
 
-    real = preprocessing.build_pipeline
+    def spy_prep(*args, **kwargs):
+        prep = real_prep(*args, **kwargs)
+        if preprocessors is not None:
+            preprocessors.append(prep)
+        return prep
+
+    real, real_prep = preprocessing.build_pipeline, preprocessing.build_preprocessor
     monkeypatch.setattr(preprocessing, "build_pipeline", spy)
+    monkeypatch.setattr(preprocessing, "build_preprocessor", spy_prep)
     out = run_sweep(plan, store=store, backend="inline")
     monkeypatch.setattr(preprocessing, "build_pipeline", real)
+    monkeypatch.setattr(preprocessing, "build_preprocessor", real_prep)
     assert out.state == "finished" and len(built) == plan.n_trials
     return built
+
+
+def _last_sweep(store):
+    return store.list_sweeps()[0]["id"]
 
 
 def _listed_columns(pipe):
@@ -155,11 +169,17 @@ def test_a_column_made_a_feature_reaches_the_fitted_pipeline(tmp_path, monkeypat
             assert fitted_estimator(pipe).coefs_[0].shape[0] == 2
         plan.roles = {"row_no": "feature"}  # the user's change in the window
         plan.validate()
-        pipes = _fitted_pipelines(monkeypatch, plan, st)
+        preps = []
+        pipes = _fitted_pipelines(monkeypatch, plan, st, preps)
+        stored_baselines = {t["name"] for t in st.baseline_trials(_last_sweep(st))}
     for pipe in pipes:
         assert "row_no" in _listed_columns(pipe)
         # the network was trained on it: one more input than the two numeric features
         assert fitted_estimator(pipe).coefs_[0].shape[0] == 3
-    # the first trial's preprocessor was fitted by the runner (later ones reuse its features)
-    fitted = [c for _, _, cols in pipes[0].named_steps["prep"].transformers_ for c in cols]
-    assert "row_no" in fitted
+    # the first trial on each fold (a baseline's: they run first) fitted the preprocessor;
+    # the later ones reuse its features
+    fitted = [p for p in preps if hasattr(p, "transformers_")]
+    assert len(fitted) == plan.folds * plan.repeats
+    for prep in fitted:
+        assert "row_no" in [c for _, _, cols in prep.transformers_ for c in cols]
+    assert stored_baselines == {"constant", "linear"}

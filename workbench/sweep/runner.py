@@ -42,9 +42,24 @@ Events
     when a trial is stored (``status`` done, diverged or failed), or dropped at
     a cancel (``status`` cancelled, not stored); ``best_*`` is the configuration
     with the best mean test score so far among those without a failed trial;
+``{"type": "baseline_finished", "sweep_id", "config_index", "name", "repeat",
+"fold", "status", "test_score", "time"}``
+    when a baseline's trial is stored;
 ``{"type": "sweep_finished", "sweep_id", "state", "n_finished", "n_todo",
 "seconds", "time"}``
     once at the end; ``state`` is ``finished`` or ``interrupted``.
+
+Counts (``n_trials``, ``n_todo``, ``n_stored``, ``n_finished``) and the
+``trial_*`` events are about the networks' trials; the baselines' trials
+(:meth:`workbench.sweep.plan.SweepPlan.baseline_trials`, run first: they are
+quick, and the yardstick is then there even for an interrupted sweep) are
+counted in ``sweep_started``'s ``n_baselines_todo`` and reported by
+``baseline_finished`` only.
+
+Stored once per sweep: the target of every row and the plan's fold
+assignment (:meth:`workbench.sweep.store.Store.put_rows`), which place each
+trial's out-of-fold predictions on the table's rows. A resumed sweep stored
+before predictions were kept gets them on resume.
 
 Cancel, crashes, resume
 -----------------------
@@ -78,8 +93,10 @@ from workbench.sweep.trials import (
     DONE,
     FAILED,
     TrialData,
+    describe_baseline,
     run_trial,
     run_trial_from_file,
+    target_codes,
 )
 
 #: a worker that dies under a trial costs the trial one attempt; one retry by default
@@ -130,6 +147,22 @@ def load_data(plan: SweepPlan):
     profile = profile.with_roles(roles)
     X, y = split_xy(df, target)
     return TrialData(X=X, y=y, profile=profile, target=target), table_fingerprint(plan.table, df)
+
+
+def sweep_rows(plan: SweepPlan, y, folds: dict) -> dict:
+    """What the store keeps to place predictions on rows (see :meth:`Store.put_rows`).
+
+    ``folds`` is :meth:`SweepPlan.fold_indices`' answer; each row's test fold
+    per repeat is read from it, so the stored assignment is the plan's own.
+    """
+    y = np.asarray(y)
+    assignment = np.full((plan.repeats, y.shape[0]), -1, dtype=np.int64)
+    for (r, f), (_train, test) in folds.items():
+        assignment[r, test] = f
+    if plan.task == "classification":
+        classes, codes = target_codes(y)
+        return {"target": codes, "classes": list(classes), "folds": assignment}
+    return {"target": y.astype(np.float64), "classes": None, "folds": assignment}
 
 
 def default_jobs() -> int:
@@ -217,31 +250,41 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
         executor = _LokyExecutor(jobs or default_jobs(), data)
     else:
         raise InputError(f"unknown backend {backend!r}; use processes or inline")
+    rows = sweep_rows(plan, data.y, folds)
     try:
         if resume is not None:
             sweep_id = resume
             store.set_state(sweep_id, RUNNING)
-            done = store.finished_keys(sweep_id)
+            if store.sweep_rows(sweep_id) is None:  # stored before predictions were kept
+                store.put_rows(sweep_id, rows["target"], rows["folds"], rows["classes"])
+            done = store.finished_keys(sweep_id, baselines=True)
         else:
             sweep_id = sweep_id or new_sweep_id()
-            store.create_sweep(sweep_id, plan.to_dict(), fingerprint,
-                               [c.to_dict() for c in plan.configurations()])
+            store.create_sweep(
+                sweep_id, plan.to_dict(), fingerprint, [c.to_dict() for c in plan.configurations()],
+                baselines=[{"index": b.index, "name": b.name,
+                            "estimator": describe_baseline(plan.task, b.name, plan.metric)}
+                           for b in plan.baseline_configurations()],
+                rows=rows)
             done = set()
     except BaseException:
         executor.close(kill=True)
         raise
-    configs = plan.configurations()
+    configs = plan.configurations() + plan.baseline_configurations()
     todo = [t for t in plan.trials() if t.key not in done]
+    todo_baselines = [t for t in plan.baseline_trials() if t.key not in done]
     run = _Run(plan, configs, folds, sweep_id, store, emit, cancel, len(todo))
     for t in store.trials(sweep_id, with_history=False):
         run.note_score(t)
+    n_stored = sum(1 for key in done if key[0] < plan.n_configurations)
     emit({"type": "sweep_started", "sweep_id": sweep_id, "n_trials": plan.n_trials,
-          "n_todo": len(todo), "n_stored": len(done), "n_configurations": len(configs),
+          "n_todo": len(todo), "n_stored": n_stored, "n_configurations": plan.n_configurations,
+          "n_baselines_todo": len(todo_baselines),
           "metric": plan.metric, "resumed": resume is not None, "backend": executor.name,
           "workers": executor.workers, "time": time.time()})
     interrupted = False
     try:
-        interrupted = run.execute(executor, todo, retries)
+        interrupted = run.execute(executor, todo_baselines + todo, retries)
     except KeyboardInterrupt:
         run.cancel_running()
         store.set_state(sweep_id, INTERRUPTED)
@@ -279,8 +322,13 @@ class _Run:
                 "metric": p.metric, "epochs": p.epochs, "early_stopping": p.early_stopping,
                 "batch_size": p.batch_size, "dtype": p.dtype, "attempt": attempt}
 
+    def is_baseline(self, config_index) -> bool:
+        return config_index >= self.plan.n_configurations
+
     def note_score(self, res):
         c = res["config_index"]
+        if self.is_baseline(c):
+            return
         if res["status"] == DONE and res.get("test_score") is not None:
             s = self.sums[c]
             s[0] += res["test_score"]
@@ -296,6 +344,8 @@ class _Run:
         return c, means[c]
 
     def started(self, trial, attempt):
+        if self.is_baseline(trial.config_index):
+            return
         self.emit({"type": "trial_started", "sweep_id": self.sweep_id,
                    "config_index": trial.config_index, "repeat": trial.repeat,
                    "fold": trial.fold, "attempt": attempt,
@@ -307,6 +357,13 @@ class _Run:
         except sqlite3.IntegrityError:
             # stored meanwhile by another process resuming the same sweep: keep that copy
             pass
+        if self.is_baseline(res["config_index"]):
+            self.emit({"type": "baseline_finished", "sweep_id": self.sweep_id,
+                       "config_index": res["config_index"],
+                       "name": self.configs[res["config_index"]].name, "repeat": res["repeat"],
+                       "fold": res["fold"], "status": res["status"],
+                       "test_score": res.get("test_score"), "time": time.time()})
+            return
         self.n_finished += 1
         self.note_score(res)
         self._emit_finished(res)
@@ -325,6 +382,8 @@ class _Run:
 
     def cancel_running(self):
         for trial, _attempt in list(self.running.values()):
+            if self.is_baseline(trial.config_index):
+                continue
             self._emit_finished({"config_index": trial.config_index, "repeat": trial.repeat,
                                  "fold": trial.fold, "status": CANCELLED,
                                  "engine": self.configs[trial.config_index].engine})

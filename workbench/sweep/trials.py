@@ -14,11 +14,23 @@ any Dask worker, serially or in parallel. It
 3. scores the fold's test rows and its training rows with scikit-learn's
    scorer (``sklearn.metrics.get_scorer``; greater is better) applied to the
    fitted pipeline's steps,
-4. returns a plain dict: scores, fit seconds, epochs run, the per-epoch
-   history (training loss, validation score under early stopping, per-layer
-   dead / saturated shares and gradient norms) and the last epoch's health,
-   and a status: ``done``, ``diverged`` (non-finite loss) or ``failed`` (with
-   the error message).
+4. predicts the fold's test rows once more for the record: the *out-of-fold
+   predictions* (``predictions``, float32, in ascending row order of the test
+   rows; class probabilities, one column per class in the order of
+   :func:`target_classes` -- scikit-learn's ``classes_`` order -- for
+   classifiers; predictions in the user's units for regressors),
+5. returns a plain dict: scores, fit seconds, epochs run (the estimator's
+   ``n_iter_``), the per-epoch history (training loss, validation score under
+   early stopping, per-layer dead / saturated shares and gradient norms) and the
+   last epoch's health, the predictions, and a status: ``done``, ``diverged``
+   (non-finite loss) or ``failed`` (with the error message). Only a ``done``
+   trial carries predictions.
+
+Baselines (:func:`make_baseline`, :func:`baseline_pipeline`): a trial whose
+configuration has ``kind: "baseline"`` fits a reference model instead of a
+network, on the same fold's preprocessed features (the same fitted
+ColumnTransformer, :func:`workbench.data.preprocessing.build_preprocessor`),
+and is scored and recorded the same way (no epochs, history or health).
 
 Health for scikit-learn's engine: scikit-learn does not record per-epoch
 health, so its trials carry only the final ``health`` (dead and saturated
@@ -117,6 +129,138 @@ def estimator_for(plan, config, random_state: int = 0):
                            "early_stopping": p.get("early_stopping", False),
                            "batch_size": p.get("batch_size", "auto"),
                            "dtype": p.get("dtype", "float32"), "random_state": random_state})
+
+
+# --------------------------------------------------------------------------- baselines
+
+#: L2 strength of the Poisson baseline: the networks' default (scikit-learn's MLP
+#: ``alpha``); common practice, since both average the loss over rows
+POISSON_BASELINE_ALPHA = 1e-4
+
+#: scorers that need every prediction > 0 (the linear baseline is then a Poisson GLM)
+_POSITIVE_PREDICTION_METRICS = {"neg_mean_poisson_deviance", "neg_mean_gamma_deviance"}
+
+
+def make_baseline(task: str, name: str, metric: str | None = None):
+    """The unfitted model step of a baseline (the preprocessing comes first).
+
+    ``constant``: ``DummyRegressor(strategy="mean")`` (the training fold's mean)
+    or ``DummyClassifier(strategy="prior")`` (its class shares). ``linear``:
+    ``Ridge()`` (scikit-learn's default ``alpha=1.0``) on the target scaled as
+    for the identity head (``TargetScaler("standard")``, inverted for scoring,
+    through ``TransformedTargetRegressor``) or ``LogisticRegression(max_iter=1000)``
+    (scikit-learn's defaults, L2 with ``C=1``; more iterations than the default
+    100 so that lbfgs converges on standardised features). When ``metric``
+    needs predictions > 0 (the Poisson deviance), a linear model can predict 0
+    or less, so the linear baseline is then scikit-learn's ``PoissonRegressor``
+    (a linear model with a log link, the exp head's linear counterpart) on the
+    exp head's target scaling, with :data:`POISSON_BASELINE_ALPHA`.
+    """
+    from sklearn.compose import TransformedTargetRegressor
+    from sklearn.dummy import DummyClassifier, DummyRegressor
+    from sklearn.linear_model import LogisticRegression, PoissonRegressor, Ridge
+
+    from workbench.data.preprocessing import TargetScaler
+
+    if task == "classification":
+        if name == "constant":
+            return DummyClassifier(strategy="prior")
+        if name == "linear":
+            return LogisticRegression(max_iter=1000)
+    elif name == "constant":
+        return DummyRegressor(strategy="mean")
+    elif name == "linear":
+        if metric in _POSITIVE_PREDICTION_METRICS:
+            return TransformedTargetRegressor(
+                regressor=PoissonRegressor(alpha=POISSON_BASELINE_ALPHA, max_iter=1000),
+                transformer=TargetScaler("scale"), check_inverse=False)
+        return TransformedTargetRegressor(regressor=Ridge(), transformer=TargetScaler("standard"),
+                                          check_inverse=False)
+    raise ValueError(f"unknown baseline {name!r} for {task}")
+
+
+def describe_baseline(task: str, name: str, metric: str | None = None) -> str:
+    """One line naming a baseline's estimator, e.g. ``Ridge(alpha=1.0), target standardised``."""
+    model = make_baseline(task, name, metric)
+    if hasattr(model, "regressor"):
+        mode = model.transformer.mode
+        scaling = {"standard": "target standardised", "scale": "target divided by its sd"}[mode]
+        return f"{type(model.regressor).__name__}({_params(model.regressor)}), {scaling}"
+    return f"{type(model).__name__}({_params(model)})"
+
+
+def _params(est) -> str:
+    p = est.get_params(deep=False)
+    return ", ".join(f"{k}={p[k]!r}" for k in ("strategy", "alpha", "C", "max_iter")
+                     if p.get(k) is not None)
+
+
+def baseline_pipeline(profile, target, name: str, metric: str | None = None):
+    """``Pipeline([("prep", ColumnTransformer), ("model", baseline)])``, unfitted.
+
+    The ColumnTransformer is the networks' own
+    (:func:`workbench.data.preprocessing.build_preprocessor` for the same profile
+    and target); the model step is :func:`make_baseline`.
+    """
+    from sklearn.pipeline import Pipeline
+
+    from workbench.data.preprocessing import build_preprocessor
+
+    return Pipeline([("prep", build_preprocessor(profile, target)),
+                     ("model", make_baseline(target.task, name, metric))])
+
+
+# --------------------------------------------------------------------------- the target's classes
+
+
+def target_classes(y) -> np.ndarray:
+    """The class labels in scikit-learn's ``classes_`` order (sorted, as ``numpy.unique``)."""
+    return np.unique(np.asarray(y))
+
+
+def target_codes(y) -> tuple[np.ndarray, np.ndarray]:
+    """``(classes, codes)``: :func:`target_classes` and each row's position in it."""
+    classes, codes = np.unique(np.asarray(y), return_inverse=True)
+    return classes, codes.reshape(-1)
+
+
+#: the classes of the current sweep's target in this worker: {token: classes}
+_CLASSES: dict = {}
+
+
+def _sweep_classes(data: TrialData) -> np.ndarray:
+    with _FOLD_LOCK:
+        hit = _CLASSES.get(data.token)
+    if hit is None:
+        hit = target_classes(data.y)
+        with _FOLD_LOCK:
+            _CLASSES.clear()
+            _CLASSES[data.token] = hit
+    return hit
+
+
+def _predictions(data: TrialData, model, X_te, test: np.ndarray) -> np.ndarray:
+    """The test rows' predictions as float32, in ascending row order.
+
+    Classifiers: ``predict_proba`` with one column per class of the whole
+    target (:func:`target_classes`); a class the model never saw gets 0.
+    Regressors: ``predict`` (user units; target scaling inverted), one value per row.
+    """
+    order = np.argsort(test, kind="stable")
+    if data.target.task == "classification":
+        proba = np.asarray(model.predict_proba(X_te), dtype=np.float64)
+        classes = _sweep_classes(data)
+        seen = np.asarray(model.classes_)
+        cols = np.searchsorted(classes, seen)
+        if np.any(cols >= classes.size) or np.any(classes[np.minimum(cols, classes.size - 1)]
+                                                   != seen):
+            raise ValueError(f"the model's classes {seen.tolist()} are not among the "
+                             f"target's {classes.tolist()}")
+        out = np.zeros((proba.shape[0], classes.size), dtype=np.float32)
+        out[:, cols] = proba
+        return np.ascontiguousarray(out[order])
+    pred = np.asarray(model.predict(X_te), dtype=np.float64).reshape(-1)
+    return np.ascontiguousarray(pred[order].astype(np.float32))
 
 
 def _unwrap(model, X):
@@ -226,7 +370,8 @@ def run_trial(data: TrialData, spec: dict) -> dict:
     dict
         ``config_index, repeat, fold, status, test_score, train_score,
         fit_seconds, epochs, engine, error, history, health, n_train, n_test,
-        worker``.
+        worker, predictions`` (``predictions``: the out-of-fold predictions,
+        see the module docstring; None unless the status is ``done``).
     """
     from threadpoolctl import threadpool_limits
 
@@ -239,7 +384,7 @@ def run_trial(data: TrialData, spec: dict) -> dict:
                                    "grad_norm": []},
         "health": {"dead": [], "saturated": [], "grad_norm": []},
         "n_train": len(spec["train"]), "n_test": len(spec["test"]),
-        "worker": f"{socket.gethostname()}:{os.getpid()}",
+        "worker": f"{socket.gethostname()}:{os.getpid()}", "predictions": None,
     }
     try:
         with threadpool_limits(limits=1), warnings.catch_warnings(), \
@@ -298,7 +443,10 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
     test = np.asarray(spec["test"])
     y = np.asarray(data.y)
     y_tr, y_te = y[train], y[test]
-    pipe = build_pipeline(data.profile, data.target, make_estimator(spec), cfg["head"])
+    if cfg.get("kind") == "baseline":
+        pipe = baseline_pipeline(data.profile, data.target, cfg["name"], spec["metric"])
+    else:
+        pipe = build_pipeline(data.profile, data.target, make_estimator(spec), cfg["head"])
     prep, model = pipe.named_steps["prep"], pipe.named_steps["model"]
     X_tr, X_te = _fold_features(data, spec, prep, train, test)
     t0 = time.perf_counter()
@@ -349,6 +497,7 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
         result["status"] = DIVERGED
         result["error"] = "the score is not finite (the network's predictions blew up)"
         return
+    result["predictions"] = _predictions(data, model, X_te, test)
     result["test_score"] = test_score
     result["train_score"] = train_score
     result["status"] = DONE
