@@ -49,7 +49,17 @@ def bundled(tmp_path_factory):
 def _scores(store, sweep_id):
     return {(t["config_index"], t["repeat"], t["fold"]): (t["status"], t["test_score"],
                                                           t["train_score"], t["epochs"])
-            for t in store.trials(sweep_id, with_history=False)}
+            for t in store.trials(sweep_id, with_history=False)
+            + store.baseline_trials(sweep_id)}
+
+
+def _same_predictions(store, a, b):
+    """Two sweeps' out-of-fold predictions (baselines included) are bit for bit equal."""
+    pa, pb = store.out_of_fold(a, baselines=True), store.out_of_fold(b, baselines=True)
+    assert pa.complete.all() and pb.complete.all() and len(pa.columns) == len(pb.columns)
+    np.testing.assert_array_equal(pa.y, pb.y)
+    for x, y in zip(pa.folds + pa.predictions, pb.folds + pb.predictions, strict=True):
+        assert x.tobytes() == y.tobytes()
 
 
 # --------------------------------------------------------------------------- the plan
@@ -240,7 +250,9 @@ def test_same_scores_with_1_or_2_jobs_and_on_a_dask_local_cluster(tmp_path):
             assert cluster.scheduler_address.startswith("tcp://127.0.0.1:")
             dask = run_sweep(plan, store=st, cluster=cluster.scheduler_address)
         s1, s2, s3 = (_scores(st, o.sweep_id) for o in (one, two, dask))
-    assert len(s1) == plan.n_trials
+        _same_predictions(st, one.sweep_id, two.sweep_id)
+        _same_predictions(st, one.sweep_id, dask.sweep_id)
+    assert len(s1) == plan.n_trials + len(plan.baseline_trials())
     assert s1 == s2 == s3  # exactly equal, not approximately
     # the sweep's warm pool is its own: joblib (scikit-learn's n_jobs) still works beside it
     from joblib import Parallel, delayed
@@ -364,6 +376,7 @@ def test_cancel_keeps_finished_trials_and_resume_runs_exactly_the_rest(tmp_path)
         assert not run_keys & kept and len(run_keys) == plan.n_trials - 2
         fresh = run_sweep(plan, store=st, backend="inline")
         assert _scores(st, again.sweep_id) == _scores(st, fresh.sweep_id)
+        _same_predictions(st, again.sweep_id, fresh.sweep_id)
         with pytest.raises(InputError, match="already finished"):
             run_sweep(store=st, resume=out.sweep_id)
 

@@ -33,7 +33,16 @@ TRIAL_KEYS = {"repeat", "fold", "test_score", "train_score", "fit_seconds", "epo
 def _scores(store_path, sweep_id):
     with Store(store_path) as st:
         return {(t["config_index"], t["repeat"], t["fold"]): t["test_score"]
-                for t in st.trials(sweep_id, with_history=False)}
+                for t in st.trials(sweep_id, with_history=False)
+                + st.baseline_trials(sweep_id)}
+
+
+def _predictions(store_path, sweep_id):
+    """Every repeat's out-of-fold matrix (baselines included) as bytes."""
+    with Store(store_path) as st:
+        oof = st.out_of_fold(sweep_id, baselines=True)
+    assert oof.complete.all()
+    return [p.tobytes() for p in oof.predictions]
 
 
 def _start(args, store):
@@ -134,6 +143,7 @@ def test_sigkill_then_resume_stores_every_trial_exactly_once(tmp_path):
         plan = SweepPlan.from_dict(st.get_sweep(sweep_id)["plan"])
         fresh = run_sweep(plan, store=st, backend="inline")
     assert _scores(store, sweep_id) == _scores(store, fresh.sweep_id)
+    assert _predictions(store, sweep_id) == _predictions(store, fresh.sweep_id)
 
 
 #: a plan of 1000 trials (minutes of work on two cores): whatever the machine's load, it is

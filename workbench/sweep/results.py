@@ -44,9 +44,14 @@ def sweep_results(store, sweep_id: str, *, alpha: float = ALPHA, holm: bool = Fa
         status, mean, sd, n_scores, p_value, p_value_holm, tied_with_best,
         mean_fit_seconds, train_mean, train_test_gap, dead, saturated`` and
         ``trials`` (``repeat, fold, test_score, train_score, fit_seconds,
-        epochs, status, error, engine``). Configurations that are not
+        epochs, status, error, engine``), and ``mean_epochs`` (epochs run,
+        mean over the done trials). Configurations that are not
         rankable (a trial diverged or failed, or none is stored yet) follow
         the ranked ones with ``mean`` over their done trials and no p-value.
+        ``baselines``: the reference configurations run on the same folds
+        (kept out of the ranking), each ``{name, estimator, status, mean, sd,
+        scores}`` with ``scores`` the done trials' test scores in (repeat,
+        fold) order.
     """
     sweep = store.get_sweep(sweep_id)
     plan = sweep["plan"]
@@ -85,7 +90,25 @@ def sweep_results(store, sweep_id: str, *, alpha: float = ALPHA, holm: bool = Fa
         "versions": sweep["versions"],
         "plan": plan,
         "configurations": out_cfgs,
+        "baselines": _baselines(store, sweep_id, expected, sweep["state"]),
     }
+
+
+def _baselines(store, sweep_id: str, expected: int, sweep_state: str) -> list[dict]:
+    """The reference configurations' entries: scores in (repeat, fold) order."""
+    by_index: dict[int, list[dict]] = {}
+    for t in store.baseline_trials(sweep_id):
+        by_index.setdefault(t["config_index"], []).append(t)
+    out = []
+    for b in store.baselines(sweep_id):
+        ts = sorted(by_index.get(b["index"], []), key=lambda t: (t["repeat"], t["fold"]))
+        scores = [t["test_score"] for t in ts if t["status"] == "done"]
+        out.append({"name": b["name"], "estimator": b["estimator"],
+                    "status": _status(ts, expected, sweep_state),
+                    "mean": float(np.mean(scores)) if scores else None,
+                    "sd": float(np.std(scores, ddof=1)) if len(scores) > 1 else None,
+                    "scores": scores})
+    return out
 
 
 def _status(trials: list[dict], expected: int, sweep_state: str) -> str:
@@ -149,6 +172,7 @@ def _configuration_entry(rank_: int, c: dict, ts: list[dict], status: str, st: d
         "train_mean": train_mean,
         "train_test_gap": (train_mean - done_test
                            if train_mean is not None and done_test is not None else None),
+        "mean_epochs": _mean(t["epochs"] for t in done if t["epochs"] is not None),
         "dead": _health_share(ts, "dead"),
         "saturated": _health_share(ts, "saturated"),
         "trials": [{"repeat": t["repeat"], "fold": t["fold"], "test_score": t["test_score"],
