@@ -85,6 +85,61 @@ def test_plan_grid_counts_engines_and_json_round_trip():
     assert again == plan and again.configurations() == cfgs
 
 
+def test_tune_is_a_log_scale_grid_given_to_every_activation_and_head():
+    from sklearn.neural_network import MLPRegressor
+
+    from workbench.sweep.plan import LEARNING_RATE_GRID
+
+    # three values evenly spaced on a log scale from 1e-3 to 3e-2 (numpy.geomspace), the
+    # middle one rounded to two significant figures; the low end is Adam's default step
+    # (Kingma & Ba 2015), which is also scikit-learn's learning_rate_init default
+    np.testing.assert_allclose(LEARNING_RATE_GRID, np.geomspace(1e-3, 3e-2, 3), rtol=0.005)
+    assert LEARNING_RATE_GRID[0] == MLPRegressor().learning_rate_init
+    plan = build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection",
+                      hidden="relu,tanh,gelu", output="all", learning_rates="tune")
+    assert plan.tune_learning_rate and plan.learning_rates == list(LEARNING_RATE_GRID)
+    per_candidate = {}
+    for c in plan.configurations():
+        per_candidate.setdefault((c.hidden, c.head), []).append(c.learning_rate)
+    assert len(per_candidate) == 3 * len(plan.heads) >= 6
+    assert all(sorted(v) == list(LEARNING_RATE_GRID) for v in per_candidate.values())
+    assert SweepPlan.from_dict(json.loads(json.dumps(plan.to_dict()))) == plan
+    # the window's switch: the plan field replaces the rates it was given
+    direct = SweepPlan(table="t.csv", target="y", task="regression", target_kind="signed",
+                       hidden=["relu"], heads=["identity"], learning_rates=[0.2],
+                       tune_learning_rate=True)
+    assert direct.learning_rates == list(LEARNING_RATE_GRID)
+    # explicit lists still work, and "tune" is not mixed with numbers
+    listed = build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection", hidden="relu",
+                        learning_rates=["0.002,0.02"])
+    assert listed.learning_rates == [0.002, 0.02] and not listed.tune_learning_rate
+    with pytest.raises(InputError, match="either 'tune' or a list") as info:
+        build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection", learning_rates="tune,0.1")
+    assert info.value.setting == "learning_rate"
+
+
+def test_the_command_line_tune_option_reaches_the_plan(tmp_path, capsys):
+    from workbench.cli import main
+    from workbench.sweep.plan import LEARNING_RATE_GRID
+
+    out = tmp_path / "r.json"
+    assert main(["sweep", str(SAMPLES / "kiln_batches.csv"), "--target", "passes_inspection",
+                 "--hidden", "relu", "--layers", "2", "--folds", "2", "--repeats", "1",
+                 "--epochs", "1", "--learning-rate", "tune", "--jobs", "1", "--quiet",
+                 "--store", str(tmp_path / "s.sqlite"), "--json", str(out)]) == 0
+    res = json.loads(out.read_text())
+    assert res["plan"]["tune_learning_rate"] is True
+    assert sorted(c["learning_rate"] for c in res["configurations"]) == list(LEARNING_RATE_GRID)
+    import argparse
+
+    from workbench.commands.sweep import add_arguments
+
+    parser = argparse.ArgumentParser()
+    add_arguments(parser)
+    helptext = " ".join(parser.format_help().split())
+    assert all(f"{v:g}" in helptext for v in LEARNING_RATE_GRID)  # the help states the grid
+
+
 def test_engine_choice_follows_what_scikit_learn_can_express():
     assert choose_engine("auto", "classification", "relu", "logistic", "binary") == "sklearn"
     assert choose_engine("auto", "classification", "relu", "softmax", "multiclass") == "sklearn"
@@ -228,6 +283,13 @@ def test_diabetes_sweep(bundled, tmp_path):
     pipe.fit(data.X.iloc[tr], data.y[tr])
     r2 = get_scorer("r2")(pipe, data.X.iloc[te], data.y[te])
     assert r2 == next(t["test_score"] for t in best["trials"] if t["fold"] == 1)
+    # epochs run: the fitted network's n_iter_, and their mean per configuration
+    from workbench.data.preprocessing import fitted_estimator
+
+    assert fitted_estimator(pipe).n_iter_ == next(t["epochs"] for t in best["trials"]
+                                                  if t["fold"] == 1)
+    for c in res["configurations"]:
+        assert c["mean_epochs"] == pytest.approx(np.mean([t["epochs"] for t in c["trials"]]))
 
 
 # --------------------------------------------------------------------------- determinism

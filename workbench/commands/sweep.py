@@ -42,8 +42,9 @@ def add_arguments(parser):
                         help="hidden-layer shape, e.g. 64 or 64,32; repeat for several "
                              "(default 64)")
     parser.add_argument("--learning-rate", metavar="LR", action="append", default=None,
-                        help="Adam's initial learning rate(s), comma-separated or repeated "
-                             "(default 0.001)")
+                        help="Adam's initial learning rate(s), comma-separated or repeated, "
+                             "or 'tune': every activation and head tried at 0.001, 0.0055 "
+                             "and 0.03, a log-scale grid (default 0.001)")
     parser.add_argument("--alpha", metavar="A", action="append", default=None,
                         help="L2 strength(s), comma-separated or repeated (default 0.0001)")
     parser.add_argument("--folds", type=int, metavar="K", default=5, help="K folds (default 5)")
