@@ -58,8 +58,9 @@ C configurations on a fold are one matrix product of the (B x n_fold) weights
 with the (n_fold x C) per-row terms. ROC AUC is the weighted Mann-Whitney
 statistic: for each configuration the negatives' weights are cumulated in
 score order and read off at each positive (ties count one half), which costs
-O(B x n_fold) per configuration and fold. ``workbench bench`` reports the time
-on 10,000 rows x 50 configurations x B = 1,000.
+O(B x n_fold) per configuration and fold, the slowest of the metrics. Large
+temporary arrays are avoided (fresh ones of tens of MB cost more in page
+faults than the arithmetic).
 
 Interface
 ---------
@@ -206,13 +207,10 @@ def bootstrap_counts(n_rows: int, n_boot: int, seed: int) -> np.ndarray:
     """
     rng = np.random.default_rng(seed)
     idx = rng.integers(0, n_rows, size=(n_boot, n_rows), dtype=np.int64)
-    # in place (fresh arrays of this size cost page faults): the flat position of
-    # (row, sample) in the rows-first layout
-    idx *= n_boot
-    idx += np.arange(n_boot, dtype=np.int64)[:, None]
-    counts = np.bincount(idx.ravel(), minlength=n_boot * n_rows)
-    del idx
-    return counts.astype(np.float32).reshape(n_rows, n_boot)
+    counts = np.empty((n_rows, n_boot), dtype=np.float32)
+    for b in range(n_boot):  # one sample at a time: no large temporaries
+        counts[:, b] = np.bincount(idx[b], minlength=n_rows)
+    return counts
 
 
 # --------------------------------------------------------------------------- folds
@@ -264,19 +262,20 @@ class _Fold:
         m = self.metric
         if m == "roc_auc":
             return self._auc(w, cols)
-        wsum = w.sum(axis=0, dtype=float)  # (B',)
+        wf = w.astype(np.float64)  # (n_f, B'); the products below in float64
+        wsum = wf.sum(axis=0)  # (B',)
         with np.errstate(invalid="ignore", divide="ignore"):
             if m == "balanced_accuracy":
-                support = self.class_masks.T @ w.astype(float)  # (k, B')
+                support = self.class_masks.T @ wf  # (k, B')
                 out = np.zeros((w.shape[1], cols.size))
                 for k in range(support.shape[0]):
                     rows_k = self.class_of == k
-                    hit = w[rows_k].T.astype(float) @ self.terms[rows_k][:, cols]  # (B', c)
+                    hit = wf[rows_k].T @ self.terms[rows_k][:, cols]  # (B', c)
                     recall = hit / support[k][:, None]
                     out += np.where(support[k][:, None] > 0, recall, 0.0)
                 present = (support > 0).sum(axis=0).astype(float)
                 return out / present[:, None]
-            total = w.T.astype(float) @ self.terms[:, cols]  # (B', c)
+            total = wf.T @ self.terms[:, cols]  # (B', c)
             mean = total / wsum[:, None]
             if m in ("accuracy",):
                 return mean
@@ -286,7 +285,6 @@ class _Fold:
             if m == "neg_root_mean_squared_error":
                 return -np.sqrt(mean)
             if m == "r2":
-                wf = w.astype(float)
                 s1 = self.yc @ wf
                 sst = (self.yc ** 2) @ wf - s1 ** 2 / wsum
                 sst = np.where(sst > 1e-12 * ((self.yc ** 2) @ wf), sst, np.nan)
