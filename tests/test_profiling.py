@@ -394,5 +394,9 @@ def test_suggested_target_prefers_strong_names_then_the_last_column():
     assert profile_table(df).suggested_target == "risk"  # last column beats a word match
     df = pd.DataFrame({"label": rng.choice(["a", "b"], n), **base})
     assert profile_table(df).suggested_target == "label"  # a strong name beats position
+    # an identifier last: no column is clearly the target, so none is suggested (the window
+    # asks) rather than the last column that is not ignored
     df = pd.DataFrame({**base, "row_id": np.arange(n)})
-    assert profile_table(df).suggested_target == "bmi"  # ignored columns are never suggested
+    prof = profile_table(df)
+    assert prof.suggested_target is None
+    assert "'row_id'" in prof.suggestion_reason and "identifier" in prof.suggestion_reason

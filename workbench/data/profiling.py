@@ -5,14 +5,18 @@ Column profile
 :func:`profile_table(df, target=None) <profile_table>` returns a :class:`TableProfile`:
 
 - ``rows`` (int), ``columns`` (list of :class:`ColumnProfile`, table order),
-  ``suggested_target`` (str or None: the single most likely target column),
-  ``target`` (the column given as ``target``, or None).
+  ``suggested_target`` (str or None: the single most likely target column; None
+  when no column is clearly the target), ``suggestion_reason`` (one sentence: why
+  that column, or why none) and ``target`` (the column given as ``target``, or None).
+  A year, a date, an identifier or a row index is never suggested
+  (:func:`never_a_target`).
 
 Each :class:`ColumnProfile` has ``name``, ``type``, ``base_type``, ``role``,
 ``reason``, ``dtype`` (pandas dtype as text), ``missing``, ``missing_share``,
 ``distinct``, ``min`` / ``max`` / ``mean`` (numeric and datetime types, else
 None; datetimes as ISO text), ``top`` (up to 5 most frequent values as text, for
-categorical / boolean / text) and ``target_candidate`` (bool).
+categorical / boolean / text), ``target_candidate`` (bool) and ``not_suggested``
+(why the column is never suggested as the target, else empty).
 
 ``type`` is one of ``numeric`` (real-valued), ``integer`` (whole numbers),
 ``boolean``, ``categorical`` (text with few distinct values; ``distinct`` is
@@ -26,7 +30,8 @@ column given as ``target``; when none is given, the suggested target).
 roles the user changed; it is the only way the project applies the user's roles
 (the window, the sweep's runner and an export's refit all call it), so an
 identifier made a feature gets its ``base_type`` back everywhere.
-``TableProfile.feature_columns(target)`` lists the columns the preprocessing uses.
+``TableProfile.feature_columns(target)`` lists the columns the preprocessing uses;
+``TableProfile.require_features(target)`` refuses a table with none (before any trial).
 
 Target
 ------
@@ -38,9 +43,15 @@ else ``regression``), ``evidence`` (dict: ``dtype``, ``rows``, ``missing``,
 ``zero_share``, ``negative_share``, ``integer_valued``, ``rule`` = one sentence
 saying why this kind; classification adds ``class_counts``), ``classes`` (sorted
 list of labels for classification, else None), ``interval`` ((low, high) for
-bounded, else None), ``rows_dropped`` (rows whose target is missing) and
-``rows`` (rows kept). :func:`split_xy` gives the features and the target with
-those rows dropped.
+bounded, else None), ``rows_dropped`` (rows whose target is missing),
+``rows`` (rows kept), ``detected_kind`` (what the values say), ``kind_set_by_user``
+(``kind`` was given to :func:`analyse_target`; a kind the values cannot have is
+refused by :func:`check_kind`), and for small integer codes that could be classes
+or a count: ``ambiguous`` (bool), ``alternatives`` (the other kinds the values fit)
+and ``ambiguity`` (the evidence and the rule that picked the default; the evidence
+is also ``evidence["codes"]``: ``distinct``, ``low``, ``high``, ``rare_code``,
+``rare_share``, ``rare_rows``). :func:`split_xy` gives the features and the target
+with the rows whose target is missing dropped.
 
 Advice and guard
 ----------------
@@ -81,10 +92,13 @@ MOSTLY_MISSING = 0.6
 #: common practice: text columns with more distinct values are not one-hot encoded
 MAX_CATEGORIES = 50
 #: integer codes 0..k-1 (or 1..k) with at most this many values are read as classes
-#: (common practice, like the other thresholds here)
+#: (a rule of thumb of this project, common practice; the number is from memory, no
+#: study is cited)
 MAX_CODE_CLASSES = 10
 #: ... and only when every code holds at least this share of the rows (counts thin out
-#: in their tail; class labels rarely do), common practice
+#: in their tail; class labels rarely do). Codes with a rarer code are read as a count
+#: and flagged ambiguous (:attr:`TargetInfo.ambiguous`). Common practice; the 5 % is
+#: from memory, no study is cited.
 MIN_CODE_SHARE = 0.05
 #: a classification target with more classes than this is refused (common practice)
 MAX_CLASSES = 100
@@ -102,6 +116,14 @@ _TARGET_WORDS = re.compile(
     r"price|amount|share|rate|count|change|score|quality|drawn|demand|sales|response)",
     re.I)
 _PERCENT_NAME = re.compile(r"(percent|pct|%)", re.I)
+#: a time stamp or calendar part by name: the whole name, or a first / last word of it
+_TIME_WORD = r"(year|yr|date|datetime|timestamp)"
+_TIME_NAME = re.compile(rf"^{_TIME_WORD}([_\s.-]|$)|(^|[_\s.-]){_TIME_WORD}$|"
+                        r"^(month|day|week|weekday|quarter|hour|dayofweek|day_of_week)$", re.I)
+_UNNAMED = re.compile(r"^(unnamed(:?\s*\d+)?|\s*)$", re.I)  # pandas' name for a saved index
+#: whole numbers inside this range forming a run of consecutive values read as years
+#: (common practice; the range is from memory)
+YEAR_RANGE = (1800, 2100)
 _COUNT_NAME = re.compile(r"(count|number|^num_|^n_|_n$|qty|quantity|caught|visits|defects|"
                          r"events|calls|arrivals|per_)", re.I)
 
@@ -127,6 +149,7 @@ class ColumnProfile:
     mean: float | None = None
     top: list[str] = field(default_factory=list)
     target_candidate: bool = False
+    not_suggested: str = ""
 
     def to_dict(self) -> dict:
         return to_jsonable(asdict(self))
@@ -140,6 +163,7 @@ class TableProfile:
     columns: list[ColumnProfile]
     suggested_target: str | None
     target: str | None = None
+    suggestion_reason: str = ""
 
     def column(self, name: str) -> ColumnProfile:
         for c in self.columns:
@@ -216,11 +240,36 @@ class TableProfile:
             elif role == "ignore" and c.role != "ignore":
                 c.role, c.reason = "ignore", "ignored by the user"
         return TableProfile(rows=self.rows, columns=cols, suggested_target=self.suggested_target,
-                            target=self.target)
+                            target=self.target, suggestion_reason=self.suggestion_reason)
+
+    def require_features(self, target: str | None = None) -> list[ColumnProfile]:
+        """:meth:`feature_columns`, refusing a table that has none.
+
+        Raises
+        ------
+        InputError
+            (``setting="roles"``) naming the ignored columns and why, so that no sweep
+            starts whose every trial would fail.
+        """
+        feats = self.feature_columns(target)
+        if feats:
+            return feats
+        target = target if target is not None else (self.target or self.suggested_target)
+        others = [c for c in self.columns if c.name != target]
+        if not others:
+            raise InputError(f"the table has no column besides the target {target!r}, so there "
+                             "is nothing to predict it from; add feature columns",
+                             setting="roles")
+        why = "; ".join(f"{c.name!r}: {c.reason or c.type}" for c in others[:6])
+        more = f"; and {len(others) - 6} more" if len(others) > 6 else ""
+        raise InputError(f"no column can be used as a feature for target {target!r} (ignored: "
+                         f"{why}{more}); make a column a feature or add feature columns",
+                         setting="roles")
 
     def to_dict(self) -> dict:
         return {"rows": self.rows, "columns": [c.to_dict() for c in self.columns],
-                "suggested_target": self.suggested_target, "target": self.target}
+                "suggested_target": self.suggested_target,
+                "suggestion_reason": self.suggestion_reason, "target": self.target}
 
 
 _NEVER_FEATURE = ("id", "constant", "missing", "text")
@@ -324,22 +373,105 @@ def _looks_like_id(name: str, base: str, vals: pd.Series, n: int, missing: int,
     return True
 
 
-def _target_score(c: ColumnProfile, first: bool, last: bool) -> float:
-    """How much a candidate column looks like the target (common practice)."""
-    score = 0.0
-    if _TARGET_STRONG.match(c.name):
-        score += 4
-    elif _TARGET_WORDS.search(c.name):
-        score += 2
+def never_a_target(c: ColumnProfile, s: pd.Series) -> str:
+    """Why column ``c`` (values ``s``) is never *suggested* as the target, or ``""``.
+
+    A year, a date, an identifier or a row index is rarely what a table is about
+    (common practice): a date-time column, an ``id`` column, a name like
+    ``year`` / ``order_date`` / ``birth_year`` / ``month``, whole numbers forming a
+    run of consecutive years (inside :data:`YEAR_RANGE`), a name like an identifier
+    or an index (``subject_id``, ``index``, ``Unnamed: 0``), or whole numbers that
+    are unique, strictly increase down the rows and fill at least half of their
+    range (row numbers with gaps). The user may still choose such a column.
+    """
+    if c.base_type == "datetime":
+        return "a date"
+    if _TIME_NAME.search(c.name):
+        return "named like a date or a year"
+    if c.base_type == "integer" and c.min is not None and c.distinct >= 2:
+        lo, hi = float(c.min), float(c.max)
+        if YEAR_RANGE[0] <= lo and hi <= YEAR_RANGE[1] and hi - lo + 1 == c.distinct:
+            return (f"whole numbers {lo:g} to {hi:g} with no gap, like years (inside "
+                    f"{YEAR_RANGE[0]}..{YEAR_RANGE[1]}, common practice)")
+    if _UNNAMED.match(c.name):
+        return "an unnamed column, like a saved row index"
+    if c.type == "id":
+        return "an identifier (unique per row)"
+    if _ID_NAME.search(c.name):
+        return "named like an identifier or an index"
+    if (c.base_type == "integer" and c.min is not None and c.missing == 0
+            and c.distinct == len(s) >= 3 and float(c.max) - float(c.min) + 1 <= 2 * len(s)
+            and s.is_monotonic_increasing):
+        return ("whole numbers unique per row that increase down the rows with few gaps, "
+                "like a row index")
+    return ""
+
+
+def _target_score(c: ColumnProfile, first: bool, last: bool) -> tuple[float, list[str], bool]:
+    """How much a column looks like the target, the reasons, and whether it is sure.
+
+    Common practice: a usual target name (``target``, ``label``, ``y``, ``class``,
+    ``outcome``, ``response``) scores 5, a name containing a word targets are often
+    called by (``price``, ``yield``, ``count``, ...) 2, being the table's last column
+    2.5 and its first 0.25. Only a usual target name or the last column make a
+    suggestion sure; the other points break ties.
+    """
+    score, why = 0.0, []
+    strong = bool(_TARGET_STRONG.match(c.name))
+    if strong:
+        score += 5
+        why.append(f"it is named {c.name!r}, a usual name for a target")
+    else:
+        m = _TARGET_WORDS.search(c.name)
+        if m:
+            score += 2
+            why.append(f"its name contains {m.group(0).lower()!r}, a word targets are often "
+                       "named with")
     if last:
-        score += 2.5  # the target is usually the last column (after any ignored ones)
+        score += 2.5
+        why.insert(0, "it is the table's last column, where tables usually keep the target")
     if first:
         score += 0.25
-    return score
+    return score, why, strong or last
+
+
+def _suggest(cols: list[ColumnProfile], df: pd.DataFrame) -> tuple[str | None, str]:
+    """The suggested target and the sentence saying why (or why there is none)."""
+    for c in cols:
+        c.not_suggested = never_a_target(c, df[c.name])
+    scored = []
+    for i, c in enumerate(cols):
+        if c.target_candidate and not c.not_suggested:
+            sc, why, sure = _target_score(c, first=i == 0, last=i == len(cols) - 1)
+            scored.append((sc, c.name, why, sure))
+    scored.sort(key=lambda t: -t[0])
+    if scored and scored[0][3] and (len(scored) == 1 or scored[1][0] < scored[0][0]):
+        _, name, why, _ = scored[0]
+        return name, "suggested because " + " and ".join(why) + " (common practice)"
+    last = cols[-1] if cols else None
+    if last is None:
+        return None, "the table has no columns"
+    if scored and scored[0][3]:
+        tied = [t[1] for t in scored if t[0] == scored[0][0]]
+        return None, (f"no target suggested: {', '.join(repr(t) for t in tied)} are equally "
+                      "likely targets; choose one")
+    if last.not_suggested:
+        about = f"the last column, {last.name!r}, is {last.not_suggested}"
+    elif not last.target_candidate:
+        about = f"the last column, {last.name!r}, cannot be a target ({last.reason or last.type})"
+    else:
+        about = f"the last column is {last.name!r}"
+    return None, ("no target suggested: no column has a usual target name (target, label, y, "
+                  f"class, outcome, response) and {about}; choose the target")
 
 
 def profile_table(df: pd.DataFrame, target: str | None = None) -> TableProfile:
     """Profile every column and name the most likely target.
+
+    The suggestion (``suggested_target``, with ``suggestion_reason``) is a column
+    with a usual target name or the table's last column, never a column that
+    :func:`never_a_target` rules out; when no column qualifies, or two are equally
+    likely, there is no suggestion and the reason says why (the window then asks).
 
     Parameters
     ----------
@@ -351,22 +483,23 @@ def profile_table(df: pd.DataFrame, target: str | None = None) -> TableProfile:
     -------
     TableProfile
     """
-    if target is not None and target not in df.columns:
-        raise InputError(_no_column_message(target, df), setting="target")
+    if target is not None:
+        check_column(df, target)
     cols = [profile_column(df[c]) for c in df.columns]
-    best, best_score = None, 0.0
-    candidates = [c for c in cols if c.target_candidate]
-    for i, c in enumerate(candidates):
-        sc = _target_score(c, first=i == 0, last=i == len(candidates) - 1)
-        if sc > best_score:
-            best, best_score = c.name, sc
+    best, why = _suggest(cols, df)
     chosen = target if target is not None else best
     for c in cols:
         if c.name == chosen:
             c.role, c.reason = "target", ("chosen as target" if target is not None
                                           else "most likely target")
     return TableProfile(rows=int(df.shape[0]), columns=cols, suggested_target=best,
-                        target=target)
+                        target=target, suggestion_reason=why)
+
+
+def check_column(df: pd.DataFrame, name: str) -> None:
+    """Refuse a target name that is not a column of ``df`` (``setting="target"``)."""
+    if name not in df.columns:
+        raise InputError(_no_column_message(name, df), setting="target")
 
 
 def _no_column_message(name: str, df: pd.DataFrame) -> str:
@@ -390,6 +523,11 @@ class TargetInfo:
     interval: tuple[float, float] | None = None
     rows_dropped: int = 0
     rows: int = 0
+    detected_kind: str = ""
+    kind_set_by_user: bool = False
+    ambiguous: bool = False
+    alternatives: list[str] = field(default_factory=list)
+    ambiguity: str = ""
 
     def to_dict(self) -> dict:
         d = asdict(self)
@@ -407,22 +545,26 @@ def analyse_target(df: pd.DataFrame, name: str, kind: str | None = None,
     name : str
         The target column.
     kind : str, optional
-        Force a kind (one of :data:`KINDS`) instead of detecting it; it must fit the values.
+        The kind set by the user (one of :data:`KINDS`) instead of the detected one;
+        it must fit the values (:func:`check_kind`).
     interval : (float, float), optional
         The known interval of a bounded target (implies ``kind="bounded"``).
 
     Returns
     -------
     TargetInfo
+        ``detected_kind`` is what the values say, ``kind`` what is used;
+        ``ambiguous``, ``alternatives`` and ``ambiguity`` flag small integer codes
+        that could be classes or a count (see :func:`_detect_kind`).
 
     Raises
     ------
     InputError
         When the column is missing, entirely empty, has one value only, cannot be a
-        target (dates, free text, too many classes) or does not fit a forced kind.
+        target (dates, free text, too many classes) or does not fit the kind set
+        (``setting="kind"``, naming the evidence).
     """
-    if name not in df.columns:
-        raise InputError(_no_column_message(name, df), setting="target")
+    check_column(df, name)
     s = df[name]
     n = len(s)
     miss = s.isna().to_numpy()
@@ -434,6 +576,7 @@ def analyse_target(df: pd.DataFrame, name: str, kind: str | None = None,
     if kind is not None and kind not in KINDS:
         raise InputError(f"unknown target kind {kind!r}; choose one of: {', '.join(KINDS)}",
                          setting="kind")
+    user_kind = kind is not None or interval is not None
     if interval is not None:
         kind = "bounded"
     distinct = int(vals.nunique())
@@ -457,12 +600,12 @@ def analyse_target(df: pd.DataFrame, name: str, kind: str | None = None,
         ev.update(min=float(v.min()), max=float(v.max()), mean=float(v.mean()),
                   std=float(v.std()), zero_share=float(np.mean(v == 0)),
                   negative_share=float(np.mean(v < 0)), integer_valued=_integer_valued(v))
-    detected, rule, iv = _detect_kind(name, vals, ev, numeric)
+    detected, rule, iv, amb = _detect_kind(name, vals, ev, numeric, forced=user_kind)
     if kind is None:
         kind = detected
     else:
-        rule = _check_forced_kind(name, kind, ev, numeric, distinct, interval) + \
-            f" (kind set by the user; detected: {detected})"
+        check_kind(name, kind, ev, numeric, interval, vals)
+        rule = f"{kind} as set by the user (detected: {detected}, because {rule})"
         if kind == "bounded":
             iv = interval if interval is not None else (iv or (ev["min"], ev["max"]))
     ev["rule"] = rule
@@ -478,10 +621,18 @@ def analyse_target(df: pd.DataFrame, name: str, kind: str | None = None,
         ev["class_counts"] = {str(k): int(counts[k]) for k in classes}
         if int(counts.min()) < 2:
             ev["rule"] += "; some class has a single row, so stratified CV will struggle"
+    alternatives, ambiguity = [], ""
+    if amb is not None:
+        ev["codes"] = amb["codes"]
+        alternatives = [k for k in amb["kinds"] if k != kind]
+        ambiguity = amb["sentence"]
     return TargetInfo(name=name, kind=kind, task=task, evidence=to_jsonable(ev),
                       classes=[_py(c) for c in classes] if classes is not None else None,
                       interval=(float(iv[0]), float(iv[1])) if kind == "bounded" else None,
-                      rows_dropped=dropped, rows=int(len(vals)))
+                      rows_dropped=dropped, rows=int(len(vals)), detected_kind=detected,
+                      kind_set_by_user=user_kind,
+                      ambiguous=amb is not None, alternatives=alternatives,
+                      ambiguity=ambiguity)
 
 
 def _sort_key(v):
@@ -493,57 +644,107 @@ def _py(v):
     return v.item() if isinstance(v, np.generic) else v
 
 
-def _detect_kind(name: str, vals: pd.Series, ev: dict, numeric: bool):
+def _detect_kind(name: str, vals: pd.Series, ev: dict, numeric: bool, forced: bool = False):
+    """The kind the values suggest: ``(kind, rule, interval, ambiguity)``.
+
+    ``ambiguity`` is None, or a dict (``kinds``: the kinds the values fit equally,
+    ``codes``: the evidence, ``sentence``: what was found and the rule that picked
+    the default) for small integer codes that could be classes or a count: at most
+    :data:`MAX_CODE_CLASSES` consecutive whole numbers starting at 0 or 1 are read as
+    class labels when every code holds at least :data:`MIN_CODE_SHARE` of the rows,
+    and as a count (flagged ambiguous) when some code is rarer or the name says it
+    counts. ``forced`` (a kind set by the user) turns a text target that looks like an
+    identifier into a ``multiclass`` detection, so the user's kind decides.
+    """
     distinct = ev["distinct"]
     if distinct == 2 and (not numeric or ev["integer_valued"]):
         shown = ", ".join(str(x) for x in sorted(vals.unique().tolist(), key=_sort_key))
-        return "binary", f"exactly two distinct values ({shown})", None
+        return "binary", f"exactly two distinct values ({shown})", None, None
     if not numeric:
         if _is_bool_series(vals):
-            return "binary", "boolean values", None
-        if distinct > MAX_CLASSES or distinct > 0.5 * len(vals):
+            return "binary", "boolean values", None, None
+        if (distinct > MAX_CLASSES or distinct > 0.5 * len(vals)) and not forced:
             raise InputError(
                 f"target {name!r} is text with {distinct} distinct values, which looks like an "
                 "identifier or free text, not classes; choose another target column",
                 setting="target")
-        return "multiclass", f"text labels with {distinct} distinct classes", None
+        return "multiclass", f"text labels with {distinct} distinct classes", None, None
     lo, hi, integer = ev["min"], ev["max"], ev["integer_valued"]
+    amb = None
     if integer and distinct <= MAX_CODE_CLASSES and lo in (0.0, 1.0) and hi - lo + 1 == distinct:
-        smallest = float(vals.value_counts(normalize=True).min())
-        if _COUNT_NAME.search(name):
-            pass  # the name says it counts something
-        elif smallest >= MIN_CODE_SHARE:
+        shares = vals.value_counts(normalize=True)
+        rare, smallest = shares.idxmin(), float(shares.min())
+        codes = {"distinct": distinct, "low": lo, "high": hi, "rare_code": _py(rare),
+                 "rare_share": smallest, "rare_rows": int(round(smallest * len(vals)))}
+        rule_words = (f"rule: at most {MAX_CODE_CLASSES} consecutive whole-number codes from 0 "
+                      f"or 1, each holding at least {MIN_CODE_SHARE:.0%} of the rows, are read "
+                      "as classes, otherwise as a count (common practice; thresholds from "
+                      "memory)")
+        count_name = _COUNT_NAME.search(name)
+        if not count_name and smallest >= MIN_CODE_SHARE:
             return "multiclass", (
                 f"integer codes {lo:g}..{hi:g} ({distinct} values, at most {MAX_CODE_CLASSES}, "
                 f"each at least {MIN_CODE_SHARE:.0%} of rows) read as class labels "
-                "(common practice)"), None
+                "(common practice)"), None, None
+        why = (f"code {rare!s} holds only {smallest:.1%} of the rows (under "
+               f"{MIN_CODE_SHARE:.0%})" if smallest < MIN_CODE_SHARE
+               else f"the name {name!r} says it counts something")
+        amb = {"kinds": ["count", "multiclass"], "codes": codes, "sentence": (
+            f"ambiguous: {distinct} consecutive integer codes {lo:g}..{hi:g} could be class "
+            f"labels or a count; {why}, so they were read as a count. If the codes name "
+            f"categories, set the kind to multiclass ({rule_words})")}
     if lo < 0:
-        return "signed", f"takes negative values (min {lo:g}, max {hi:g})", None
+        return "signed", f"takes negative values (min {lo:g}, max {hi:g})", None, amb
     if integer and lo <= 1:
         return "count", (f"non-negative whole numbers from {lo:g} to {hi:g} "
-                         f"({ev['zero_share']:.0%} zeros)"), None
+                         f"({ev['zero_share']:.0%} zeros)"), None, amb
     if hi <= 1:
         return "bounded", f"all values inside [0, 1] (min {lo:g}, max {hi:g}): a proportion", \
-            (0.0, 1.0)
+            (0.0, 1.0), amb
     if hi <= 100 and _PERCENT_NAME.search(name):
-        return "bounded", f"a percentage inside [0, 100] (min {lo:g}, max {hi:g})", (0.0, 100.0)
+        return "bounded", f"a percentage inside [0, 100] (min {lo:g}, max {hi:g})", \
+            (0.0, 100.0), amb
     return "non_negative", (f"never below zero (min {lo:g}, max {hi:g}, "
-                            f"{ev['zero_share']:.0%} zeros)"), None
+                            f"{ev['zero_share']:.0%} zeros)"), None, amb
 
 
-def _check_forced_kind(name, kind, ev, numeric, distinct, interval) -> str:
+def check_kind(name: str, kind: str, ev: dict, numeric: bool, interval=None,
+               vals: pd.Series | None = None) -> None:
+    """Refuse a kind set by the user that the target's values cannot have.
+
+    Each refusal is one line naming the evidence (``setting="kind"``): binary needs
+    exactly two distinct values; multiclass at least two and at most
+    :data:`MAX_CLASSES`, whole numbers or text; the regression kinds numbers;
+    non_negative and count no negative value; count whole numbers; bounded values
+    inside the interval given.
+    """
+    distinct = ev["distinct"]
     if kind == "binary" and distinct != 2:
         raise InputError(f"target {name!r} has {distinct} distinct values, not 2, so it cannot "
                          "be binary; choose multiclass or a regression kind", setting="kind")
+    if kind == "multiclass":
+        if distinct > MAX_CLASSES:
+            raise InputError(f"target {name!r} has {distinct} distinct values, more than "
+                             f"{MAX_CLASSES} classes, so it cannot be multiclass; choose a "
+                             "regression kind", setting="kind")
+        if numeric and not ev["integer_valued"]:
+            frac = next((float(v) for v in vals if float(v) != round(float(v))), None) \
+                if vals is not None else None
+            eg = f" (e.g. {frac:g})" if frac is not None else ""
+            raise InputError(f"target {name!r} has values that are not whole numbers{eg}, so "
+                             "they cannot be class labels; choose a regression kind",
+                             setting="kind")
     if TASK_OF_KIND[kind] == "regression" and not numeric:
-        raise InputError(f"target {name!r} is not numeric, so it cannot be a {kind} regression "
-                         "target; choose binary or multiclass", setting="kind")
+        raise InputError(f"target {name!r} is not numeric (dtype {ev['dtype']}), so it cannot "
+                         f"be a {kind} regression target; choose binary or multiclass",
+                         setting="kind")
     if kind in ("non_negative", "count") and ev["min"] < 0:
-        raise InputError(f"target {name!r} has negative values (min {ev['min']:g}), so it "
-                         f"cannot be {kind}; choose signed", setting="kind")
+        raise InputError(f"target {name!r} has negative values (min {ev['min']:g}, "
+                         f"{ev['negative_share']:.1%} of rows), so it cannot be {kind}; choose "
+                         "signed", setting="kind")
     if kind == "count" and not ev["integer_valued"]:
-        raise InputError(f"target {name!r} has non-integer values, so it cannot be a count; "
-                         "choose non_negative", setting="kind")
+        raise InputError(f"target {name!r} has values that are not whole numbers, so it cannot "
+                         "be a count; choose non_negative", setting="kind")
     if kind == "bounded" and interval is not None:
         lo, hi = float(interval[0]), float(interval[1])
         if not lo < hi:
@@ -553,7 +754,6 @@ def _check_forced_kind(name, kind, ev, numeric, distinct, interval) -> str:
             raise InputError(f"target {name!r} has values outside [{lo:g}, {hi:g}] (min "
                              f"{ev['min']:g}, max {ev['max']:g}); widen the interval",
                              setting="kind")
-    return f"{kind} as requested"
 
 
 def split_xy(df: pd.DataFrame, target: TargetInfo) -> tuple[pd.DataFrame, np.ndarray]:
