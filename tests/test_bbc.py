@@ -9,6 +9,7 @@ configuration the estimate is the plain cross-validated score, which itself
 equals scikit-learn's ``cross_val_score`` on the same folds.
 """
 
+import functools
 import math
 import warnings
 import zlib
@@ -166,6 +167,14 @@ def test_equals_the_papers_algorithm_with_scikit_learn_metrics(metric, spec):
     assert (ours.low, ours.high) == pytest.approx(tuple(np.percentile(oob[ok], [2.5, 97.5])))
 
 
+@functools.cache
+def _auc_case(ties):
+    """One ROC AUC data set and its reference answer, shared by the path variants."""
+    rng = np.random.default_rng(17)
+    y, preds, folds = _classification_data(rng, 45, 5, 2, 1, 3, ties=ties)
+    return y, preds, folds, _reference(y, preds, folds, "roc_auc", 10, seed=1)
+
+
 @pytest.mark.parametrize("ties", [False, True])
 @pytest.mark.parametrize("path", ["running_sum_loop", "cumsum", "float64"])
 def test_auc_computation_paths_agree_with_scikit_learn(monkeypatch, path, ties):
@@ -178,10 +187,8 @@ def test_auc_computation_paths_agree_with_scikit_learn(monkeypatch, path, ties):
     else:
         monkeypatch.setattr(bbc_module, "_EXACT32_LIMIT", 0.0)
     monkeypatch.setattr(bbc_module, "_CHUNK_ELEMENTS", 2 * 16 * 20)  # chunks of 2 columns
-    rng = np.random.default_rng(17)
-    y, preds, folds = _classification_data(rng, 45, 5, 2, 1, 3, ties=ties)
+    y, preds, folds, (oob, picked, full) = _auc_case(ties)
     ours = bbc_cv(y, preds, folds, "roc_auc", n_boot=10, seed=1)
-    oob, picked, full = _reference(y, preds, folds, "roc_auc", 10, seed=1)
     np.testing.assert_array_equal(ours.selected, picked)
     np.testing.assert_allclose(ours.oob_scores, oob, rtol=1e-9)
     np.testing.assert_allclose(ours.cv_means, full, rtol=1e-9)
@@ -229,8 +236,8 @@ def _noise_grid():
     X = rng.normal(size=(n, 8))
     y = rng.integers(0, 2, n)  # independent of X
     models = [LogisticRegression(C=c) for c in (1e-4, 1e-3, 1e-2, 0.1, 1.0, 100.0)]
-    models += [MLPClassifier((h,), activation=a, max_iter=15, batch_size=400,
-                             learning_rate_init=0.01, random_state=0)
+    models += [MLPClassifier((h,), activation=a, max_iter=15, batch_size=1600,
+                             learning_rate_init=0.03, random_state=0)
                for h in (4, 16, 32) for a in ("relu", "tanh")]
     preds, folds, fold_scores = [], [], []
     for repeat in range(2):
