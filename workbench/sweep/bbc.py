@@ -383,8 +383,6 @@ def _as_repeats(y, predictions, folds, metric):
             raise ValueError(f"predictions and folds must have one row per target row ({n})")
         if p.ndim < 2 or p.shape[1] != n_cols or p.shape[1:] != preds[0].shape[1:]:
             raise ValueError("every repeat needs the same configurations and shape")
-        if not np.all(np.isfinite(p)):
-            raise ValueError("out-of-fold predictions must be finite")
     if metric in _CLASSIFICATION:
         if not np.issubdtype(y.dtype, np.integer) or y.min() < 0:
             raise ValueError("for a classifier, y must hold class codes 0..k-1 (the "
@@ -437,7 +435,7 @@ def bbc_cv(y, predictions, folds, metric: str, *, columns=None, n_boot: int = 10
         One of :data:`SUPPORTED` (scikit-learn scorer names, greater is better).
     columns : sequence of int, optional
         The configurations (columns) taking part -- e.g. one candidate's
-        settings; default all.
+        settings; default all. Only these need finite predictions.
     n_boot : int
         Bootstrap samples B.
     level : float
@@ -458,14 +456,20 @@ def bbc_cv(y, predictions, folds, metric: str, *, columns=None, n_boot: int = 10
     cols = np.arange(n_cols) if columns is None else np.asarray(columns, dtype=np.intp)
     if cols.size == 0 or cols.min() < 0 or cols.max() >= n_cols:
         raise ValueError(f"columns must name configurations 0..{n_cols - 1}")
+    if columns is not None:
+        preds = [p[:, cols] for p in preds]  # only these take part (others may be NaN)
+    for p in preds:
+        if not np.all(np.isfinite(p)):
+            raise ValueError("out-of-fold predictions must be finite")
+    local = np.arange(cols.size)
     folds_ = [_Fold(metric, np.flatnonzero(f == k), y, p)
               for p, f in zip(preds, fold_ids) for k in np.unique(f)]
     n = y.shape[0]
     ones = np.ones((n, 1), dtype=np.float32)
-    cv_means = _cv_scores(folds_, ones, cols)[0]
+    cv_means = _cv_scores(folds_, ones, local)[0]
 
     w_in = bootstrap_counts(n, int(n_boot), seed)  # (N, B)
-    in_bag = _cv_scores(folds_, w_in, cols)  # (B, c)
+    in_bag = _cv_scores(folds_, w_in, local)  # (B, c)
     defined = np.isfinite(in_bag).all(axis=1)
     pick = np.where(defined, np.argmax(np.where(np.isfinite(in_bag), in_bag, -np.inf), axis=1),
                     -1)
@@ -474,7 +478,7 @@ def bbc_cv(y, predictions, folds, metric: str, *, columns=None, n_boot: int = 10
     oob = np.full(int(n_boot), np.nan)
     for j in np.unique(pick[pick >= 0]):
         bs = np.flatnonzero(pick == j)
-        oob[bs] = _cv_scores(folds_, np.ascontiguousarray(w_out[:, bs]), cols[j:j + 1])[:, 0]
+        oob[bs] = _cv_scores(folds_, np.ascontiguousarray(w_out[:, bs]), local[j:j + 1])[:, 0]
     selected = np.where(pick >= 0, cols[np.maximum(pick, 0)], -1)
     ok = np.isfinite(oob)
     if ok.any():
