@@ -29,7 +29,8 @@ def add_arguments(parser):
                         help="which configuration: its rank in the results (1 = best) or 'best' "
                              "(default best)")
     parser.add_argument("--to", metavar="FOLDER", required=True, dest="folder",
-                        help="the export folder (an earlier export there is replaced whole)")
+                        help="the export folder: new, empty or an earlier export (replaced "
+                             "whole; files it did not write are kept and reported)")
     parser.add_argument("--formats", metavar="LIST", default=None,
                         help=f"comma-separated subset of: {','.join(FORMATS)} (default: all)")
     parser.add_argument("--store", metavar="PATH", default=None,
@@ -45,11 +46,14 @@ def run(args) -> int:
         if not args.quiet:
             print(f"[{100 * fraction:3.0f}%] {message}", file=sys.stderr)
 
+    def note(message):  # printed even with --quiet: files of the user's were involved
+        print(f"workbench: {message}", file=sys.stderr)
+
     with Store(existing_store_path(args.store)) as store:
         try:
             folder = export_configuration(store, args.sweep_id, args.config, args.folder,
                                           formats=args.formats, on_progress=progress,
-                                          table=args.table)
+                                          table=args.table, on_note=note)
         except InputError as exc:
             if exc.setting == "table":  # here the table is set with --table, not an argument
                 raise InputError(f"{exc} (set with --table)") from None

@@ -25,8 +25,8 @@ from workbench.errors import InputError
 from workbench.export.atomic import prepare_folder, written_atomically
 from workbench.export.configuration import build_configuration, jsonable
 from workbench.export.context import ExportContext
-from workbench.export.formats import FORMATS, parse_formats
-from workbench.export.model_files import write_manifest
+from workbench.export.formats import FORMATS, export_names, files_of, parse_formats
+from workbench.export.model_files import MANIFEST_NAME, write_manifest
 from workbench.export.refit import fit_final_pipeline
 
 
@@ -62,7 +62,7 @@ def choose_configuration(results: dict, rank_or_best="best") -> dict:
 
 
 def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
-                         formats=None, on_progress=None, table=None) -> Path:
+                         formats=None, on_progress=None, table=None, on_note=None) -> Path:
     """Export one configuration of a stored sweep into ``folder``.
 
     Parameters
@@ -72,7 +72,9 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
     rank_or_best : int or "best"
         Rank in the sweep's results (1 is the best).
     folder : path
-        The export folder (created; an earlier export there is replaced whole).
+        The export folder: new, empty, or an earlier export (replaced whole;
+        entries it did not write are kept and reported through ``on_note``;
+        anything else is refused, see :mod:`workbench.export.atomic`).
     formats : str or list of str, optional
         Keys of :data:`~workbench.export.formats.FORMATS` (default: all).
     on_progress : callable, optional
@@ -81,6 +83,10 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
         Where the sweep's table is now, when the path stored with the sweep does
         not reach it (e.g. a relative path and another working folder); its
         SHA-256 must match the sweep's.
+    on_note : callable, optional
+        ``on_note(message)`` receives one line for things the user should know
+        that are not errors: entries of the user's kept in the folder, abandoned
+        temporaries that could not be removed (default: ``on_progress``).
 
     Returns
     -------
@@ -101,13 +107,14 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
     if folder is None:
         raise InputError("give the folder to export to", setting="folder")
     progress = on_progress or (lambda message, fraction: None)
+    note = on_note or (lambda message: progress(message, 1.0))
     keys = parse_formats(formats)
     folder = Path(folder).expanduser().absolute()
 
     progress("reading the sweep", 0.0)
     results = sweep_results(store, sweep_id)
     chosen = choose_configuration(results, rank_or_best)
-    prepare_folder(folder)
+    prepare_folder(folder, writes=files_of(keys) | {MANIFEST_NAME})
     plan = SweepPlan.from_dict(results["plan"])
     if table is not None:
         plan.table = str(table)
@@ -131,11 +138,11 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
         progress("refitting the pipeline on every row", 0.15)
         ctx.pipeline = fit_final_pipeline(plan, chosen, data)
 
-    with written_atomically(folder) as tmp:
+    with written_atomically(folder, export_names(), note=note) as tmp:
         for i, key in enumerate(keys):
             progress(f"writing {FORMATS[key].label}", 0.3 + 0.6 * i / len(keys))
             FORMATS[key].write(ctx, tmp)
-        write_manifest(tmp, extra={"sweep_id": sweep_id, "configuration_rank": chosen["rank"],
+        write_manifest(tmp, files=sorted(files_of(keys)), extra={"sweep_id": sweep_id, "configuration_rank": chosen["rank"],
                                    "configuration_index": chosen["index"], "formats": keys,
                                    "task": plan.task,
                                    "classes": jsonable(data.target.classes)})

@@ -120,6 +120,16 @@ def parse_formats(value) -> list[str]:
     return [k for k in FORMATS if k in keys]  # registry order, no repeats
 
 
+def files_of(keys) -> set[str]:
+    """The names the formats ``keys`` write."""
+    return {name for k in keys for name in FORMATS[k].files}
+
+
+def export_names() -> set[str]:
+    """Every name any format writes (what an export folder may hold besides its manifest)."""
+    return files_of(FORMATS)
+
+
 # --------------------------------------------------------------------------- the writers
 
 

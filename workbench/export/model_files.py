@@ -96,13 +96,72 @@ def write_manifest(folder: str | Path, files: list[str] | None = None,
     return path
 
 
+def manifest_problem(manifest) -> str | None:
+    """Why ``manifest`` (parsed JSON) does not prove a folder is an export, or None.
+
+    A workbench manifest is an object with ``"format"`` equal to
+    :data:`MANIFEST_FORMAT`, an integer ``"version"`` from 1 to
+    :data:`MANIFEST_VERSION` and ``"files"``: the plain names (no folder part)
+    of the files the export wrote, each with its 64-digit SHA-256 and its size.
+    Export (what it may replace) and predict (what it may load) both ask this.
+    """
+    if not isinstance(manifest, dict) or manifest.get("format") != MANIFEST_FORMAT:
+        return f"its format is not {MANIFEST_FORMAT!r}"
+    version = manifest.get("version")
+    if type(version) is not int or not 1 <= version <= MANIFEST_VERSION:
+        return f"its version {version!r} is not one this program knows (1 to {MANIFEST_VERSION})"
+    files = manifest.get("files")
+    if not isinstance(files, dict):
+        return "it has no list of the files the export wrote"
+    for name, entry in files.items():
+        if not is_plain_name(name) or name == MANIFEST_NAME:
+            return f"it lists {name!r}, which is not a file name inside the folder"
+        if not isinstance(entry, dict) or not _is_sha256(entry.get("sha256")) \
+                or type(entry.get("bytes")) is not int or entry["bytes"] < 0:
+            return f"its entry for {name!r} has no valid SHA-256 and size"
+    return None
+
+
+def is_plain_name(name) -> bool:
+    """Whether ``name`` is one entry of a folder (no separator, not ``.`` or ``..``)."""
+    return isinstance(name, str) and name not in ("", ".", "..") \
+        and not any(sep in name for sep in ("/", "\\", "\0"))
+
+
+def _is_sha256(value) -> bool:
+    return isinstance(value, str) and len(value) == 64 \
+        and all(ch in "0123456789abcdef" for ch in value)
+
+
+def load_manifest(path: str | Path) -> dict:
+    """Parse and check one ``manifest.json`` (:func:`manifest_problem`).
+
+    Raises
+    ------
+    ValueError
+        with the reason, when the file cannot be read or is not a workbench manifest.
+    """
+    try:
+        data = Path(path).read_bytes()
+    except OSError as exc:
+        raise ValueError(exc.strerror or str(exc)) from None
+    try:
+        manifest = json.loads(data.decode("utf-8"))
+    except (ValueError, RecursionError):  # bad UTF-8, bad JSON, absurd nesting
+        raise ValueError("it is not valid JSON") from None
+    problem = manifest_problem(manifest)
+    if problem:
+        raise ValueError(problem)
+    return manifest
+
+
 def read_manifest(folder: str | Path) -> dict:
-    """Read and sanity-check ``manifest.json`` of an export folder.
+    """Read and check ``manifest.json`` of an export folder (:func:`manifest_problem`).
 
     Raises
     ------
     InputError
-        when the folder has no readable manifest.
+        when the folder has no manifest, or one that is damaged or not a workbench one.
     """
     path = Path(folder) / MANIFEST_NAME
     if not Path(folder).exists():
@@ -112,13 +171,10 @@ def read_manifest(folder: str | Path) -> dict:
         raise InputError(f"{path.parent} has no {MANIFEST_NAME}; "
                          "give a folder written by the workbench's export")
     try:
-        manifest = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(f"{path} cannot be read ({exc}); re-export the model") from None
-    if not isinstance(manifest, dict) or manifest.get("format") != MANIFEST_FORMAT \
-            or not isinstance(manifest.get("files"), dict):
-        raise InputError(f"{path} is not a workbench export manifest; re-export the model")
-    return manifest
+        return load_manifest(path)
+    except ValueError as exc:
+        raise InputError(f"{path} is damaged or not a workbench export manifest ({exc}); "
+                         "re-export the model") from None
 
 
 def verify_file(folder: str | Path, name: str, manifest: dict | None = None) -> Path:
