@@ -19,6 +19,7 @@ import json
 import sys
 import time
 
+from workbench.data.profiling import KINDS, parse_roles
 from workbench.errors import EXIT_CANCELLED, InputError
 
 NAME = "sweep"
@@ -32,6 +33,12 @@ def add_arguments(parser):
     parser.add_argument("--target", metavar="COL", default=None, help="the target column (required, except with --resume)")
     parser.add_argument("--sheet", metavar="NAME", default=None,
                         help="sheet of an .xlsx workbook (default: the first)")
+    parser.add_argument("--kind", choices=KINDS, default=None,
+                        help="the target's kind, instead of the detected one (refused when the "
+                             "values cannot have it); stored in the sweep")
+    parser.add_argument("--role", metavar="COLUMN=ROLE", action="append", default=None,
+                        help="make a column a feature or ignore it (ROLE feature or ignore); "
+                             "repeat for several columns")
     parser.add_argument("--hidden", metavar="LIST", default="default",
                         help="hidden activations, comma-separated, or 'all' (default: relu, tanh, "
                              "leaky_relu, gelu, silu)")
@@ -198,15 +205,16 @@ def run(args) -> int:
                           alphas=args.alpha, folds=args.folds, repeats=args.repeats,
                           epochs=args.epochs, early_stopping=args.early_stopping,
                           metric=args.metric, engine=args.engine, seed=args.seed,
-                          dtype=args.dtype, sheet=args.sheet)
+                          dtype=args.dtype, sheet=args.sheet, kind=args.kind,
+                          roles=parse_roles(args.role))
         for head, why in plan.refused_heads.items():
             print(f"workbench: head {head} left out: {why}", file=sys.stderr)
         for head, why in plan.head_warnings.items():
             print(f"workbench: note on head {head}: {why}", file=sys.stderr)
     else:
-        if args.file is not None or args.target is not None:
-            raise InputError("--resume takes the table and plan from the store; drop FILE and "
-                             "--target")
+        if args.file is not None or args.target is not None or args.kind or args.role:
+            raise InputError("--resume takes the table and plan from the store; drop FILE, "
+                             "--target, --kind and --role")
         plan = None
     progress = Progress(quiet=args.quiet)
     store = Store(args.store)

@@ -496,6 +496,32 @@ def profile_table(df: pd.DataFrame, target: str | None = None) -> TableProfile:
                         target=target, suggestion_reason=why)
 
 
+def parse_roles(items) -> dict[str, str]:
+    """Column roles written ``COLUMN=feature`` or ``COLUMN=ignore``, as ``{column: role}``.
+
+    The text after the last ``=`` is the role, so a column name may itself contain
+    ``=``. The roles are applied by :meth:`TableProfile.with_roles` (which also
+    refuses unknown columns); a later entry for the same column wins.
+
+    Raises
+    ------
+    InputError
+        (``setting="roles"``) for an entry without ``=`` or with another role.
+    """
+    out: dict[str, str] = {}
+    for item in items or []:
+        name, sep, role = str(item).rpartition("=")
+        role = role.strip().lower()
+        if not sep or not name:
+            raise InputError(f"column role {item!r} is not written COLUMN=feature or "
+                             "COLUMN=ignore", setting="roles")
+        if role not in ("feature", "ignore"):
+            raise InputError(f"role {role!r} for {name!r} is not valid; use feature or ignore",
+                             setting="roles")
+        out[name] = role
+    return out
+
+
 def check_column(df: pd.DataFrame, name: str) -> None:
     """Refuse a target name that is not a column of ``df`` (``setting="target"``)."""
     if name not in df.columns:

@@ -358,8 +358,12 @@ class SweepPlan:
         of the grid, and heads kept with a warning.
     roles : dict
         ``{column: "feature" | "ignore"}``: the user's changes to the profile's
-        column roles (the window's profile table); applied by
+        column roles (the window's profile table, ``--role``); applied by
         :func:`workbench.sweep.runner.load_data` before the preprocessing is built.
+    kind : str or None
+        The target kind set by the user (``--kind``, the window's kind box), or
+        None when the detected kind is used; :func:`workbench.sweep.runner.load_data`
+        analyses the target with it, so resume and export read the target alike.
     """
 
     table: str
@@ -385,6 +389,7 @@ class SweepPlan:
     refused_heads: dict = field(default_factory=dict)
     head_warnings: dict = field(default_factory=dict)
     roles: dict = field(default_factory=dict)
+    kind: str | None = None
     tune_learning_rate: bool = False
     baselines: list[str] = field(default_factory=lambda: list(BASELINES))
 
@@ -404,6 +409,9 @@ class SweepPlan:
             self.heads = list(dict.fromkeys(resolve_head(h, self.task).name for h in self.heads))
         except ValueError as exc:
             raise InputError(str(exc), setting="heads") from None
+        if self.kind is not None and self.kind != self.target_kind:
+            raise InputError(f"the target kind set by the user ({self.kind}) differs from the "
+                             f"plan's target kind ({self.target_kind})", setting="kind")
         bad_roles = {c: r for c, r in dict(self.roles).items() if r not in ("feature", "ignore")}
         if bad_roles or self.target in self.roles:
             raise InputError(f"column roles must be feature or ignore (and not for the target), "
@@ -665,7 +673,7 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
                learning_rates=None, alphas=None, folds=5, repeats=2, epochs=200,
                early_stopping=False, metric=None, engine="auto", seed=0, batch_size="auto",
                dtype="float32", sheet=None, df=None, target_info=None,
-               baselines=BASELINES) -> SweepPlan:
+               baselines=BASELINES, kind=None, roles=None, profile=None) -> SweepPlan:
     """A :class:`SweepPlan` from command-line style choices.
 
     Parameters
@@ -688,6 +696,16 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
         learning rates may be ``"tune"`` (:data:`LEARNING_RATE_GRID`).
     baselines : list of str, optional
         Reference configurations (default :data:`BASELINES`; ``[]`` for none).
+    kind : str, optional
+        The target kind set by the user (one of
+        :data:`workbench.data.profiling.KINDS`), checked against the values; kept in
+        the plan's ``kind`` (None: detected). With ``target_info``, its kind is used.
+    roles : dict, optional
+        ``{column: "feature" | "ignore"}``, applied with
+        :meth:`~workbench.data.profiling.TableProfile.with_roles`; a table left with
+        no feature column is refused here, before any trial.
+    profile : TableProfile, optional
+        The table's profile, when the caller has it (else it is computed).
     Other parameters are those of :class:`SweepPlan`.
 
     Raises
@@ -702,7 +720,8 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
         from workbench.data.intake import load_table
 
         df, _ = load_table(table, sheet=sheet)
-    info = target_info if target_info is not None else analyse_target(df, target)
+    info = target_info if target_info is not None else analyse_target(df, target, kind=kind)
+    _usable_profile(df, target, roles, profile)  # no sweep whose every trial would fail
     names = _split_list(hidden) or ["default"]
     hid = []
     for n in names:
@@ -732,4 +751,19 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
                      metric=metric, engine=engine, seed=seed, batch_size=batch_size, dtype=dtype,
                      sheet=sheet, requested_output=",".join(_split_list(output)) or "auto",
                      refused_heads=refused, head_warnings=warns, tune_learning_rate=tune,
-                     baselines=list(baselines))
+                     baselines=list(baselines), roles=dict(roles or {}),
+                     kind=info.kind if info.kind_set_by_user else None)
+
+
+def _usable_profile(df, target: str, roles=None, profile=None):
+    """The table's profile with the user's roles applied
+    (:meth:`~workbench.data.profiling.TableProfile.with_roles`), refused when no
+    column is left to use as a feature."""
+    from dataclasses import replace
+
+    from workbench.data.profiling import profile_table
+
+    prof = profile if profile is not None else profile_table(df, target=target)
+    prof = replace(prof, target=target).with_roles(dict(roles or {}))
+    prof.require_features(target)
+    return prof

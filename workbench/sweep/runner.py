@@ -134,7 +134,7 @@ def load_data(plan: SweepPlan):
     from workbench.data.profiling import analyse_target, profile_table, split_xy
 
     df, _ = load_table(plan.table, sheet=plan.sheet)
-    target = analyse_target(df, plan.target)
+    target = analyse_target(df, plan.target, kind=plan.kind)
     if target.task != plan.task:
         raise InputError(f"target {plan.target!r} is now a {target.task} target, but the plan "
                          f"was made for {plan.task}; start a new sweep", setting="target")
