@@ -91,6 +91,8 @@ def test_baseline_fold_scores_equal_cross_val_score(tmp_path, name, target, metr
     kinds = [e["type"] for e in events]
     assert kinds.count("trial_finished") == plan.n_trials
     assert kinds.count("baseline_finished") == len(BASELINES) * len(cv)
+    # "best so far" is a network, whatever the baselines score
+    assert {e["best_index"] for e in events if e["type"] == "trial_finished"} == {0}
 
 
 def test_the_constant_baseline_is_the_training_folds_mean(tmp_path):
@@ -119,3 +121,38 @@ def test_a_plan_without_baselines_runs_none(tmp_path):
         assert st.baselines(out.sweep_id) == [] and st.baseline_trials(out.sweep_id) == []
         assert sweep_results(st, out.sweep_id)["baselines"] == []
         assert len(st.finished_keys(out.sweep_id, baselines=True)) == plan.n_trials
+
+
+def test_results_read_epochs_and_baselines_from_the_store(tmp_path):
+    """A hand-made store: the document's mean_epochs is the mean of the trials' epochs and
+    a baseline's entry lists its done scores in (repeat, fold) order."""
+    plan = {"folds": 2, "repeats": 1, "metric": "r2", "table": "t.csv", "target": "y",
+            "task": "regression", "target_kind": "signed"}
+    config = {"index": 0, "hidden": "relu", "head": "identity", "layers": [4],
+              "learning_rate": 0.001, "alpha": 0.0001, "engine": "numpy"}
+    fp = {"sha256": "0" * 64, "rows": 4, "cols": 2, "columns": ["x", "y"], "file": "t.csv"}
+
+    def trial(index, fold, score, epochs, status="done"):
+        return {"config_index": index, "repeat": 0, "fold": fold, "status": status,
+                "test_score": score if status == "done" else None, "train_score": score,
+                "fit_seconds": 0.1, "epochs": epochs, "engine": "numpy", "n_train": 2,
+                "n_test": 2, "history": {}, "health": {}}
+
+    with Store(tmp_path / "s.sqlite") as st:
+        st.create_sweep("s", plan, fp, [config],
+                        baselines=[{"index": 1, "name": "constant", "estimator": "mean"},
+                                   {"index": 2, "name": "linear", "estimator": "ridge"}])
+        st.add_trial("s", trial(0, 1, 0.5, 10))
+        st.add_trial("s", trial(0, 0, 0.7, 4))
+        st.add_trial("s", trial(1, 1, -0.02, None))
+        st.add_trial("s", trial(1, 0, -0.01, None))
+        st.add_trial("s", trial(2, 0, 0.3, None, status="failed"))
+        st.set_state("s", "finished")
+        res = sweep_results(st, "s")
+    assert res["configurations"][0]["mean_epochs"] == 7.0
+    assert res["n_stored"] == 2
+    constant, linear = res["baselines"]
+    assert constant == {"name": "constant", "estimator": "mean", "status": "done",
+                        "mean": pytest.approx(-0.015), "sd": pytest.approx(0.01 / np.sqrt(2)),
+                        "scores": [-0.01, -0.02]}
+    assert linear["status"] == "failed" and linear["scores"] == [] and linear["mean"] is None

@@ -24,7 +24,13 @@ Measured, in this order, each in a fresh worker pool:
 
 Times are wall-clock, fastest of ``rounds`` consecutive runs (see :func:`run`). Whether
 GridSearchCV's best configuration is our best or tied with it (corrected
-t-test, alpha 0.05) is reported.
+t-test, alpha 0.05) is reported. The sweeps here run without baselines
+(``baselines=[]``), so that both sides fit the same models.
+
+:func:`store_size` measures the store's size per 1,000 trials (out-of-fold
+predictions, histories and the rest) on a 10,000-row table; it is not part of
+``workbench bench`` (it runs a real sweep of a few minutes):
+``python -c "from workbench.benchmarks.sweep import store_size; print(*store_size()['lines'], sep='\\n')"``.
 """
 
 from __future__ import annotations
@@ -57,7 +63,8 @@ def _plan(path, hidden, engine, quick):
 
     return build_plan(path, "outcome", hidden=hidden, output="logistic", layers=["32"],
                       learning_rates=["0.001", "0.01"], folds=2 if quick else 5, repeats=1,
-                      epochs=3 if quick else EPOCHS, metric="accuracy", engine=engine, seed=0)
+                      epochs=3 if quick else EPOCHS, metric="accuracy", engine=engine, seed=0,
+                      baselines=[])
 
 
 def _sweep(plan, store, jobs):
@@ -202,3 +209,77 @@ def run(quick: bool = False, rounds: int | None = None) -> dict:
         f"  GridSearchCV's best ({gs_key[0]}, lr={gs_key[1]:g}): {agree}",
     ]
     return {"title": "sweep", "lines": lines, "figures": figures}
+
+
+def _regression_table(path: Path, rows: int, seed: int = 0) -> None:
+    import pandas as pd
+    from sklearn.datasets import make_regression
+
+    X, y = make_regression(n_samples=rows, n_features=FEATURES, n_informative=6, noise=10.0,
+                           random_state=seed)
+    df = pd.DataFrame(X, columns=[f"x{i}" for i in range(FEATURES)])
+    df["site"] = np.random.default_rng(seed).choice(["north", "south", "east", "west"],
+                                                    size=rows)
+    df["amount"] = y
+    df.to_csv(path, index=False)
+
+
+def _file_bytes(store) -> int:
+    """The database file's size with every committed page in it (WAL checkpointed)."""
+    store._conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+    size, count = (store._conn.execute(f"PRAGMA {p}").fetchone()[0]
+                   for p in ("page_size", "page_count"))
+    return int(size) * int(count)
+
+
+def store_size(rows: int = 10_000, epochs: int = 200, folds: int = 5, repeats: int = 2,
+               hidden: str = "relu,gelu", jobs: int | None = None) -> dict:
+    """Bytes the store takes per 1,000 trials, on a regression and a binary table.
+
+    For each task a table of ``rows`` rows (``make_regression`` /
+    ``make_classification``, 10 numeric features and one categorical column) is
+    swept with the default plan's shape (one layer of 64, ``epochs`` epochs,
+    ``folds`` x ``repeats``, the advised head, ``hidden`` activations: relu on
+    scikit-learn's MLP, gelu on the NumPy engine, which also stores per-epoch
+    health) and the two baselines. The store's file size after the sweep minus
+    its size before the first trial, divided by the trials stored, is scaled to
+    1,000 trials; the share taken by the out-of-fold predictions (float32:
+    4 bytes x test rows x columns) and by the per-epoch histories is given too.
+    """
+    from workbench.sweep.plan import build_plan
+    from workbench.sweep.runner import run_sweep
+    from workbench.sweep.store import Store
+
+    out = {"rows": rows, "epochs": epochs, "folds": folds, "repeats": repeats}
+    lines = [f"store size per 1,000 trials, {rows:,}-row tables, {folds} folds x {repeats} "
+             f"repeats, {epochs} epochs, hidden {hidden}, one layer of 64:"]
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = Path(tmp)
+        for task, maker, target in (("regression", _regression_table, "amount"),
+                                    ("binary", _table, "outcome")):
+            table = tmp / f"{task}.csv"
+            maker(table, rows)
+            plan = build_plan(table, target, hidden=hidden, layers=["64"], folds=folds,
+                              repeats=repeats, epochs=epochs, seed=0)
+            with Store(tmp / f"{task}.sqlite") as st:
+                started = {}
+
+                def first(ev, st=st, started=started):
+                    if ev["type"] == "sweep_started":
+                        started["bytes"] = _file_bytes(st)
+
+                res = run_sweep(plan, store=st, jobs=jobs, on_event=first)
+                after = _file_bytes(st)
+                n, preds, hist = st._conn.execute(
+                    "SELECT COUNT(*), (SELECT SUM(length(vals)) FROM predictions WHERE "
+                    "sweep_id=?1), SUM(length(history)) FROM trials WHERE sweep_id=?1",
+                    (res.sweep_id,)).fetchone()
+            per_1000 = (after - started["bytes"]) / n * 1000
+            out[task] = {"trials": int(n), "bytes_per_1000_trials": per_1000,
+                         "predictions_bytes_per_1000_trials": preds / n * 1000,
+                         "history_bytes_per_1000_trials": hist / n * 1000}
+            lines.append(f"  {task:<10} {per_1000 / 1e6:7.1f} MB  (out-of-fold predictions "
+                         f"{preds / n * 1000 / 1e6:.1f} MB, histories {hist / n * 1000 / 1e6:.1f}"
+                         f" MB; {n} trials measured)")
+    out["lines"] = lines
+    return out
