@@ -88,6 +88,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 #: the scikit-learn scorer names BBC-CV can score from stored predictions
 SUPPORTED = ("accuracy", "balanced_accuracy", "roc_auc", "neg_log_loss", "r2",
@@ -267,12 +268,13 @@ class _Fold:
         with np.errstate(invalid="ignore", divide="ignore"):
             if m == "balanced_accuracy":
                 support = self.class_masks.T @ wf  # (k, B')
-                out = np.zeros((w.shape[1], cols.size))
-                for k in range(support.shape[0]):
-                    rows_k = self.class_of == k
-                    hit = wf[rows_k].T @ self.terms[rows_k][:, cols]  # (B', c)
-                    recall = hit / support[k][:, None]
-                    out += np.where(support[k][:, None] > 0, recall, 0.0)
+                n_k = support.shape[0]
+                # correct predictions per class, all classes in one product: (B', k * c)
+                per_class = (self.class_masks[:, :, None] * self.terms[:, None, cols])
+                hit = (wf.T @ per_class.reshape(len(self.class_of), -1)).reshape(
+                    w.shape[1], n_k, cols.size)
+                recall = hit / support.T[:, :, None]
+                out = np.where(support.T[:, :, None] > 0, recall, 0.0).sum(axis=1)
                 present = (support > 0).sum(axis=0).astype(float)
                 return out / present[:, None]
             total = wf.T @ self.terms[:, cols]  # (B', c)
@@ -447,6 +449,17 @@ def bbc_cv(y, predictions, folds, metric: str, *, columns=None, n_boot: int = 10
     -------
     BBCResult
     """
+    # The matrix products here are thin (samples x fold rows x configurations); a second
+    # BLAS thread gains little and, on a machine busy with a sweep, slowed the whole
+    # computation about fourfold (measured: balanced accuracy, 10,000 rows x 50 x 1,000).
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _bbc_cv(y, predictions, folds, metric, columns=columns, n_boot=n_boot,
+                       level=level, seed=seed)
+
+
+def _bbc_cv(y, predictions, folds, metric: str, *, columns=None, n_boot: int = 1000,
+            level: float = 0.95, seed: int = 0) -> BBCResult:
+    """The body of :func:`bbc_cv` (which limits the BLAS threads)."""
     if not supports(metric):
         raise ValueError(f"BBC-CV cannot score {metric!r}; supported: {', '.join(SUPPORTED)}")
     if int(n_boot) < 1 or not 0 < level < 1:
