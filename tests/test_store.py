@@ -168,3 +168,34 @@ def test_fingerprint_is_the_files_sha256_shape_and_columns(tmp_path):
     fp = table_fingerprint(p, df)
     assert fp["sha256"] == hashlib.sha256(p.read_bytes()).hexdigest()
     assert (fp["rows"], fp["cols"], fp["columns"]) == (2, 2, ["x", "y"])
+
+
+@pytest.mark.parametrize("labels", [["no", "yes"], [3, 7, 11], [False, True]])
+def test_rows_round_trip_with_the_labels_json_and_numpy_give(tmp_path, labels):
+    """The class labels come back as JSON has them (the json module is the reference), the
+    codes and folds as integers, the regression target as float64 bit for bit."""
+    import json
+
+    import numpy as np
+
+    from workbench.sweep.trials import target_codes
+
+    y = np.array([labels[i % len(labels)] for i in range(7)], dtype=object
+                 if isinstance(labels[0], str) else None)
+    classes, codes = target_codes(y)
+    folds = np.array([[0, 1, 0, 1, 0, 1, 0], [1, 1, 0, 0, 1, 0, 0]])
+    target = np.linspace(-1e300, 3.25, 7)
+    with Store(tmp_path / "s.sqlite") as st:
+        st.create_sweep("c", PLAN, FP, CONFIGS, rows={"target": codes, "folds": folds,
+                                                      "classes": list(classes)})
+        st.create_sweep("r", PLAN, FP, CONFIGS)
+        st.put_rows("r", target, folds[:1])
+        got = st.sweep_rows("c")
+        assert got["classes"] == json.loads(json.dumps(labels))
+        np.testing.assert_array_equal(np.asarray(got["classes"], dtype=object)[got["target"]], y)
+        np.testing.assert_array_equal(got["folds"], folds)
+        reg = st.sweep_rows("r")
+        assert reg["classes"] is None and reg["target"].tobytes() == target.tobytes()
+        assert st.sweep_rows("nope") is None
+        with pytest.raises(ValueError, match="the target has 3 rows"):
+            st.put_rows("x", target[:3], folds)
