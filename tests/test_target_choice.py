@@ -148,7 +148,7 @@ def test_party_identification_0_to_6_with_a_rare_code_is_flagged_ambiguous():
     assert codes == {"distinct": 7, "low": 0.0, "high": 6.0, "rare_code": 3.0,
                      "rare_share": pytest.approx(shares.min()), "rare_rows": 37}
     # the sentence names the evidence and the rule with its thresholds
-    for fragment in ("7 consecutive integer codes 0..6", "code 3.0 holds only 3.9%",
+    for fragment in ("7 consecutive integer codes 0..6", "code 3 holds only 3.9%",
                      f"under {MIN_CODE_SHARE:.0%}", f"at most {MAX_CODE_CLASSES}",
                      "set the kind to multiclass", "common practice", "from memory"):
         assert fragment in t.ambiguity

@@ -1,18 +1,32 @@
-"""``workbench inspect FILE [--target COL] [--sheet NAME] [--max-cells N] [--json]``.
+"""``workbench inspect FILE [--target COL] [--kind KIND] [--role COL=ROLE]... [--json]``.
 
 Prints the load report, the column profile, the target's kind with its evidence
-and the advised output head. Without ``--target`` the suggested target is
-analysed. ``--json`` prints one JSON object instead (documented in README.md,
-section "`workbench inspect --json`"). Exit status 0 on success, 2 on bad input.
+(and, for integer codes that could be classes or a count, that it is ambiguous
+and why) and the advised output head. Without ``--target`` the suggested target
+is analysed (the reason for the suggestion, or for none, is printed). ``--kind``
+sets the target's kind (refused when the values cannot have it); ``--role``
+makes a column a feature or ignores it, through
+:meth:`workbench.data.profiling.TableProfile.with_roles`. ``--json`` prints one
+JSON object instead (documented in README.md, section "`workbench inspect --json`").
+Exit status 0 on success, 2 on bad input.
 """
 
 from __future__ import annotations
 
 import json
 import sys
+from dataclasses import replace
 
 from workbench.data.intake import DEFAULT_MAX_CELLS, load_table
-from workbench.data.profiling import advise, analyse_target, check_head, profile_table, to_jsonable
+from workbench.data.profiling import (
+    KINDS,
+    advise,
+    analyse_target,
+    check_head,
+    parse_roles,
+    profile_table,
+    to_jsonable,
+)
 from workbench.errors import InputError
 
 NAME = "inspect"
@@ -23,6 +37,12 @@ def add_arguments(parser):
     parser.add_argument("file", metavar="FILE", help="a .csv, .tsv, .txt, .xlsx or .parquet table")
     parser.add_argument("--target", metavar="COL", default=None,
                         help="target column (default: the suggested one)")
+    parser.add_argument("--kind", choices=KINDS, default=None,
+                        help="the target's kind, instead of the detected one (refused when the "
+                             "values cannot have it)")
+    parser.add_argument("--role", metavar="COLUMN=ROLE", action="append", default=None,
+                        help="make a column a feature or ignore it (ROLE feature or ignore); "
+                             "repeat for several columns")
     parser.add_argument("--sheet", metavar="NAME", default=None,
                         help="sheet of an .xlsx workbook (default: the first)")
     parser.add_argument("--max-cells", metavar="N", type=int, default=DEFAULT_MAX_CELLS,
@@ -31,10 +51,19 @@ def add_arguments(parser):
 
 
 def inspect_table(path, target: str | None = None, sheet: str | None = None,
-                  max_cells: int = DEFAULT_MAX_CELLS) -> dict:
-    """Everything ``inspect`` reports, as the JSON-ready dict documented in README.md."""
+                  max_cells: int = DEFAULT_MAX_CELLS, kind: str | None = None,
+                  roles: dict | None = None) -> dict:
+    """Everything ``inspect`` reports, as the JSON-ready dict documented in README.md.
+
+    ``kind`` is the target kind set by the user; ``roles`` (``{column: "feature" |
+    "ignore"}``) are applied with :meth:`TableProfile.with_roles`.
+    """
     df, report = load_table(path, sheet=sheet, max_cells=max_cells)
     profile = profile_table(df, target=target)
+    name = target if target is not None else profile.suggested_target
+    if roles:
+        # the analysed target (given or suggested) takes no role
+        profile = replace(profile, target=name).with_roles(roles)
     out = {
         "file": str(path),
         "format": report.format,
@@ -44,17 +73,18 @@ def inspect_table(path, target: str | None = None, sheet: str | None = None,
                  if k not in ("path", "format", "rows", "columns")},
         "columns": [c.to_dict() for c in profile.columns],
         "suggested_target": profile.suggested_target,
+        "suggestion_reason": profile.suggestion_reason,
+        "roles_set_by_user": dict(roles or {}),
         "target": None,
         "advice": None,
     }
-    name = target if target is not None else profile.suggested_target
     if name is None:
-        out["note"] = "no column looks like a target; name one with --target COL"
+        out["note"] = f"{profile.suggestion_reason} with --target COL"
         return to_jsonable(out)
     try:
-        info = analyse_target(df, name)
+        info = analyse_target(df, name, kind=kind)
     except InputError as exc:
-        if target is not None:
+        if target is not None or exc.setting == "kind":
             raise
         out["note"] = f"suggested target {name!r} cannot be used: {exc}"
         return to_jsonable(out)
@@ -68,6 +98,13 @@ def inspect_table(path, target: str | None = None, sheet: str | None = None,
     out["target"] = tdict
     out["advice"] = adv.to_dict()
     out["advice"]["head_checks"] = heads
+    feats = profile.feature_columns(name)
+    out["n_features"] = len(feats)
+    if not feats:
+        try:
+            replace(profile, target=name).require_features(name)
+        except InputError as exc:
+            out["note"] = f"a sweep would be refused: {exc}"
     return to_jsonable(out)
 
 
@@ -119,7 +156,12 @@ def _print_text(d: dict, fh) -> None:
     ev = t["evidence"]
     src = "given" if t["source"] == "given" else "suggested"
     w(f"\nTarget {t['name']!r} ({src}): {t['kind']} ({t['task']})\n")
+    if t["source"] == "suggested" and d.get("suggestion_reason"):
+        w(f"  {d['suggestion_reason']}\n")
     w(f"  because: {ev['rule']}\n")
+    if t.get("ambiguous"):
+        w(f"  {t['ambiguity']}\n")
+        w(f"  other kinds the values fit: {', '.join(t['alternatives'])} (use --kind)\n")
     w(f"  evidence: dtype {ev['dtype']}, min {_fmt(ev['min'])}, max {_fmt(ev['max'])}, "
       f"distinct {ev['distinct']}, zeros {_pct(ev['zero_share'])}, "
       f"missing {ev['missing_share']:.1%}\n")
@@ -146,7 +188,8 @@ def _print_text(d: dict, fh) -> None:
 def run(args) -> int:
     if args.max_cells < 1:
         raise InputError(f"--max-cells must be a positive number of cells, got {args.max_cells}")
-    d = inspect_table(args.file, target=args.target, sheet=args.sheet, max_cells=args.max_cells)
+    d = inspect_table(args.file, target=args.target, sheet=args.sheet, max_cells=args.max_cells,
+                      kind=args.kind, roles=parse_roles(args.role))
     if args.json:
         json.dump(d, sys.stdout, indent=2, allow_nan=False)
         sys.stdout.write("\n")

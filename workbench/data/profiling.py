@@ -702,23 +702,23 @@ def _detect_kind(name: str, vals: pd.Series, ev: dict, numeric: bool, forced: bo
         rare, smallest = shares.idxmin(), float(shares.min())
         codes = {"distinct": distinct, "low": lo, "high": hi, "rare_code": _py(rare),
                  "rare_share": smallest, "rare_rows": int(round(smallest * len(vals)))}
-        rule_words = (f"rule: at most {MAX_CODE_CLASSES} consecutive whole-number codes from 0 "
+        rule_words = (f"Rule: at most {MAX_CODE_CLASSES} consecutive whole-number codes from 0 "
                       f"or 1, each holding at least {MIN_CODE_SHARE:.0%} of the rows, are read "
                       "as classes, otherwise as a count (common practice; thresholds from "
-                      "memory)")
+                      "memory).")
         count_name = _COUNT_NAME.search(name)
         if not count_name and smallest >= MIN_CODE_SHARE:
             return "multiclass", (
                 f"integer codes {lo:g}..{hi:g} ({distinct} values, at most {MAX_CODE_CLASSES}, "
                 f"each at least {MIN_CODE_SHARE:.0%} of rows) read as class labels "
                 "(common practice)"), None, None
-        why = (f"code {rare!s} holds only {smallest:.1%} of the rows (under "
+        why = (f"code {float(rare):g} holds only {smallest:.1%} of the rows (under "
                f"{MIN_CODE_SHARE:.0%})" if smallest < MIN_CODE_SHARE
                else f"the name {name!r} says it counts something")
         amb = {"kinds": ["count", "multiclass"], "codes": codes, "sentence": (
             f"ambiguous: {distinct} consecutive integer codes {lo:g}..{hi:g} could be class "
-            f"labels or a count; {why}, so they were read as a count. If the codes name "
-            f"categories, set the kind to multiclass ({rule_words})")}
+            f"labels or a count; {why}, so they were read as a count; if the codes name "
+            f"categories, set the kind to multiclass. {rule_words}")}
     if lo < 0:
         return "signed", f"takes negative values (min {lo:g}, max {hi:g})", None, amb
     if integer and lo <= 1:

@@ -82,7 +82,7 @@ def load_inputs(conf: dict, table: Path):
     try:
         df, _ = load_table(table, sheet=conf["table"]["sheet"])
         name = conf["target"]["name"]
-        target = analyse_target(df, name)
+        target = analyse_target(df, name, kind=conf["plan"].get("kind"))  # the user's kind
         if target.kind != conf["target"]["kind"]:
             raise Unusable(f"target {name!r} now reads as {target.kind}, "
                            f"not {conf['target']['kind']}")
