@@ -67,7 +67,8 @@ def test_regression_files_agree(exports):
     np.testing.assert_array_equal(by_skops["prediction"], ref)
     np.testing.assert_array_equal(by_joblib["prediction"], ref)
     np.testing.assert_allclose(by_onnx["prediction"], ref, rtol=1e-4, atol=1e-4)
-    assert list(by_skops.columns) == ["prediction"]
+    assert list(by_skops.columns) == ["prediction", "reason"]
+    assert by_skops["reason"].isna().all()
     assert len(msgs) == 1 and "unpickling runs code" in msgs[0]
 
 
@@ -76,12 +77,14 @@ def test_classifier_gives_probabilities(exports):
     pipe = joblib.load(folder / mf.JOBLIB_NAME)
     got = predict_table(folder, X)
     classes = list(pipe.classes_)
-    assert list(got.columns) == ["prediction"] + [f"probability_{c}" for c in classes]
+    assert list(got.columns) == ["prediction"] + [f"probability_{c}" for c in classes] \
+        + ["reason"]
     proba = got[[f"probability_{c}" for c in classes]].to_numpy()
     np.testing.assert_allclose(proba, pipe.predict_proba(X))
     np.testing.assert_allclose(proba.sum(axis=1), 1.0)
     onnx_got = predict_table(folder, X, "onnx")
-    np.testing.assert_allclose(onnx_got.iloc[:, 1:].to_numpy(), proba, atol=1e-4)
+    assert list(onnx_got.columns) == list(got.columns)
+    np.testing.assert_allclose(onnx_got.iloc[:, 1:-1].to_numpy(dtype=float), proba, atol=1e-4)
     assert (onnx_got["prediction"].astype(str) == got["prediction"].astype(str)).all()
 
 
@@ -187,12 +190,14 @@ def test_cli_standard_output_neutralises_formula_cells(exports, monkeypatch, cap
     folder, table, _ = exports["classification"]
     label = trigger + 'HYPERLINK("http://evil.example","x")'
     hostile = pd.DataFrame({"prediction": [label, "plain", trigger + "1+2"],
-                            f"probability_{label}": [0.25, -0.5, 1.0]})
+                            f"probability_{label}": [0.25, -0.5, 1.0],
+                            "reason": [None, None, None]})
     monkeypatch.setattr(predict_command, "predict_table", lambda *a, **k: hostile)
     assert main(["predict", str(folder), str(table)]) == 0
     rows = list(csv.reader(capsys.readouterr().out.splitlines()))
-    assert rows == [["prediction", f"probability_{label}"],
-                    ["'" + label, "0.25"], ["plain", "-0.5"], ["'" + trigger + "1+2", "1.0"]]
+    assert rows == [["prediction", f"probability_{label}", "reason"],
+                    ["'" + label, "0.25", ""], ["plain", "-0.5", ""],
+                    ["'" + trigger + "1+2", "1.0", ""]]
 
 
 def test_not_an_export_folder(tmp_path, capsys):
@@ -216,3 +221,60 @@ def test_a_missing_model_file_names_the_setting(exports, tmp_path, capsys):
         with pytest.raises(InputError) as err:
             predict_table(where, X)
         assert "--" not in str(err.value) and "`" not in str(err.value)
+
+
+# --------------------------------------------------------------------------- no row is dropped
+
+EMPTY_ROWS = [2, 5, 9]
+
+
+def _ten_rows_three_empty(X, where, extra_id: bool):
+    """The first 10 rows of ``X`` with rows 2, 5 and 9 blank in every model column."""
+    rows = X.head(10).copy().astype(object)
+    rows.loc[EMPTY_ROWS, :] = np.nan
+    if extra_id:  # a column the model does not read, filled in every row
+        rows.insert(0, "row_id", [f"r{i}" for i in range(10)])
+    rows.to_csv(where, index=False)
+    return where
+
+
+@pytest.mark.parametrize("task", ["regression", "classification"])
+@pytest.mark.parametrize("flag", [[], ["--joblib"], ["--onnx"]], ids=["skops", "joblib", "onnx"])
+@pytest.mark.parametrize("extra_id", [False, True], ids=["blank-rows", "blank-model-columns"])
+def test_predict_keeps_every_row_and_marks_the_blank_ones(exports, tmp_path, capsys, task, flag,
+                                                          extra_id):
+    folder, _, X = exports[task]
+    table = _ten_rows_three_empty(X, tmp_path / "ten.csv", extra_id)
+    out = tmp_path / "pred.csv"
+    assert main(["predict", str(folder), str(table), "--out", str(out), *flag]) == 0
+    err = capsys.readouterr().err
+    assert "10 row(s) written" in err and "3 of them without a prediction" in err
+    got = pd.read_csv(out, keep_default_na=False, dtype=str)
+    assert len(got) == 10 and list(got.columns)[-1] == "reason"
+    blank = got.index.isin(EMPTY_ROWS)
+    assert (got.loc[blank].drop(columns="reason") == "").all().all()
+    assert got.loc[blank, "reason"].str.contains("every column the model reads is empty").all()
+    assert (got.loc[~blank, "reason"] == "").all() and (got.loc[~blank, "prediction"] != "").all()
+    # the other rows get the predictions they get on their own, in their places
+    kept_rows = tmp_path / "seven.csv"
+    X.head(10).drop(index=EMPTY_ROWS).to_csv(kept_rows, index=False)
+    alone = tmp_path / "alone.csv"
+    assert main(["predict", str(folder), str(kept_rows), "--out", str(alone), *flag]) == 0
+    alone = pd.read_csv(alone, keep_default_na=False, dtype=str)
+    assert (alone["reason"] == "").all()
+    pd.testing.assert_frame_equal(got.loc[~blank].reset_index(drop=True), alone)
+
+
+def test_predict_table_marks_blank_rows_of_a_frame(exports):
+    folder, _, X = exports["classification"]
+    rows = X.head(6).copy().astype(object)
+    rows.loc[[0, 4], :] = np.nan
+    pipe = joblib.load(folder / mf.JOBLIB_NAME)
+    for kind in ("skops", "joblib", "onnx"):
+        got = predict_table(folder, rows, kind, warn=None)
+        assert len(got) == 6 and got["reason"].notna().tolist() == [True, False, False, False,
+                                                                     True, False]
+        assert got.loc[[0, 4]].drop(columns="reason").isna().all().all()
+        expected = pipe.predict(X.head(6).drop(index=[0, 4]))
+        assert (got.loc[[1, 2, 3, 5], "prediction"].astype(str).to_numpy()
+                == expected.astype(str)).all(), kind

@@ -1,8 +1,10 @@
 """``workbench predict MODEL_FOLDER TABLE [--out FILE] [--joblib | --onnx] [--sheet NAME]``.
 
-Loads an exported model (``workbench export``) and writes one prediction per
-row of TABLE as CSV (to FILE, or to standard output): ``prediction`` and, for
-classifiers, ``probability_<class>`` per class. The skops file is used by
+Loads an exported model (``workbench export``) and writes one row per row of
+TABLE as CSV (to FILE, or to standard output), in order: ``prediction``, for
+classifiers ``probability_<class>`` per class, and ``reason`` (why a row has no
+prediction: every column the model reads is empty; such rows are kept, never
+dropped). The skops file is used by
 default (only trusted types are loaded); ``--joblib`` unpickles the joblib file
 after checking its SHA-256 (unpickling runs code: use it only on folders you
 trust); ``--onnx`` predicts with onnxruntime. Exit status 0, or 2 on bad input
@@ -16,7 +18,7 @@ import sys
 from workbench.data.intake import load_table
 from workbench.errors import InputError
 from workbench.export.model_files import read_manifest
-from workbench.export.predict import predict_table
+from workbench.export.predict import BLANK_REASON, REASON_COLUMN, predict_table
 from workbench.export.safe_csv import write_safe_csv
 
 NAME = "predict"
@@ -39,17 +41,22 @@ def add_arguments(parser):
 def run(args) -> int:
     kind = "joblib" if args.joblib else "onnx" if args.onnx else "skops"
     read_manifest(args.folder)  # a wrong folder is reported before the table is read
-    df, _ = load_table(args.table, sheet=args.sheet)
+    df, _ = load_table(args.table, sheet=args.sheet, keep_empty_rows=True)
     out = predict_table(args.folder, df, kind=kind,
                         warn=lambda msg: print(f"workbench: {msg}", file=sys.stderr))
     rows = out.to_numpy(dtype=object).tolist()
+    unanswered = int(out[REASON_COLUMN].notna().sum())
     if args.out:
         try:
             write_safe_csv(args.out, list(out.columns), rows)
         except OSError as exc:
             raise InputError(f"cannot write {args.out} ({exc.strerror}); choose another file") \
                 from None
-        print(f"workbench: {len(out)} prediction(s) written to {args.out}", file=sys.stderr)
     else:
         write_safe_csv(sys.stdout, list(out.columns), rows)
+    if args.out or unanswered:
+        where = f" to {args.out}" if args.out else ""
+        missing = (f", {unanswered} of them without a prediction ({BLANK_REASON}; see the "
+                   f"{REASON_COLUMN} column)" if unanswered else "")
+        print(f"workbench: {len(out)} row(s) written{where}{missing}", file=sys.stderr)
     return 0

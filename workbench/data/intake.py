@@ -111,7 +111,8 @@ class LoadReport:
 
 
 def load_table(path, sheet: str | None = None, max_cells: int = DEFAULT_MAX_CELLS,
-               max_bytes: int = DEFAULT_MAX_BYTES) -> tuple[pd.DataFrame, LoadReport]:
+               max_bytes: int = DEFAULT_MAX_BYTES,
+               keep_empty_rows: bool = False) -> tuple[pd.DataFrame, LoadReport]:
     """Read a table file into a DataFrame.
 
     Parameters
@@ -124,6 +125,8 @@ def load_table(path, sheet: str | None = None, max_cells: int = DEFAULT_MAX_CELL
         Size limit: refuse a table with more than this many cells (rows x columns).
     max_bytes : int
         Size limit on the file, checked before reading it.
+    keep_empty_rows : bool
+        Keep rows whose every cell is missing (prediction answers every row).
 
     Returns
     -------
@@ -156,7 +159,7 @@ def load_table(path, sheet: str | None = None, max_cells: int = DEFAULT_MAX_CELL
     if sheet is not None and report.format != "xlsx":
         report.warnings.append(f"the worksheet {sheet!r} is not used: only .xlsx workbooks "
                                "have sheets")
-    df = _tidy(df, report, p.name)
+    df = _tidy(df, report, p.name, keep_empty_rows)
     cells = int(df.shape[0]) * int(df.shape[1])
     if cells > max_cells:
         raise InputError(
@@ -609,7 +612,8 @@ def _is_unnamed(name: str) -> bool:
     return name == "" or re.fullmatch(r"Unnamed: \d+", name) is not None
 
 
-def _tidy(df: pd.DataFrame, report: LoadReport, fname: str) -> pd.DataFrame:
+def _tidy(df: pd.DataFrame, report: LoadReport, fname: str,
+          keep_empty_rows: bool = False) -> pd.DataFrame:
     names = [str(c).strip() for c in df.columns]
     # columns without a name and without values (a trailing delimiter): drop
     keep = []
@@ -632,7 +636,7 @@ def _tidy(df: pd.DataFrame, report: LoadReport, fname: str) -> pd.DataFrame:
     for i in range(df.shape[1]):
         empty &= df.iloc[:, i].isna().to_numpy()
     n_empty = int(empty.sum())
-    if n_empty:
+    if n_empty and not keep_empty_rows:
         df = df.loc[~empty].reset_index(drop=True)
         report.rows_dropped += n_empty
         report.drop_reasons.append(f"{n_empty} empty row(s) (every cell missing)")

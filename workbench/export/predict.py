@@ -14,8 +14,11 @@ Three ways to load the model, all checked against the folder's manifest first
 
 :func:`predict_table` checks that the table has every column the model reads
 (the message names the missing ones) and that numeric and date columns can be
-read as such, then returns one row per input row: ``prediction`` and, for
-classifiers, one ``probability_<class>`` column per class.
+read as such, then returns one row per input row, in order, never fewer:
+``prediction``, for classifiers one ``probability_<class>`` column per class,
+and ``reason``. A row whose every column the model reads is blank gets no
+prediction (the model would answer only with the values it imputes) and
+``reason`` says so; for the other rows ``reason`` is empty.
 """
 
 from __future__ import annotations
@@ -34,6 +37,10 @@ from workbench.export.model_files import (
 )
 
 KINDS = ("skops", "joblib", "onnx")
+#: the last output column: why a row has no prediction (empty when it has one)
+REASON_COLUMN = "reason"
+#: the reason given for a row whose every model column is blank
+BLANK_REASON = "every column the model reads is empty"
 
 
 def _check_columns(df: pd.DataFrame, kinds: dict[str, str]) -> pd.DataFrame:
@@ -64,6 +71,20 @@ def _parsed(col, raw, parsed, what: str):
     return parsed
 
 
+def blank_rows(df: pd.DataFrame, columns) -> np.ndarray:
+    """Rows whose every cell in ``columns`` is missing or blank text (no prediction for them)."""
+    columns = list(columns)
+    if not columns:
+        return np.zeros(len(df), dtype=bool)
+    cells = df[columns]
+    blank = cells.isna().to_numpy()
+    for j, col in enumerate(columns):
+        s = cells[col]
+        if s.dtype == object or pd.api.types.is_string_dtype(s):
+            blank[:, j] |= s.map(lambda v: isinstance(v, str) and not v.strip()).to_numpy(bool)
+    return blank.all(axis=1)
+
+
 def _result_frame(pred, proba, classes) -> pd.DataFrame:
     out = pd.DataFrame({"prediction": np.asarray(pred).ravel()})
     if proba is not None:
@@ -73,8 +94,23 @@ def _result_frame(pred, proba, classes) -> pd.DataFrame:
     return out
 
 
+def _every_row(part: pd.DataFrame | None, blank: np.ndarray, columns: list[str]) -> pd.DataFrame:
+    """The predictions of the non-blank rows in their places, blank rows marked."""
+    n = len(blank)
+    if not blank.any():
+        out = part.reset_index(drop=True)
+    else:
+        if part is None:  # every row is blank
+            part = pd.DataFrame({c: pd.Series(dtype=object) for c in columns})
+        # object columns, so that labels keep their form (1 stays 1, not 1.0)
+        part = part.astype({"prediction": object}).set_axis(np.flatnonzero(~blank))
+        out = part.reindex(range(n))
+    out[REASON_COLUMN] = np.where(blank, BLANK_REASON, None)
+    return out
+
+
 def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> pd.DataFrame:
-    """Predictions of an exported model for the rows of ``df``.
+    """Predictions of an exported model for the rows of ``df``, one row per row.
 
     Parameters
     ----------
@@ -90,7 +126,11 @@ def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> 
     Returns
     -------
     pandas.DataFrame
-        ``prediction`` and, for classifiers, ``probability_<class>`` per class.
+        As many rows as ``df``, in its order: ``prediction``, for classifiers
+        ``probability_<class>`` per class, and ``reason``: empty for predicted
+        rows; for a row whose every column the model reads is blank,
+        :data:`BLANK_REASON` (and no prediction: the model would only answer
+        with its imputed values).
 
     Raises
     ------
@@ -115,11 +155,17 @@ def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> 
         model = onnx.load(str(path))
         kinds = {c["column"]: c["kind"] for c in onnx_columns(model)}
         table = _check_columns(df, kinds)
-        out = run_onnx(model, table)
-        if "probabilities" in out:
-            labels = classes if classes is not None else list(range(out["probabilities"].shape[1]))
-            return _result_frame(out["label"], out["probabilities"], labels)
-        return _result_frame(out["variable"], None, None)
+        blank = blank_rows(df, kinds)
+        part, names = None, ["prediction"]
+        if not blank.all():
+            out = run_onnx(model, table.loc[~blank])
+            if "probabilities" in out:
+                labels = classes if classes is not None else \
+                    list(range(out["probabilities"].shape[1]))
+                part = _result_frame(out["label"], out["probabilities"], labels)
+            else:
+                part = _result_frame(out["variable"], None, None)
+        return _every_row(part, blank, names)
 
     from sklearn.base import is_classifier
 
@@ -131,11 +177,18 @@ def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> 
         names = getattr(pipe, "feature_names_in_", None)
         kinds = {str(c): "float" for c in names} if names is not None else {}
     table = _check_columns(df, kinds)
-    try:
-        pred = pipe.predict(table)
-        proba = pipe.predict_proba(table) if is_classifier(pipe) else None
-    except (ValueError, TypeError) as exc:
-        raise InputError(f"the model could not read the table ({exc}); check that its columns "
-                         "hold the same kinds of values as the training table") from None
-    labels = list(getattr(pipe, "classes_", classes or []))
-    return _result_frame(pred, proba, labels)
+    blank = blank_rows(df, kinds)
+    labels = list(pipe.classes_) if is_classifier(pipe) else None
+    names = ["prediction"] + [f"probability_{c}" for c in labels or []]
+    part = None
+    if not blank.all():
+        rows = table.loc[~blank]
+        try:
+            pred = pipe.predict(rows)
+            proba = pipe.predict_proba(rows) if labels is not None else None
+        except (ValueError, TypeError) as exc:
+            raise InputError(f"the model could not read the table ({exc}); check that its "
+                             "columns hold the same kinds of values as the training table") \
+                from None
+        part = _result_frame(pred, proba, labels)
+    return _every_row(part, blank, names)
