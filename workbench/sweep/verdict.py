@@ -139,11 +139,12 @@ def _fmt(x: float, rope: float) -> str:
 
 
 def _p(p: float) -> str:
+    """"P = 0.97", or "P > 0.99" / "P < 0.01" where two decimals would round to 1 or 0."""
     if p >= 0.995:
-        return "> 0.99"
+        return "P > 0.99"
     if p < 0.005:
-        return "< 0.01"
-    return f"{p:.2f}"
+        return "P < 0.01"
+    return f"P = {p:.2f}"
 
 
 def n_parameters(layers, n_inputs: int, n_outputs: int) -> int:
@@ -333,13 +334,13 @@ def rule_verdict(configs, scores, *, factor: str, advised: str, rho: float, rope
     f = lambda v: _fmt(v, rope)  # noqa: E731
     if outcome == "holds":
         words = (f"holds: {advised} beats the best other {noun}, {other}, by "
-                 f"{f(cmp.mean)} ({f(low)} to {f(high)}), P = {_p(cmp.p_better)}")
+                 f"{f(cmp.mean)} ({f(low)} to {f(high)}), {_p(cmp.p_better)}")
     elif outcome == "equivalent":
         words = (f"equivalent: {advised} and {other} differ by {f(cmp.mean)} "
-                 f"({f(low)} to {f(high)}), within ±{f(rope)}, P = {_p(cmp.p_equivalent)}")
+                 f"({f(low)} to {f(high)}), within ±{f(rope)}, {_p(cmp.p_equivalent)}")
     elif outcome == "beaten":
         words = (f"beaten by {other} by {f(-cmp.mean)} ({f(-high)} to {f(-low)}), "
-                 f"P = {_p(cmp.p_worse)}")
+                 f"{_p(cmp.p_worse)}")
     else:
         need = repeats_needed(x[a] - x[b], folds=folds, repeats=repeats, rho=rho, rope=rope,
                               threshold=threshold, max_repeats=max_repeats)
@@ -414,7 +415,7 @@ def recommend(configs, scores, decisions, *, advised_head: str, n_inputs: int, n
         if chosen == best:
             reason = f"the best configuration, and it follows the rule of thumb ({rule_words})"
         else:
-            pe = "" if p_equivalent is None else f", P = {_p(p_equivalent[chosen])}"
+            pe = "" if p_equivalent is None else f", {_p(p_equivalent[chosen])}"
             reason = (f"follows the rule of thumb ({rule_words}) and is practically "
                       f"equivalent to the best{pe}")
     else:
