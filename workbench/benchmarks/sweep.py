@@ -241,10 +241,12 @@ def store_size(rows: int = 10_000, epochs: int = 200, folds: int = 5, repeats: i
     swept with the default plan's shape (one layer of 64, ``epochs`` epochs,
     ``folds`` x ``repeats``, the advised head, ``hidden`` activations: relu on
     scikit-learn's MLP, gelu on the NumPy engine, which also stores per-epoch
-    health) and the two baselines. The store's file size after the sweep minus
-    its size before the first trial, divided by the trials stored, is scaled to
-    1,000 trials; the share taken by the out-of-fold predictions (float32:
-    4 bytes x test rows x columns) and by the per-epoch histories is given too.
+    health), without baselines, so that every trial measured is a network's (a
+    baseline's trial stores the same predictions and no history). The store's
+    file size after the sweep minus its size before the first trial, divided by
+    the trials stored, is scaled to 1,000 trials; the share taken by the
+    out-of-fold predictions (float32: 4 bytes x test rows x columns) and by the
+    per-epoch histories is given too.
     """
     from workbench.sweep.plan import build_plan
     from workbench.sweep.runner import run_sweep
@@ -260,7 +262,7 @@ def store_size(rows: int = 10_000, epochs: int = 200, folds: int = 5, repeats: i
             table = tmp / f"{task}.csv"
             maker(table, rows)
             plan = build_plan(table, target, hidden=hidden, layers=["64"], folds=folds,
-                              repeats=repeats, epochs=epochs, seed=0)
+                              repeats=repeats, epochs=epochs, seed=0, baselines=[])
             with Store(tmp / f"{task}.sqlite") as st:
                 started = {}
 
