@@ -85,6 +85,13 @@ def test_log_losses_clip_as_sklearns_mlp(loss):
 
 
 @pytest.mark.parametrize("loss", losses.ALL, ids=lambda loss: loss.value.__name__)
+def test_a_given_residual_gives_the_same_value(loss):
+    """The backward pass hands its residual p - y to the loss; the value must not change."""
+    y, p = _pairs(loss, outputs=2)
+    assert loss.value(y, p, p - y) == pytest.approx(loss.value(y, p), rel=1e-14)
+
+
+@pytest.mark.parametrize("loss", losses.ALL, ids=lambda loss: loss.value.__name__)
 def test_gradient_is_the_per_row_derivative(loss):
     """gradient(y, p) = n_rows * d value / d p, by central finite differences; for several
     outputs of the squared error n_rows * n_outputs times (scikit-learn backpropagates the

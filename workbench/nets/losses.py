@@ -54,7 +54,9 @@ class Loss:
     label : str
         The loss in words (tooltips, reports).
     value : callable
-        ``value(y, p) -> float``, the mean loss of the rows (see the module docstring).
+        ``value(y, p, residual=None) -> float``, the mean loss of the rows (see the
+        module docstring). ``residual``, when given, is ``p - y`` already computed (the
+        backward pass has it); a loss that depends on the residual alone uses it.
     gradient : callable
         ``gradient(y, p, out=None) -> ndarray``, the derivative of each row's loss
         with respect to ``p``, written into ``out`` when given.
@@ -66,18 +68,18 @@ class Loss:
     gradient: Callable
 
 
-def _half_squared_error(y, p):
-    residual = np.subtract(p, y)
-    flat = residual.reshape(-1)
+def _half_squared_error(y, p, residual=None):
+    if residual is None:
+        residual = np.subtract(p, y)
     # the dot product is the fastest sum of squares on batch-sized arrays
-    return 0.5 * float(np.dot(flat, flat)) / flat.size
+    return 0.5 * float(np.vdot(residual, residual)) / residual.size
 
 
 def _half_squared_error_gradient(y, p, out=None):
     return np.subtract(p, y, out=out)
 
 
-def _half_poisson_deviance(y, p):
+def _half_poisson_deviance(y, p, residual=None):
     return float(np.mean(xlogy(y, y / p) - y + p, axis=0).sum())
 
 
@@ -93,7 +95,7 @@ def _clipped(p):
     return np.clip(p, eps, 1 - eps)
 
 
-def _binary_log_loss(y, p):
+def _binary_log_loss(y, p, residual=None):
     q = _clipped(p)
     return float(-np.mean(xlogy(y, q) + xlogy(1 - y, 1 - q), axis=0).sum())
 
@@ -106,7 +108,7 @@ def _binary_log_loss_gradient(y, p, out=None):
     return out
 
 
-def _multinomial_log_loss(y, p):
+def _multinomial_log_loss(y, p, residual=None):
     return float(-np.mean(xlogy(y, _clipped(p)), axis=0).sum())
 
 

@@ -229,12 +229,12 @@ class Network:
         """
         prediction = self.forward(X_ones, rows)
         views = self.buffers(rows)
-        top = views[-1]
-        self.head.output_delta(y, prediction, top.pre, top.delta)
-        loss = self.head.loss_fn.value(y, prediction)
+        head, top = self.head, views[-1]
+        delta = head.output_delta(y, prediction, top.pre, top.delta)
+        # a canonical head's delta is the residual p - y, which the loss may reuse
+        loss = head.loss_fn.value(y, prediction, delta if head.canonical else None)
         if alpha:
             loss += self._l2(alpha, rows)
-        delta = top.delta
         for i in range(len(self.layers) - 1, -1, -1):
             layer = self.layers[i]
             below = X_ones if i == 0 else views[i - 1].output_ones

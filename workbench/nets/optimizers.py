@@ -53,37 +53,39 @@ class AdamOptimizer:
         self.learning_rate = self.learning_rate_init
         self.beta_1, self.beta_2, self.epsilon = beta_1, beta_2, epsilon
         self.t = 0
-        self.first_moment = np.zeros(size, dtype=dtype)
-        self.second_moment = np.zeros(size, dtype=dtype)
-        self._work = np.empty(size, dtype=dtype)
+        # both moments in one (2, size) array, and beside it the weighted gradient and
+        # its square: each moment update is then one operation on both rows
+        self._moments = np.zeros((2, size), dtype=dtype)
+        self.first_moment, self.second_moment = self._moments
+        self._increments = np.empty((2, size), dtype=dtype)
+        self._betas = np.array([[beta_1], [beta_2]], dtype=dtype)
+        self._weights = np.empty((2, 1), dtype=dtype)
         self._rows = None
-        self._grad_weights = (0.0, 0.0)
+        self._work = np.empty(size, dtype=dtype)
 
     def update(self, params, grad, rows=1):
         """One Adam step on ``params`` (in place) for ``grad`` summed over ``rows`` rows."""
         b1, b2 = self.beta_1, self.beta_2
-        m, v, work = self.first_moment, self.second_moment, self._work
         if rows != self._rows:
-            # g = grad / rows, folded into the moment updates' weights
-            self._grad_weights = ((1 - b1) / rows, (1 - b2) / (rows * rows))
+            # g = grad / rows, folded into the weights of the moment updates
+            self._weights[0, 0] = (1 - b1) / rows
+            self._weights[1, 0] = (1 - b2) / (rows * rows)
             self._rows = rows
-        w1, w2 = self._grad_weights
         self.t += 1
-        # m_t = beta_1 m_{t-1} + (1 - beta_1) g_t
-        np.multiply(grad, w1, out=work)
-        m *= b1
-        m += work
-        # v_t = beta_2 v_{t-1} + (1 - beta_2) g_t^2
-        np.multiply(grad, grad, out=work)
-        work *= w2
-        v *= b2
-        v += work
+        # m_t = beta_1 m_{t-1} + (1 - beta_1) g_t and v_t = beta_2 v_{t-1} + (1 - beta_2) g_t^2
+        increments = self._increments
+        np.copyto(increments[0], grad)
+        np.multiply(grad, grad, out=increments[1])
+        increments *= self._weights
+        self._moments *= self._betas
+        self._moments += increments
         # theta_t = theta_{t-1} - alpha_t m_t / (sqrt(v_t) + eps_hat)
         self.learning_rate = (self.learning_rate_init * math.sqrt(1 - b2 ** self.t)
                               / (1 - b1 ** self.t))
-        np.sqrt(v, out=work)
+        work = self._work
+        np.sqrt(self.second_moment, out=work)
         work += self.epsilon
-        np.divide(m, work, out=work)
+        np.divide(self.first_moment, work, out=work)
         work *= -self.learning_rate
         params += work
 
