@@ -3,10 +3,11 @@
 An exported model folder holds the same fitted pipeline twice:
 
 ``model.skops``
-    skops' format (:mod:`skops.io`). Loading it never runs code from the file:
-    skops rebuilds only the types it is told to trust. :func:`load_skops`
-    trusts scikit-learn's and NumPy's classes and the project's own estimators
-    (:data:`PROJECT_TYPES`), and refuses a file that names anything else.
+    skops' format (:mod:`skops.io`): a zip whose ``schema.json`` describes
+    every object to rebuild. :func:`load_skops` reads that description first
+    and refuses a file holding anything an exported pipeline never holds
+    (:data:`SKOPS_CONTENTS`, an exact list; no functions at all), so nothing
+    of a forged file's choosing is built or called.
 ``model.joblib``
     joblib's pickle, the ecosystem's habit. **Unpickling runs code**: a
     pickle can do anything the loading user can do, so load only folders you
@@ -20,7 +21,6 @@ An exported model folder holds the same fitted pipeline twice:
 
 from __future__ import annotations
 
-import inspect
 import json
 import platform
 from datetime import UTC, datetime
@@ -36,9 +36,6 @@ ONNX_NAME = "model.onnx"
 MANIFEST_NAME = "manifest.json"
 MANIFEST_FORMAT = "activation-workbench-export"
 MANIFEST_VERSION = 1
-
-#: libraries whose classes a skops file may name (besides skops' own default trust)
-TRUSTED_PREFIXES = ("sklearn.", "numpy.")
 
 #: the libraries whose versions a manifest records
 LIBRARIES = ("numpy", "scipy", "scikit-learn", "pandas", "joblib", "skops", "onnx",
@@ -216,68 +213,90 @@ def verify_file(folder: str | Path, name: str, manifest: dict | None = None) -> 
 # --------------------------------------------------------------------------- trust
 
 
-#: the project's own types a skops file may contain (explicit allow-list; a test
-#: checks that it names every estimator class of workbench.nets.engine / workbench.data.preprocessing)
-PROJECT_TYPES = (
-    "workbench.nets.engine.NetRegressor",
-    "workbench.nets.engine.NetClassifier",
-    "workbench.data.preprocessing.DateParts",
-    "workbench.data.preprocessing.TargetScaler",
-)
+#: Everything a skops file written by the export contains, as ``(node kind, type)``
+#: pairs of its ``schema.json``: the pipelines of every output head, hidden activation,
+#: engine and preprocessing kind (numbers, integers, categories, booleans with and
+#: without gaps, dates) hold these and nothing else. A test rebuilds the set by
+#: exporting every combination and checks that it equals this one, so a change in
+#: the pipelines or in scikit-learn's module layout shows up as a failing test, not
+#: as a refused model. skops' own defaults trust far more (every scikit-learn
+#: estimator, ``FunctionTransformer`` included, and NumPy functions such as
+#: ``numpy.log``); :func:`load_skops` refuses a file holding anything outside this set.
+SKOPS_CONTENTS = frozenset({
+    ("DictNode", "builtins.dict"),
+    ("JsonNode", "builtins.str"),
+    ("ListNode", "builtins.list"),
+    ("SliceNode", "builtins.slice"),
+    ("TupleNode", "builtins.tuple"),
+    ("TypeNode", "builtins.str"),
+    ("TypeNode", "numpy.float64"),
+    ("DTypeNode", "numpy.dtype"),
+    ("NdArrayNode", "numpy.float64"),
+    ("NdArrayNode", "numpy.ndarray"),
+    ("RandomStateNode", "numpy.random.mtrand.RandomState"),
+    ("ObjectNode", "sklearn.compose._column_transformer.ColumnTransformer"),
+    ("ObjectNode", "sklearn.compose._target.TransformedTargetRegressor"),
+    ("ObjectNode", "sklearn.impute._base.SimpleImputer"),
+    ("ObjectNode", "sklearn.neural_network._multilayer_perceptron.MLPClassifier"),
+    ("ObjectNode", "sklearn.neural_network._multilayer_perceptron.MLPRegressor"),
+    ("ObjectNode", "sklearn.neural_network._stochastic_optimizers.AdamOptimizer"),
+    ("ObjectNode", "sklearn.pipeline.Pipeline"),
+    ("ObjectNode", "sklearn.preprocessing._data.StandardScaler"),
+    ("ObjectNode", "sklearn.preprocessing._encoders.OneHotEncoder"),
+    ("ObjectNode", "sklearn.preprocessing._label.LabelBinarizer"),
+    ("ObjectNode", "workbench.data.preprocessing.DateParts"),
+    ("ObjectNode", "workbench.data.preprocessing.TargetScaler"),
+    ("ObjectNode", "workbench.nets.engine.NetClassifier"),
+    ("ObjectNode", "workbench.nets.engine.NetRegressor"),
+})
+
+#: the largest ``schema.json`` read from a skops file (ours are well under 1 MB)
+MAX_SCHEMA_BYTES = 64 << 20
 
 
-def project_types() -> set[str]:
-    """Fully qualified names of the project's types that a skops file may name."""
-    return set(PROJECT_TYPES)
+def skops_contents(path: str | Path) -> set[tuple[str, str]]:
+    """Every ``(node kind, type)`` pair in a skops file's ``schema.json``, nothing loaded.
 
+    The schema is the description skops rebuilds objects from: each node names
+    how it is loaded (``__loader__``: an object, a type given as a value, a
+    function, an array, ...) and the type or function (``__module__`` and
+    ``__class__``). It is read as skops reads it (the zip member of that name)
+    and walked without recursion, so no nesting depth can break the walk.
 
-def defined_project_estimators() -> set[str]:
-    """Estimator classes actually defined in :mod:`workbench.nets.engine` and
-    :mod:`workbench.data.preprocessing` (what :data:`PROJECT_TYPES` must cover)."""
-    import importlib
-
-    from sklearn.base import BaseEstimator
-
-    names = set()
-    for mod_name in ("workbench.nets.engine", "workbench.data.preprocessing"):
-        mod = importlib.import_module(mod_name)
-        for _, obj in inspect.getmembers(mod, inspect.isclass):
-            if obj.__module__ == mod_name and issubclass(obj, BaseEstimator) \
-                    and not obj.__name__.startswith("_"):  # private bases are never fitted
-                names.add(f"{obj.__module__}.{obj.__qualname__}")
-    return names
-
-
-def _is_library_class(name: str) -> bool:
-    """Whether ``name`` is a class (not a function) of scikit-learn or NumPy."""
-    import importlib
-
-    if not name.startswith(TRUSTED_PREFIXES):
-        return False
-    module, _, attr = name.rpartition(".")
-    for _ in range(3):  # nested names: try shorter module paths
-        try:
-            obj = importlib.import_module(module)
-        except ImportError:
-            module, _, head = module.rpartition(".")
-            attr = f"{head}.{attr}"
-            if not module:
-                return False
-            continue
-        for part in attr.split("."):
-            obj = getattr(obj, part, None)
-        return isinstance(obj, type)
-    return False
-
-
-def untrusted_types(names: list[str]) -> list[str]:
-    """The subset of ``names`` (from :func:`skops.io.get_untrusted_types`) we refuse.
-
-    Trusted: the project's :data:`PROJECT_TYPES` and classes (never functions)
-    defined by scikit-learn or NumPy.
+    Raises
+    ------
+    ValueError
+        when the file is not a zip with a readable ``schema.json``.
     """
-    allowed = project_types()
-    return [n for n in names if n not in allowed and not _is_library_class(n)]
+    import zipfile
+
+    try:
+        with zipfile.ZipFile(path) as zf, zf.open("schema.json") as fh:
+            raw = fh.read(MAX_SCHEMA_BYTES + 1)
+    except (OSError, KeyError, RuntimeError, zipfile.BadZipFile, EOFError) as exc:
+        raise ValueError(f"not a skops archive ({type(exc).__name__})") from None
+    if len(raw) > MAX_SCHEMA_BYTES:
+        raise ValueError("its schema is far larger than any exported pipeline's")
+    try:
+        schema = json.loads(raw.decode("utf-8"))
+    except (ValueError, RecursionError):
+        raise ValueError("its schema is not valid JSON") from None
+    found, todo = set(), [schema]
+    while todo:
+        node = todo.pop()
+        if isinstance(node, dict):
+            if "__loader__" in node:
+                found.add((str(node.get("__loader__")),
+                           f"{node.get('__module__')}.{node.get('__class__')}"))
+            todo.extend(node.values())
+        elif isinstance(node, list):
+            todo.extend(node)
+    return found
+
+
+def foreign_contents(found) -> list[str]:
+    """The pairs of ``found`` outside :data:`SKOPS_CONTENTS`, as ``"type (node kind)"``."""
+    return sorted(f"{name} ({kind})" for kind, name in found if (kind, name) not in SKOPS_CONTENTS)
 
 
 # --------------------------------------------------------------------------- save / load
@@ -304,32 +323,46 @@ def save_joblib(pipeline, path: str | Path) -> Path:
 
 
 def load_skops(path: str | Path):
-    """Load a skops file, trusting only scikit-learn, NumPy and the project's types.
+    """Load a skops file holding only what exported pipelines hold (:data:`SKOPS_CONTENTS`).
+
+    The whole schema is checked before skops rebuilds anything, so a file
+    naming any other type or any function (``FunctionTransformer(numpy.memmap)``,
+    even ``numpy.log``, which skops trusts by default) is refused and nothing
+    of it runs. skops is then told to trust exactly the types it asks about,
+    all of them in the set.
 
     Raises
     ------
     InputError
-        naming the types the file asks for that are not trusted, or when the
-        file is not a readable skops file.
+        naming what the file holds beyond an exported pipeline, or when the file
+        is not a readable skops file.
     """
     import skops.io as sio
 
     path = Path(path)
     try:
-        asked = sio.get_untrusted_types(file=path)
-    except Exception as exc:  # zip or schema errors: report, never a traceback
-        raise InputError(f"{path} is not a readable skops file ({type(exc).__name__}); "
-                         "re-export the model") from None
-    refused = untrusted_types(asked)
-    if refused:
+        found = skops_contents(path)
+    except ValueError as exc:
+        raise InputError(f"{path} is not a readable skops file ({exc}); re-export the model") \
+            from None
+    foreign = foreign_contents(found)
+    if foreign:
+        shown = ", ".join(foreign[:5]) + (f" and {len(foreign) - 5} more" if len(foreign) > 5
+                                          else "")
         raise InputError(
-            f"{path} names type(s) that are not trusted: {', '.join(refused)}; "
-            "only scikit-learn, NumPy and workbench types are loaded")
+            f"{path} holds what no exported pipeline holds: {shown}; refusing to load it "
+            "(the file was not written by the workbench's export, or was changed)")
     try:
+        asked = sio.get_untrusted_types(file=path)
+        names = {name for _, name in SKOPS_CONTENTS}
+        if any(n not in names for n in asked):  # pragma: no cover - the schema check came first
+            raise InputError(f"{path} asks skops to trust {asked}; refusing to load it")
         return sio.load(path, trusted=asked)
-    except Exception as exc:
-        raise InputError(f"{path} could not be loaded ({type(exc).__name__}: {exc}); "
-                         "re-export the model") from None
+    except InputError:
+        raise
+    except Exception as exc:  # skops' and NumPy's own errors on a damaged file
+        raise InputError(f"{path} could not be loaded ({type(exc).__name__}: "
+                         f"{str(exc)[:200]}); re-export the model") from None
 
 
 def load_joblib(path: str | Path, manifest: dict | None = None, warn=print):
