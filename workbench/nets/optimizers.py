@@ -58,9 +58,10 @@ class AdamOptimizer:
         self._moments = np.zeros((2, size), dtype=dtype)
         self.first_moment, self.second_moment = self._moments
         self._increments = np.empty((2, size), dtype=dtype)
+        self._grad_part, self._square_part = self._increments
         self._betas = np.array([[beta_1], [beta_2]], dtype=dtype)
-        self._weights = np.empty((2, 1), dtype=dtype)
         self._rows = None
+        self._weights = (0.0, 0.0)
         self._work = np.empty(size, dtype=dtype)
 
     def update(self, params, grad, rows=1):
@@ -68,25 +69,25 @@ class AdamOptimizer:
         b1, b2 = self.beta_1, self.beta_2
         if rows != self._rows:
             # g = grad / rows, folded into the weights of the moment updates
-            self._weights[0, 0] = (1 - b1) / rows
-            self._weights[1, 0] = (1 - b2) / (rows * rows)
+            self._weights = ((1 - b1) / rows, (1 - b2) / (rows * rows))
             self._rows = rows
-        self.t += 1
+        self.t = t = self.t + 1
         # m_t = beta_1 m_{t-1} + (1 - beta_1) g_t and v_t = beta_2 v_{t-1} + (1 - beta_2) g_t^2
-        increments = self._increments
-        np.copyto(increments[0], grad)
-        np.multiply(grad, grad, out=increments[1])
-        increments *= self._weights
-        self._moments *= self._betas
-        self._moments += increments
+        weight_grad, weight_square = self._weights
+        np.multiply(grad, weight_grad, out=self._grad_part)
+        square = np.multiply(grad, grad, out=self._square_part)
+        square *= weight_square
+        moments = self._moments
+        moments *= self._betas
+        moments += self._increments
         # theta_t = theta_{t-1} - alpha_t m_t / (sqrt(v_t) + eps_hat)
-        self.learning_rate = (self.learning_rate_init * math.sqrt(1 - b2 ** self.t)
-                              / (1 - b1 ** self.t))
+        self.learning_rate = lr = (self.learning_rate_init * math.sqrt(1 - b2 ** t)
+                                   / (1 - b1 ** t))
         work = self._work
         np.sqrt(self.second_moment, out=work)
         work += self.epsilon
         np.divide(self.first_moment, work, out=work)
-        work *= -self.learning_rate
+        work *= -lr
         params += work
 
     def iteration_ends(self, time_step):
