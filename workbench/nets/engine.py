@@ -454,9 +454,8 @@ class _BaseNet(BaseEstimator):
                     "the optimization hasn't converged yet.", ConvergenceWarning, stacklevel=3)
         if best is not None:
             net.theta[...] = best
-        last = {key: self.history_[key][-1] if self.history_[key] else []
-                for key in ("dead", "saturated", "grad_norm")}
-        self.health_ = last
+        self.health_ = {key: self.history_[key][-1] if self.history_[key] else []
+                        for key in ("dead", "saturated", "grad_norm")}
 
     def _track_improvement(self, net, data, loss) -> bool:
         """scikit-learn's no-improvement count after an epoch, on the validation score
