@@ -703,9 +703,8 @@ def _detect_kind(name: str, vals: pd.Series, ev: dict, numeric: bool, forced: bo
         codes = {"distinct": distinct, "low": lo, "high": hi, "rare_code": _py(rare),
                  "rare_share": smallest, "rare_rows": int(round(smallest * len(vals)))}
         rule_words = (f"Rule: at most {MAX_CODE_CLASSES} consecutive whole-number codes from 0 "
-                      f"or 1, each holding at least {MIN_CODE_SHARE:.0%} of the rows, are read "
-                      "as classes, otherwise as a count (common practice; thresholds from "
-                      "memory).")
+                      f"or 1, each on at least {MIN_CODE_SHARE:.0%} of the rows, are read as "
+                      "classes, else as a count (common practice; thresholds from memory).")
         count_name = _COUNT_NAME.search(name)
         if not count_name and smallest >= MIN_CODE_SHARE:
             return "multiclass", (
@@ -716,9 +715,9 @@ def _detect_kind(name: str, vals: pd.Series, ev: dict, numeric: bool, forced: bo
                f"{MIN_CODE_SHARE:.0%})" if smallest < MIN_CODE_SHARE
                else f"the name {name!r} says it counts something")
         amb = {"kinds": ["count", "multiclass"], "codes": codes, "sentence": (
-            f"ambiguous: {distinct} consecutive integer codes {lo:g}..{hi:g} could be class "
-            f"labels or a count; {why}, so they were read as a count; if the codes name "
-            f"categories, set the kind to multiclass. {rule_words}")}
+            f"ambiguous: {distinct} consecutive integer codes {lo:g}..{hi:g} could be classes or "
+            f"a count; {why}, so they were read as a count; if they name categories, set the "
+            f"kind to multiclass. {rule_words}")}
     if lo < 0:
         return "signed", f"takes negative values (min {lo:g}, max {hi:g})", None, amb
     if integer and lo <= 1:

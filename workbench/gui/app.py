@@ -117,17 +117,33 @@ def run_app(path: str | None = None, target: str | None = None, run: bool = Fals
             status["code"] = EXIT_BAD_INPUT
             finish()
 
+    def on_target_failed(exc):
+        # --run with no target to sweep: refused like the command line (one line, exit 2);
+        # a snapshot alone shows the window asking for the target
+        if run:
+            status["error"] = exc
+        if scripted:
+            finish()
+
     if path:
         win.targetReady.connect(on_target)
         win.sweepEnded.connect(on_sweep)
         win.loadFailed.connect(on_fail)
+        win.targetFailed.connect(on_target_failed)
         win.open_path(path, target)
     elif snapshot:
         from PySide6.QtCore import QTimer
 
         QTimer.singleShot(200, finish)
     app.exec()
+    # closing the last window posts a second quit; left queued it would end every later
+    # event loop of this application at once (the tests reuse one application)
+    from PySide6.QtCore import QEvent
+
+    app.removePostedEvents(app, QEvent.Quit)
     from workbench.gui.tasks import wait_all
 
     wait_all(5000)
+    if status.get("error") is not None:
+        raise status["error"]  # the command line phrases it and exits with status 2
     return status["code"]

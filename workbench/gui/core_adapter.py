@@ -122,13 +122,57 @@ def head_verdict(info, head: str) -> HeadVerdict:
     return HeadVerdict(True, False, "")
 
 
-def summarise_target(df, name: str) -> TargetSummary:
+def summarise_target(df, name: str, kind: str | None = None) -> TargetSummary:
+    """The target's kind (``kind``: set by the user, else detected), advice and head verdicts."""
     from workbench.data.profiling import advise, analyse_target
 
-    info = analyse_target(df, name)
+    info = analyse_target(df, name, kind=kind)
     adv = advise(info)
     heads = [(h, head_verdict(info, h)) for h in activations.head_names(info.task)]
     return TargetSummary(target=info, advice=adv, heads=heads)
+
+
+def summarise_or_refuse(df, name: str, kind: str | None = None):
+    """:func:`summarise_target`, or the :class:`InputError` that refused it (returned, not
+    raised, so the window keeps the setting it is about)."""
+    try:
+        return summarise_target(df, name, kind)
+    except InputError as exc:
+        return exc
+
+
+def check_target(table: LoadedTable, name: str) -> None:
+    """Refuse a target that names no column of the table, as the command line does."""
+    from workbench.data.profiling import check_column
+
+    check_column(table.df, name)
+
+
+def no_target_error(table: LoadedTable) -> InputError:
+    """The table has no suggested target: why, as an error about the target setting."""
+    return InputError(table.profile.suggestion_reason or "choose the target", setting="target")
+
+
+def suggestion_text(table: LoadedTable) -> str:
+    """Why the suggested target was suggested, as one sentence for the set-up column."""
+    why = table.profile.suggestion_reason
+    return (why[:1].upper() + why[1:] + ".") if why else ""
+
+
+def kind_choices() -> tuple[str, ...]:
+    """The target kinds the user may choose (the core's list)."""
+    from workbench.data.profiling import KINDS
+
+    return KINDS
+
+
+def ambiguity_text(info) -> str:
+    """The ambiguity note of integer codes (empty when the target is not ambiguous)."""
+    if not getattr(info, "ambiguous", False):
+        return ""
+    text = info.ambiguity[:1].upper() + info.ambiguity[1:]
+    other = ", ".join(k.replace("_", "-") for k in info.alternatives)
+    return f"⚠ {text} Also fits: {other} (the “Kind” box)."
 
 
 def evidence_text(info) -> str:
@@ -189,7 +233,9 @@ def build_plan(table: LoadedTable, summary: TargetSummary, choices: dict,
     """The core's :class:`SweepPlan` for the window's choices (InputError when impossible).
 
     ``roles`` is the profile table's ``{column: role}``; the columns whose role
-    differs from the intake's profile (:func:`user_roles`) go into the plan's ``roles``.
+    differs from the intake's profile (:func:`user_roles`) go into the plan's ``roles``
+    (the core applies them with ``TableProfile.with_roles`` and refuses a table left
+    with no feature). The target kind set in the window is ``summary.target``'s.
     """
     from workbench.sweep.plan import build_plan as core_build_plan
 
@@ -205,6 +251,7 @@ def build_plan(table: LoadedTable, summary: TargetSummary, choices: dict,
         if bad:
             raise InputError(f"{what} {bad[0]!r} is not a number; write e.g. 0.001 0.01",
                              setting=setting)
+    changed = user_roles(table, roles, info.name) if roles else {}
     plan = core_build_plan(
         table.path, info.name, hidden=list(choices["hidden"]), output=list(choices["heads"]),
         layers=list(choices.get("layers") or ["32"]),
@@ -212,13 +259,8 @@ def build_plan(table: LoadedTable, summary: TargetSummary, choices: dict,
         alphas=list(choices.get("alphas") or []) or None,
         folds=int(choices["folds"]), repeats=int(choices["repeats"]),
         epochs=int(choices["epochs"]), early_stopping=bool(choices.get("early_stopping")),
-        metric=choices.get("metric") or None, df=table.df, target_info=info)
-    if roles:
-        changed = user_roles(table, roles, info.name)
-        if changed:
-            table.profile.with_roles(changed)  # the core's rule refuses what it cannot use
-            plan.roles = changed
-            plan.validate()
+        metric=choices.get("metric") or None, df=table.df, target_info=info,
+        roles=changed, profile=table.profile)
     return plan
 
 

@@ -95,6 +95,9 @@ class MainWindow(QMainWindow):
     loadFailed = Signal(str)
     #: the target summary for the current target is shown
     targetReady = Signal(str)
+    #: no target could be analysed: the InputError that says why (a target that names no
+    #: column, a table with no clear target, a column that cannot be a target)
+    targetFailed = Signal(object)
     #: a sweep ended: {"state": "finished" | "cancelled" | "failed", "sweep_id", "message"}
     sweepEnded = Signal(dict)
     #: an export finished (its folder) or failed (message)
@@ -118,6 +121,7 @@ class MainWindow(QMainWindow):
         self._progress = {"done": 0, "total": 0, "best": None, "t0": None, "running": 0}
         self._close_after_stop = False
         self._speed: float | None = None
+        self._plan_ok = False
         self._theme_choice = theme_choice or self.settings.theme()
         self.theme = th.resolve(self._theme_choice)
 
@@ -244,6 +248,7 @@ class MainWindow(QMainWindow):
         ll.addWidget(self.setup.footer)
         root.addWidget(left)
         self.setup.targetChosen.connect(self.set_target)
+        self.setup.kindChosen.connect(self._kind_chosen)
         self.setup.planChanged.connect(self._update_estimate)
         self.setup.runRequested.connect(self.run_sweep)
 
@@ -512,6 +517,8 @@ class MainWindow(QMainWindow):
     def _table_loaded(self, table: core.LoadedTable, target: str | None) -> None:
         self.banner.hide_message()
         self.table = table
+        self.summary = None
+        self.setup.set_target_summary(None)
         self.settings.add_recent_file(table.path)
         self.settings.set_last_folder(str(Path(table.path).resolve().parent))
         self.frame_model.set_frame(table.df)
@@ -527,40 +534,79 @@ class MainWindow(QMainWindow):
             f"Loaded {table.name}: {table.report.rows:,} rows, {table.report.columns} columns "
             f"in {getattr(table.report, 'seconds', 0.0):.2f} s.", 6000)
         self.tableLoaded.emit(table.path)
+        if target is not None:
+            try:
+                core.check_target(table, target)
+            except core.InputError as exc:  # refused as on the command line: no sweep
+                self.profile_model.set_target("")
+                self.setup.ask_for_target(phrase(exc))
+                self.show_message(phrase(exc))
+                self._update_estimate()
+                self.targetFailed.emit(exc)
+                return
+        if not self.setup.target():  # no column is clearly the target: ask
+            self.setup.ask_for_target(core.suggestion_text(table))
+            self._update_estimate()
+            self.targetFailed.emit(core.no_target_error(table))
+            return
         self.set_target(self.setup.target())
 
-    def set_target(self, name: str) -> None:
-        """Analyse ``name`` as the target (in the background) and show its kind and advice."""
+    def _kind_chosen(self, kind: str | None) -> None:
+        """The user set the target kind (None: the detected one): analyse the target again."""
+        if self.summary is not None:
+            self.set_target(self.summary.target.name, kind)
+
+    def set_target(self, name: str, kind: str | None = None) -> None:
+        """Analyse ``name`` as the target (in the background) and show its kind and advice.
+
+        ``kind`` is a target kind set by the user (None: the detected kind). A kind the
+        values cannot have is refused with the core's message, and the target keeps the
+        kind it had.
+        """
         if self.table is None or not name:
             return
         if self.setup.target() != name:
             self.setup.target_combo.blockSignals(True)
             self.setup.target_combo.setCurrentText(name)
             self.setup.target_combo.blockSignals(False)
+        self.setup.set_attention(False)
         self.profile_model.set_target(name)
         self._target_generation += 1
         gen = self._target_generation
         df = self.table.df
+        previous = self.summary if (self.summary is not None
+                                    and self.summary.target.name == name) else None
 
-        def done(summary):
+        def done(result):
             if gen != self._target_generation:
                 return
-            self.summary = summary
-            self.setup.set_target_summary(summary)
+            if isinstance(result, core.InputError):
+                self.show_message(phrase(result))
+                if result.setting == "kind" and previous is not None:
+                    self.setup.set_target_summary(previous)  # the “Kind” box goes back
+                    return
+                failed_with(result)
+                return
+            self.summary = result
+            self.setup.set_target_summary(result)
             self._update_estimate()
             self._update_actions()
             self.targetReady.emit(name)
 
-        def failed(msg):
-            if gen != self._target_generation:
-                return
+        def failed_with(exc):
             self.summary = None
             self.setup.set_target_summary(None)
-            self.show_message(msg)
             self._update_estimate()
             self._update_actions()
+            self.targetFailed.emit(exc)
 
-        run_task(lambda: core.summarise_target(df, name), done, failed)
+        def failed(msg):  # an unexpected problem (the core's InputError comes back in done)
+            if gen != self._target_generation:
+                return
+            self.show_message(msg)
+            failed_with(core.InputError(msg))
+
+        run_task(lambda: core.summarise_or_refuse(df, name, kind), done, failed)
 
     def _role_changed(self, column: str, role: str, previous: str) -> None:
         """The user picked a role in the column profile: the core applies it or refuses it."""
@@ -590,6 +636,7 @@ class MainWindow(QMainWindow):
 
     def _update_estimate(self) -> None:
         plan, msg = self._plan()
+        self._plan_ok = plan is not None
         if plan is None:
             self.setup.set_estimate(msg, False)
         else:
@@ -925,28 +972,48 @@ class MainWindow(QMainWindow):
             return
         same = self.table is not None and \
             Path(self.table.path).resolve() == Path(table).resolve()
-        if same and self.summary is not None and self.summary.target.name == plan.get("target"):
+        if same and self._summary_matches(plan):
             self.setup.apply_plan(plan)
             return
-        if not Path(table).is_file():
+        if not same and not Path(table).is_file():
             self.show_message(f"the table of this sweep, {table}, is no longer there; its "
                               "results are shown, but it cannot be resumed from here")
             return
 
-        def ready(_name, plan=plan):
-            self.targetReady.disconnect(ready)
+        def apply(_name=None, plan=plan):
+            self.targetReady.disconnect(apply)
             self.setup.apply_plan(plan)
 
-        self.targetReady.connect(ready)
-        self.open_path(table, plan.get("target"))
+        def with_kind(_name=None, plan=plan):  # the table is shown: now the plan's kind
+            self.targetReady.disconnect(with_kind)
+            if self._summary_matches(plan):
+                self.setup.apply_plan(plan)
+                return
+            self.targetReady.connect(apply)
+            self.set_target(plan.get("target"), plan.get("kind"))
+
+        if same:
+            with_kind()
+        else:
+            self.targetReady.connect(with_kind)
+            self.open_path(table, plan.get("target"))
+
+    def _summary_matches(self, plan: dict) -> bool:
+        """The shown target is the plan's, with the plan's kind (set by the user or not)."""
+        s = self.summary
+        if s is None or s.target.name != plan.get("target"):
+            return False
+        if plan.get("kind") is None:
+            return not s.target.kind_set_by_user
+        return s.target.kind_set_by_user and s.target.kind == plan["kind"]
 
     # ================================================================== state
     def _update_actions(self) -> None:
         running = self.sweep_running()
-        plan_ok = self.table is not None and self.summary is not None
+        # Run only for a plan the core accepts (the estimate shows why not)
+        plan_ok = self.table is not None and self.summary is not None and self._plan_ok
         self.run_action.setEnabled(plan_ok and not running)
-        self.setup.run_button.setEnabled(plan_ok and not running
-                                         and self.setup.estimate_label.text() != "")
+        self.setup.run_button.setEnabled(plan_ok and not running)
         self.stop_action.setEnabled(running)
         self.export_action.setEnabled(not running and self.results_model.rowCount() > 0)
         self.open_action.setEnabled(not running)

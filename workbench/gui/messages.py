@@ -21,7 +21,7 @@ SETTING_LABELS = {
     "table": "choose the table with File ▸ “Open table…” (Ctrl+O) or drop it on the window",
     "sheet": "the window reads the first worksheet of a workbook",
     "target": "set with the “Target” box in the set-up column",
-    "kind": "the window uses the kind it detected, shown under “Target”",
+    "kind": "set with the “Kind” box under “Target”",
     "roles": "set in the “Role” column of the column profile, on the “Data” tab",
     "hidden": "set with the “Hidden layers” boxes in the set-up column",
     "heads": "set with the “Output heads” boxes in the set-up column",

@@ -38,12 +38,16 @@ class SetupPane(QWidget):
     -------
     targetChosen(str)
         the user picked another target column.
+    kindChosen(object)
+        the user picked a target kind in the “Kind” box (a kind name, or None for
+        the detected kind).
     planChanged()
         any choice that changes the plan's size changed.
     runRequested()
     """
 
     targetChosen = Signal(str)
+    kindChosen = Signal(object)
     planChanged = Signal()
     runRequested = Signal()
 
@@ -67,8 +71,18 @@ class SetupPane(QWidget):
         self.target_combo.setMinimumContentsLength(10)
         self.target_combo.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
         self.target_combo.setToolTip("The column to predict")
+        self.target_combo.setPlaceholderText("choose the target…")
         self.target_combo.currentTextChanged.connect(self._target_changed)
         row.addWidget(self.target_combo, 1)
+        # why this target was suggested (muted), or the question when none was (a hint)
+        self.target_note = QLabel("")
+        self.target_note.setObjectName("muted")
+        self.target_note.setWordWrap(True)
+        self.target_note.hide()
+        self.target_prompt = QLabel("")
+        self.target_prompt.setObjectName("hint")
+        self.target_prompt.setWordWrap(True)
+        self.target_prompt.hide()
         self.kind_badge = QLabel("")
         self.kind_badge.setObjectName("kindBadge")
         self.kind_badge.hide()
@@ -76,9 +90,24 @@ class SetupPane(QWidget):
         self.kind_title = QLabel("Detected kind")
         self.kind_title.setObjectName("muted")
         self.kind_title.hide()
+        self.kind_label = QLabel("Kind")
+        self.kind_label.hide()
+        self.kind_combo = QComboBox()
+        self.kind_combo.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
+        self.kind_combo.setMinimumContentsLength(9)
+        self.kind_combo.setToolTip("Use another target kind than the detected one (refused when "
+                                   "the target's values cannot have it)")
+        self.kind_combo.hide()
+        self.kind_combo.activated.connect(self._kind_activated)
         kind_row.addWidget(self.kind_title)
         kind_row.addWidget(self.kind_badge)
         kind_row.addStretch(1)
+        kind_row.addWidget(self.kind_label)
+        kind_row.addWidget(self.kind_combo)
+        self.ambiguity_label = QLabel("")
+        self.ambiguity_label.setObjectName("hint")
+        self.ambiguity_label.setWordWrap(True)
+        self.ambiguity_label.hide()
         self.evidence_label = QLabel("")
         self.evidence_label.setObjectName("muted")
         self.evidence_label.setWordWrap(True)
@@ -88,7 +117,10 @@ class SetupPane(QWidget):
         for w in (self.file_label, self.shape_label):
             s1.body.addWidget(w)
         s1.body.addLayout(row)
+        s1.body.addWidget(self.target_prompt)
+        s1.body.addWidget(self.target_note)
         s1.body.addLayout(kind_row)
+        s1.body.addWidget(self.ambiguity_label)
         s1.body.addWidget(self.evidence_label)
         s1.body.addWidget(self.advice_label)
         lay.addWidget(s1)
@@ -236,8 +268,16 @@ class SetupPane(QWidget):
 
     # ------------------------------------------------------------------ table
     def set_table(self, table: core.LoadedTable | None, target: str | None = None) -> None:
+        """Show a loaded table and preselect its target.
+
+        The target is ``target`` when it names a column, else the profile's suggested
+        target; a ``target`` that names no column, or a table with no suggestion,
+        leaves the target box empty (the window then asks, :meth:`ask_for_target`).
+        """
         self.target_combo.blockSignals(True)
         self.target_combo.clear()
+        self.set_attention(False)
+        self.target_note.hide()
         if table is None:
             self.file_label.setText("Drop a CSV, Excel or Parquet file here, or press Ctrl+O.")
             self.shape_label.setText("")
@@ -255,23 +295,66 @@ class SetupPane(QWidget):
             self._texts_changed()
             names = [c["name"] for c in table.columns]
             self.target_combo.addItems(names)
-            pick = target or table.profile.suggested_target or (names[-1] if names else "")
+            pick = target if target is not None else table.profile.suggested_target
             if pick in names:
                 self.target_combo.setCurrentText(pick)
+                if target is None:
+                    self.target_note.setText(core.suggestion_text(table))
+                    self.target_note.show()
+            else:
+                self.target_combo.setCurrentIndex(-1)
         self.target_combo.blockSignals(False)
+
+    def ask_for_target(self, text: str) -> None:
+        """No target is chosen: highlight the target box and say why in one line."""
+        self.target_prompt.setText(text)
+        self.target_prompt.show()
+        self.target_note.hide()
+        self.set_attention(True)
+        self._texts_changed()
+
+    def set_attention(self, on: bool) -> None:
+        """Highlight the target box (the style sheet's ``attention`` property)."""
+        if not on:
+            self.target_prompt.hide()
+        if bool(self.target_combo.property("attention")) != on:
+            self.target_combo.setProperty("attention", on)
+            self.target_combo.style().unpolish(self.target_combo)
+            self.target_combo.style().polish(self.target_combo)
 
     def _target_changed(self, name: str) -> None:
         if name:
+            self.set_attention(False)
+            self.target_note.hide()
             self.targetChosen.emit(name)
 
     def target(self) -> str:
         return self.target_combo.currentText()
 
+    def kind(self) -> str | None:
+        """The kind set in the “Kind” box, or None for the detected kind."""
+        return self.kind_combo.currentData()
+
+    def _kind_activated(self, _index: int) -> None:
+        self.kindChosen.emit(self.kind())
+
+    def _show_kind(self, info) -> None:
+        """The detected kind in the badge, the kind in use in the “Kind” box."""
+        self.kind_combo.blockSignals(True)
+        self.kind_combo.clear()
+        self.kind_combo.addItem("detected", None)
+        for k in core.kind_choices():
+            self.kind_combo.addItem(k.replace("_", "-"), k)
+        if info.kind_set_by_user:
+            self.kind_combo.setCurrentIndex(self.kind_combo.findData(info.kind))
+        self.kind_combo.blockSignals(False)
+
     def set_target_summary(self, summary: core.TargetSummary | None) -> None:
         self._summary = summary
         if summary is None:
-            self.kind_badge.hide()
-            self.kind_title.hide()
+            for w in (self.kind_badge, self.kind_title, self.kind_label, self.kind_combo,
+                      self.ambiguity_label):
+                w.hide()
             self.evidence_label.setText("")
             self.advice_label.setText("")
             self.head_grid.set_items([])
@@ -279,10 +362,17 @@ class SetupPane(QWidget):
             self._set_metrics("classification", None)
             return
         info, adv = summary.target, summary.advice
-        self.kind_badge.setText(info.kind.replace("_", "-"))
-        self.kind_badge.setToolTip(f"{info.task}: detected target kind")
-        self.kind_badge.show()
-        self.kind_title.show()
+        self.set_attention(False)
+        self.kind_badge.setText(info.detected_kind.replace("_", "-"))
+        self.kind_badge.setToolTip(f"{info.task}: detected target kind" if not
+                                   info.kind_set_by_user else
+                                   f"detected kind; the sweep uses {info.kind} ({info.task}), "
+                                   "set in the “Kind” box")
+        self._show_kind(info)
+        for w in (self.kind_badge, self.kind_title, self.kind_label, self.kind_combo):
+            w.show()
+        self.ambiguity_label.setText(core.ambiguity_text(info))
+        self.ambiguity_label.setVisible(bool(info.ambiguous))
         self.evidence_label.setText(core.evidence_text(info))
         self.advice_label.setText(
             f"Advised head: <b>{_escape(adv.output_head)}</b> with {_escape(adv.loss.replace('_', ' '))}"
