@@ -199,7 +199,8 @@ def test_window_without_a_display_is_one_line(monkeypatch, capsys):
 def test_runaway_scores_keep_the_table_narrow(swept):
     res = json.loads(json.dumps(swept["res"]))
     worst = res["configurations"][-1]
-    worst.update(mean=-82106246831161.53, sd=2396889588259.4258, train_test_gap=-1.585e13)
+    worst.update(mean=-82106246831161.53, sd=2396889588259.4258, train_test_gap=-1.585e13,
+                 underfit=False)  # an underfit configuration's gap reads "underfit"
     text = format_results(res)
     assert "-8.211e+13 ± 2.397e+12" in text and "-1.585e+13" in text
     normal = max(len(line) for line in format_results(swept["res"]).splitlines())

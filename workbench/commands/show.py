@@ -1,10 +1,12 @@
-"""``workbench show SWEEP_ID [--store PATH] [--json] [--holm]``.
+"""``workbench show SWEEP_ID [--store PATH] [--json] [--holm] [--rope R]``.
 
-Prints one stored sweep's ranked results: the same table as ``workbench sweep``
-prints at the end, or with ``--json`` the same JSON object that
-``workbench sweep --json`` writes (documented in README.md, section
-"Sweep results as JSON"). Exit status 0, or 2 for an unknown sweep or an
-unreadable store.
+Prints one stored sweep's results: the verdict on the rules of thumb above the
+ranked table and the baselines, the same as ``workbench sweep`` prints at the
+end, or with ``--json`` the same JSON object that ``workbench sweep --json``
+writes (documented in README.md, section "Sweep results as JSON"). ``--rope``
+sets the region of practical equivalence the decisions use (it is not stored
+with the sweep; default per metric). Exit status 0, or 2 for an unknown sweep,
+an unreadable store or a bad ``--rope``.
 """
 
 from __future__ import annotations
@@ -28,6 +30,16 @@ def add_arguments(parser):
     parser.add_argument("--json", action="store_true", help="print the results as one JSON object")
     parser.add_argument("--holm", action="store_true",
                         help="judge ties with Holm's correction for the number of comparisons")
+    add_rope_argument(parser)
+
+
+def add_rope_argument(parser):
+    """``--rope R``, shared by ``show`` and ``sweep``."""
+    parser.add_argument("--rope", metavar="R", default=None,
+                        help="half-width of the region of practical equivalence, in the "
+                             "metric's units: differences within it do not matter (default: "
+                             "0.01 for accuracy, ROC AUC, R2 and other scores on [0, 1]; 1%% "
+                             "of the constant baseline's score for error scores)")
 
 
 def _fmt(v, spec=".4f"):
@@ -51,67 +63,145 @@ def _table(head: list[str], rows: list[list[str]]) -> list[str]:
     return lines
 
 
-def format_results(res: dict, width: int = 100) -> str:
-    """The ranked results as a text table that fits ``width`` columns in the usual sweeps.
+def _decision(c):
+    return c.get("decision") or "-"
 
-    The tie group is marked with ``=`` beside the rank. A learning rate or L2
-    strength shared by every configuration is named once above the table
-    instead of in a column, and the status column appears only when some
-    configuration is not ``done``.
-    """
-    cfgs = res["configurations"]
-    lrs = {f"{c['learning_rate']:g}" for c in cfgs}
-    alphas = {f"{c['alpha']:g}" for c in cfgs}
-    show_status = any(c["status"] != "done" for c in cfgs)
-    cols = [("rank", lambda c: f"{c['rank']} =" if c["tied_with_best"] else str(c["rank"])),
-            ("hidden", lambda c: c["hidden"]), ("head", lambda c: c["head"]),
-            ("layers", lambda c: ",".join(map(str, c["layers"])))]
-    if len(lrs) > 1:
-        cols.append(("lr", lambda c: f"{c['learning_rate']:g}"))
-    if len(alphas) > 1:
-        cols.append(("alpha", lambda c: f"{c['alpha']:g}"))
+
+def _gap(c):
+    return "underfit" if c.get("underfit") else _fmt(c["train_test_gap"], "+.3f")
+
+
+def _epochs(c):
+    v = c.get("mean_epochs")
+    return "-" if v is None else f"{v:.0f}"
+
+
+#: optional columns left out, in this order, while the table is wider than asked
+_DROPPABLE = ("fit s", "engine", "sat", "dead")
+
+
+def _columns(cfgs: list[dict]) -> tuple[list, list[str]]:
+    """The table's columns ``[(header, cell(config), cell(baseline))]`` and the settings
+    shared by every configuration (named once above the table instead)."""
+    shared, cols = [], [("rank", lambda c: f"{c['rank']} =" if c["tied_with_best"]
+                         else str(c["rank"]),
+                         lambda b: "ref =" if b.get("tied_with_best") else "ref"),
+                        ("hidden", lambda c: c["hidden"], lambda b: b["name"])]
+    columns = (("head", "head", str, "head"),
+               ("layers", "layers", lambda v: ",".join(map(str, v)), "layers"),
+               ("lr", "learning_rate", lambda v: f"{v:g}", "learning rate"),
+               ("alpha", "alpha", lambda v: f"{v:g}", "alpha"))
+    for header, key, text, _ in columns:
+        if len({text(c[key]) for c in cfgs}) > 1:
+            cols.append((header, lambda c, k=key, t=text: t(c[k]), lambda b: "-"))
+    # named once above the table: the learning rate and alpha first, then head and layers
+    for _, key, text, words in (columns[2], columns[3], columns[0], columns[1]):
+        values = {text(c[key]) for c in cfgs}
+        if len(values) == 1:
+            shared.append(f"{words} {next(iter(values))}")
     cols += [("mean ± sd", lambda c: "-" if c["mean"] is None
-              else f"{_fmt(c['mean'])} ± {_fmt(c['sd'])}"),
+              else f"{_fmt(c['mean'])} ± {_fmt(c['sd'])}", None),
              ("p", lambda c: "<0.001" if c["p_value"] is not None and 0 <= c["p_value"] < 5e-4
-              else _fmt(c["p_value"], ".3f")),
-             ("gap", lambda c: _fmt(c["train_test_gap"], "+.3f")),
-             ("fit s", lambda c: _fmt(c["mean_fit_seconds"], ".2f")),
-             ("dead", lambda c: _pct(c["dead"])), ("sat", lambda c: _pct(c["saturated"])),
-             ("engine", lambda c: c["engine"])]
-    if show_status:
-        cols.append(("status", lambda c: c["status"]))
-    rows = [[f(c) for _, f in cols] for c in cfgs]
+              else _fmt(c["p_value"], ".3f"), None),
+             ("decision", _decision, None),
+             ("gap", _gap, lambda b: "-"),
+             ("epochs", _epochs, lambda b: "-"),
+             ("fit s", lambda c: _fmt(c["mean_fit_seconds"], ".2f"), lambda b: "-"),
+             ("dead", lambda c: _pct(c["dead"]), lambda b: "-"),
+             ("sat", lambda c: _pct(c["saturated"]), lambda b: "-")]
+    engines = {c["engine"] for c in cfgs}
+    if len(engines) > 1:
+        cols.append(("engine", lambda c: c["engine"], lambda b: "sklearn"))
+    elif engines:
+        shared.append(f"engine {next(iter(engines))}")
+    if any(c["status"] != "done" for c in cfgs):
+        cols.append(("status", lambda c: c["status"], None))
+    # baselines read the configuration cells unless their own is given
+    return [(h, f, g if g is not None else f) for h, f, g in cols], shared
 
-    def wrap(text):
+
+def format_results(res: dict, width: int = 100) -> str:
+    """The verdict, the ranked table and the baselines as text that fits ``width`` columns
+    in the usual sweeps.
+
+    The verdict's words come from :func:`workbench.sweep.results.verdict_statements`
+    (the same in every view). In the table the tie group is marked with ``=``
+    beside the rank and the Bayesian decision against the best has its own column;
+    the gap says ``underfit`` when the training score itself is poor. A head,
+    layer shape, learning rate, L2 strength or engine shared by every
+    configuration is named once above the table instead of in a column; the
+    status column appears only when some configuration is not ``done``. When
+    the table is still too wide, the fit time, engine, saturated and dead
+    columns are left out (in that order) and a line says so. The baselines
+    follow the configurations as reference rows (``ref``).
+    """
+    from workbench.sweep.results import verdict_heading, verdict_statements
+
+    cfgs = res["configurations"]
+    baselines = [b for b in res.get("baselines") or [] if b.get("mean") is not None]
+    cols, shared = _columns(cfgs)
+
+    def wrap(text, indent="  "):
         return textwrap.wrap(text, width=width, break_on_hyphens=False,
-                             subsequent_indent="  ")
+                             break_long_words=False, subsequent_indent=indent)
 
-    shared = []
-    if len(lrs) == 1:
-        shared.append(f"learning rate {next(iter(lrs))}")
-    if len(alphas) == 1:
-        shared.append(f"alpha {next(iter(alphas))}")
-    lines = [f"sweep {res['sweep_id']} ({res['state']}): {res['n_stored']}/{res['n_trials']} "
-             "trials stored"]
-    lines += wrap(f"target {res['target']} ({res['target_kind']}) in {res['table']}")
-    lines += wrap(f"metric {res['metric']} (greater is better)"
-                  + (f"; every configuration: {', '.join(shared)}" if shared else ""))
-    lines += _table([h for h, _ in cols], rows)
+    def render(columns):
+        rows = [[f(c) for _, f, _ in columns] for c in cfgs]
+        refs = [[g(b) for _, _, g in columns] for b in baselines]
+        return _table([h for h, _, _ in columns], rows + refs), len(rows)
+
+    dropped = []
+    lines, n_rows = render(cols)
+    for name in _DROPPABLE:
+        if max(len(line) for line in lines) <= width:
+            break
+        if any(h == name for h, _, _ in cols):
+            cols = [col for col in cols if col[0] != name]
+            dropped.append(name)
+            lines, n_rows = render(cols)
+    if baselines:  # a rule between the configurations and the reference rows
+        lines.insert(2 + n_rows, lines[1])
+
+    out = [f"sweep {res['sweep_id']} ({res['state']}): {res['n_stored']}/{res['n_trials']} "
+           "trials stored"]
+    out += wrap(f"target {res['target']} ({res['target_kind']}) in {res['table']}")
+    out += wrap(f"metric {res['metric']} (greater is better)"
+                + (f"; every configuration: {', '.join(shared)}" if shared else ""))
+    if "verdict" in res:
+        out.append("")
+        out += wrap(verdict_heading(res), indent="")
+        for s in verdict_statements(res):
+            out += wrap(f"  {s['label']}: {s['text']}", indent="      ")
+    out.append("")
+    out += lines
     n_tied = sum(1 for c in cfgs if c["tied_with_best"])
     corr = " with Holm's correction" if res["correction"] == "holm" else ""
-    lines += wrap("mean ± sd of the fold scores; p = Nadeau-Bengio corrected t-test against the "
-                  "best; gap = mean training score minus mean test score (overfitting shows as "
-                  "a large positive gap); dead / sat = mean share of dead / saturated hidden "
-                  "units.")
-    lines += wrap(f"= tied with the best: not distinguishable at alpha "
-                  f"{res['significance_level']:g}{corr} ({n_tied} configuration(s) in the tie "
-                  f"group, {res['n_comparisons']} comparison(s) with the best).")
-    return "\n".join(lines)
+    rope = res.get("rope")
+    out += wrap("mean ± sd of the fold scores; p = Nadeau-Bengio corrected t-test against the "
+                "best; decision = Bayesian correlated t-test against the best: equivalent "
+                "(or worse) when P >= 0.95 that the difference is within (or below) "
+                + (f"±{rope:.4g}" if rope is not None else "the region of practical "
+                   "equivalence") + ", otherwise undecided; gap = mean training score minus "
+                "mean test score (overfitting shows as a large positive gap; underfit: the "
+                "training score itself is more than that region below the linear baseline's "
+                "test score); epochs = epochs run, mean over folds; dead / sat = mean share of "
+                "dead / saturated hidden units.")
+    out += wrap(f"= tied with the best: not distinguishable at alpha "
+                f"{res['significance_level']:g}{corr} ({n_tied} configuration(s) in the tie "
+                f"group, {res['n_comparisons']} comparison(s) with the best).")
+    if baselines:
+        out += wrap("ref = baselines on the same folds, preprocessing and metric, compared "
+                    "with the best network: "
+                    + "; ".join(f"{b['name']} {b['estimator']}" for b in baselines) + ".")
+    if dropped:
+        out += wrap(f"left out to fit {width} columns: {', '.join(dropped)} (in the JSON "
+                    "results).")
+    return "\n".join(out)
 
 
 def run(args) -> int:
     with Store(existing_store_path(args.store)) as store:
-        res = sweep_results(store, args.sweep_id, holm=args.holm)
+        res = sweep_results(store, args.sweep_id, holm=args.holm, rope=args.rope)
     if args.json:
         json.dump(res, sys.stdout, indent=2, allow_nan=False)
         sys.stdout.write("\n")

@@ -79,6 +79,9 @@ def add_arguments(parser):
     parser.add_argument("--seed", type=int, metavar="S", default=0, help="seed of folds and weights (default 0)")
     parser.add_argument("--holm", action="store_true",
                         help="judge ties with Holm's correction for the number of comparisons")
+    from workbench.commands.show import add_rope_argument
+
+    add_rope_argument(parser)
     parser.add_argument("--json", metavar="OUT", default=None,
                         help="write the full results as JSON to OUT ('-' for stdout)")
     parser.add_argument("--resume", metavar="SWEEP_ID", default=None,
@@ -188,11 +191,13 @@ def _write_json(res: dict, out: str) -> None:
 
 def run(args) -> int:
     from workbench.commands.show import format_results
+    from workbench.sweep.bayes import check_rope
     from workbench.sweep.plan import build_plan
     from workbench.sweep.results import sweep_results
     from workbench.sweep.runner import run_sweep
     from workbench.sweep.store import Store
 
+    rope = None if args.rope is None else check_rope(args.rope)  # refused before any trial
     if args.resume is None:
         if args.file is None:
             raise InputError("name the table: workbench sweep FILE --target COL "
@@ -231,7 +236,7 @@ def run(args) -> int:
             else:
                 print("\nworkbench: cancelled", file=sys.stderr)
             return EXIT_CANCELLED
-        res = sweep_results(store, outcome.sweep_id, holm=args.holm)
+        res = sweep_results(store, outcome.sweep_id, holm=args.holm, rope=rope)
     finally:
         store.close()
     if args.json:
