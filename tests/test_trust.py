@@ -214,3 +214,296 @@ def test_a_damaged_skops_file_is_one_line(export, tmp_path, capsys, damage):
     assert main(["predict", str(folder), str(export[1])]) == 2
     err = one_line(capsys.readouterr().err)
     assert mf.SKOPS_NAME in err
+
+
+# --------------------------------------------------------------------------- ONNX: labels and damage
+
+
+def test_onnx_labels_come_from_the_model_not_the_manifest(export, tmp_path, capsys):
+    import joblib
+    import onnx
+
+    folder, table, X = export
+    pipe = joblib.load(folder / mf.JOBLIB_NAME)
+    model = onnx.load(str(folder / mf.ONNX_NAME))
+    meta = {p.key: p.value for p in model.metadata_props}
+    assert json.loads(meta["workbench.classes"]) == [str(c) for c in pipe.classes_]
+    out = tmp_path / "honest.csv"
+    assert main(["predict", str(folder), str(table), "--onnx", "--out", str(out)]) == 0
+    # a manifest claiming one class for this two-class model changes nothing
+    forged = shutil.copytree(folder, tmp_path / "forged")
+    manifest = json.loads((forged / mf.MANIFEST_NAME).read_text())
+    manifest["classes"] = ["a"]
+    (forged / mf.MANIFEST_NAME).write_text(json.dumps(manifest))
+    out2 = tmp_path / "forged.csv"
+    assert main(["predict", str(forged), str(table), "--onnx", "--out", str(out2)]) == 0
+    assert out2.read_bytes() == out.read_bytes()
+    header = out.read_text().splitlines()[0].split(",")
+    assert header == ["prediction"] + [f"probability_{c}" for c in pipe.classes_] + ["reason"]
+
+
+def _rewrite_onnx(folder: Path, change) -> None:
+    import onnx
+
+    model = onnx.load(str(folder / mf.ONNX_NAME))
+    change(model)
+    onnx.save(model, str(folder / mf.ONNX_NAME))
+    rehash(folder, mf.ONNX_NAME)
+
+
+def _set_meta(key, value):
+    def change(model):
+        for p in model.metadata_props:
+            if p.key == key:
+                p.value = value
+    return change
+
+
+def _drop_meta(key):
+    def change(model):
+        keep = [(p.key, p.value) for p in model.metadata_props if p.key != key]
+        del model.metadata_props[:]
+        for k, v in keep:
+            model.metadata_props.add(key=k, value=v)
+    return change
+
+
+def _drop_first_node(model):
+    del model.graph.node[0]
+
+
+def _external_tensor(model):
+    import onnx
+
+    t = model.graph.initializer[0]
+    t.data_location = onnx.TensorProto.EXTERNAL
+    t.external_data.add(key="location", value="../../secret.bin")
+
+
+def _truncate(folder: Path) -> None:
+    data = (folder / mf.ONNX_NAME).read_bytes()
+    (folder / mf.ONNX_NAME).write_bytes(data[: len(data) // 3])
+    rehash(folder, mf.ONNX_NAME)
+
+
+def _garbage(folder: Path) -> None:
+    (folder / mf.ONNX_NAME).write_bytes(bytes(range(256)) * 8)
+    rehash(folder, mf.ONNX_NAME)
+
+
+ONNX_DAMAGE = {
+    "truncated": _truncate,
+    "garbage": _garbage,
+    "graph-broken": lambda f: _rewrite_onnx(f, _drop_first_node),
+    "external-data": lambda f: _rewrite_onnx(f, _external_tensor),
+    "one-class-listed": lambda f: _rewrite_onnx(f, _set_meta("workbench.classes", '["a"]')),
+    "classes-not-json": lambda f: _rewrite_onnx(f, _set_meta("workbench.classes", "[a")),
+    "classes-missing": lambda f: _rewrite_onnx(f, _drop_meta("workbench.classes")),
+    "columns-not-json": lambda f: _rewrite_onnx(f, _set_meta("workbench.columns", "{")),
+    "columns-wrong": lambda f: _rewrite_onnx(f, _set_meta("workbench.columns", '[{"x": 1}]')),
+}
+
+
+@pytest.mark.parametrize("damage", list(ONNX_DAMAGE))
+def test_a_damaged_onnx_file_is_one_line(export, tmp_path, capsys, damage):
+    folder = shutil.copytree(export[0], tmp_path / "damaged")
+    ONNX_DAMAGE[damage](folder)
+    out = tmp_path / "pred.csv"
+    assert main(["predict", str(folder), str(export[1]), "--onnx", "--out", str(out)]) == 2
+    err = one_line(capsys.readouterr().err)
+    assert "ONNX" in err or mf.ONNX_NAME in err
+    if damage == "external-data":  # refused by the check, before onnxruntime sees it
+        assert "outside the file" in err
+    assert not out.exists()
+
+
+MANIFEST_DAMAGE = {
+    "not-json": b'{"format": "activation-workbench-export", ',
+    "not-utf8": b"\xff\xfe\x00garbage",
+    "deep": b"[" * 100000 + b"]" * 100000,
+    "digest-a-number": None,  # filled below from the real manifest
+    "files-a-list": None,
+    "no-format": None,
+}
+
+
+@pytest.mark.parametrize("flag", [[], ["--joblib"], ["--onnx"]], ids=["skops", "joblib", "onnx"])
+@pytest.mark.parametrize("damage", list(MANIFEST_DAMAGE))
+def test_a_damaged_manifest_is_one_line(export, tmp_path, capsys, damage, flag):
+    folder = shutil.copytree(export[0], tmp_path / "damaged")
+    path = folder / mf.MANIFEST_NAME
+    manifest = json.loads(path.read_text())
+    if damage == "digest-a-number":
+        manifest["files"][mf.SKOPS_NAME]["sha256"] = 5
+        manifest["files"][mf.JOBLIB_NAME]["sha256"] = 5
+        manifest["files"][mf.ONNX_NAME]["sha256"] = 5
+    elif damage == "files-a-list":
+        manifest["files"] = list(manifest["files"])
+    elif damage == "no-format":
+        del manifest["format"]
+    data = MANIFEST_DAMAGE[damage]
+    path.write_bytes(data if data is not None else json.dumps(manifest).encode())
+    assert main(["predict", str(folder), str(export[1]), *flag]) == 2
+    err = one_line(capsys.readouterr().err)
+    assert mf.MANIFEST_NAME in err
+
+
+# --------------------------------------------------------------------------- the optional signature
+
+#: RFC 4231, section 4: test cases 1, 2, 3, 4, 6 and 7 (key, data, HMAC-SHA-256)
+RFC4231 = [
+    (b"\x0b" * 20, b"Hi There",
+     "b0344c61d8db38535ca8afceaf0bf12b881dc200c9833da726e9376c2e32cff7"),
+    (b"Jefe", b"what do ya want for nothing?",
+     "5bdcc146bf60754e6a042426089575c75a003f089d2739839dec58b964ec3843"),
+    (b"\xaa" * 20, b"\xdd" * 50,
+     "773ea91e36800e46854db8ebd09181a72959098b3ef8c122d9635514ced565fe"),
+    (bytes(range(1, 26)), b"\xcd" * 50,
+     "82558a389a443c0ea4cc819899f2083a85f0faa3e578f8077a2e3ff46729665b"),
+    (b"\xaa" * 131, b"Test Using Larger Than Block-Size Key - Hash Key First",
+     "60e431591ee0b67f0d8a26aacbf5b77f8e0bc6213728c5140546040f0ee37f54"),
+    (b"\xaa" * 131, b"This is a test using a larger than block-size key and a larger than "
+     b"block-size data. The key needs to be hashed before being used by the HMAC algorithm.",
+     "9b09ffa71b942fcb27635fbcd5b0e944bfdc63644f0713938a7f51535c3a35e2"),
+]
+
+
+@pytest.mark.parametrize(("key", "data", "expected"), RFC4231)
+def test_manifest_hmac_matches_rfc4231(key, data, expected):
+    from workbench.export.signature import manifest_hmac
+
+    assert manifest_hmac(key, data) == expected
+
+
+@pytest.fixture(scope="module")
+def signed(tmp_path_factory):
+    """A regression sweep exported with a key; the key file lives outside the folder."""
+    base = tmp_path_factory.mktemp("signed")
+    store, sweep_id, table = make_sweep(base, "regression", dtype="float32")
+    key = base / "keys" / "export.key"
+    key.parent.mkdir()
+    key.write_text("3f" * 32 + "\n")
+    folder = base / "model"
+    assert main(["export", sweep_id, "--to", str(folder), "--store", str(store.path), "--quiet",
+                 "--formats", "json,skops,joblib,onnx", "--sign-key-file", str(key)]) == 0
+    store.close()
+    return folder, table, key
+
+
+def test_a_signed_folder_verifies_with_its_key(signed, tmp_path, capsys):
+    import hmac as std_hmac
+
+    from workbench.export.signature import SIGNATURE_NAME
+
+    folder, table, key = signed
+    doc = json.loads((folder / SIGNATURE_NAME).read_text())
+    expected = std_hmac.new(key.read_bytes(), (folder / mf.MANIFEST_NAME).read_bytes(),
+                            hashlib.sha256).hexdigest()
+    assert doc == {"algorithm": "HMAC-SHA256", "signs": mf.MANIFEST_NAME, "hmac": expected}
+    capsys.readouterr()
+    for flag in ([], ["--joblib"], ["--onnx"]):
+        out = tmp_path / f"pred{len(flag)}{flag[:1]}.csv"
+        assert main(["predict", str(folder), str(table), "--out", str(out),
+                     "--verify-key-file", str(key), *flag]) == 0
+        assert len(out.read_text().splitlines()) > 10
+    # without the key, predict says the folder is signed but unchecked
+    capsys.readouterr()
+    assert main(["predict", str(folder), str(table), "--out", str(tmp_path / "p.csv")]) == 0
+    assert "signed" in capsys.readouterr().err
+
+
+def _negate_first_weight(folder: Path) -> None:
+    """The forgery of the hardening issue: a weight of model.onnx negated, manifest re-hashed."""
+    import onnx
+    import onnx.numpy_helper as nh
+
+    def change(model):
+        for init in model.graph.initializer:
+            arr = nh.to_array(init)
+            if arr.ndim == 2 and arr.size > 1 and np.issubdtype(arr.dtype, np.floating):
+                init.CopyFrom(nh.from_array(-arr, init.name))
+                return
+        raise AssertionError("no weight matrix found")
+
+    model = onnx.load(str(folder / mf.ONNX_NAME))
+    change(model)
+    onnx.save(model, str(folder / mf.ONNX_NAME))
+    rehash(folder, mf.ONNX_NAME)
+
+
+def test_a_forged_signed_folder_passes_the_checksum_but_not_the_signature(signed, tmp_path,
+                                                                          capsys):
+    folder, table, key = signed
+    forged = shutil.copytree(folder, tmp_path / "forged")
+    _negate_first_weight(forged)
+    honest, changed = tmp_path / "honest.csv", tmp_path / "changed.csv"
+    assert main(["predict", str(folder), str(table), "--onnx", "--out", str(honest)]) == 0
+    # the checksum alone cannot tell: exit 0 and different predictions
+    assert main(["predict", str(forged), str(table), "--onnx", "--out", str(changed)]) == 0
+    assert changed.read_bytes() != honest.read_bytes()
+    capsys.readouterr()
+    out = tmp_path / "refused.csv"
+    for flag in ([], ["--joblib"], ["--onnx"]):
+        assert main(["predict", str(forged), str(table), "--out", str(out),
+                     "--verify-key-file", str(key), *flag]) == 2
+        err = one_line(capsys.readouterr().err)
+        assert "does not match the key" in err
+        assert not out.exists()
+    # the core checks too, for callers other than the command line
+    from workbench.errors import InputError
+    from workbench.export.predict import predict_table
+
+    X = load_table(table)[0]
+    for kind in ("skops", "joblib", "onnx"):
+        with pytest.raises(InputError, match="does not match the key"):
+            predict_table(forged, X, kind, warn=None, key=key.read_bytes())
+        predict_table(folder, X, kind, warn=None, key=key.read_bytes())  # the honest one
+
+
+@pytest.mark.parametrize("case", ["other-key", "no-signature", "short-key", "key-inside",
+                                  "missing-key", "signature-damaged"])
+def test_verification_failures_are_one_line(signed, tmp_path, capsys, case):
+    from workbench.export.signature import SIGNATURE_NAME
+
+    folder, table, key = signed
+    copy = shutil.copytree(folder, tmp_path / "copy")
+    use = key
+    if case == "other-key":
+        use = tmp_path / "other.key"
+        use.write_text("40" * 32 + "\n")
+    elif case == "no-signature":
+        (copy / SIGNATURE_NAME).unlink()
+    elif case == "short-key":
+        use = tmp_path / "short.key"
+        use.write_text("secret")
+    elif case == "key-inside":
+        use = copy / "export.key"
+        shutil.copyfile(key, use)
+    elif case == "missing-key":
+        use = tmp_path / "nowhere.key"
+    elif case == "signature-damaged":
+        (copy / SIGNATURE_NAME).write_text("{")
+    assert main(["predict", str(copy), str(table), "--verify-key-file", str(use)]) == 2
+    err = one_line(capsys.readouterr().err)
+    if case in ("short-key", "key-inside", "missing-key"):
+        assert err.rstrip().endswith("(set with --verify-key-file)")
+
+
+def test_export_refuses_a_short_or_inside_key(signed, tmp_path, capsys):
+    from workbench.sweep.store import Store
+
+    folder, table, key = signed
+    store_path = folder.parent / "store.sqlite"
+    with Store(store_path) as store:
+        sweep_id = store.list_sweeps()[0]["id"]
+    short = tmp_path / "short.key"
+    short.write_text("x" * 31)
+    inside = tmp_path / "out" / "export.key"
+    inside.parent.mkdir()
+    inside.write_text("3f" * 32)
+    for bad in (short, inside):
+        assert main(["export", sweep_id, "--to", str(tmp_path / "out"), "--store",
+                     str(store_path), "--sign-key-file", str(bad), "--quiet"]) == 2
+        err = one_line(capsys.readouterr().err)
+        assert err.rstrip().endswith("(set with --sign-key-file)")
+    assert sorted(p.name for p in (tmp_path / "out").iterdir()) == ["export.key"]

@@ -1,11 +1,14 @@
 """``workbench export SWEEP_ID [--config RANK|best] --to FOLDER [--formats ...] [--store PATH]
-[--table PATH]``.
+[--table PATH] [--sign-key-file FILE]``.
 
 Exports one configuration of a stored sweep (default: the best) into FOLDER:
 configuration JSON, the refitted pipeline (skops, joblib, ONNX), reproduce.py,
 the sweep's results as CSV and an HTML report, with a manifest of SHA-256
 checksums (see :mod:`workbench.export.bundle`; the formats are listed in
-:mod:`workbench.export.formats`). The folder is written atomically.
+:mod:`workbench.export.formats`) and, with ``--sign-key-file``, the manifest's
+HMAC-SHA256 (:mod:`workbench.export.signature`). The folder is written
+atomically; only an earlier export is replaced, and files of the user's in it
+are kept (one line says which).
 Exit status 0, or 2 on bad input (unknown sweep or rank, folder not writable,
 unknown format, changed table).
 """
@@ -17,6 +20,7 @@ import sys
 from workbench.errors import InputError
 from workbench.export.bundle import export_configuration
 from workbench.export.formats import FORMATS
+from workbench.export.signature import read_key
 from workbench.sweep.store import Store, existing_store_path
 
 NAME = "export"
@@ -38,6 +42,10 @@ def add_arguments(parser):
     parser.add_argument("--table", metavar="PATH", default=None,
                         help="the sweep's table, when its stored path no longer reaches it "
                              "(its SHA-256 must match)")
+    parser.add_argument("--sign-key-file", metavar="FILE", default=None,
+                        help="sign the folder: write the HMAC-SHA256 of its manifest with the "
+                             "key in FILE (at least 32 bytes, kept apart from the folder); "
+                             "predict --verify-key-file checks it")
     parser.add_argument("--quiet", action="store_true", help="print only the folder")
 
 
@@ -49,11 +57,17 @@ def run(args) -> int:
     def note(message):  # printed even with --quiet: files of the user's were involved
         print(f"workbench: {message}", file=sys.stderr)
 
+    key = None
+    if args.sign_key_file is not None:
+        try:
+            key = read_key(args.sign_key_file, folder=args.folder)
+        except InputError as exc:
+            raise InputError(f"{exc} (set with --sign-key-file)") from None
     with Store(existing_store_path(args.store)) as store:
         try:
             folder = export_configuration(store, args.sweep_id, args.config, args.folder,
                                           formats=args.formats, on_progress=progress,
-                                          table=args.table, on_note=note)
+                                          table=args.table, on_note=note, sign_key=key)
         except InputError as exc:
             if exc.setting == "table":  # here the table is set with --table, not an argument
                 raise InputError(f"{exc} (set with --table)") from None

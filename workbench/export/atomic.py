@@ -3,7 +3,9 @@
 The target folder is replaced only when it is provably an export
 (:func:`inspect_target`): empty, or holding a ``manifest.json`` that passes
 :func:`workbench.export.model_files.manifest_problem` (the format marker, a
-known version and the list of the files that export wrote). In such a folder:
+known version and the list of the files that export wrote; the manifest and
+its signature, :mod:`workbench.export.signature`, are the export's too). In such
+a folder:
 
 - a listed file whose SHA-256 no longer matches the manifest was changed by
   someone after the export: the export refuses rather than overwrite the change;
@@ -45,11 +47,12 @@ from pathlib import Path
 from workbench.data.hashing import sha256_of
 from workbench.errors import InputError
 from workbench.export.model_files import MANIFEST_FORMAT, MANIFEST_NAME, load_manifest
+from workbench.export.signature import SIGNATURE_NAME
 
 #: the marker file inside an export's temporary folders (locked while the export runs)
 MARKER_NAME = ".workbench-export-in-progress"
 #: what an export folder holds besides the files its manifest lists
-BESIDE_LISTED = frozenset({MANIFEST_NAME, MARKER_NAME})
+BESIDE_LISTED = frozenset({MANIFEST_NAME, SIGNATURE_NAME, MARKER_NAME})
 #: a temporary sibling of the target: ``.NAME.tmp-`` and 8 lowercase hex digits
 TEMPORARY_PATTERN = re.compile(r"^\.(?P<name>.+)\.tmp-[0-9a-f]{8}$")
 

@@ -8,7 +8,8 @@ its SHA-256 against the sweep's, gathers an
 row when a model format is asked for (:mod:`workbench.export.refit`), lets each
 format write its files (:mod:`workbench.export.formats`, which lists them) and
 adds ``manifest.json`` (SHA-256 of every file and the library versions,
-:mod:`workbench.export.model_files`). All of it is written into a temporary
+:mod:`workbench.export.model_files`) and, when given a key, its HMAC
+(:mod:`workbench.export.signature`). All of it is written into a temporary
 folder that replaces the target only when complete
 (:mod:`workbench.export.atomic`).
 
@@ -23,11 +24,12 @@ from pathlib import Path
 
 from workbench.errors import InputError
 from workbench.export.atomic import prepare_folder, written_atomically
-from workbench.export.configuration import build_configuration, jsonable
+from workbench.export.configuration import build_configuration
 from workbench.export.context import ExportContext
 from workbench.export.formats import FORMATS, export_names, files_of, parse_formats
 from workbench.export.model_files import MANIFEST_NAME, write_manifest
 from workbench.export.refit import fit_final_pipeline
+from workbench.export.signature import SIGNATURE_NAME, sign_folder
 
 
 def choose_configuration(results: dict, rank_or_best="best") -> dict:
@@ -62,7 +64,8 @@ def choose_configuration(results: dict, rank_or_best="best") -> dict:
 
 
 def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
-                         formats=None, on_progress=None, table=None, on_note=None) -> Path:
+                         formats=None, on_progress=None, table=None, on_note=None,
+                         sign_key: bytes | None = None) -> Path:
     """Export one configuration of a stored sweep into ``folder``.
 
     Parameters
@@ -87,6 +90,10 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
         ``on_note(message)`` receives one line for things the user should know
         that are not errors: entries of the user's kept in the folder, abandoned
         temporaries that could not be removed (default: ``on_progress``).
+    sign_key : bytes, optional
+        A key the user keeps: the folder then also holds the HMAC-SHA256 of its
+        manifest (:mod:`workbench.export.signature`), which ``predict`` can check
+        with the same key.
 
     Returns
     -------
@@ -114,7 +121,7 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
     progress("reading the sweep", 0.0)
     results = sweep_results(store, sweep_id)
     chosen = choose_configuration(results, rank_or_best)
-    prepare_folder(folder, writes=files_of(keys) | {MANIFEST_NAME})
+    prepare_folder(folder, writes=files_of(keys) | {MANIFEST_NAME, SIGNATURE_NAME})
     plan = SweepPlan.from_dict(results["plan"])
     if table is not None:
         plan.table = str(table)
@@ -144,7 +151,8 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
             FORMATS[key].write(ctx, tmp)
         write_manifest(tmp, files=sorted(files_of(keys)), extra={"sweep_id": sweep_id, "configuration_rank": chosen["rank"],
                                    "configuration_index": chosen["index"], "formats": keys,
-                                   "task": plan.task,
-                                   "classes": jsonable(data.target.classes)})
+                                   "task": plan.task})
+        if sign_key is not None:
+            sign_folder(tmp, sign_key)
     progress("done", 1.0)
     return folder

@@ -130,8 +130,26 @@ def _is_sha256(value) -> bool:
         and all(ch in "0123456789abcdef" for ch in value)
 
 
+def parse_manifest(data: bytes) -> dict:
+    """Parse and check the bytes of one ``manifest.json`` (:func:`manifest_problem`).
+
+    Raises
+    ------
+    ValueError
+        with the reason, when the bytes are not a workbench manifest.
+    """
+    try:
+        manifest = json.loads(data.decode("utf-8"))
+    except (ValueError, RecursionError):  # bad UTF-8, bad JSON, absurd nesting
+        raise ValueError("it is not valid JSON") from None
+    problem = manifest_problem(manifest)
+    if problem:
+        raise ValueError(problem)
+    return manifest
+
+
 def load_manifest(path: str | Path) -> dict:
-    """Parse and check one ``manifest.json`` (:func:`manifest_problem`).
+    """Read, parse and check one ``manifest.json`` (:func:`parse_manifest`).
 
     Raises
     ------
@@ -142,14 +160,7 @@ def load_manifest(path: str | Path) -> dict:
         data = Path(path).read_bytes()
     except OSError as exc:
         raise ValueError(exc.strerror or str(exc)) from None
-    try:
-        manifest = json.loads(data.decode("utf-8"))
-    except (ValueError, RecursionError):  # bad UTF-8, bad JSON, absurd nesting
-        raise ValueError("it is not valid JSON") from None
-    problem = manifest_problem(manifest)
-    if problem:
-        raise ValueError(problem)
-    return manifest
+    return parse_manifest(data)
 
 
 def read_manifest(folder: str | Path) -> dict:
@@ -390,7 +401,7 @@ def load_joblib(path: str | Path, manifest: dict | None = None, warn=print):
                          "the library versions may differ from those in the manifest") from None
 
 
-def load_model(folder: str | Path, kind: str = "skops", warn=print):
+def load_model(folder: str | Path, kind: str = "skops", warn=print, manifest: dict | None = None):
     """Load the pipeline of an export folder, checking the manifest first.
 
     Parameters
@@ -399,12 +410,14 @@ def load_model(folder: str | Path, kind: str = "skops", warn=print):
     kind : {"skops", "joblib"}
     warn : callable
         Receives warnings (the pickle warning for joblib).
+    manifest : dict, optional
+        The folder's manifest, already read (and perhaps verified against its signature).
     """
     folder = Path(folder)
     if not folder.is_dir():
         raise InputError(f"{folder} is not a folder; give the folder written by the "
                          "workbench's export")
-    manifest = read_manifest(folder)
+    manifest = read_manifest(folder) if manifest is None else manifest
     if kind == "skops":
         return load_skops(verify_file(folder, SKOPS_NAME, manifest))
     if kind == "joblib":

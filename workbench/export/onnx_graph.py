@@ -56,6 +56,10 @@ _STRING = 8
 
 _registered = False
 
+#: the ``metadata_props`` keys an export writes: the column list and a classifier's labels
+COLUMNS_KEY = "workbench.columns"
+CLASSES_KEY = "workbench.classes"
+
 
 # --------------------------------------------------------------------------- network spec
 
@@ -531,7 +535,9 @@ def pipeline_to_onnx(pipeline, X, *, dtype: str = "float32", opset: int = TARGET
     onnx.ModelProto
         Inputs: one per column, ``[N, 1]``. Outputs: ``variable`` (predictions,
         ``[N, n_outputs]``) for regressors; ``label`` and ``probabilities`` for
-        classifiers.
+        classifiers. ``metadata_props``: :data:`COLUMNS_KEY` (which input takes
+        which column, and its kind) and, for classifiers, :data:`CLASSES_KEY`
+        (the class labels in the order of the probability columns, JSON).
     """
     from skl2onnx import convert_sklearn
 
@@ -558,8 +564,14 @@ def pipeline_to_onnx(pipeline, X, *, dtype: str = "float32", opset: int = TARGET
     inputs = [i.name for i in model.graph.input]
     columns = [{"column": c, "input": n, "kind": k} for (c, k), n in zip(kinds.items(), inputs)]
     meta = model.metadata_props.add()
-    meta.key = "workbench.columns"
+    meta.key = COLUMNS_KEY
     meta.value = json.dumps(columns)
+    if is_classifier(last):
+        # the labels of the probability columns travel inside the model they describe
+        meta = model.metadata_props.add()
+        meta.key = CLASSES_KEY
+        meta.value = json.dumps([c.item() if isinstance(c, np.generic) else c
+                                 for c in last.classes_])
     return model
 
 
@@ -703,24 +715,102 @@ def onnx_feed(df, columns: list[dict], dtype: str = "float32") -> dict[str, np.n
     return feed
 
 
-def onnx_columns(model) -> list[dict]:
-    """The columns recorded by :func:`pipeline_to_onnx`: ``column``, ``input``, ``kind``."""
+def _metadata(model, key: str):
+    """The JSON value stored under ``key`` in the model's ``metadata_props``, or None."""
     import json
 
     for prop in model.metadata_props:
-        if prop.key == "workbench.columns":
-            return json.loads(prop.value)
-    raise InputError("this ONNX file was not written by workbench export; "
-                     "it lacks the column list")
+        if prop.key == key:
+            try:
+                return json.loads(prop.value)
+            except (ValueError, RecursionError):
+                raise InputError(f"the ONNX file's {key} entry is damaged; re-export the model") \
+                    from None
+    return None
+
+
+def onnx_columns(model) -> list[dict]:
+    """The columns recorded by :func:`pipeline_to_onnx`: ``column``, ``input``, ``kind``.
+
+    Raises
+    ------
+    InputError
+        when the list is missing, damaged or names inputs the graph does not have.
+    """
+    columns = _metadata(model, COLUMNS_KEY)
+    if columns is None:
+        raise InputError("this ONNX file was not written by workbench export; "
+                         "it lacks the column list")
+    inputs = [i.name for i in model.graph.input]
+    ok = isinstance(columns, list) and all(
+        isinstance(c, dict) and isinstance(c.get("column"), str)
+        and c.get("kind") in ("float", "string", "datetime") and c.get("input") in inputs
+        for c in columns) and sorted(c["input"] for c in columns) == sorted(inputs)
+    if not ok:
+        raise InputError("the ONNX file's column list does not match its graph inputs "
+                         "(the file is damaged or was changed); re-export the model")
+    return columns
+
+
+def onnx_classes(model) -> list | None:
+    """The class labels :func:`pipeline_to_onnx` stored in a classifier's model, in the
+    order of its probability columns; None for a model that records none.
+
+    Raises
+    ------
+    InputError
+        when the entry is not a list of distinct labels (text, numbers, true/false).
+    """
+    classes = _metadata(model, CLASSES_KEY)
+    if classes is None:
+        return None
+    if not isinstance(classes, list) or not classes or not all(
+            isinstance(c, str | int | float | bool) for c in classes) \
+            or len({(type(c), c) for c in classes}) != len(classes):
+        raise InputError("the ONNX file's class list is damaged; re-export the model")
+    return classes
+
+
+def load_onnx(path):
+    """Read an ONNX file, refusing damaged ones and any that reaches for outside data.
+
+    The file is parsed without loading external data: an exported model keeps
+    every tensor inside the file, and a tensor that points elsewhere could make
+    the runtime read a file of the attacker's choosing.
+
+    Raises
+    ------
+    InputError
+        when the bytes are not a readable ONNX model or a tensor is stored outside the file.
+    """
+    import onnx
+
+    try:
+        model = onnx.load(str(path), load_external_data=False)
+    except Exception as exc:  # protobuf's DecodeError and friends: one line, never a traceback
+        raise InputError(f"{path} is not a readable ONNX model ({type(exc).__name__}); "
+                         "re-export the model") from None
+    external = onnx.TensorProto.EXTERNAL
+    tensors = list(model.graph.initializer) + [
+        a.t for node in model.graph.node for a in node.attribute if a.HasField("t")]
+    if any(t.data_location == external for t in tensors):
+        raise InputError(f"{path} refers to tensor data outside the file, which no export "
+                         "writes; refusing to run it")
+    return model
 
 
 def run_onnx(model_or_path, df, dtype: str | None = None) -> dict[str, np.ndarray]:
-    """Predict with onnxruntime; returns ``{output_name: array}``."""
-    import onnx
+    """Predict with onnxruntime; returns ``{output_name: array}``.
+
+    Raises
+    ------
+    InputError
+        when the file is damaged or onnxruntime cannot build or run the graph.
+    """
     import onnxruntime as ort
 
     if isinstance(model_or_path, (str, bytes)) or hasattr(model_or_path, "__fspath__"):
-        model = onnx.load(str(model_or_path))
+        model = load_onnx(model_or_path)
     else:
         model = model_or_path
     columns = onnx_columns(model)
@@ -729,13 +819,20 @@ def run_onnx(model_or_path, df, dtype: str | None = None) -> dict[str, np.ndarra
         for inp in model.graph.input:
             if inp.type.tensor_type.elem_type == _DOUBLE:
                 dtype = "float64"
-    sess = ort.InferenceSession(model.SerializeToString(), providers=["CPUExecutionProvider"])
-    names = [o.name for o in sess.get_outputs()]
-    outs = sess.run(None, onnx_feed(df, columns, dtype))
+    feed = onnx_feed(df, columns, dtype)
+    try:
+        sess = ort.InferenceSession(model.SerializeToString(), providers=["CPUExecutionProvider"])
+        names = [o.name for o in sess.get_outputs()]
+        outs = sess.run(None, feed)
+    except Exception as exc:  # onnxruntime's errors on a damaged or changed graph
+        first = str(exc).strip().splitlines()[0][:160] if str(exc).strip() else ""
+        raise InputError(f"onnxruntime cannot run this ONNX model ({type(exc).__name__}: "
+                         f"{first}); the file is damaged or was changed, re-export the model") \
+            from None
     return dict(zip(names, outs))
 
 
 __all__: Sequence[str] = (
     "TARGET_OPSET", "network_spec", "register_converters", "pipeline_to_onnx",
-    "onnx_feed", "column_kinds", "onnx_columns", "run_onnx",
+    "onnx_feed", "column_kinds", "onnx_columns", "onnx_classes", "load_onnx", "run_onnx",
 )

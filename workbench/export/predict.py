@@ -35,6 +35,7 @@ from workbench.export.model_files import (
     read_manifest,
     verify_file,
 )
+from workbench.export.signature import verify_folder
 
 KINDS = ("skops", "joblib", "onnx")
 #: the last output column: why a row has no prediction (empty when it has one)
@@ -109,7 +110,8 @@ def _every_row(part: pd.DataFrame | None, blank: np.ndarray, columns: list[str])
     return out
 
 
-def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> pd.DataFrame:
+def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print,
+                  key: bytes | None = None) -> pd.DataFrame:
     """Predictions of an exported model for the rows of ``df``, one row per row.
 
     Parameters
@@ -122,6 +124,10 @@ def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> 
         Which of the folder's model files to use.
     warn : callable
         Receives warnings (the unpickling warning for ``joblib``).
+    key : bytes, optional
+        The key the folder was signed with: its signature is checked first
+        (:func:`workbench.export.signature.verify_folder`) and the signed
+        manifest's checksums are the ones used.
 
     Returns
     -------
@@ -136,7 +142,8 @@ def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> 
     ------
     InputError
         for a folder that is not an export, a changed (tampered) model file, a
-        skops file naming untrusted types, or a table lacking needed columns.
+        skops file holding what no export holds, a damaged ONNX file, a
+        signature that does not match ``key``, or a table lacking needed columns.
     """
     if kind not in KINDS:
         raise ValueError(f"kind must be one of {KINDS}, not {kind!r}")
@@ -144,24 +151,29 @@ def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> 
     if not folder.is_dir():
         raise InputError(f"{folder} is not a folder; give the folder written by the "
                          "workbench's export")
-    manifest = read_manifest(folder)
-    classes = manifest.get("classes")
+    manifest = read_manifest(folder) if key is None else verify_folder(folder, key)
     if kind == "onnx":
-        import onnx
+        from workbench.export.onnx_graph import load_onnx, onnx_classes, onnx_columns, run_onnx
 
-        from workbench.export.onnx_graph import onnx_columns, run_onnx
-
-        path = verify_file(folder, ONNX_NAME, manifest)
-        model = onnx.load(str(path))
+        model = load_onnx(verify_file(folder, ONNX_NAME, manifest))
         kinds = {c["column"]: c["kind"] for c in onnx_columns(model)}
         table = _check_columns(df, kinds)
         blank = blank_rows(df, kinds)
-        part, names = None, ["prediction"]
+        outputs = {o.name for o in model.graph.output}
+        labels = onnx_classes(model)  # from the model itself, never from the manifest
+        if (labels is None) != ("probabilities" not in outputs):
+            raise InputError(f"{folder / ONNX_NAME} does not record the classes of its "
+                             "probabilities (written by an older export, or changed); "
+                             "re-export the model")
+        names = ["prediction"] + [f"probability_{c}" for c in labels or []]
+        part = None
         if not blank.all():
             out = run_onnx(model, table.loc[~blank])
-            if "probabilities" in out:
-                labels = classes if classes is not None else \
-                    list(range(out["probabilities"].shape[1]))
+            if labels is not None:
+                if out["probabilities"].shape[1] != len(labels):
+                    raise InputError(f"{folder / ONNX_NAME} gives {out['probabilities'].shape[1]} "
+                                     f"probabilities per row but records {len(labels)} classes "
+                                     "(the file was changed); re-export the model")
                 part = _result_frame(out["label"], out["probabilities"], labels)
             else:
                 part = _result_frame(out["variable"], None, None)
@@ -171,7 +183,7 @@ def predict_table(folder, df: pd.DataFrame, kind: str = "skops", warn=print) -> 
 
     from workbench.export.onnx_graph import required_column_kinds
 
-    pipe = load_model(folder, kind, warn=warn)
+    pipe = load_model(folder, kind, warn=warn, manifest=manifest)
     kinds = required_column_kinds(pipe)
     if kinds is None:
         names = getattr(pipe, "feature_names_in_", None)
