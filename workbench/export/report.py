@@ -6,12 +6,20 @@ with Matplotlib's Agg canvas (the core never imports Qt). It holds
 
 - cautions: the scores are cross-validated estimates; check the model on fresh
   data; follow your domain's review rules before it drives decisions;
+- the verdict on the rules of thumb, in the words every view shows
+  (:func:`workbench.sweep.results.verdict_statements`): the output head and the
+  hidden activation against the best alternatives, the recommended
+  configuration and why, the winner's honest (selection-corrected) score;
+  what matters on this table, as a bar chart of the factors' shares; the
+  baselines compared with the best network; the warnings;
 - the table (file, fingerprint, columns with their detected type and role) and
   the target (kind and the rule that decided it);
 - the intake's advice for the output head and whether the exported
   configuration followed it;
-- the ranked configurations with mean ± sd, the corrected t-test p-value and
-  the tie group (configurations not distinguishable from the best);
+- the ranked configurations with mean ± sd, the corrected t-test p-value,
+  the tie group (configurations not distinguishable from the best), the
+  Bayesian decision against the best, epochs run and the train-test gap
+  (``underfit`` when the training score itself is poor);
 - learning curves (training loss per epoch on every fold), the fold spread of
   the test scores per configuration, and per-layer health (dead and saturated
   units, gradient norms).
@@ -51,6 +59,9 @@ table{border-collapse:collapse;margin:.5em 0;font-size:.9em}
 th,td{border:1px solid #ccc;padding:.25em .6em;text-align:left;vertical-align:top}
 th{background:#f2f2f2}tr.chosen td{font-weight:600;background:#eef6ff}
 tr.tied td:first-child{border-left:4px solid #2a7ab0}
+td.best,td.equivalent{color:#1b6e2a;font-weight:600}td.undecided{color:#8a6d00}
+td.worse,td.better{color:#a12a2a}
+.warning{background:#fdecea;border:1px solid #d9534f;padding:.6em 1em;border-radius:4px}
 .caution{background:#fff6e0;border:1px solid #e0b040;padding:.6em 1em;border-radius:4px}
 .num{text-align:right;font-variant-numeric:tabular-nums}
 img{max-width:100%;height:auto;border:1px solid #eee}
@@ -76,6 +87,15 @@ def _num(v, fmt=".4f") -> str:
 
 def _pct(v) -> str:
     return "–" if v is None else esc(f"{100 * float(v):.0f}%")
+
+
+def _p(v) -> str:
+    """A p-value as the command line prints it: below 0.0005 reads <0.001."""
+    return "&lt;0.001" if v is not None and 0 <= v < 5e-4 else _num(v, ".3f")
+
+
+def _gap(c: dict) -> str:
+    return "underfit" if c.get("underfit") else _num(c.get("train_test_gap"), "+.3f")
 
 
 def _label(c: dict) -> str:
@@ -222,7 +242,104 @@ def health_png(chosen: dict, trials: list[dict]) -> str | None:
     return _png(fig)
 
 
+def factors_png(results: dict) -> str | None:
+    """Share of the spread between configurations explained by each swept factor, with
+    the interactions (or rest) and, for scale, the share the folds' noise alone would
+    give."""
+    from workbench.sweep.factors import FACTOR_WORDS
+
+    rows = [(FACTOR_WORDS.get(f["factor"], str(f["factor"])).removeprefix("the "),
+             float(f["share"]), "#2a7ab0") for f in results.get("factors") or []]
+    if not rows:
+        return None
+    rest = results.get("factors_rest")
+    if rest and rest.get("share") is not None:
+        rows.append((rest["label"], float(rest["share"]), "#999999"))
+    noise = results.get("factors_noise")
+    if noise and noise.get("share") is not None:
+        rows.append(("folds' noise, for scale", float(noise["share"]), "#dddddd"))
+    fig, (ax,) = _figure(6.0, 0.6 + 0.35 * len(rows))
+    ax.barh(range(len(rows)), [min(100 * r[1], 100) for r in rows], color=[r[2] for r in rows])
+    ax.set_yticks(range(len(rows)))
+    ax.set_yticklabels([_plain(r[0]) for r in rows], fontsize=8)
+    ax.invert_yaxis()
+    ax.set_xlim(0, 100)
+    ax.set_xlabel("share of the spread between configuration means (%)")
+    for i, r in enumerate(rows):
+        ax.text(min(100 * r[1], 88) + 1, i, f"{100 * r[1]:.0f}%", va="center", fontsize=8)
+    return _png(fig)
+
+
 # --------------------------------------------------------------------------- sections
+
+
+def _verdict_sections(results: dict, chosen: dict) -> list[str]:
+    """The verdict, the honest score, what matters, the baselines and the warnings."""
+    from workbench.sweep.results import WARNING_CODES, verdict_heading, verdict_statements
+
+    out = []
+    w = out.append
+    statements = verdict_statements(results)
+    warnings = [s for s in statements if s["key"] in WARNING_CODES]
+    w("<h2>Verdict on the rules of thumb</h2>")
+    w(f"<p>{esc(verdict_heading(results))}</p><table>")
+    for s in statements:
+        if s in warnings or s["key"] == "factors":  # the factors have their own section
+            continue
+        w(f"<tr><th>{esc(s['label'])}</th><td>{esc(s['text'])}</td></tr>")
+    w("</table>")
+    rec = (results.get("verdict") or {}).get("recommended")
+    if rec is not None:
+        same = chosen["index"] == rec["index"]
+        w(f"<p>The exported configuration (rank {esc(chosen['rank'])}) <b>"
+          f"{'is' if same else 'is not'}</b> the recommended one"
+          f"{'' if same else ' (rank ' + esc(rec['rank']) + ')'}.</p>")
+    w("<p class=\"muted\">The winner's cross-validated mean is the best of many noisy "
+      "estimates, so it is optimistic; the selection-corrected estimate (bootstrap "
+      "bias-corrected cross-validation over the stored out-of-fold predictions, Tsamardinos, "
+      "Greasidou &amp; Borboudakis 2018) estimates the score of picking the best this way.</p>")
+
+    w("<h2>What matters on this table</h2>")
+    w(f"<p>{esc(results.get('factors_sentence') or '')}</p>")
+    png = factors_png(results)
+    if png is not None:
+        w(_img(png, "share of the spread per factor"))
+
+    w("<h2>Baselines</h2>")
+    baselines = results.get("baselines") or []
+    if baselines:
+        w("<p>Reference models on the same folds, preprocessing and metric, each compared "
+          "with the best network by the same tests (difference = baseline minus the best "
+          "network).</p>")
+        w("<table><tr><th>baseline</th><th>model</th><th>mean ± sd</th><th>difference "
+          "(95% interval)</th><th>p</th><th>P better / equivalent / worse</th>"
+          "<th>decision</th><th>networks practically better</th></tr>")
+        for b in baselines:
+            iv = b.get("interval") or [None, None]
+            probs = " / ".join(_num(b.get(k), ".2f") for k in ("p_better", "p_equivalent",
+                                                               "p_worse"))
+            dec = b.get("decision")
+            w(f"<tr><td>{esc(b['name'])}</td><td>{esc(b['estimator'])}</td>"
+              f"<td class=\"num\">{_num(b['mean'])} ± {_num(b['sd'])}</td>"
+              f"<td class=\"num\">{_num(b.get('difference'))} ({_num(iv[0])} to "
+              f"{_num(iv[1])})</td><td class=\"num\">{_p(b.get('p_value'))}</td>"
+              f"<td class=\"num\">{probs}</td><td class=\"{esc(dec or '')}\">{esc(dec)}</td>"
+              f"<td class=\"num\">{esc(b.get('n_networks_better'))}</td></tr>")
+        w("</table>")
+    else:
+        w("<p class=\"muted\">This sweep ran no baselines.</p>")
+
+    w("<h2>Warnings</h2>")
+    if warnings:
+        w("<div class=\"warning\"><ul>")
+        for s in warnings:
+            w(f"<li>{esc(s['text'])}</li>")
+        w("</ul></div>")
+    else:
+        w("<p>None: a network beats both baselines, the folds have enough test rows and "
+          "most configurations are decided.</p>")
+    return out
+
 
 
 def _layer_health_rows(trials: list[dict]) -> list[tuple]:
@@ -294,6 +411,8 @@ def render_report(results: dict, chosen: dict, configuration: dict | None, trial
     for c in CAUTIONS:
         w(f"<li>{esc(c)}</li>")
     w("</ul></div>")
+    if "verdict" in results:
+        out.extend(_verdict_sections(results, chosen))
 
     # ---------------------------------------------------------------- table and target
     w("<h2>Table and target</h2><table>")
@@ -340,7 +459,10 @@ def render_report(results: dict, chosen: dict, configuration: dict | None, trial
             (f"{metric} (mean ± sd over {chosen['n_scores']} folds)",
              f"{_num(chosen['mean'])} ± {_num(chosen['sd'])}"),
             ("rank", chosen["rank"]),
-            ("tied with the best", "yes" if chosen["tied_with_best"] else "no"))
+            ("tied with the best", "yes" if chosen["tied_with_best"] else "no"),
+            ("decision against the best", chosen.get("decision")),
+            ("epochs run (mean over folds)", None if chosen.get("mean_epochs") is None
+             else f"{chosen['mean_epochs']:.0f}"))
     for k, v in rows:
         # _num already escaped its output; everything else is escaped here
         cell = v if k.startswith(metric) else esc(v)
@@ -355,9 +477,17 @@ def render_report(results: dict, chosen: dict, configuration: dict | None, trial
       f"Nadeau-Bengio corrected resampled t-test{esc(corr)} cannot tell apart from the best at "
       f"level {esc(results['significance_level'])} — {esc(n_tied)} of {esc(len(ranked))}. "
       "Choosing among them on the mean alone is chasing noise.</p>")
+    if results.get("rope") is not None:
+        w(f"<p><b>Decision</b>: the Bayesian correlated t-test against the best; "
+          f"<i>equivalent</i> (or <i>worse</i>) when P &ge; "
+          f"{esc(results['decision_threshold'])} that the difference is within (or below) "
+          f"±{esc(format(results['rope'], '.4g'))}, otherwise <i>undecided</i>. "
+          "<b>Gap</b>: mean training score minus mean test score; <i>underfit</i> when the "
+          "training score itself is more than that region below the linear baseline's test "
+          "score.</p>")
     w("<table><tr><th>rank</th><th>tie</th><th>hidden</th><th>head</th><th>layers</th><th>lr</th>"
-      "<th>alpha</th><th>mean ± sd</th><th>p</th><th>fit s</th><th>dead</th><th>sat.</th>"
-      "<th>engine</th><th>status</th></tr>")
+      "<th>alpha</th><th>mean ± sd</th><th>p</th><th>decision</th><th>gap</th><th>epochs</th>"
+      "<th>fit s</th><th>dead</th><th>sat.</th><th>engine</th><th>status</th></tr>")
     for c in ranked:
         cls = " ".join(x for x in ("chosen" if c["index"] == chosen["index"] else "",
                                    "tied" if c["tied_with_best"] else "") if x)
@@ -367,7 +497,10 @@ def render_report(results: dict, chosen: dict, configuration: dict | None, trial
           f"<td class=\"num\">{esc(format(c['learning_rate'], 'g'))}</td>"
           f"<td class=\"num\">{esc(format(c['alpha'], 'g'))}</td>"
           f"<td class=\"num\">{_num(c['mean'])} ± {_num(c['sd'])}</td>"
-          f"<td class=\"num\">{_num(c['p_value'], '.3f')}</td>"
+          f"<td class=\"num\">{_p(c['p_value'])}</td>"
+          f"<td class=\"{esc(c.get('decision') or '')}\">{esc(c.get('decision'))}</td>"
+          f"<td class=\"num\">{_gap(c)}</td>"
+          f"<td class=\"num\">{_num(c.get('mean_epochs'), '.0f')}</td>"
           f"<td class=\"num\">{_num(c['mean_fit_seconds'], '.2f')}</td>"
           f"<td class=\"num\">{_pct(c['dead'])}</td><td class=\"num\">{_pct(c['saturated'])}</td>"
           f"<td>{esc(c['engine'])}</td><td>{esc(c['status'])}</td></tr>")
