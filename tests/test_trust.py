@@ -507,3 +507,20 @@ def test_export_refuses_a_short_or_inside_key(signed, tmp_path, capsys):
         err = one_line(capsys.readouterr().err)
         assert err.rstrip().endswith("(set with --sign-key-file)")
     assert sorted(p.name for p in (tmp_path / "out").iterdir()) == ["export.key"]
+
+
+def test_the_readme_states_the_trust_model():
+    """The README's trust model names what this module tests: the checksum's limit, each
+    loader, and the signature's options as the commands spell them."""
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    section = text[text.index("### Trust model"):]
+    section = section[:section.index("\n## ")]
+    for needed in ("forged folder", "*skops*", "*joblib*", "*ONNX*", "SKOPS_CONTENTS",
+                   "--sign-key-file", "--verify-key-file", "HMAC-SHA256",
+                   "only a folder from a source you trust is safe"):
+        assert needed in section, needed
+    import workbench.commands.export as export_command
+    import workbench.commands.predict as predict_command
+
+    assert "--sign-key-file" in Path(export_command.__file__).read_text()
+    assert "--verify-key-file" in Path(predict_command.__file__).read_text()
