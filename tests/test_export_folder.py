@@ -73,9 +73,11 @@ def test_a_folder_with_someone_elses_manifest_survives_byte_for_byte(sweep, tmp_
     (w / "manifest.json").write_text('{"name":"My PWA"}\n')
     (w / "src" / "app.js").write_text("precious\n")
     before = tree(w)
-    assert export_cli(sweep, w, "--formats", "json") == 2
-    err = one_line(capsys.readouterr().err)
-    assert "not written by the workbench" in err and "(set with --to)" in err
+    _, sweep_id, db = sweep  # the command as the issue gives it (progress lines not silenced)
+    assert main(["export", sweep_id, "--to", str(w), "--formats", "json", "--store", db]) == 2
+    out, err = capsys.readouterr()
+    err = one_line(err)
+    assert out == "" and "not written by the workbench" in err and "(set with --to)" in err
     assert tree(w) == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["W"]  # no temporary left
 

@@ -118,10 +118,11 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
     keys = parse_formats(formats)
     folder = Path(folder).expanduser().absolute()
 
+    # before any work: a folder that may not be replaced is the first and only word
+    prepare_folder(folder, writes=files_of(keys) | {MANIFEST_NAME, SIGNATURE_NAME})
     progress("reading the sweep", 0.0)
     results = sweep_results(store, sweep_id)
     chosen = choose_configuration(results, rank_or_best)
-    prepare_folder(folder, writes=files_of(keys) | {MANIFEST_NAME, SIGNATURE_NAME})
     plan = SweepPlan.from_dict(results["plan"])
     if table is not None:
         plan.table = str(table)
