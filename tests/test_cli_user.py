@@ -159,7 +159,7 @@ def test_store_under_a_file_says_which_path_is_a_file(tmp_path, capsys):
     blocker = tmp_path / "notes.txt"
     blocker.write_text("not a folder\n")
     table = tmp_path / "t.csv"
-    pd.DataFrame({"x": range(12), "y": ["a", "b"] * 6}).to_csv(table, index=False)
+    pd.DataFrame({"x": [i % 5 for i in range(12)], "y": ["a", "b"] * 6}).to_csv(table, index=False)
     assert main(["sweep", str(table), "--target", "y", "--store",
                  str(blocker / "s.sqlite")]) == 2
     assert f"{blocker} is a file, not a folder" in _err_line(capsys)
@@ -182,7 +182,7 @@ def test_poisson_deviance_refused_where_it_is_undefined(tmp_path, capsys, values
 @pytest.mark.parametrize("address", ["nonsense", "tcp://scheduler:abc"])
 def test_malformed_cluster_address_is_one_line(tmp_path, capsys, address):
     table = tmp_path / "t.csv"
-    pd.DataFrame({"x": range(12), "y": ["a", "b"] * 6}).to_csv(table, index=False)
+    pd.DataFrame({"x": [i % 5 for i in range(12)], "y": ["a", "b"] * 6}).to_csv(table, index=False)
     assert main(["sweep", str(table), "--target", "y", "--cluster", address, "--quiet",
                  "--store", str(tmp_path / "s.sqlite")]) == 2
     assert "tcp://HOST:PORT" in _err_line(capsys)

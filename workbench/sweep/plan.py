@@ -721,7 +721,6 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
 
         df, _ = load_table(table, sheet=sheet)
     info = target_info if target_info is not None else analyse_target(df, target, kind=kind)
-    _usable_profile(df, target, roles, profile)  # no sweep whose every trial would fail
     names = _split_list(hidden) or ["default"]
     hid = []
     for n in names:
@@ -745,7 +744,7 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
     from pathlib import Path
 
     # the absolute path, so that --resume works from any folder
-    return SweepPlan(table=str(Path(table).resolve()), target=target, task=info.task, target_kind=info.kind,
+    plan = SweepPlan(table=str(Path(table).resolve()), target=target, task=info.task, target_kind=info.kind,
                      hidden=hid, heads=heads, layers=lays, learning_rates=lrs, alphas=als,
                      folds=folds, repeats=repeats, epochs=epochs, early_stopping=early_stopping,
                      metric=metric, engine=engine, seed=seed, batch_size=batch_size, dtype=dtype,
@@ -753,6 +752,8 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
                      refused_heads=refused, head_warnings=warns, tune_learning_rate=tune,
                      baselines=list(baselines), roles=dict(roles or {}),
                      kind=info.kind if info.kind_set_by_user else None)
+    _usable_profile(df, target, roles, profile)  # no sweep whose every trial would fail
+    return plan
 
 
 def _usable_profile(df, target: str, roles=None, profile=None):
