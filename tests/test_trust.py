@@ -524,3 +524,35 @@ def test_the_readme_states_the_trust_model():
 
     assert "--sign-key-file" in Path(export_command.__file__).read_text()
     assert "--verify-key-file" in Path(predict_command.__file__).read_text()
+
+
+def test_external_tensors_are_found_in_nested_graphs(tmp_path):
+    """A tensor pointing outside the file is refused wherever it sits: an initializer of
+    the graph or of a subgraph (here an ``If`` branch), or a Constant's value."""
+    import onnx
+    from onnx import TensorProto, helper
+
+    from workbench.errors import InputError
+    from workbench.export.onnx_graph import _all_tensors, load_onnx
+
+    def outside(name):
+        t = helper.make_tensor(name, TensorProto.FLOAT, [1], [1.0])
+        t.ClearField("float_data")
+        t.data_location = TensorProto.EXTERNAL
+        t.external_data.add(key="location", value="../../secret.bin")
+        return t
+
+    branch = helper.make_graph([helper.make_node("Identity", ["w"], ["y"])], "branch", [],
+                               [helper.make_tensor_value_info("y", TensorProto.FLOAT, [1])],
+                               initializer=[outside("w")])
+    node = helper.make_node("If", ["c"], ["y"], then_branch=branch, else_branch=branch)
+    graph = helper.make_graph([node], "g", [helper.make_tensor_value_info("c", TensorProto.BOOL,
+                                                                          [])],
+                              [helper.make_tensor_value_info("y", TensorProto.FLOAT, [1])])
+    model = helper.make_model(graph)
+    assert len([t for t in _all_tensors(model.graph)
+                if t.data_location == TensorProto.EXTERNAL]) == 2
+    path = tmp_path / "nested.onnx"
+    onnx.save(model, str(path))
+    with pytest.raises(InputError, match="outside the file"):
+        load_onnx(path)

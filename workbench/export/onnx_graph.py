@@ -771,6 +771,25 @@ def onnx_classes(model) -> list | None:
     return classes
 
 
+def _all_tensors(graph):
+    """Every tensor of a graph and of the graphs nested in its nodes' attributes."""
+    graphs, tensors = [graph], []
+    while graphs:
+        g = graphs.pop()
+        tensors.extend(g.initializer)
+        for sparse in g.sparse_initializer:
+            tensors.extend((sparse.values, sparse.indices))
+        for node in g.node:
+            for a in node.attribute:
+                if a.HasField("t"):
+                    tensors.append(a.t)
+                tensors.extend(a.tensors)
+                if a.HasField("g"):
+                    graphs.append(a.g)
+                graphs.extend(a.graphs)
+    return tensors
+
+
 def load_onnx(path):
     """Read an ONNX file, refusing damaged ones and any that reaches for outside data.
 
@@ -791,9 +810,7 @@ def load_onnx(path):
         raise InputError(f"{path} is not a readable ONNX model ({type(exc).__name__}); "
                          "re-export the model") from None
     external = onnx.TensorProto.EXTERNAL
-    tensors = list(model.graph.initializer) + [
-        a.t for node in model.graph.node for a in node.attribute if a.HasField("t")]
-    if any(t.data_location == external for t in tensors):
+    if any(t.data_location == external for t in _all_tensors(model.graph)):
         raise InputError(f"{path} refers to tensor data outside the file, which no export "
                          "writes; refusing to run it")
     return model
