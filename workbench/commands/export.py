@@ -1,7 +1,9 @@
-"""``workbench export SWEEP_ID [--config RANK|best] --to FOLDER [--formats ...] [--store PATH]
-[--table PATH] [--sign-key-file FILE]``.
+"""``workbench export SWEEP_ID [--config recommended|RANK|best] --to FOLDER [--formats ...]
+[--store PATH] [--table PATH] [--sign-key-file FILE]``.
 
-Exports one configuration of a stored sweep (default: the best) into FOLDER:
+Exports one configuration of a stored sweep into FOLDER -- by default the
+recommended one (the simplest configuration practically equivalent to the best,
+see :func:`workbench.sweep.results.recommended_rank`), or a rank (1 = the best):
 configuration JSON, the refitted pipeline (skops, joblib, ONNX), reproduce.py,
 the sweep's results as CSV and an HTML report, with a manifest of SHA-256
 checksums (see :mod:`workbench.export.bundle`; the formats are listed in
@@ -23,15 +25,19 @@ from workbench.export.formats import FORMATS
 from workbench.export.signature import read_key
 from workbench.sweep.store import Store, existing_store_path
 
+#: the --config value that picks the verdict's recommended configuration
+RECOMMENDED = "recommended"
+
 NAME = "export"
 HELP = "Export one configuration of a stored sweep: model files, configuration, script, report."
 
 
 def add_arguments(parser):
     parser.add_argument("sweep_id", metavar="SWEEP_ID", help="a sweep id (see workbench history)")
-    parser.add_argument("--config", metavar="RANK|best", default="best",
-                        help="which configuration: its rank in the results (1 = best) or 'best' "
-                             "(default best)")
+    parser.add_argument("--config", metavar="recommended|RANK|best", default=RECOMMENDED,
+                        help="which configuration: 'recommended' (the simplest one practically "
+                             "equivalent to the best, as the verdict says), its rank in the "
+                             "results (1 = best) or 'best' (default recommended)")
     parser.add_argument("--to", metavar="FOLDER", required=True, dest="folder",
                         help="the export folder: new, empty or an earlier export (replaced "
                              "whole; files it did not write are kept and reported)")
@@ -64,8 +70,13 @@ def run(args) -> int:
         except InputError as exc:
             raise InputError(f"{exc} (set with --sign-key-file)") from None
     with Store(existing_store_path(args.store)) as store:
+        which = args.config
+        if str(which).strip().lower() == RECOMMENDED:
+            from workbench.sweep.results import recommended_rank, sweep_results
+
+            which = recommended_rank(sweep_results(store, args.sweep_id))
         try:
-            folder = export_configuration(store, args.sweep_id, args.config, args.folder,
+            folder = export_configuration(store, args.sweep_id, which, args.folder,
                                           formats=args.formats, on_progress=progress,
                                           table=args.table, on_note=note, sign_key=key)
         except InputError as exc:

@@ -120,6 +120,7 @@ def build_configuration(ctx: ExportContext) -> dict:
                   "head": c["head"], "layers": list(c["layers"]),
                   "learning_rate": c["learning_rate"], "alpha": c["alpha"], "mean": c["mean"]}
                  for c in res["configurations"] if c["tied_with_best"]]
+    recommended = (res.get("verdict") or {}).get("recommended") or {}
     conf = {
         "format": CONFIGURATION_FORMAT,
         "format_version": CONFIGURATION_VERSION,
@@ -176,6 +177,10 @@ def build_configuration(ctx: ExportContext) -> dict:
             "significance_level": res["significance_level"], "correction": res["correction"],
             "test": "Nadeau-Bengio corrected resampled t-test against the best",
             "tie_group": tie_group,
+            "decision": chosen.get("decision"), "p_equivalent": chosen.get("p_equivalent"),
+            "rope": res.get("rope"), "corrected_best": res.get("corrected_best"),
+            "recommended": {**{k: recommended.get(k) for k in ("rank", "index", "reason")},
+                            "exported": recommended.get("index") == chosen["index"]},
         },
         "advice": {"output_head": advice.output_head, "loss": advice.loss,
                    "reason": advice.reason, "basis": advice.basis,

@@ -629,6 +629,23 @@ def _num(v) -> str:
     return f"{v:.4g}" if abs(v) >= 1e4 else f"{v:.4f}"
 
 
+def recommended_rank(res: dict) -> int:
+    """The rank of the verdict's recommended configuration (what ``export`` takes by default).
+
+    Raises
+    ------
+    InputError
+        (setting ``config``) when no configuration has finished, so there is
+        nothing to recommend.
+    """
+    rec = (res.get("verdict") or {}).get("recommended")
+    if rec is None or rec.get("rank") is None:
+        raise InputError(f"sweep {res['sweep_id']} has no configuration whose every trial is "
+                         "done, so none can be recommended; resume the sweep to finish it",
+                         setting="config")
+    return int(rec["rank"])
+
+
 # --------------------------------------------------------------------------- the words
 def configuration_label(c: dict) -> str:
     """``relu/identity [64,32] lr 0.001 alpha 0.0001``: a configuration in one phrase."""
