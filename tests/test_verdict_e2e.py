@@ -387,3 +387,36 @@ def test_too_few_test_rows_per_fold_are_warned_about(tmp_path):
         res = sweep_results(st, run_sweep(plan, store=st, backend="inline").sweep_id)
     few = [w for w in res["warnings"] if w["code"] == "few_test_rows"]
     assert len(few) == 1 and re.search(r"\bOnly 12 test rows per fold \(fewer than 30", few[0]["text"])
+
+
+def test_candidates_and_the_honest_score_come_from_their_own_configurations(cancer):
+    """Each candidate's best configuration, robustness and BBC-CV estimate are over the
+    configurations with its value only; the winner's over all (bbc_cv on the stored
+    out-of-fold predictions, the columns picked here by the JSON's settings)."""
+    from workbench.sweep.bbc import bbc_cv
+
+    res = cancer["res"]
+    done, _ = fold_matrix(res)
+    with Store(cancer["store"]) as st:
+        oof = st.out_of_fold(res["sweep_id"])  # columns in index order
+    column = {int(c): j for j, c in enumerate(oof.columns)}
+
+    def corrected(members):
+        cols = [column[c["index"]] for c in members]
+        return bbc_cv(oof.y, [p[:, cols] for p in oof.predictions], oof.folds, res["metric"],
+                      n_boot=1000, seed=0).estimate
+
+    for key, factor in (("hidden", ["hidden"]), ("head", ["head"]),
+                        ("hidden_head", ["hidden", "head"])):
+        assert len(res["candidates"][key]) == len({tuple(c[f] for f in factor) for c in done})
+        for cand in res["candidates"][key]:
+            value = cand["value"] if isinstance(cand["value"], list) else [cand["value"]]
+            members = [c for c in done if [c[f] for f in factor] == value]
+            best = max(members, key=lambda c: c["mean"])
+            assert (cand["best_index"], cand["best_rank"]) == (best["index"], best["rank"])
+            assert cand["best_mean"] == pytest.approx(best["mean"], abs=1e-12)
+            assert cand["robustness"] == pytest.approx(np.mean([c["mean"] for c in members]),
+                                                       abs=1e-12)
+            assert cand["n_settings"] == len(members)
+            assert cand["corrected"]["estimate"] == pytest.approx(corrected(members), abs=1e-12)
+    assert res["corrected_best"]["estimate"] == pytest.approx(corrected(done), abs=1e-12)
