@@ -16,7 +16,14 @@ import pytest
 
 from workbench.errors import InputError
 from workbench.sweep import store as store_mod
-from workbench.sweep.store import SCHEMA_VERSION, Store, default_store_path, table_fingerprint
+from workbench.sweep.store import (
+    SCHEMA_VERSION,
+    Store,
+    SweepLock,
+    default_store_path,
+    lock_held,
+    table_fingerprint,
+)
 
 PLAN = {"folds": 2, "repeats": 1, "metric": "r2", "table": "t.csv", "target": "y",
         "task": "regression", "target_kind": "signed"}
@@ -38,7 +45,8 @@ def _digest(path):
 
 def test_round_trip_wal_and_version(tmp_path):
     path = tmp_path / "s.sqlite"
-    with Store(path) as st:
+    with Store(path) as st, SweepLock(path, "a") as lock:
+        assert lock.acquire()  # what run_sweep holds while it runs the sweep
         st.create_sweep("a", PLAN, FP, CONFIGS)
         st.add_trial("a", _trial(0, 0, 0.5))
         assert st.schema_version == SCHEMA_VERSION
@@ -148,15 +156,58 @@ def test_older_schema_is_migrated_step_by_step(tmp_path, monkeypatch):
         Store(path)
 
 
-def test_a_running_sweep_whose_process_is_gone_counts_as_interrupted(tmp_path):
+def _hold_lock_in_a_child(path, sweep_id):
+    """A child process that takes the sweep's lock, says so, and waits to be killed."""
+    code = ("import sys, time; from workbench.sweep.store import SweepLock; "
+            f"lock = SweepLock({str(path)!r}, {sweep_id!r}); "
+            "print('held' if lock.acquire() else 'refused', flush=True); "
+            "sys.stdin.read()")
+    proc = subprocess.Popen([sys.executable, "-c", code], stdin=subprocess.PIPE,
+                            stdout=subprocess.PIPE, text=True)
+    return proc, proc.stdout.readline().strip()
+
+
+def test_running_is_judged_by_the_lock_not_by_the_process_id_or_host(tmp_path):
+    """A reused process id or another host name cannot keep a sweep 'running' (issue 13,
+    item 4): only a process holding the sweep's lock can."""
     path = tmp_path / "s.sqlite"
     with Store(path) as st:
         st.create_sweep("a", PLAN, FP, CONFIGS)
-        proc = subprocess.Popen([sys.executable, "-c", "pass"])
-        proc.wait()
-        st._conn.execute("UPDATE sweeps SET pid=? WHERE id='a'", (proc.pid,))
+        # the stored process id is alive (this very process) and the host is another one:
+        # the former rule said "still running" forever; nobody holds the lock
+        st._conn.execute("UPDATE sweeps SET pid=?, host='another-container' WHERE id='a'",
+                         (os.getpid(),))
         assert st.get_sweep("a")["state"] == "interrupted"
         assert st.list_sweeps()[0]["state"] == "interrupted"
+        proc, said = _hold_lock_in_a_child(path, "a")
+        try:
+            assert said == "held"
+            assert lock_held(path, "a")
+            assert st.get_sweep("a")["state"] == "running"
+            mine = SweepLock(path, "a")
+            assert not mine.acquire()  # taken by the child
+        finally:
+            proc.kill()
+            proc.wait()
+        # the kernel dropped the dead child's lock; its file is still there, and taken over
+        assert SweepLock(path, "a").path.exists()
+        assert st.get_sweep("a")["state"] == "interrupted"
+        assert mine.acquire() and lock_held(path, "a")
+        assert st.get_sweep("a")["state"] == "running"
+        mine.release()
+        assert not mine.path.exists() and not lock_held(path, "a")
+
+
+def test_two_locks_of_one_sweep_exclude_each_other_in_one_process(tmp_path):
+    """flock locks belong to the open file: two threads of the window cannot both run it."""
+    a, b = SweepLock(tmp_path / "s.sqlite", "x"), SweepLock(tmp_path / "s.sqlite", "x")
+    assert a.acquire() and not b.acquire()
+    a.release()
+    assert b.acquire()
+    b.release()
+    # an id that is no safe file name gets a hashed one, still beside the store
+    odd = SweepLock(tmp_path / "s.sqlite", "../../etc/passwd")
+    assert odd.path.parent == tmp_path / "s.sqlite.locks" and odd.path.suffix == ".lock"
 
 
 def test_fingerprint_is_the_files_sha256_shape_and_columns(tmp_path):

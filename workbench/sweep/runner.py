@@ -77,17 +77,26 @@ from __future__ import annotations
 
 import collections
 import datetime as _dt
+import os
 import secrets
 import sqlite3
 import threading
 import time
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
 from workbench.errors import InputError
 from workbench.sweep.plan import SweepPlan
-from workbench.sweep.store import FINISHED, INTERRUPTED, RUNNING, Store, table_fingerprint
+from workbench.sweep.store import (
+    FINISHED,
+    INTERRUPTED,
+    RUNNING,
+    Store,
+    SweepLock,
+    table_fingerprint,
+)
 from workbench.sweep.trials import (
     CANCELLED,
     DONE,
@@ -177,7 +186,8 @@ def default_jobs() -> int:
 def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
               resume: str | None = None, jobs: int | None = None, cluster=None,
               backend: str = "processes", on_event=None, cancel: threading.Event | None = None,
-              retries: int = RETRIES, sweep_id: str | None = None) -> SweepOutcome:
+              retries: int = RETRIES, sweep_id: str | None = None,
+              table=None) -> SweepOutcome:
     """Run a sweep (or the missing trials of a stored one) and store every trial.
 
     Parameters
@@ -189,7 +199,8 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
     resume : str, optional
         Id of a stored sweep to finish.
     jobs : int, optional
-        Worker processes (default: every core).
+        Worker processes (default: every core; never more than the cores,
+        :func:`default_jobs`).
     cluster : str or distributed.Client, optional
         A Dask scheduler address (``tcp://HOST:PORT``) or a connected client.
     backend : {"processes", "inline"}
@@ -202,6 +213,10 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
         Extra attempts for a trial whose worker died.
     sweep_id : str, optional
         Id for a new sweep (default: time stamp + random suffix).
+    table : path, optional
+        With ``resume``: where the sweep's table is now, when it was moved. Its
+        SHA-256 fingerprint must still match the stored one; the new path is
+        then stored in the sweep's plan.
 
     Returns
     -------
@@ -211,7 +226,9 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
     ------
     InputError
         for a bad plan, an unknown sweep, a table that no longer matches the
-        stored fingerprint, or a sweep still running in another process.
+        stored fingerprint, a sweep being run by another process (it holds the
+        sweep's lock, :class:`workbench.sweep.store.SweepLock`), or a store that
+        cannot be written (read-only, full).
     """
     t0 = time.perf_counter()
     store = store if store is not None else Store()
@@ -219,60 +236,99 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
     emit = on_event if on_event is not None else (lambda event: None)
     if (plan is None) == (resume is None):
         raise InputError("give either a plan for a new sweep or the id of a sweep to resume")
+    if table is not None and resume is None:
+        raise InputError("a new location of the table is for resuming a sweep; a new sweep "
+                         "reads the plan's table", setting="table")
     if jobs is not None and int(jobs) < 1:
         raise InputError(f"the number of worker processes must be at least 1, got {jobs}",
                          setting="jobs")
+    if backend not in ("processes", "inline") and cluster is None:
+        raise InputError(f"unknown backend {backend!r}; use processes or inline")
+    store.check_writable()  # a read-only store is refused before any work
+    clean_abandoned_copies()
     if resume is not None:
-        sweep = store.get_sweep(resume)
+        lock = SweepLock(store.path, resume)
+        store.get_sweep(resume)  # an unknown sweep is named first
+        if not lock.acquire():
+            raise InputError(f"sweep {resume} is being run by another process right now (it "
+                             "holds the sweep's lock); wait for it to finish, or stop it and "
+                             "resume it then", setting="sweep")
+    else:
+        sweep_id = sweep_id or new_sweep_id()
+        lock = SweepLock(store.path, sweep_id)
+        if not lock.acquire():
+            raise InputError(f"a sweep {sweep_id} is being run by another process; choose "
+                             "another sweep id", setting="sweep")
+    try:
+        return _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit,
+                           cancel, retries, table, t0)
+    finally:
+        lock.release()
+
+
+def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, cancel, retries,
+                table, t0) -> SweepOutcome:
+    """:func:`run_sweep` once the sweep's lock is held."""
+    if resume is not None:
+        sweep = store.get_sweep(resume)  # read again under the lock
         if sweep["state"] == FINISHED and sweep["n_stored"] >= sweep["n_trials"]:
             raise InputError(f"sweep {resume} is already finished; its results are stored, "
                              "there is nothing left to run", setting="sweep")
-        if sweep["state"] == RUNNING:
-            raise InputError(f"sweep {resume} is still running (process {sweep['pid']} on "
-                             f"{sweep['host']}); wait for it or stop it first", setting="sweep")
         plan = SweepPlan.from_dict(sweep["plan"])
+        if table is not None:
+            plan.table = str(Path(table).expanduser().resolve())
+        if not Path(plan.table).is_file():
+            raise InputError(f"the table of sweep {resume} is not found at {plan.table}; give "
+                             "its new location (its SHA-256 fingerprint is checked)",
+                             setting="table")
         data, fingerprint = load_data(plan)
         stored = sweep["fingerprint"]
         if fingerprint["sha256"] != stored["sha256"] or fingerprint["rows"] != stored["rows"] \
                 or fingerprint["columns"] != stored["columns"]:
-            raise InputError(f"the table {plan.table} has changed since sweep {resume} started "
-                             "(its SHA-256 fingerprint no longer matches), so the stored trials "
-                             "cannot be combined with new ones; start a new sweep",
-                             setting="sweep")
+            raise InputError(f"the table {plan.table} is not the one sweep {resume} started on "
+                             "(its SHA-256 fingerprint no longer matches: it changed since, or it "
+                             "is another file), so the stored trials cannot be combined with new "
+                             "ones; give the sweep's own table or start a new sweep",
+                             setting="table")
+        sweep_id = resume
+        done = store.finished_keys(sweep_id, baselines=True)
     else:
         data, fingerprint = load_data(plan)
+        done = set()
     folds = plan.fold_indices(data.y)  # an impossible split fails before anything is stored
+    todo = [t for t in plan.trials() if t.key not in done]
+    todo_baselines = [t for t in plan.baseline_trials() if t.key not in done]
     if cluster is not None:
         executor = _DaskExecutor(cluster, data)
     elif backend == "inline":
         executor = _InlineExecutor(data)
-    elif backend == "processes":
-        executor = _LokyExecutor(jobs or default_jobs(), data)
     else:
-        raise InputError(f"unknown backend {backend!r}; use processes or inline")
+        workers = min(int(jobs or default_jobs()), default_jobs())
+        executor = _LokyExecutor(workers, data, in_flight=len(todo) + len(todo_baselines))
     rows = sweep_rows(plan, data.y, folds)
     try:
         if resume is not None:
-            sweep_id = resume
             store.set_state(sweep_id, RUNNING)
+            if table is not None and str(plan.table) != str(sweep["plan"].get("table")):
+                store.set_table(sweep_id, plan.table)
             if store.sweep_rows(sweep_id) is None:  # stored before predictions were kept
                 store.put_rows(sweep_id, rows["target"], rows["folds"], rows["classes"])
-            done = store.finished_keys(sweep_id, baselines=True)
         else:
-            sweep_id = sweep_id or new_sweep_id()
-            store.create_sweep(
-                sweep_id, plan.to_dict(), fingerprint, [c.to_dict() for c in plan.configurations()],
-                baselines=[{"index": b.index, "name": b.name,
-                            "estimator": describe_baseline(plan.task, b.name, plan.metric)}
-                           for b in plan.baseline_configurations()],
-                rows=rows)
-            done = set()
+            try:
+                store.create_sweep(
+                    sweep_id, plan.to_dict(), fingerprint,
+                    [c.to_dict() for c in plan.configurations()],
+                    baselines=[{"index": b.index, "name": b.name,
+                                "estimator": describe_baseline(plan.task, b.name, plan.metric)}
+                               for b in plan.baseline_configurations()],
+                    rows=rows)
+            except sqlite3.IntegrityError:
+                raise InputError(f"a sweep {sweep_id} is already stored; choose another sweep "
+                                 "id", setting="sweep") from None
     except BaseException:
         executor.close(kill=True)
         raise
     configs = plan.configurations() + plan.baseline_configurations()
-    todo = [t for t in plan.trials() if t.key not in done]
-    todo_baselines = [t for t in plan.baseline_trials() if t.key not in done]
     run = _Run(plan, configs, folds, sweep_id, store, emit, cancel, len(todo))
     for t in store.trials(sweep_id, with_history=False):
         run.note_score(t)
@@ -287,19 +343,29 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
         interrupted = run.execute(executor, todo_baselines + todo, retries)
     except KeyboardInterrupt:
         run.cancel_running()
-        store.set_state(sweep_id, INTERRUPTED)
-        emit(run.finished_event(INTERRUPTED, t0))
         executor.close(kill=True)
+        _mark_interrupted(store, sweep_id)
+        emit(run.finished_event(INTERRUPTED, t0))
         raise
     except BaseException:
-        store.set_state(sweep_id, INTERRUPTED)
+        # e.g. a full disk: stop the workers first; the state is a courtesy (the lock,
+        # released by the caller, is what tells that nobody runs the sweep any more)
         executor.close(kill=True)
+        _mark_interrupted(store, sweep_id)
         raise
     state = INTERRUPTED if interrupted else FINISHED
     executor.close(kill=interrupted)
     store.set_state(sweep_id, state)
     emit(run.finished_event(state, t0))
     return SweepOutcome(sweep_id, state, run.n_finished, len(todo), time.perf_counter() - t0)
+
+
+def _mark_interrupted(store: Store, sweep_id: str) -> None:
+    """Mark a sweep interrupted if the store can still be written (not on a full disk)."""
+    try:
+        store.set_state(sweep_id, INTERRUPTED)
+    except (InputError, sqlite3.Error):
+        pass
 
 
 class _Run:
@@ -480,6 +546,25 @@ _POOL: dict = {}
 _POOL_LOCK = threading.Lock()
 #: idle pool workers exit after this many seconds (and are started again when needed)
 POOL_IDLE_SECONDS = 300
+#: seconds between a pool worker's checks that the process that started it is alive
+PARENT_CHECK_SECONDS = 0.5
+
+
+def _watch_parent(parent_pid: int, period: float = PARENT_CHECK_SECONDS) -> None:
+    """Pool worker initializer: end this worker as soon as its parent is gone.
+
+    A worker whose parent was killed (SIGKILL, or SIGTERM without cleanup) is
+    adopted by another process (init or a sub-reaper), so its parent id
+    changes; a daemon thread notices within ``period`` seconds and ends the
+    worker at once, whatever trial it is running (nobody is left to store it).
+    """
+    def watch():
+        while True:
+            if os.getppid() != parent_pid:
+                os._exit(1)
+            time.sleep(period)
+
+    threading.Thread(target=watch, name="workbench-parent-watch", daemon=True).start()
 
 
 def _warm_pool(workers: int):
@@ -487,7 +572,8 @@ def _warm_pool(workers: int):
 
     The sweep keeps its own loky executor rather than the process-wide one that
     joblib (and so scikit-learn's ``n_jobs``) shares, so that neither can
-    reconfigure the other's workers.
+    reconfigure the other's workers. Each worker watches this process
+    (:func:`_watch_parent`) and ends with it.
     """
     from joblib.externals.loky import ProcessPoolExecutor
 
@@ -498,7 +584,8 @@ def _warm_pool(workers: int):
             ex = None
         if ex is None:
             ex = ProcessPoolExecutor(max_workers=workers, timeout=POOL_IDLE_SECONDS,
-                                     env=dict(_THREAD_ENV))
+                                     env=dict(_THREAD_ENV), initializer=_watch_parent,
+                                     initargs=(os.getpid(),))
             _POOL.update(executor=ex, workers=workers)
         return ex
 
@@ -518,31 +605,120 @@ def _drop_pool(ex):
     _shutdown(ex)
 
 
+# --------------------------------------------------------------------------- table copies
+
+#: the temporary folders of the table copies the local workers read: <tmp>/PREFIX*
+COPY_PREFIX = "workbench-sweep-"
+#: in each folder: the table copy, and a lock file its sweep holds while it runs
+COPY_NAME, COPY_LOCK = "table.pkl", "in-use.lock"
+
+
+def clean_abandoned_copies(root=None) -> list[str]:
+    """Remove the table copies left by sweeps whose process is gone.
+
+    Only a folder that is certainly ours and abandoned is removed: named
+    ``workbench-sweep-*`` in the temporary folder, owned by this user, holding
+    nothing but :data:`COPY_NAME` and :data:`COPY_LOCK`, and whose lock nobody
+    holds (the process that made it ended without cleaning up: killed, or a
+    crash). Returns the folders removed.
+    """
+    import tempfile
+
+    from workbench.sweep.store import file_unlock, try_file_lock
+
+    root = Path(root if root is not None else tempfile.gettempdir())
+    removed = []
+    try:
+        candidates = list(root.glob(COPY_PREFIX + "*"))
+    except OSError:  # pragma: no cover - an unreadable temporary folder
+        return removed
+    for folder in candidates:
+        try:
+            if folder.is_symlink() or not folder.is_dir() or \
+                    (hasattr(os, "getuid") and folder.stat().st_uid != os.getuid()):
+                continue
+            names = {p.name for p in folder.iterdir()}
+            if COPY_LOCK not in names or not names <= {COPY_NAME, COPY_LOCK}:
+                continue  # not made by this program (or by an older one): not ours to judge
+            fd = os.open(folder / COPY_LOCK, os.O_RDONLY)
+        except OSError:
+            continue
+        try:
+            if not try_file_lock(fd):
+                continue  # its sweep is running
+            try:
+                for name in (COPY_NAME, COPY_LOCK):
+                    try:
+                        (folder / name).unlink()
+                    except FileNotFoundError:
+                        pass
+                folder.rmdir()
+                removed.append(str(folder))
+            except OSError:
+                pass
+            finally:
+                file_unlock(fd)
+        finally:
+            os.close(fd)
+    return removed
+
+
+class _TableCopy:
+    """The table written once per sweep for the local workers, in its own temporary
+    folder with a lock file held while the sweep runs (see :func:`clean_abandoned_copies`)."""
+
+    def __init__(self, data):
+        import tempfile
+
+        import joblib
+
+        from workbench.sweep.store import try_file_lock
+
+        self.folder = Path(tempfile.mkdtemp(prefix=COPY_PREFIX))
+        self._fd = None
+        try:
+            self._fd = os.open(self.folder / COPY_LOCK, os.O_RDWR | os.O_CREAT, 0o600)
+            try_file_lock(self._fd)
+            self.path = str(self.folder / COPY_NAME)
+            joblib.dump(data, self.path)
+        except BaseException:
+            self.remove()
+            raise
+
+    def remove(self):
+        import shutil
+
+        shutil.rmtree(self.folder, ignore_errors=True)
+        if self._fd is not None:
+            os.close(self._fd)
+            self._fd = None
+
+
 class _LokyExecutor:
     """loky worker processes (the sweep's own pool, kept warm between sweeps).
 
     The table is written once per sweep to a temporary file that each worker
-    reads on its first trial (see :func:`workbench.sweep.trials.run_trial_from_file`).
+    reads on its first trial (see :func:`workbench.sweep.trials.run_trial_from_file`);
+    the file is removed when the sweep ends, and by the next sweep if this
+    process is killed (:func:`clean_abandoned_copies`). ``in_flight`` caps the
+    trials handed out at once (no more than there are trials to run).
     """
 
     name = "processes"
     asynchronous = True
 
-    def __init__(self, jobs, data):
-        import tempfile
-
-        import joblib
-
-        self.workers = int(jobs)
-        self._dir = tempfile.TemporaryDirectory(prefix="workbench-sweep-")
-        self._path = f"{self._dir.name}/table.pkl"
-        joblib.dump(data, self._path)
+    def __init__(self, jobs, data, in_flight=None):
+        self.pool_size = int(jobs)
+        self.workers = max(1, min(self.pool_size, int(in_flight))) if in_flight else \
+            self.pool_size
+        self._copy = _TableCopy(data)
+        self._path = self._copy.path
         self._token = data.token
         self._pool = None
 
     def _ensure(self):
         if self._pool is None:
-            self._pool = _warm_pool(self.workers)
+            self._pool = _warm_pool(self.pool_size)
         return self._pool
 
     def submit(self, spec):
@@ -581,7 +757,7 @@ class _LokyExecutor:
         if kill:
             self._stop_pool()
         self._pool = None
-        self._dir.cleanup()
+        self._copy.remove()
 
 
 def _check_scheduler_address(address: str) -> None:

@@ -54,20 +54,41 @@ Out-of-fold predictions (:meth:`Store.out_of_fold`) come back as an
 classifier) over the sweep's configurations, with the target and the fold of
 each row -- what :func:`workbench.sweep.bbc.bbc_cv` takes.
 
-A sweep whose state is ``running`` but whose process is gone (killed, crashed,
-machine rebooted) is reported as ``interrupted`` by :meth:`Store.list_sweeps`
-and :meth:`Store.get_sweep`; ``workbench sweep --resume`` finishes it.
+Who runs a sweep
+----------------
+The process running a sweep holds an operating-system lock on it
+(:class:`SweepLock`: ``flock`` on ``<store>.locks/<sweep id>.lock`` beside the
+store; ``msvcrt.locking`` on Windows). The kernel drops the lock when the process
+ends, however it ends (killed, crashed, machine rebooted), so a sweep whose state
+is ``running`` but whose lock nobody holds is reported as ``interrupted`` by
+:meth:`Store.list_sweeps` and :meth:`Store.get_sweep`, and can be resumed; the
+stored ``pid`` and ``host`` are kept for the record only (a reused process id or
+a new host name cannot make a sweep look alive). Two processes resuming the same
+sweep at once: the one that gets the lock runs it, the other is refused.
+
+Errors
+------
+SQLite's operational failures (a read-only file or folder, a full disk, a busy
+or damaged database) are raised as :class:`InputError` with one line naming the
+store; a failed transaction leaves nothing half-written. A store in a read-only
+folder is opened read-only (listing and showing work; writing is refused). A
+stored text that is not valid UTF-8 is read with U+FFFD in place of the bad
+bytes; a stored JSON field that does not parse is reported naming its sweep
+(and trial), never as a traceback.
 """
 
 from __future__ import annotations
 
 import datetime as _dt
+import hashlib
 import json
 import os
+import re
 import socket
 import sqlite3
 import sys
 import threading
+import time
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -230,23 +251,208 @@ def library_versions() -> dict:
     return out
 
 
-def _pid_alive(pid: int | None) -> bool:
-    if not pid:
-        return False
+def _text(raw: bytes) -> str:
+    """SQLite TEXT as str; bytes that are not UTF-8 (a damaged row) read as U+FFFD."""
     try:
-        os.kill(int(pid), 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:  # pragma: no cover - someone else's process
+        return raw.decode("utf-8")
+    except UnicodeDecodeError:
+        return raw.decode("utf-8", "replace")
+
+
+def _read_only_failure(exc: BaseException) -> bool:
+    """Whether SQLite failed because the file or its folder cannot be written."""
+    text = str(exc).lower()
+    return "readonly" in text or "read-only" in text or "unable to open database file" in text
+
+
+def _store_error(path, exc: sqlite3.Error) -> InputError:
+    """One line for an operational failure of the store (read-only, full, busy, damaged)."""
+    text = str(exc)
+    low = text.lower()
+    if _read_only_failure(exc):
+        return InputError(f"the store {path} cannot be written ({text}): the file or its folder "
+                          "is read-only; nothing was changed; make it writable or choose another "
+                          "store file", setting="store")
+    if "full" in low or "disk i/o" in low:
+        return InputError(f"the disk holding the store {path} is full ({text}); every trial "
+                          "stored before this one is kept; free some space, then resume the "
+                          "sweep", setting="store")
+    if "locked" in low or "busy" in low:
+        return InputError(f"the store {path} is busy ({text}): another program holds it; try "
+                          "again when it is done, or choose another store file", setting="store")
+    if isinstance(exc, sqlite3.OperationalError):
+        return InputError(f"the store {path} failed ({text}); nothing was half-written; check "
+                          "the disk, or choose another store file", setting="store")
+    return InputError(f"the store {path} is damaged ({text}); it was left as it is; move it "
+                      "away or choose another store file", setting="store")
+
+
+def lock_folder(store_path) -> Path:
+    """The folder beside the store that holds the sweeps' lock files."""
+    store_path = Path(store_path)
+    return store_path.with_name(store_path.name + ".locks")
+
+
+def _lock_name(sweep_id: str) -> str:
+    sid = str(sweep_id)
+    if re.fullmatch(r"[A-Za-z0-9_-][A-Za-z0-9._-]{0,99}", sid):
+        return sid + ".lock"
+    return hashlib.sha256(sid.encode("utf-8", "surrogatepass")).hexdigest()[:32] + ".lock"
+
+
+def try_file_lock(fd: int, shared: bool = False) -> bool:
+    """Take the OS lock on an open file without waiting; False when someone holds it."""
+    if os.name == "nt":  # pragma: no cover - Windows: a byte-range lock on byte 0
+        import msvcrt
+
+        try:
+            msvcrt.locking(fd, msvcrt.LK_NBLCK, 1)
+            return True
+        except OSError:
+            return False
+    import fcntl
+
+    try:
+        fcntl.flock(fd, (fcntl.LOCK_SH if shared else fcntl.LOCK_EX) | fcntl.LOCK_NB)
         return True
-    except OSError:  # pragma: no cover
+    except (BlockingIOError, PermissionError):
         return False
-    # a zombie (killed child not yet reaped) is not running either
+
+
+def file_unlock(fd: int) -> None:
+    if os.name == "nt":  # pragma: no cover
+        import msvcrt
+
+        try:
+            os.lseek(fd, 0, os.SEEK_SET)
+            msvcrt.locking(fd, msvcrt.LK_UNLCK, 1)
+        except OSError:
+            pass
+        return
+    import fcntl
+
+    fcntl.flock(fd, fcntl.LOCK_UN)
+
+
+class SweepLock:
+    """The lock of one sweep, held by the process that runs it (module docstring).
+
+    ``flock`` locks belong to the open file, not to the process id: the kernel
+    releases them when the process ends in any way, they are not inherited by
+    the worker processes (Python opens files non-inheritable), and two
+    :class:`SweepLock` objects of the same sweep exclude each other even in one
+    process (two threads of the window).
+
+    Parameters
+    ----------
+    store_path : path
+        The store file; the lock file is ``<store>.locks/<sweep id>.lock``.
+    sweep_id : str
+    """
+
+    #: attempts to take a lock that a reader is testing at that very moment
+    ATTEMPTS = 20
+    #: seconds between two attempts (a reader holds its test lock for microseconds)
+    PAUSE = 0.05
+
+    def __init__(self, store_path, sweep_id: str):
+        self.sweep_id = str(sweep_id)
+        self.path = lock_folder(store_path) / _lock_name(self.sweep_id)
+        self._fd: int | None = None
+
+    @property
+    def held(self) -> bool:
+        """True while this object holds the lock."""
+        return self._fd is not None
+
+    def acquire(self) -> bool:
+        """Take the lock without waiting for a holder; False when another process
+        (or another :class:`SweepLock`) holds it.
+
+        Raises
+        ------
+        InputError
+            when the lock file cannot be made (a read-only folder).
+        """
+        if self._fd is not None:
+            return True
+        for _ in range(self.ATTEMPTS):
+            try:
+                self.path.parent.mkdir(exist_ok=True)
+                fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+            except FileNotFoundError:  # the folder was removed by a holder releasing its lock
+                continue
+            except OSError as exc:
+                raise InputError(f"cannot make the lock file {self.path} beside the store "
+                                 f"({exc.strerror}); the store's folder must be writable to run "
+                                 "a sweep", setting="store") from None
+            if try_file_lock(fd):
+                # the file may have been removed by a holder releasing it meanwhile:
+                # the lock counts only on the file that is still at the path
+                try:
+                    now = os.stat(self.path)
+                    mine = os.fstat(fd)
+                    same = (now.st_ino, now.st_dev) == (mine.st_ino, mine.st_dev)
+                except FileNotFoundError:
+                    same = False
+                if same:
+                    self._fd = fd
+                    try:  # for the record; the lock itself is what counts
+                        os.ftruncate(fd, 0)
+                        os.write(fd, f"{os.getpid()} {socket.gethostname()}\n".encode())
+                    except OSError:
+                        pass
+                    return True
+                os.close(fd)
+                continue
+            os.close(fd)
+            time.sleep(self.PAUSE)  # a holder, or a reader testing the lock this instant
+        return False
+
+    def release(self) -> None:
+        """Give the lock up (and remove its file)."""
+        fd, self._fd = self._fd, None
+        if fd is None:
+            return
+        try:
+            os.unlink(self.path)  # while still holding it, so no one locks a removed file
+        except OSError:
+            pass
+        try:
+            file_unlock(fd)
+        finally:
+            os.close(fd)
+        try:
+            self.path.parent.rmdir()  # only when empty
+        except OSError:
+            pass
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.release()
+
+
+def lock_held(store_path, sweep_id: str) -> bool:
+    """Whether a process holds the lock of ``sweep_id`` (i.e. runs it right now).
+
+    Reads only: a missing lock file means nobody holds it, and the test opens
+    the file read-only, so it works on a store in a read-only folder. The test
+    takes a shared lock for an instant; :meth:`SweepLock.acquire` retries past it.
+    """
+    path = lock_folder(store_path) / _lock_name(sweep_id)
     try:
-        with open(f"/proc/{int(pid)}/stat") as fh:
-            return fh.read().split(")")[-1].split()[0] != "Z"
+        fd = os.open(path, os.O_RDONLY)
     except OSError:
+        return False
+    try:
+        if try_file_lock(fd, shared=True):
+            file_unlock(fd)
+            return False
         return True
+    finally:
+        os.close(fd)
 
 
 @dataclass(frozen=True)
@@ -337,11 +543,17 @@ class Store:
                                  f"({why}); choose a writable store path",
                                  setting="store") from None
         self._conn = None
+        #: True when the store could only be opened for reading (a read-only file or folder)
+        self.read_only = False
         try:
-            self._conn = sqlite3.connect(str(self.path), timeout=30, isolation_level=None,
-                                         check_same_thread=False)
-            self._conn.row_factory = sqlite3.Row
-            self._open(existed)
+            try:
+                self._connect(str(self.path), uri=False)
+                self._open(existed)
+            except sqlite3.OperationalError as exc:
+                if not existed or not _read_only_failure(exc):
+                    raise
+                self._close_quietly()
+                self._open_read_only()
         except sqlite3.OperationalError as exc:
             self._close_quietly()
             raise InputError(f"cannot open the store {self.path} ({exc}); check that it is "
@@ -353,6 +565,36 @@ class Store:
                              f"({exc}); it was left untouched; move it away or choose another "
                              "store file", setting="store") from None
 
+    def _connect(self, target: str, uri: bool):
+        self._conn = sqlite3.connect(target, timeout=30, isolation_level=None,
+                                     check_same_thread=False, uri=uri)
+        self._conn.row_factory = sqlite3.Row
+        self._conn.text_factory = _text
+
+    def _open_read_only(self):
+        """Open an existing store that cannot be written (a read-only file or folder).
+
+        ``mode=ro`` reads a WAL database whose ``-wal`` and ``-shm`` files exist or can
+        be made; in a read-only folder without them (the store was closed cleanly, so
+        the database file holds everything) SQLite needs ``immutable=1``.
+        """
+        from urllib.parse import quote
+
+        base = "file:" + quote(str(self.path.resolve()))
+        wal = self.path.with_name(self.path.name + "-wal")
+        modes = ["?mode=ro"] + ([] if wal.exists() and wal.stat().st_size else
+                                ["?mode=ro&immutable=1"])
+        for i, mode in enumerate(modes):
+            try:
+                self._connect(base + mode, uri=True)
+                self._open(True, read_only=True)
+                self.read_only = True
+                return
+            except sqlite3.OperationalError:
+                self._close_quietly()
+                if i == len(modes) - 1:
+                    raise
+
     # ------------------------------------------------------------------ opening
     def _check_header(self):
         with open(self.path, "rb") as fh:
@@ -362,7 +604,7 @@ class Store:
                              "another kind of file); it was left untouched; move it away or "
                              "choose another store file", setting="store")
 
-    def _open(self, existed: bool):
+    def _open(self, existed: bool, read_only: bool = False):
         c = self._conn
         c.execute("PRAGMA busy_timeout = 30000")
         version = c.execute("PRAGMA user_version").fetchone()[0]
@@ -389,7 +631,7 @@ class Store:
         if version < SCHEMA_VERSION:
             self._migrate(version)
         mode = c.execute("PRAGMA journal_mode").fetchone()[0]
-        if str(mode).lower() != "wal":
+        if str(mode).lower() != "wal" and not read_only:
             c.execute("PRAGMA journal_mode = WAL")
 
     def _migrate(self, version: int):
@@ -438,20 +680,57 @@ class Store:
 
     # ------------------------------------------------------------------ writing
     def _tx(self, statements):
+        """Run ``statements`` in one transaction: all of them or none.
+
+        Raises
+        ------
+        sqlite3.IntegrityError
+            for a row already stored (the caller decides).
+        InputError
+            for an operational failure (read-only, full disk, busy, damaged).
+        """
         c = self._conn
         with self._lock:
-            c.execute("BEGIN IMMEDIATE")
             try:
-                for sql, args in statements:
-                    c.execute(sql, args)
-                c.execute("COMMIT")
-            except BaseException:
-                c.execute("ROLLBACK")
+                c.execute("BEGIN IMMEDIATE")
+                try:
+                    for sql, args in statements:
+                        c.execute(sql, args)
+                    c.execute("COMMIT")
+                except BaseException:
+                    # SQLite may have rolled back already (a full disk): roll back only
+                    # a transaction still open, and let the first error speak
+                    if c.in_transaction:
+                        try:
+                            c.execute("ROLLBACK")
+                        except sqlite3.Error:
+                            pass
+                    raise
+            except sqlite3.IntegrityError:
                 raise
+            except sqlite3.Error as exc:
+                raise _store_error(self.path, exc) from None
 
     def _rows(self, sql, args=()):
         with self._lock:
-            return self._conn.execute(sql, args).fetchall()
+            try:
+                return self._conn.execute(sql, args).fetchall()
+            except sqlite3.Error as exc:
+                raise _store_error(self.path, exc) from None
+
+    def check_writable(self) -> None:
+        """Refuse a store that cannot be written, before any work is done.
+
+        Raises
+        ------
+        InputError
+            for a read-only file or folder (or a store another program holds).
+        """
+        if self.read_only:
+            raise InputError(f"the store {self.path} cannot be written: the file or its folder "
+                             "is read-only; make it writable or choose another store file",
+                             setting="store")
+        self._tx([])  # BEGIN IMMEDIATE takes the write lock: refused on a read-only file
 
     def create_sweep(self, sweep_id: str, plan: dict, fingerprint: dict,
                      configurations: list[dict], versions: dict | None = None,
@@ -526,6 +805,14 @@ class Store:
                    (state, t, t if state == FINISHED else None, socket.gethostname(),
                     os.getpid(), sweep_id))])
 
+    def set_table(self, sweep_id: str, table: str) -> None:
+        """Record where a sweep's table is now (a moved table whose fingerprint the
+        caller has checked); only the plan's ``table`` changes."""
+        plan = self.get_sweep(sweep_id)["plan"]
+        plan["table"] = str(table)
+        self._tx([("UPDATE sweeps SET plan=?, updated=? WHERE id=?",
+                   (json.dumps(plan), now_iso(), sweep_id))])
+
     def add_trial(self, sweep_id: str, result: dict) -> None:
         """Commit one finished trial in its own transaction.
 
@@ -559,18 +846,31 @@ class Store:
     def _sweep_dict(self, row) -> dict:
         d = dict(row)
         for k in ("plan", "fingerprint", "versions"):
-            d[k] = json.loads(d[k])
-        if d["state"] == RUNNING and d.get("host") == socket.gethostname() \
-                and not _pid_alive(d.get("pid")):
-            d["state"] = INTERRUPTED
+            d[k] = _json_field(d[k], f"sweep {d['id']}'s stored {k}", self.path)
+        if d["state"] == RUNNING and not lock_held(self.path, d["id"]):
+            d["state"] = INTERRUPTED  # its process is gone (nobody holds its lock)
         d["n_stored"] = self._rows("SELECT COUNT(*) FROM trials WHERE sweep_id=? AND "
                                    "config_index < ?", (d["id"], d["n_configurations"]))[0][0]
         return d
 
-    def list_sweeps(self) -> list[dict]:
-        """Every sweep, newest first, with its state and the number of stored trials."""
-        rows = self._rows("SELECT * FROM sweeps ORDER BY created DESC, id DESC")
-        return [self._sweep_dict(r) for r in rows]
+    def list_sweeps(self, damaged: bool = False) -> list[dict]:
+        """Every sweep, newest first, with its state and the number of stored trials.
+
+        A sweep whose stored plan, fingerprint or versions do not parse is left out,
+        or with ``damaged=True`` listed with state ``damaged``, ``plan`` ``{}`` and the
+        reason in ``damaged``.
+        """
+        out = []
+        for r in self._rows("SELECT * FROM sweeps ORDER BY created DESC, id DESC"):
+            try:
+                out.append(self._sweep_dict(r))
+            except InputError as exc:
+                if damaged:
+                    d = {k: r[k] for k in r.keys()}
+                    d.update(plan={}, fingerprint={}, versions={}, state="damaged",
+                             damaged=str(exc), n_stored=None)
+                    out.append(d)
+        return out
 
     def sweep_summaries(self) -> list[dict]:
         """One flat dict per stored sweep, newest first: what ``history`` lists.
@@ -579,11 +879,12 @@ class Store:
         n_configurations, n_trials, n_stored``.
         """
         out = []
-        for s in self.list_sweeps():
+        for s in self.list_sweeps(damaged=True):
             p = s["plan"]
             out.append({"sweep_id": s["id"], "state": s["state"], "created": s["created"],
                         "updated": s["updated"], "finished": s["finished"],
-                        "table": p["table"], "target": p["target"], "metric": p["metric"],
+                        "table": p.get("table", "?"), "target": p.get("target", "?"),
+                        "metric": p.get("metric", "?"),
                         "n_configurations": s["n_configurations"],
                         "n_trials": s["n_trials"], "n_stored": s["n_stored"]})
         return out
@@ -642,18 +943,17 @@ class Store:
             "ORDER BY t.config_index, t.repeat, t.fold", (sweep_id,))
         return self._trial_dicts(rows, with_history=False)
 
-    @staticmethod
-    def _trial_dicts(rows, with_history: bool) -> list[dict]:
+    def _trial_dicts(self, rows, with_history: bool) -> list[dict]:
         out = []
         for r in rows:
             d = dict(r)
-            d.pop("sweep_id")
+            sid = d.pop("sweep_id")
+            where = (f"sweep {sid}'s stored trial (configuration {d['config_index']}, repeat "
+                     f"{d['repeat']}, fold {d['fold']})")
+            history = d.pop("history")
             if with_history:
-                d["history"] = json.loads(d["history"] or "{}")
-                d["health"] = json.loads(d["health"] or "{}")
-            else:
-                d.pop("history")
-                d["health"] = json.loads(d["health"] or "{}")
+                d["history"] = _json_field(history or "{}", f"the history of {where}", self.path)
+            d["health"] = _json_field(d["health"] or "{}", f"the health of {where}", self.path)
             out.append(d)
         return out
 
@@ -678,7 +978,8 @@ class Store:
             return None
         r = found[0]
         n, reps = int(r["n_rows"]), int(r["repeats"])
-        classes = json.loads(r["classes"]) if r["classes"] is not None else None
+        classes = _json_field(r["classes"], f"sweep {sweep_id}'s stored class labels",
+                              self.path) if r["classes"] is not None else None
         target = np.frombuffer(r["target"], dtype=_F64 if classes is None else _I32)
         target = target.astype(np.float64 if classes is None else np.int64)
         folds = np.frombuffer(r["folds"], dtype=_I32).astype(np.int64).reshape(reps, n)
@@ -759,6 +1060,16 @@ class Store:
         return OutOfFold(y=rows["target"], classes=rows["classes"], folds=list(folds),
                          predictions=preds, columns=np.asarray(cols, dtype=np.int64),
                          complete=np.asarray(complete, dtype=bool))
+
+
+def _json_field(text: str, what: str, path) -> object:
+    """A stored JSON field, or one line naming what is damaged."""
+    try:
+        return json.loads(text)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"{what} in {path} is damaged (not readable JSON: {exc}); the store "
+                         "was left as it is; the other sweeps can still be read",
+                         setting="sweep") from None
 
 
 def _values(row) -> np.ndarray:
