@@ -86,6 +86,9 @@ def add_arguments(parser):
                         help="write the full results as JSON to OUT ('-' for stdout)")
     parser.add_argument("--resume", metavar="SWEEP_ID", default=None,
                         help="finish a stored sweep: run exactly its missing trials")
+    parser.add_argument("--table", metavar="PATH", default=None,
+                        help="with --resume: where the sweep's table is now, when it was moved "
+                             "(its SHA-256 is checked; default: the stored path)")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
@@ -189,6 +192,44 @@ def _write_json(res: dict, out: str) -> None:
                          "another path") from None
 
 
+def _capped_jobs(jobs):
+    """``--jobs``, capped at the cores (with a note on stderr: more workers than cores
+    only compete for them)."""
+    from workbench.sweep.runner import default_jobs
+
+    if jobs is None or jobs < 1:
+        return jobs  # the default, or refused by the sweep with its own message
+    cores = default_jobs()
+    if jobs > cores:
+        print(f"workbench: note: --jobs {jobs} is more than the {cores} cores of this computer; "
+              f"using {cores}", file=sys.stderr)
+        return cores
+    return jobs
+
+
+class _sigterm_as_interrupt:
+    """While the sweep runs, SIGTERM stops it like Ctrl-C: finished trials stay stored,
+    the workers and the table copy go, and the sweep can be resumed."""
+
+    def __enter__(self):
+        import signal
+        import threading
+
+        self._old = None
+        if threading.current_thread() is threading.main_thread():
+            def stop(signum, frame):
+                raise KeyboardInterrupt
+
+            self._old = signal.signal(signal.SIGTERM, stop)
+        return self
+
+    def __exit__(self, *exc):
+        import signal
+
+        if self._old is not None:
+            signal.signal(signal.SIGTERM, self._old)
+
+
 def run(args) -> int:
     from workbench.commands.show import format_results
     from workbench.sweep.bayes import check_rope
@@ -219,14 +260,23 @@ def run(args) -> int:
     else:
         if args.file is not None or args.target is not None or args.kind or args.role:
             raise InputError("--resume takes the table and plan from the store; drop FILE, "
-                             "--target, --kind and --role")
+                             "--target, --kind and --role (a moved table: --table PATH)")
         plan = None
+    if args.table is not None and args.resume is None:
+        raise InputError("--table is for --resume; a new sweep takes its table as FILE")
+    jobs = _capped_jobs(args.jobs)
     progress = Progress(quiet=args.quiet)
     store = Store(args.store)
     try:
         try:
-            outcome = run_sweep(plan, store=store, resume=args.resume, jobs=args.jobs,
-                                cluster=args.cluster, on_event=progress)
+            with _sigterm_as_interrupt():
+                outcome = run_sweep(plan, store=store, resume=args.resume, jobs=jobs,
+                                    cluster=args.cluster, on_event=progress, table=args.table)
+        except InputError as exc:
+            if args.resume is not None and exc.setting == "table":
+                # here the table is set with --table, not with the FILE argument
+                raise InputError(f"{exc} (set with --table)") from None
+            raise
         except KeyboardInterrupt:
             sid = progress.sweep_id
             if sid:

@@ -61,6 +61,7 @@ from __future__ import annotations
 
 import itertools
 from dataclasses import asdict, dataclass, field
+from pathlib import Path
 
 import numpy as np
 
@@ -94,6 +95,21 @@ LEARNING_RATE_GRID = (0.001, 0.0055, 0.03)
 
 #: the word that stands for :data:`LEARNING_RATE_GRID` in a list of learning rates
 TUNE = "tune"
+
+#: the most repeats a plan may have. Nadeau & Bengio's (2003) corrected variance of the
+#: mean fold difference (:mod:`workbench.sweep.statistics`) is s^2 (1/(k r) + n2/n1) with
+#: n2/n1 = 1/(k-1) for k folds; the second term does not shrink with r, and
+#: (1/(k r)) / (1/(k-1)) < 1/r, so at r = 100 the corrected standard error is within
+#: sqrt(1.01) = 1.005 of its limit for endless repeats, whatever k: more repeats narrow it
+#: by under 0.5 %, while each costs a full k-fold run and the plan's fold assignment
+#: grows by one row of the table per repeat.
+MAX_REPEATS = 100
+
+#: the most network trials (configurations x folds x repeats) a plan may have: at one
+#: second a trial (a small network on a few thousand rows) this is over half a day on
+#: two cores, beyond which a grid is better narrowed first (a design choice, not a
+#: cited figure); planning and storing such a sweep stay quick (one store row per trial)
+MAX_TRIALS = 100_000
 
 #: scikit-learn scorer names the sweep offers, per task
 CLASSIFICATION_METRICS = ("accuracy", "balanced_accuracy", "roc_auc", "neg_log_loss")
@@ -211,7 +227,11 @@ def parse_layers(text) -> tuple[int, ...]:
     if isinstance(text, int | np.integer):
         sizes = (int(text),)
     elif isinstance(text, str):
-        parts = [p for p in text.replace("x", ",").split(",") if p.strip()]
+        parts = text.replace("x", ",").split(",")
+        if any(not p.strip() for p in parts) and text.strip():
+            raise InputError(f"hidden-layer shape {text!r} has an empty width (two commas in a "
+                             "row, or one at an end); write e.g. 64 or 64,32", setting="layers")
+        parts = [p for p in parts if p.strip()]
         try:
             sizes = tuple(int(p) for p in parts)
         except ValueError:
@@ -455,7 +475,25 @@ class SweepPlan:
             raise InputError(f"the number of epochs must be at least 1, got {self.epochs}",
                              setting="epochs")
         self.folds, self.repeats, self.epochs = int(self.folds), int(self.repeats), int(self.epochs)
-        self.seed = int(self.seed)
+        if self.repeats > MAX_REPEATS:
+            raise InputError(f"the number of repeats is at most {MAX_REPEATS} (got {self.repeats}): "
+                             "beyond that, more repeats narrow the corrected t-test's standard "
+                             "error by under 0.5 %, at the cost of a full cross-validation each",
+                             setting="repeats")
+        if self.n_trials > MAX_TRIALS:
+            raise InputError(f"the plan has {self.n_configurations:,} configurations x "
+                             f"{self.folds} folds x {self.repeats} repeats = {self.n_trials:,} "
+                             f"trials, over the {MAX_TRIALS:,} a sweep may have; try fewer "
+                             "configurations, folds or repeats, or narrow the grid in two "
+                             "sweeps")
+        try:
+            self.seed = int(self.seed)
+        except (TypeError, ValueError):
+            raise InputError(f"the seed must be a whole number from 0 up, got {self.seed!r}",
+                             setting="seed") from None
+        if self.seed < 0:
+            raise InputError(f"the seed must be a whole number from 0 up, got {self.seed}",
+                             setting="seed")
         baselines = [str(b).strip().lower() for b in _split_list(self.baselines)]
         unknown = [b for b in baselines if b not in BASELINES]
         if unknown:
@@ -557,15 +595,27 @@ class SweepPlan:
         """
         y = np.asarray(y)
         n = len(y)
+        if n < 4:  # two folds of two rows: the least that trains and tests on each side
+            raise InputError(f"the table has {n} usable row{'s' if n != 1 else ''} (with a "
+                             "target); cross-validation needs at least 4 (two folds of two "
+                             "rows); add rows", setting="table")
         if n < 2 * self.folds:
-            raise InputError(f"the table has {n} usable rows, too few for {self.folds} folds; "
-                             "use fewer folds or more rows", setting="folds")
+            raise InputError(f"the table has {n} usable rows, too few for {self.folds} folds of "
+                             f"at least two rows; use at most {n // 2} folds, or more rows",
+                             setting="folds")
         if self.task == "classification":
-            _, counts = np.unique(y.astype(str), return_counts=True)
-            if counts.min() < self.folds:
-                raise InputError(f"the rarest class has {counts.min()} rows, fewer than the "
-                                 f"{self.folds} folds; use {max(2, int(counts.min()))} folds "
-                                 "or merge rare classes", setting="folds")
+            labels, counts = np.unique(y.astype(str), return_counts=True)
+            rarest = int(counts.min())
+            name = str(labels[int(np.argmin(counts))])
+            if rarest < 2:
+                raise InputError(f"class {name!r} of the target has only 1 row; stratified folds "
+                                 "need at least 2 rows of every class (one to train on, one to "
+                                 "test); add rows of that class, merge it with another, or "
+                                 "remove its row", setting="target")
+            if rarest < self.folds:
+                raise InputError(f"the rarest class ({name!r}) has {rarest} rows, fewer than "
+                                 f"the {self.folds} folds; use {rarest} folds, or merge "
+                                 "rare classes", setting="folds")
         out = {}
         for r in range(self.repeats):
             ys = y.astype(str) if self.task == "classification" else y
@@ -608,6 +658,28 @@ def _split_list(value) -> list[str]:
     for v in value:
         out.extend(p.strip() for p in str(v).split(",") if p.strip())
     return out
+
+
+def _refuse_empty(value, what: str, setting: str, example: str) -> None:
+    """Refuse a list the user gave with nothing in it, or with an empty item
+    (``''``, ``'relu,,gelu'``, ``'64,'``): None means "the default", an empty list
+    never does."""
+    if value is None:
+        return
+    items = [value] if isinstance(value, str) else list(value)
+    if not items:
+        raise InputError(f"the {what} list is empty; name at least one, or leave the setting "
+                         "out for the default", setting=setting)
+    for item in items:
+        if not isinstance(item, str):
+            continue
+        if not item.strip():
+            raise InputError(f"the {what} are given as an empty text; name at least one, or "
+                             "leave the setting out for the default", setting=setting)
+        if any(not part.strip() for part in item.split(",")):
+            raise InputError(f"the {what} {item!r} have an empty item (nothing between two "
+                             f"commas, or at an end); name each one, e.g. {example}",
+                             setting=setting)
 
 
 def _numbers(value, what: str, setting: str) -> list[float]:
@@ -716,10 +788,23 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
     from workbench.data.profiling import HIDDEN_TO_SWEEP, analyse_target
     from workbench.nets.activations import hidden_names
 
+    for value, what, setting, example in (
+            (hidden, "hidden activations", "hidden", "relu,gelu"),
+            (output, "output heads", "heads", "auto"),
+            (layers, "hidden-layer shapes", "layers", "64,32"),
+            (learning_rates, "learning rates", "learning_rate", "0.001,0.01"),
+            (alphas, "L2 strengths", "alpha", "0.0001,0.001")):
+        _refuse_empty(value, what, setting, example)  # before the table is read
     if df is None:
         from workbench.data.intake import load_table
 
-        df, _ = load_table(table, sheet=sheet)
+        df, report = load_table(table, sheet=sheet)
+        if sheet is not None and report.format != "xlsx":
+            # refused rather than ignored: a sweep is long and its plan keeps the sheet, and
+            # naming a sheet for a text or Parquet table most likely means another file
+            raise InputError(f"a worksheet ({sheet!r}) was named, but {Path(table).name} is a "
+                             f"{report.format} table, which has no worksheets; name none, or "
+                             "give the .xlsx workbook", setting="sheet")
     info = target_info if target_info is not None else analyse_target(df, target, kind=kind)
     names = _split_list(hidden) or ["default"]
     hid = []
@@ -741,8 +826,6 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
     lrs = list(LEARNING_RATE_GRID) if tune else \
         (_numbers(words, "learning rate", "learning_rate") or [0.001])
     als = _numbers(alphas, "alpha", "alpha") or [0.0001]
-    from pathlib import Path
-
     # the absolute path, so that --resume works from any folder
     plan = SweepPlan(table=str(Path(table).resolve()), target=target, task=info.task, target_kind=info.kind,
                      hidden=hid, heads=heads, layers=lays, learning_rates=lrs, alphas=als,
