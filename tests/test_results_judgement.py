@@ -238,3 +238,24 @@ def test_few_test_rows_threshold(tmp_path):
         assert "few_test_rows" in {w["code"] for w in sweep_results(st, "s")["warnings"]}
     with _store(tmp_path / "y", scores, fold_rows=5 * 30) as st:  # 30: enough
         assert "few_test_rows" not in {w["code"] for w in sweep_results(st, "s")["warnings"]}
+
+
+def test_predictions_bbc_cannot_score_leave_the_rest_of_the_document(tmp_path, monkeypatch):
+    from workbench.sweep import results
+
+    class Refusing:
+        predictions = [np.zeros((N, 2))]
+
+        def bbc(self, columns=None, **_):
+            raise ValueError("out-of-fold predictions must be finite")
+
+    monkeypatch.setattr(results, "_out_of_fold",
+                        lambda *a: (results._OncePerColumns(Refusing()), None))
+    scores = [np.linspace(0.7, 0.8, K), np.linspace(0.6, 0.7, K)]
+    with _store(tmp_path, scores) as st:
+        res = sweep_results(st, "s")
+    assert res["corrected_best"] == {"estimate": None, "low": None, "high": None,
+                                     "method": "not available: out-of-fold predictions must "
+                                               "be finite"}
+    assert res["verdict"]["recommended"]["rank"] == 1
+    assert all(c["corrected"]["estimate"] is None for c in res["candidates"]["hidden"])

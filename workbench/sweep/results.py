@@ -403,8 +403,22 @@ class _OncePerColumns:
         cols = tuple(range(self.n_columns)) if columns is None else tuple(int(c) for c in columns)
         key = (cols, int(n_boot), float(level), int(seed))
         if key not in self.runs:
-            self.runs[key] = self.oof.bbc(list(cols), n_boot=n_boot, level=level, seed=seed)
+            try:
+                self.runs[key] = self.oof.bbc(list(cols), n_boot=n_boot, level=level,
+                                              seed=seed)
+            except ValueError as exc:  # predictions BBC-CV cannot score: say why, go on
+                self.runs[key] = _NotCorrected(f"not available: {exc}")
         return self.runs[key]
+
+
+class _NotCorrected:
+    """Stands for a BBC-CV result that could not be computed (``to_dict`` says why)."""
+
+    def __init__(self, method: str):
+        self.method = method
+
+    def to_dict(self) -> dict:
+        return _unavailable(self.method)
 
 
 def _out_of_fold(store, sweep_id: str, metric: str, indices: list[int]):
