@@ -388,10 +388,12 @@ def test_float64_on_request(data):
 
 def test_he_init_bound(data):
     """init="he": uniform bound sqrt(6 / fan_in) for ReLU layers (He et al. 2015); the output
-    layer keeps scikit-learn's Glorot bound sqrt(6 / (fan_in + fan_out))."""
+    layer keeps scikit-learn's Glorot bound sqrt(6 / (fan_in + fan_out)) (output_init="sklearn";
+    the fair start's zero output layer is tested in tests/test_fair_contest.py)."""
     X, y = data
     m = NetRegressor((400,), activation="relu", init="he", solver="sgd", learning_rate_init=1e-300,
-                     momentum=0.0, max_iter=1, random_state=0, dtype="float64").fit(X, y)
+                     momentum=0.0, max_iter=1, random_state=0, dtype="float64",
+                     output_init="sklearn").fit(X, y)
     w0, w1 = m.coefs_
     bound0 = math.sqrt(6 / 4)
     assert np.max(np.abs(w0)) <= bound0 and np.max(np.abs(w0)) > 0.95 * bound0
@@ -432,10 +434,12 @@ def test_extreme_inputs_give_finite_probabilities(data, n_classes):
                                             ("softplus", 6.0)])
 def test_glorot_bound_for_every_activation(data, hidden, factor):
     """init="glorot" (default): uniform in +-sqrt(factor / (fan_in + fan_out)), factor 6
-    (Glorot & Bengio 2010) and 2 for logistic, scikit-learn's rule, applied to every layer."""
+    (Glorot & Bengio 2010) and 2 for logistic, scikit-learn's rule, applied to every layer
+    (the output layer too with output_init="sklearn")."""
     X, y = data
     m = NetRegressor((300, 200), activation=hidden, solver="sgd", learning_rate_init=1e-300,
-                     momentum=0.0, max_iter=1, random_state=0, dtype="float64").fit(X, y)
+                     momentum=0.0, max_iter=1, random_state=0, dtype="float64",
+                     output_init="sklearn").fit(X, y)
     for c, (fan_in, fan_out) in zip(m.coefs_, [(4, 300), (300, 200), (200, 1)]):
         bound = math.sqrt(factor / (fan_in + fan_out))
         assert np.max(np.abs(c)) <= bound
@@ -464,7 +468,8 @@ def test_network_health_of_a_scikit_learn_mlp_matches_the_engine():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ConvergenceWarning)
         ref = MLPRegressor(**kw).fit(X, y)
-        ours = NetRegressor(**kw, dtype="float64").fit(X, y)
+        ours = NetRegressor(**kw, dtype="float64", output_init="sklearn",
+                            tol_mode="absolute").fit(X, y)
     got = network_health(ref.coefs_, ref.intercepts_, "tanh", "identity", "regression", X, y)
     for key in ("dead", "saturated", "grad_norm"):
         np.testing.assert_allclose(got[key], ours.health_[key], rtol=1e-6, atol=1e-12)

@@ -5,6 +5,10 @@ Reference: ``sklearn.neural_network.MLPRegressor`` / ``MLPClassifier`` (scikit-l
 Bengio 2010, as scikit-learn draws them), same batch order, same loss definitions,
 L2 term and Adam bias correction (Kingma & Ba 2015), so ``loss_curve_`` must agree to
 a relative 1e-6 in float64 over 10 epochs, for adam and for sgd.
+
+Parity is the engine's ``output_init="sklearn", tol_mode="absolute"`` (:data:`PARITY`):
+scikit-learn's draw for the output layer and its absolute stopping rule. The engine's
+default, the fair start and the relative rule, is tested in ``tests/test_fair_contest.py``.
 """
 
 from __future__ import annotations
@@ -22,6 +26,8 @@ from workbench.nets.engine import NetClassifier, NetRegressor
 HIDDEN = ("identity", "logistic", "tanh", "relu")
 TASKS = ("regression", "poisson", "binary", "multiclass")
 RTOL = 1e-6
+#: the engine's scikit-learn mode: its output-layer draw and its absolute stopping rule
+PARITY = dict(output_init="sklearn", tol_mode="absolute")
 
 pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
 
@@ -51,10 +57,10 @@ def _pair(task, hidden, solver, **kw):
     if task in ("regression", "poisson"):
         loss = "poisson" if task == "poisson" else "squared_error"
         head = "exp" if task == "poisson" else "identity"
-        ours = NetRegressor(output_activation=head, dtype="float64", **common)
+        ours = NetRegressor(output_activation=head, dtype="float64", **PARITY, **common)
         ref = MLPRegressor(loss=loss, **common)
     else:
-        ours = NetClassifier(dtype="float64", **common)
+        ours = NetClassifier(dtype="float64", **PARITY, **common)
         ref = MLPClassifier(**common)
     return ours, ref
 
@@ -200,7 +206,7 @@ def test_float32_tracks_float64():
         warnings.simplefilter("ignore", ConvergenceWarning)
         kw = dict(hidden_layer_sizes=(6, 4), activation="tanh", batch_size=32, max_iter=10,
                   shuffle=False, random_state=3, learning_rate_init=0.01)
-        a = NetRegressor(dtype="float32", **kw).fit(X, y)
+        a = NetRegressor(dtype="float32", **PARITY, **kw).fit(X, y)
         b = MLPRegressor(**kw).fit(X, y)
     assert a.coefs_[0].dtype == np.float32
     np.testing.assert_allclose(a.loss_curve_, b.loss_curve_, rtol=1e-3)

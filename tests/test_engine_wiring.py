@@ -41,10 +41,12 @@ def _patch(monkeypatch, name, **changes):
 
 
 def _one_gd_step(X, y, name, lr):
-    """One full-batch step of plain gradient descent (sgd, no momentum, no L2)."""
+    """One full-batch step of plain gradient descent (sgd, no momentum, no L2), from
+    scikit-learn's random output layer (the fair start's zero output layer would send
+    no gradient to the first layer on the first step)."""
     return NetRegressor((5,), name, solver="sgd", momentum=0.0, alpha=0.0, batch_size=len(X),
                         learning_rate_init=lr, max_iter=1, shuffle=False, random_state=0,
-                        dtype="float64", monitor_health=False).fit(X, y)
+                        dtype="float64", monitor_health=False, output_init="sklearn").fit(X, y)
 
 
 @pytest.mark.parametrize("name", HIDDEN)

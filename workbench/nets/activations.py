@@ -45,7 +45,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.special import expit, ndtr
+from scipy.special import expit, logit, ndtr
 
 from workbench.nets import losses
 from workbench.nets.losses import LOSS_LABELS, Loss
@@ -656,6 +656,48 @@ def _exp_onnx(graph, z, output=None, **_):
     return graph.node("Exp", [clipped], output=output)
 
 
+def _open_range(m, low, high):
+    """``m`` as a float array, moved into the open interval ``(low, high)`` by the
+    smallest step its float type resolves (``eps`` of the type; ``low``/``high`` may
+    be infinite), so that an inverse link never returns an infinite pre-activation."""
+    m = _as_float(np.asarray(m))
+    eps = np.finfo(m.dtype).eps
+    lo = -INF if low == -INF else low + eps
+    hi = INF if high == INF else high - eps
+    return np.clip(m, lo, hi)
+
+
+def _identity_inverse(m):
+    return np.array(_as_float(np.asarray(m)), copy=True)
+
+
+def _relu_inverse(m):
+    # relu(z) = z for z >= 0: a mean >= 0 is its own pre-activation
+    return np.maximum(_as_float(np.asarray(m)), 0)
+
+
+def _softplus_inverse(m):
+    # softplus^-1(m) = log(e^m - 1) = log(expm1(m)), written m + log(-expm1(-m)) so that
+    # e^m never overflows for a large mean
+    m = _open_range(m, 0.0, INF)
+    return m + np.log(-np.expm1(-m))
+
+
+def _exp_inverse(m):
+    return np.log(_open_range(m, 0.0, INF))
+
+
+def _logit_inverse(m):
+    # logit(m) = log(m / (1 - m)): the log odds of a mean (or class share) in (0, 1)
+    return logit(_open_range(m, 0.0, 1.0))
+
+
+def _softmax_inverse(m):
+    # softmax(log m) = m / sum(m) = m for class shares summing to one; any constant
+    # added to every class gives the same distribution, log m is the one without it
+    return np.log(_open_range(m, 0.0, INF))
+
+
 @dataclass(frozen=True)
 class Head:
     """An output head: output activation + matched loss + the task it serves.
@@ -695,6 +737,7 @@ class Head:
     formula: str
     description: str
     serves: str
+    inverse: Callable
     derivative: Callable | None = None
     distribution: bool = False
     in_sklearn: bool = False
@@ -744,34 +787,39 @@ def _register_head(h: Head):
 _register_head(Head(
     "identity", "regression", losses.SQUARED_ERROR, _identity_, _identity_onnx, -INF, INF,
     "y = z", "Linear output for a signed (or any real) target.", serves="signed regression",
-    in_sklearn=True, aliases=("linear",)))
+    inverse=_identity_inverse, in_sklearn=True, aliases=("linear",)))
 _register_head(Head(
     "exp", "regression", losses.POISSON, _exp_, _exp_onnx, 0.0, INF, "y = e^z",
     "Positive output matched with the Poisson deviance, for counts.",
-    serves="count regression", in_sklearn=True))
+    serves="count regression", inverse=_exp_inverse, in_sklearn=True))
 _register_head(Head(
     "relu", "regression", losses.SQUARED_ERROR, _relu_, _op("Relu"), 0.0, INF,
     "y = max(0, z)", "Non-negative output; exact zeros are reachable.",
-    serves="non-negative regression", derivative=_relu_d))
+    serves="non-negative regression", inverse=_relu_inverse,
+    derivative=_relu_d))
 _register_head(Head(
     "softplus", "regression", losses.SQUARED_ERROR, _softplus_, _op("Softplus"), 0.0, INF,
     "y = log(1 + e^z)", "Smooth non-negative output that never goes flat.",
-    serves="non-negative regression", derivative=_softplus_d))
+    serves="non-negative regression", inverse=_softplus_inverse,
+    derivative=_softplus_d))
 _register_head(Head(
     "logistic", "regression", losses.SQUARED_ERROR, _logistic_, _op("Sigmoid"), 0.0, 1.0,
     "y = 1 / (1 + e^-z)",
     "Output bounded in [0, 1], for a target scaled to its known interval.",
-    serves="bounded regression", derivative=_logistic_d, aliases=("sigmoid",)))
+    serves="bounded regression", inverse=_logit_inverse, derivative=_logistic_d,
+    aliases=("sigmoid",)))
 _register_head(Head(
     "logistic", "classification", losses.BINARY_LOG_LOSS, _logistic_, _op("Sigmoid"),
     0.0, 1.0, "p = 1 / (1 + e^-z)",
     "Probability of the positive class, matched with log-loss.",
-    serves="binary classification", in_sklearn=True, aliases=("sigmoid",)))
+    serves="binary classification", inverse=_logit_inverse, in_sklearn=True,
+    aliases=("sigmoid",)))
 _register_head(Head(
     "softmax", "classification", losses.LOG_LOSS, _softmax_, _softmax_onnx, 0.0, 1.0,
     "p_k = e^z_k / sum_j e^z_j",
     "One probability per class, summing to one, matched with log-loss.",
-    serves="multiclass classification", distribution=True, in_sklearn=True))
+    serves="multiclass classification", inverse=_softmax_inverse, distribution=True,
+    in_sklearn=True))
 
 #: alias -> canonical name of an output head
 HEAD_ALIASES = {alias: h.name for h in HEADS.values() for alias in h.aliases}

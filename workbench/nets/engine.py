@@ -5,7 +5,11 @@ their meaning overlaps with :class:`sklearn.neural_network.MLPRegressor` /
 :class:`~sklearn.neural_network.MLPClassifier` they take the same parameters and
 follow the same arithmetic (loss definitions, L2 penalty, Glorot initialisation,
 Adam bias correction, SGD momentum, early stopping, batch order), so that with the
-same ``random_state`` both produce the same ``loss_curve_``. Beyond scikit-learn they
+same ``random_state`` and ``output_init="sklearn", tol_mode="absolute"`` both produce
+the same ``loss_curve_``. By default every head gets a fair start instead (the
+untrained network predicts the training mean, see ``_BaseNet._start_at_the_mean``)
+and the stopping rule reads the loss relative to that constant predictor's loss,
+so that heads whose losses differ in scale stop alike. Beyond scikit-learn they
 accept every hidden activation of :mod:`workbench.nets.activations` (one for all layers
 or one per layer), every output head with its matched loss, and record the health
 of each hidden layer per epoch (dead units, saturated units, gradient norms).
@@ -106,6 +110,8 @@ _CONSTRAINTS = {
     "epsilon": _Interval(_REAL, 0, None, "neither"),
     "leaky_slope": _Interval(_REAL, 0, 1, "left"),
     "init": {"glorot", "he"},
+    "output_init": {"mean", "sklearn"},
+    "tol_mode": {"relative", "absolute"},
     "dtype": {"float32", "float64"},
 }
 _BOOLS = ("shuffle", "warm_start", "nesterovs_momentum", "early_stopping", "monitor_health")
@@ -196,6 +202,20 @@ def _run_epoch(net, optimizer, X, y, batch_size, alpha):
     return total / n
 
 
+def _constant_loss(net, y) -> float:
+    """The head's data loss when every row is predicted by the column means of ``y``.
+
+    The mean is the constant that minimises the squared error, the Poisson deviance
+    and the log-loss alike (for 0/1 label columns it is the class shares), so this is
+    the loss of scikit-learn's ``DummyRegressor(strategy="mean")`` /
+    ``DummyClassifier(strategy="prior")`` in the network's own units: where the fair
+    start begins and the scale the relative stopping rule reads.
+    """
+    mean = y.mean(axis=0, dtype=np.float64).astype(y.dtype)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return float(net.data_loss(y, np.broadcast_to(mean, y.shape)))
+
+
 # --------------------------------------------------------------------------- estimators
 
 
@@ -232,6 +252,8 @@ class _BaseNet(BaseEstimator):
         n_iter_no_change=10,
         leaky_slope=act.LEAKY_SLOPE,
         init="glorot",
+        output_init="mean",
+        tol_mode="relative",
         dtype="float32",
         monitor_health=True,
     ):
@@ -260,6 +282,8 @@ class _BaseNet(BaseEstimator):
         self.n_iter_no_change = n_iter_no_change
         self.leaky_slope = leaky_slope
         self.init = init
+        self.output_init = output_init
+        self.tol_mode = tol_mode
         self.dtype = dtype
         self.monitor_health = monitor_health
 
@@ -304,7 +328,7 @@ class _BaseNet(BaseEstimator):
         self._random_state = check_random_state(self.random_state)
         net = Network(units, hidden, head, dtype, float(self.leaky_slope))
         if first_pass:
-            self._start_fresh(net, units, hidden)
+            self._start_fresh(net, units, hidden, y)
         else:
             self._continue_from_fitted(net)
         self.diverged_ = False
@@ -332,10 +356,12 @@ class _BaseNet(BaseEstimator):
                              "data (or use dtype='float64')")
         return X, (y.reshape(-1, 1) if y.ndim == 1 else y)
 
-    def _start_fresh(self, net, units, hidden):
+    def _start_fresh(self, net, units, hidden, y):
         self.n_iter_ = 0
         self.t_ = 0
         self._init_weights(net, units, hidden)
+        if self.output_init == "mean":
+            self._start_at_the_mean(net, y)
         self.loss_curve_ = []
         self._no_improvement_count = 0
         self.history_ = {"loss": [], "val_loss": [], "val_score": [], "dead": [],
@@ -373,6 +399,33 @@ class _BaseNet(BaseEstimator):
                 bound = act.glorot_bound(fan_in, fan_out)
             net.weights[i][...] = rng.uniform(-bound, bound, (fan_in, fan_out))
             net.intercepts[i][...] = rng.uniform(-bound, bound, fan_out)
+
+    def _start_at_the_mean(self, net, y):
+        """The fair start: the untrained network predicts the training mean for every row.
+
+        The output layer's weights start at zero and its intercept at the head's
+        inverse link of the column means of ``y`` as the network sees it (the scaled
+        target; the 0/1 label columns of a classifier, whose means are the class
+        shares): identity -> mean, relu -> mean, softplus -> log(expm1(mean)),
+        exp -> log(mean), logistic -> logit(mean) (the log prior odds for a
+        classifier), softmax -> log(class shares). Every head thus starts as the
+        constant predictor -- scikit-learn's ``DummyRegressor(strategy="mean")`` /
+        ``DummyClassifier(strategy="prior")`` -- at the loss of
+        :attr:`constant_loss_`, whatever its range or link; no head begins far from
+        the target or with an output unit stuck at zero. The hidden layers keep the
+        draws of :meth:`_init_weights` (the same random numbers as ``"sklearn"``).
+
+        Setting the output bias to the target's mean (and the logits to the class
+        priors) is common practice (Karpathy 2019, "A recipe for training neural
+        networks", "init well"); a zero last layer, so that the network starts as
+        that constant, follows Zhang, Dauphin & Ma (2019), "Fixup initialization"
+        (section 3, the last layer of each branch at zero). Adam's first steps move
+        the output weights away from zero at once; the hidden layers learn from the
+        second batch on.
+        """
+        mean = np.asarray(y, dtype=np.float64).mean(axis=0)
+        net.weights[-1][...] = 0
+        net.intercepts[-1][...] = net.head.inverse(mean)
 
     def _publish(self, net):
         self.coefs_ = list(net.weights)
@@ -424,6 +477,8 @@ class _BaseNet(BaseEstimator):
         optimizer = self._optimizer(net)
         epochs = _epoch_rows(data.X, data.y, self.shuffle, self._random_state)
         alpha = float(self.alpha)
+        self.constant_loss_ = _constant_loss(net, data.y)
+        self._loss_tol = self._loss_tolerance()
         last_good = net.theta.copy()
         best = None  # the parameters of the best validation score (early stopping)
         self.n_iter_ = 0
@@ -457,11 +512,29 @@ class _BaseNet(BaseEstimator):
         self.health_ = {key: self.history_[key][-1] if self.history_[key] else []
                         for key in ("dead", "saturated", "grad_norm")}
 
+    def _loss_tolerance(self) -> float:
+        """The improvement of the training loss that counts as progress.
+
+        ``tol_mode="absolute"``: ``tol`` itself (scikit-learn's rule). ``"relative"``:
+        ``tol * constant_loss_``, a share of the loss of predicting the training mean,
+        so that the rule reads every head's loss on its own scale: a head whose
+        loss is numerically small (a target mapped to [0, 1] has a squared error
+        about twenty times that of a standardised one smaller) does not stop early
+        for it. A constant target (``constant_loss_`` 0) keeps ``tol``.
+        """
+        if self.tol_mode == "relative" and math.isfinite(self.constant_loss_) \
+                and self.constant_loss_ > 0:
+            return float(self.tol) * self.constant_loss_
+        return float(self.tol)
+
     def _track_improvement(self, net, data, loss) -> bool:
         """scikit-learn's no-improvement count after an epoch, on the validation score
-        (early stopping) or the training loss. True when the validation score is a new best."""
+        (early stopping) or the training loss. True when the validation score is a new best.
+
+        The training loss must fall by :meth:`_loss_tolerance`; the validation score
+        (R^2 or accuracy, already free of the target's scale) by ``tol`` in both modes."""
         if data.X_val is None:
-            if loss > self.best_loss_ - self.tol:
+            if loss > self.best_loss_ - self._loss_tol:
                 self._no_improvement_count += 1
             else:
                 self._no_improvement_count = 0
@@ -560,6 +633,18 @@ class NetRegressor(RegressorMixin, _BaseNet):
     init : {"glorot", "he"}, default="glorot"
         ``glorot`` is scikit-learn's uniform Glorot rule; ``he`` uses
         ``sqrt(6 / fan_in)`` for ReLU-family hidden layers (He et al. 2015).
+    output_init : {"mean", "sklearn"}, default="mean"
+        ``mean``: the fair start -- output weights 0 and output intercept at the
+        head's inverse link of the training mean, so the untrained network predicts
+        the mean (class shares for a classifier) for every row, whatever the head.
+        ``sklearn``: scikit-learn's draw for the output layer too (with ``tol_mode=
+        "absolute"`` the fit then follows ``MLPRegressor``/``MLPClassifier`` exactly).
+        The hidden layers get the same draws either way.
+    tol_mode : {"relative", "absolute"}, default="relative"
+        Without early stopping, training stops once the loss has not fallen by
+        ``tol * constant_loss_`` (``relative``) or by ``tol`` (``absolute``,
+        scikit-learn's rule) for ``n_iter_no_change`` epochs. With early stopping the
+        validation score must rise by ``tol`` in both modes.
     dtype : {"float32", "float64"}, default="float32"
     monitor_health : bool, default=True
         Measure dead / saturated units and gradient norms after every epoch.
@@ -569,6 +654,10 @@ class NetRegressor(RegressorMixin, _BaseNet):
     coefs_, intercepts_ : list of ndarray
     loss_ : float
     loss_curve_ : list of float
+    constant_loss_ : float
+        The data loss of predicting the training mean (class shares) for every
+        row, in the network's units: where the fair start begins, and the scale of
+        the relative stopping rule.
     n_iter_ : int
     best_loss_ : float or None
     validation_scores_ : list of float or None
