@@ -89,7 +89,7 @@ import math
 import numpy as np
 
 from workbench.errors import InputError
-from workbench.sweep import bayes, bbc, factors, verdict
+from workbench.sweep import bayes, bbc, calibration, diagnosis, factors, verdict
 from workbench.sweep.statistics import ALPHA, corrected_ttest, is_tied, rank
 
 #: bootstrap samples of every BBC-CV estimate
@@ -144,7 +144,10 @@ def sweep_results(store, sweep_id: str, *, alpha: float = ALPHA, holm: bool = Fa
         train_mean, train_test_gap, underfit, dead, saturated`` and
         ``trials`` (``repeat, fold, test_score, train_score, fit_seconds,
         epochs, status, error, engine``), and ``mean_epochs`` (epochs run,
-        mean over the done trials). Configurations that are not
+        mean over the done trials), ``diagnosis`` (``{codes, text, findings}``,
+        :func:`workbench.sweep.diagnosis.add_diagnoses`) and ``calibration``
+        (:func:`workbench.sweep.calibration.add_summaries`; None without stored
+        predictions). Configurations that are not
         rankable (a trial diverged or failed, or none is stored yet) follow
         the ranked ones with ``mean`` over their done trials and no p-value;
         only configurations whose every trial is done get a decision.
@@ -202,6 +205,8 @@ def sweep_results(store, sweep_id: str, *, alpha: float = ALPHA, holm: bool = Fa
         "baselines": _baselines(store, sweep_id, expected, sweep["state"]),
     }
     _judge(doc, store, n_train, n_test, rope=rope, n_boot=n_boot, seed=seed, n_inputs=n_inputs)
+    diagnosis.add_diagnoses(doc, store)
+    calibration.add_summaries(doc, store)
     return doc
 
 
