@@ -27,7 +27,6 @@ from workbench.sweep.plan import (
     build_plan,
     choose_engine,
     default_metric,
-    sklearn_can_express,
 )
 from workbench.sweep.results import sweep_results
 from workbench.sweep.runner import run_sweep
@@ -74,11 +73,11 @@ def test_plan_grid_counts_engines_and_json_round_trip():
     assert len(cfgs) == plan.n_configurations == 3 * 2 * 2 * 2
     assert plan.n_trials == 24 * 3 * 2 == len(plan.trials())
     assert len({t.key for t in plan.trials()}) == plan.n_trials
-    engines = {(c.hidden, c.head): c.engine for c in cfgs}
-    assert engines[("relu", "exp")] == "sklearn"       # MLPRegressor(loss="poisson")
-    assert engines[("tanh", "exp")] == "sklearn"
-    assert engines[("relu", "softplus")] == "numpy"    # scikit-learn has no softplus head
-    assert engines[("gelu", "exp")] == "numpy"         # nor a gelu hidden layer
+    # the default engine (auto) is the NumPy engine for every configuration (issue 14)
+    assert {c.engine for c in cfgs} == {"numpy"}
+    asked = SweepPlan.from_dict({**plan.to_dict(), "engine": "sklearn",
+                                 "hidden": ["relu", "tanh"], "heads": ["exp"]})
+    assert {c.engine for c in asked.configurations()} == {"sklearn"}  # MLPRegressor(poisson)
     # a count target whose heads are not all positive falls back from the Poisson deviance
     assert plan.metric == "r2"
     again = SweepPlan.from_dict(json.loads(json.dumps(plan.to_dict())))
@@ -141,14 +140,22 @@ def test_the_command_line_tune_option_reaches_the_plan(tmp_path, capsys):
 
 
 def test_engine_choice_follows_what_scikit_learn_can_express():
-    assert choose_engine("auto", "classification", "relu", "logistic", "binary") == "sklearn"
-    assert choose_engine("auto", "classification", "relu", "softmax", "multiclass") == "sklearn"
-    assert choose_engine("auto", "classification", "relu", "softmax", "binary") == "numpy"
-    assert choose_engine("auto", "regression", "identity", "identity") == "sklearn"
-    assert choose_engine("auto", "regression", "logistic", "logistic") == "numpy"
+    # auto is the NumPy engine everywhere, even where scikit-learn's MLP could run it
+    assert choose_engine("auto", "classification", "relu", "logistic", "binary") == "numpy"
+    assert choose_engine("auto", "classification", "relu", "softmax", "multiclass") == "numpy"
+    assert choose_engine("auto", "regression", "identity", "identity") == "numpy"
+    assert choose_engine("auto", "regression", "relu", "exp") == "numpy"
     assert choose_engine("numpy", "regression", "relu", "identity") == "numpy"
-    with pytest.raises(InputError, match="cannot express"):
-        choose_engine("sklearn", "regression", "silu", "identity")
+    # sklearn where scikit-learn's MLP has the combination, refused elsewhere
+    assert choose_engine("sklearn", "classification", "relu", "logistic", "binary") == "sklearn"
+    assert choose_engine("sklearn", "classification", "tanh", "softmax", "multiclass") == "sklearn"
+    assert choose_engine("sklearn", "regression", "identity", "identity") == "sklearn"
+    assert choose_engine("sklearn", "regression", "logistic", "exp") == "sklearn"
+    for hidden, head, kind in (("silu", "identity", None), ("relu", "softmax", "binary"),
+                               ("relu", "logistic", None), ("tanh", "relu", None)):
+        task = "classification" if kind else "regression"
+        with pytest.raises(InputError, match="cannot express"):
+            choose_engine("sklearn", task, hidden, head, kind)
 
 
 def test_default_metrics_and_bad_plans():
@@ -219,11 +226,8 @@ def test_complete_small_sweep_on_each_sample_set(tmp_path, name, target, kind, m
     assert out.state == "finished" and out.n_finished == 4
     assert [c["status"] for c in res["configurations"]] == ["done", "done"]
     assert sum(len(c["trials"]) for c in res["configurations"]) == 4
-    # relu goes to scikit-learn's MLP when it has the head; gelu always to the NumPy engine
-    engines = {c["hidden"]: c["engine"] for c in res["configurations"]}
-    assert engines["gelu"] == "numpy"
-    assert engines["relu"] == ("sklearn" if sklearn_can_express(plan.task, "relu", plan.heads[0],
-                                                                kind) else "numpy")
+    # the default engine trains every configuration on the NumPy engine
+    assert {c["engine"] for c in res["configurations"]} == {"numpy"}
     best = res["configurations"][0]
     assert best["rank"] == 1 and best["tied_with_best"] and np.isfinite(best["mean"])
     if metric in ("roc_auc", "balanced_accuracy"):
@@ -468,7 +472,23 @@ def test_resume_refuses_a_changed_table(tmp_path):
     ("breast_cancer.csv", "target", "auto", "neg_log_loss"),
 ])
 def test_numpy_engine_matches_scikit_learn_at_sweep_level(bundled, tmp_path, table, target,
-                                                          output, metric):
+                                                          output, metric, monkeypatch):
+    """Reference: scikit-learn's MLP through the same sweep. The NumPy engine in its
+    scikit-learn mode (output_init="sklearn", tol_mode="absolute", put in by wrapping the
+    sweep's make_estimator) gives the same fold scores and epochs."""
+    from workbench.nets.engine import NetClassifier, NetRegressor
+    from workbench.sweep import trials
+
+    made = trials.make_estimator
+
+    def scikit_learn_mode(spec):
+        est = made(spec)
+        if isinstance(est, NetRegressor | NetClassifier):
+            assert est.output_init == "mean" and est.tol_mode == "relative"  # the sweep's
+            est.set_params(output_init="sklearn", tol_mode="absolute")
+        return est
+
+    monkeypatch.setattr(trials, "make_estimator", scikit_learn_mode)
     scores = {}
     with Store(tmp_path / "s.sqlite") as st:
         for engine in ("sklearn", "numpy"):

@@ -70,10 +70,11 @@ def _kinds_table(n: int = 24) -> pd.DataFrame:
 #: target name: (its values from the table's "num", the hidden activations, both engines?);
 #: every hidden activation meets every head of each task on both targets marked True
 TARGETS = {
-    "amount": (lambda s: (s - s.min() + 0.1).round(3), "all", True),  # every regression head
-    "label": (lambda s: np.where(s > 0, "x", "y"), "all", True),  # binary: logistic, softmax
-    "grade": (lambda s: np.digitize(s, [-0.5, 0.5]), "relu,gelu", False),  # 3 integer classes
-    "truth": (lambda s: s > 0, "relu,gelu", False),  # boolean labels
+    # name: (target, hidden activations, the heads scikit-learn's MLP also runs or None)
+    "amount": (lambda s: (s - s.min() + 0.1).round(3), "all", "identity,exp"),  # every head
+    "label": (lambda s: np.where(s > 0, "x", "y"), "all", "logistic"),  # binary: +softmax
+    "grade": (lambda s: np.digitize(s, [-0.5, 0.5]), "relu,gelu", "softmax"),  # 3 classes
+    "truth": (lambda s: s > 0, "relu,gelu", None),  # boolean labels
 }
 
 
@@ -84,13 +85,15 @@ def every_skops_file(tmp_path_factory):
     base = tmp_path_factory.mktemp("kinds")
     df = _kinds_table()
     files, seen = [], set()
-    for name, (make, hidden, both) in TARGETS.items():
+    for name, (make, hidden, sklearn_heads) in TARGETS.items():
         table = df.assign(**{name: make(df["num"])})
         path = base / f"{name}.csv"
         table.to_csv(path, index=False)
-        runs = [("auto", hidden)] + ([("numpy", ",".join(SKLEARN_HIDDEN))] if both else [])
-        for engine, hid in runs:
-            plan = build_plan(str(path), name, hidden=hid, output="all", layers=["3"],
+        # the default engine (NumPy) for every head, and scikit-learn's MLP where it can
+        runs = [("auto", hidden, "all")] + (
+            [("sklearn", ",".join(SKLEARN_HIDDEN), sklearn_heads)] if sklearn_heads else [])
+        for engine, hid, heads in runs:
+            plan = build_plan(str(path), name, hidden=hid, output=heads, layers=["3"],
                               epochs=2, folds=2, repeats=1, engine=engine)
             data, _ = load_data(plan)
             for cfg in plan.configurations():

@@ -65,8 +65,9 @@ def add_arguments(parser):
                              "balanced_accuracy multiclass, r2 continuous, "
                              "neg_mean_poisson_deviance counts with the exp head)")
     parser.add_argument("--engine", choices=("auto", "numpy", "sklearn"), default="auto",
-                        help="auto: scikit-learn's MLP where it can express the configuration, "
-                             "the NumPy engine otherwise (default auto)")
+                        help="auto and numpy: the NumPy engine for every configuration (fair "
+                             "start for every head); sklearn: scikit-learn's MLP where it can "
+                             "express the configuration (default auto)")
     parser.add_argument("--dtype", choices=("float32", "float64"), default="float32",
                         help="precision of the NumPy engine (default float32)")
     parser.add_argument("--jobs", type=int, metavar="N", default=None,

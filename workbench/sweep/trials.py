@@ -76,7 +76,14 @@ class TrialData:
 
 
 def make_estimator(spec: dict):
-    """The unfitted MLP for a trial description (see :func:`run_trial`)."""
+    """The unfitted MLP for a trial description (see :func:`run_trial`).
+
+    The NumPy engine gets the fair start (``output_init="mean"``: the untrained
+    network predicts the training mean, whatever the head) and the stopping rule
+    relative to the constant predictor's loss (``tol_mode="relative"``), so that every
+    head starts and stops alike; scikit-learn's MLP keeps its own initialisation and
+    absolute rule (it has no public way to set its output layer's start).
+    """
     cfg = spec["config"]
     common = dict(
         hidden_layer_sizes=tuple(cfg["layers"]),
@@ -101,7 +108,8 @@ def make_estimator(spec: dict):
 
     cls = NetClassifier if task == "classification" else NetRegressor
     return cls(activation=cfg["hidden"], output_activation=cfg["head"],
-               dtype=spec.get("dtype", "float32"), **common)
+               dtype=spec.get("dtype", "float32"), output_init="mean", tol_mode="relative",
+               **common)
 
 
 def estimator_for(plan, config, random_state: int = 0):
