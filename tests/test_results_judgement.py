@@ -30,7 +30,8 @@ def _store(tmp_path, scores, *, metric="r2", train=None, baselines=None, repeats
            statuses=None, fold_rows=N):
     """A finished sweep whose configuration c has fold scores ``scores[c]`` (K x repeats)."""
     plan = {"folds": K, "repeats": repeats, "metric": metric, "table": str(tmp_path / "gone.csv"),
-            "target": "y", "task": "regression", "target_kind": "signed", "roles": {}}
+            "target": "y", "task": "regression", "target_kind": "signed", "roles": {},
+            "epochs": 10}
     hidden = ["relu", "tanh", "gelu", "silu", "elu", "selu"]
     configs = [{"index": c, "hidden": hidden[c], "head": "identity", "layers": [4],
                 "learning_rate": 0.001, "alpha": 0.0001, "engine": "numpy"}
