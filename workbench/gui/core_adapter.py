@@ -522,6 +522,7 @@ def ranked_rows(store, sweep_id: str) -> dict:
                 "hints": health_hints(label, c["hidden"], health),
             },
         })
+        rows[-1]["series"].update(_series_extras(res, c, full.get(c["index"], []), label))
     meta = {k: v for k, v in res.items() if k != "configurations"}
     return {"meta": meta, "rows": rows}
 
@@ -558,3 +559,46 @@ def export(store_path: str | None, sweep_id: str, row: dict, folder: str,
         out = export_configuration(store, sweep_id, rank, folder, list(formats),
                                    on_progress=on_progress)
     return str(out)
+
+
+# --------------------------------------------------------------------------- plots' extras
+
+
+def _series_extras(res: dict, c: dict, trials: list[dict], label: str) -> dict:
+    """What the plots draw beyond the basic series: every curve the trials recorded (the
+    diverged trials' up to the blow-up), the loss's kind, the metric, the diagnosis."""
+    from workbench.sweep.diagnosis import loss_kind
+
+    ran = [t for t in trials if t["status"] in ("done", "diverged")]
+    done = [t for t in trials if t["status"] == "done"]
+    kind, words = loss_kind(res["task"], c["head"])
+    diagnosis = c.get("diagnosis") or {"codes": [], "text": "", "findings": []}
+
+    def band(key, of):
+        return _band([(t.get("history") or {}).get(key) or [] for t in of])
+
+    return {
+        "index": c["index"], "rank": c["rank"], "metric": res["metric"],
+        "loss": band("loss", ran), "test_loss": band("test_loss", done),
+        "test_score": band("test_score", done), "val": band("val_score", done),
+        "loss_kind": kind, "loss_words": words, "diagnosis": diagnosis,
+        "diverged": "diverged" in diagnosis["codes"],
+        "hints": [f"{label}: {f['text']}" for f in diagnosis["findings"]
+                  if f["code"] in ("dead_units", "saturated_units")],
+    }
+
+
+def calibration_points(store_path: str | None, sweep_id: str, indices: list[int]) -> dict:
+    """The calibration panel's data for the selected configurations
+    (:func:`workbench.sweep.calibration.points`)."""
+    from workbench.sweep.calibration import points
+
+    with StoreSession(store_path) as store:
+        return points(store, sweep_id, indices)
+
+
+def calibration_words(summary: dict | None) -> str:
+    """One line of a configuration's calibration or residual figures."""
+    from workbench.sweep.calibration import summary_words
+
+    return summary_words(summary)

@@ -1,16 +1,32 @@
-"""The three plot panels beside the results: learning curves, fold spread, layer health.
+"""The plot panels beside the results: learning curves, fold spread, layer health.
 
-Each panel takes a list of *series*, one per selected configuration, as built
-by :func:`workbench.gui.core_adapter.ranked_rows` (each row's ``series``)::
+Each panel takes a list of *series*, one per selected configuration, in rank
+order, as :class:`workbench.gui.plot_area.PlotArea` builds them from the rows
+of :func:`workbench.gui.core_adapter.ranked_rows`::
 
-    {"key": str, "label": str, "color": int,          # index into the theme's series colours
-     "loss": {"x", "mean", "lo", "hi"} or None,        # training loss per epoch, over folds
-     "val":  {"x", "mean", "lo", "hi"} or None,        # validation score per epoch
+    {"key": str, "label": str, "number": int,          # the rank shown in the legend
+     "color": int,                                     # index into the theme's series colours
+     "loss": band, "test_loss": band, "val": band, "test_score": band,  # per epoch, or None
+     "loss_kind": str, "loss_words": str, "metric": str,
      "fold_scores": [float, ...], "mean": float, "sd": float,
-     "health": {"dead": [..], "saturated": [..], "grad_norm": [..] or []},   # per layer, shares
-     "hints": [str, ...]}          # plain-words hints (workbench.sweep.diagnosis.health_hints)
+     "health": {"dead": [..], "saturated": [..], "grad_norm": [..]},   # per layer
+     "diverged": bool, "diagnosis": {"codes", "text", "findings"},
+     "hints": [str, ...]}
 
-Panels draw only: no statistics are computed here.
+with ``band = {"x", "mean", "lo", "hi"}``. Panels draw only; what they decide
+is how to show it:
+
+- **Outliers do not flatten the others** (:func:`robust_range`): a series the
+  core diagnosed as diverged, or one that would squeeze the others into less
+  than :data:`SQUEEZE` of the axis, is left out of the axis range; its part
+  outside is marked with a triangle at the edge and named in the note.
+- **One loss axis per loss kind**: training losses of heads with different
+  losses or target units cannot share an axis; when the selection mixes them,
+  a box picks the kind shown and the note says so.
+- **Empty state**: with nothing selected a panel shows a sentence, not empty
+  axes.
+- **Log axes** (gradient norms) are drawn as log10 values with their own ticks:
+  decades, or 1-2-5 steps within a decade, never more than a handful.
 """
 
 from __future__ import annotations
@@ -19,13 +35,32 @@ import math
 
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtCore import Qt
+from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QBrush, QColor, QPen
-from PySide6.QtWidgets import QLabel, QSizePolicy, QVBoxLayout, QWidget
+from PySide6.QtWidgets import (
+    QComboBox,
+    QFrame,
+    QHBoxLayout,
+    QLabel,
+    QScrollArea,
+    QSizePolicy,
+    QVBoxLayout,
+    QWidget,
+)
 
 from workbench.gui import theme as th
 
 pg.setConfigOptions(antialias=True, background="w", foreground="k")
+
+#: a series that would squeeze the others into less than this share of the axis is left
+#: out of the range (a display choice: a fifth of a ~110-pixel plot is ~20 pixels)
+SQUEEZE = 0.2
+#: the least height of a plot (pixels): two plots and their notes fit the ~220 pixels the
+#: window leaves under the results table at 1280 x 800
+MIN_PLOT_HEIGHT = 48
+#: drawn values are held within this many axis spans of the range (Qt paints very large
+#: coordinates badly; the part outside is marked as clipped anyway)
+DRAW_LIMIT = 20.0
 
 
 def _pen(color: QColor, width: float = 2.0, style=Qt.SolidLine) -> QPen:
@@ -42,10 +77,122 @@ def _alpha(color: QColor, a: int) -> QColor:
     return c
 
 
-class _Panel(QWidget):
-    """A titled panel holding one or more pyqtgraph plots and a note line."""
+def _finite(values) -> np.ndarray:
+    a = np.asarray([np.nan if v is None else v for v in values], dtype=float).ravel()
+    return a[np.isfinite(a)]
 
-    def __init__(self, title: str, parent=None):
+
+def _span(lo: float, hi: float) -> float:
+    return hi - lo
+
+
+def robust_range(groups: list, flagged: list[bool] | None = None,
+                 squeeze: float = SQUEEZE) -> tuple[float, float, list[int]] | None:
+    """An axis range that shows the ordinary series whole and leaves the outliers out.
+
+    Parameters
+    ----------
+    groups : list of array-like
+        The values each series puts on this axis (None and non-finite ignored).
+    flagged : list of bool, optional
+        Series known to be abnormal (diagnosed as diverged): left out of the range
+        whenever another series has values.
+    squeeze : float
+        A series is also left out when, with it, the range of the others would take
+        less than this share of the axis; the widest offender goes first, again
+        until none is left or one series remains.
+
+    Returns
+    -------
+    (low, high, clipped) or None
+        ``clipped``: the indices of the series with values outside [low, high];
+        None when no series has a finite value.
+    """
+    vals = [_finite(g) for g in groups]
+    flagged = list(flagged) if flagged is not None else [False] * len(vals)
+    have = [i for i, v in enumerate(vals) if len(v)]
+    if not have:
+        return None
+    keep = [i for i in have if not flagged[i]] or have
+
+    def extent(idx):
+        allv = np.concatenate([vals[i] for i in idx])
+        return float(allv.min()), float(allv.max())
+
+    while len(keep) > 1:
+        lo, hi = extent(keep)
+        worst, worst_span = None, None
+        for i in keep:
+            rest = [j for j in keep if j != i]
+            r_lo, r_hi = extent(rest)
+            if _span(lo, hi) > 0 and _span(r_lo, r_hi) < squeeze * _span(lo, hi):
+                if worst is None or _span(r_lo, r_hi) < worst_span:
+                    worst, worst_span = i, _span(r_lo, r_hi)
+        if worst is None:
+            break
+        keep.remove(worst)
+    lo, hi = extent(keep)
+    if lo == hi:
+        pad = abs(lo) * 0.05 or 0.5
+        lo, hi = lo - pad, hi + pad
+    clipped = [i for i in have if vals[i].min() < lo or vals[i].max() > hi]
+    return lo, hi, clipped
+
+
+def log_ticks(lo: float, hi: float, most: int = 5) -> list[tuple[float, str]]:
+    """Ticks for an axis of log10 values from ``lo`` to ``hi``: ``(log10 value, label)``.
+
+    Decades when the range spans at least one (thinned to at most ``most``), else the
+    1-2-5 steps inside it; labels in plain notation.
+    """
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        return []
+    lo, hi = min(lo, hi), max(lo, hi)
+    first, last = math.floor(lo), math.ceil(hi)
+    decades = [d for d in range(first, last + 1) if lo - 1e-9 <= d <= hi + 1e-9]
+    if len(decades) >= 2:
+        step = max(1, math.ceil(len(decades) / most))
+        return [(float(d), _plain(10.0 ** d)) for d in decades[::step]]
+    out = []
+    for d in range(first - 1, last + 1):
+        for m in (1, 2, 5):
+            v = math.log10(m) + d
+            if lo - 1e-9 <= v <= hi + 1e-9:
+                out.append((v, _plain(m * 10.0 ** d)))
+    if len(out) < 2:  # a range inside one 1-2-5 step: round values in even steps
+        v_lo, v_hi = 10.0 ** lo, 10.0 ** hi
+        raw = (v_hi - v_lo) / 3
+        mag = 10.0 ** math.floor(math.log10(raw)) if raw > 0 else 1.0
+        step = next(m * mag for m in (1, 2, 5, 10) if m * mag >= raw)
+        k = math.ceil(v_lo / step)
+        out = []
+        while k * step <= v_hi and len(out) < most:
+            v = k * step
+            if v > 0:
+                out.append((math.log10(v), _plain(float(f"{v:.6g}"))))
+            k += 1
+    step = max(1, math.ceil(len(out) / most))
+    return out[::step]
+
+
+def _plain(v: float) -> str:
+    if v == 0:
+        return "0"
+    if 1e-3 <= abs(v) < 1e4:
+        return f"{v:.4g}"
+    return f"{v:.0e}".replace("e-0", "e-").replace("e+0", "e")
+
+
+def _num(v: float) -> str:
+    if v is None or not math.isfinite(v):
+        return "n/a"
+    return f"{v:.3g}" if abs(v) >= 1e4 or (v != 0 and abs(v) < 1e-3) else f"{v:.3f}"
+
+
+class _Panel(QWidget):
+    """A titled panel holding pyqtgraph plots, an empty-state sentence and a note line."""
+
+    def __init__(self, title: str, empty_text: str, parent=None):
         super().__init__(parent)
         self.theme = th.LIGHT
         lay = QVBoxLayout(self)
@@ -53,17 +200,34 @@ class _Panel(QWidget):
         lay.setSpacing(2)
         self.title = QLabel(title)
         self.title.setObjectName("plotTitle")
-        lay.addWidget(self.title)
+        #: the title row: the title, then any control a panel adds on its right
+        self.header = QHBoxLayout()
+        self.header.setContentsMargins(0, 0, 0, 0)
+        self.header.addWidget(self.title, 1)
+        lay.addLayout(self.header)
         self.layout_ = lay
+        self.empty = QLabel(empty_text)
+        self.empty.setObjectName("muted")
+        self.empty.setWordWrap(True)
+        self.empty.setAlignment(Qt.AlignCenter)
+        self.empty.setSizePolicy(QSizePolicy.Preferred, QSizePolicy.Expanding)
+        lay.addWidget(self.empty, 1)
         self.note = QLabel("")
         self.note.setObjectName("muted")
         self.note.setWordWrap(True)
+        self.note.setTextFormat(Qt.PlainText)
         self.note.setSizePolicy(QSizePolicy.Preferred, QSizePolicy.Minimum)
         self._series: list[dict] = []
+        #: the labels of the series whose values run outside the shown range, per plot
+        self.clipped: dict[str, list[str]] = {}
 
-    def _plot(self, y_label: str, x_label: str | None = None) -> pg.PlotWidget:
+    def _plot(self, y_label: str, x_label: str | None = None, stretch: int = 1,
+              into=None) -> pg.PlotWidget:
         w = pg.PlotWidget()
-        w.setMinimumHeight(110)
+        w.setMinimumHeight(MIN_PLOT_HEIGHT)
+        # no preferred height of its own (pyqtgraph asks for 480 pixels): a plot takes the
+        # room its panel has, so a scroll area around the panels never grows them past it
+        w.setSizePolicy(QSizePolicy.Expanding, QSizePolicy.Ignored)
         w.setMenuEnabled(False)
         w.showGrid(x=True, y=True, alpha=0.18)
         w.setLabel("left", y_label)
@@ -72,7 +236,7 @@ class _Panel(QWidget):
         w.getPlotItem().getViewBox().setMouseEnabled(x=True, y=False)
         for name in ("left", "bottom"):
             w.getPlotItem().getAxis(name).enableAutoSIPrefix(False)
-        self.layout_.addWidget(w, 1)
+        (into if into is not None else self.layout_).addWidget(w, stretch)
         return w
 
     def _finish(self):
@@ -80,6 +244,11 @@ class _Panel(QWidget):
 
     def plots(self) -> list[pg.PlotWidget]:
         return []
+
+    def _show_empty(self, empty: bool) -> None:
+        self.empty.setVisible(empty)
+        for w in self.plots():
+            w.setVisible(not empty)
 
     def set_theme(self, theme: th.Theme) -> None:
         self.theme = theme
@@ -94,80 +263,209 @@ class _Panel(QWidget):
     def set_series(self, series: list[dict]) -> None:  # pragma: no cover - overridden
         raise NotImplementedError
 
+    # -- shared drawing ---------------------------------------------------------------
+    def _apply_range(self, plot: pg.PlotWidget, name: str, groups, series, flagged,
+                     curves=None) -> str:
+        """Set the y range robustly; mark and name what runs outside. Returns a note."""
+        found = robust_range(groups, flagged)
+        self.clipped[name] = []
+        if found is None:
+            return ""
+        lo, hi, clipped = found
+        plot.setYRange(lo, hi, padding=0.06)
+        plot.enableAutoRange(axis="y", enable=False)
+        if not clipped:
+            return ""
+        parts = []
+        for i in clipped:
+            s = series[i]
+            self.clipped[name].append(s["label"])
+            v = _finite(groups[i])
+            color = self.theme.series_color(s["color"])
+            if curves is not None and curves[i] is not None:
+                x, y = curves[i]
+                out = np.flatnonzero(np.isfinite(y) & ((y > hi) | (y < lo)))
+                if len(out):
+                    k = out[0]
+                    edge = hi if y[k] > hi else lo
+                    plot.addItem(pg.ScatterPlotItem([x[k]], [edge], symbol="t1" if edge == hi
+                                                    else "t", size=11, brush=color, pen=None))
+            ext = v.max() if v.max() > hi else v.min()
+            parts.append(f"#{s.get('number', i + 1)} (to {_num(float(ext))})")
+        return "Outside the range, marked ▲/▼: " + ", ".join(parts) + "."
+
+
+def _held(values, lo: float, hi: float) -> np.ndarray:
+    """Values held within :data:`DRAW_LIMIT` spans of the range, for drawing only."""
+    span = max(hi - lo, 1e-12)
+    return np.clip(np.asarray(values, float), lo - DRAW_LIMIT * span, hi + DRAW_LIMIT * span)
+
 
 class CurvesPanel(_Panel):
-    """Training loss and validation score per epoch: mean over folds with a ±1 sd band."""
+    """Training (and held-out) loss per epoch, and the held-out or validation score."""
+
+    #: the loss kind shown changed (its key)
+    kindChanged = Signal(str)
 
     def __init__(self, parent=None):
-        super().__init__("Learning curves", parent)
-        self.loss_plot = self._plot("training loss")
-        self.val_plot = self._plot("validation score", "epoch")
+        super().__init__("Learning curves",
+                         "Select one or more rows of the results to see their learning curves.",
+                         parent)
+        self.loss_label = QLabel("")
+        self.loss_label.setObjectName("muted")
+        self.loss_label.setTextFormat(Qt.PlainText)
+        self.kind_box = QComboBox()
+        self.kind_box.setToolTip("The selected configurations' heads report different losses; "
+                                 "pick the one to draw")
+        self.kind_box.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
+        self.kind_box.setMinimumContentsLength(24)
+        self.kind_box.currentIndexChanged.connect(self._kind_picked)
+        self.header.addWidget(self.loss_label)
+        self.header.addWidget(self.kind_box)
+        self.loss_plot = self._plot("loss", stretch=3)
+        self.val_plot = self._plot("score", "epoch", stretch=2)
         self.val_plot.setXLink(self.loss_plot)
-        self.legend = self.loss_plot.getPlotItem().addLegend(offset=(-8, 8), labelTextSize="8pt")
         self._finish()
         self._curves: list[pg.PlotDataItem] = []
+        self._kind: str | None = None
         self.set_series([])
 
     def plots(self):
         return [self.loss_plot, self.val_plot]
 
     def curve_items(self) -> list[pg.PlotDataItem]:
-        """The mean training-loss curves now drawn, one per configuration."""
+        """The mean training-loss curves now drawn, one per configuration shown."""
         return list(self._curves)
 
-    def _draw(self, plot: pg.PlotWidget, band: dict, color: QColor, label: str | None):
+    def _kind_picked(self, i: int) -> None:
+        key = self.kind_box.itemData(i)
+        if key and key != self._kind:
+            self._kind = key
+            self.set_series(self._series)
+            self.kindChanged.emit(key)
+
+    def _draw(self, plot, band, color, rng, dashed=False):
         x = np.asarray(band["x"], dtype=float)
-        mean = np.asarray(band["mean"], dtype=float)
-        lo = np.asarray(band["lo"], dtype=float)
-        hi = np.asarray(band["hi"], dtype=float)
-        if len(x) > 1:
-            c_lo = pg.PlotDataItem(x, lo, pen=pg.mkPen(None))
-            c_hi = pg.PlotDataItem(x, hi, pen=pg.mkPen(None))
-            fill = pg.FillBetweenItem(c_lo, c_hi, brush=QBrush(_alpha(color, 38)))
+        mean = _held(band["mean"], *rng)
+        if len(x) > 1 and not dashed:
+            lo, hi = _held(band["lo"], *rng), _held(band["hi"], *rng)
+            fill = pg.FillBetweenItem(pg.PlotDataItem(x, lo, pen=pg.mkPen(None)),
+                                      pg.PlotDataItem(x, hi, pen=pg.mkPen(None)),
+                                      brush=QBrush(_alpha(color, 38)))
             plot.addItem(fill)
-        item = plot.plot(x, mean, pen=_pen(color, 2.0), name=label,
+        style = Qt.DashLine if dashed else Qt.SolidLine
+        return plot.plot(x, mean, pen=_pen(color, 2.0, style),
                          symbol="o" if len(x) == 1 else None, symbolBrush=color,
                          symbolPen=None, symbolSize=6)
-        return item
 
-    def set_theme(self, theme):
-        bg = QColor(theme.plot_bg)
-        bg.setAlpha(215)
-        self.legend.setBrush(bg)
-        self.legend.setPen(_pen(QColor(theme.border), 1))
-        self.legend.setLabelTextColor(QColor(theme.plot_fg))
-        super().set_theme(theme)
+    @staticmethod
+    def _values(band):
+        if not band:
+            return []
+        return list(band["mean"]) + list(band["lo"]) + list(band["hi"])
 
     def set_series(self, series: list[dict]) -> None:
         self._series = list(series)
         self.loss_plot.clear()
         self.val_plot.clear()
-        self.legend.clear()
         self._curves = []
-        any_val = False
-        for s in self._series:
-            color = self.theme.series_color(s["color"])
-            if s.get("loss"):
-                self._curves.append(self._draw(self.loss_plot, s["loss"], color, s["label"]))
-            if s.get("val"):
-                any_val = True
-                self._draw(self.val_plot, s["val"], color, None)
+        self.clipped = {}
+        self._show_empty(not self._series)
         if not self._series:
-            self.note.setText("Select one or more rows of the results to see their curves.")
-        elif not any_val:
-            self.note.setText("Validation score per epoch is recorded when early stopping is on. "
-                              "Band: ±1 sd over folds.")
+            self.loss_label.setText("")
+            self.kind_box.hide()
+            self.note.setText("")
+            return
+        kinds: dict[str, str] = {}
+        for s in self._series:
+            if s.get("loss") and s.get("loss_kind"):
+                kinds.setdefault(s["loss_kind"], s.get("loss_words") or s["loss_kind"])
+        if self._kind not in kinds:
+            self._kind = next(iter(kinds), None)
+        self.kind_box.blockSignals(True)
+        self.kind_box.clear()
+        for key, words in kinds.items():
+            self.kind_box.addItem(words, key)
+        if self._kind is not None:
+            self.kind_box.setCurrentIndex(list(kinds).index(self._kind))
+        self.kind_box.blockSignals(False)
+        self.kind_box.setVisible(len(kinds) > 1)
+        notes = []
+        # ---- the loss plot: one kind of loss
+        shown = [s for s in self._series if s.get("loss")
+                 and (s.get("loss_kind") == self._kind or not s.get("loss_kind"))]
+        groups = [self._values(s.get("loss")) + self._values(s.get("test_loss")) for s in shown]
+        found = robust_range(groups, [bool(s.get("diverged")) for s in shown])
+        rng = found[:2] if found else (0.0, 1.0)
+        curves = []
+        any_test = False
+        for s in shown:
+            color = self.theme.series_color(s["color"])
+            self._curves.append(self._draw(self.loss_plot, s["loss"], color, rng))
+            if s.get("test_loss"):
+                any_test = True
+                self._draw(self.loss_plot, s["test_loss"], color, rng, dashed=True)
+            band = s["loss"]
+            curves.append((np.asarray(band["x"], float),
+                           np.asarray([np.nan if v is None else v for v in band["mean"]],
+                                      float)))
+        clip = self._apply_range(self.loss_plot, "loss", groups, shown,
+                                 [bool(s.get("diverged")) for s in shown], curves)
+        words = kinds.get(self._kind, "")
+        self.loss_label.setText("Loss:" if len(kinds) > 1 else f"Loss: {words}")
+        self.loss_label.setToolTip(words)
+        tips = ["Upper plot: training loss (solid)"
+                + (" and the held-out fold's loss (dashed)" if any_test else "")
+                + f", {words}. Lines: mean over folds and repeats; band: ±1 sd."]
+        notes.append("Mean over folds, band ±1 sd" + ("; dashed: held-out fold." if any_test
+                                                       else "."))
+        if len(kinds) > 1:
+            others = [s for s in self._series if s.get("loss") and s not in shown]
+            notes.append(f"Heads' losses differ: {len(others)} configuration(s) under the other "
+                         "kind (the box).")
+        if clip:
+            notes.append("Loss " + clip[0].lower() + clip[1:])
+        # ---- the score plot: held-out fold's score per epoch, else early stopping's
+        metric = next((s.get("metric") for s in self._series if s.get("metric")), "")
+        key = "test_score" if any(s.get("test_score") for s in self._series) else "val"
+        with_score = [s for s in self._series if s.get(key)]
+        sgroups = [self._values(s[key]) for s in with_score]
+        found = robust_range(sgroups, [bool(s.get("diverged")) for s in with_score])
+        srng = found[:2] if found else (0.0, 1.0)
+        scurves = []
+        for s in with_score:
+            color = self.theme.series_color(s["color"])
+            self._draw(self.val_plot, s[key], color, srng)
+            scurves.append((np.asarray(s[key]["x"], float),
+                            np.asarray([np.nan if v is None else v for v in s[key]["mean"]],
+                                       float)))
+        sclip = self._apply_range(self.val_plot, "score", sgroups, with_score,
+                                  [bool(s.get("diverged")) for s in with_score], scurves)
+        label = (f"held-out {metric}" if key == "test_score"
+                 else f"validation {metric}") if metric else "score"
+        self.val_plot.setLabel("left", label)
+        self.val_plot.setVisible(bool(with_score))
+        self.loss_plot.setLabel("bottom", None if with_score else "epoch")
+        if not with_score:
+            tips.append("No score per epoch was recorded for these configurations (early "
+                        "stopping records its validation score).")
+        elif key == "val":
+            tips.append(f"Lower plot: {metric} on early stopping's validation rows, per epoch.")
         else:
-            self.note.setText("Lines: mean over folds and repeats; band: ±1 sd.")
-        self.val_plot.setVisible(any_val or not self._series)
+            tips.append(f"Lower plot: {metric} on the held-out fold, per epoch.")
+        if sclip:
+            notes.append("Score " + sclip[0].lower() + sclip[1:])
+        self.note.setText(" ".join(notes))
+        self.note.setToolTip(" ".join(tips))
 
 
 class SpreadPanel(_Panel):
     """Every fold score of each configuration, with its mean and ±1 sd."""
 
     def __init__(self, parent=None):
-        super().__init__("Fold scores", parent)
-        self.plot = self._plot("score")
+        super().__init__("Fold scores", "Select rows to compare their scores fold by fold.",
+                         parent)
+        self.plot = self._plot("score", "rank")
         self._finish()
         self._scatters: list[pg.ScatterPlotItem] = []
         self.set_series([])
@@ -182,51 +480,69 @@ class SpreadPanel(_Panel):
         self._series = list(series)
         self.plot.clear()
         self._scatters = []
+        self.clipped = {}
+        self._show_empty(not self._series)
+        if not self._series:
+            self.note.setText("")
+            return
+        groups = [[v for v in s.get("fold_scores", []) if v is not None] for s in self._series]
+        flagged = [bool(s.get("diverged")) for s in self._series]
+        found = robust_range(groups, flagged)
+        rng = found[:2] if found else (0.0, 1.0)
         ticks = []
         fg = QColor(self.theme.plot_fg)
+        metric = next((s.get("metric") for s in self._series if s.get("metric")), "")
+        self.plot.setLabel("left", metric or "score")
         for i, s in enumerate(self._series):
             color = self.theme.series_color(s["color"])
-            scores = np.asarray([v for v in s.get("fold_scores", []) if v is not None], float)
-            scores = scores[np.isfinite(scores)]
+            scores = _finite(groups[i])
             x0 = float(i + 1)
             if len(scores):
                 # spread the points sideways in a fixed pattern so equal scores stay visible
                 offs = (np.arange(len(scores)) % 5 - 2) * 0.06
-                sc = pg.ScatterPlotItem(x0 + offs, scores, size=7, brush=_alpha(color, 170),
-                                        pen=_pen(color, 1))
+                sc = pg.ScatterPlotItem(x0 + offs, _held(scores, *rng), size=7,
+                                        brush=_alpha(color, 170), pen=_pen(color, 1))
                 self.plot.addItem(sc)
                 self._scatters.append(sc)
             m, sd = s.get("mean"), s.get("sd")
-            if m is not None and math.isfinite(m):
+            if m is not None and math.isfinite(m) and rng[0] <= m <= rng[1]:
                 sd = sd if sd is not None and math.isfinite(sd) else 0.0
                 err = pg.ErrorBarItem(x=np.array([x0 + 0.28]), y=np.array([m]),
                                       height=np.array([2 * sd]), beam=0.08, pen=_pen(fg, 1.5))
                 self.plot.addItem(err)
                 self.plot.addItem(pg.ScatterPlotItem([x0 + 0.28], [m], symbol="d", size=9,
                                                      brush=fg, pen=None))
-            ticks.append((x0, str(i + 1)))
+            ticks.append((x0, f"#{s['number']}" if s.get("number") is not None else str(i + 1)))
         self.plot.getPlotItem().getAxis("bottom").setTicks([ticks])
-        if self._series:
-            self.plot.setXRange(0.4, len(self._series) + 0.7, padding=0)
-            self.note.setText("Dots: one per fold and repeat. Diamond and bar: mean ± 1 sd. "
-                              "Numbers follow the legend order.")
-        else:
-            self.note.setText("")
+        self.plot.setXRange(0.4, len(self._series) + 0.7, padding=0)
+        curves = [(np.full(len(_finite(g)), float(i + 1)), _finite(g))
+                  for i, g in enumerate(groups)]
+        clip = self._apply_range(self.plot, "score", groups, self._series, flagged, curves)
+        self.note.setText("Dots: folds; ◆: mean ± 1 sd." + (" " + clip if clip else ""))
+        self.note.setToolTip("One dot per fold and repeat; the diamond and bar are the mean "
+                             "± 1 sd. Labels under the axis are the ranks in the table.")
 
 
 class HealthPanel(_Panel):
-    """Per-layer dead and saturated shares (bars) and gradient norms (markers)."""
+    """Per-layer dead and saturated shares (bars) and gradient norms (markers, log scale)."""
 
     def __init__(self, parent=None):
-        super().__init__("Layer health", parent)
-        self.share_plot = self._plot("% of units")
+        super().__init__("Layer health", "Select rows to see their dead and saturated units "
+                                         "and gradient norms.", parent)
+        self.share_plot = self._plot("% units")
         self.share_plot.setYRange(0, 100, padding=0.02)
-        self.grad_plot = self._plot("gradient norm", "hidden layer")
-        self.grad_plot.setLogMode(y=True)
+        self.grad_plot = self._plot("grad. norm", "layer")
         self.hint = QLabel("")
         self.hint.setObjectName("hint")
         self.hint.setWordWrap(True)
-        self.layout_.addWidget(self.hint)
+        self.hint.setTextFormat(Qt.PlainText)
+        self.hint_box = QScrollArea()
+        self.hint_box.setWidget(self.hint)
+        self.hint_box.setWidgetResizable(True)
+        self.hint_box.setFrameShape(QFrame.NoFrame)
+        self.hint_box.setHorizontalScrollBarPolicy(Qt.ScrollBarAlwaysOff)
+        self.hint_box.setMaximumHeight(52)
+        self.layout_.addWidget(self.hint_box)
         self._finish()
         self._bars: list[pg.BarGraphItem] = []
         self.set_series([])
@@ -242,16 +558,20 @@ class HealthPanel(_Panel):
         self.share_plot.clear()
         self.grad_plot.clear()
         self._bars = []
+        self.clipped = {}
+        self._show_empty(not self._series)
         n = max(1, len(self._series))
         width = 0.8 / n
         max_layers = 0
         max_grad = 0
-        any_grad = False
+        grads = []
         for i, s in enumerate(self._series):
             color = self.theme.series_color(s["color"])
             h = s.get("health") or {}
-            dead = np.asarray(h.get("dead") or [], float) * 100.0
-            sat = np.asarray(h.get("saturated") or [], float) * 100.0
+            dead = np.asarray([np.nan if v is None else v for v in h.get("dead") or []],
+                              float) * 100.0
+            sat = np.asarray([np.nan if v is None else v for v in h.get("saturated") or []],
+                             float) * 100.0
             layers = max(len(dead), len(sat))
             max_layers = max(max_layers, layers)
             xs = np.arange(1, layers + 1) - 0.4 + width * (i + 0.5)
@@ -267,17 +587,31 @@ class HealthPanel(_Panel):
                 self.share_plot.addItem(b)
                 self._bars.append(b)
             # gradient norms: one per weight matrix (into each hidden layer, then the output)
-            g = np.asarray(h.get("grad_norm") or [], float)
+            g = np.asarray([np.nan if v is None else v for v in h.get("grad_norm") or []], float)
             gx = np.arange(1, len(g) + 1) - 0.4 + width * (i + 0.5)
             good = np.isfinite(g) & (g > 0)
+            grads.append((gx[good], np.log10(g[good])))
             if good.any():
-                any_grad = True
                 max_grad = max(max_grad, len(g))
-                self.grad_plot.plot(gx[good], g[good], pen=None, symbol="s",
-                                    symbolBrush=color, symbolPen=None, symbolSize=8)
-        ticks = [(k, f"layer {k}") for k in range(1, max_layers + 1)]
+        any_grad = any(len(v) for _, v in grads)
+        found = robust_range([v for _, v in grads], [bool(s.get("diverged"))
+                                                      for s in self._series])
+        if found is not None:
+            lo, hi, _ = found
+            for s, (gx, gv) in zip(self._series, grads):
+                if len(gv):
+                    color = self.theme.series_color(s["color"])
+                    self.grad_plot.plot(gx, _held(gv, lo, hi), pen=None, symbol="s",
+                                        symbolBrush=color, symbolPen=None, symbolSize=8)
+            clip = self._apply_range(self.grad_plot, "gradient", [v for _, v in grads],
+                                     self._series, [bool(s.get("diverged"))
+                                                    for s in self._series], grads)
+            self.grad_plot.getPlotItem().getAxis("left").setTicks([log_ticks(lo, hi, 3)])
+        else:
+            clip = ""
+        ticks = [(k, f"{k}") for k in range(1, max_layers + 1)]
         self.share_plot.getPlotItem().getAxis("bottom").setTicks([ticks])
-        gticks = [(k, f"layer {k}" if k <= max_layers else "output")
+        gticks = [(k, f"{k}" if k <= max_layers else "out")
                   for k in range(1, max(max_grad, max_layers) + 1)]
         self.grad_plot.getPlotItem().getAxis("bottom").setTicks([gticks])
         if max_layers:
@@ -287,21 +621,31 @@ class HealthPanel(_Panel):
         top = max([float(b.opts["height"].max()) for b in self._bars if len(b.opts["height"])]
                   or [0.0])
         # small shares stay visible: the axis ends just above the tallest bar (at least 10 %)
-        self.share_plot.setYRange(0, min(100.0, max(10.0, top * 1.2)), padding=0.02)
-        self.grad_plot.setVisible(any_grad or not self._series)
+        ceiling = min(100.0, max(10.0, top * 1.2))
+        self.share_plot.setYRange(0, ceiling, padding=0.02)
+        half = round(ceiling / 2)
+        self.share_plot.getPlotItem().getAxis("left").setTicks(
+            [[(0.0, "0"), (float(half), f"{half}")]])
+        all_zero = all(not b.opts["height"].any() for b in self._bars) if self._bars else True
+        # a plot of nothing but zeros says less than the note does: the room goes to the other
+        self.share_plot.setVisible(bool(self._series) and not all_zero)
+        self.grad_plot.setVisible(bool(self._series) and any_grad)
+        if self._series and all_zero and not any_grad:
+            self.share_plot.setVisible(True)
         hints = [h for s in self._series for h in s.get("hints", [])]
-        self.hint.setText("\n".join(f"⚠ {h}" for h in hints[:4]))
-        self.hint.setVisible(bool(hints))
-        all_zero = all(not b.opts["height"].any() for b in self._bars) if self._bars else False
+        self.hint.setText("\n".join(f"⚠ {h}" for h in hints))
+        self.hint_box.setVisible(bool(hints))
         if not self._series:
             self.note.setText("")
-        elif all_zero:
-            self.note.setText("No dead or saturated units in the selected configurations "
-                              "(last epoch, mean over folds)."
-                              + ("" if any_grad else " Gradient norms are recorded by the "
-                                 "NumPy engine only."))
-        else:
-            self.note.setText("Solid bar: dead units (never active). Hatched bar: saturated "
-                              "units (stuck on a flat part). Last epoch, mean over folds."
-                              + ("" if any_grad else " Gradient norms are recorded by the "
-                                 "NumPy engine only."))
+            self.note.setToolTip("")
+            return
+        short = ("No dead or saturated units (last epoch)." if all_zero
+                 else "Bars: dead (solid), saturated (hatched).")
+        self.note.setText(short + (" Squares: gradient norm per layer, log scale." if any_grad
+                                   else "") + (" " + clip if clip else ""))
+        self.note.setToolTip(
+            "Upper plot: share of each hidden layer's units that are dead (solid bar: never "
+            "active on the probe rows) or saturated (hatched: on a flat part), at the last "
+            "epoch, mean over folds. Lower plot: the norm of the loss gradient for each layer's "
+            "weights (log scale; 'out' is the output layer)."
+            + ("" if any_grad else " Gradient norms are recorded by the NumPy engine only."))

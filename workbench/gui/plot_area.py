@@ -1,0 +1,204 @@
+"""The plots of the selected configurations, their legend, calibration and diagnosis.
+
+:class:`PlotArea` takes the selected rows of the results table
+(:func:`workbench.gui.core_adapter.ranked_rows`), puts them in rank order, gives
+each a colour and its rank as its number, and shows
+
+- a legend strip above the plots (outside the data, wrapping): colour, rank,
+  configuration and the core's diagnosis in a few words;
+- the learning curves, fold scores and layer health side by side;
+
+and keeps two pages the window places in its tabs beside the plots:
+:attr:`PlotArea.calibration_page` (a scroll area holding :attr:`PlotArea.calibration`,
+:class:`workbench.gui.calibration_panel.CalibrationPanel`, read from the store in the
+background when its tab is shown) and
+:attr:`PlotArea.diagnosis` (every finding of each selected configuration, in the
+core's sentences, wrapped and scrollable).
+"""
+
+from __future__ import annotations
+
+import html
+
+from PySide6.QtCore import Qt, Signal
+from PySide6.QtWidgets import (
+    QFrame,
+    QLabel,
+    QScrollArea,
+    QSizePolicy,
+    QSplitter,
+    QTextBrowser,
+    QVBoxLayout,
+    QWidget,
+)
+
+from workbench.gui import theme as th
+from workbench.gui.calibration_panel import CalibrationPanel
+from workbench.gui.plots import CurvesPanel, HealthPanel, SpreadPanel
+
+
+def _order(rows: list[dict]) -> list[dict]:
+    """Rows in rank order (unranked configurations after the ranked ones, by position)."""
+    return sorted(rows, key=lambda r: (r.get("rank") is None, r.get("rank") or 0,
+                                       r.get("position") or 0))
+
+
+class PlotArea(QWidget):
+    """Legend strip, plot tabs and diagnosis for the selected configurations.
+
+    Parameters
+    ----------
+    calibration_source : callable, optional
+        ``calibration_source(indices) -> dict`` (the core's calibration points for
+        those configurations); called on a worker thread when the calibration tab
+        is shown.
+    """
+
+    #: the calibration panel drew the data of the current selection
+    calibrationShown = Signal()
+
+    def __init__(self, calibration_source=None, parent=None):
+        super().__init__(parent)
+        self.theme = th.LIGHT
+        self.calibration_source = calibration_source
+        self._series: list[dict] = []
+        self._generation = 0
+        self._tabs = None
+        # an explicit least size: the layout would otherwise take the height its wrapped
+        # legend needs at the narrowest width, and a scroll area around it would scroll
+        # early; the height for the actual width (heightForWidth) still holds
+        self.setMinimumSize(300, 150)
+        lay = QVBoxLayout(self)
+        lay.setContentsMargins(0, 0, 0, 0)
+        lay.setSpacing(2)
+        self.legend = QLabel("")
+        self.legend.setObjectName("legend")
+        self.legend.setWordWrap(True)
+        self.legend.setTextFormat(Qt.RichText)
+        self.legend.setSizePolicy(QSizePolicy.Preferred, QSizePolicy.Minimum)
+        self.legend.setContentsMargins(6, 2, 6, 0)
+        lay.addWidget(self.legend)
+        self.curves = CurvesPanel()
+        self.spread = SpreadPanel()
+        self.health = HealthPanel()
+        split = QSplitter(Qt.Horizontal)
+        split.setChildrenCollapsible(False)
+        for p in (self.curves, self.spread, self.health):
+            p.setMinimumWidth(150)
+            split.addWidget(p)
+        split.setSizes([430, 250, 300])
+        lay.addWidget(split, 1)
+        self.calibration = CalibrationPanel()
+        # the page the window places in a tab: scrolls rather than squeezing the table above
+        self.calibration_page = QScrollArea()
+        self.calibration_page.setWidget(self.calibration)
+        self.calibration_page.setWidgetResizable(True)
+        self.calibration_page.setFrameShape(QFrame.NoFrame)
+        self.calibration_page.setHorizontalScrollBarPolicy(Qt.ScrollBarAlwaysOff)
+        self.diagnosis = QTextBrowser()
+        self.diagnosis.setOpenLinks(False)
+        self.diagnosis.setObjectName("diagnosis")
+        self.show_rows([])
+
+    def watch_tabs(self, tabs) -> None:
+        """Read the calibration data when ``tabs`` shows the calibration page."""
+        self._tabs = tabs
+        tabs.currentChanged.connect(lambda *_: self._fetch_calibration())
+
+    def panels(self):
+        return [self.curves, self.spread, self.health, self.calibration]
+
+    def series(self) -> list[dict]:
+        """The series now shown, in rank order."""
+        return list(self._series)
+
+    # ------------------------------------------------------------------ selection
+    def show_rows(self, rows: list[dict]) -> None:
+        """Show the selected rows (any order; shown by rank)."""
+        series = []
+        for i, r in enumerate(_order([r for r in rows if r.get("series")])):
+            s = dict(r["series"])
+            s["color"] = i
+            s["number"] = r.get("rank") or r.get("position") or i + 1
+            s.setdefault("index", r.get("index"))
+            s["label"] = f"{r['hidden']} / {r['head']} [{r['layers']}]"
+            series.append(s)
+        self._series = series
+        self.curves.set_series(series)
+        self.spread.set_series(series)
+        self.health.set_series(series)
+        self.calibration.set_series(series)
+        self._legend()
+        self._diagnosis()
+        self._generation += 1
+        self._fetch_calibration()
+
+    def _legend(self) -> None:
+        if not self._series:
+            self.legend.setText("")
+            self.legend.hide()
+            return
+        items = []
+        for s in self._series:
+            color = self.theme.series_color(s["color"]).name()
+            words = (s.get("diagnosis") or {}).get("text") or ""
+            items.append(f"<span style='color:{color}'>■</span>&nbsp;<b>#{s['number']}</b>"
+                         f"&nbsp;{html.escape(s['label'])}"
+                         + (f" <i>— {html.escape(words)}</i>" if words else ""))
+        self.legend.setText("&nbsp;&nbsp;&nbsp; ".join(items))
+        self.legend.show()
+
+    def _diagnosis(self) -> None:
+        if not self._series:
+            self.diagnosis.setHtml("<p>Select rows of the results to read why each "
+                                   "configuration trains as it does.</p>")
+            return
+        parts = ["<p>What the stored curves, layer health, fold scores and out-of-fold "
+                 "predictions say about each selected configuration (thresholds and their "
+                 "sources: <i>workbench.sweep.diagnosis</i>).</p>"]
+        for s in self._series:
+            color = self.theme.series_color(s["color"]).name()
+            d = s.get("diagnosis") or {}
+            parts.append(f"<p><span style='color:{color}'>■</span> <b>#{s['number']} "
+                         f"{html.escape(s['label'])}</b></p><ul>")
+            for f in d.get("findings") or []:
+                parts.append(f"<li>{html.escape(f['text'])}</li>")
+            parts.append("</ul>")
+        self.diagnosis.setHtml("".join(parts))
+
+    def diagnosis_text(self) -> str:
+        return self.diagnosis.toPlainText()
+
+    # ------------------------------------------------------------------ calibration
+    def _fetch_calibration(self) -> None:
+        """Read the selection's calibration data when its tab is shown (once per selection)."""
+        if self._tabs is None or self._tabs.currentWidget() is not self.calibration_page:
+            return
+        if not self.calibration.waiting():
+            return
+        if self.calibration_source is None:
+            return
+        from workbench.gui.tasks import run_task
+
+        gen = self._generation
+        indices = [s["index"] for s in self._series]
+        source = self.calibration_source
+
+        def done(data):
+            if gen == self._generation:
+                self.calibration.set_data(data)
+                self.calibrationShown.emit()
+
+        def failed(msg):
+            if gen == self._generation:
+                self.calibration.empty.setText(f"The predictions could not be read: {msg}")
+
+        run_task(lambda: source(indices), done, failed)
+
+    # ------------------------------------------------------------------ look
+    def set_theme(self, theme: th.Theme) -> None:
+        self.theme = theme
+        for p in self.panels():
+            p.set_theme(theme)
+        self._legend()
+        self._diagnosis()
