@@ -50,6 +50,48 @@ def phrase_error(exc: InputError) -> str:
     return f"{exc} (set with {flag})" if flag else str(exc)
 
 
+#: the start of NumPy's floating-point RuntimeWarnings (np.errstate's "warn" messages)
+NUMERIC_WARNINGS = ("overflow encountered", "invalid value encountered",
+                    "divide by zero encountered", "underflow encountered")
+
+
+class _NumericWarnings:
+    """Gather NumPy's floating-point RuntimeWarnings (two lines each, pointing into
+    NumPy's own files) and say them once, in one line, when the command ends.
+
+    Values such as 1e300 overflow in a square or a variance; what that does to the
+    results is reported where it matters (a diverged trial, a missing score), so
+    the terminal gets one note instead of a stack of warnings. Other warnings are
+    shown as usual.
+    """
+
+    def __enter__(self):
+        import warnings
+
+        self._warnings = warnings
+        self._old = warnings.showwarning
+        self.seen: dict[str, int] = {}
+
+        def show(message, category, filename, lineno, file=None, line=None):
+            text = " ".join(str(message).split())
+            if issubclass(category, RuntimeWarning) and text.startswith(NUMERIC_WARNINGS):
+                self.seen[text] = self.seen.get(text, 0) + 1
+                return
+            self._old(message, category, filename, lineno, file, line)
+
+        warnings.showwarning = show
+        return self
+
+    def __exit__(self, exc_type, *exc):
+        self._warnings.showwarning = self._old
+        if self.seen and exc_type is None:  # after a refusal, its one line is the word
+            what = "; ".join(sorted(self.seen))
+            print(f"workbench: note: some values are too large or too small for floating-point "
+                  f"arithmetic (NumPy: {what}); statistics that rest on them may be infinite or "
+                  "missing; rescaling such columns (e.g. to thousands or millions) avoids it",
+                  file=sys.stderr)
+
+
 def _command_modules():
     import workbench.commands as pkg
 
@@ -95,7 +137,8 @@ def main(argv: list[str] | None = None) -> int:
     if args.command is None:
         args = parser.parse_args(["open"])
     try:
-        return int(args._run(args) or 0)
+        with _NumericWarnings():
+            return int(args._run(args) or 0)
     except InputError as exc:
         print(f"workbench: {phrase_error(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT

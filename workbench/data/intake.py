@@ -595,6 +595,12 @@ def _read_parquet(p: Path) -> tuple[pd.DataFrame, LoadReport]:
     if table.num_rows == 0:
         raise InputError(f"{p.name} has column names but no data rows; choose a file with rows",
                          setting="table")
+    import pyarrow as pa
+
+    for i, col in enumerate(table.schema):  # decimal128/256: numbers (float64), not text
+        if pa.types.is_decimal(col.type):
+            table = table.set_column(i, col.with_type(pa.float64()),
+                                     table.column(i).cast(pa.float64()))
     try:
         df = table.to_pandas()
     except Exception as exc:  # noqa: BLE001

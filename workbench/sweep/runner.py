@@ -244,6 +244,8 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
                          setting="jobs")
     if backend not in ("processes", "inline") and cluster is None:
         raise InputError(f"unknown backend {backend!r}; use processes or inline")
+    if isinstance(cluster, str):
+        cluster = _check_scheduler_address(cluster)  # before the table is read
     store.check_writable()  # a read-only store is refused before any work
     clean_abandoned_copies()
     if resume is not None:
@@ -679,6 +681,7 @@ class _TableCopy:
         try:
             self._fd = os.open(self.folder / COPY_LOCK, os.O_RDWR | os.O_CREAT, 0o600)
             try_file_lock(self._fd)
+            os.write(self._fd, f"{os.getpid()}\n".encode())  # for the record; the lock counts
             self.path = str(self.folder / COPY_NAME)
             joblib.dump(data, self.path)
         except BaseException:
@@ -760,18 +763,97 @@ class _LokyExecutor:
         self._copy.remove()
 
 
-def _check_scheduler_address(address: str) -> None:
-    """Refuse a malformed scheduler address before a Dask client is made for it."""
+#: seconds to reach a Dask scheduler and hear it answer, before giving up with one line
+CONNECT_SECONDS = 10
+#: the scheduler address schemes a sweep accepts (see :func:`_check_scheduler_address`)
+SCHEMES = ("tcp",)
+
+
+def _check_scheduler_address(address: str) -> str:
+    """Refuse a malformed or unsupported scheduler address before any connection; return it
+    with its scheme (``tcp://``).
+
+    Only plain TCP is offered: ``tls://`` needs certificates that the sweep does not
+    configure, ``inproc://`` reaches only a scheduler inside this very process, and
+    ``ucx://`` needs the UCX libraries; each would fail deep inside Dask's client
+    (a traceback, then a 40 s wait in its clean-up).
+    """
     from distributed.comm import parse_address
     from distributed.comm.addressing import parse_host_port
 
+    text = str(address).strip()
+    scheme = text.split("://", 1)[0].lower() if "://" in text else "tcp"
+    if scheme not in SCHEMES:
+        raise InputError(f"the scheduler address {address!r} uses {scheme}://, which a sweep does "
+                         "not offer (only plain TCP: TLS needs certificates, inproc reaches only "
+                         "this process, UCX needs its libraries); write it as tcp://HOST:PORT",
+                         setting="cluster")
     try:
-        scheme, location = parse_address(address)
-        if scheme in ("tcp", "tls", "ws", "wss", "ucx"):
-            parse_host_port(location)
+        scheme, location = parse_address(text if "://" in text else "tcp://" + text)
+        parse_host_port(location)
     except (ValueError, TypeError) as exc:
         raise InputError(f"{address!r} is not a Dask scheduler address ({exc}); write it as "
                          "tcp://HOST:PORT, e.g. tcp://10.0.0.5:8786", setting="cluster") from None
+    return f"{scheme}://{location}"
+
+
+def _probe_scheduler(address: str, seconds: float | None = None) -> dict:
+    """Connect to ``address`` and ask for its identity, all within ``seconds``.
+
+    Dask's client waits for a scheduler's handshake without a time limit once the
+    TCP connection is made, so a port where something else listens (a web
+    server) would hold it for good; this asks the question with a deadline first,
+    on its own event loop in a thread of its own.
+
+    Raises
+    ------
+    InputError
+        when nothing answers in time, or what answers is not a Dask scheduler.
+    """
+    import asyncio
+    import socket
+
+    from distributed.comm import parse_address
+    from distributed.comm.addressing import parse_host_port
+
+    seconds = CONNECT_SECONDS if seconds is None else float(seconds)
+    host, port = parse_host_port(parse_address(address)[1])
+    try:  # first: does anything accept connections there at all?
+        socket.create_connection((host, port), timeout=seconds).close()
+    except OSError as exc:
+        why = exc.strerror or ("no answer" if isinstance(exc, TimeoutError) else str(exc))
+        raise InputError(f"cannot reach the Dask scheduler at {address} within {seconds:g} s "
+                         f"({why}); check the address (tcp://HOST:PORT) and that the scheduler "
+                         "runs", setting="cluster") from None
+
+    async def ask():
+        from distributed.comm import connect
+
+        comm = await asyncio.wait_for(connect(address, timeout=seconds), seconds)
+        try:
+            await asyncio.wait_for(comm.write({"op": "identity", "reply": True}), seconds)
+            return await asyncio.wait_for(comm.read(), seconds)
+        finally:
+            comm.abort()
+
+    out: dict = {}
+
+    def run():
+        try:
+            out["reply"] = asyncio.run(ask())
+        except BaseException as exc:  # reported below, in the caller's thread
+            out["error"] = exc
+
+    worker = threading.Thread(target=run, name="workbench-scheduler-probe", daemon=True)
+    worker.start()
+    worker.join(3 * seconds + 5)  # the three steps' deadlines, and a margin
+    reply = out.get("reply")
+    if isinstance(reply, dict) and reply.get("type") == "Scheduler":
+        return reply
+    raise InputError(f"something answers at {address}, but not as a Dask scheduler (no "
+                     f"scheduler handshake within {seconds:g} s: another program on that port?); "
+                     "check the port (a scheduler listens on 8786 unless told otherwise)",
+                     setting="cluster")
 
 
 class _DaskExecutor:
@@ -784,10 +866,11 @@ class _DaskExecutor:
         from distributed import Client
 
         if isinstance(cluster, str):
-            _check_scheduler_address(cluster)
+            address = _check_scheduler_address(cluster)
+            _probe_scheduler(address)
             try:
-                self.client = Client(cluster, timeout=20, set_as_default=False)
-            except OSError as exc:
+                self.client = Client(address, timeout=CONNECT_SECONDS, set_as_default=False)
+            except (OSError, TimeoutError) as exc:
                 raise InputError(f"cannot reach the Dask scheduler at {cluster} ({exc}); check "
                                  "the address (tcp://HOST:PORT) and that the scheduler runs",
                                  setting="cluster") from None
@@ -796,6 +879,7 @@ class _DaskExecutor:
             self.client, self._own = cluster, False
         threads = sum(self.client.nthreads().values())
         if threads < 1:
+            self.close()
             raise InputError(f"the Dask cluster at {self.client.scheduler.address} has no "
                              "workers; start some workers first", setting="cluster")
         self.workers = int(threads)
@@ -838,11 +922,16 @@ class _DaskExecutor:
 
     def close(self, kill=False):
         try:
-            if kill and self._live:
-                self.client.cancel(list(self._live))
-            self._live.clear()
-            self.data_future.release()
+            live = getattr(self, "_live", set())
+            if kill and live:
+                self.client.cancel(list(live))
+            live.clear()
+            if getattr(self, "data_future", None) is not None:
+                self.data_future.release()
         except Exception:  # pragma: no cover
             pass
         if self._own:
-            self.client.close()
+            try:
+                self.client.close(timeout=CONNECT_SECONDS)
+            except Exception:  # pragma: no cover - a scheduler gone meanwhile
+                pass
