@@ -24,6 +24,19 @@ import workbench.sweep.runner  # noqa: F401
 import workbench.sweep.store  # noqa: F401
 from workbench.errors import InputError
 from workbench.nets import activations
+from workbench.sweep.plan import LEARNING_RATE_GRID, TUNE
+
+#: what the set-up column's learning-rate box holds by default: the core's "tune" grid,
+#: the same learning rates for every hidden activation and head (an equal tuning budget)
+DEFAULT_LEARNING_RATES = TUNE
+
+
+def learning_rate_tooltip() -> str:
+    """The learning-rate box's tooltip: numbers, or the core's tune grid."""
+    grid = ", ".join(f"{v:g}" for v in LEARNING_RATE_GRID)
+    return ("Adam's initial learning rates, separated by ';' or spaces, or "
+            f"“{TUNE}”: every hidden activation and head at the same {len(LEARNING_RATE_GRID)} "
+            f"rates on a log scale ({grid}), so each gets an equal tuning budget")
 
 # --------------------------------------------------------------------------- table
 
@@ -245,17 +258,23 @@ def build_plan(table: LoadedTable, summary: TargetSummary, choices: dict,
     if not choices.get("heads"):
         raise InputError("tick at least one output head that the guard allows for this target",
                          setting="heads")
+    rates = list(choices.get("learning_rates") or [])
+    tune = any(isinstance(v, str) and v.strip().lower() == TUNE for v in rates)
     for key, what, setting in (("learning_rates", "learning rate", "learning_rate"),
                                ("alphas", "L2 strength", "alpha")):
-        bad = [v for v in choices.get(key) or [] if isinstance(v, str)]
+        bad = [v for v in choices.get(key) or [] if isinstance(v, str)
+               and not (key == "learning_rates" and v.strip().lower() == TUNE)]
         if bad:
-            raise InputError(f"{what} {bad[0]!r} is not a number; write e.g. 0.001 0.01",
+            hint = f"0.001 0.01, or {TUNE}" if key == "learning_rates" else "0.001 0.01"
+            raise InputError(f"{what} {bad[0]!r} is not a number; write e.g. {hint}",
                              setting=setting)
+    if tune:  # the core's grid (it refuses "tune" mixed with numbers)
+        rates = [v if isinstance(v, str) else f"{v:g}" for v in rates]
     changed = user_roles(table, roles, info.name) if roles else {}
     plan = core_build_plan(
         table.path, info.name, hidden=list(choices["hidden"]), output=list(choices["heads"]),
         layers=list(choices.get("layers") or ["32"]),
-        learning_rates=list(choices.get("learning_rates") or []) or None,
+        learning_rates=rates or None,
         alphas=list(choices.get("alphas") or []) or None,
         folds=int(choices["folds"]), repeats=int(choices["repeats"]),
         epochs=int(choices["epochs"]), early_stopping=bool(choices.get("early_stopping")),
@@ -468,21 +487,38 @@ def _layer_means(trials: list[dict], key: str) -> list[float]:
     return out
 
 
-def ranked_rows(store, sweep_id: str) -> dict:
+def ranked_rows(store, sweep_id: str, rope: float | None = None) -> dict:
     """The ranking of a stored sweep as rows for the results table and series for the plots.
+
+    Parameters
+    ----------
+    store : Store or str or None
+        The store, or its path (opened for this call only).
+    sweep_id : str
+        The sweep.
+    rope : float, optional
+        Half-width of the region of practical equivalence the decisions use
+        (checked by the core; None: the core's default for the metric).
 
     Returns
     -------
     dict
-        ``{"meta": the sweep's results without its configurations,
-        "rows": [row dict per configuration]}``.
+        ``{"meta": the sweep's results document without its configurations, plus
+        "statements" and "heading" (the verdict in the core's words,
+        :func:`workbench.sweep.results.verdict_statements` and
+        :func:`~workbench.sweep.results.verdict_heading`) and "factor_words",
+        "rows": [row dict per configuration, then one per baseline]}``. A
+        baseline's row has ``kind`` "baseline" and no rank; a configuration's has
+        ``kind`` "network".
     """
     from workbench.sweep.diagnosis import health_hints
+    from workbench.sweep.factors import FACTOR_WORDS
+    from workbench.sweep.results import verdict_heading, verdict_statements
 
     if not hasattr(store, "trials"):  # a path: open the store for this call only
         with StoreSession(store) as opened:
-            return ranked_rows(opened, sweep_id)
-    res = workbench.sweep.results.sweep_results(store, sweep_id)
+            return ranked_rows(opened, sweep_id, rope)
+    res = workbench.sweep.results.sweep_results(store, sweep_id, rope=rope)
     per_cfg = int(res["plan"]["folds"]) * int(res["plan"]["repeats"])
     full = {}
     for t in store.trials(sweep_id, with_history=True):
@@ -498,6 +534,7 @@ def ranked_rows(store, sweep_id: str) -> dict:
         errors = sorted({t.get("error") for t in full.get(c["index"], []) if t.get("error")})
         rows.append({
             "key": f"{sweep_id}:{c['index']}",
+            "kind": "network",
             "index": c["index"],
             "rank": c["rank"] if ranked and c.get("mean") is not None else None,
             "position": c["rank"],
@@ -506,6 +543,11 @@ def ranked_rows(store, sweep_id: str) -> dict:
             "learning_rate": c["learning_rate"], "alpha": c["alpha"],
             "mean": c.get("mean"), "sd": c.get("sd"), "p_value": c.get("p_value"),
             "tied_with_best": bool(c.get("tied_with_best")),
+            "decision": c.get("decision"),
+            "p_better": c.get("p_better"), "p_equivalent": c.get("p_equivalent"),
+            "p_worse": c.get("p_worse"),
+            "train_mean": c.get("train_mean"), "gap": c.get("train_test_gap"),
+            "underfit": c.get("underfit"), "epochs": c.get("mean_epochs"),
             "fit_seconds": c.get("mean_fit_seconds"),
             "dead_pct": None if c.get("dead") is None else 100.0 * c["dead"],
             "saturated_pct": None if c.get("saturated") is None else 100.0 * c["saturated"],
@@ -523,8 +565,51 @@ def ranked_rows(store, sweep_id: str) -> dict:
             },
         })
         rows[-1]["series"].update(_series_extras(res, c, full.get(c["index"], []), label))
+    for b in res.get("baselines") or []:
+        rows.append(baseline_row(sweep_id, b, per_cfg))
     meta = {k: v for k, v in res.items() if k != "configurations"}
+    meta["statements"] = verdict_statements(res)
+    meta["heading"] = verdict_heading(res) if res.get("rope") is not None else ""
+    meta["factor_words"] = dict(FACTOR_WORDS)
     return {"meta": meta, "rows": rows}
+
+
+def baseline_row(sweep_id: str, b: dict, per_cfg: int) -> dict:
+    """A baseline of the results document as a reference row of the results table."""
+    return {
+        "key": f"{sweep_id}:baseline:{b['name']}", "kind": "baseline", "index": None,
+        "rank": None, "position": None, "hidden": b["name"], "head": "", "layers": "",
+        "learning_rate": None, "alpha": None, "mean": b.get("mean"), "sd": b.get("sd"),
+        "p_value": b.get("p_value"), "tied_with_best": bool(b.get("tied_with_best")),
+        "decision": b.get("decision"), "p_better": b.get("p_better"),
+        "p_equivalent": b.get("p_equivalent"), "p_worse": b.get("p_worse"),
+        "difference": b.get("difference"), "interval": b.get("interval"),
+        "n_networks_better": b.get("n_networks_better"),
+        "train_mean": None, "gap": None, "underfit": None, "epochs": None,
+        "fit_seconds": None, "dead_pct": None, "saturated_pct": None,
+        "engine": "", "estimator": b.get("estimator", ""), "status": b.get("status"),
+        "n_done": len(b.get("scores") or []), "n_total": per_cfg, "message": "",
+        "series": None,
+    }
+
+
+def check_rope(text) -> float | None:
+    """The window's ROPE box as the core reads it: empty means the default (None)."""
+    from workbench.sweep.bayes import check_rope as core_check_rope
+
+    text = "" if text is None else str(text).strip()
+    return None if not text else core_check_rope(text)
+
+
+def default_rope_text(metric: str | None) -> str:
+    """The core's default region of practical equivalence for ``metric``, in a few words."""
+    from workbench.sweep.bayes import default_rope, rope_kind
+
+    if not metric:
+        return "default"
+    if rope_kind(metric) == "fraction":
+        return f"{default_rope(metric):g}"
+    return "1% of the constant baseline"
 
 
 __all__ = ["InputError", "LoadedTable", "TargetSummary", "load", "summarise_target",
