@@ -240,14 +240,16 @@ def test_filters(qapp):
     assert p.rowCount() == 40
 
 
-def test_display_marks_the_tie_group_in_words_not_only_colour(qapp):
+def test_display_marks_the_tie_group_and_decision_in_words_not_only_colour(qapp):
     m = ResultsModel()
     rows = _rows(5)
-    rows[0]["rank"] = 1
+    for r, d in zip(rows, ("best", "equivalent", "equivalent", "undecided", "worse")):
+        r["decision"] = d
     m.set_rows(rows)
-    tie_col = COLUMN_KEYS.index("tied_with_best")
-    texts = [m.index(i, tie_col).data() for i in range(5)]
-    assert texts[0] == "◆ best" and texts[1] == "◇ tied" and texts[3] == ""
+    ranks = [m.index(i, COLUMN_KEYS.index("rank")).data() for i in range(5)]
+    assert ranks == ["1", "2 =", "3 =", "4", "5"]  # "=": tied with the best (rows 0-2)
+    words = [m.index(i, COLUMN_KEYS.index("decision")).data() for i in range(5)]
+    assert words == ["◆ best", "≈ equivalent", "≈ equivalent", "? undecided", "▼ worse"]
     assert m.index(1, 0).data(Qt.BackgroundRole) is not None
     assert m.index(3, 0).data(Qt.BackgroundRole) is None
 

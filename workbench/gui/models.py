@@ -23,32 +23,48 @@ from PySide6.QtCore import (
 )
 from PySide6.QtGui import QColor, QFont
 
-#: (key, header, tooltip) of the results table's columns, in order
+#: (key, header, tooltip) of the results table's columns, in order. The engine, the
+#: training score and the probabilities behind a decision are in each row's tooltip and
+#: in the selection line under the table, so that every column fits at 1280 x 800.
 RESULT_COLUMNS = (
-    ("rank", "Rank", "Rank by mean score (1 = best)"),
-    ("hidden", "Hidden", "Hidden-layer activation"),
+    ("rank", "Rank", "Rank by mean score (1 = best); “=” tied with the best at alpha = 0.05 "
+                     "(Nadeau–Bengio corrected t-test); “ref”: a baseline"),
+    ("hidden", "Hidden", "Hidden-layer activation (for a reference row: the baseline)"),
     ("head", "Head", "Output activation and its matched loss"),
     ("layers", "Layers", "Hidden-layer widths"),
     ("learning_rate", "LR", "Initial learning rate (Adam)"),
     ("alpha", "L2", "L2 penalty (alpha)"),
-    ("mean", "Mean ± sd", "Mean and standard deviation of the metric over all folds and repeats"),
-    ("tied_with_best", "Tie group",
-     "Not distinguishable from the best at alpha = 0.05 (Nadeau-Bengio corrected t-test)"),
+    ("mean", "Mean ± sd", "Mean and standard deviation of the metric (greater is better) over "
+                          "all folds and repeats"),
+    ("decision", "Decision",
+     "Against the best, Bayesian correlated t-test: ◆ best; ≈ equivalent (P(practically "
+     "equivalent) ≥ 0.95); ? undecided (the folds cannot tell); ▼ worse (P(practically "
+     "worse) ≥ 0.95). A baseline's decision is its own against the best network"),
     ("p_value", "p", "Corrected resampled t-test p-value against the best configuration"),
-    ("fit_seconds", "Fit (s)", "Mean fit time per trial, seconds"),
-    ("dead_pct", "Dead %", "Share of hidden units that never activate, last epoch, mean over trials"),
-    ("saturated_pct", "Sat. %", "Share of hidden units stuck in a flat region, last epoch"),
-    ("engine", "Engine", "scikit-learn's MLP, or the project's NumPy engine"),
-    ("status", "Status", "done, diverged, failed, cancelled or running"),
+    ("gap", "Gap", "Mean training score minus mean test score; “underfit” when the training "
+                   "score itself is more than the region of practical equivalence below "
+                   "the linear baseline's test score"),
+    ("epochs", "Ep.", "Epochs run, mean over folds and repeats"),
+    ("dead_pct", "Dead", "Share of hidden units that never activate, %, last epoch, mean "
+                         "over trials"),
+    ("saturated_pct", "Sat.", "Share of hidden units stuck in a flat region, %, last epoch"),
+    ("fit_seconds", "Fit s", "Mean fit time per trial, seconds"),
     ("trials", "Trials", "Finished trials / planned trials"),
 )
 COLUMN_KEYS = tuple(c[0] for c in RESULT_COLUMNS)
-NUMERIC = {"rank", "learning_rate", "alpha", "mean", "p_value", "fit_seconds", "dead_pct",
-           "saturated_pct", "trials"}
+NUMERIC = {"rank", "learning_rate", "alpha", "mean", "p_value", "gap", "epochs",
+           "fit_seconds", "dead_pct", "saturated_pct", "trials"}
 SORT_ROLE = Qt.UserRole + 1
 ROW_ROLE = Qt.UserRole + 2
 KEY_ROLE = Qt.UserRole + 3
 FILTER_ROLE = Qt.UserRole + 4
+
+#: the decision of a configuration against the best, as the table shows it (a glyph and
+#: the word, so that colour never carries the meaning alone); a baseline can be "better"
+DECISION_TEXT = {"best": "◆ best", "equivalent": "≈ equivalent", "undecided": "? undecided",
+                 "worse": "▼ worse", "better": "▲ better"}
+#: order of the decisions when the table is sorted by that column
+DECISION_ORDER = {"best": 0, "better": 0.5, "equivalent": 1, "undecided": 2, "worse": 3}
 
 
 def _num(x) -> float:
@@ -66,6 +82,56 @@ def fmt_float(x, digits: int = 4) -> str:
     if v != 0 and (abs(v) < 1e-3 or abs(v) >= 1e5):
         return f"{v:.2e}"
     return f"{v:.{digits}f}"
+
+
+def fmt_p(x) -> str:
+    """A p-value in three decimals; below 0.0005 as "<0.001" (as the command line)."""
+    v = _num(x)
+    if math.isnan(v):
+        return "–"
+    return "<0.001" if 0 <= v < 5e-4 else f"{v:.3f}"
+
+
+def fmt_prob(x) -> str:
+    """A probability for a tooltip: two decimals, "> 0.99" / "< 0.01" at the ends."""
+    v = _num(x)
+    if math.isnan(v):
+        return "–"
+    if v > 0.99:
+        return "> 0.99"
+    if v < 0.01:
+        return "< 0.01"
+    return f"{v:.2f}"
+
+
+def row_tooltip(row: dict, key: str) -> str | None:
+    """A results cell's tooltip: what an abbreviated cell leaves out."""
+    if row.get("kind") == "baseline":
+        text = (f"Baseline (reference, not exported): {row.get('estimator') or row.get('hidden')}"
+                " on the same folds, preprocessing and metric")
+        if row.get("difference") is not None:
+            text += (f"\nagainst the best network: difference {_num(row['difference']):+.4f}, "
+                     f"P(better) {fmt_prob(row.get('p_better'))}, P(equivalent) "
+                     f"{fmt_prob(row.get('p_equivalent'))}, P(worse) "
+                     f"{fmt_prob(row.get('p_worse'))}")
+        if row.get("n_networks_better") is not None:
+            text += f"\n{row['n_networks_better']} network(s) practically better than it"
+        return text
+    if key == "status" or (key in ("decision", "trials") and row.get("message")):
+        return str(row.get("message") or row.get("status") or "") or None
+    if key == "mean":
+        return (f"mean {row.get('mean')}, sd {row.get('sd')} over {row.get('n_done', 0)} "
+                "fold scores")
+    if key == "decision" and row.get("p_equivalent") is not None:
+        return (f"against the best: P(better) {fmt_prob(row.get('p_better'))}, P(practically "
+                f"equivalent) {fmt_prob(row.get('p_equivalent'))}, P(worse) "
+                f"{fmt_prob(row.get('p_worse'))}")
+    if key == "gap" and row.get("train_mean") is not None:
+        return (f"training score {_num(row['train_mean']):.4f}, test score "
+                f"{_num(row.get('mean')):.4f}")
+    if key in ("hidden", "head", "layers") and row.get("engine"):
+        return f"engine: {row['engine']}"
+    return None
 
 
 def fmt_pct(x) -> str:
@@ -95,8 +161,14 @@ class ResultsModel(QAbstractTableModel):
         self.last_changed: set[str] = set()
         self._bold = QFont()
         self._bold.setBold(True)
+        self._italic = QFont()
+        self._italic.setItalic(True)
         self._sort: tuple[int, Qt.SortOrder] | None = None
-        self.tie_color = QColor("#e7eff7")
+        #: row backgrounds by decision (set from the theme; none for undecided / worse)
+        self.decision_colors: dict[str, QColor] = {"best": QColor("#f3e2a9"),
+                                                   "equivalent": QColor("#d9eed5")}
+        #: background of the baselines' reference rows
+        self.reference_color = QColor("#ece4d4")
         self.muted_color = QColor("#5d646c")
 
     # --- Qt interface ---------------------------------------------------------
@@ -117,6 +189,24 @@ class ResultsModel(QAbstractTableModel):
 
     def row_at(self, view_row: int) -> dict:
         return self._rows[self._order_list[view_row]]
+
+    def flags(self, index):
+        """Reference rows (baselines) can be read but not selected (nor exported)."""
+        if not index.isValid():
+            return Qt.NoItemFlags
+        if self._rows[self._order_list[index.row()]].get("kind") == "baseline":
+            return Qt.ItemIsEnabled
+        return Qt.ItemIsEnabled | Qt.ItemIsSelectable
+
+    def set_colors(self, decisions: dict[str, QColor], reference: QColor,
+                   muted: QColor) -> None:
+        """The theme's row colours (decision backgrounds, reference rows, muted text)."""
+        self.decision_colors = dict(decisions)
+        self.reference_color = QColor(reference)
+        self.muted_color = QColor(muted)
+        if self._rows:
+            self.dataChanged.emit(self.index(0, 0),
+                                  self.index(len(self._rows) - 1, len(RESULT_COLUMNS) - 1))
 
     def _set_order(self, order: np.ndarray) -> None:
         self._order = order
@@ -144,10 +234,16 @@ class ResultsModel(QAbstractTableModel):
         if role == Qt.TextAlignmentRole:
             return self._RIGHT if key in NUMERIC else self._LEFT
         if role == Qt.BackgroundRole:
-            return self.tie_color if row.get("tied_with_best") else None
+            if row.get("kind") == "baseline":
+                return self.reference_color
+            return self.decision_colors.get(row.get("decision"))
         if role == Qt.ForegroundRole:
+            if row.get("kind") == "baseline":
+                return self.muted_color
             return self.muted_color if row.get("status") not in ("done", None) else None
         if role == Qt.FontRole:
+            if row.get("kind") == "baseline":
+                return self._italic
             return self._bold if key == "mean" and row.get("rank") == 1 else None
         if role == SORT_ROLE:
             return self._sort_value(row, key)
@@ -162,33 +258,47 @@ class ResultsModel(QAbstractTableModel):
     @staticmethod
     def filter_text(row: dict) -> str:
         """What the proxy's filter expression reads (one line per row)."""
-        tied = "1" if (row.get("tied_with_best") or row.get("rank") == 1) else "0"
+        tied = "1" if row.get("kind") != "baseline" and (
+            row.get("tied_with_best") or row.get("rank") == 1) else "0"
         words = " ".join(str(row.get(k, "")) for k in ("hidden", "head", "layers", "engine",
-                                                        "status"))
+                                                        "status", "decision"))
         return f"head={row.get('head')};hidden={row.get('hidden')};tied={tied};text={words}"
 
     @staticmethod
     def _display(row: dict, key: str) -> str:
         v = row.get(key)
+        baseline = row.get("kind") == "baseline"
         if key == "rank":
-            return "" if v is None else str(v)
+            if baseline:
+                return "ref =" if row.get("tied_with_best") else "ref"
+            if v is None:
+                return ""
+            return f"{v} =" if row.get("tied_with_best") and v != 1 else str(v)
         if key == "mean":
             m, s = _num(row.get("mean")), _num(row.get("sd"))
             if math.isnan(m):
                 return "–"
             return f"{m:.4f} ± {s:.4f}" if not math.isnan(s) else f"{m:.4f}"
-        if key == "tied_with_best":
-            if row.get("rank") == 1:
-                return "◆ best"
-            return "◇ tied" if v else ""
+        if key == "decision":
+            if v is None:  # not judged: the status says why (running, diverged, failed…)
+                return "" if row.get("status") in ("done", None) else str(row.get("status"))
+            return DECISION_TEXT.get(v, str(v))
         if key == "p_value":
-            return "" if row.get("rank") == 1 else fmt_float(v, 3)
+            return "" if row.get("rank") == 1 else fmt_p(v)
+        if key == "gap":
+            if row.get("underfit"):
+                return "underfit"
+            g = _num(v)
+            return "" if math.isnan(g) else f"{g:+.3f}"
+        if key == "epochs":
+            e = _num(v)
+            return "" if math.isnan(e) else f"{e:.0f}"
         if key in ("learning_rate", "alpha"):
-            return f"{_num(v):g}" if not math.isnan(_num(v)) else "–"
+            return f"{_num(v):g}" if not math.isnan(_num(v)) else ("" if baseline else "–")
         if key == "fit_seconds":
-            return fmt_float(v, 2)
+            return "" if baseline else fmt_float(v, 2)
         if key in ("dead_pct", "saturated_pct"):
-            return fmt_pct(v)
+            return "" if baseline else fmt_pct(v)
         if key == "trials":
             return f"{row.get('n_done', 0)}/{row.get('n_total', 0)}"
         return "" if v is None else str(v)
@@ -197,8 +307,9 @@ class ResultsModel(QAbstractTableModel):
     def _sort_value(row: dict, key: str):
         if key == "trials":
             return float(row.get("n_done", 0))
-        if key == "tied_with_best":
-            return 0.0 if row.get("rank") == 1 else (1.0 if row.get("tied_with_best") else 2.0)
+        if key == "decision":
+            d = row.get("decision")
+            return DECISION_ORDER.get(d, 4.0) if d is not None else math.nan
         if key in NUMERIC:
             v = _num(row.get(key))
             if key == "rank" and row.get(key) is None:
@@ -208,11 +319,7 @@ class ResultsModel(QAbstractTableModel):
 
     @staticmethod
     def _tooltip(row: dict, key: str) -> str | None:
-        if key == "status" and row.get("message"):
-            return str(row["message"])
-        if key == "mean":
-            return f"mean {row.get('mean')} , sd {row.get('sd')} over {row.get('n_done', 0)} fold scores"
-        return None
+        return row_tooltip(row, key)
 
     # --- updates --------------------------------------------------------------
     def clear(self) -> None:
@@ -243,6 +350,7 @@ class ResultsModel(QAbstractTableModel):
         """What identifies a row's content (NaN-safe; a row changes when trials arrive)."""
         return tuple(repr(row.get(k)) for k in (
             "n_done", "status", "rank", "position", "tied_with_best", "mean", "sd", "p_value",
+            "decision", "p_better", "p_equivalent", "p_worse", "gap", "underfit", "epochs",
             "fit_seconds", "dead_pct", "saturated_pct", "message"))
 
     def upsert(self, rows: Iterable[dict]) -> list[str]:
@@ -295,7 +403,7 @@ class ResultsModel(QAbstractTableModel):
         arr = self._keys.get(key)
         if arr is None:
             vals = [self._sort_value(r, key) for r in self._rows]
-            if key in NUMERIC or key == "tied_with_best":
+            if key in NUMERIC or key == "decision":
                 arr = np.asarray(vals, dtype=np.float64)
             else:
                 arr = np.asarray([v.lower() for v in vals], dtype=object)

@@ -5,6 +5,13 @@ deficiency (see ``tests/test_gui_theme.py``): every pair stays apart after the
 protanopia, deuteranopia and tritanopia simulations of Machado, Oliveira &
 Fernandes (2009). Colour never carries meaning alone: tie groups also carry a
 marker glyph, health warnings a word and an icon.
+
+Rows of the results table are coloured by their *decision* against the best
+(``best`` a pale gold, ``equivalent`` a pale green; undecided and worse rows keep
+the base colour) and baselines by ``reference`` (a neutral grey, with italic
+text); all are hues away from the blue ``selection``, so a selected row never
+looks like a decided one (``tests/test_gui_results.py`` measures the CIE76
+distance in both themes).
 """
 
 from __future__ import annotations
@@ -56,6 +63,9 @@ class Theme:
     accent_text: str
     selection: str
     tie: str
+    best: str
+    equivalent: str
+    reference: str
     banner_bg: str
     banner_text: str
     warn: str
@@ -84,6 +94,9 @@ LIGHT = Theme(
     accent_text="#ffffff",
     selection="#c9dcf0",
     tie="#e7eff7",
+    best="#f3e2a9",
+    equivalent="#d9eed5",
+    reference="#ece4d4",
     banner_bg="#fbecd2",
     banner_text="#5a3a00",
     warn="#a35a00",
@@ -105,6 +118,9 @@ DARK = Theme(
     accent_text="#10161c",
     selection="#2f4f6e",
     tie="#223448",
+    best="#4d4219",
+    equivalent="#23412a",
+    reference="#3a3833",
     banner_bg="#4a3510",
     banner_text="#fbe3b8",
     warn="#f2b25c",
