@@ -66,14 +66,21 @@ def load_by_drop(qtbot, win, path, timeout=20_000):
         assert drop_file(win, path)
 
 
-def small_plan(win, hidden=("relu", "tanh"), epochs=4, folds=2, repeats=1, layers="6"):
+def small_plan(win, hidden=("relu", "tanh"), epochs=4, folds=2, repeats=1, layers="6",
+               learning_rates="0.001"):
     s = win.setup
     s.hidden_grid.set_checked(hidden)
     s.layers_edit.setText(layers)
+    s.lr_edit.setText(learning_rates)  # one rate keeps these sweeps small (the default: tune)
     s.folds_spin.setValue(folds)
     s.repeats_spin.setValue(repeats)
     s.epochs_spin.setValue(epochs)
     s.jobs_spin.setValue(2)
+
+
+def networks(win) -> list[dict]:
+    """The results table's configuration rows (the baselines' reference rows left out)."""
+    return [r for r in win.results_model.rows() if r.get("kind") != "baseline"]
 
 
 def worker_processes() -> list[psutil.Process]:
@@ -122,8 +129,8 @@ def test_drop_run_sort_select_export(qtbot, window, tmp_path):
         win.run_sweep()
         assert win.sweep_running()
     assert blocker.args[0]["state"] == "finished", blocker.args[0]
-    qtbot.waitUntil(lambda: win.results_model.rowCount() == 2, timeout=5_000)
-    rows = win.results_model.rows()
+    qtbot.waitUntil(lambda: len(networks(win)) == 2, timeout=5_000)
+    rows = networks(win)
     assert {r["hidden"] for r in rows} == {"relu", "tanh"}
     assert all(r["n_done"] == 2 and r["status"] == "done" for r in rows)
 
@@ -136,8 +143,9 @@ def test_drop_run_sort_select_export(qtbot, window, tmp_path):
     means = [win.proxy.row_at(i)["mean"] for i in range(win.proxy.rowCount())]
     assert means == sorted(means)
 
-    # select both rows: two learning curves, two fold-score sets, health bars
-    win.select_rows([0, 1])
+    # select both configurations: two learning curves, two fold-score sets, health bars
+    win.select_rows([i for i in range(win.proxy.rowCount())
+                     if win.proxy.row_at(i)["kind"] == "network"])
     assert len(win.selected_rows()) == 2
     curves = win.curves.curve_items()
     assert len(curves) == 2
@@ -152,18 +160,19 @@ def test_drop_run_sort_select_export(qtbot, window, tmp_path):
 
     with Store(win.store_path) as store:
         stored = store.trials(win.sweep_id)
-    for item, row in zip(curves, win.selected_rows()):
+    in_rank_order = sorted(win.selected_rows(), key=lambda r: r["rank"])  # as the plots
+    for item, row in zip(curves, in_rank_order):
         trials = [t for t in stored if t["config_index"] == row["index"]]
         losses = np.array([t["history"]["loss"] for t in trials], float)
         np.testing.assert_allclose(item.getData()[1], losses.mean(axis=0), rtol=1e-12)
-    for sc, row in zip(win.spread.scatter_items(), win.selected_rows()):
+    for sc, row in zip(win.spread.scatter_items(), in_rank_order):
         scores = sorted(t["test_score"] for t in stored if t["config_index"] == row["index"])
         assert sorted(sc.getData()[1].tolist()) == pytest.approx(scores, rel=1e-12)
 
-    # export the best configuration
+    # export the recommended configuration (what Export takes by default)
     win.select_rows([])
     best = win.export_target_row()
-    assert best["rank"] == 1
+    assert best["index"] == win.results_meta["verdict"]["recommended"]["index"]
     out = tmp_path / "export"
     from workbench.export.bundle import FORMATS
 
@@ -386,8 +395,8 @@ def test_stop_keeps_finished_rows_and_leaves_no_worker_then_resume(qtbot, window
         # the run must end within 2 seconds of Stop
         qtbot.waitUntil(lambda: not win.sweep_running(), timeout=2_000)
     assert blocker.args[0]["state"] == "cancelled"
-    qtbot.waitUntil(lambda: win.results_model.rowCount() > 0, timeout=5_000)
-    done = sum(r["n_done"] for r in win.results_model.rows())
+    qtbot.waitUntil(lambda: len(networks(win)) > 0, timeout=5_000)
+    done = sum(r["n_done"] for r in networks(win))
     assert 2 <= done < 18
     qtbot.waitUntil(lambda: not worker_processes(), timeout=5_000)
     sweep_id = win.sweep_id
@@ -406,8 +415,8 @@ def test_stop_keeps_finished_rows_and_leaves_no_worker_then_resume(qtbot, window
     assert blocker.args[0]["state"] == "finished"
     assert blocker.args[0]["sweep_id"] == sweep_id
     qtbot.waitUntil(lambda: all(r["n_done"] == r["n_total"] == 6
-                                for r in win.results_model.rows()), timeout=5_000)
-    assert win.results_model.rowCount() == 3
+                                for r in networks(win)), timeout=5_000)
+    assert len(networks(win)) == 3
     from workbench.sweep.store import Store
 
     with Store(win.store_path) as store:

@@ -1,13 +1,19 @@
-"""The export dialog (lists the export registry) and the history of stored sweeps."""
+"""The export dialog (lists the export registry) and the history of stored sweeps.
+
+The export dialog offers the configurations the window passes, the default first:
+the window passes the verdict's recommended configuration first (as ``workbench
+export`` takes it by default), then the selected row and the best when they differ.
+"""
 
 from __future__ import annotations
 
 from pathlib import Path
 
-from PySide6.QtCore import Signal
+from PySide6.QtCore import Qt, Signal
 from PySide6.QtWidgets import (
     QAbstractItemView,
     QCheckBox,
+    QComboBox,
     QDialog,
     QDialogButtonBox,
     QFileDialog,
@@ -26,18 +32,39 @@ from workbench.gui.tasks import run_task
 
 
 class ExportDialog(QDialog):
-    """Choose the formats and the folder for exporting one configuration."""
+    """Choose the configuration, the formats and the folder of an export.
 
-    def __init__(self, parent, row: dict, last_folder: str = ""):
+    Parameters
+    ----------
+    parent : QWidget
+    row : dict
+        The configuration exported by default (the window passes the recommended one).
+    last_folder : str
+        Where the folder box starts.
+    choices : list of (str, dict), optional
+        The configurations offered, ``(label, row)``, the default first; without it
+        only ``row`` is offered.
+    """
+
+    def __init__(self, parent, row: dict, last_folder: str = "", choices=None):
         super().__init__(parent)
         self.setWindowTitle("Export configuration")
-        self.setMinimumWidth(520)
+        self.setMinimumWidth(560)
+        self._choices = list(choices) if choices else [(self._describe(row), row)]
+        self._base = Path(last_folder or Path.home())
         lay = QVBoxLayout(self)
-        what = QLabel(f"Rank {row.get('rank') or '–'}: <b>{row['hidden']}</b> hidden, "
-                      f"<b>{row['head']}</b> head, layers {row['layers']}, "
-                      f"learning rate {row['learning_rate']:g}, L2 {row['alpha']:g}")
-        what.setWordWrap(True)
-        lay.addWidget(what)
+        lay.addWidget(QLabel("Configuration"))
+        self.config_combo = QComboBox()
+        for label, r in self._choices:
+            self.config_combo.addItem(label, r["key"] if "key" in r else None)
+            self.config_combo.setItemData(self.config_combo.count() - 1, label,
+                                          Qt.ToolTipRole)
+        self.config_combo.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
+        self.config_combo.setMinimumContentsLength(40)
+        lay.addWidget(self.config_combo)
+        self.what = QLabel("")
+        self.what.setWordWrap(True)
+        lay.addWidget(self.what)
         lay.addWidget(QLabel("Formats"))
         self.boxes: dict[str, QCheckBox] = {}
         for name, label, tip, default in core.export_formats():
@@ -48,8 +75,6 @@ class ExportDialog(QDialog):
             lay.addWidget(box)
         row_l = QHBoxLayout()
         self.folder_edit = QLineEdit()
-        base = Path(last_folder or Path.home())
-        self.folder_edit.setText(str(base / f"export-{row['hidden']}-{row['head']}"))
         browse = QPushButton("Choose…")
         browse.clicked.connect(self._browse)
         row_l.addWidget(QLabel("Folder"))
@@ -69,6 +94,27 @@ class ExportDialog(QDialog):
         bb.accepted.connect(self.accept)
         bb.rejected.connect(self.reject)
         lay.addWidget(bb)
+        self._folder_touched = False
+        self.folder_edit.textEdited.connect(lambda *_: setattr(self, "_folder_touched", True))
+        self.config_combo.currentIndexChanged.connect(self._config_changed)
+        self._config_changed(0)
+
+    @staticmethod
+    def _describe(row: dict) -> str:
+        return (f"Rank {row.get('rank') or '–'}: {row['hidden']} hidden, {row['head']} head, "
+                f"layers {row['layers']}")
+
+    def _config_changed(self, _index: int) -> None:
+        row = self.row()
+        self.what.setText(f"Rank {row.get('rank') or '–'}: <b>{row['hidden']}</b> hidden, "
+                          f"<b>{row['head']}</b> head, layers {row['layers']}, "
+                          f"learning rate {row['learning_rate']:g}, L2 {row['alpha']:g}")
+        if not self._folder_touched:
+            self.folder_edit.setText(str(self._base / f"export-{row['hidden']}-{row['head']}"))
+
+    def row(self) -> dict:
+        """The configuration chosen (the default: the first offered)."""
+        return self._choices[max(0, self.config_combo.currentIndex())][1]
 
     def _browse(self):
         d = QFileDialog.getExistingDirectory(self, "Export into", self.folder_edit.text())

@@ -32,6 +32,7 @@ from PySide6.QtWidgets import (
     QMessageBox,
     QProgressBar,
     QScrollArea,
+    QSizePolicy,
     QSplitter,
     QStyledItemDelegate,
     QTableView,
@@ -43,24 +44,46 @@ from PySide6.QtWidgets import (
 from workbench.gui import core_adapter as core
 from workbench.gui import theme as th
 from workbench.gui.bridge import SweepThread
+from workbench.gui.candidates import CandidatesView
+from workbench.gui.factors_chart import FactorsChart
 from workbench.gui.messages import phrase
 from workbench.gui.models import (
     COLUMN_KEYS,
+    DECISION_TEXT,
     ROLES,
     FrameModel,
     ProfileModel,
     ResultsModel,
     ResultsProxy,
+    fmt_prob,
 )
-from workbench.gui.plots import CurvesPanel, HealthPanel, SpreadPanel
+from workbench.gui.plot_area import PlotArea
 from workbench.gui.settings import Settings
 from workbench.gui.setup_pane import SetupPane
 from workbench.gui.tasks import run_task
-from workbench.gui.widgets import Banner
+from workbench.gui.verdict_strip import VerdictStrip
+from workbench.gui.widgets import Banner, ElidedLabel
 
 TABLE_FILTER = "Tables (*.csv *.tsv *.txt *.xlsx *.parquet *.pq);;All files (*)"
 #: the most configurations drawn at once in the plots
 MAX_PLOTTED = 8
+#: the ROPE box's label (messages.SETTING_LABELS names it) and tooltip
+ROPE_LABEL = "Equivalence ±"
+ROPE_TIP = ("Half-width of the region of practical equivalence: differences smaller than "
+            "this do not matter. Empty: the default for the metric (0.01 for scores that are "
+            "fractions, 1% of the constant baseline's score for error scores). The decisions, "
+            "the verdict and the recommendation are judged again when it changes.")
+#: starting widths of the results columns, pixels (then fitted to their contents and to
+#: the view, see MainWindow._fit_columns)
+COLUMN_WIDTHS = {"rank": 46, "hidden": 84, "head": 66, "layers": 54, "learning_rate": 54,
+                 "alpha": 54, "mean": 124, "decision": 100, "p_value": 50, "gap": 62,
+                 "epochs": 40, "dead_pct": 42, "saturated_pct": 40, "fit_seconds": 44,
+                 "trials": 48}
+#: the least width of a column when the table is squeezed to fit its view
+COLUMN_MIN = {"rank": 34, "hidden": 56, "head": 52, "layers": 40, "learning_rate": 44,
+              "alpha": 44, "mean": 100, "decision": 84, "p_value": 40, "gap": 52,
+              "epochs": 34, "dead_pct": 34, "saturated_pct": 34, "fit_seconds": 36,
+              "trials": 40}
 
 
 class RoleDelegate(QStyledItemDelegate):
@@ -105,6 +128,10 @@ class MainWindow(QMainWindow):
     exportFailed = Signal(str)
     #: progress of an export (message, fraction); emitted from the export's thread
     exportProgress = Signal(str, float)
+    #: a stored sweep's results are shown (its id), after History's "Show results"
+    resultsShown = Signal(str)
+    #: the shown results were judged again with a new region of practical equivalence
+    judged = Signal()
 
     def __init__(self, settings: Settings | None = None, store_path: str | None = None,
                  theme_choice: str | None = None):
@@ -115,6 +142,7 @@ class MainWindow(QMainWindow):
         self.summary: core.TargetSummary | None = None
         self.sweep_id: str | None = None
         self.results_meta: dict = {}
+        self._natural: dict[str, int] = {}  # results columns' widths fitted to contents
         self._sweep: SweepThread | None = None
         self._load_generation = 0
         self._target_generation = 0
@@ -182,7 +210,7 @@ class MainWindow(QMainWindow):
                                self.stop_sweep, "Stop the sweep; finished trials stay (Ctrl+.)",
                                "stop")
         self.export_action = act("&Export…", QKeySequence("Ctrl+E"), self.show_export_dialog,
-                                 "Export the selected (or best) configuration (Ctrl+E)", "export")
+                                 "Export the recommended configuration, or another (Ctrl+E)", "export")
         self.history_action = act("&History…", QKeySequence("Ctrl+H"), self.show_history,
                                   "Reopen or resume an earlier sweep (Ctrl+H)", "history")
         self.quit_action = act("&Quit", QKeySequence.Quit, self.close, "Quit (Ctrl+Q)")
@@ -247,6 +275,9 @@ class MainWindow(QMainWindow):
         ll.addWidget(scroll, 1)
         ll.addWidget(self.setup.footer)
         root.addWidget(left)
+        # the learning rates default to the core's tune grid: an equal budget per candidate
+        self.setup.lr_edit.setText(core.DEFAULT_LEARNING_RATES)
+        self.setup.lr_edit.setToolTip(core.learning_rate_tooltip())
         self.setup.targetChosen.connect(self.set_target)
         self.setup.kindChosen.connect(self._kind_chosen)
         self.setup.planChanged.connect(self._update_estimate)
@@ -260,27 +291,29 @@ class MainWindow(QMainWindow):
         self.banner = Banner()
         rl.addWidget(self.banner)
 
+        # the progress line shares the row of the tabs (beside "Data" and "Results"), so
+        # the results keep the window's height; its whole text is its tooltip
         strip = QFrame()
         strip.setObjectName("progressStrip")
         sl = QHBoxLayout(strip)
-        sl.setContentsMargins(8, 4, 8, 4)
+        sl.setContentsMargins(12, 0, 2, 0)
+        sl.setSpacing(8)
         self.progress = QProgressBar()
         self.progress.setRange(0, 1)
         self.progress.setValue(0)
         self.progress.setTextVisible(False)
-        self.progress.setMinimumWidth(200)
+        self.progress.setFixedWidth(150)
         self.progress.hide()
-        self.progress_label = QLabel("No sweep yet: load a table, tick what to sweep, then "
-                                     "Run sweep (Ctrl+R).")
+        self.progress_label = ElidedLabel("")
+        self.progress_label.setText("No sweep yet: load a table, tick what to sweep, then "
+                                    "Run sweep (Ctrl+R).")
         self.progress_label.setObjectName("muted")
-        self.progress_label.setWordWrap(True)
-        self.progress_label.setMinimumWidth(120)
-        sl.addWidget(self.progress, 2)
-        sl.addWidget(self.progress_label, 3)
-        rl.addWidget(strip)
+        sl.addWidget(self.progress, 0)
+        sl.addWidget(self.progress_label, 1)
 
         self.tabs = QTabWidget()
         self.tabs.setDocumentMode(False)
+        self.tabs.setCornerWidget(strip, Qt.TopRightCorner)
         rl.addWidget(self.tabs, 1)
 
         # data tab
@@ -310,17 +343,25 @@ class MainWindow(QMainWindow):
             "Column profile (double-click a role to change it)", self.profile_view))
         self.tabs.addTab(data, "Data")
 
-        # results tab
+        # results tab: the verdict, the filter bar, the ranked table, and below it the
+        # curves and health, what matters, and each candidate at its best settings
         res = QWidget()
+        res.setObjectName("resultsTab")
         rv = QVBoxLayout(res)
         rv.setContentsMargins(6, 6, 6, 6)
         rv.setSpacing(4)
+        self.verdict = VerdictStrip()
+        rv.addWidget(self.verdict)
         bar = QHBoxLayout()
-        bar.addWidget(QLabel("Show"))
         self.head_filter = QComboBox()
         self.head_filter.addItem("all heads", "")
+        self.head_filter.setToolTip("Show only the configurations with this output head")
         self.hidden_filter = QComboBox()
         self.hidden_filter.addItem("all hidden", "")
+        self.hidden_filter.setToolTip("Show only the configurations with this hidden activation")
+        for combo in (self.head_filter, self.hidden_filter):
+            combo.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
+            combo.setMinimumContentsLength(5)
         self.text_filter = QLineEdit()
         self.text_filter.setPlaceholderText("filter…")
         self.text_filter.setClearButtonEnabled(True)
@@ -333,9 +374,27 @@ class MainWindow(QMainWindow):
         bar.addWidget(self.hidden_filter)
         bar.addWidget(self.text_filter, 1)
         bar.addWidget(self.tied_filter)
+        rope_label = QLabel(ROPE_LABEL)
+        rope_label.setToolTip(ROPE_TIP)
+        self.rope_edit = QLineEdit()
+        self.rope_edit.setObjectName("ropeEdit")
+        self.rope_edit.setToolTip(ROPE_TIP)
+        self.rope_edit.setClearButtonEnabled(True)
+        self.rope_edit.setMaximumWidth(130)
+        self.rope_edit.setMinimumWidth(60)
+        self.rope_edit.setPlaceholderText("default")
+        self.rope_edit.editingFinished.connect(self._rope_changed)
+        rope_label.setBuddy(self.rope_edit)
+        self._rope: float | None = None
         self.results_note = QLabel("")
         self.results_note.setObjectName("muted")
         self.results_note.setWordWrap(True)
+        self.results_note.setSizePolicy(QSizePolicy.Ignored, QSizePolicy.Preferred)
+        self.selection_note = QLabel("")
+        self.selection_note.setObjectName("selectionNote")
+        self.selection_note.setWordWrap(True)
+        self.selection_note.setSizePolicy(QSizePolicy.Ignored, QSizePolicy.Preferred)
+        self.selection_note.setTextInteractionFlags(Qt.TextSelectableByMouse)
         rv.addLayout(bar)
 
         self.results_model = ResultsModel(self)
@@ -348,32 +407,46 @@ class MainWindow(QMainWindow):
         self.results_view.setSelectionMode(QAbstractItemView.ExtendedSelection)
         self.results_view.setEditTriggers(QAbstractItemView.NoEditTriggers)
         self.results_view.verticalHeader().hide()
-        self.results_view.verticalHeader().setDefaultSectionSize(22)
+        self.results_view.verticalHeader().setDefaultSectionSize(21)
         self.results_view.setWordWrap(False)
+        self.results_view.setHorizontalScrollBarPolicy(Qt.ScrollBarAlwaysOff)
+        self.results_view.setTextElideMode(Qt.ElideRight)
         hh = self.results_view.horizontalHeader()
         hh.setSectionResizeMode(QHeaderView.Interactive)
         hh.setStretchLastSection(True)
-        widths = {"rank": 48, "hidden": 86, "head": 72, "layers": 62, "learning_rate": 92,
-                  "alpha": 62, "mean": 132, "tied_with_best": 96, "p_value": 72,
-                  "fit_seconds": 84, "dead_pct": 60, "saturated_pct": 84, "engine": 66,
-                  "status": 74, "trials": 56}
+        hh.setMinimumSectionSize(24)
+        hh.setTextElideMode(Qt.ElideRight)
         for i, k in enumerate(COLUMN_KEYS):
-            hh.resizeSection(i, widths.get(k, 80))
+            hh.resizeSection(i, COLUMN_WIDTHS.get(k, 60))
         hh.setSortIndicator(0, Qt.AscendingOrder)
+        hh.sortIndicatorChanged.connect(lambda *_: self._fit_columns())
         self.results_view.selectionModel().selectionChanged.connect(self._selection_changed)
         self.results_view.setContextMenuPolicy(Qt.ActionsContextMenu)
         self.results_view.addAction(self.export_action)
+        self.results_view.viewport().installEventFilter(self)
         self.results_model.rowsUpdated.connect(self._rows_updated)
 
-        self.curves = CurvesPanel()
-        self.spread = SpreadPanel()
-        self.health = HealthPanel()
-        plots = QSplitter(Qt.Horizontal)
-        plots.setChildrenCollapsible(False)
-        for p in (self.curves, self.spread, self.health):
-            p.setMinimumWidth(140)
-            plots.addWidget(p)
-        plots.setSizes([420, 260, 320])
+        self.plot_area = plots = PlotArea(
+            lambda indices: core.calibration_points(self.store_path, self.sweep_id, indices))
+        self.curves, self.spread, self.health = plots.curves, plots.spread, plots.health
+        self.factors_chart = FactorsChart()
+        self.candidates = CandidatesView()
+        self.candidates.configurationChosen.connect(self.select_configuration)
+        self.detail_tabs = QTabWidget()
+        self.detail_tabs.setObjectName("detailTabs")
+        # in a scroll area: the panels keep their least height when the splitter is low
+        plots_area = QScrollArea()
+        plots_area.setObjectName("plotsArea")
+        plots_area.setWidgetResizable(True)
+        plots_area.setFrameShape(QFrame.NoFrame)
+        plots_area.setHorizontalScrollBarPolicy(Qt.ScrollBarAlwaysOff)
+        plots_area.setWidget(plots)
+        self.detail_tabs.addTab(plots_area, "Curves and health")
+        self.detail_tabs.addTab(plots.calibration_page, "Calibration")
+        self.detail_tabs.addTab(plots.diagnosis, "Diagnosis")
+        plots.watch_tabs(self.detail_tabs)
+        self.detail_tabs.addTab(self.factors_chart, "What matters")
+        self.detail_tabs.addTab(self.candidates, "Candidates")
         vs = QSplitter(Qt.Vertical)
         vs.setChildrenCollapsible(False)
         tablebox = QWidget()
@@ -381,11 +454,21 @@ class MainWindow(QMainWindow):
         tl.setContentsMargins(0, 0, 0, 0)
         tl.setSpacing(2)
         tl.addWidget(self.results_view, 1)
-        tl.addWidget(self.results_note)
+        legend = QHBoxLayout()  # the legend, and beside it the ROPE it is judged with
+        legend.setContentsMargins(0, 0, 0, 0)
+        legend.addWidget(self.results_note, 1)
+        legend.addWidget(rope_label, 0, Qt.AlignTop)
+        legend.addWidget(self.rope_edit, 0, Qt.AlignTop)
+        tl.addLayout(legend)
+        tl.addWidget(self.selection_note)
+        self.results_view.setMinimumHeight(110)
         vs.addWidget(tablebox)
-        vs.addWidget(plots)
-        vs.setSizes([260, 350])
+        vs.addWidget(self.detail_tabs)
+        vs.setStretchFactor(0, 1)
+        vs.setStretchFactor(1, 1)
+        vs.setSizes([290, 260])
         rv.addWidget(vs, 1)
+        self.results_split = vs
         self.tabs.addTab(res, "Results")
 
         root.addWidget(right)
@@ -425,10 +508,11 @@ class MainWindow(QMainWindow):
         self.banner.close_btn.setIcon(th.icon("close", self.theme.banner_text))
         from PySide6.QtGui import QColor
 
-        self.results_model.tie_color = QColor(self.theme.tie)
-        self.results_model.muted_color = QColor(self.theme.muted)
-        for p in (self.curves, self.spread, self.health):
-            p.set_theme(self.theme)
+        t = self.theme
+        self.results_model.set_colors({"best": QColor(t.best), "equivalent": QColor(t.equivalent)},
+                                      QColor(t.reference), QColor(t.muted))
+        self.plot_area.set_theme(self.theme)
+        self.factors_chart.set_theme(self.theme)
         self.settings.set_theme(choice)
 
     # ================================================================== settings
@@ -635,6 +719,7 @@ class MainWindow(QMainWindow):
         return plan, ""
 
     def _update_estimate(self) -> None:
+        self._show_rope_default()
         plan, msg = self._plan()
         self._plan_ok = plan is not None
         if plan is None:
@@ -680,8 +765,11 @@ class MainWindow(QMainWindow):
         self.banner.hide_message()
         if not keep_rows:
             self.results_model.clear()
+            self.results_meta = {}
+            self._show_judgement({})
             self._plot_selection([])
-        self._sweep = SweepThread(job, ranker=lambda sid: core.ranked_rows(session.store, sid),
+        self._sweep = SweepThread(job, ranker=lambda sid: core.ranked_rows(session.store, sid,
+                                                                           self._rope),
                                   parent=self, cleanup=session.close)
         b = self._sweep.bridge
         b.sweepStarted.connect(self._on_sweep_started)
@@ -761,8 +849,31 @@ class MainWindow(QMainWindow):
         first = self.results_model.rowCount() == 0
         self.results_model.upsert(rows)
         self._refresh_filters(rows)
+        self._show_judgement(self.results_meta)
         if first and rows:
             self._fit_columns()
+
+    def _show_judgement(self, meta: dict) -> None:
+        """The verdict strip, what matters and the candidates for a results document."""
+        self.verdict.set_results(meta)
+        self.factors_chart.set_results(meta)
+        self.candidates.set_results(meta)
+        self._show_rope_default()
+        self._rows_updated()
+
+    def _show_rope_default(self) -> None:
+        """The ROPE box's placeholder: the value the core uses when the box is empty."""
+        meta = self.results_meta or {}
+        rope = meta.get("rope")
+        if rope is not None and self._rope is None:
+            self.rope_edit.setPlaceholderText(f"default {rope:.4g}")
+            self.rope_edit.setToolTip(f"{ROPE_TIP}\nNow: ±{rope:.4g} {meta.get('metric', '')} "
+                                      f"({meta.get('rope_basis') or 'the default'}).")
+        elif rope is None:
+            metric = self.setup.metric_combo.currentText() or None
+            self.rope_edit.setPlaceholderText(f"default {core.default_rope_text(metric)}"
+                                              if metric else "default")
+            self.rope_edit.setToolTip(ROPE_TIP)
 
     def _on_sweep_done(self, summary: dict) -> None:
         self._tick.stop()
@@ -797,40 +908,119 @@ class MainWindow(QMainWindow):
         n = self.results_model.rowCount()
         if not n:
             self.results_note.setText("")
+            self.selection_note.setText("")
             return
-        rows = self.results_model.rows()
-        tied = sum(1 for r in rows if r.get("tied_with_best"))
+        rows = [r for r in self.results_model.rows() if r.get("kind") != "baseline"]
         shared = []
         for key, label in (("learning_rate", "learning rate"), ("alpha", "L2")):
             vals = {r.get(key) for r in rows}
             if len(vals) == 1 and None not in vals:
                 shared.append(f"{label} {next(iter(vals)):g}")
-        self.results_note.setText(self._note_text(rows, tied, shared, meta, n))
+        self.results_note.setText(self._note_text(rows, shared, meta))
         # redraw the plots only when a selected configuration changed
         selected = {r["key"] for r in self.selected_rows()}
         if selected & self.results_model.last_changed:
             self._selection_changed()
+        else:
+            self._show_selection_note()
 
     @staticmethod
-    def _note_text(rows, tied, shared, meta, n) -> str:
-        note = (f"{n} configurations · metric {meta.get('metric', '?')} (greater is better) · "
-                f"◆ best, ◇ {max(0, tied - 1)} tied with it: not distinguishable at alpha = "
-                f"{meta.get('significance_level', 0.05)} (Nadeau–Bengio corrected t-test, "
-                f"{meta.get('n_comparisons', 0)} comparisons, uncorrected)"
-                + (f" · all with {', '.join(shared)}" if shared else ""))
+    def _note_text(rows, shared, meta) -> str:
+        """The legend under the table: what the marks mean, with this sweep's numbers (the
+        rule behind them is in the Decision header's tooltip and the verdict's)."""
+        tied = sum(1 for r in rows if r.get("tied_with_best") and r.get("rank") != 1)
+        counts = {d: sum(1 for r in rows if r.get("decision") == d)
+                  for d in ("equivalent", "undecided", "worse")}
+        rope = meta.get("rope")
+        within = f" ±{rope:.4g}" if rope is not None else ""
+        note = (f"{len(rows)} configurations · against the best{within}: "
+                f"{counts['equivalent']} ≈ equivalent, {counts['undecided']} ? undecided, "
+                f"{counts['worse']} ▼ worse · {tied} “=” tied (alpha "
+                f"{meta.get('significance_level', 0.05):g}) · ref: baselines"
+                + (f" · all: {', '.join(shared)}" if shared else ""))
         return note
 
+    def _show_selection_note(self) -> None:
+        """One line on the first selected configuration: what the columns leave out."""
+        sel = self.selected_rows()
+        if not sel:
+            self.selection_note.setText("Select rows to compare their curves, fold scores and "
+                                        "layer health below.")
+            return
+        r = sel[0]
+        parts = [f"Selected: rank {r.get('rank') or '–'}, {r['hidden']} / {r['head']} "
+                 f"[{r['layers']}]"]
+        if r.get("decision"):
+            text = DECISION_TEXT.get(r["decision"], r["decision"])
+            if r.get("p_equivalent") is not None:
+                text += (f" (P better {fmt_prob(r.get('p_better'))}, equivalent "
+                         f"{fmt_prob(r.get('p_equivalent'))}, worse "
+                         f"{fmt_prob(r.get('p_worse'))})")
+            parts.append(text)
+        if r.get("train_mean") is not None:
+            parts.append(f"training score {r['train_mean']:.4f}"
+                         + (" (underfit)" if r.get("underfit") else ""))
+        parts.append(f"engine {r.get('engine')}")
+        if r.get("status") not in ("done", None):
+            parts.append(str(r["status"]) + (f": {r['message']}" if r.get("message") else ""))
+        if len(sel) > 1:
+            parts.append(f"{len(sel)} rows selected")
+        self.selection_note.setText(" · ".join(parts))
+
+    def eventFilter(self, obj, event) -> bool:  # noqa: N802 - Qt override
+        from PySide6.QtCore import QEvent
+
+        if obj is self.results_view.viewport() and event.type() == QEvent.Resize:
+            self._squeeze_columns()
+        return super().eventFilter(obj, event)
+
     def _fit_columns(self) -> None:
-        """Fit columns to their contents; hide learning rate / L2 when one value is shared."""
+        """Fit columns to their contents, then squeeze them into the view; hide learning
+        rate / L2 when one value is shared (the note under the table names it)."""
         view = self.results_view
-        rows = self.results_model.rows()
+        rows = [r for r in self.results_model.rows() if r.get("kind") != "baseline"]
         for key in ("learning_rate", "alpha"):
             col = COLUMN_KEYS.index(key)
             view.setColumnHidden(col, len({r.get(key) for r in rows}) <= 1)
-        view.resizeColumnsToContents()
         hh = view.horizontalHeader()
-        for i in range(self.results_model.columnCount()):
-            hh.resizeSection(i, min(max(hh.sectionSize(i) + 8, 44), 180))
+        fm = hh.fontMetrics()
+        for i, key in enumerate(COLUMN_KEYS):
+            if view.isColumnHidden(i):
+                continue
+            content = max(view.sizeHintForColumn(i), COLUMN_MIN.get(key, 34))
+            # the header's text and padding (style sheet: 6 px each side), and the sort
+            # arrow's room on the sorted column (refitted when the sort changes)
+            header = fm.horizontalAdvance(self.results_model.headerData(i, Qt.Horizontal)) \
+                + 16 + (16 if i == hh.sortIndicatorSection() else 0)
+            natural = min(max(content, header), 180)
+            self._natural[key] = (natural, min(content, natural))
+        self._squeeze_columns()
+
+    def _squeeze_columns(self) -> None:
+        """Every shown column inside the view. Headers wider than their cells give way
+        first (they elide; each header's tooltip names it), then cells, down to the least
+        widths of :data:`COLUMN_MIN` (elided cells keep their whole text in tooltips)."""
+        view = self.results_view
+        hh = view.horizontalHeader()
+        shown = [k for i, k in enumerate(COLUMN_KEYS) if not view.isColumnHidden(i)]
+        if not shown:
+            return
+        default = {k: (COLUMN_WIDTHS.get(k, 60), COLUMN_WIDTHS.get(k, 60)) for k in shown}
+        width = {k: self._natural.get(k, default[k])[0] for k in shown}
+        # (2 pixels to spare: the stretched last section keeps at least the size it had)
+        excess = sum(width.values()) - (view.viewport().width() - 2)
+        for floor in ({k: self._natural.get(k, default[k])[1] for k in shown},
+                      {k: COLUMN_MIN.get(k, 34) for k in shown}):
+            while excess > 0:  # a pixel at a time from the column with the most to give
+                k = max(shown, key=lambda k: width[k] - floor[k])
+                if width[k] <= floor[k]:
+                    break
+                width[k] -= 1
+                excess -= 1
+        hh.blockSignals(True)
+        for k in shown[:-1]:
+            hh.resizeSection(COLUMN_KEYS.index(k), width[k])
+        hh.blockSignals(False)
 
     def _refresh_filters(self, rows) -> None:
         for combo, key in ((self.head_filter, "head"), (self.hidden_filter, "hidden")):
@@ -859,25 +1049,30 @@ class MainWindow(QMainWindow):
         rows = sorted(i.row() for i in sm.selectedRows())
         return [self.proxy.row_at(r) for r in rows]
 
+    def select_configuration(self, index: int) -> None:
+        """Select the row of the configuration with grid index ``index`` (and show it)."""
+        for r in range(self.proxy.rowCount()):
+            if self.proxy.row_at(r).get("index") == index \
+                    and self.proxy.row_at(r).get("kind") != "baseline":
+                self.select_rows([r])
+                self.results_view.scrollTo(self.proxy.index(r, 0))
+                self.detail_tabs.setCurrentIndex(0)
+                return
+        self.status.showMessage("That configuration is hidden by the filters.", 5000)
+
     def _selection_changed(self, *args) -> None:
         self._plot_selection(self.selected_rows()[:MAX_PLOTTED])
+        self._show_selection_note()
 
     def _plot_selection(self, rows: list[dict]) -> None:
         n_sel = len(self.results_view.selectionModel().selectedRows())
         if n_sel > MAX_PLOTTED:
             self.status.showMessage(f"{n_sel} rows selected; the plots show the first "
                                     f"{MAX_PLOTTED}.", 5000)
-        series = []
-        for i, r in enumerate(rows):
-            s = dict(r.get("series") or {})
-            if not s:
-                continue
-            s["color"] = i
-            s["label"] = f"{i + 1}. {r['hidden']} / {r['head']} [{r['layers']}]"
-            series.append(s)
-        self.curves.set_series(series)
-        self.spread.set_series(series)
-        self.health.set_series(series)
+        # legend numbers follow the rank (unranked configurations after the ranked ones)
+        rows = sorted(rows, key=lambda r: (r.get("rank") is None, r.get("rank") or 0,
+                                           r.get("position") or 0))
+        self.plot_area.show_rows(rows)
 
     def show_shortcuts(self) -> None:
         rows = []
@@ -899,22 +1094,53 @@ class MainWindow(QMainWindow):
             "on fresh data before it drives decisions.</p>")
 
     # ================================================================== export, history
+    def recommended_row(self) -> dict | None:
+        """The verdict's recommended configuration's row (None before any has finished)."""
+        rec = ((self.results_meta or {}).get("verdict") or {}).get("recommended") or {}
+        if rec.get("index") is None:
+            return None
+        return next((r for r in self.results_model.rows()
+                     if r.get("kind") != "baseline" and r.get("index") == rec["index"]), None)
+
+    def export_choices(self) -> list[tuple[str, dict]]:
+        """What the export dialog offers, the default first: the recommended configuration,
+        then the selected one and the best when they differ from it."""
+        out = []
+        seen = set()
+        rec = self.recommended_row()
+        reason = ((self.results_meta.get("verdict") or {}).get("recommended") or {}).get(
+            "reason", "")
+        best = next((r for r in self.results_model.rows() if r.get("rank") == 1), None)
+        sel = [r for r in self.selected_rows() if r.get("kind") != "baseline"]
+        for label, row in (("Recommended", rec), ("Selected", sel[0] if sel else None),
+                           ("Best", best)):
+            if row is None or row["key"] in seen:
+                continue
+            seen.add(row["key"])
+            text = f"{label}: rank {row.get('rank') or '–'}, {row['hidden']} / {row['head']} " \
+                   f"[{row['layers']}]"
+            if label == "Recommended" and reason:
+                text += f" ({reason})"
+            out.append((text, row))
+        return out
+
     def export_target_row(self) -> dict | None:
-        sel = self.selected_rows()
-        if sel:
-            return sel[0]
-        return next((r for r in self.results_model.rows() if r.get("rank") == 1), None)
+        """The configuration Export takes by default: the recommended one (else the best)."""
+        choices = self.export_choices()
+        return choices[0][1] if choices else None
 
     def show_export_dialog(self) -> None:
         from workbench.gui.dialogs import ExportDialog
 
-        row = self.export_target_row()
-        if self.sweep_id is None or row is None:
-            self.show_message("Run or reopen a sweep first; then export its best configuration.")
+        choices = self.export_choices()
+        if self.sweep_id is None or not choices:
+            self.show_message("Run or reopen a sweep first; then export its recommended "
+                              "configuration.")
             return
-        dlg = ExportDialog(self, row, self.settings.last_folder())
+        dlg = ExportDialog(self, choices[0][1], self.settings.last_folder(), choices=choices)
         if dlg.exec():
-            self.export_configuration(row, dlg.folder(), dlg.formats(), dlg.open_when_done())
+            self.export_configuration(dlg.row(), dlg.folder(), dlg.formats(),
+                                      dlg.open_when_done())
 
     def export_configuration(self, row: dict, folder: str, formats: list[str],
                              open_folder: bool = False) -> None:
@@ -962,8 +1188,35 @@ class MainWindow(QMainWindow):
             self._update_actions()
             if self.proxy.rowCount():
                 self.select_rows([0])
+            self.resultsShown.emit(sweep_id)
 
-        run_task(lambda: core.ranked_rows(store, sweep_id), done, self.show_message)
+        rope = self._rope
+        run_task(lambda: core.ranked_rows(store, sweep_id, rope), done, self.show_message)
+
+    def _rope_changed(self) -> None:
+        """The user set (or cleared) the ROPE: the core judges the shown sweep again."""
+        try:
+            rope = core.check_rope(self.rope_edit.text())
+        except core.InputError as exc:
+            self.show_message(phrase(exc))
+            return
+        if rope == self._rope:
+            return
+        self._rope = rope
+        self.banner.hide_message()
+        if self.sweep_id is None or self.sweep_running():
+            return  # a running sweep's next ranking uses it
+        store, sweep_id = self.store_path, self.sweep_id
+        self.status.showMessage("Judging the results again…")
+
+        def done(payload):
+            if payload.get("meta", {}).get("sweep_id") == self.sweep_id:
+                self._on_ranked(payload)
+                self.status.showMessage(
+                    f"Judged within ±{payload['meta'].get('rope', 0):.4g}.", 5000)
+                self.judged.emit()
+
+        run_task(lambda: core.ranked_rows(store, sweep_id, rope), done, self.show_message)
 
     def _show_plan(self, plan: dict) -> None:
         """Show a stored sweep's plan in the set-up column (loading its table if needed)."""
@@ -986,6 +1239,7 @@ class MainWindow(QMainWindow):
 
         def with_kind(_name=None, plan=plan):  # the table is shown: now the plan's kind
             self.targetReady.disconnect(with_kind)
+            self.tabs.setCurrentIndex(1)  # loading showed the data; the results were asked for
             if self._summary_matches(plan):
                 self.setup.apply_plan(plan)
                 return

@@ -42,7 +42,7 @@ SETTING_LABELS = {
     "formats": "set with the “Formats” boxes of the export dialog",
     "folder": "set with the “Folder” box of the export dialog",
     "model": "the window does not read model files; an export's own predict does",
-    "rope": "the window uses the default region of practical equivalence",
+    "rope": "set with the “Equivalence ±” box under the results table",
 }
 
 

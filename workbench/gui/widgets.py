@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from PySide6.QtCore import Qt, Signal
+from PySide6.QtCore import QSize, Qt, Signal
+from PySide6.QtGui import QPainter
 from PySide6.QtWidgets import (
     QCheckBox,
     QFrame,
@@ -107,3 +108,31 @@ class CheckGrid(QWidget):
         names = set(names)
         for n, b in self.boxes.items():
             b.setChecked(n in names and b.isEnabled())
+
+
+class ElidedLabel(QLabel):
+    """A one-line label that shortens its text with "…" when narrow (whole text as tooltip).
+
+    For lines that must share a row with other controls (the progress line beside the
+    tabs); never use it for text the user must read whole.
+    """
+
+    def setText(self, text: str) -> None:  # noqa: N802 - Qt override
+        super().setText(text)
+        self.setToolTip(text)
+        self.updateGeometry()
+
+    def minimumSizeHint(self) -> QSize:  # noqa: N802 - Qt override
+        return QSize(40, super().minimumSizeHint().height())
+
+    def sizeHint(self) -> QSize:  # noqa: N802 - Qt override
+        fm = self.fontMetrics()
+        return QSize(fm.horizontalAdvance(self.text()) + 8, super().sizeHint().height())
+
+    def paintEvent(self, event) -> None:  # noqa: N802 - Qt override
+        p = QPainter(self)
+        rect = self.contentsRect()
+        p.setPen(self.palette().color(self.foregroundRole()))
+        p.drawText(rect, int(Qt.AlignLeft | Qt.AlignVCenter),
+                   self.fontMetrics().elidedText(self.text(), Qt.ElideRight, rect.width()))
+        p.end()

@@ -1,0 +1,376 @@
+"""The window's results: the verdict strip, the ranked table, what matters, the candidates,
+the ROPE box, the tune default and Export's default -- driven offscreen with pytest-qt.
+
+The window only presents the core, so the references here are the core's own answers
+for the same stored sweep, obtained outside the window: ``workbench sweep --json``,
+``workbench show --json`` and the exported report (the views must carry the words of
+:func:`workbench.sweep.results.verdict_statements`, checked with the shared helper
+``tests/verdict_views.py``); the region of practical equivalence given to
+:func:`workbench.sweep.results.sweep_results` directly. Colours are judged with the
+CIE 1976 L*a*b* colour difference (CIE 15:2004; sRGB of IEC 61966-2-1) and WCAG 2.1's
+contrast ratio; the helpers are those of ``tests/test_gui_parts.py``. Waiting is done
+with ``qtbot.waitSignal`` / ``waitUntil`` only.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+from contextlib import redirect_stdout
+from pathlib import Path
+
+import numpy as np
+import pytest
+from PySide6.QtCore import Qt
+from PySide6.QtGui import QColor
+from sklearn.datasets import load_breast_cancer
+from test_gui_parts import _contrast, _lab, _linear
+from verdict_views import assert_view_shows_verdict, html_text, normalise
+
+from workbench.cli import main
+from workbench.gui import theme as th
+from workbench.gui.main_window import COLUMN_KEYS, MainWindow
+from workbench.gui.models import DECISION_TEXT
+from workbench.gui.settings import Settings
+from workbench.sweep.plan import LEARNING_RATE_GRID
+from workbench.sweep.results import sweep_results, verdict_statements
+from workbench.sweep.store import Store
+
+pytestmark = pytest.mark.gui
+
+SAMPLES = Path(__file__).resolve().parents[1] / "sample_sets"
+
+
+# --------------------------------------------------------------------------- fixtures
+@pytest.fixture(scope="module")
+def cancer(tmp_path_factory):
+    """scikit-learn's breast cancer table swept by ``workbench sweep --json`` (2 x 2 grid;
+    the same sweep as tests/test_verdict_e2e.py, whose recommendation is not rank 1)."""
+    d = tmp_path_factory.mktemp("cancer_gui")
+    table = d / "cancer.csv"
+    load_breast_cancer(as_frame=True).frame.to_csv(table, index=False)
+    store, out = d / "s.sqlite", d / "r.json"
+    with redirect_stdout(io.StringIO()):
+        rc = main(["sweep", str(table), "--target", "target", "--hidden", "relu,tanh",
+                   "--output", "all", "--layers", "4", "--learning-rate", "0.01",
+                   "--folds", "3", "--repeats", "2", "--epochs", "30", "--jobs", "1",
+                   "--quiet", "--store", str(store), "--json", str(out)])
+    assert rc == 0
+    return {"dir": d, "store": store, "res": json.loads(out.read_text())}
+
+
+def make_window(qtbot, tmp_path, store, theme="light") -> MainWindow:
+    win = MainWindow(settings=Settings(tmp_path / "settings"), store_path=str(store),
+                     theme_choice=theme)
+    qtbot.addWidget(win)
+    win.resize(1280, 800)
+    win.show()
+    qtbot.waitExposed(win)
+    return win
+
+
+def reopen(qtbot, win, sweep_id):
+    """History's "Show results" for a stored sweep, waiting until the window shows it."""
+    with qtbot.waitSignal(win.resultsShown, timeout=60_000):
+        win.reopen_sweep(sweep_id)
+    win.tabs.setCurrentIndex(1)
+    qtbot.waitUntil(lambda: win.verdict.isVisible(), timeout=5_000)
+
+
+@pytest.fixture
+def shown(qtbot, tmp_path, cancer):
+    """A window at 1280 x 800 showing the cancer sweep (and a table-loading tail settled)."""
+    win = make_window(qtbot, tmp_path, cancer["store"])
+    reopen(qtbot, win, cancer["res"]["sweep_id"])
+    return win
+
+
+def _fraction(x) -> str:
+    return f"{x:.4f}"
+
+
+# --------------------------------------------------------------------------- the verdict
+def test_the_strip_the_jsons_and_the_report_agree_for_one_sweep(qtbot, shown, cancer,
+                                                                 capsys, monkeypatch):
+    win, res = shown, cancer["res"]
+    # show --json reads the same document sweep --json wrote
+    capsys.readouterr()
+    assert main(["show", res["sweep_id"], "--store", str(cancer["store"]), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out) == res
+    # the strip: every statement but the factors' sentence (shown beside its chart)
+    assert_view_shows_verdict(win.verdict.text(), res, skip=("factors",))
+    assert normalise(win.factors_chart.sentence.text()) == normalise(res["factors_sentence"])
+    # each statement in its own row, under its own name (a swap would show wrong words)
+    for s in verdict_statements(res):
+        if s["key"] != "factors":
+            assert win.verdict.labels[s["key"]].text() == s["text"], s["key"]
+    # the report exported from the window shows the same words
+    folder = cancer["dir"] / "from_window"
+    report = _export_through_dialog(qtbot, win, monkeypatch, folder, ["json", "report"])
+    assert_view_shows_verdict(html_text((report / "report.html").read_text("utf-8")), res)
+
+
+def _export_through_dialog(qtbot, win, monkeypatch, folder, formats, pick=None):
+    """Press Export in the window; the dialog (not shown) keeps its default configuration
+    unless ``pick`` chooses another entry; returns the folder written."""
+    from workbench.gui import dialogs
+
+    seen = []
+
+    def accept(dialog):
+        seen.append(dialog)
+        dialog.folder_edit.setText(str(folder))
+        for name, box in dialog.boxes.items():
+            box.setChecked(name in formats)
+        dialog.open_box.setChecked(False)
+        if pick is not None:
+            dialog.config_combo.setCurrentIndex(pick)
+        return 1
+
+    monkeypatch.setattr(dialogs.ExportDialog, "exec", accept)
+    with qtbot.waitSignal(win.exportDone, timeout=120_000) as blocker:
+        win.export_action.trigger()
+    win._last_dialog = seen[0]
+    return Path(blocker.args[0])
+
+
+def test_export_defaults_to_the_recommended_configuration(qtbot, shown, cancer, monkeypatch):
+    win, res = shown, cancer["res"]
+    rec = res["verdict"]["recommended"]
+    assert rec["rank"] != 1  # this sweep's recommendation is not its best: a real test
+    # rank 1 is selected (the window selects the first row after opening a sweep)
+    assert [r["rank"] for r in win.selected_rows()] == [1]
+    folder = _export_through_dialog(qtbot, win, monkeypatch, cancer["dir"] / "default",
+                                    ["json"])
+    conf = json.loads((folder / "configuration.json").read_text())
+    assert conf["scores"]["rank"] == rec["rank"]
+    assert conf["scores"]["recommended"] == {"rank": rec["rank"], "index": rec["index"],
+                                             "reason": rec["reason"], "exported": True}
+    # the dialog offered the recommended one first, with its reason, then the selected one
+    dialog = win._last_dialog
+    labels = [dialog.config_combo.itemText(i) for i in range(dialog.config_combo.count())]
+    assert labels[0].startswith(f"Recommended: rank {rec['rank']},")
+    assert rec["reason"] in labels[0]
+    assert labels[1].startswith("Selected: rank 1,")
+    # and the selected one is still one choice away
+    folder = _export_through_dialog(qtbot, win, monkeypatch, cancer["dir"] / "picked",
+                                    ["json"], pick=1)
+    conf = json.loads((folder / "configuration.json").read_text())
+    assert conf["scores"]["rank"] == 1 and conf["scores"]["recommended"]["exported"] is False
+
+
+def test_the_table_shows_decisions_epochs_gap_and_baselines_as_the_core_says(shown, cancer):
+    win, res = shown, cancer["res"]
+    m = win.results_model
+    by_index = {c["index"]: c for c in res["configurations"]}
+    col = {k: COLUMN_KEYS.index(k) for k in ("rank", "hidden", "mean", "decision", "gap",
+                                            "epochs", "p_value")}
+    networks = baselines = 0
+    for r in range(m.rowCount()):
+        row = m.row_at(r)
+        text = {k: m.index(r, c).data() for k, c in col.items()}
+        if row["kind"] == "baseline":
+            baselines += 1
+            b = next(b for b in res["baselines"] if b["name"] == row["hidden"])
+            assert text["rank"] in ("ref", "ref =")
+            assert text["mean"].startswith(_fraction(b["mean"]))
+            assert text["decision"] == DECISION_TEXT[b["decision"]]
+            # reference rows: visibly different, never selectable
+            assert m.index(r, 0).data(Qt.BackgroundRole) == QColor(win.theme.reference)
+            assert m.index(r, 0).data(Qt.FontRole).italic()
+            assert not (m.flags(m.index(r, 0)) & Qt.ItemIsSelectable)
+            continue
+        networks += 1
+        c = by_index[row["index"]]
+        assert text["mean"] == f"{c['mean']:.4f} ± {c['sd']:.4f}"
+        assert text["decision"] == DECISION_TEXT[c["decision"]]
+        assert text["epochs"] == f"{c['mean_epochs']:.0f}"
+        assert text["gap"] == ("underfit" if c["underfit"] else f"{c['train_test_gap']:+.3f}")
+        assert text["rank"].split()[0] == str(c["rank"])
+        assert text["rank"].endswith("=") == (c["tied_with_best"] and c["rank"] != 1)
+    assert networks == len(res["configurations"]) and baselines == len(res["baselines"])
+    # selecting everything selects no reference row, so Export can never take one
+    win.results_view.selectAll()
+    assert all(r["kind"] == "network" for r in win.selected_rows())
+    assert len(win.selected_rows()) == networks
+
+
+def test_what_matters_and_the_candidates_show_the_core_numbers(shown, cancer):
+    win, res = shown, cancer["res"]
+    words = win.results_meta["factor_words"]
+    bars = win.factors_chart.bars.rows
+    factors = [(r[0], r[1]) for r in bars if r[2] == "factor"]
+    assert factors == [(words[f["factor"]].removeprefix("the "), f["share"])
+                       for f in res["factors"]]
+    noise = [r[1] for r in bars if r[2] == "noise"]
+    assert noise == [res["factors_noise"]["share"]]
+    # every candidate with its raw best mean, robustness and corrected interval
+    shown_text = win.candidates.text()
+    for group in ("hidden", "head", "hidden_head"):
+        for c in res["candidates"][group]:
+            corr = c["corrected"]
+            line = next(ln for ln in shown_text.splitlines()
+                        if ln.strip().lstrip("★ ").startswith(f"{c['label']} |"))
+            cells = [x.strip() for x in line.split("|")]
+            assert cells[1:] == [str(c["best_rank"]), _fraction(c["best_mean"]),
+                                 f"{_fraction(corr['estimate'])} ({_fraction(corr['low'])}–"
+                                 f"{_fraction(corr['high'])})", _fraction(c["robustness"]),
+                                 str(c["n_settings"])]
+    # the rule of thumb is marked (relu hidden, the advised head, and the pair)
+    marked = {ln.strip().split(" |")[0] for ln in shown_text.splitlines() if "★" in ln}
+    head = res["verdict"]["output"]["advised"]
+    assert marked == {"★ relu", f"★ {head}", f"★ relu + {head}"}
+    # double-clicking a candidate selects its best configuration
+    best_tanh = next(c for c in res["candidates"]["hidden"] if c["value"] == "tanh")
+    win.candidates.configurationChosen.emit(best_tanh["best_index"])
+    assert [r["index"] for r in win.selected_rows()] == [best_tanh["best_index"]]
+
+
+def test_the_rope_box_reaches_the_core(qtbot, shown, cancer):
+    win, res = shown, cancer["res"]
+    assert win.rope_edit.placeholderText() == f"default {res['rope']:.4g}"
+    win.rope_edit.setText("0.0002")  # narrower than the default: fewer are equivalent
+    with qtbot.waitSignal(win.judged, timeout=60_000):
+        win.rope_edit.editingFinished.emit()
+    with Store(cancer["store"]) as store:
+        ref = sweep_results(store, res["sweep_id"], rope=0.0002)
+    assert win.results_meta["rope"] == 0.0002 and ref["rope_basis"] == "set by the user"
+    decisions = {r["index"]: r["decision"] for r in win.results_model.rows()
+                 if r["kind"] == "network"}
+    assert decisions == {c["index"]: c["decision"] for c in ref["configurations"]}
+    assert decisions != {c["index"]: c["decision"] for c in res["configurations"]}
+    assert_view_shows_verdict(win.verdict.text(), ref, skip=("factors",))
+    # a ROPE the core refuses: its words, pointing at the box, and nothing judged again
+    win.rope_edit.setText("-1")
+    win.rope_edit.editingFinished.emit()
+    assert "region of practical equivalence" in win.message_text()
+    assert "“Equivalence ±”" in win.message_text()
+    assert win.results_meta["rope"] == 0.0002
+
+
+def test_legend_numbers_follow_the_rank(shown, cancer, monkeypatch):
+    """Whatever order the rows are selected or sorted in, the plots get them in rank order
+    and number each by its rank (the legend's and the fold-score axis's numbers)."""
+    win = shown
+    drawn = []
+    monkeypatch.setattr(win.curves, "set_series", lambda series: drawn.append(series))
+    win.results_view.sortByColumn(COLUMN_KEYS.index("hidden"), Qt.DescendingOrder)
+    ranked = [win.proxy.row_at(i) for i in range(win.proxy.rowCount())
+              if win.proxy.row_at(i)["kind"] == "network"]
+    assert [r["rank"] for r in ranked] != sorted(r["rank"] for r in ranked)
+    win.select_rows([i for i in range(win.proxy.rowCount())
+                     if win.proxy.row_at(i)["kind"] == "network"])
+    series = drawn[-1]
+    assert [s["number"] for s in series] == sorted(r["rank"] for r in ranked)
+    assert [s["color"] for s in series] == list(range(len(series)))
+    for s in series:
+        row = next(r for r in ranked if r["rank"] == s["number"])
+        assert s["key"] == row["key"]
+
+
+# --------------------------------------------------------------------------- colours
+@pytest.mark.parametrize("theme", [th.LIGHT, th.DARK], ids=["light", "dark"])
+def test_decision_rows_are_distinct_from_selected_rows(qtbot, tmp_path, theme):
+    """In both themes: decided rows and reference rows differ from the selection colour by
+    CIE76 dE >= 20 (from memory: about 2.3 is a just-noticeable difference, CIE 15:2004
+    gives the formula only), keep WCAG AA contrast with the text (4.5:1), and a rendered
+    selected row and an unselected equivalent row really are those colours."""
+    def de(a, b):
+        return float(np.linalg.norm(_lab(_linear(a)) - _lab(_linear(b))))
+
+    for name in ("best", "equivalent", "reference"):
+        colour = getattr(theme, name)
+        assert de(colour, theme.selection) >= 20, (theme.name, name)
+        assert _contrast(theme.text, colour) >= 4.5, (theme.name, name)
+    assert de(theme.best, theme.equivalent) >= 10
+    assert de(theme.equivalent, theme.reference) >= 10
+
+    win = make_window(qtbot, tmp_path, tmp_path / "s.sqlite", theme=theme.name)
+    win.tabs.setCurrentIndex(1)
+    base = {"hidden": "relu", "head": "identity", "layers": "8", "learning_rate": 0.001,
+            "alpha": 0.0001, "sd": 0.01, "p_value": 0.5, "tied_with_best": True,
+            "status": "done", "n_done": 2, "n_total": 2, "engine": "numpy", "kind": "network"}
+    rows = [dict(base, key=f"k{i}", index=i, rank=i + 1, position=i + 1, mean=0.9 - i / 100,
+                 decision=d) for i, d in enumerate(("best", "equivalent", "equivalent",
+                                                    "undecided"))]
+    rows.append(dict(base, key="ref", kind="baseline", index=None, rank=None, mean=0.5,
+                     decision="worse", hidden="linear"))
+    win.results_model.set_rows(rows)
+    win.results_view.sortByColumn(COLUMN_KEYS.index("rank"), Qt.AscendingOrder)
+    win.select_rows([1])
+    win.results_view.clearFocus()
+    qtbot.waitUntil(lambda: win.results_view.viewport().isVisible())
+    image = win.results_view.viewport().grab().toImage()
+    x = win.results_view.horizontalHeader().sectionViewportPosition(
+        COLUMN_KEYS.index("trials")) + 3  # a blank part of a cell (text is right-aligned)
+
+    def pixel(view_row):
+        y = win.results_view.rowViewportPosition(view_row) + 2
+        return image.pixelColor(x, y).name()
+
+    drawn = [pixel(i) for i in range(5)]
+    assert de(drawn[1], theme.selection) < 3  # the selected (equivalent) row: selection
+    assert de(drawn[2], theme.equivalent) < 3  # the unselected equivalent row: its colour
+    assert de(drawn[0], theme.best) < 3
+    assert de(drawn[4], theme.reference) < 3
+    assert de(drawn[1], drawn[2]) >= 20
+
+
+# --------------------------------------------------------------------------- a sweep run here
+@pytest.fixture
+def kiln_run(qtbot, tmp_path):
+    """A real sweep run by the window on the kiln sample with the widest table: the tune
+    learning rates (the set-up's default) and two L2 strengths, so every column shows."""
+    win = make_window(qtbot, tmp_path, tmp_path / "s.sqlite")
+    with qtbot.waitSignal(win.targetReady, timeout=30_000):
+        win.open_path(str(SAMPLES / "kiln_batches.csv"), "passes_inspection")
+    s = win.setup
+    assert s.lr_edit.text() == "tune"  # the default: an equal tuning budget per candidate
+    s.hidden_grid.set_checked(["relu", "tanh"])
+    s.head_grid.set_checked(["logistic"])
+    s.layers_edit.setText("6")
+    s.alpha_edit.setText("0.0001 0.001")
+    s.folds_spin.setValue(2)
+    s.repeats_spin.setValue(1)
+    s.epochs_spin.setValue(3)
+    s.jobs_spin.setValue(2)
+    plan, msg = win._plan()
+    assert plan is not None, msg
+    assert plan.learning_rates == list(LEARNING_RATE_GRID) and plan.tune_learning_rate
+    with qtbot.waitSignal(win.sweepEnded, timeout=180_000) as blocker:
+        win.run_sweep()
+    assert blocker.args[0]["state"] == "finished", blocker.args[0]
+    qtbot.waitUntil(lambda: win.results_model.rowCount() == 12 + 2, timeout=10_000)
+    return win
+
+
+def test_a_window_run_shows_every_column_and_an_unclipped_verdict_at_1280x800(qtbot,
+                                                                            kiln_run):
+    win = kiln_run
+    qtbot.waitUntil(lambda: win.verdict.isVisible(), timeout=5_000)
+    with Store(win.store_path) as store:
+        res = sweep_results(store, win.sweep_id)
+    # the strip shows the core's verdict on the sweep the window just ran
+    assert_view_shows_verdict(win.verdict.text(), res, skip=("factors",))
+    assert {w["code"] for w in res["warnings"]} <= set(win.verdict.labels)
+    # every results column lies inside the table's viewport: no horizontal scrolling
+    view = win.results_view
+    hh = view.horizontalHeader()
+    width = view.viewport().width()
+    shown = [i for i in range(len(COLUMN_KEYS)) if not view.isColumnHidden(i)]
+    assert [COLUMN_KEYS[i] for i in shown] == list(COLUMN_KEYS)  # LR and L2 both vary
+    for i in shown:
+        left = hh.sectionViewportPosition(i)
+        assert 0 <= left and left + hh.sectionSize(i) <= width, COLUMN_KEYS[i]
+    assert view.horizontalScrollBar().maximum() == 0
+    # and wide enough for their cells: nothing the table shows is cut short
+    for i in shown:
+        assert hh.sectionSize(i) >= view.sizeHintForColumn(i) - 1, COLUMN_KEYS[i]
+    # the verdict strip: every label wholly shown (its wrapped height fits) inside the window
+    strip = win.verdict
+    top_left = strip.mapTo(win, strip.rect().topLeft())
+    assert top_left.y() >= 0 and top_left.y() + strip.height() <= win.height()
+    for key, label in strip.labels.items():
+        assert label.isVisible(), key
+        assert label.heightForWidth(label.width()) <= label.height(), key
+        assert label.geometry().bottom() <= strip.contentsRect().bottom(), key
