@@ -91,7 +91,7 @@ def test_report_sections_and_cautions(exported):
 def test_figures_are_embedded_pngs(exported):
     p = _parse(exported)
     srcs = [v for n, v in p.attrs if n == "src"]
-    assert len(srcs) == 4  # factors, learning curves, fold spread, layer health
+    assert len(srcs) == 5  # factors, learning curves, fold spread, layer health, residuals
     for s in srcs:
         data = base64.b64decode(s.split(",", 1)[1], validate=True)
         assert data.startswith(PNG_SIGNATURE) and len(data) > 2000

@@ -159,6 +159,9 @@ def format_results(res: dict, width: int = 100) -> str:
             cols = [col for col in cols if col[0] != name]
             dropped.append(name)
             lines, n_rows = render(cols)
+    below = _diagnosis_column(cfgs, cols, render, width)
+    if below is None:  # it fitted: the table now has the column
+        lines, n_rows = render(cols)
     if baselines:  # a rule between the configurations and the reference rows
         lines.insert(2 + n_rows, lines[1])
 
@@ -196,7 +199,26 @@ def format_results(res: dict, width: int = 100) -> str:
     if dropped:
         out += wrap(f"left out to fit {width} columns: {', '.join(dropped)} (in the JSON "
                     "results).")
+    if below:
+        out.append("diagnosis (why each configuration trains as it does; the JSON results "
+                   "hold every finding in full):")
+        out += [f"  {line}" for line in below]
     return "\n".join(out)
+
+
+def _diagnosis_column(cfgs, cols, render, width):
+    """Add each configuration's diagnosis as the table's last column when the table still
+    fits ``width`` (returns None; ``cols`` is extended in place); else leave the table as it
+    is and return the lines to print below it (``rank N: words``)."""
+    def words(c):
+        return (c.get("diagnosis") or {}).get("text") or "-"
+
+    trial = cols + [("diagnosis", words, lambda b: "-")]
+    lines, _ = render(trial)
+    if max(len(line) for line in lines) <= width:
+        cols.append(trial[-1])
+        return None
+    return [f"rank {c['rank']}: {words(c)}" for c in cfgs]
 
 
 def run(args) -> int:

@@ -22,7 +22,11 @@ with Matplotlib's Agg canvas (the core never imports Qt). It holds
   (``underfit`` when the training score itself is poor);
 - learning curves (training loss per epoch on every fold), the fold spread of
   the test scores per configuration, and per-layer health (dead and saturated
-  units, gradient norms).
+  units, gradient norms);
+- the diagnosis of every configuration (a column of the ranked table, and the
+  findings in sentences) and the calibration (classifiers) or residuals
+  (regressors) from the stored out-of-fold predictions
+  (:mod:`workbench.export.report_diagnosis`).
 
 Safety: every string that comes from the user's data (column names, category
 labels, file names, error messages) passes through :func:`html.escape`, and a
@@ -487,7 +491,14 @@ def render_report(results: dict, chosen: dict, configuration: dict | None, trial
           "score.</p>")
     w("<table><tr><th>rank</th><th>tie</th><th>hidden</th><th>head</th><th>layers</th><th>lr</th>"
       "<th>alpha</th><th>mean ± sd</th><th>p</th><th>decision</th><th>gap</th><th>epochs</th>"
-      "<th>fit s</th><th>dead</th><th>sat.</th><th>engine</th><th>status</th></tr>")
+      "<th>fit s</th><th>dead</th><th>sat.</th><th>engine</th><th>status</th>"
+      "<th>diagnosis</th></tr>")
+    from workbench.export.report_diagnosis import (
+        calibration_section,
+        diagnosis_section,
+        diagnosis_words,
+    )
+
     for c in ranked:
         cls = " ".join(x for x in ("chosen" if c["index"] == chosen["index"] else "",
                                    "tied" if c["tied_with_best"] else "") if x)
@@ -503,7 +514,8 @@ def render_report(results: dict, chosen: dict, configuration: dict | None, trial
           f"<td class=\"num\">{_num(c.get('mean_epochs'), '.0f')}</td>"
           f"<td class=\"num\">{_num(c['mean_fit_seconds'], '.2f')}</td>"
           f"<td class=\"num\">{_pct(c['dead'])}</td><td class=\"num\">{_pct(c['saturated'])}</td>"
-          f"<td>{esc(c['engine'])}</td><td>{esc(c['status'])}</td></tr>")
+          f"<td>{esc(c['engine'])}</td><td>{esc(c['status'])}</td>"
+          f"<td>{esc(diagnosis_words(c))}</td></tr>")
     w("</table>")
     bad = [t for t in trials if t.get("error")]
     if bad:
@@ -530,6 +542,8 @@ def render_report(results: dict, chosen: dict, configuration: dict | None, trial
               f"<td class=\"num\">{_pct(s)}</td><td class=\"num\">{_num(g, '.3g')}</td></tr>")
         w("</table>")
     w(_img(health_png(chosen, mine), "layer health over epochs"))
+    out.extend(diagnosis_section(results, chosen))
+    out.extend(calibration_section(results, chosen))
 
     # ---------------------------------------------------------------- reproducibility
     ev = conf.get("evaluation", {})

@@ -116,12 +116,17 @@ class PlotArea(QWidget):
     def show_rows(self, rows: list[dict]) -> None:
         """Show the selected rows (any order; shown by rank)."""
         series = []
-        for i, r in enumerate(_order([r for r in rows if r.get("series")])):
+        rows = _order([r for r in rows if r.get("series")])
+        # the learning rate and L2 strength are named when the selection differs in them
+        varying = [(k, w) for k, w in (("learning_rate", "lr"), ("alpha", "L2"))
+                   if len({r.get(k) for r in rows}) > 1]
+        for i, r in enumerate(rows):
             s = dict(r["series"])
             s["color"] = i
             s["number"] = r.get("rank") or r.get("position") or i + 1
             s.setdefault("index", r.get("index"))
-            s["label"] = f"{r['hidden']} / {r['head']} [{r['layers']}]"
+            s["label"] = (f"{r['hidden']} / {r['head']} [{r['layers']}]"
+                          + "".join(f" {w} {r[k]:g}" for k, w in varying if r.get(k) is not None))
             series.append(s)
         self._series = series
         self.curves.set_series(series)
@@ -141,11 +146,23 @@ class PlotArea(QWidget):
         items = []
         for s in self._series:
             color = self.theme.series_color(s["color"]).name()
-            words = (s.get("diagnosis") or {}).get("text") or ""
+            d = s.get("diagnosis") or {}
+            # what is wrong, in the core's short words; "trains normally" is said once below
+            words = "" if d.get("codes") == ["normal"] else (d.get("text") or "")
             items.append(f"<span style='color:{color}'>■</span>&nbsp;<b>#{s['number']}</b>"
                          f"&nbsp;{html.escape(s['label'])}"
-                         + (f" <i>— {html.escape(words)}</i>" if words else ""))
-        self.legend.setText("&nbsp;&nbsp;&nbsp; ".join(items))
+                         + (f" <span style='color:{self.theme.warn}'>⚠&nbsp;"
+                            f"{html.escape(words)}</span>" if words else ""))
+        normal = sum(1 for s in self._series
+                     if (s.get("diagnosis") or {}).get("codes") == ["normal"])
+        if not normal:
+            tail = ""
+        elif normal == len(self._series):
+            tail = " &nbsp;<i>(all train normally; the Diagnosis tab says more)</i>"
+        else:
+            tail = (f" &nbsp;<i>(the other{'s' if normal > 1 else ''} train"
+                    f"{'' if normal > 1 else 's'} normally; the Diagnosis tab says more)</i>")
+        self.legend.setText("&nbsp;&nbsp; ".join(items) + tail)
         self.legend.show()
 
     def _diagnosis(self) -> None:

@@ -541,7 +541,7 @@ class HealthPanel(_Panel):
         self.hint_box.setWidgetResizable(True)
         self.hint_box.setFrameShape(QFrame.NoFrame)
         self.hint_box.setHorizontalScrollBarPolicy(Qt.ScrollBarAlwaysOff)
-        self.hint_box.setMaximumHeight(52)
+        self.hint_box.setMaximumHeight(38)  # two lines; it scrolls for more
         self.layout_.addWidget(self.hint_box)
         self._finish()
         self._bars: list[pg.BarGraphItem] = []

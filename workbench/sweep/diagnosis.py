@@ -69,7 +69,8 @@ except *diverged*, which one trial is enough for.
 ``unstable``
     the fold scores' standard deviation at least :data:`UNSTABLE_RATIO` = 2 times
     the median over the sweep's finished configurations (from memory) and
-    larger than the region of practical equivalence.
+    larger than the region of practical equivalence (not said of a diverged
+    configuration, whose blow-up explains its spread).
 
 *High loss*: the configuration's final training loss (median over its trials)
 is at least :data:`HIGH_LOSS_RATIO` = 2 times the lowest among the sweep's
@@ -552,7 +553,7 @@ def diagnose(trials: list[dict], *, hidden: str, head: str, task: str, epochs: i
     health = {"dead": _layer_shares(done or runs, "dead"),
               "saturated": _layer_shares(done or runs, "saturated")}
     findings.extend(_health_findings(hidden, health))
-    if (fold_sd is not None and typical_sd and math.isfinite(fold_sd)
+    if (not blown and fold_sd is not None and typical_sd and math.isfinite(fold_sd)
             and fold_sd >= UNSTABLE_RATIO * typical_sd and fold_sd > (rope or 0.0)):
         findings.append({"code": "unstable", "text": (
             f"unstable across folds: the fold scores' sd is {_num(fold_sd)}, "

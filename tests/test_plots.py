@@ -1,0 +1,257 @@
+"""The plots stay readable: robust ranges, one loss kind per axis, empty states, log ticks,
+calibration and diagnosis pages; and the real window with a diverged configuration.
+
+Window tests run offscreen with pytest-qt and wait on signals or conditions only.
+The references: the stored trials themselves (NumPy means over the stored
+histories, the stored out-of-fold predictions), and for the log ticks the
+definition of a decade (10^k) and of the 1-2-5 steps.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from workbench.gui.plots import CurvesPanel, HealthPanel, SpreadPanel, log_ticks, robust_range
+
+pytestmark = pytest.mark.gui
+
+
+# --------------------------------------------------------------------------- robust ranges
+
+
+def test_a_series_that_would_squeeze_the_others_is_left_out_and_named():
+    normal = [np.linspace(0.6, 0.05, 50), np.linspace(0.7, 0.04, 50)]
+    wild = np.r_[0.5, 1.5e4, 5.9e4, 2.8e3]
+    lo, hi, clipped = robust_range(normal + [wild])
+    assert lo == pytest.approx(0.04) and hi == pytest.approx(0.7)
+    assert clipped == [2]
+    # the same series flagged as diverged is left out even when it would not squeeze
+    lo, hi, clipped = robust_range(normal + [np.r_[0.3, 0.9]], flagged=[False, False, True])
+    assert hi == pytest.approx(0.7) and clipped == [2]
+    # series of one shape are all shown whole, whatever their spread
+    lo, hi, clipped = robust_range([np.r_[1.0, 5.0], np.r_[2.0, 9.0], np.r_[0.5, 3.0]])
+    assert (lo, hi, clipped) == (0.5, 9.0, [])
+    # nothing finite: nothing to range; a single flat value gets some room
+    assert robust_range([[None, math.nan], []]) is None
+    lo, hi, _ = robust_range([[2.0, 2.0]])
+    assert lo < 2.0 < hi
+    # everything flagged: shown whole rather than nothing
+    assert robust_range([[1.0, 3.0]], flagged=[True])[:2] == (1.0, 3.0)
+
+
+def test_log_ticks_are_few_and_never_share_a_place():
+    for lo, hi in ((-5.0, 2.0), (-1.52, -1.30), (-1.1, -0.2), (-0.01, 0.01), (0.0, 9.0)):
+        ticks = log_ticks(lo, hi, 4)
+        assert 1 <= len(ticks) <= 4, (lo, hi, ticks)
+        places = [v for v, _ in ticks]
+        assert places == sorted(set(places))
+        assert all(lo - 1e-9 <= v <= hi + 1e-9 for v in places)
+        for v, label in ticks:  # the label is the value the place stands for
+            assert float(label) == pytest.approx(10.0 ** v, rel=1e-3)
+    assert [label for _, label in log_ticks(-3.0, 0.0)] == ["0.001", "0.01", "0.1", "1"]
+
+
+# --------------------------------------------------------------------------- panels
+
+
+def _band(values):
+    values = list(values)
+    return {"x": list(range(1, len(values) + 1)), "mean": values, "lo": values, "hi": values}
+
+
+def _series(i, loss, *, kind="squared_error:sd", diverged=False, scores=(0.8, 0.82)):
+    return {"key": f"k{i}", "label": f"cfg {i}", "number": i + 1, "color": i,
+            "loss": _band(loss), "loss_kind": kind, "loss_words": kind, "metric": "r2",
+            "fold_scores": list(scores), "mean": float(np.mean(scores)),
+            "sd": float(np.std(scores)), "diverged": diverged,
+            "health": {"dead": [0.0], "saturated": [0.0], "grad_norm": [0.05, 0.02]},
+            "hints": []}
+
+
+def test_panels_show_a_sentence_before_anything_is_selected(qtbot):
+    for cls in (CurvesPanel, SpreadPanel, HealthPanel):
+        panel = cls()
+        qtbot.addWidget(panel)
+        panel.show()
+        assert not panel.empty.isHidden() and panel.empty.text()
+        assert all(p.isHidden() for p in panel.plots())
+        panel.set_series([_series(0, [0.5, 0.2, 0.1])])
+        assert panel.empty.isHidden()
+        assert any(not p.isHidden() for p in panel.plots())
+
+
+def test_one_loss_kind_per_axis_with_a_box_to_pick_it(qtbot):
+    panel = CurvesPanel()
+    qtbot.addWidget(panel)
+    panel.show()
+    series = [_series(0, [0.5, 0.1]), _series(1, [3.0, 2.0], kind="poisson:sd"),
+              _series(2, [0.6, 0.2])]
+    panel.set_series(series)
+    assert not panel.kind_box.isHidden() and panel.kind_box.count() == 2
+    drawn = [c.getData()[1].tolist() for c in panel.curve_items()]
+    assert drawn == [[0.5, 0.1], [0.6, 0.2]]  # the first kind in rank order
+    assert "losses differ" in panel.note.text()
+    with qtbot.waitSignal(panel.kindChanged):
+        panel.kind_box.setCurrentIndex(1)
+    assert [c.getData()[1].tolist() for c in panel.curve_items()] == [[3.0, 2.0]]
+    panel.set_series(series[:1])
+    assert panel.kind_box.isHidden() and "losses differ" not in panel.note.text()
+
+
+def test_the_fold_score_axis_keeps_the_ordinary_configurations_readable(qtbot):
+    panel = SpreadPanel()
+    qtbot.addWidget(panel)
+    panel.show()
+    series = [_series(0, [1, 0.5], scores=(0.41, 0.45, 0.43)),
+              _series(1, [1, 0.5], scores=(0.40, 0.38, 0.44)),
+              _series(2, [1, 0.5], scores=(-7.0, -2.9, 0.1), diverged=True)]
+    panel.set_series(series)
+    lo, hi = panel.plot.viewRange()[1]
+    assert lo <= 0.38 and hi >= 0.45 and hi - lo < 0.2
+    assert panel.clipped["score"] == ["cfg 2"]
+    assert "#3 (to -7.000)" in panel.note.text()
+
+
+def test_health_ticks_and_a_hint_that_scrolls_instead_of_overlapping(qtbot):
+    panel = HealthPanel()
+    qtbot.addWidget(panel)
+    panel.resize(300, 240)
+    panel.show()
+    s = _series(0, [1, 0.5])
+    s["health"] = {"dead": [0.3], "saturated": [0.0], "grad_norm": [0.05, 0.036]}
+    s["hints"] = ["cfg 0: " + "dead hidden units " * 30]
+    panel.set_series([s])
+    ticks = panel.grad_plot.getPlotItem().getAxis("left")._tickLevels[0]
+    assert 1 <= len(ticks) <= 3 and len({v for v, _ in ticks}) == len(ticks)
+    assert not panel.hint_box.isHidden()
+    # the hint's box has a fixed height; the plots keep theirs beneath it
+    assert panel.hint_box.maximumHeight() < 60
+    assert panel.hint_box.geometry().bottom() < panel.note.geometry().top()
+    for plot in panel.plots():
+        if not plot.isHidden():
+            assert not plot.geometry().intersects(panel.hint_box.geometry())
+
+
+# --------------------------------------------------------------------------- the window
+
+
+@pytest.fixture(scope="module")
+def diverging_sweep(tmp_path_factory):
+    """Two ordinary learning rates and one that blows up (8), through the real runner."""
+    from workbench.sweep.plan import build_plan
+    from workbench.sweep.runner import run_sweep
+    from workbench.sweep.store import Store
+
+    d = tmp_path_factory.mktemp("diverging")
+    rng = np.random.default_rng(0)
+    X = rng.standard_normal((150, 5))
+    y = X[:, 0] - 0.5 * X[:, 1] + 0.3 * X[:, 2] ** 2 + 0.1 * rng.standard_normal(150)
+    pd.DataFrame(X, columns=[f"x{i}" for i in range(5)]).assign(target=y).to_csv(
+        d / "t.csv", index=False)
+    plan = build_plan(d / "t.csv", "target", hidden="relu", output="identity", layers=["16"],
+                      learning_rates=["0.01", "0.003", "8"], folds=3, repeats=1, epochs=40)
+    with Store(d / "s.sqlite") as st:
+        out = run_sweep(plan, store=st, backend="inline")
+        assert out.state == "finished"
+    return str(d / "s.sqlite"), out.sweep_id
+
+
+@pytest.fixture
+def window(qtbot, tmp_path, diverging_sweep):
+    from workbench.gui.main_window import MainWindow
+    from workbench.gui.settings import Settings
+
+    store, sid = diverging_sweep
+    win = MainWindow(settings=Settings(tmp_path / "settings"), store_path=store,
+                     theme_choice="light")
+    qtbot.addWidget(win)
+    win.resize(1280, 800)
+    win.show()
+    win.reopen_sweep(sid)
+    qtbot.waitUntil(lambda: sum(1 for r in win.results_model.rows()
+                                if r.get("series")) == 3, timeout=60_000)
+    return win
+
+
+def _select_networks(win):
+    rows = [i for i in range(win.proxy.rowCount()) if win.proxy.row_at(i).get("series")]
+    win.select_rows(rows)
+    return rows
+
+
+def test_a_diverged_configuration_leaves_the_others_a_readable_axis(qtbot, window):
+    from workbench.sweep.store import Store
+
+    win = window
+    assert not win.curves.empty.isHidden() or win.selected_rows()  # nothing drawn unselected
+    _select_networks(win)
+    series = win.plot_area.series()
+    assert len(series) == 3
+    by_lr = {r["learning_rate"]: r for r in win.selected_rows()}
+    wild = by_lr[8.0]["series"]
+    assert wild["diverged"] and "diverged" in wild["diagnosis"]["codes"]
+    with Store(win.store_path) as st:
+        stored = st.trials(win.sweep_id)
+    normal = []
+    for lr in (0.01, 0.003):
+        losses = [t["history"]["loss"] for t in stored
+                  if t["config_index"] == by_lr[lr]["index"]]
+        n = min(len(x) for x in losses)
+        normal.append(np.array([x[:n] for x in losses], float))
+    low = min(float(m.min()) for m in normal)
+    high = max(float(m.max()) for m in normal)
+    lo, hi = win.curves.loss_plot.viewRange()[1]
+    # every ordinary curve is inside the axis, and the axis is not much wider than them
+    assert lo <= low and hi >= high
+    assert hi - lo < 1.5 * (high - low)
+    wild_losses = [v for t in stored if t["config_index"] == by_lr[8.0]["index"]
+                   for v in t["history"]["loss"] if v is not None]
+    assert max(wild_losses) > 10 * hi  # it would have flattened them
+    label = f"{by_lr[8.0]['hidden']} / {by_lr[8.0]['head']} [{by_lr[8.0]['layers']}]"
+    assert win.curves.clipped["loss"] == [label]
+    assert "Outside the range" in win.curves.note.text() or "outside the range" in \
+        win.curves.note.text()
+    # the legend is in rank order, outside the plots, and names each diagnosis
+    legend = win.plot_area.legend.text()
+    numbers = [s["number"] for s in series]
+    assert numbers == sorted(numbers)
+    assert "diverged" in legend and "trains normally" in legend
+    assert win.plot_area.legend.geometry().bottom() <= win.curves.geometry().top() + \
+        win.curves.parentWidget().geometry().top()
+    # the diagnosis page holds the core's sentences for each
+    text = win.plot_area.diagnosis_text()
+    for f in wild["diagnosis"]["findings"]:
+        assert f["text"] in text
+
+
+def test_the_calibration_page_draws_the_stored_out_of_fold_predictions(qtbot, window):
+    from workbench.sweep.store import Store
+
+    win = window
+    _select_networks(win)
+    page = win.plot_area.calibration_page
+    with qtbot.waitSignal(win.plot_area.calibrationShown, timeout=30_000):
+        win.detail_tabs.setCurrentWidget(page)
+    panel = win.plot_area.calibration
+    assert not panel.waiting() and panel.empty.isHidden()
+    series = win.plot_area.series()
+    with Store(win.store_path) as st:
+        oof = st.out_of_fold(win.sweep_id, configurations=[s["index"] for s in series])
+    wild = next(s for s in series if s["diverged"])
+    assert panel.clipped["predicted"] == [wild["label"]]  # held at the edge, and said so
+    assert "run outside the range" in panel.note.text()
+    for j, s in enumerate(series):
+        x, y = panel.items[s["key"]].getData()
+        first = oof.predictions[0][:, j].astype(float)
+        np.testing.assert_allclose(np.sort(y), np.sort(oof.y), rtol=1e-12)
+        if s is not wild:  # drawn as stored
+            np.testing.assert_allclose(np.sort(x), np.sort(first), rtol=1e-6)
+    assert "RMSE" in panel.note.text()
+    # a new selection is read anew
+    win.select_rows([0])
+    qtbot.waitUntil(lambda: not panel.waiting(), timeout=30_000)
+    assert len(panel.items) == 1
