@@ -417,11 +417,13 @@ class _BaseNet(BaseEstimator):
 
         Setting the output bias to the target's mean (and the logits to the class
         priors) is common practice (Karpathy 2019, "A recipe for training neural
-        networks", "init well"); a zero last layer, so that the network starts as
+        networks", "init well"); a zero output layer, so that the network starts as
         that constant, follows Zhang, Dauphin & Ma (2019), "Fixup initialization"
-        (section 3, the last layer of each branch at zero). Adam's first steps move
-        the output weights away from zero at once; the hidden layers learn from the
-        second batch on.
+        (its first rule: the classification layer and the last layer of each residual
+        branch start at 0). Adam's first steps move the output weights away from zero
+        at once; the hidden layers learn from the second batch on. The mean is that
+        of every row given to ``fit`` (with early stopping, before the validation
+        rows are split off).
         """
         mean = np.asarray(y, dtype=np.float64).mean(axis=0)
         net.weights[-1][...] = 0
@@ -518,9 +520,9 @@ class _BaseNet(BaseEstimator):
         ``tol_mode="absolute"``: ``tol`` itself (scikit-learn's rule). ``"relative"``:
         ``tol * constant_loss_``, a share of the loss of predicting the training mean,
         so that the rule reads every head's loss on its own scale: a head whose
-        loss is numerically small (a target mapped to [0, 1] has a squared error
-        about twenty times that of a standardised one smaller) does not stop early
-        for it. A constant target (``constant_loss_`` 0) keeps ``tol``.
+        loss is numerically small (the squared error of a target mapped to [0, 1] is
+        about a twentieth of a standardised target's) does not stop early for it.
+        A constant target (``constant_loss_`` 0) keeps ``tol``.
         """
         if self.tol_mode == "relative" and math.isfinite(self.constant_loss_) \
                 and self.constant_loss_ > 0:
