@@ -211,7 +211,8 @@ def test_a_diverged_configuration_leaves_the_others_a_readable_axis(qtbot, windo
     wild_losses = [v for t in stored if t["config_index"] == by_lr[8.0]["index"]
                    for v in t["history"]["loss"] if v is not None]
     assert max(wild_losses) > 10 * hi  # it would have flattened them
-    label = f"{by_lr[8.0]['hidden']} / {by_lr[8.0]['head']} [{by_lr[8.0]['layers']}]"
+    # the selection differs in learning rate, so the labels name it
+    label = f"{by_lr[8.0]['hidden']} / {by_lr[8.0]['head']} [{by_lr[8.0]['layers']}] lr 8"
     assert win.curves.clipped["loss"] == [label]
     assert "Outside the range" in win.curves.note.text() or "outside the range" in \
         win.curves.note.text()
