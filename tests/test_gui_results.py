@@ -344,6 +344,24 @@ def kiln_run(qtbot, tmp_path):
     return win
 
 
+def test_tune_mixed_with_numbers_is_refused_in_the_core_words(qtbot, tmp_path):
+    from workbench.gui.messages import phrase
+    from workbench.sweep.plan import build_plan
+
+    win = make_window(qtbot, tmp_path, tmp_path / "s.sqlite")
+    with qtbot.waitSignal(win.targetReady, timeout=30_000):
+        win.open_path(str(SAMPLES / "kiln_batches.csv"), "passes_inspection")
+    win.setup.lr_edit.setText("tune 0.01")
+    with pytest.raises(Exception) as refused:  # the core's own refusal, for reference
+        build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection",
+                   learning_rates=["tune", "0.01"])
+    assert win.setup.estimate_label.text() == phrase(refused.value)
+    assert not win.run_action.isEnabled()
+    win.setup.lr_edit.setText("tune")
+    assert win.run_action.isEnabled()
+    assert all(f"{v:g}" in win.setup.lr_edit.toolTip() for v in LEARNING_RATE_GRID)
+
+
 def test_a_window_run_shows_every_column_and_an_unclipped_verdict_at_1280x800(qtbot,
                                                                             kiln_run):
     win = kiln_run

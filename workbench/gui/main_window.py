@@ -1069,10 +1069,7 @@ class MainWindow(QMainWindow):
         if n_sel > MAX_PLOTTED:
             self.status.showMessage(f"{n_sel} rows selected; the plots show the first "
                                     f"{MAX_PLOTTED}.", 5000)
-        # legend numbers follow the rank (unranked configurations after the ranked ones)
-        rows = sorted(rows, key=lambda r: (r.get("rank") is None, r.get("rank") or 0,
-                                           r.get("position") or 0))
-        self.plot_area.show_rows(rows)
+        self.plot_area.show_rows(rows)  # in rank order, numbered by rank (the plot area)
 
     def show_shortcuts(self) -> None:
         rows = []
