@@ -44,6 +44,7 @@ def default_choices(window) -> None:
     usual = {name for name, chk in summary.heads if chk.allowed and not chk.warning}
     heads = [h for h in adv.heads_to_sweep if h in usual] or [adv.output_head]
     window.setup.head_grid.set_checked(heads)
+    window.setup._set_metrics(summary.task, summary.target.kind)  # the metric for those heads
 
 
 def run_app(path: str | None = None, target: str | None = None, run: bool = False,
