@@ -43,6 +43,21 @@ def _order(rows: list[dict]) -> list[dict]:
                                        r.get("position") or 0))
 
 
+def _label(row: dict, rows: list[dict]) -> str:
+    """A row's name in the legend: ``hidden / head``, then the layers when the selection
+    differs in them (or is one row), and the learning rate and L2 strength when it does."""
+    def differs(key):
+        return len({str(r.get(key)) for r in rows}) > 1
+
+    words = f"{row['hidden']} / {row['head']}"
+    if differs("layers") or len(rows) == 1:
+        words += f" [{row['layers']}]"
+    for key, word in (("learning_rate", "lr"), ("alpha", "L2")):
+        if differs(key) and row.get(key) is not None:
+            words += f" {word} {row[key]:g}"
+    return words
+
+
 class PlotArea(QWidget):
     """Legend strip, plot tabs and diagnosis for the selected configurations.
 
@@ -117,16 +132,12 @@ class PlotArea(QWidget):
         """Show the selected rows (any order; shown by rank)."""
         series = []
         rows = _order([r for r in rows if r.get("series")])
-        # the learning rate and L2 strength are named when the selection differs in them
-        varying = [(k, w) for k, w in (("learning_rate", "lr"), ("alpha", "L2"))
-                   if len({r.get(k) for r in rows}) > 1]
         for i, r in enumerate(rows):
             s = dict(r["series"])
             s["color"] = i
             s["number"] = r.get("rank") or r.get("position") or i + 1
             s.setdefault("index", r.get("index"))
-            s["label"] = (f"{r['hidden']} / {r['head']} [{r['layers']}]"
-                          + "".join(f" {w} {r[k]:g}" for k, w in varying if r.get(k) is not None))
+            s["label"] = _label(r, rows)
             series.append(s)
         self._series = series
         self.curves.set_series(series)
@@ -158,10 +169,10 @@ class PlotArea(QWidget):
         if not normal:
             tail = ""
         elif normal == len(self._series):
-            tail = " &nbsp;<i>(all train normally; the Diagnosis tab says more)</i>"
+            tail = " &nbsp;<i>(all train normally)</i>"
         else:
             tail = (f" &nbsp;<i>(the other{'s' if normal > 1 else ''} train"
-                    f"{'' if normal > 1 else 's'} normally; the Diagnosis tab says more)</i>")
+                    f"{'' if normal > 1 else 's'} normally)</i>")
         self.legend.setText("&nbsp;&nbsp; ".join(items) + tail)
         self.legend.show()
 

@@ -245,6 +245,14 @@ class _Panel(QWidget):
     def plots(self) -> list[pg.PlotWidget]:
         return []
 
+    def _say(self, note: str, explanation: str = "") -> None:
+        """The note under the plots (only what needs saying: it is hidden when empty, so the
+        plots keep the room) and the panel's explanation as the tooltip of title and plots."""
+        self.note.setText(note)
+        self.note.setVisible(bool(note))
+        for w in [self.title, self.note, *self.plots()]:
+            w.setToolTip(explanation)
+
     def _show_empty(self, empty: bool) -> None:
         self.empty.setVisible(empty)
         for w in self.plots():
@@ -265,14 +273,14 @@ class _Panel(QWidget):
 
     # -- shared drawing ---------------------------------------------------------------
     def _apply_range(self, plot: pg.PlotWidget, name: str, groups, series, flagged,
-                     curves=None) -> str:
+                     curves=None, padding: float = 0.06) -> str:
         """Set the y range robustly; mark and name what runs outside. Returns a note."""
         found = robust_range(groups, flagged)
         self.clipped[name] = []
         if found is None:
             return ""
         lo, hi, clipped = found
-        plot.setYRange(lo, hi, padding=0.06)
+        plot.setYRange(lo, hi, padding=padding)
         plot.enableAutoRange(axis="y", enable=False)
         if not clipped:
             return ""
@@ -374,7 +382,7 @@ class CurvesPanel(_Panel):
         if not self._series:
             self.loss_label.setText("")
             self.kind_box.hide()
-            self.note.setText("")
+            self._say("")
             return
         kinds: dict[str, str] = {}
         for s in self._series:
@@ -384,8 +392,12 @@ class CurvesPanel(_Panel):
             self._kind = next(iter(kinds), None)
         self.kind_box.blockSignals(True)
         self.kind_box.clear()
+        short = {key: words.split(",")[0] for key, words in kinds.items()}
         for key, words in kinds.items():
-            self.kind_box.addItem(words, key)
+            # the loss's name, with its target units only when two kinds share a name
+            name = short[key] if list(short.values()).count(short[key]) == 1 else words
+            self.kind_box.addItem(name, key)
+            self.kind_box.setItemData(self.kind_box.count() - 1, words, Qt.ToolTipRole)
         if self._kind is not None:
             self.kind_box.setCurrentIndex(list(kinds).index(self._kind))
         self.kind_box.blockSignals(False)
@@ -417,12 +429,10 @@ class CurvesPanel(_Panel):
         tips = ["Upper plot: training loss (solid)"
                 + (" and the held-out fold's loss (dashed)" if any_test else "")
                 + f", {words}. Lines: mean over folds and repeats; band: ±1 sd."]
-        notes.append("Mean over folds, band ±1 sd" + ("; dashed: held-out fold." if any_test
-                                                       else "."))
         if len(kinds) > 1:
             others = [s for s in self._series if s.get("loss") and s not in shown]
-            notes.append(f"Heads' losses differ: {len(others)} configuration(s) under the other "
-                         "kind (the box).")
+            notes.append(f"Heads' losses differ: {len(others)} more under the other kind (the "
+                         "box).")
         if clip:
             notes.append("Loss " + clip[0].lower() + clip[1:])
         # ---- the score plot: held-out fold's score per epoch, else early stopping's
@@ -455,8 +465,7 @@ class CurvesPanel(_Panel):
             tips.append(f"Lower plot: {metric} on the held-out fold, per epoch.")
         if sclip:
             notes.append("Score " + sclip[0].lower() + sclip[1:])
-        self.note.setText(" ".join(notes))
-        self.note.setToolTip(" ".join(tips))
+        self._say(" ".join(notes), " ".join(tips))
 
 
 class SpreadPanel(_Panel):
@@ -483,7 +492,7 @@ class SpreadPanel(_Panel):
         self.clipped = {}
         self._show_empty(not self._series)
         if not self._series:
-            self.note.setText("")
+            self._say("")
             return
         groups = [[v for v in s.get("fold_scores", []) if v is not None] for s in self._series]
         flagged = [bool(s.get("diverged")) for s in self._series]
@@ -518,9 +527,8 @@ class SpreadPanel(_Panel):
         curves = [(np.full(len(_finite(g)), float(i + 1)), _finite(g))
                   for i, g in enumerate(groups)]
         clip = self._apply_range(self.plot, "score", groups, self._series, flagged, curves)
-        self.note.setText("Dots: folds; ◆: mean ± 1 sd." + (" " + clip if clip else ""))
-        self.note.setToolTip("One dot per fold and repeat; the diamond and bar are the mean "
-                             "± 1 sd. Labels under the axis are the ranks in the table.")
+        self._say(clip, "One dot per fold and repeat; the diamond and bar are the mean ± 1 sd. "
+                        "Labels under the axis are the ranks in the table.")
 
 
 class HealthPanel(_Panel):
@@ -531,7 +539,7 @@ class HealthPanel(_Panel):
                                          "and gradient norms.", parent)
         self.share_plot = self._plot("% units")
         self.share_plot.setYRange(0, 100, padding=0.02)
-        self.grad_plot = self._plot("grad. norm", "layer")
+        self.grad_plot = self._plot("grad", "layer")
         self.hint = QLabel("")
         self.hint.setObjectName("hint")
         self.hint.setWordWrap(True)
@@ -603,9 +611,11 @@ class HealthPanel(_Panel):
                     color = self.theme.series_color(s["color"])
                     self.grad_plot.plot(gx, _held(gv, lo, hi), pen=None, symbol="s",
                                         symbolBrush=color, symbolPen=None, symbolSize=8)
+            # markers are 8 pixels tall on a short plot: room above and below them
             clip = self._apply_range(self.grad_plot, "gradient", [v for _, v in grads],
                                      self._series, [bool(s.get("diverged"))
-                                                    for s in self._series], grads)
+                                                    for s in self._series], grads,
+                                     padding=0.2)
             self.grad_plot.getPlotItem().getAxis("left").setTicks([log_ticks(lo, hi, 3)])
         else:
             clip = ""
@@ -636,14 +646,11 @@ class HealthPanel(_Panel):
         self.hint.setText("\n".join(f"⚠ {h}" for h in hints))
         self.hint_box.setVisible(bool(hints))
         if not self._series:
-            self.note.setText("")
-            self.note.setToolTip("")
+            self._say("")
             return
-        short = ("No dead or saturated units (last epoch)." if all_zero
-                 else "Bars: dead (solid), saturated (hatched).")
-        self.note.setText(short + (" Squares: gradient norm per layer, log scale." if any_grad
-                                   else "") + (" " + clip if clip else ""))
-        self.note.setToolTip(
+        self._say(
+            ("No dead or saturated units (last epoch)." if all_zero else "")
+            + (" " + clip if clip else ""),
             "Upper plot: share of each hidden layer's units that are dead (solid bar: never "
             "active on the probe rows) or saturated (hatched: on a flat part), at the last "
             "epoch, mean over folds. Lower plot: the norm of the loss gradient for each layer's "
