@@ -304,6 +304,8 @@ def test_dead_units_from_a_tenth_of_a_layer_and_unstable_folds():
     d = diagnose([t], hidden="relu", head="identity", task="regression", epochs=50)
     assert d["codes"] == ["dead_units"]
     assert "layer 1: 10%" in d["findings"][0]["text"] and "layer 2" not in d["findings"][0]["text"]
+    assert d["findings"][0]["layers"] == [{"layer": 1, "share": WARN_SHARE}]
+    assert d["findings"][0]["label"] == dg.LABELS["dead_units"] == d["text"]
     d = diagnose([t], hidden="relu", head="identity", task="regression", epochs=50,
                  fold_sd=0.05, typical_sd=0.02, rope=0.01)
     assert d["codes"] == ["dead_units", "unstable"]

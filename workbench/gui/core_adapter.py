@@ -668,8 +668,6 @@ def _series_extras(res: dict, c: dict, trials: list[dict], label: str) -> dict:
         "test_score": band("test_score", done), "val": band("val_score", done),
         "loss_kind": kind, "loss_words": words, "diagnosis": diagnosis,
         "diverged": "diverged" in diagnosis["codes"],
-        "hints": [f"{label}: {f['text']}" for f in diagnosis["findings"]
-                  if f["code"] in ("dead_units", "saturated_units")],
     }
 
 

@@ -138,6 +138,10 @@ class PlotArea(QWidget):
             s["number"] = r.get("rank") or r.get("position") or i + 1
             s.setdefault("index", r.get("index"))
             s["label"] = _label(r, rows)
+            # the health panel's hints, short (the Diagnosis tab has the sentences)
+            s["hints"] = [f"#{s['number']} {f['label']}: " + ", ".join(
+                f"layer {x['layer']} {x['share']:.0%}" for x in f["layers"])
+                for f in (s.get("diagnosis") or {}).get("findings") or [] if f.get("layers")]
             series.append(s)
         self._series = series
         self.curves.set_series(series)

@@ -386,6 +386,10 @@ def _layer_shares(trials: list[dict], key: str) -> list[float]:
     return out
 
 
+def _layers(found) -> list[dict]:
+    return [{"layer": int(k), "share": float(v)} for k, v in found]
+
+
 def _health_findings(hidden: str, health: dict, threshold: float = WARN_SHARE) -> list[dict]:
     out = []
     remedies = ", ".join(DEAD_REMEDIES)
@@ -394,7 +398,7 @@ def _health_findings(hidden: str, health: dict, threshold: float = WARN_SHARE) -
     if dead:
         parts = "; ".join(f"layer {k}: {s:.0%}{' (mostly dead)' if s > MOSTLY else ''}"
                           for k, s in dead)
-        out.append({"code": "dead_units", "text": (
+        out.append({"code": "dead_units", "layers": _layers(dead), "text": (
             f"dead hidden units ({parts} of the units never switch on, so they pass no signal "
             f"and get no gradient); a leaky or smooth activation ({remedies}) or a smaller "
             "learning rate usually helps.")})
@@ -403,7 +407,7 @@ def _health_findings(hidden: str, health: dict, threshold: float = WARN_SHARE) -
     if sat:
         parts = "; ".join(f"layer {k}: {s:.0%}{' (mostly saturated)' if s > MOSTLY else ''}"
                           for k, s in sat)
-        out.append({"code": "saturated_units", "text": (
+        out.append({"code": "saturated_units", "layers": _layers(sat), "text": (
             f"saturated hidden units ({parts} of the units sit on the flat ends of {hidden}, "
             "so their gradients vanish); scaled inputs, a smaller learning rate or a "
             "non-saturating activation usually help.")})
@@ -475,8 +479,9 @@ def diagnose(trials: list[dict], *, hidden: str, head: str, task: str, epochs: i
     Returns
     -------
     dict
-        ``{"codes": [...], "text": "short labels", "findings": [{"code", "text"}]}``
-        in :data:`CODES` order; ``codes == ["normal"]`` when nothing is found.
+        ``{"codes": [...], "text": "short labels", "findings": [{"code", "label",
+        "text"}]}`` in :data:`CODES` order (dead and saturated units add ``layers``:
+        ``[{"layer", "share"}]``); ``codes == ["normal"]`` when nothing is found.
     """
     findings: list[dict] = []
     stored = [t for t in trials if t.get("status") in ("done", "diverged", "failed")]
@@ -568,6 +573,8 @@ def _result(findings: list[dict]) -> dict:
             "trains normally: the loss fell and flattened, and no dead or saturated layer, "
             "stuck output, over-fitting or unstable folds were found.")}]
     findings.sort(key=lambda f: CODES.index(f["code"]))
+    for f in findings:
+        f.setdefault("label", LABELS[f["code"]])
     codes = [f["code"] for f in findings]
     return {"codes": codes, "text": ", ".join(LABELS[c] for c in codes),
             "findings": findings}
