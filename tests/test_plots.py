@@ -231,6 +231,9 @@ def test_a_diverged_configuration_leaves_the_others_a_readable_axis(qtbot, windo
 
 
 def test_the_calibration_page_draws_the_stored_out_of_fold_predictions(qtbot, window):
+    import html
+
+    from workbench.gui import core_adapter as core
     from workbench.sweep.store import Store
 
     win = window
@@ -252,7 +255,12 @@ def test_the_calibration_page_draws_the_stored_out_of_fold_predictions(qtbot, wi
         np.testing.assert_allclose(np.sort(y), np.sort(oof.y), rtol=1e-12)
         if s is not wild:  # drawn as stored
             np.testing.assert_allclose(np.sort(x), np.sort(first), rtol=1e-6)
-    assert "RMSE" in panel.note.text()
+    scores = panel.scores.text()  # beside the plots: each configuration's own figures
+    for s in series:
+        assert f"#{s['number']}</b>" in scores
+        summary = s["index"]
+        words = core.calibration_words(panel._data["configurations"][summary]["summary"])
+        assert html.escape(words) in scores
     # a new selection is read anew
     win.select_rows([0])
     qtbot.waitUntil(lambda: not panel.waiting(), timeout=30_000)

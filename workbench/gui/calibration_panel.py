@@ -23,7 +23,7 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import Qt
 from PySide6.QtGui import QColor
-from PySide6.QtWidgets import QHBoxLayout
+from PySide6.QtWidgets import QHBoxLayout, QLabel
 
 from workbench.gui.plots import _alpha, _held, _Panel, _pen, robust_range
 
@@ -40,8 +40,14 @@ class CalibrationPanel(_Panel):
         self.layout_.addLayout(row, 1)
         self.main_plot = self._plot("observed", "predicted", into=row)
         self.resid_plot = self._plot("residual", "predicted", into=row)
+        #: beside the plots: each configuration's colour, rank and scores
+        self.scores = QLabel("")
+        self.scores.setTextFormat(Qt.RichText)
+        self.scores.setWordWrap(True)
+        self.scores.setAlignment(Qt.AlignTop | Qt.AlignLeft)
+        self.scores.setFixedWidth(250)
+        row.addWidget(self.scores)
         self._finish()
-        self.note.setTextFormat(Qt.RichText)
         self._data: dict | None = None
         #: items drawn per configuration key: the reliability curve or the scatter
         self.items: dict[str, pg.GraphicsObject] = {}
@@ -88,12 +94,14 @@ class CalibrationPanel(_Panel):
             self._show_empty(True)
             self.empty.setText("Select rows of the results to see how well their predictions "
                                "match the truth on rows they never saw.")
-            self.note.setText("")
+            self._say("")
+            self.scores.setText("")
             return
         if not self._covers():
             self._show_empty(True)
             self.empty.setText("Reading the stored out-of-fold predictions…")
-            self.note.setText("")
+            self._say("")
+            self.scores.setText("")
             return
         conf = self._data["configurations"]
         task = self._data.get("task")
@@ -102,7 +110,8 @@ class CalibrationPanel(_Panel):
             self._show_empty(True)
             self.empty.setText("No out-of-fold predictions are stored for these configurations "
                                "(a sweep stored before they were kept, or no trial done).")
-            self.note.setText("")
+            self._say("")
+            self.scores.setText("")
             return
         self._show_empty(False)
         if task == "classification":
@@ -116,11 +125,12 @@ class CalibrationPanel(_Panel):
 
         color = self.theme.series_color(s["color"]).name()
         return (f"<span style='color:{color}'>■</span>&nbsp;<b>#{s.get('number')}</b>&nbsp;"
+                f"{html.escape(s.get('label', ''))}<br>&nbsp;&nbsp;&nbsp;"
                 f"{html.escape(calibration_words(summary))}")
 
     def _classification(self, have, conf) -> None:
         fg = QColor(self.theme.plot_fg)
-        self.main_plot.setLabel("left", "observed frequency")
+        self.main_plot.setLabel("left", "observed")
         self.main_plot.setLabel("bottom", "mean predicted probability")
         self.main_plot.plot([0, 1], [0, 1], pen=_pen(_alpha(fg, 140), 1, Qt.DashLine))
         event = None
@@ -136,10 +146,11 @@ class CalibrationPanel(_Panel):
         self.main_plot.setYRange(0, 1, padding=0.02)
         self.resid_plot.setVisible(False)
         lines = [self._words(s, conf[s["index"]]["summary"]) for s in have]
-        self.note.setText(html.escape(
-            f"Reliability of the {event}, in ten equal bins: on the dashed diagonal the "
-            "predicted probabilities come true as often as they say. Brier score and "
-            "log-loss: lower is better.") + "<br>" + " &nbsp; ".join(lines))
+        self.scores.setText("<br>".join(lines) + "<br><i>lower is better</i>")
+        self._say("", f"Reliability of the {event}, in ten equal bins: on the dashed diagonal "
+                      "the predicted probabilities come true as often as they say. Brier score "
+                      "and log-loss: lower is better. From the stored out-of-fold predictions, "
+                      "pooled over the repeats.")
 
     def _regression(self, have, conf) -> None:
         fg = QColor(self.theme.plot_fg)
@@ -182,9 +193,9 @@ class CalibrationPanel(_Panel):
         shown = max(len(pts[s["key"]][0]) for s in have)
         wide = [f"#{have[i].get('number')}" for i in (found[2] if found else [])]
         self.clipped["predicted"] = [have[i]["label"] for i in (found[2] if found else [])]
-        text = (f"Each dot a row's out-of-fold prediction (first repeat, up to {shown} rows); "
-                "dashed: perfect prediction. Lower plot: actual minus predicted, with the "
-                "median residual per bin." + (f" Predictions of {', '.join(wide)} run outside "
-                                              "the range (held at its edge)." if wide else "")
-                + (" " + clip if clip else ""))
-        self.note.setText(html.escape(text) + "<br>" + " &nbsp; ".join(lines))
+        self.scores.setText("<br>".join(lines))
+        self._say((f"Predictions of {', '.join(wide)} run outside the range (held at its edge)."
+                   if wide else "") + (" " + clip if clip else ""),
+                  f"Left: each dot a row's out-of-fold prediction (first repeat, up to {shown} "
+                  "rows) against its actual value; dashed: perfect prediction. Right: actual "
+                  "minus predicted, with each configuration's median residual per bin.")
