@@ -165,3 +165,16 @@ def test_the_report_shows_the_classifiers_calibration(binary):
     y = np.concatenate([oof.y for _ in oof.predictions])
     assert float(first[2]) == pytest.approx(brier_score_loss(y, proba[:, 1]), abs=1e-4)
     assert int(first[1]) == len(y)
+
+
+def test_the_results_csv_has_the_diagnosis_column(regression, tmp_path):
+    import csv
+
+    from workbench.export.results_csv import CONFIGURATIONS_CSV, write_results_csv
+
+    res, trials = regression
+    write_results_csv(res, trials, res["configurations"][0]["index"], tmp_path)
+    with open(tmp_path / CONFIGURATIONS_CSV, newline="", encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))
+    assert {int(r["index"]): r["diagnosis"] for r in rows} == {
+        c["index"]: c["diagnosis"]["text"] for c in res["configurations"]}

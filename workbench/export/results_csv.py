@@ -1,7 +1,7 @@
 """The sweep's full results as two spreadsheet-safe CSV files.
 
 ``configurations.csv`` has one row per configuration in rank order (mean ± sd,
-p-values, tie group, health and which one was exported); ``trials.csv`` has one
+p-values, tie group, health, which one was exported and the diagnosis in a few words); ``trials.csv`` has one
 row per stored trial. Both go through :func:`workbench.export.safe_csv.write_safe_csv`.
 """
 
@@ -18,7 +18,7 @@ CONFIGURATION_COLUMNS = [
     "sweep_id", "table", "target", "target_kind", "metric", "rank", "index", "hidden", "head",
     "layers", "learning_rate", "alpha", "engine", "status", "mean", "sd", "n_scores",
     "p_value", "p_value_holm", "tied_with_best", "mean_fit_seconds", "train_mean",
-    "train_test_gap", "dead", "saturated", "exported"]
+    "train_test_gap", "dead", "saturated", "exported", "diagnosis"]
 
 TRIAL_COLUMNS = [
     "sweep_id", "config_index", "hidden", "head", "layers", "repeat", "fold", "status",
@@ -38,7 +38,8 @@ def configuration_rows(results: dict, exported_index: int) -> list[list]:
              c["learning_rate"], c["alpha"], c["engine"], c["status"], c["mean"], c["sd"],
              c["n_scores"], c["p_value"], c["p_value_holm"], c["tied_with_best"],
              c["mean_fit_seconds"], c["train_mean"], c["train_test_gap"], c["dead"],
-             c["saturated"], c["index"] == exported_index]
+             c["saturated"], c["index"] == exported_index,
+             (c.get("diagnosis") or {}).get("text")]
             for c in res["configurations"]]
 
 
