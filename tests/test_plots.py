@@ -82,6 +82,13 @@ def test_panels_show_a_sentence_before_anything_is_selected(qtbot):
         panel.set_series([_series(0, [0.5, 0.2, 0.1])])
         assert panel.empty.isHidden()
         assert any(not p.isHidden() for p in panel.plots())
+    from workbench.gui.plot_area import PlotArea
+
+    area = PlotArea()
+    qtbot.addWidget(area)
+    area.show()
+    assert area.legend.isHidden()  # no stray legend box before a selection
+    assert "Select rows" in area.diagnosis_text()
 
 
 def test_one_loss_kind_per_axis_with_a_box_to_pick_it(qtbot):
