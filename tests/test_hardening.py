@@ -482,6 +482,14 @@ def test_jobs_beyond_the_cores_are_capped_with_a_note(finished, tmp_path, capsys
     assert started and int(started.group(1)) <= cores
     assert runner._POOL["workers"] <= cores
     assert _copy_of(os.getpid()) is None  # the table copy went with the sweep
+    # the core caps it too (the window, scripts): never more workers than cores or trials
+    plan = build_plan(finished["table"], "passed", hidden="relu", layers=["4"], folds=2,
+                      repeats=1, epochs=3, baselines=[])
+    events = []
+    with Store(tmp_path / "s.sqlite") as st:
+        run_sweep(plan, store=st, jobs=999, on_event=events.append)
+    assert events[0]["workers"] <= min(cores, plan.n_trials)
+    assert runner._POOL["workers"] <= cores
 
 
 def test_a_table_with_no_usable_feature_is_refused_before_any_trial(tmp_path, capsys):
