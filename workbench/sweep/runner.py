@@ -70,7 +70,27 @@ marked ``interrupted``. A KeyboardInterrupt (Ctrl-C) does the same and is then
 re-raised. A worker that dies (killed, out of memory) costs only its trials:
 each is retried once, alone, and marked ``failed`` if its worker dies again.
 ``run_sweep(resume=SWEEP_ID)`` runs exactly the trials that are not stored,
-after checking that the table file still has the stored fingerprint.
+after checking that the table file still has the stored fingerprint (``table=``
+gives a moved table's new path; the fingerprint is checked all the same).
+
+Who runs a sweep, and what is left behind
+-----------------------------------------
+The sweep's process holds its lock (:class:`workbench.sweep.store.SweepLock`) from
+before the sweep is stored until it ends; a resume of a sweep whose lock another
+process holds is refused, and a dead holder's lock is simply taken. Pool workers
+watch the process that started them and end within :data:`PARENT_CHECK_SECONDS`
+of its death (:func:`_watch_parent`); the table copy they read lives in a
+temporary folder with a lock file of its own, removed when the sweep ends and,
+after a kill, by the next sweep (:func:`clean_abandoned_copies`). A store that
+cannot be written (read-only, full disk) raises :class:`InputError`: the workers
+are stopped first, every trial stored so far stays, and the sweep can be resumed.
+
+Limits
+------
+At most :func:`default_jobs` worker processes (the cores), and never more trials
+in flight than there are trials to run. A scheduler address must be ``tcp://``
+and answer as a Dask scheduler within :data:`CONNECT_SECONDS`
+(:func:`_probe_scheduler`), else one line says why.
 """
 
 from __future__ import annotations
