@@ -14,6 +14,7 @@ from __future__ import annotations
 import decimal
 import http.server
 import json
+import math
 import os
 import queue
 import re
@@ -470,6 +471,27 @@ def test_option_limits_are_checked_before_any_work(finished, tmp_path, capsys, e
                  str(store), "--quiet"]) == 2
     assert words in _one_line(capsys)
     assert not store.exists()  # nothing was started
+
+
+@pytest.mark.parametrize("k", [2, 3, 5, 10, 20])
+def test_the_repeat_limit_is_where_more_repeats_stop_narrowing_the_corrected_test(k):
+    """MAX_REPEATS' reason, from Nadeau & Bengio (2003, Machine Learning 52, eq. of the
+    corrected resampled t-test): Var = (1/J + n2/n1) s^2 with J = k r resamples and
+    n2/n1 = 1/(k-1) for k folds. At r = MAX_REPEATS the standard error is within 0.5 % of
+    its limit for endless repeats, and the project's test uses that very factor."""
+    from workbench.sweep.statistics import corrected_ttest
+
+    n = 1000.0
+    n_test, n_train = n / k, n - n / k
+    factor = lambda r: 1.0 / (k * r) + n_test / n_train  # noqa: E731 - the paper's factor
+    assert math.sqrt(factor(MAX_REPEATS) / (n_test / n_train)) < 1.005
+    assert math.sqrt(factor(MAX_REPEATS // 10) / (n_test / n_train)) > 1.004  # still narrowing
+    # the project's corrected t uses the factor: t = mean / sqrt(factor * s^2)
+    rng = np.random.default_rng(k)
+    d = rng.normal(0.01, 0.05, size=k * MAX_REPEATS)
+    t, _ = corrected_ttest(d, np.zeros_like(d), n_train, n_test)
+    assert t == pytest.approx(d.mean() / math.sqrt(factor(MAX_REPEATS) * d.var(ddof=1)),
+                              rel=1e-12)
 
 
 def test_jobs_beyond_the_cores_are_capped_with_a_note(finished, tmp_path, capsys):
