@@ -126,7 +126,7 @@ def test_a_plan_without_baselines_runs_none(tmp_path):
 def test_results_read_epochs_and_baselines_from_the_store(tmp_path):
     """A hand-made store: the document's mean_epochs is the mean of the trials' epochs and
     a baseline's entry lists its done scores in (repeat, fold) order."""
-    plan = {"folds": 2, "repeats": 1, "metric": "r2", "table": "t.csv", "target": "y",
+    plan = {"folds": 2, "repeats": 1, "epochs": 30, "metric": "r2", "table": "t.csv", "target": "y",
             "task": "regression", "target_kind": "signed"}
     config = {"index": 0, "hidden": "relu", "head": "identity", "layers": [4],
               "learning_rate": 0.001, "alpha": 0.0001, "engine": "numpy"}
