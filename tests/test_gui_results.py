@@ -384,11 +384,61 @@ def test_a_window_run_shows_every_column_and_an_unclipped_verdict_at_1280x800(qt
     # and wide enough for their cells: nothing the table shows is cut short
     for i in shown:
         assert hh.sectionSize(i) >= view.sizeHintForColumn(i) - 1, COLUMN_KEYS[i]
-    # the verdict strip: every label wholly shown (its wrapped height fits) inside the window
+    assert_strip_whole(qtbot, win)
+
+
+def strip_problems(win) -> list[str]:
+    """What of the verdict strip is not wholly shown: a label whose wrapped text is taller
+    than the label, a label reaching past the strip, the strip reaching under the filters."""
+    out = []
     strip = win.verdict
-    top_left = strip.mapTo(win, strip.rect().topLeft())
-    assert top_left.y() >= 0 and top_left.y() + strip.height() <= win.height()
+    top = strip.mapTo(win, strip.rect().topLeft()).y()
+    bar = win.head_filter.mapTo(win, win.head_filter.rect().topLeft()).y()
+    if not (0 <= top and top + strip.height() <= bar):
+        out.append(f"strip from {top} to {top + strip.height()}, filters at {bar}")
     for key, label in strip.labels.items():
-        assert label.isVisible(), key
-        assert label.heightForWidth(label.width()) <= label.height(), key
-        assert label.geometry().bottom() <= strip.contentsRect().bottom(), key
+        if not label.isVisible():
+            out.append(f"{key} hidden")
+        if label.heightForWidth(label.width()) > label.height():
+            out.append(f"{key} needs {label.heightForWidth(label.width())} px, has "
+                       f"{label.height()}")
+        if label.mapTo(strip, label.rect().bottomLeft()).y() > strip.contentsRect().bottom():
+            out.append(f"{key} reaches past the strip")
+    return out
+
+
+def assert_strip_whole(qtbot, win):
+    """Once the layout has settled (it is laid out on the event loop), nothing of the
+    verdict strip is cut short at 1280 x 800."""
+    assert (win.width(), win.height()) == (1280, 800)
+    try:
+        qtbot.waitUntil(lambda: not strip_problems(win), timeout=5_000)
+    except Exception:
+        pass
+    assert strip_problems(win) == []
+    assert (win.width(), win.height()) == (1280, 800)  # and the window did not grow for it
+
+
+def test_a_verdict_with_every_warning_is_shown_whole_at_1280x800(qtbot, tmp_path):
+    """A table of noise with few rows: no network beats either baseline, too few test rows,
+    most of the grid undecided -- four long warnings, all shown whole."""
+    rng = np.random.default_rng(1)
+    table = tmp_path / "noise.csv"
+    import pandas as pd
+
+    pd.DataFrame(rng.normal(size=(60, 4)), columns=["a", "b", "c", "y"]).to_csv(table,
+                                                                                index=False)
+    store, out = tmp_path / "s.sqlite", tmp_path / "r.json"
+    with redirect_stdout(io.StringIO()):
+        assert main(["sweep", str(table), "--target", "y", "--hidden", "relu,tanh,gelu",
+                     "--output", "identity", "--layers", "4", "--learning-rate", "0.001,0.01",
+                     "--folds", "5", "--repeats", "2", "--epochs", "10", "--jobs", "1",
+                     "--quiet", "--store", str(store), "--json", str(out)]) == 0
+    res = json.loads(out.read_text())
+    codes = [w["code"] for w in res["warnings"]]
+    assert codes == ["no_network_beats_constant", "no_network_beats_linear", "few_test_rows",
+                     "mostly_undecided"]
+    win = make_window(qtbot, tmp_path, store)
+    reopen(qtbot, win, res["sweep_id"])
+    assert_view_shows_verdict(win.verdict.text(), res, skip=("factors",))
+    assert_strip_whole(qtbot, win)

@@ -32,7 +32,6 @@ from PySide6.QtWidgets import (
     QMessageBox,
     QProgressBar,
     QScrollArea,
-    QSizePolicy,
     QSplitter,
     QStyledItemDelegate,
     QTableView,
@@ -62,7 +61,7 @@ from workbench.gui.settings import Settings
 from workbench.gui.setup_pane import SetupPane
 from workbench.gui.tasks import run_task
 from workbench.gui.verdict_strip import VerdictStrip
-from workbench.gui.widgets import Banner, ElidedLabel
+from workbench.gui.widgets import Banner, ElidedLabel, WrappingLabel
 
 TABLE_FILTER = "Tables (*.csv *.tsv *.txt *.xlsx *.parquet *.pq);;All files (*)"
 #: the most configurations drawn at once in the plots
@@ -73,6 +72,11 @@ ROPE_TIP = ("Half-width of the region of practical equivalence: differences smal
             "this do not matter. Empty: the default for the metric (0.01 for scores that are "
             "fractions, 1% of the constant baseline's score for error scores). The decisions, "
             "the verdict and the recommendation are judged again when it changes.")
+#: least heights of the results table (header and three rows) and of the tabs below it
+#: (their tab bar and a sliver of the page, which scrolls): what a verdict with many
+#: warnings leaves them at worst (the splitter between them gives the user more)
+TABLE_MIN_HEIGHT = 24 + 3 * 21
+DETAIL_MIN_HEIGHT = 40
 #: starting widths of the results columns, pixels (then fitted to their contents and to
 #: the view, see MainWindow._fit_columns)
 COLUMN_WIDTHS = {"rank": 46, "hidden": 84, "head": 66, "layers": 54, "learning_rate": 54,
@@ -386,14 +390,10 @@ class MainWindow(QMainWindow):
         self.rope_edit.editingFinished.connect(self._rope_changed)
         rope_label.setBuddy(self.rope_edit)
         self._rope: float | None = None
-        self.results_note = QLabel("")
+        self.results_note = WrappingLabel("")
         self.results_note.setObjectName("muted")
-        self.results_note.setWordWrap(True)
-        self.results_note.setSizePolicy(QSizePolicy.Ignored, QSizePolicy.Preferred)
-        self.selection_note = QLabel("")
+        self.selection_note = WrappingLabel("")
         self.selection_note.setObjectName("selectionNote")
-        self.selection_note.setWordWrap(True)
-        self.selection_note.setSizePolicy(QSizePolicy.Ignored, QSizePolicy.Preferred)
         self.selection_note.setTextInteractionFlags(Qt.TextSelectableByMouse)
         rv.addLayout(bar)
 
@@ -434,19 +434,15 @@ class MainWindow(QMainWindow):
         self.candidates.configurationChosen.connect(self.select_configuration)
         self.detail_tabs = QTabWidget()
         self.detail_tabs.setObjectName("detailTabs")
-        # in a scroll area: the panels keep their least height when the splitter is low
-        plots_area = QScrollArea()
-        plots_area.setObjectName("plotsArea")
-        plots_area.setWidgetResizable(True)
-        plots_area.setFrameShape(QFrame.NoFrame)
-        plots_area.setHorizontalScrollBarPolicy(Qt.ScrollBarAlwaysOff)
-        plots_area.setWidget(plots)
-        self.detail_tabs.addTab(plots_area, "Curves and health")
+        # each page in a scroll area: the pages keep their least height and scroll when the
+        # verdict (never cut short) leaves them little room
+        self.detail_tabs.addTab(self._scrolling(plots), "Curves and health")
         self.detail_tabs.addTab(plots.calibration_page, "Calibration")
         self.detail_tabs.addTab(plots.diagnosis, "Diagnosis")
         plots.watch_tabs(self.detail_tabs)
-        self.detail_tabs.addTab(self.factors_chart, "What matters")
-        self.detail_tabs.addTab(self.candidates, "Candidates")
+        self.detail_tabs.addTab(self._scrolling(self.factors_chart), "What matters")
+        self.detail_tabs.addTab(self._scrolling(self.candidates), "Candidates")
+        self.detail_tabs.setMinimumHeight(DETAIL_MIN_HEIGHT)
         vs = QSplitter(Qt.Vertical)
         vs.setChildrenCollapsible(False)
         tablebox = QWidget()
@@ -461,7 +457,7 @@ class MainWindow(QMainWindow):
         legend.addWidget(self.rope_edit, 0, Qt.AlignTop)
         tl.addLayout(legend)
         tl.addWidget(self.selection_note)
-        self.results_view.setMinimumHeight(110)
+        self.results_view.setMinimumHeight(TABLE_MIN_HEIGHT)
         vs.addWidget(tablebox)
         vs.addWidget(self.detail_tabs)
         vs.setStretchFactor(0, 1)
@@ -478,6 +474,15 @@ class MainWindow(QMainWindow):
         self.setCentralWidget(root)
         self.status = self.statusBar()
         self.status.showMessage("Ready. Drop a table onto the window to begin.")
+
+    @staticmethod
+    def _scrolling(widget: QWidget) -> QScrollArea:
+        area = QScrollArea()
+        area.setWidgetResizable(True)
+        area.setFrameShape(QFrame.NoFrame)
+        area.setHorizontalScrollBarPolicy(Qt.ScrollBarAlwaysOff)
+        area.setWidget(widget)
+        return area
 
     @staticmethod
     def _titled(title: str, widget: QWidget) -> QWidget:

@@ -14,14 +14,16 @@ the recommended configuration by default.
 
 from __future__ import annotations
 
-from PySide6.QtCore import Qt
+from PySide6.QtCore import QEvent, Qt
 from PySide6.QtWidgets import (
     QFrame,
-    QGridLayout,
+    QHBoxLayout,
     QLabel,
     QSizePolicy,
     QVBoxLayout,
 )
+
+from workbench.gui.widgets import WrappingLabel
 
 #: statements of the core shown elsewhere (the factors' sentence: with its chart)
 SHOWN_ELSEWHERE = ("factors",)
@@ -33,22 +35,22 @@ class VerdictStrip(QFrame):
     def __init__(self, parent=None):
         super().__init__(parent)
         self.setObjectName("verdictStrip")
-        self.setSizePolicy(QSizePolicy.Preferred, QSizePolicy.Maximum)
+        # never shorter than its wrapped text at its present width (see _hold_height): the
+        # table and the tabs below give way instead
+        self.setSizePolicy(QSizePolicy.Preferred, QSizePolicy.Fixed)
         lay = QVBoxLayout(self)
         lay.setContentsMargins(10, 6, 10, 6)
         lay.setSpacing(3)
-        self.heading = QLabel("")
+        self.heading = WrappingLabel("")
         self.heading.setObjectName("verdictHeading")
-        self.heading.setWordWrap(True)
-        self.heading.setSizePolicy(QSizePolicy.Ignored, QSizePolicy.Preferred)
         self.heading.hide()
         lay.addWidget(self.heading)
-        self._grid = QGridLayout()
-        self._grid.setContentsMargins(0, 0, 0, 0)
-        self._grid.setHorizontalSpacing(10)
-        self._grid.setVerticalSpacing(2)
-        self._grid.setColumnStretch(1, 1)
-        lay.addLayout(self._grid)
+        # one box row per statement (box layouts follow the labels' height for width;
+        # a grid would size its rows from the labels' narrowest wrapping)
+        self._list = QVBoxLayout()
+        self._list.setContentsMargins(0, 0, 0, 0)
+        self._list.setSpacing(2)
+        lay.addLayout(self._list)
         self._rows: list[tuple[QLabel, QLabel]] = []
         #: the shown statements' labels by key (the core's keys: output, hidden,
         #: recommended, score, and each warning's code)
@@ -75,29 +77,60 @@ class VerdictStrip(QFrame):
         self.heading.setVisible(running)
         self._set_statements(statements)
         self.setVisible(bool(statements))
+        self._hold_height()
+
+    def event(self, event) -> bool:
+        if event.type() == QEvent.LayoutRequest:  # a label's text, font or visibility changed
+            self._hold_height()
+        return super().event(event)
+
+    def resizeEvent(self, event) -> None:  # noqa: N802 - Qt override
+        super().resizeEvent(event)
+        if event.size().width() != event.oldSize().width():
+            self._hold_height()
+
+    def _hold_height(self) -> None:
+        """Fix the strip's height to what its wrapped labels need at its present width. (A
+        least height from the labels' own hints would be measured at a guessed width: rows
+        spread apart when wide, text cut short or the window grown when narrow.)"""
+        width = self.width()
+        if width <= 0:
+            return
+        need = self.layout().totalHeightForWidth(width)
+        if need > 0 and need != self.height():
+            self.setFixedHeight(need)
 
     def _set_statements(self, statements: list[dict]) -> None:
-        for name, text in self._rows:
-            self._grid.removeWidget(name)
-            self._grid.removeWidget(text)
-            name.deleteLater()
-            text.deleteLater()
+        while self._list.count():
+            row = self._list.takeAt(0).layout()
+            while row is not None and row.count():
+                w = row.takeAt(0).widget()
+                if w is not None:
+                    w.deleteLater()
         self._rows = []
         self.labels = {}
-        for i, s in enumerate(statements):
+        names = [("⚠ " if s["label"] == "Warning" else "") + s["label"] for s in statements]
+        name_width = max([self.fontMetrics().horizontalAdvance(n) for n in names] + [0])
+        for s in statements:
             warning = s["label"] == "Warning"
             name = QLabel(("⚠ " if warning else "") + s["label"])
             name.setObjectName("verdictWarningName" if warning else "verdictName")
             name.setAlignment(Qt.AlignLeft | Qt.AlignTop)
-            text = QLabel(s["text"])
+            text = WrappingLabel(s["text"])
             text.setObjectName("verdictWarning" if warning else "verdictText")
             text.setAlignment(Qt.AlignLeft | Qt.AlignTop)
-            text.setWordWrap(True)
             text.setTextFormat(Qt.PlainText)
             text.setTextInteractionFlags(Qt.TextSelectableByMouse)
-            text.setSizePolicy(QSizePolicy.Ignored, QSizePolicy.Preferred)
-            self._grid.addWidget(name, i, 0)
-            self._grid.addWidget(text, i, 1)
+            # the names' column: as wide as the widest name, in the bold the sheet gives it
+            name.setFixedWidth(int(name_width * 1.15) + 8)
+            row = QHBoxLayout()
+            row.setContentsMargins(0, 0, 0, 0)
+            row.setSpacing(10)
+            row.addWidget(name, 0, Qt.AlignTop)
+            row.addWidget(text, 1)
+            self._list.addLayout(row)
+            name.show()  # now, not at the next layout pass: the height is measured below
+            text.show()
             self._rows.append((name, text))
             self.labels[s["key"]] = text
 

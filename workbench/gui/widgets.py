@@ -10,6 +10,7 @@ from PySide6.QtWidgets import (
     QGridLayout,
     QHBoxLayout,
     QLabel,
+    QSizePolicy,
     QToolButton,
     QVBoxLayout,
     QWidget,
@@ -136,3 +137,40 @@ class ElidedLabel(QLabel):
         p.drawText(rect, int(Qt.AlignLeft | Qt.AlignVCenter),
                    self.fontMetrics().elidedText(self.text(), Qt.ElideRight, rect.width()))
         p.end()
+
+
+
+class WrappingLabel(QLabel):
+    """A word-wrapped label that never widens its layout and asks for the height its text
+    needs at its present width.
+
+    Qt's own word-wrapped label reports sizes measured at a guessed width: a long text in
+    a wide row then gets a row several lines too tall. This one hints its height for its
+    width (asking again when the width changes) and, as its least size, one line; a box
+    layout gives it its height for width (a widget that must never be cut short fixes
+    its own height from them, as the verdict strip does).
+    """
+
+    def __init__(self, text: str = "", parent=None):
+        super().__init__(text, parent)
+        self.setWordWrap(True)
+        policy = self.sizePolicy()
+        policy.setHorizontalPolicy(QSizePolicy.Ignored)
+        policy.setHeightForWidth(True)
+        self.setSizePolicy(policy)
+
+    def minimumSizeHint(self) -> QSize:  # noqa: N802 - Qt override
+        m = self.contentsMargins()
+        return QSize(0, self.fontMetrics().height() + m.top() + m.bottom())
+
+    def sizeHint(self) -> QSize:  # noqa: N802 - Qt override
+        return QSize(super().sizeHint().width(), self.heightForWidth(max(1, self.width())))
+
+    def setText(self, text: str) -> None:  # noqa: N802 - Qt override
+        super().setText(text)
+        self.updateGeometry()
+
+    def resizeEvent(self, event) -> None:  # noqa: N802 - Qt override
+        super().resizeEvent(event)
+        if event.size().width() != event.oldSize().width():
+            self.updateGeometry()
