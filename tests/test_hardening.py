@@ -527,6 +527,26 @@ def test_a_table_with_no_usable_feature_is_refused_before_any_trial(tmp_path, ca
 # --------------------------------------------------------------------------- item 10: copies
 
 
+def test_stopping_a_pool_with_trials_queued_leaves_no_thread_traceback(monkeypatch):
+    """loky drops pending work on kill_workers=True but keeps the ids queued; its manager
+    thread then died on a KeyError (a traceback on stderr after a full disk's one line)."""
+    import time as _time
+
+    from joblib.externals.loky import ProcessPoolExecutor
+
+    failures = []
+    monkeypatch.setattr(threading, "excepthook", lambda args: failures.append(args.exc_type))
+    ex = ProcessPoolExecutor(max_workers=1)
+    ex.submit(_time.sleep, 0).result()  # its worker is up
+    # one trial running, one in the call queue, one whose id waits in loky's queue of ids
+    futures = [ex.submit(_time.sleep, 2) for _ in range(3)]
+    manager = ex._executor_manager_thread
+    runner._shutdown(ex)
+    manager.join(60)
+    assert not manager.is_alive() and failures == []
+    assert all(f.done() for f in futures)
+
+
 def test_only_abandoned_copies_of_ours_are_removed(tmp_path):
     def copy(name, files, lock=True):
         folder = tmp_path / (runner.COPY_PREFIX + name)

@@ -613,6 +613,24 @@ def _warm_pool(workers: int):
 
 
 def _shutdown(ex):
+    """Stop a pool and its workers now.
+
+    loky's ``shutdown(kill_workers=True)`` drops its pending work items but leaves
+    their ids in its queue of work ids, and its manager thread then dies on a
+    ``KeyError`` with a traceback on stderr (seen when a sweep stopped on a full disk
+    right after handing out a trial). Nothing is handed out any more when a pool is
+    stopped, so the queued ids are drained first (``_work_ids``, loky's own queue;
+    left alone if a later loky renames it).
+    """
+    import queue
+
+    ids = getattr(ex, "_work_ids", None)
+    if ids is not None:
+        try:
+            while True:
+                ids.get_nowait()
+        except (queue.Empty, AttributeError):
+            pass
     try:
         ex.shutdown(wait=False, kill_workers=True)
     except Exception:  # pragma: no cover - a pool already broken
