@@ -441,3 +441,7 @@ def test_a_stored_sweep_diagnoses_each_configuration_where_it_belongs(tmp_path):
         again = {c["index"]: c.pop("diagnosis") for c in doc["configurations"]}
         add_diagnoses(doc, st)
         assert {c["index"]: c["diagnosis"] for c in doc["configurations"]} == again
+        # a plan that does not name its epoch budget: the most epochs any trial ran
+        doc["plan"].pop("epochs")
+        add_diagnoses(doc, st)
+        assert {c["index"]: c["diagnosis"] for c in doc["configurations"]} == again

@@ -611,13 +611,18 @@ def add_diagnoses(doc: dict, store) -> None:
     for t in store.trials(doc["sweep_id"], with_history=True):
         by_cfg.setdefault(t["config_index"], []).append(t)
     indices = [c["index"] for c in cfgs]
+    # the epoch budget; a plan that does not say (made by hand) is taken to have allowed the
+    # most epochs any trial ran
+    budget = plan.get("epochs") or max((t.get("epochs") or 0 for ts in by_cfg.values()
+                                        for t in ts), default=0)
+    budget = int(budget)
     oof = store.out_of_fold(doc["sweep_id"], configurations=indices) if indices else None
     target_sd = (float(np.std(oof.y)) if oof is not None and oof.classes is None
                  and len(oof.y) else None)
     finals: dict[int, float] = {}
     for c in cfgs:
         lasts = [cv.last for t in by_cfg.get(c["index"], []) if t["status"] == "done"
-                 for cv in [_curve((t.get("history") or {}).get("loss"), int(plan["epochs"]))]
+                 for cv in [_curve((t.get("history") or {}).get("loss"), budget)]
                  if cv is not None and not cv.blown_up]
         if lasts:
             finals[c["index"]] = float(np.median(lasts))
@@ -631,7 +636,7 @@ def add_diagnoses(doc: dict, store) -> None:
     for j, c in enumerate(cfgs):
         c["diagnosis"] = diagnose(
             by_cfg.get(c["index"], []), hidden=c["hidden"], head=c["head"], task=task,
-            epochs=int(plan["epochs"]), metric=doc.get("metric"),
+            epochs=budget, metric=doc.get("metric"),
             outputs=_outputs(oof, j) if oof is not None else None, target_sd=target_sd,
             underfit=c.get("underfit"), reference_loss=reference.get(kinds[c["index"]]),
             fold_sd=c.get("sd") if c["status"] == "done" else None, typical_sd=typical,
