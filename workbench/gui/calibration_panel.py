@@ -68,13 +68,7 @@ class CalibrationPanel(_Panel):
         self._draw()
 
     def set_theme(self, theme) -> None:
-        self.theme = theme
-        for w in self.plots():
-            w.setBackground(theme.plot_bg)
-            for name in ("left", "bottom"):
-                ax = w.getPlotItem().getAxis(name)
-                ax.setPen(_pen(QColor(theme.plot_fg), 1))
-                ax.setTextPen(QColor(theme.plot_fg))
+        self._style_axes(theme)
         self._draw()
 
     def waiting(self) -> bool:

@@ -259,6 +259,11 @@ class _Panel(QWidget):
             w.setVisible(not empty)
 
     def set_theme(self, theme: th.Theme) -> None:
+        self._style_axes(theme)
+        self.set_series(self._series)
+
+    def _style_axes(self, theme: th.Theme) -> None:
+        """Background and axis colours of every plot of the panel from ``theme``."""
         self.theme = theme
         for w in self.plots():
             w.setBackground(theme.plot_bg)
@@ -266,7 +271,6 @@ class _Panel(QWidget):
                 ax = w.getPlotItem().getAxis(name)
                 ax.setPen(_pen(QColor(theme.plot_fg), 1))
                 ax.setTextPen(QColor(theme.plot_fg))
-        self.set_series(self._series)
 
     def set_series(self, series: list[dict]) -> None:  # pragma: no cover - overridden
         raise NotImplementedError
