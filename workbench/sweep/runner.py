@@ -710,9 +710,8 @@ class _TableCopy:
     def __init__(self, data):
         import tempfile
 
-        import joblib
-
         from workbench.sweep.store import try_file_lock
+        from workbench.sweep.trials import save_worker_data
 
         self.folder = Path(tempfile.mkdtemp(prefix=COPY_PREFIX))
         self._fd = None
@@ -721,7 +720,7 @@ class _TableCopy:
             try_file_lock(self._fd)
             os.write(self._fd, f"{os.getpid()}\n".encode())  # for the record; the lock counts
             self.path = str(self.folder / COPY_NAME)
-            joblib.dump(data, self.path)
+            save_worker_data(data, self.path)
         except BaseException:
             self.remove()
             raise

@@ -517,6 +517,13 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
 _WORKER_DATA: dict = {}
 
 
+def save_worker_data(data: TrialData, path: str) -> None:
+    """Write the sweep's table for the local workers (read back by :func:`run_trial_from_file`)."""
+    import joblib
+
+    joblib.dump(data, path)
+
+
 def run_trial_from_file(token: str, path: str, spec: dict) -> dict:
     """Run a trial in a pool worker, reading the sweep's table once per worker.
 
