@@ -124,6 +124,7 @@ class Network:
         self._alpha_mask = None
         self._buffers_for = 0
         self._views_by_rows: dict[int, list[LayerBuffers]] = {}
+        self._epoch_pred = None
 
     # buffers ----------------------------------------------------------------
     def ensure(self, rows):
@@ -168,20 +169,25 @@ class Network:
         return views
 
     # passes -----------------------------------------------------------------
-    def forward(self, X_ones, rows):
+    def forward(self, X_ones, rows, out=None):
         """Every layer's output for the ``rows`` rows of ``X_ones`` (inputs + ones column);
-        returns the prediction (a view into the output layer's buffer)."""
+        returns the prediction: ``out`` when given (``rows`` x outputs, e.g. a slice of
+        an epoch's prediction buffer), else a view into the output layer's buffer."""
         below = X_ones
         views = self.buffers(rows)
         head = self.head
         for layer, buf in zip(self.layers, views):
+            activation = layer.activation
+            if activation is None:
+                top = buf.output if out is None else out
+                np.matmul(below, layer.block, out=top)
+                if buf.pre is not None:
+                    np.copyto(buf.pre, top)
+                head.apply_(top)
+                return top
             np.matmul(below, layer.block, out=buf.output)
             if buf.pre is not None:
                 np.copyto(buf.pre, buf.output_ones)
-            activation = layer.activation
-            if activation is None:
-                head.apply_(buf.output)
-                return buf.output
             # apply on the whole contiguous buffer, then restore the ones column
             # where the activation does not map 1 to 1
             activation.apply_(buf.output_ones, **layer.params)
@@ -211,12 +217,16 @@ class Network:
         """The head's matched loss (:mod:`workbench.nets.losses`), without the L2 term."""
         return self.head.loss_fn.value(y, prediction)
 
-    def _l2(self, alpha, rows):
-        """``alpha * W`` (zeros at the intercepts) into a buffer; returns its loss term."""
+    def _mask_for(self, alpha):
+        """``alpha`` on the weight entries, 0 on the intercepts (kept for the last alpha)."""
         if self._l2_alpha != alpha:
             self._alpha_mask = self.coef_mask * alpha
             self._l2_alpha = alpha
-        np.multiply(self.theta, self._alpha_mask, out=self._l2_buf)
+        return self._alpha_mask
+
+    def _l2(self, alpha, rows):
+        """``alpha * W`` (zeros at the intercepts) into a buffer; returns its loss term."""
+        np.multiply(self.theta, self._mask_for(alpha), out=self._l2_buf)
         return 0.5 * float(np.dot(self.theta, self._l2_buf)) / rows
 
     def backward(self, X_ones, y, rows, alpha, scale=True):
@@ -228,13 +238,24 @@ class Network:
         fold the division into their own step, see :mod:`workbench.nets.optimizers`).
         """
         prediction = self.forward(X_ones, rows)
-        views = self.buffers(rows)
-        head, top = self.head, views[-1]
-        delta = head.output_delta(y, prediction, top.pre, top.delta)
+        delta = self._backpropagate(X_ones, y, rows, prediction)
+        head = self.head
         # a canonical head's delta is the residual p - y, which the loss may reuse
         loss = head.loss_fn.value(y, prediction, delta if head.canonical else None)
         if alpha:
             loss += self._l2(alpha, rows)
+            self.grad += self._l2_buf
+        if scale:
+            self.grad /= rows
+        return loss
+
+    def _backpropagate(self, X_ones, y, rows, prediction):
+        """The data loss's gradient, summed over the ``rows`` rows, into ``self.grad``
+        (after :meth:`forward` on the same rows); returns the output layer's delta."""
+        views = self.buffers(rows)
+        top = views[-1]
+        delta = self.head.output_delta(y, prediction, top.pre, top.delta)
+        out_delta = delta
         for i in range(len(self.layers) - 1, -1, -1):
             layer = self.layers[i]
             below = X_ones if i == 0 else views[i - 1].output_ones
@@ -250,8 +271,48 @@ class Network:
                                                 **under.params)
             np.multiply(buf.delta_ones, slope, out=buf.delta_ones)
             delta = buf.delta
-        if alpha:
-            self.grad += self._l2_buf
-        if scale:
-            self.grad /= rows
-        return loss
+        return out_delta
+
+    # training ----------------------------------------------------------------
+    def _epoch_predictions(self, n):
+        """A preallocated (``n`` x outputs) buffer for one epoch's batch predictions."""
+        buf = self._epoch_pred
+        if buf is None or buf.shape[0] < n:
+            buf = self._epoch_pred = np.empty((n, self.units[-1]), dtype=self.dtype)
+        return buf[:n]
+
+    def train_epoch(self, optimizer, X_ones, y, batch_size, alpha):
+        """One pass over the rows in batches of ``batch_size``: forward, backward and
+        ``optimizer.update`` per batch; returns the epoch's loss.
+
+        The loss is the row-weighted mean of the batch losses, each taken on the
+        batch's predictions before its update (scikit-learn's MLP reports
+        ``sum(batch_loss * rows) / n``), plus the L2 term of each batch
+        (``0.5 * alpha * ||W||^2 / rows``, weighted by ``rows``: the sum of
+        ``0.5 * alpha * ||W||^2`` over the batches, divided by ``n``). It is computed
+        once per epoch: each batch's predictions are written into one epoch-sized
+        buffer as the forward pass makes them, and the head's loss is taken over the
+        whole buffer at the end -- the same sum, without a loss evaluation per batch.
+        (The mean over all rows equals the row-weighted mean of the batch means up
+        to rounding.)
+        """
+        n = X_ones.shape[0]
+        predictions = self._epoch_predictions(n)
+        theta, grad, update = self.theta, self.grad, optimizer.update
+        forward, backpropagate = self.forward, self._backpropagate
+        squares = 0.0
+        mask, l2_buf = (self._mask_for(alpha), self._l2_buf) if alpha else (None, None)
+        for start in range(0, n, batch_size):
+            stop = min(start + batch_size, n)
+            rows = stop - start
+            X_batch = X_ones[start:stop]
+            prediction = forward(X_batch, rows, predictions[start:stop])
+            backpropagate(X_batch, y[start:stop], rows, prediction)
+            if alpha:
+                # alpha * W into the gradient; alpha * ||W||^2 for the loss
+                np.multiply(theta, mask, out=l2_buf)
+                squares += float(np.dot(theta, l2_buf))
+                grad += l2_buf
+            update(theta, grad, rows)
+        loss = float(self.head.loss_fn.value(y, predictions))
+        return loss + 0.5 * squares / n if alpha else loss
