@@ -249,7 +249,7 @@ def test_a_version_1_store_is_migrated_and_keeps_its_trials(tmp_path):
     old, new = tmp_path / "old.sqlite", tmp_path / "new.sqlite"
     _v1_store(old)
     with Store(old) as st:
-        assert st.schema_version == SCHEMA_VERSION == 2
+        assert st.schema_version == SCHEMA_VERSION == 3
         assert [t["test_score"] for t in st.trials("old")] == [0.25]
         assert st.out_of_fold("old") is None  # stored before predictions were kept
         assert st.baselines("old") == [] and st.baseline_trials("old") == []
@@ -283,7 +283,7 @@ def test_resuming_a_sweep_stored_by_schema_1_stores_rows_and_new_predictions(tmp
         kept = next(iter(st.finished_keys(out.sweep_id)))
     # make it a schema-1 store: no new tables, a version-1 plan
     con = sqlite3.connect(path)
-    for table in ("predictions", "sweep_rows", "baselines"):
+    for table in ("predictions", "sweep_rows", "baselines", "stopped"):
         con.execute(f"DROP TABLE {table}")
     stored = json.loads(con.execute("SELECT plan FROM sweeps").fetchone()[0])
     for key in ("baselines", "tune_learning_rate"):

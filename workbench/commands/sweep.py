@@ -7,20 +7,41 @@ so far), stores every trial as it finishes and prints the ranked table at the
 end. ``--json OUT`` writes the full results (the object documented in
 README.md, section "Sweep results as JSON"; ``-`` for stdout).
 
+``--race`` stops configurations that are worse than the best beyond doubt after
+each block of folds (:mod:`workbench.sweep.racing`); the progress says which and
+when, and the results mark their scores as partial.
+
 ``--resume SWEEP_ID`` finishes a stored sweep (FILE and the plan options are
 taken from the store). Ctrl-C stops promptly, keeps every finished trial and
 exits with status 130; the sweep can then be resumed. Exit status 2 for bad
 input or an impossible plan.
+
+This module imports only the standard library at load time (NumPy, pandas,
+scikit-learn and the sweep package are imported in :func:`run`), so that
+``workbench --help`` answers at once.
 """
 
 from __future__ import annotations
 
+import collections
 import json
+import math
 import sys
 import time
 
-from workbench.data.profiling import KINDS, parse_roles
 from workbench.errors import EXIT_CANCELLED, InputError
+
+#: the target kinds ``--kind`` offers: :data:`workbench.data.profiling.KINDS`, written out
+#: here so that building the parser imports no pandas (a test checks they are the same)
+KINDS = ("binary", "multiclass", "signed", "non_negative", "count", "bounded")
+
+#: the ETA waits until at least this share of the trials has finished (and at least one
+#: per worker, at two distinct moments): the first trials carry the workers' start-up and
+#: finish together, so a rate from them means little (a choice, not a cited figure)
+ETA_MIN_SHARE = 0.05
+#: the ETA's rate is taken over the last this many finishes (or two per worker, if more),
+#: so that it follows a sweep whose trials get faster or slower (a choice)
+ETA_WINDOW = 20
 
 NAME = "sweep"
 HELP = ("Sweep hidden activations x output heads x layers x learning rates x alphas under "
@@ -90,6 +111,11 @@ def add_arguments(parser):
     parser.add_argument("--table", metavar="PATH", default=None,
                         help="with --resume: where the sweep's table is now, when it was moved "
                              "(its SHA-256 is checked; default: the stored path)")
+    parser.add_argument("--race", action="store_true",
+                        help="racing: after each block of folds (from the end of the first "
+                             "repeat), stop configurations practically worse than the best "
+                             "beyond doubt (P >= 0.99, Bayesian correlated t-test); their "
+                             "scores are kept, marked partial")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
@@ -114,7 +140,18 @@ class Progress:
     """Draws the event stream as a progress bar on stderr.
 
     On a terminal the bar is redrawn in place; otherwise a line is written at
-    every tenth of the sweep, so logs stay short.
+    every tenth of the sweep, so logs stay short. Times are the events' own
+    (``time``), so a recorded or made-up event stream draws the same bar.
+
+    The ETA (:meth:`eta`) says ``estimating...`` until the finished trials mean
+    something: at least one per worker and :data:`ETA_MIN_SHARE` of the trials,
+    finished at two distinct moments at least. It is then the trials left over
+    the rate of the recent finishes (the last :data:`ETA_WINDOW`), which leaves
+    out the workers' start-up that the first trial carries.
+
+    With racing, each configuration stopped is written on a line of its own
+    (which, after how many fold scores, and how many trials it saves), and the
+    trials left to run shrink accordingly.
     """
 
     def __init__(self, stream=None, quiet=False, width=24):
@@ -123,19 +160,26 @@ class Progress:
         self.width = width
         self.tty = bool(getattr(self.stream, "isatty", lambda: False)())
         self.sweep_id = None
-        self.t0 = time.perf_counter()
+        self.t0 = time.time()
+        self.now = self.t0
         self.n_todo = 0
         self.n_done = 0
+        self.workers = 1
         self.best = None
         self.problems = 0
+        self.stopped = []
+        self.finishes = collections.deque(maxlen=ETA_WINDOW)  # (time, n_done)
         self._last_tenth = -1
 
     def __call__(self, ev: dict) -> None:
         kind = ev["type"]
+        self.now = float(ev.get("time", time.time()))
         if kind == "sweep_started":
             self.sweep_id = ev["sweep_id"]
             self.n_todo = ev["n_todo"]
-            self.t0 = time.perf_counter()
+            self.workers = max(1, int(ev.get("workers") or 1))
+            self.finishes = collections.deque(maxlen=max(ETA_WINDOW, 2 * self.workers))
+            self.t0 = self.now
             if not self.quiet:
                 what = "resuming" if ev["resumed"] else "sweep"
                 self._line(f"{what} {ev['sweep_id']}: {ev['n_todo']} of {ev['n_trials']} trials "
@@ -143,29 +187,57 @@ class Progress:
                            f"{_where(ev['backend'], ev['workers'])}", newline=True)
         elif kind == "trial_finished" and ev["status"] != "cancelled":
             self.n_done = ev["n_finished"]
+            self.n_todo = ev.get("n_todo", self.n_todo)
+            self.finishes.append((self.now, self.n_done))
             if ev["status"] != "done":
                 self.problems += 1
             if ev["best_mean"] is not None:
                 self.best = (ev["best_mean"], ev["best_label"])
             self._draw()
+        elif kind == "configuration_stopped":
+            self.n_todo = ev["n_todo"]
+            self.stopped.append(ev)
+            if not self.quiet:
+                if self.tty:
+                    self.stream.write("\r\x1b[K")
+                self._line(stopped_line(ev), newline=True)
         elif kind == "sweep_finished" and not self.quiet:
             if self.tty:
                 self.stream.write("\n")
+            raced = ""
+            if self.stopped:
+                saved = sum(e["n_skipped"] for e in self.stopped)
+                n = len(self.stopped)
+                raced = (f"; racing stopped {n} configuration{'s' if n != 1 else ''} "
+                         f"({saved} trial{'s' if saved != 1 else ''} not run)")
             self._line(f"sweep {ev['sweep_id']} {ev['state']} after {_clock(ev['seconds'])}: "
-                       f"{ev['n_finished']}/{ev['n_todo']} trials run", newline=True)
+                       f"{ev['n_finished']}/{ev['n_todo']} trials run{raced}", newline=True)
+
+    def eta(self) -> float | None:
+        """Seconds left, or None while there is too little to go on (class docstring)."""
+        left = self.n_todo - self.n_done
+        if left <= 0:
+            return 0.0
+        if self.n_done < max(self.workers, math.ceil(ETA_MIN_SHARE * self.n_todo)):
+            return None
+        (t_first, n_first), (t_last, n_last) = self.finishes[0], self.finishes[-1]
+        if t_last <= t_first or n_last <= n_first:
+            return None  # every recent trial finished at one moment: no rate yet
+        rate = (n_last - n_first) / (t_last - t_first)
+        return left / rate
 
     def _draw(self):
         if self.quiet:
             return
         frac = self.n_done / self.n_todo if self.n_todo else 1.0
-        elapsed = time.perf_counter() - self.t0
-        eta = elapsed / self.n_done * (self.n_todo - self.n_done) if self.n_done else 0.0
-        filled = int(round(frac * self.width))
+        elapsed = self.now - self.t0
+        eta = self.eta()
+        filled = int(round(min(1.0, frac) * self.width))
         bar = "#" * filled + "-" * (self.width - filled)
         best = f"  best {self.best[0]:.4f} {self.best[1]}" if self.best else ""
         issues = f"  ({self.problems} not done)" if self.problems else ""
         text = (f"[{bar}] {self.n_done}/{self.n_todo}  elapsed {_clock(elapsed)}  "
-                f"ETA {_clock(eta)}{best}{issues}")
+                f"ETA {'estimating...' if eta is None else _clock(eta)}{best}{issues}")
         if self.tty:
             self.stream.write("\r" + text + "\x1b[K")
             self.stream.flush()
@@ -178,6 +250,16 @@ class Progress:
     def _line(self, text, newline=False):
         self.stream.write(text + ("\n" if newline else ""))
         self.stream.flush()
+
+
+def stopped_line(ev: dict) -> str:
+    """A ``configuration_stopped`` event in one line: which, when, why, what it saves."""
+    n = ev["n_skipped"]
+    return (f"racing: stopped {ev['label']} after repeat {ev['after_repeat'] + 1}, fold "
+            f"{ev['after_fold'] + 1} ({ev['n_scores']} fold scores): worse than "
+            f"{ev['best_label']} by {-ev['difference']:.4g} on average, P(worse beyond "
+            f"±{ev['rope']:.4g}) = {ev['p_worse']:.3f}; {n} trial{'s' if n != 1 else ''} "
+            "not run")
 
 
 def _write_json(res: dict, out: str) -> None:
@@ -233,6 +315,7 @@ class _sigterm_as_interrupt:
 
 def run(args) -> int:
     from workbench.commands.show import format_results
+    from workbench.data.profiling import parse_roles
     from workbench.sweep.bayes import check_rope
     from workbench.sweep.plan import build_plan
     from workbench.sweep.results import sweep_results
@@ -253,7 +336,7 @@ def run(args) -> int:
                           epochs=args.epochs, early_stopping=args.early_stopping,
                           metric=args.metric, engine=args.engine, seed=args.seed,
                           dtype=args.dtype, sheet=args.sheet, kind=args.kind,
-                          roles=parse_roles(args.role))
+                          roles=parse_roles(args.role), race=args.race)
         for head, why in plan.refused_heads.items():
             print(f"workbench: head {head} left out: {why}", file=sys.stderr)
         for head, why in plan.head_warnings.items():
@@ -262,6 +345,9 @@ def run(args) -> int:
         if args.file is not None or args.target is not None or args.kind or args.role:
             raise InputError("--resume takes the table and plan from the store; drop FILE, "
                              "--target, --kind and --role (a moved table: --table PATH)")
+        if args.race:
+            raise InputError("--resume races exactly when the stored sweep did (racing is part "
+                             "of its plan); drop --race")
         plan = None
     if args.table is not None and args.resume is None:
         raise InputError("--table is for --resume; a new sweep takes its table as FILE")

@@ -397,6 +397,12 @@ class SweepPlan:
         The target kind set by the user (``--kind``, the window's kind box), or
         None when the detected kind is used; :func:`workbench.sweep.runner.load_data`
         analyses the target with it, so resume and export read the target alike.
+    race : bool
+        Racing (``--race``, the window's racing check box): after each block of
+        folds, from the end of the first repeat on, stop the configurations that
+        are practically worse than the current best beyond doubt, so that none of
+        their remaining trials run (:mod:`workbench.sweep.racing` gives the rule
+        and why it protects the winner). Default False: every trial runs.
     """
 
     table: str
@@ -425,6 +431,7 @@ class SweepPlan:
     kind: str | None = None
     tune_learning_rate: bool = False
     baselines: list[str] = field(default_factory=lambda: list(BASELINES))
+    race: bool = False
 
     def __post_init__(self):
         self.validate()
@@ -513,6 +520,9 @@ class SweepPlan:
             raise InputError(f"unknown baseline {unknown[0]!r}; choose from: "
                              f"{', '.join(BASELINES)}")
         self.baselines = [b for b in BASELINES if b in baselines]  # fixed order, no repeats
+        if not isinstance(self.race, bool | np.bool_):
+            raise InputError(f"racing is on or off (true or false), not {self.race!r}")
+        self.race = bool(self.race)
         if self.dtype not in ("float32", "float64"):
             raise InputError(f"dtype must be float32 or float64, not {self.dtype!r}")
         if self.batch_size != "auto":
@@ -758,7 +768,8 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
                learning_rates=None, alphas=None, folds=5, repeats=2, epochs=200,
                early_stopping=False, metric=None, engine="auto", seed=0, batch_size="auto",
                dtype="float32", sheet=None, df=None, target_info=None,
-               baselines=BASELINES, kind=None, roles=None, profile=None) -> SweepPlan:
+               baselines=BASELINES, kind=None, roles=None, profile=None,
+               race=False) -> SweepPlan:
     """A :class:`SweepPlan` from command-line style choices.
 
     Parameters
@@ -791,6 +802,8 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
         no feature column is refused here, before any trial.
     profile : TableProfile, optional
         The table's profile, when the caller has it (else it is computed).
+    race : bool
+        Stop configurations that are worse than the best beyond doubt (racing).
     Other parameters are those of :class:`SweepPlan`.
 
     Raises
@@ -847,7 +860,7 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
                      sheet=sheet, requested_output=",".join(_split_list(output)) or "auto",
                      refused_heads=refused, head_warnings=warns, tune_learning_rate=tune,
                      baselines=list(baselines), roles=dict(roles or {}),
-                     kind=info.kind if info.kind_set_by_user else None)
+                     kind=info.kind if info.kind_set_by_user else None, race=race)
     _usable_profile(df, target, roles, profile)  # no sweep whose every trial would fail
     return plan
 

@@ -102,6 +102,11 @@ MIN_TEST_ROWS = 30
 #: the decisions a configuration can have against the best, in display order
 DECISIONS = ("best", "equivalent", "undecided", "worse")
 
+#: the status of a configuration racing stopped (:mod:`workbench.sweep.racing`): its scores
+#: are partial, it is not ranked and never recommended (its ``stopped`` field says when and
+#: why); in words, so that every table that shows the status says it as it is
+STOPPED = "stopped (racing)"
+
 #: the warnings' codes, in the order they are listed
 WARNING_CODES = ("no_network_beats_constant", "no_network_beats_linear", "few_test_rows",
                  "mostly_undecided")
@@ -147,7 +152,12 @@ def sweep_results(store, sweep_id: str, *, alpha: float = ALPHA, holm: bool = Fa
         mean over the done trials), ``diagnosis`` (``{codes, text, findings}``,
         :func:`workbench.sweep.diagnosis.add_diagnoses`) and ``calibration``
         (:func:`workbench.sweep.calibration.add_summaries`; None without stored
-        predictions). Configurations that are not
+        predictions) and ``stopped`` (None, or for a configuration racing stopped
+        ``{config_index, after_repeat, after_fold, n_scores, best_index,
+        difference, p_worse, rope, reason}``: its status is ``stopped``, its
+        scores partial, and it is neither ranked nor recommended; ``racing``
+        sums them up: ``{race, threshold, n_stopped, n_trials, n_stored,
+        stopped}``). Configurations that are not
         rankable (a trial diverged or failed, or none is stored yet) follow
         the ranked ones with ``mean`` over their done trials and no p-value;
         only configurations whose every trial is done get a decision.
@@ -172,15 +182,19 @@ def sweep_results(store, sweep_id: str, *, alpha: float = ALPHA, holm: bool = Fa
     for t in store.trials(sweep_id, with_history=False):
         by_cfg.setdefault(t["config_index"], []).append(t)
     expected = int(plan["folds"]) * int(plan["repeats"])
-    status = {c["index"]: _status(by_cfg[c["index"]], expected, sweep["state"]) for c in configs}
-    scores, n_train, n_test = _fold_scores({c["index"]: by_cfg[c["index"]] for c in configs})
+    stopped = store.stopped(sweep_id)
+    status = {c["index"]: _status(by_cfg[c["index"]], expected, sweep["state"],
+                                  stopped=c["index"] in stopped) for c in configs}
+    # a configuration racing stopped has partial scores: shown, never ranked or recommended
+    scores, n_train, n_test = _fold_scores({c["index"]: by_cfg[c["index"]] for c in configs
+                                            if c["index"] not in stopped})
     ranked = rank(scores, n_train, n_test, alpha=alpha, use_holm=holm)
     rest = sorted((c["index"] for c in configs if c["index"] not in scores),
                   key=lambda i: (_mean(t["test_score"] for t in by_cfg[i]) is None,
                                  -(_mean(t["test_score"] for t in by_cfg[i]) or 0.0), i))
     cfg_by_index = {c["index"]: c for c in configs}
     out_cfgs = [_configuration_entry(pos, cfg_by_index[i], by_cfg[i], status[i],
-                                     ranked["stats"].get(i, {}))
+                                     ranked["stats"].get(i, {}), stopped.get(i))
                 for pos, i in enumerate(ranked["order"] + rest, start=1)]
     doc = {
         "sweep_id": sweep_id,
@@ -203,6 +217,7 @@ def sweep_results(store, sweep_id: str, *, alpha: float = ALPHA, holm: bool = Fa
         "plan": plan,
         "configurations": out_cfgs,
         "baselines": _baselines(store, sweep_id, expected, sweep["state"]),
+        "racing": _racing(plan, stopped, sweep["n_trials"], sweep["n_stored"]),
     }
     _judge(doc, store, n_train, n_test, rope=rope, n_boot=n_boot, seed=seed, n_inputs=n_inputs)
     diagnosis.add_diagnoses(doc, store)
@@ -227,13 +242,34 @@ def _baselines(store, sweep_id: str, expected: int, sweep_state: str) -> list[di
     return out
 
 
-def _status(trials: list[dict], expected: int, sweep_state: str) -> str:
-    """A configuration's status from its stored trials and the sweep's state."""
+def _racing(plan: dict, stopped: dict, n_trials: int, n_stored: int) -> dict:
+    """The ``racing`` entry: whether the sweep raced, and what racing stopped."""
+    from workbench.sweep.racing import THRESHOLD
+
+    return _plain({"race": bool(plan.get("race", False)), "threshold": THRESHOLD,
+                   "n_stopped": len(stopped), "n_trials": n_trials, "n_stored": n_stored,
+                   "stopped": [_stopped_entry(r) for r in stopped.values()]})
+
+
+def _stopped_entry(r: dict) -> dict:
+    """A configuration's ``stopped`` field: when and why racing stopped it (repeat and
+    fold count from 0, as the trials')."""
+    return _plain({"config_index": r["config_index"], "after_repeat": r["after_repeat"],
+                   "after_fold": r["after_fold"], "n_scores": r["n_scores"],
+                   "best_index": r["best_index"], "difference": r["difference"],
+                   "p_worse": r["p_worse"], "rope": r["rope"], "reason": r["reason"]})
+
+
+def _status(trials: list[dict], expected: int, sweep_state: str, stopped: bool = False) -> str:
+    """A configuration's status from its stored trials and the sweep's state
+    (``stopped``: racing stopped it, so its scores are partial)."""
     statuses = {t["status"] for t in trials}
     if "failed" in statuses:
         return "failed"
     if "diverged" in statuses:
         return "diverged"
+    if stopped:
+        return STOPPED
     if len(trials) < expected:
         return {"running": "running", "interrupted": "cancelled"}.get(sweep_state, "incomplete")
     return "done"
@@ -261,8 +297,10 @@ def _fold_scores(by_cfg: dict[int, list[dict]]):
     return scores, n_train, n_test
 
 
-def _configuration_entry(rank_: int, c: dict, ts: list[dict], status: str, st: dict) -> dict:
-    """One configuration of the document: its grid point, scores, comparison and trials."""
+def _configuration_entry(rank_: int, c: dict, ts: list[dict], status: str, st: dict,
+                         stopped: dict | None = None) -> dict:
+    """One configuration of the document: its grid point, scores, comparison and trials
+    (``stopped``: the racing record of a configuration racing stopped)."""
     done = [t for t in ts if t["status"] == "done"]
     train_mean = _mean(t["train_score"] for t in done)
     done_test = _mean(t["test_score"] for t in done)
@@ -296,6 +334,7 @@ def _configuration_entry(rank_: int, c: dict, ts: list[dict], status: str, st: d
         "mean_epochs": _mean(t["epochs"] for t in done if t["epochs"] is not None),
         "dead": _health_share(ts, "dead"),
         "saturated": _health_share(ts, "saturated"),
+        "stopped": _stopped_entry(stopped) if stopped is not None else None,
         "trials": [{"repeat": t["repeat"], "fold": t["fold"], "test_score": t["test_score"],
                     "train_score": t["train_score"], "fit_seconds": t["fit_seconds"],
                     "epochs": t["epochs"], "status": t["status"], "error": t["error"],
@@ -727,6 +766,29 @@ def verdict_statements(res: dict) -> list[dict]:
                             f"{rec['reason']}"})
         out.append({"key": "score", "label": "Winner's score", "text": honest_score_text(res)})
         out.append({"key": "factors", "label": "What matters", "text": res["factors_sentence"]})
+    text = racing_text(res)
+    if text:
+        out.append({"key": "racing", "label": "Racing", "text": text})
     for w in res.get("warnings") or []:
         out.append({"key": w["code"], "label": "Warning", "text": w["text"]})
     return out
+
+
+def racing_text(res: dict) -> str | None:
+    """Which configurations racing stopped and when, in words (None when none was)."""
+    stopped = [c for c in res["configurations"] if c.get("stopped")]
+    if not stopped:
+        return None
+    parts = []
+    for c in stopped:
+        s = c["stopped"]
+        parts.append(f"rank {c['rank']} {configuration_label(c)} after repeat "
+                     f"{s['after_repeat'] + 1}, fold {s['after_fold'] + 1} "
+                     f"({s['n_scores']} scores; {len(c['trials'])} trials run)")
+    racing = res.get("racing") or {}
+    saved = (racing.get("n_trials") or 0) - (racing.get("n_stored") or 0)
+    return (f"{len(stopped)} configuration{'s' if len(stopped) != 1 else ''} {STOPPED}, "
+            f"practically worse than the best beyond doubt (P(worse) >= "
+            f"{racing.get('threshold', 0.99):g}, Bayesian correlated t-test), "
+            f"{saved} trial{'s' if saved != 1 else ''} not run; their scores are partial and "
+            f"they are not eligible for the recommendation: " + "; ".join(parts) + ".")

@@ -45,9 +45,26 @@ Events
 ``{"type": "baseline_finished", "sweep_id", "config_index", "name", "repeat",
 "fold", "status", "test_score", "time"}``
     when a baseline's trial is stored;
+``{"type": "configuration_stopped", "sweep_id", "config_index", "label",
+"after_repeat", "after_fold", "n_scores", "best_index", "best_label",
+"difference", "p_worse", "rope", "reason", "n_skipped", "n_todo", "time"}``
+    with racing (``plan.race``), when a configuration is stopped: ``n_skipped``
+    of its trials will not run, and ``n_todo`` is the new number of trials to
+    run (the later ``trial_finished`` events carry it too);
 ``{"type": "sweep_finished", "sweep_id", "state", "n_finished", "n_todo",
 "seconds", "time"}``
     once at the end; ``state`` is ``finished`` or ``interrupted``.
+
+Racing
+------
+With ``plan.race`` the runner keeps a :class:`workbench.sweep.racing.Race`: every
+stored trial is noted, and after each one the race makes the looks whose block
+of folds is complete; a configuration it stops is recorded in the store
+(:meth:`workbench.sweep.store.Store.add_stopped`) and its trials still waiting
+are dropped (a trial of it already running finishes and is stored). A resumed
+racing sweep reads the stopped configurations, skips their trials and replays
+the looks on the stored scores. The same on every backend: the race lives in
+the calling process.
 
 Counts (``n_trials``, ``n_todo``, ``n_stored``, ``n_finished``) and the
 ``trial_*`` events are about the networks' trials; the baselines' trials
@@ -314,12 +331,16 @@ def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, can
                              setting="table")
         sweep_id = resume
         done = store.finished_keys(sweep_id, baselines=True)
+        stopped = store.stopped(sweep_id)
     else:
         data, fingerprint = load_data(plan)
-        done = set()
+        done, stopped = set(), {}
     folds = plan.fold_indices(data.y)  # an impossible split fails before anything is stored
-    todo = [t for t in plan.trials() if t.key not in done]
+    todo = [t for t in plan.trials() if t.key not in done and t.config_index not in stopped]
     todo_baselines = [t for t in plan.baseline_trials() if t.key not in done]
+    if resume is not None and not todo and not todo_baselines and stopped:
+        raise InputError(f"sweep {resume} has run every trial that racing left to run; its "
+                         "results are stored, there is nothing left to run", setting="sweep")
     if cluster is not None:
         executor = _DaskExecutor(cluster, data)
     elif backend == "inline":
@@ -354,6 +375,12 @@ def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, can
     run = _Run(plan, configs, folds, sweep_id, store, emit, cancel, len(todo))
     for t in store.trials(sweep_id, with_history=False):
         run.note_score(t)
+    if plan.race:
+        from workbench.sweep.racing import Race
+
+        run.race = Race(plan, stopped)
+        for t in store.trials(sweep_id, with_history=False) + store.baseline_trials(sweep_id):
+            run.race.note(t)
     n_stored = sum(1 for key in done if key[0] < plan.n_configurations)
     emit({"type": "sweep_started", "sweep_id": sweep_id, "n_trials": plan.n_trials,
           "n_todo": len(todo), "n_stored": n_stored, "n_configurations": plan.n_configurations,
@@ -379,7 +406,7 @@ def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, can
     executor.close(kill=interrupted)
     store.set_state(sweep_id, state)
     emit(run.finished_event(state, t0))
-    return SweepOutcome(sweep_id, state, run.n_finished, len(todo), time.perf_counter() - t0)
+    return SweepOutcome(sweep_id, state, run.n_finished, run.n_todo, time.perf_counter() - t0)
 
 
 def _mark_interrupted(store: Store, sweep_id: str) -> None:
@@ -400,6 +427,8 @@ class _Run:
         self.sums = collections.defaultdict(lambda: [0.0, 0])
         self.bad = set()
         self.running = {}  # handle -> (trial, attempt)
+        self.race = None  # a workbench.sweep.racing.Race when the plan races
+        self.pending = collections.deque()  # (trial, attempt) not handed out yet
 
     def spec(self, trial, attempt):
         tr, te = self.folds[(trial.repeat, trial.fold)]
@@ -425,7 +454,9 @@ class _Run:
             self.bad.add(c)
 
     def best(self):
-        means = {c: s[0] / s[1] for c, s in self.sums.items() if s[1] and c not in self.bad}
+        stopped = self.race.stopped if self.race is not None else {}
+        means = {c: s[0] / s[1] for c, s in self.sums.items()
+                 if s[1] and c not in self.bad and c not in stopped}
         if not means:
             return None, None
         c = max(means, key=lambda k: (means[k], -k))
@@ -445,16 +476,41 @@ class _Run:
         except sqlite3.IntegrityError:
             # stored meanwhile by another process resuming the same sweep: keep that copy
             pass
+        if self.race is not None:
+            self.race.note(res)
         if self.is_baseline(res["config_index"]):
             self.emit({"type": "baseline_finished", "sweep_id": self.sweep_id,
                        "config_index": res["config_index"],
                        "name": self.configs[res["config_index"]].name, "repeat": res["repeat"],
                        "fold": res["fold"], "status": res["status"],
                        "test_score": res.get("test_score"), "time": time.time()})
-            return
-        self.n_finished += 1
-        self.note_score(res)
-        self._emit_finished(res)
+        else:
+            self.n_finished += 1
+            self.note_score(res)
+        if self.race is not None:
+            self.race_look()
+        if not self.is_baseline(res["config_index"]):
+            self._emit_finished(res)
+
+    def race_look(self):
+        """Make the race's due looks; record, announce and drop the trials of each
+        configuration it stops."""
+        for rec in self.race.look():
+            c = rec["config_index"]
+            self.store.add_stopped(self.sweep_id, rec)
+            before = len(self.pending)
+            self.pending = collections.deque((t, a) for t, a in self.pending
+                                             if t.config_index != c)
+            skipped = before - len(self.pending)
+            self.n_todo -= skipped
+            self.emit({"type": "configuration_stopped", "sweep_id": self.sweep_id,
+                       "config_index": c, "label": self.configs[c].label,
+                       "after_repeat": rec["after_repeat"], "after_fold": rec["after_fold"],
+                       "n_scores": rec["n_scores"], "best_index": rec["best_index"],
+                       "best_label": self.configs[rec["best_index"]].label,
+                       "difference": rec["difference"], "p_worse": rec["p_worse"],
+                       "rope": rec["rope"], "reason": rec["reason"], "n_skipped": skipped,
+                       "n_todo": self.n_todo, "time": time.time()})
 
     def _emit_finished(self, res):
         b, m = self.best()
@@ -495,13 +551,15 @@ class _Run:
 
     def execute(self, executor, todo, retries) -> bool:
         """Run ``todo``; True when cancelled before the end."""
-        pending = collections.deque((t, 1) for t in todo)
+        self.pending = collections.deque((t, 1) for t in todo)
         suspects = collections.deque()  # retries after a worker death, run alone
-        while pending or suspects or self.running:
+        if self.race is not None:
+            self.race_look()  # a resumed race: replay the looks, record any not recorded
+        while self.pending or suspects or self.running:
             if self.cancel.is_set():
                 self.cancel_running()
                 return True
-            self._fill(executor, pending, suspects)
+            self._fill(executor, suspects)
             # a trial that finished is stored even when a cancel came meanwhile
             to_store = []
             for handle, outcome, error in executor.wait(list(self.running), POLL_SECONDS):
@@ -515,20 +573,20 @@ class _Run:
                     to_store.append(self.lost(trial, attempt, error))
             if to_store and executor.asynchronous and not self.cancel.is_set():
                 # hand the idle workers new trials before the commit, so they never wait for it
-                self._fill(executor, pending, suspects)
+                self._fill(executor, suspects)
             for res in to_store:
                 self.finished(res)
         return False
 
-    def _fill(self, executor, pending, suspects):
+    def _fill(self, executor, suspects):
         """Give free workers trials; a retried trial runs only on an otherwise idle pool."""
         while len(self.running) < executor.workers:
             if suspects:
                 if self.running:
                     return
                 trial, attempt = suspects.popleft()
-            elif pending:
-                trial, attempt = pending.popleft()
+            elif self.pending:
+                trial, attempt = self.pending.popleft()
             else:
                 return
             handle = executor.submit(self.spec(trial, attempt))

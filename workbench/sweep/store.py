@@ -42,6 +42,15 @@ Layout (schema version :data:`SCHEMA_VERSION`, kept in SQLite's ``user_version``
     classes for a classifier) and ``vals``: float32 little-endian,
     ``n_rows x n_columns`` row-major, the rows being the fold's test rows in
     ascending order (those with ``folds[repeat] == fold``).
+``stopped`` (schema 3)
+    the configurations a racing sweep stopped (:mod:`workbench.sweep.racing`), one
+    row each, written the moment the decision is made: ``sweep_id, config_index``
+    (the key: a configuration is stopped once and stays stopped, also on resume),
+    ``after_repeat, after_fold`` (the last block of folds the decision saw, from 0),
+    ``n_scores`` (the paired fold scores it rested on), ``best_index`` (the best
+    configuration it was compared with), ``difference`` (mean paired difference,
+    negative: worse), ``p_worse``, ``rope``, ``threshold``, ``reason`` (the decision
+    in words) and ``stopped`` (ISO-8601 UTC).
 
 The database runs in WAL mode, so the window and the export can read while a
 sweep writes (with their own :class:`Store` on the same file, or sharing one:
@@ -97,7 +106,7 @@ import numpy as np
 from workbench.data.hashing import sha256_of
 from workbench.errors import InputError
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 STORE_FILENAME = "sweeps.sqlite"
 
 RUNNING, FINISHED, INTERRUPTED = "running", "finished", "interrupted"
@@ -182,10 +191,29 @@ CREATE TABLE predictions (
 );
 """
 
+#: schema 3: the configurations a racing sweep stopped
+_SCHEMA_V3 = """
+CREATE TABLE stopped (
+    sweep_id TEXT NOT NULL REFERENCES sweeps(id),
+    config_index INTEGER NOT NULL,
+    after_repeat INTEGER NOT NULL,
+    after_fold INTEGER NOT NULL,
+    n_scores INTEGER NOT NULL,
+    best_index INTEGER NOT NULL,
+    difference REAL,
+    p_worse REAL,
+    rope REAL,
+    threshold REAL,
+    reason TEXT NOT NULL,
+    stopped TEXT NOT NULL,
+    PRIMARY KEY (sweep_id, config_index)
+);
+"""
+
 #: migration steps: MIGRATIONS[v] upgrades a store from version v to v + 1; a new
 #: store is made at version 1 and brought up by the same steps, so a new and a
 #: migrated store have the same tables
-MIGRATIONS: dict[int, str] = {1: _SCHEMA_V2}
+MIGRATIONS: dict[int, str] = {1: _SCHEMA_V2, 2: _SCHEMA_V3}
 
 #: little-endian storage types of the arrays kept as BLOBs
 _F32, _F64, _I32 = "<f4", "<f8", "<i4"
@@ -842,6 +870,35 @@ class Store:
                  np.ascontiguousarray(values, dtype=_F32).tobytes())))
         self._tx(stmts)
 
+    def add_stopped(self, sweep_id: str, record: dict) -> None:
+        """Record that racing stopped a configuration (the ``stopped`` table).
+
+        ``record``: ``config_index, after_repeat, after_fold, n_scores, best_index,
+        difference, p_worse, rope, threshold, reason``. A configuration already
+        recorded keeps its first record (a resumed race that decides it again).
+        """
+        r = record
+        self._tx([(
+            "INSERT OR IGNORE INTO stopped (sweep_id, config_index, after_repeat, after_fold, "
+            "n_scores, best_index, difference, p_worse, rope, threshold, reason, stopped) "
+            "VALUES (?,?,?,?,?,?,?,?,?,?,?,?)",
+            (sweep_id, int(r["config_index"]), int(r["after_repeat"]), int(r["after_fold"]),
+             int(r["n_scores"]), int(r["best_index"]), _real(r.get("difference")),
+             _real(r.get("p_worse")), _real(r.get("rope")), _real(r.get("threshold")),
+             str(r["reason"]), now_iso()))])
+
+    def stopped(self, sweep_id: str) -> dict[int, dict]:
+        """The configurations racing stopped: ``{config_index: record}`` (see
+        :meth:`add_stopped`; plus ``stopped``, the time), empty for a sweep without
+        racing."""
+        out = {}
+        for r in self._rows("SELECT * FROM stopped WHERE sweep_id=? ORDER BY config_index",
+                            (sweep_id,)):
+            d = dict(r)
+            d.pop("sweep_id")
+            out[int(d["config_index"])] = d
+        return out
+
     # ------------------------------------------------------------------ reading
     def _sweep_dict(self, row) -> dict:
         d = dict(row)
@@ -1070,6 +1127,14 @@ def _json_field(text: str, what: str, path) -> object:
         raise InputError(f"{what} in {path} is damaged (not readable JSON: {exc}); the store "
                          "was left as it is; the other sweeps can still be read",
                          setting="sweep") from None
+
+
+def _real(v):
+    """A float for a REAL column; None for a missing or non-finite value."""
+    if v is None:
+        return None
+    v = float(v)
+    return v if np.isfinite(v) else None
 
 
 def _values(row) -> np.ndarray:

@@ -1,0 +1,331 @@
+"""Racing (``SweepPlan.race``, ``workbench sweep --race``): the rule, the runner, resume, results.
+
+External references: the stopping rule is checked against SciPy's Student t
+distribution with the posterior of Benavoli et al. (2017, section 3: location the
+mean difference, scale ``sqrt((1/J + rho/(1-rho)) s^2)``, ``J - 1`` degrees of
+freedom; ``rho/(1-rho) = n_test/n_train``, Nadeau & Bengio 2003), not against the
+project's own :mod:`workbench.sweep.bayes`; the tables are scikit-learn's
+``load_diabetes`` and one made here with a known signal.
+"""
+
+import json
+import threading
+
+import numpy as np
+import pytest
+from scipy import stats
+from sklearn.datasets import load_diabetes
+
+from workbench.sweep import racing
+from workbench.sweep.plan import SweepPlan, build_plan
+from workbench.sweep.results import STOPPED, sweep_results, verdict_statements
+from workbench.sweep.runner import run_sweep
+from workbench.sweep.store import Store
+
+K, R = 5, 2
+
+
+def _plan(n_configs=2, **kw):
+    hidden = ["relu", "tanh", "gelu", "silu", "elu"][:n_configs]
+    return SweepPlan(table="t.csv", target="y", task="regression", target_kind="signed",
+                     hidden=hidden, heads=["identity"], folds=K, repeats=R, baselines=[],
+                     race=True, **kw)
+
+
+def _feed(race, scores, n_train=400, n_test=100, upto=None):
+    """Give ``race`` the scores ``{config: [J scores in (repeat, fold) order]}`` block by
+    block, looking after each; return the stop records in order."""
+    stops = []
+    for j, (r, f) in enumerate(racing.block_keys(K, R)):
+        if upto is not None and j >= upto:
+            break
+        for c, s in scores.items():
+            if c in race.stopped:
+                continue
+            race.note({"config_index": c, "repeat": r, "fold": f, "status": "done",
+                       "test_score": s[j], "n_train": n_train, "n_test": n_test})
+        stops += race.look()
+    return stops
+
+
+def _scipy_p_worse(d, rope, n_train=400, n_test=100):
+    """P(mean difference < -rope) of Benavoli et al.'s posterior, with SciPy's t."""
+    d = np.asarray(d, float)
+    J = d.size
+    scale = np.sqrt((1 / J + n_test / n_train) * d.var(ddof=1))
+    return stats.t.cdf(-rope, J - 1, loc=d.mean(), scale=scale)
+
+
+@pytest.mark.parametrize("beyond", [True, False])
+def test_the_stop_is_at_p_worse_099_beyond_the_rope_by_scipys_t(beyond):
+    """Differences placed just past (or just short of) the 0.99 quantile: stopped exactly
+    when SciPy's posterior tail below -ROPE reaches 0.99, at the first look (J = K)."""
+    u, rope = 0.01, 0.01  # r2: the ROPE is 0.01
+    e = np.array([-2, -1, 0, 1, 2]) * u
+    scale = np.sqrt((1 / K + 1 / (K - 1)) * e.var(ddof=1))
+    m = -rope - stats.t.ppf(0.99, K - 1) * scale + (-1e-4 if beyond else 1e-4)
+    best = np.full(K * R, 0.8)
+    other = np.concatenate([best[:K] + m + e, best[K:]])
+    assert bool(_scipy_p_worse(m + e, rope) >= 0.99) is beyond
+    race = racing.Race(_plan())
+    stops = _feed(race, {0: best, 1: other}, upto=K)
+    assert [s["config_index"] for s in stops] == ([1] if beyond else [])
+    if beyond:
+        s = stops[0]
+        assert (s["after_repeat"], s["after_fold"], s["n_scores"], s["best_index"]) == \
+            (0, K - 1, K, 0)
+        assert s["p_worse"] == pytest.approx(_scipy_p_worse(m + e, rope), abs=1e-9)
+        assert s["rope"] == rope and s["difference"] == pytest.approx(m)
+
+
+def test_no_look_before_the_first_repeat_is_complete():
+    """A hopeless configuration is not stopped on K - 1 scores however bad it is."""
+    best = np.full(K * R, 0.8) + np.linspace(0, 0.01, K * R)
+    hopeless = best - 0.7 + np.linspace(0, 0.001, K * R)
+    race = racing.Race(_plan())
+    assert _feed(race, {0: best, 1: hopeless}, upto=K - 1) == []
+    assert _feed(racing.Race(_plan()), {0: best, 1: hopeless}, upto=K)[0]["config_index"] == 1
+
+
+def test_a_late_winner_behind_at_the_first_look_is_not_stopped_and_ranks_first():
+    """The full sweep's first-ranked configuration (0) trails the early leader (1) over the
+    first repeat by more than the ROPE, but noisily: racing keeps it, and a hopeless one
+    (2) is stopped. The full ranking (means over every fold) puts 0 first."""
+    rng = np.random.default_rng(3)
+    base = 0.7 + rng.normal(0, 0.02, K * R)
+    winner = base + np.concatenate([[-0.05, 0.04, -0.06, 0.03, -0.07],
+                                    [0.08, 0.06, 0.09, 0.07, 0.08]])
+    leader = base + 0.01
+    hopeless = base - 0.5 + rng.normal(0, 0.005, K * R)
+    scores = {0: winner, 1: leader, 2: hopeless}
+    assert max(scores, key=lambda c: scores[c].mean()) == 0  # first in the full sweep
+    assert winner[:K].mean() < leader[:K].mean() - 0.01  # behind beyond the ROPE at first
+    race = racing.Race(_plan(3))
+    stops = _feed(race, scores)
+    assert [s["config_index"] for s in stops] == [2]
+    assert 0 not in race.stopped
+
+
+def test_the_current_best_and_a_diverged_configuration_are_never_stopped():
+    best = np.full(K * R, 0.8)
+    race = racing.Race(_plan(3))
+    for j, (r, f) in enumerate(racing.block_keys(K, R)):
+        race.note({"config_index": 0, "repeat": r, "fold": f, "status": "done",
+                   "test_score": best[j], "n_train": 400, "n_test": 100})
+        race.note({"config_index": 1, "repeat": r, "fold": f, "status": "diverged",
+                   "test_score": None})
+        race.note({"config_index": 2, "repeat": r, "fold": f, "status": "done",
+                   "test_score": 0.8 - 0.3 + 0.001 * j, "n_train": 400, "n_test": 100})
+    stops = race.look()
+    assert [s["config_index"] for s in stops] == [2] and stops[0]["best_index"] == 0
+
+
+def test_an_error_score_waits_for_the_constant_baseline_and_takes_its_rope():
+    """neg_root_mean_squared_error: the ROPE is 1 % of the constant baseline's mean score
+    (Benavoli et al.'s relative ROPE as the verdict uses it); no look before its trials."""
+    plan = SweepPlan(table="t.csv", target="y", task="regression", target_kind="signed",
+                     hidden=["relu", "tanh"], heads=["identity"], folds=K, repeats=R,
+                     baselines=["constant"], metric="neg_root_mean_squared_error", race=True)
+    race = racing.Race(plan)
+    best = np.full(K * R, -10.0) + np.linspace(0, 0.1, K * R)
+    _feed(race, {0: best, 1: best - 5})
+    assert race.stopped == {}  # the constant baseline (index 2) has no trial yet
+    for r, f in racing.block_keys(K, R):
+        race.note({"config_index": 2, "repeat": r, "fold": f, "status": "done",
+                   "test_score": -20.0, "n_train": 400, "n_test": 100})
+    (stop,) = race.look()
+    assert stop["config_index"] == 1 and stop["rope"] == pytest.approx(0.2)
+    assert (stop["after_repeat"], stop["after_fold"]) == (0, K - 1)  # at the first block
+
+
+# --------------------------------------------------------------------------- real sweeps
+
+
+@pytest.fixture(scope="module")
+def table(tmp_path_factory):
+    """A regression table with a strong signal: lr 0.03 learns it, lr 1e-6 cannot."""
+    d = tmp_path_factory.mktemp("racing")
+    load_diabetes(as_frame=True).frame.iloc[:240].to_csv(d / "d.csv", index=False)
+    return d / "d.csv"
+
+
+def _race_plan(table, race=True, **kw):
+    opts = dict(hidden="relu,tanh", output="identity", layers=["8"],
+                learning_rates=["0.03", "0.000001"], folds=3, repeats=3, epochs=15,
+                baselines=["constant"])
+    opts.update(kw)
+    return build_plan(table, "target", race=race, **opts)
+
+
+def _stored(st, sweep_id):
+    return {(t["config_index"], t["repeat"], t["fold"]): t["test_score"]
+            for t in st.trials(sweep_id, with_history=False)}
+
+
+@pytest.fixture(scope="module")
+def full_and_raced(table, tmp_path_factory):
+    path = tmp_path_factory.mktemp("racing_store") / "s.sqlite"
+    events = []
+    with Store(path) as st:
+        full = run_sweep(_race_plan(table, race=False), store=st, backend="inline")
+        raced = run_sweep(_race_plan(table), store=st, backend="inline",
+                          on_event=events.append)
+        yield {"store": path, "full": full.sweep_id, "raced": raced.sweep_id,
+               "events": events, "full_res": sweep_results(st, full.sweep_id),
+               "raced_res": sweep_results(st, raced.sweep_id),
+               "full_scores": _stored(st, full.sweep_id),
+               "raced_scores": _stored(st, raced.sweep_id),
+               "stopped": st.stopped(raced.sweep_id), "outcome": raced}
+
+
+def test_hopeless_learning_rates_are_stopped_and_their_trials_saved(full_and_raced):
+    """lr 1e-6 (configurations 1 and 3: relu and tanh) cannot fit the target in 15 epochs:
+    both are stopped within the first two repeats, their later trials are never run, and
+    the racing sweep stores exactly the full sweep's scores for the trials it ran (same
+    folds, same seeds)."""
+    fr = full_and_raced
+    assert set(fr["stopped"]) == {1, 3}
+    blocks = racing.block_keys(3, 3)
+    saved = 0
+    for c in (1, 3):
+        s = fr["stopped"][c]
+        j = blocks.index((s["after_repeat"], s["after_fold"]))
+        assert 2 <= j < 6 and s["n_scores"] == j + 1  # from the first look, before repeat 3
+        assert {k for k in fr["raced_scores"] if k[0] == c} == \
+            {(c, r, f) for r, f in blocks[:j + 1]}
+        saved += 9 - (j + 1)
+    assert len(fr["raced_scores"]) == 4 * 9 - saved
+    assert all(fr["raced_scores"][k] == fr["full_scores"][k] for k in fr["raced_scores"])
+    stops = [e for e in fr["events"] if e["type"] == "configuration_stopped"]
+    assert sorted(e["config_index"] for e in stops) == [1, 3]
+    assert sum(e["n_skipped"] for e in stops) == saved
+    n = 36 - saved
+    assert fr["outcome"].n_todo == fr["outcome"].n_finished == n
+    last = [e for e in fr["events"] if e["type"] == "trial_finished"][-1]
+    assert last["n_todo"] == last["n_finished"] == n
+
+
+def test_the_full_sweeps_first_is_kept_and_recommended_alike(full_and_raced):
+    fr = full_and_raced
+    first = fr["full_res"]["configurations"][0]["index"]
+    assert first not in fr["stopped"]
+    assert fr["raced_res"]["verdict"]["recommended"]["index"] == \
+        fr["full_res"]["verdict"]["recommended"]["index"]
+    assert fr["raced_res"]["configurations"][0]["index"] == first
+
+
+def test_results_mark_stopped_configurations_as_partial(full_and_raced):
+    res = full_and_raced["raced_res"]
+    json.dumps(res, allow_nan=False)
+    by = {c["index"]: c for c in res["configurations"]}
+    for c in (1, 3):
+        cfg = by[c]
+        assert cfg["status"] == STOPPED == "stopped (racing)"
+        n = cfg["stopped"]["n_scores"]
+        assert n < 9 and "beyond doubt" in cfg["stopped"]["reason"]
+        assert cfg["n_scores"] == n and len(cfg["trials"]) == n  # partial
+        assert cfg["p_value"] is None and cfg["decision"] is None  # not ranked or judged
+        assert cfg["mean"] == pytest.approx(np.mean([t["test_score"] for t in cfg["trials"]]))
+    assert [c["index"] for c in res["configurations"][-2:]] in ([1, 3], [3, 1])
+    for c in (0, 2):
+        assert by[c]["stopped"] is None and by[c]["status"] == "done"
+    assert res["verdict"]["recommended"]["index"] in (0, 2)
+    assert res["racing"]["n_stopped"] == 2 and res["racing"]["race"] is True
+    statements = {s["key"]: s["text"] for s in verdict_statements(res)}
+    assert "2 configurations stopped (racing)" in statements["racing"]
+    saved = 36 - len(full_and_raced["raced_scores"])
+    assert f"{saved} trials not run" in statements["racing"]
+    # the baselines ran fully: the verdict's comparison with them has every fold
+    assert len(res["baselines"][0]["scores"]) == 9
+
+
+def test_resume_keeps_the_race(table, tmp_path, full_and_raced):
+    """Interrupted right after the first stop: the resumed sweep keeps it stopped, runs
+    none of its trials, stops the other hopeless one too and ends with the uninterrupted
+    racing sweep's trials and scores. Then, a stop decided but not recorded before an
+    interruption (its row deleted) is recorded again by the resume's replay."""
+    cancel = threading.Event()
+
+    def stop_at_first(ev):
+        if ev["type"] == "configuration_stopped":
+            cancel.set()
+
+    with Store(tmp_path / "r.sqlite") as st:
+        first = run_sweep(_race_plan(table), store=st, backend="inline", cancel=cancel,
+                          on_event=stop_at_first)
+        assert first.state == "interrupted"
+        before = st.stopped(first.sweep_id)
+        assert 1 <= len(before) <= 2
+        again = run_sweep(store=st, resume=first.sweep_id, backend="inline")
+        assert again.state == "finished"
+        after = st.stopped(first.sweep_id)
+        assert {c: after[c] for c in before} == before and set(after) == {1, 3}
+        assert _stored(st, first.sweep_id) == full_and_raced["raced_scores"]
+        from workbench.errors import InputError
+
+        with pytest.raises(InputError, match="nothing left to run"):
+            run_sweep(store=st, resume=first.sweep_id, backend="inline")
+
+    cancel2 = threading.Event()
+    with Store(tmp_path / "u.sqlite") as st:
+        out = run_sweep(_race_plan(table), store=st, backend="inline", cancel=cancel2,
+                        on_event=lambda ev: cancel2.set()
+                        if ev["type"] == "configuration_stopped" else None)
+        st._tx([("DELETE FROM stopped WHERE sweep_id=?", (out.sweep_id,))])
+        events = []
+        run_sweep(store=st, resume=out.sweep_id, backend="inline", on_event=events.append)
+        assert set(st.stopped(out.sweep_id)) == {1, 3}
+        assert _stored(st, out.sweep_id) == full_and_raced["raced_scores"]
+        assert sorted(e["config_index"] for e in events
+                      if e["type"] == "configuration_stopped") == [1, 3]
+
+
+def test_racing_on_two_processes_and_dask_stops_alike(table, tmp_path, full_and_raced):
+    """The looks are at fixed blocks, so the decisions do not depend on when trials finish:
+    the same stops with 2 worker processes and on a Dask cluster; the stored scores of
+    every trial run equal the full sweep's."""
+    from distributed import LocalCluster
+
+    with Store(tmp_path / "p.sqlite") as st:
+        two = run_sweep(_race_plan(table), store=st, jobs=2)
+        with LocalCluster(n_workers=1, threads_per_worker=2, processes=False, protocol="tcp",
+                          dashboard_address=None) as cluster:
+            dask = run_sweep(_race_plan(table), store=st, cluster=cluster.scheduler_address)
+        for out in (two, dask):
+            stopped = st.stopped(out.sweep_id)
+            assert {c: (s["after_repeat"], s["after_fold"]) for c, s in stopped.items()} == \
+                {c: (s["after_repeat"], s["after_fold"])
+                 for c, s in full_and_raced["stopped"].items()}
+            scores = _stored(st, out.sweep_id)
+            assert all(scores[k] == full_and_raced["full_scores"][k] for k in scores)
+            # a trial of a stopped configuration already running may finish: at most one
+            # per worker beyond the uninterrupted inline race
+            n = len(full_and_raced["raced_scores"])
+            assert n <= len(scores) <= n + 2 * 2
+
+
+def test_replay_gives_the_racing_sweeps_decisions(full_and_raced):
+    """:func:`racing.replay` on the full sweep's stored scores stops what the racing sweep
+    stopped, after the same block, and needs the trials the inline racing sweep ran."""
+    fr = full_and_raced
+    with Store(fr["store"]) as st:
+        plan = SweepPlan.from_dict(st.get_sweep(fr["full"])["plan"])
+        plan.race = True
+        out = racing.replay(plan, st.trials(fr["full"], with_history=False),
+                            st.baseline_trials(fr["full"]))
+    assert {c: (s["after_repeat"], s["after_fold"]) for c, s in out["stopped"].items()} == \
+        {c: (s["after_repeat"], s["after_fold"]) for c, s in fr["stopped"].items()}
+    assert out["n_trials_needed"] == len(fr["raced_scores"])
+
+
+def test_plan_race_is_a_plain_bool_kept_in_the_plan(table):
+    plan = _race_plan(table)
+    assert SweepPlan.from_dict(json.loads(json.dumps(plan.to_dict()))).race is True
+    old = plan.to_dict()
+    old.pop("race")
+    assert SweepPlan.from_dict(old).race is False  # a plan stored before racing existed
+    from workbench.errors import InputError
+
+    with pytest.raises(InputError, match="racing is on or off"):
+        SweepPlan.from_dict(dict(plan.to_dict(), race="yes"))
+
