@@ -241,7 +241,9 @@ def test_history_has_one_entry_per_epoch(data):
     assert m.n_iter_ == 7
     assert h["loss"] == m.loss_curve_
     for key in ("dead", "saturated", "grad_norm"):
-        assert len(h[key]) == 7
+        assert len(h[key]) == 7  # the first ten epochs are all measured
+    assert h["health_epoch"] == [1, 2, 3, 4, 5, 6, 7]
+    assert h["test_loss"] == h["test_score"] == []  # no held-out rows given
     for dead, sat, gn in zip(h["dead"], h["saturated"], h["grad_norm"]):
         assert len(dead) == len(sat) == 2  # one share per hidden layer
         assert all(0.0 <= v <= 1.0 for v in dead + sat)
@@ -254,8 +256,32 @@ def test_history_has_one_entry_per_epoch(data):
 def test_history_with_early_stopping_records_validation_scores(data):
     X, y = data
     m = NetRegressor((6,), early_stopping=True, max_iter=15, random_state=0).fit(X, y)
-    assert len(m.history_["val_score"]) == m.n_iter_ == len(m.history_["dead"])
+    assert len(m.history_["val_score"]) == m.n_iter_ == len(m.history_["loss"])
     assert m.history_["val_score"] == m.validation_scores_
+    assert len(m.history_["dead"]) == len(m.history_["health_epoch"])
+
+
+def test_health_schedule_measures_the_first_epochs_every_fifth_and_the_last(data):
+    """Health on a schedule (issue 14): epochs 1-10, then every fifth, and the last one,
+    whatever stopped the fit; ``health_epoch`` names them and ``health_`` is the last."""
+    X, y = data
+    m = NetRegressor((6,), max_iter=23, random_state=0).fit(X, y)
+    h = m.history_
+    assert h["health_epoch"] == [1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 15, 20, 23]
+    assert len(h["dead"]) == len(h["saturated"]) == len(h["grad_norm"]) == 13
+    assert m.health_["grad_norm"] == h["grad_norm"][-1]
+    # the last epoch's health is what measure() gives for the parameters fit returns
+    from workbench.nets.engine import health_due
+    from workbench.nets.health import PROBE_ROWS, network_health
+
+    got = network_health(m.coefs_, m.intercepts_, "relu", "identity", "regression",
+                         X[:PROBE_ROWS], y[:PROBE_ROWS].reshape(-1, 1))
+    np.testing.assert_allclose(h["grad_norm"][-1], got["grad_norm"], rtol=1e-4)
+    assert [e for e in range(1, 31) if health_due(e)] == [*range(1, 11), 15, 20, 25, 30]
+    # a warm start goes on counting: epoch 24 is not due but is the last of that fit
+    m.set_params(warm_start=True, max_iter=2)
+    m.fit(X, y)
+    assert m.history_["health_epoch"][-2:] == [23, 25]
 
 
 def _warm_continue(model, X, y, **changes):

@@ -11,8 +11,9 @@ untrained network predicts the training mean, see ``_BaseNet._start_at_the_mean`
 and the stopping rule reads the loss relative to that constant predictor's loss,
 so that heads whose losses differ in scale stop alike. Beyond scikit-learn they
 accept every hidden activation of :mod:`workbench.nets.activations` (one for all layers
-or one per layer), every output head with its matched loss, and record the health
-of each hidden layer per epoch (dead units, saturated units, gradient norms).
+or one per layer), every output head with its matched loss, record the health
+of each hidden layer during training (dead units, saturated units, gradient norms)
+and, given held-out rows at fit time, their loss and score after every epoch.
 
 The parts live beside this module: the registry of activations and heads
 (:mod:`~workbench.nets.activations`), the losses (:mod:`~workbench.nets.losses`),
@@ -58,7 +59,7 @@ from workbench.nets.health import PROBE_ROWS, measure, network_health
 from workbench.nets.network import Network, with_ones
 from workbench.nets.optimizers import AdamOptimizer, SGDOptimizer
 
-__all__ = ["NetRegressor", "NetClassifier", "DivergenceWarning", "network_health"]
+__all__ = ["NetRegressor", "NetClassifier", "DivergenceWarning", "network_health", "health_due"]
 
 
 class DivergenceWarning(UserWarning):
@@ -161,6 +162,31 @@ class _TrainingData(NamedTuple):
     probe_X: np.ndarray  # health probe rows, with the ones
     probe_y: np.ndarray
     batch_size: int
+
+
+class _HeldOut(NamedTuple):
+    """Rows the network never trains on, watched after every epoch for display only."""
+
+    X: np.ndarray  # features in the network's dtype, without the ones
+    y: np.ndarray  # targets as the network sees them (scaled target, 0/1 label columns)
+    score: object  # callable(predictions) -> float, or None
+
+
+#: layer health is measured after each of the first this many epochs ...
+HEALTH_EVERY_EPOCH_UNTIL = 10
+#: ... then after every this many-th epoch, and always after the last (a schedule that
+#: keeps the curves drawable at a fifth of the cost; a choice, not from a source)
+HEALTH_STRIDE = 5
+
+
+def health_due(epoch: int) -> bool:
+    """Whether layer health is measured after ``epoch`` (1-based, counted over the whole
+    history, warm starts included); the last epoch of a fit is measured in any case.
+
+    >>> [e for e in range(1, 31) if health_due(e)]
+    [1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 15, 20, 25, 30]
+    """
+    return epoch <= HEALTH_EVERY_EPOCH_UNTIL or epoch % HEALTH_STRIDE == 0
 
 
 def _epoch_rows(X, y, shuffle, random_state):
@@ -301,21 +327,34 @@ class _BaseNet(BaseEstimator):
         return y
 
     # -- fit ----------------------------------------------------------------------
-    def fit(self, X, y):
+    def fit(self, X, y, *, held_out=None, held_out_score=None):
         """Fit the network to ``X`` and ``y``.
 
         Parameters
         ----------
         X : array-like of shape (n_samples, n_features)
         y : array-like of shape (n_samples,) or (n_samples, n_outputs)
+        held_out : tuple (X_held_out, y_held_out), optional
+            Rows the network never trains on, in the form of ``X`` and ``y`` (class
+            labels for a classifier, the target in the network's units for a
+            regressor). After every epoch the head's matched loss on them (the
+            training loss's definition and units, without the L2 term) is appended
+            to ``history_["test_loss"]``. For display only: nothing in training,
+            stopping or early stopping reads it, so the fitted parameters are the
+            same with or without it.
+        held_out_score : callable, optional
+            With ``held_out``: called after every epoch with what :meth:`predict`
+            (regressor) or ``predict_proba`` (classifier) would return for the
+            held-out rows at that point; its result (a float) is appended to
+            ``history_["test_score"]``.
 
         Returns
         -------
         self
         """
-        return self._fit(X, y)
+        return self._fit(X, y, held_out, held_out_score)
 
-    def _fit(self, X, y):
+    def _fit(self, X, y, held_out=None, held_out_score=None):
         _check_params(self)
         sizes = _hidden_sizes(self.hidden_layer_sizes)
         hidden = act.resolve_hidden_layers(self.activation, len(sizes))
@@ -324,6 +363,7 @@ class _BaseNet(BaseEstimator):
         X, y = self._validated(X, y, dtype, first_pass)
         head = self._resolve_head(y)
         y = self._adapt_y(y, head)
+        watch = self._held_out(held_out, held_out_score, dtype, head, y.shape[1])
         units = [X.shape[1], *sizes, y.shape[1]]
         self._random_state = check_random_state(self.random_state)
         net = Network(units, hidden, head, dtype, float(self.leaky_slope))
@@ -339,9 +379,31 @@ class _BaseNet(BaseEstimator):
         self.hidden_activations_ = tuple(hidden)
         self.loss_function_ = head.loss
         with np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
-            self._fit_stochastic(net, X, y)
+            self._fit_stochastic(net, X, y, watch)
         self._publish(net)
         return self
+
+    def _held_out(self, held_out, score, dtype, head, n_outputs):
+        """The held-out rows checked and in the network's form (None without them)."""
+        if held_out is None:
+            if score is not None:
+                raise ValueError("held_out_score needs held_out=(X_held_out, y_held_out)")
+            return None
+        X_ho, y_ho = held_out
+        X_ho = validate_data(self, X_ho, reset=False, dtype=(np.float64, np.float32))
+        X_ho = np.ascontiguousarray(X_ho, dtype=dtype)
+        y_ho = np.asarray(y_ho)
+        if y_ho.ndim == 2 and y_ho.shape[1] == 1:
+            y_ho = y_ho.ravel()
+        if self._task == "classification":
+            y_ho = self._label_binarizer.transform(y_ho)
+        y_ho = np.asarray(y_ho, dtype=dtype)
+        y_ho = y_ho.reshape(-1, 1) if y_ho.ndim == 1 else y_ho
+        y_ho = self._adapt_y(y_ho, head)
+        if y_ho.shape != (X_ho.shape[0], n_outputs):
+            raise ValueError(f"held_out has {X_ho.shape[0]} rows and targets of shape "
+                             f"{y_ho.shape}; expected {n_outputs} output(s) per row")
+        return _HeldOut(X_ho, np.ascontiguousarray(y_ho), score)
 
     def _validated(self, X, y, dtype, first_pass):
         """``X`` and ``y`` checked, in ``dtype``, C-contiguous, ``y`` two-dimensional."""
@@ -364,8 +426,9 @@ class _BaseNet(BaseEstimator):
             self._start_at_the_mean(net, y)
         self.loss_curve_ = []
         self._no_improvement_count = 0
-        self.history_ = {"loss": [], "val_loss": [], "val_score": [], "dead": [],
-                         "saturated": [], "grad_norm": [], "seconds": []}
+        self.history_ = {"loss": [], "val_loss": [], "val_score": [], "test_loss": [],
+                         "test_score": [], "dead": [], "saturated": [], "grad_norm": [],
+                         "health_epoch": [], "seconds": []}
         if self.early_stopping:
             self.validation_scores_ = []
             self.best_validation_score_ = -np.inf
@@ -473,7 +536,7 @@ class _BaseNet(BaseEstimator):
                             self.learning_rate, self.momentum, self.nesterovs_momentum,
                             self.power_t)
 
-    def _fit_stochastic(self, net, X, y):
+    def _fit_stochastic(self, net, X, y, watch=None):
         data = self._training_data(X, y)
         net.ensure(data.batch_size)
         optimizer = self._optimizer(net)
@@ -493,13 +556,13 @@ class _BaseNet(BaseEstimator):
             self.t_ += data.X.shape[0]
             if not (math.isfinite(loss) and np.isfinite(net.theta).all()):
                 net.theta[...] = last_good
-                self._record_epoch(net, data, loss, started)
+                self._record_epoch(net, data, loss, started, watch)
                 self._warn_diverged()
                 break
             last_good[...] = net.theta
             if self._track_improvement(net, data, loss):
                 best = net.theta.copy()
-            self._record_epoch(net, data, loss, started)
+            self._record_epoch(net, data, loss, started, watch)
             optimizer.iteration_ends(self.t_)
             if self._no_improvement_count > self.n_iter_no_change:
                 if optimizer.trigger_stopping():
@@ -509,8 +572,15 @@ class _BaseNet(BaseEstimator):
                 warnings.warn(
                     f"Stochastic Optimizer: Maximum iterations ({self.max_iter}) reached and "
                     "the optimization hasn't converged yet.", ConvergenceWarning, stacklevel=3)
+        hist = self.history_
+        if self.monitor_health and hist["loss"] and (
+                not hist["health_epoch"] or hist["health_epoch"][-1] != len(hist["loss"])):
+            self._measure_health(net, data)  # the last epoch is always measured
         if best is not None:
             net.theta[...] = best
+            if watch is not None and hist["test_loss"]:
+                # the last held-out point is of the parameters fit returns (the best epoch's)
+                self._watch(net, watch, replace=True)
         self.health_ = {key: self.history_[key][-1] if self.history_[key] else []
                         for key in ("dead", "saturated", "grad_norm")}
 
@@ -556,19 +626,40 @@ class _BaseNet(BaseEstimator):
             return True
         return False
 
-    def _record_epoch(self, net, data, loss, started):
-        """The epoch's loss, the health of the parameters kept and its wall time."""
+    def _record_epoch(self, net, data, loss, started, watch=None):
+        """The epoch's loss, the held-out loss and score, the health (on its schedule,
+        :func:`health_due`) and the epoch's wall time."""
         self.loss_curve_.append(loss)
         hist = self.history_
         hist["loss"].append(loss)
-        if self.monitor_health:
-            dead, saturated, grad_norm = measure(net, data.probe_X, data.probe_y)
-            hist["dead"].append(dead)
-            hist["saturated"].append(saturated)
-            hist["grad_norm"].append(grad_norm)
+        if watch is not None:
+            self._watch(net, watch)
+        if self.monitor_health and health_due(len(hist["loss"])):
+            self._measure_health(net, data)
         hist["seconds"].append(time.perf_counter() - started)
         if self.verbose:
             print(f"Iteration {self.n_iter_}, loss = {loss:.8f}")
+
+    def _measure_health(self, net, data):
+        hist = self.history_
+        dead, saturated, grad_norm = measure(net, data.probe_X, data.probe_y)
+        hist["dead"].append(dead)
+        hist["saturated"].append(saturated)
+        hist["grad_norm"].append(grad_norm)
+        hist["health_epoch"].append(len(hist["loss"]))
+
+    def _watch(self, net, watch, replace=False):
+        """The held-out rows' loss (and score) for the parameters as they stand."""
+        raw = net.predict_raw(watch.X)
+        hist = self.history_
+        values = [("test_loss", float(net.data_loss(watch.y, raw)))]
+        if watch.score is not None:
+            values.append(("test_score", float(watch.score(self._output(raw)))))
+        for key, value in values:
+            if replace:
+                hist[key][-1] = value
+            else:
+                hist[key].append(value)
 
     def _warn_diverged(self):
         self.diverged_ = True
@@ -649,7 +740,9 @@ class NetRegressor(RegressorMixin, _BaseNet):
         validation score must rise by ``tol`` in both modes.
     dtype : {"float32", "float64"}, default="float32"
     monitor_health : bool, default=True
-        Measure dead / saturated units and gradient norms after every epoch.
+        Measure dead / saturated units and gradient norms after each of the first
+        :data:`HEALTH_EVERY_EPOCH_UNTIL` epochs, then every :data:`HEALTH_STRIDE`-th
+        and always after the last (:func:`health_due`).
 
     Attributes
     ----------
@@ -671,8 +764,23 @@ class NetRegressor(RegressorMixin, _BaseNet):
         True when training stopped on a non-finite loss (the last finite
         parameters are kept and a :class:`DivergenceWarning` is issued).
     history_ : dict
-        Per-epoch ``loss``, ``val_loss``, ``val_score``, ``dead``, ``saturated``,
-        ``grad_norm`` (one value per hidden layer) and ``seconds``.
+        Lists, one entry per epoch unless said otherwise (a warm start appends):
+
+        - ``loss``: the training loss (the head's matched loss plus the L2 term,
+          as ``loss_curve_``);
+        - ``val_loss``, ``val_score``: early stopping's validation rows, the head's
+          loss and R^2 / accuracy (empty without early stopping);
+        - ``test_loss``: with ``fit(..., held_out=...)``, the held-out rows' data
+          loss, the training loss's definition and units without the L2 term;
+          ``test_score``: with ``held_out_score``, its value per epoch. Both are
+          of the parameters after that epoch, except that with early stopping
+          the last entry is of the best epoch's parameters, which fit returns
+          (empty without held-out rows);
+        - ``dead``, ``saturated`` (one share per hidden layer) and ``grad_norm``
+          (one per weight matrix), measured on the schedule of :func:`health_due`;
+          ``health_epoch``: the epochs they were measured after (1-based positions
+          in ``loss``; the last epoch is always among them);
+        - ``seconds``: each epoch's wall time.
     health_ : dict
         The last epoch's ``dead``, ``saturated`` and ``grad_norm`` per hidden layer.
 
@@ -710,10 +818,12 @@ class NetRegressor(RegressorMixin, _BaseNet):
     def _score_val(self, p, y):
         return float(r2_score(y, p)) if np.isfinite(p).all() else float("nan")
 
+    def _output(self, p):
+        return p.ravel() if p.shape[1] == 1 else p
+
     def predict(self, X):
         """Predict targets for ``X`` (in the units the network was trained on)."""
-        p = self._forward(X)
-        return p.ravel() if p.shape[1] == 1 else p
+        return self._output(self._forward(X))
 
 
 class NetClassifier(ClassifierMixin, _BaseNet):
@@ -795,7 +905,10 @@ class NetClassifier(ClassifierMixin, _BaseNet):
 
     def predict_proba(self, X):
         """Class probabilities, shape (n_samples, n_classes)."""
-        p = self._forward(X)
+        return self._output(self._forward(X))
+
+    def _output(self, p):
+        # what predict_proba returns for the network's raw output p
         if p.shape[1] == 1:
             p = p.ravel()
             return np.vstack([1 - p, p]).T

@@ -20,11 +20,29 @@ any Dask worker, serially or in parallel. It
    :func:`target_classes` -- scikit-learn's ``classes_`` order -- for
    classifiers; predictions in the user's units for regressors),
 5. returns a plain dict: scores, fit seconds, epochs run (the estimator's
-   ``n_iter_``), the per-epoch history (training loss, validation score under
-   early stopping, per-layer dead / saturated shares and gradient norms) and the
-   last epoch's health, the predictions, and a status: ``done``, ``diverged``
-   (non-finite loss) or ``failed`` (with the error message). Only a ``done``
-   trial carries predictions.
+   ``n_iter_``), the per-epoch history (below) and the last epoch's health, the
+   predictions, and a status: ``done``, ``diverged`` (non-finite loss) or
+   ``failed`` (with the error message). Only a ``done`` trial carries predictions.
+
+The history (``result["history"]``, keys :data:`HISTORY_KEYS`; lists, one entry
+per epoch unless said otherwise, JSON numbers with None for a non-finite value):
+
+- ``loss``: the training loss (the head's matched loss plus the L2 term);
+- ``test_loss``: the test fold's loss, the head's matched loss without the L2 term
+  in the network's units (the scaled target, the 0/1 label columns), so that it
+  shares an axis with ``loss``; ``test_score``: the sweep's metric on the test
+  fold in the user's units, computed as the stored ``test_score`` is (its last
+  entry equals it). Both are for display: the test rows are handed to the
+  network's ``fit`` as ``held_out`` (their features through the fold's fitted
+  preprocessing, :func:`_fold_features`) and nothing in training or stopping
+  reads them. NumPy engine only; scikit-learn's MLP has no per-epoch hook, so
+  its trials leave them empty (as do baselines);
+- ``val_loss``, ``val_score``: early stopping's own validation rows (split off
+  the training rows), the head's loss and R^2 / accuracy;
+- ``dead``, ``saturated`` (one share per hidden layer) and ``grad_norm`` (one
+  norm per weight matrix), measured on a schedule (each of the first 10 epochs,
+  then every 5th, and the last: :func:`workbench.nets.engine.health_due`);
+  ``health_epoch``: the epochs (1-based) they were measured after.
 
 Baselines (:func:`make_baseline`, :func:`baseline_pipeline`): a trial whose
 configuration has ``kind: "baseline"`` fits a reference model instead of a
@@ -343,14 +361,149 @@ def _clean(values):
     return out
 
 
+#: the per-epoch history a trial stores (see the module docstring)
+HISTORY_KEYS = ("loss", "test_loss", "test_score", "val_loss", "val_score", "dead",
+                "saturated", "grad_norm", "health_epoch")
+
+
+def _empty_history() -> dict:
+    return {k: [] for k in HISTORY_KEYS}
+
+
 def _history(mlp) -> dict:
     hist = getattr(mlp, "history_", None)
     if hist is not None:
-        return {k: _clean(hist.get(k, [])) for k in ("loss", "val_score", "dead", "saturated",
-                                                       "grad_norm")}
-    return {"loss": _clean(getattr(mlp, "loss_curve_", []) or []),
-            "val_score": _clean(getattr(mlp, "validation_scores_", None) or []),
-            "dead": [], "saturated": [], "grad_norm": []}
+        out = {k: _clean(hist.get(k, [])) for k in HISTORY_KEYS}
+        out["health_epoch"] = [int(e) for e in hist.get("health_epoch", [])]
+        return out
+    out = _empty_history()
+    out["loss"] = _clean(getattr(mlp, "loss_curve_", []) or [])
+    out["val_score"] = _clean(getattr(mlp, "validation_scores_", None) or [])
+    return out
+
+
+# --------------------------------------------------------------------------- held-out curves
+
+
+def _regression_score(metric: str, y):
+    """``f(predictions) -> score`` for a regression scorer, from the formulas
+    scikit-learn's metrics use (tests compare them with ``get_scorer``)."""
+    y = np.asarray(y, dtype=np.float64).reshape(-1)
+    if metric == "r2":
+        total = float(np.sum((y - np.mean(y)) ** 2))
+
+        def r2(p):
+            resid = float(np.sum((y - p) ** 2))
+            if total == 0.0:  # scikit-learn's force_finite rule
+                return 1.0 if resid == 0.0 else 0.0
+            return 1.0 - resid / total
+        return r2
+    if metric == "neg_root_mean_squared_error":
+        return lambda p: -float(np.sqrt(np.mean((y - p) ** 2)))
+    if metric == "neg_mean_absolute_error":
+        return lambda p: -float(np.mean(np.abs(y - p)))
+    if metric == "neg_mean_poisson_deviance":
+        from scipy.special import xlogy
+
+        def poisson(p):
+            if not np.all(p > 0):  # undefined: scikit-learn refuses to score it
+                return math.nan
+            return -float(np.mean(2 * (xlogy(y, y / p) - y + p)))
+        return poisson
+    return None
+
+
+def _classification_score(metric: str, classes, y):
+    """``f(probabilities) -> score`` for a classification scorer: the labels as the
+    classifier's ``predict`` decodes them (binary: positive class above 0.5; else the
+    most probable class), the positive class's probability as the scorer takes it."""
+    classes = np.asarray(classes)
+    y = np.asarray(y)
+    pos = np.searchsorted(classes, y)
+    known = (pos < classes.size) & (classes[np.minimum(pos, classes.size - 1)] == y)
+    codes = np.where(known, pos, -1)
+    binary = classes.size == 2
+
+    def labels(proba):
+        return (proba[:, 1] > 0.5).astype(int) if binary else np.argmax(proba, axis=1)
+
+    if metric == "accuracy":
+        return lambda proba: float(np.mean(labels(proba) == codes))
+    if metric == "balanced_accuracy":
+        groups = [codes == c for c in np.unique(codes)]
+        return lambda proba: float(np.mean([np.mean(labels(proba)[g] == codes[g])
+                                            for g in groups]))
+    both = binary and known.all() and np.unique(codes).size == 2
+    if metric == "roc_auc":
+        if not both:
+            return None  # scikit-learn's scorer cannot score it either
+        positive = codes == 1
+        n_pos = int(positive.sum())
+        n_neg = positive.size - n_pos
+
+        def auc(proba):  # the Mann-Whitney statistic, ties counted half
+            s = proba[:, 1]
+            order = np.argsort(s, kind="stable")
+            ranked = s[order]
+            starts = np.flatnonzero(np.r_[True, ranked[1:] != ranked[:-1]])
+            ends = np.r_[starts[1:], ranked.size]
+            ranks = np.repeat((starts + ends + 1) / 2.0, ends - starts)  # mean rank of ties
+            r_pos = float(ranks[positive[order]].sum())
+            return (r_pos - n_pos * (n_pos + 1) / 2) / (n_pos * n_neg)
+        return auc
+    if metric == "neg_log_loss":
+        if not (known.all() and np.unique(codes).size == classes.size):
+            return None
+        from scipy.special import xlogy
+
+        def log_loss(proba):  # in the probabilities' dtype, as scikit-learn computes it
+            p = proba[:, 1:2] if binary else proba
+            if binary:
+                p = np.concatenate([1 - p, p], axis=1)
+            eps = np.finfo(p.dtype).eps
+            p = np.clip(p, eps, 1 - eps)
+            onehot = np.zeros(p.shape, dtype=p.dtype)
+            onehot[np.arange(codes.size), codes] = 1
+            return -float(np.mean(-np.sum(xlogy(onehot, p), axis=1)))  # neg_log_loss
+        return log_loss
+    return None
+
+
+def _held_out_watch(spec: dict, model, y_tr, y_te):
+    """``fit`` arguments that make the NumPy engine record the test fold's curves.
+
+    ``held_out``: the test rows (their features are passed by the caller, already
+    through the fold's fitted preprocessing) with the target as the network sees it --
+    class labels, or for a regressor the target scaled by the same scaler the
+    ``TransformedTargetRegressor`` fits on the training rows (a deterministic fit, so
+    the same offset and scale). ``held_out_score``: the sweep's metric in the user's
+    units from the network's predictions, computed the way the trial's ``test_score``
+    is (the regressor's predictions through the scaler's inverse; the scorer's
+    formula); None for a metric without a per-epoch formula here.
+    """
+    metric = spec["metric"]
+    if spec["task"] == "classification":
+        holder = {}
+
+        def score(proba):
+            if "f" not in holder:  # the classes are known once fit has seen the labels
+                holder["f"] = _classification_score(metric, model.classes_, y_te)
+            f = holder["f"]
+            return math.nan if f is None else f(proba)
+        return y_te, score
+    from sklearn.base import clone
+
+    y_tr = np.asarray(y_tr, dtype=np.float64).reshape(len(y_tr), -1)
+    scaler = clone(model.transformer).fit(y_tr)
+    y_net = scaler.transform(np.asarray(y_te, dtype=np.float64).reshape(len(y_te), -1))
+    f = _regression_score(metric, y_te)
+    if f is None:
+        return y_net, None
+
+    def score(pred):
+        user = scaler.inverse_transform(np.reshape(pred, (-1, 1)))
+        return f(user.reshape(-1))
+    return y_net, score
 
 
 def _looks_diverged(exc: Exception) -> bool:
@@ -371,7 +524,8 @@ def run_trial(data: TrialData, spec: dict) -> dict:
         ``config`` (a :class:`workbench.sweep.plan.Configuration` as a dict),
         ``repeat``, ``fold``, ``train`` and ``test`` (row positions),
         ``random_state``, ``task``, ``metric``, ``epochs``, ``early_stopping``,
-        ``batch_size``, ``dtype``.
+        ``batch_size``, ``dtype``; optional ``curves`` (default True: record the
+        held-out curves; False only to measure their cost).
 
     Returns
     -------
@@ -388,8 +542,7 @@ def run_trial(data: TrialData, spec: dict) -> dict:
         "config_index": int(cfg["index"]), "repeat": int(spec["repeat"]),
         "fold": int(spec["fold"]), "status": FAILED, "test_score": None,
         "train_score": None, "fit_seconds": None, "epochs": None, "engine": cfg["engine"],
-        "error": None, "history": {"loss": [], "val_score": [], "dead": [], "saturated": [],
-                                   "grad_norm": []},
+        "error": None, "history": _empty_history(),
         "health": {"dead": [], "saturated": [], "grad_norm": []},
         "n_train": len(spec["train"]), "n_test": len(spec["test"]),
         "worker": f"{socket.gethostname()}:{os.getpid()}", "predictions": None,
@@ -457,9 +610,13 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
         pipe = build_pipeline(data.profile, data.target, make_estimator(spec), cfg["head"])
     prep, model = pipe.named_steps["prep"], pipe.named_steps["model"]
     X_tr, X_te = _fold_features(data, spec, prep, train, test)
+    fit_params = {}
+    if cfg.get("kind") != "baseline" and cfg["engine"] != "sklearn" and spec.get("curves", True):
+        y_held, score = _held_out_watch(spec, model, y_tr, y_te)
+        fit_params = {"held_out": (X_te, y_held), "held_out_score": score}
     t0 = time.perf_counter()
     try:
-        model.fit(X_tr, y_tr)
+        model.fit(X_tr, y_tr, **fit_params)
     except (ValueError, FloatingPointError, OverflowError) as exc:
         result["fit_seconds"] = time.perf_counter() - t0
         if _looks_diverged(exc):
