@@ -910,8 +910,10 @@ class NetClassifier(ClassifierMixin, _BaseNet):
     def _output(self, p):
         # what predict_proba returns for the network's raw output p
         if p.shape[1] == 1:
-            p = p.ravel()
-            return np.vstack([1 - p, p]).T
+            out = np.empty((p.shape[0], 2), dtype=p.dtype)
+            np.subtract(1, p[:, 0], out=out[:, 0])
+            out[:, 1] = p[:, 0]
+            return out
         return p
 
     def predict_log_proba(self, X):

@@ -443,12 +443,19 @@ def _classification_score(metric: str, classes, y):
 
         def auc(proba):  # the Mann-Whitney statistic, ties counted half
             s = proba[:, 1]
-            order = np.argsort(s, kind="stable")
+            order = np.argsort(s)
             ranked = s[order]
-            starts = np.flatnonzero(np.r_[True, ranked[1:] != ranked[:-1]])
-            ends = np.r_[starts[1:], ranked.size]
-            ranks = np.repeat((starts + ends + 1) / 2.0, ends - starts)  # mean rank of ties
-            r_pos = float(ranks[positive[order]].sum())
+            new = np.empty(ranked.size, dtype=bool)
+            new[0] = True
+            np.not_equal(ranked[1:], ranked[:-1], out=new[1:])
+            hits = positive[order]
+            if new.all():  # no ties: the ranks are 1..n
+                r_pos = float(np.flatnonzero(hits).sum() + n_pos)
+            else:
+                starts = np.flatnonzero(new)
+                ends = np.append(starts[1:], ranked.size)
+                ranks = np.repeat((starts + ends + 1) / 2.0, ends - starts)  # mean rank of ties
+                r_pos = float(ranks[hits].sum())
             return (r_pos - n_pos * (n_pos + 1) / 2) / (n_pos * n_neg)
         return auc
     if metric == "neg_log_loss":
