@@ -1,18 +1,33 @@
-"""Engine speed: the NumPy engine vs scikit-learn's MLPRegressor vs the bare products.
+"""Engine speed: the NumPy engine vs scikit-learn's MLP vs the bare matrix products.
 
-The standard workload (issue "Foundation and the network engine", section 5):
-20,000 rows x 32 features, two hidden layers of 128 ReLU units, batch 200,
-20 epochs of Adam, float32. All three are measured in the same process with one
-BLAS thread each (threadpoolctl), interleaved over several rounds; medians are
-reported, and the two ratios engine/scikit-learn and floor/engine. Each run is
-timed twice: wall clock and the process's CPU time. With one BLAS thread the work
-is single-threaded, so CPU time is the steadier figure on a shared machine (other
-processes steal wall time, not CPU time); both are printed.
+Two workloads, each measured in the same process with one BLAS thread
+(threadpoolctl), interleaved over several rounds, medians reported:
 
-The floor is the same sequence of matrix products the engine's backward pass
-(:meth:`workbench.nets.network.Network.backward`) performs per batch (three
-forward, three weight-gradient and two delta products) on buffers of the same
-shapes, with nothing else: no activation, loss, optimiser or Python bookkeeping.
+- the *standard workload* (issue "Foundation and the network engine", section 5):
+  20,000 rows x 32 features, two hidden layers of 128 ReLU units, batch 200,
+  20 epochs of Adam, float32, ``NetRegressor`` vs ``MLPRegressor``;
+- the *small-trial workload* (issue 14: the typical sweep trial): 2,000 rows x 15
+  features, a binary target, one hidden layer of 32 ReLU units, batch 200,
+  50 epochs of Adam, float32, ``NetClassifier`` vs ``MLPClassifier``.
+
+The engine is timed as the sweep's trials run it (``NetRegressor`` /
+``NetClassifier`` with its defaults, the per-epoch health probe included) and, for
+the small trial, also without the probe and as the bare epoch loop
+(:meth:`workbench.nets.network.Network.train_epoch`, no estimator around it).
+
+Each run is timed twice: wall clock and the process's CPU time. With one BLAS
+thread the work is single-threaded, so CPU time is the steadier figure on a shared
+machine (other processes steal wall time, not CPU time); both are printed.
+
+The *matrix-product floor* is the sequence of matrix products the engine's
+training step performs per batch (per layer one forward and one weight-gradient
+product, and one delta product per layer below the output, see
+:meth:`workbench.nets.network.Network.backward`) on buffers of the same shapes,
+with nothing else: no activation, loss, optimiser or Python bookkeeping. Per batch
+the figures are given in microseconds and as multiples of that floor. Beside it,
+the *arithmetic floor*: the products' floating-point operations (``2 m k n`` each)
+at the single-thread SGEMM rate measured on 1024 x 1024 matrices, the best any
+implementation could do with this BLAS.
 """
 
 from __future__ import annotations
@@ -25,6 +40,11 @@ import numpy as np
 from threadpoolctl import threadpool_limits
 
 ROWS, FEATURES, WIDTH, BATCH, EPOCHS = 20_000, 32, 128, 200, 20
+#: the small-trial workload: a typical sweep trial (issue 14)
+SMALL_ROWS, SMALL_FEATURES, SMALL_WIDTH, SMALL_EPOCHS = 2_000, 15, 32, 50
+#: goals (issue 14, benchmarks only): small trial <= 5x the product floor per batch;
+#: standard workload <= 0.35x scikit-learn's time and >= 0.60 of the product floor
+SMALL_GOAL, SKLEARN_GOAL, FLOOR_GOAL = 5.0, 0.35, 0.60
 
 
 def _data(rows, features, seed=0):
@@ -34,81 +54,113 @@ def _data(rows, features, seed=0):
     return X, y
 
 
-def _params(epochs):
-    return dict(hidden_layer_sizes=(WIDTH, WIDTH), activation="relu", batch_size=BATCH,
+def _params(epochs, layers=(WIDTH, WIDTH)):
+    return dict(hidden_layer_sizes=layers, activation="relu", batch_size=BATCH,
                 max_iter=epochs, tol=0.0, n_iter_no_change=10**9, random_state=0, shuffle=True,
                 learning_rate_init=1e-3)
+
+
+def _timed(fn):
+    t, c = time.perf_counter(), time.process_time()
+    fn()
+    return time.perf_counter() - t, time.process_time() - c
 
 
 def _time_engine(X, y, epochs):
     from workbench.nets.engine import NetRegressor
 
-    t, c = time.perf_counter(), time.process_time()
-    NetRegressor(**_params(epochs), dtype="float32").fit(X, y)
-    return time.perf_counter() - t, time.process_time() - c
+    return _timed(lambda: NetRegressor(**_params(epochs), dtype="float32").fit(X, y))
 
 
 def _time_sklearn(X, y, epochs):
     from sklearn.neural_network import MLPRegressor
 
-    t, c = time.perf_counter(), time.process_time()
-    MLPRegressor(**_params(epochs)).fit(X, y)
-    return time.perf_counter() - t, time.process_time() - c
+    return _timed(lambda: MLPRegressor(**_params(epochs)).fit(X, y))
+
+
+def _products(units, rows, batch=BATCH):
+    """The floor's matrix products for a network of ``units`` on ``rows`` rows, as a
+    function of the number of epochs; and the products' floating-point operations per
+    full batch."""
+    f = np.float32
+    rng = np.random.default_rng(1)
+    depth = len(units) - 1
+    P = [(0.05 * rng.standard_normal((a + 1, b))).astype(f) for a, b in zip(units[:-1], units[1:])]
+    G = [np.empty_like(p) for p in P]
+    A = [np.ones((batch, u + 1), f) for u in units[1:-1]] + [np.empty((batch, units[-1]), f)]
+    D = [np.empty_like(a) for a in A]
+    Xa = np.ones((rows, units[0] + 1), f)
+    Xa[:, :-1] = rng.standard_normal((rows, units[0]))
+
+    def run(epochs):
+        for _ in range(epochs):
+            for s in range(0, rows, batch):
+                xb = Xa[s:s + batch]
+                m = xb.shape[0]
+                a = xb
+                for i in range(depth):
+                    np.matmul(a, P[i], out=A[i][:m, :units[i + 1]])
+                    a = A[i][:m]
+                delta = D[-1][:m]
+                np.subtract(A[-1][:m], 0.5, out=delta)
+                for i in range(depth - 1, -1, -1):
+                    np.matmul((xb if i == 0 else A[i - 1][:m]).T, delta, out=G[i])
+                    if i:
+                        np.dot(delta, P[i].T, out=D[i - 1][:m])
+                        D[i - 1][:m] *= 0.01
+                        delta = D[i - 1][:m, :-1]
+
+    flops = 0
+    for i, (a, b) in enumerate(zip(units[:-1], units[1:])):
+        flops += 2 * batch * (a + 1) * b * 2  # forward and weight gradient
+        if i:
+            flops += 2 * batch * b * (a + 1)  # delta to the layer below
+    return run, flops
 
 
 def _time_floor(X, epochs):
     """The engine's matrix products alone, for the same number of batches."""
-    f = np.float32
-    rng = np.random.default_rng(1)
-    units = [X.shape[1], WIDTH, WIDTH, 1]
-    P = [(0.05 * rng.standard_normal((a + 1, b))).astype(f) for a, b in zip(units[:-1], units[1:])]
-    G = [np.empty_like(p) for p in P]
-    A = [np.ones((BATCH, u + 1), f) for u in units[1:-1]] + [np.empty((BATCH, 1), f)]
-    D = [np.empty_like(a) for a in A]
-    Xa = np.ones((X.shape[0], X.shape[1] + 1), f)
-    Xa[:, :-1] = X
-    n = X.shape[0]
-    t, c = time.perf_counter(), time.process_time()
-    for _ in range(epochs):
-        for s in range(0, n, BATCH):
-            xb = Xa[s:s + BATCH]
-            m = xb.shape[0]
-            a = xb
-            for i in range(3):
-                out = A[i][:m, :units[i + 1]]
-                np.matmul(a, P[i], out=out)
-                a = A[i][:m]
-            delta = D[2][:m]
-            np.subtract(A[2][:m], 0.5, out=delta)
-            for i in (2, 1, 0):
-                np.matmul((xb if i == 0 else A[i - 1][:m]).T, delta, out=G[i])
-                if i:
-                    np.dot(delta, P[i].T, out=D[i - 1][:m])
-                    D[i - 1][:m] *= 0.01
-                    delta = D[i - 1][:m, :-1]
-    return time.perf_counter() - t, time.process_time() - c
+    run, _ = _products([X.shape[1], WIDTH, WIDTH, 1], X.shape[0])
+    return _timed(lambda: run(epochs))
 
 
-def run(quick: bool = False, rounds: int | None = None, threads: int = 1) -> dict:
-    """Measure the standard workload; ``quick`` shrinks it for smoke tests."""
+def sgemm_gflops(size: int = 1024, repeats: int = 3) -> float:
+    """Single-call SGEMM rate (GFLOP/s) on ``size`` x ``size`` float32 matrices, best of
+    ``repeats`` (call it under the thread limit you mean to measure)."""
+    rng = np.random.default_rng(2)
+    a = rng.standard_normal((size, size)).astype(np.float32)
+    b = rng.standard_normal((size, size)).astype(np.float32)
+    out = np.empty_like(a)
+    np.matmul(a, b, out=out)
+    best = min(_timed(lambda: np.matmul(a, b, out=out))[0] for _ in range(repeats))
+    return 2.0 * size ** 3 / best / 1e9
+
+
+def _medians(samples):
+    return {k: statistics.median(v) for k, v in samples.items()}
+
+
+def _interleaved(rounds, runners):
+    """Run each (name, fn) once per round, in turn; wall and CPU medians per name."""
+    wall = {name: [] for name, _ in runners}
+    cpu = {name: [] for name, _ in runners}
+    for _ in range(rounds):  # interleaved, so a burst of load hits all alike
+        for name, fn in runners:
+            w, c = fn()
+            wall[name].append(w)
+            cpu[name].append(c)
+    return _medians(wall), _medians(cpu)
+
+
+def _standard(quick, rounds, threads):
     rows = 2_000 if quick else ROWS
     epochs = 2 if quick else EPOCHS
-    rounds = rounds or (1 if quick else 5)
     X, y = _data(rows, FEATURES)
-    wall = {"engine": [], "sklearn": [], "floor": []}
-    cpu = {"engine": [], "sklearn": [], "floor": []}
-    with threadpool_limits(limits=threads), warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        _time_engine(X[:400], y[:400], 1)  # warm caches and imports
-        for _ in range(rounds):  # interleaved, so a burst of load hits all three alike
-            for name, fn in (("engine", lambda: _time_engine(X, y, epochs)),
-                             ("sklearn", lambda: _time_sklearn(X, y, epochs)),
-                             ("floor", lambda: _time_floor(X, epochs))):
-                w, c = fn()
-                wall[name].append(w)
-                cpu[name].append(c)
-    mw = {k: statistics.median(v) for k, v in wall.items()}
-    mc = {k: statistics.median(v) for k, v in cpu.items()}
+    _time_engine(X[:400], y[:400], 1)  # warm caches and imports
+    mw, mc = _interleaved(rounds, (("engine", lambda: _time_engine(X, y, epochs)),
+                                   ("sklearn", lambda: _time_sklearn(X, y, epochs)),
+                                   ("floor", lambda: _time_floor(X, epochs))))
+    batches = epochs * -(-rows // BATCH)
     figures = {
         "engine_seconds": mw["engine"],
         "sklearn_seconds": mw["sklearn"],
@@ -120,18 +172,127 @@ def run(quick: bool = False, rounds: int | None = None, threads: int = 1) -> dic
         "floor_cpu_seconds": mc["floor"],
         "engine_over_sklearn_cpu": mc["engine"] / mc["sklearn"],
         "floor_over_engine_cpu": mc["floor"] / mc["engine"],
+        "engine_us_per_batch_cpu": mc["engine"] / batches * 1e6,
+        "floor_us_per_batch_cpu": mc["floor"] / batches * 1e6,
         "rounds": rounds,
     }
     lines = [
-        f"workload: {rows} rows x {FEATURES} features, 2 x {WIDTH} relu, batch {BATCH}, "
-        f"{epochs} epochs adam, float32, {threads} BLAS thread(s), median of {rounds}",
-        "                               wall s    cpu s",
-        f"  engine (NetRegressor)      {mw['engine']:8.3f} {mc['engine']:8.3f}",
-        f"  scikit-learn MLPRegressor  {mw['sklearn']:8.3f} {mc['sklearn']:8.3f}",
-        f"  matrix products alone      {mw['floor']:8.3f} {mc['floor']:8.3f}",
+        f"standard workload: {rows} rows x {FEATURES} features, 2 x {WIDTH} relu, batch "
+        f"{BATCH}, {epochs} epochs adam, float32, {threads} BLAS thread(s), median of {rounds}",
+        "                               wall s    cpu s   cpu us/batch",
+        f"  engine (NetRegressor)      {mw['engine']:8.3f} {mc['engine']:8.3f} "
+        f"{mc['engine'] / batches * 1e6:10.1f}",
+        f"  scikit-learn MLPRegressor  {mw['sklearn']:8.3f} {mc['sklearn']:8.3f} "
+        f"{mc['sklearn'] / batches * 1e6:10.1f}",
+        f"  matrix products alone      {mw['floor']:8.3f} {mc['floor']:8.3f} "
+        f"{mc['floor'] / batches * 1e6:10.1f}",
         f"  engine / scikit-learn      {figures['engine_over_sklearn']:8.3f} "
-        f"{figures['engine_over_sklearn_cpu']:8.3f}   (goal <= 0.35)",
+        f"{figures['engine_over_sklearn_cpu']:8.3f}   (goal <= {SKLEARN_GOAL})",
         f"  floor / engine             {figures['floor_over_engine']:8.3f} "
-        f"{figures['floor_over_engine_cpu']:8.3f}   (goal >= 0.60)",
+        f"{figures['floor_over_engine_cpu']:8.3f}   (goal >= {FLOOR_GOAL})",
     ]
-    return {"title": "engine", "lines": lines, "figures": figures}
+    return lines, figures
+
+
+def _small_data(rows):
+    rng = np.random.default_rng(3)
+    X = rng.standard_normal((rows, SMALL_FEATURES)).astype(np.float32)
+    score = X[:, 0] - 0.5 * X[:, 1] * X[:, 2] + 0.5 * rng.standard_normal(rows)
+    return X, (score > 0).astype(int)
+
+
+def _small_params(epochs):
+    return dict(hidden_layer_sizes=(SMALL_WIDTH,), activation="relu", batch_size=BATCH,
+                max_iter=epochs, tol=0.0, n_iter_no_change=10**9, random_state=0,
+                learning_rate_init=1e-3)
+
+
+def _epoch_loop(X, y, epochs):
+    """``Network.train_epoch`` alone: the engine's batches without the estimator
+    (validation, shuffling, stopping rule, health probe)."""
+    from workbench.nets import activations as act
+    from workbench.nets.network import Network, with_ones
+    from workbench.nets.optimizers import AdamOptimizer
+
+    head = act.resolve_head("logistic", "classification")
+    net = Network([X.shape[1], SMALL_WIDTH, 1], ["relu"], head, np.dtype(np.float32))
+    net.theta[...] = np.random.default_rng(0).uniform(-0.3, 0.3, net.theta.size)
+    net.ensure(BATCH)
+    X_ones = with_ones(X)
+    y2 = y.astype(np.float32).reshape(-1, 1)
+    opt = AdamOptimizer(net.theta.size, net.dtype, 1e-3)
+
+    def run():
+        for _ in range(epochs):
+            net.train_epoch(opt, X_ones, y2, BATCH, 1e-4)
+
+    return _timed(run)
+
+
+def _small(quick, rounds, threads, gflops):
+    from sklearn.neural_network import MLPClassifier
+
+    from workbench.nets.engine import NetClassifier
+
+    rows = SMALL_ROWS
+    epochs = 5 if quick else SMALL_EPOCHS
+    X, y = _small_data(rows)
+    floor_run, flops = _products([SMALL_FEATURES, SMALL_WIDTH, 1], rows)
+    batches = epochs * -(-rows // BATCH)
+    NetClassifier(**_small_params(1)).fit(X, y)  # warm caches and imports
+    runners = (
+        ("engine", lambda: _timed(lambda: NetClassifier(**_small_params(epochs)).fit(X, y))),
+        ("engine_no_probe", lambda: _timed(lambda: NetClassifier(
+            **_small_params(epochs), monitor_health=False).fit(X, y))),
+        ("epoch_loop", lambda: _epoch_loop(X, y, epochs)),
+        ("sklearn", lambda: _timed(lambda: MLPClassifier(**_small_params(epochs)).fit(X, y))),
+        ("floor", lambda: _timed(lambda: floor_run(epochs))),
+    )
+    mw, mc = _interleaved(rounds, runners)
+    per = {k: v / batches * 1e6 for k, v in mc.items()}
+    arithmetic = flops / (gflops * 1e9) * 1e6
+    figures = {f"small_{k}_us_per_batch_cpu": v for k, v in per.items()}
+    figures.update({f"small_{k}_us_per_batch_wall": v / batches * 1e6 for k, v in mw.items()})
+    figures.update({
+        "small_engine_over_floor": per["engine"] / per["floor"],
+        "small_engine_no_probe_over_floor": per["engine_no_probe"] / per["floor"],
+        "small_epoch_loop_over_floor": per["epoch_loop"] / per["floor"],
+        "small_engine_over_sklearn": per["engine"] / per["sklearn"],
+        "small_arithmetic_floor_us": arithmetic,
+        "sgemm_gflops": gflops,
+    })
+    labels = (("engine", "engine (NetClassifier, health probe on)"),
+              ("engine_no_probe", "engine, monitor_health=False"),
+              ("epoch_loop", "Network.train_epoch alone"),
+              ("sklearn", "scikit-learn MLPClassifier"),
+              ("floor", "matrix products alone (floor)"))
+    lines = [
+        f"small-trial workload: {rows} rows x {SMALL_FEATURES} features, binary, 1 x "
+        f"{SMALL_WIDTH} relu, batch {BATCH}, {epochs} epochs adam, float32, {threads} BLAS "
+        f"thread(s), median of {rounds}",
+        "                                          cpu us/batch  wall us/batch  x floor",
+    ]
+    for key, label in labels:
+        lines.append(f"  {label:<38} {per[key]:10.1f} {mw[key] / batches * 1e6:12.1f} "
+                     f"{per[key] / per['floor']:8.2f}")
+    lines += [
+        f"  engine / scikit-learn                  {per['engine'] / per['sklearn']:10.3f}",
+        f"  goal: engine <= {SMALL_GOAL:g}x the product floor per batch "
+        f"(now {per['engine'] / per['floor']:.2f}x; without the probe "
+        f"{per['engine_no_probe'] / per['floor']:.2f}x)",
+        f"  arithmetic floor: {flops / 1e6:.2f} MFLOP per batch at {gflops:.0f} GFLOP/s "
+        f"(1024^2 SGEMM) = {arithmetic:.1f} us; engine {per['engine'] / arithmetic:.1f}x it",
+    ]
+    return lines, figures
+
+
+def run(quick: bool = False, rounds: int | None = None, threads: int = 1) -> dict:
+    """Measure the standard and the small-trial workloads; ``quick`` shrinks them."""
+    rounds = rounds or (1 if quick else 5)
+    with threadpool_limits(limits=threads), warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        gflops = sgemm_gflops()
+        lines, figures = _standard(quick, rounds, threads)
+        small_lines, small_figures = _small(quick, rounds + 2, threads, gflops)
+    figures.update(small_figures)
+    return {"title": "engine", "lines": lines + small_lines, "figures": figures}
