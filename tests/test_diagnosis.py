@@ -12,10 +12,12 @@ as what it was built to be:
 - a learning rate of 1e-5: the training score stays below what scikit-learn's
   ``Ridge`` scores on unseen rows (underfit, the results document's rule
   recomputed with scikit-learn as the reference);
-- a large network on 40 noisy rows: the held-out loss, measured per epoch from
-  an SGD run without momentum continued one epoch at a time (so each step is the
-  one a single run takes), rises while the training loss falls; and the
-  train-test gap (from ``sklearn.metrics.r2_score``) when no curve is recorded;
+- a large network on 40 noisy rows: the held-out loss the engine records per
+  epoch (``fit(..., held_out=...)``; checked against half the mean squared error
+  computed by hand after every epoch of an SGD run without momentum continued one
+  epoch at a time) rises while the training loss falls; and the train-test gap
+  (from ``sklearn.metrics.r2_score``) when no curve is recorded; the same from the
+  curves real sweep trials store (``run_trial`` on a 60-row noisy table);
 - a normal fit: diagnosed as training normally.
 
 Outside references for the rest: the remedies for dead units keep a gradient for
@@ -254,17 +256,20 @@ def _overfit_run():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         for _ in range(200):
-            est.fit(X_tr, y_tr)
+            est.fit(X_tr, y_tr, held_out=(X_te, y_te))  # the engine records test_loss
             held.append(0.5 * float(np.mean((y_te - est.predict(X_te)) ** 2)))
     t, out = _trial(est, X_tr, y_tr, X_te, y_te)
+    # the recorded curve is half the mean squared error on the held-out rows (scikit-learn's
+    # MLP squared loss), computed here by hand after every epoch
+    np.testing.assert_allclose(t["history"]["test_loss"], held, rtol=1e-9)
     return t, out, held
 
 
 def test_a_huge_network_on_a_small_noisy_table_overfits():
-    t, out, held = _overfit_run()
+    t_curve, out, held = _overfit_run()
+    t = dict(t_curve, history={k: v for k, v in t_curve["history"].items() if k != "test_loss"})
     assert t["train_score"] > 0.9 and t["test_score"] < 0.3
-    # from the held-out curve: its minimum comes early, then it rises
-    t_curve = dict(t, history=dict(t["history"], test_loss=held))
+    # from the held-out curve the engine recorded: its minimum comes early, then it rises
     d = diagnose([t_curve], hidden="relu", head="identity", task="regression", epochs=200,
                  metric="r2", outputs=[out], target_sd=1.0)
     assert d["codes"] == ["overfit"]
@@ -285,6 +290,45 @@ def test_a_huge_network_on_a_small_noisy_table_overfits():
     d = diagnose([t_val], hidden="relu", head="identity", task="regression", epochs=200,
                  metric="r2")
     assert d["codes"] == ["overfit"] and d["findings"][0]["evidence"] == "val_score"
+
+
+def test_the_curves_a_sweep_stores_show_overfitting(tmp_path):
+    """End to end: the same kind of table (60 noisy rows, 64x64 relu, Adam, no L2) run as the
+    sweep runs its trials (workbench.sweep.trials.run_trial, three folds): the stored
+    ``history["test_loss"]`` of the real trials gives the over-fitting finding."""
+    import pandas as pd
+
+    from workbench.sweep.plan import build_plan
+    from workbench.sweep.runner import load_data
+    from workbench.sweep.trials import run_trial
+
+    rng = np.random.default_rng(1)
+    X = rng.standard_normal((60, 8))
+    frame = pd.DataFrame(X, columns=[f"x{i}" for i in range(8)])
+    frame["target"] = X[:, 0] + 2.0 * rng.standard_normal(60)
+    frame.to_csv(tmp_path / "noisy.csv", index=False)
+    plan = build_plan(tmp_path / "noisy.csv", "target", hidden="relu", output="identity",
+                      layers=["64,64"], learning_rates=["0.01"], alphas=["0"], folds=3,
+                      repeats=1, epochs=200)
+    data, _ = load_data(plan)
+    cfg = plan.configurations()[0].to_dict()
+    trials = []
+    for fold, (tr, te) in sorted(plan.fold_indices(data.y).items()):
+        trials.append(run_trial(data, {
+            "config": cfg, "repeat": fold[0], "fold": fold[1], "train": tr, "test": te,
+            "random_state": plan.model_seed(*fold), "task": plan.task, "metric": plan.metric,
+            "epochs": plan.epochs, "early_stopping": False, "batch_size": plan.batch_size,
+            "dtype": plan.dtype}))
+    for t in trials:
+        assert t["status"] == "done"
+        assert len(t["history"]["test_loss"]) == len(t["history"]["loss"]) == t["epochs"]
+    d = diagnose(trials, hidden="relu", head="identity", task="regression", epochs=200,
+                 metric="r2")
+    assert d["codes"] == ["overfit"]
+    assert d["findings"][0]["evidence"] == "test_loss"
+    rises = [(max(h[-1:]) - min(h)) / min(h) for h in (t["history"]["test_loss"]
+                                                        for t in trials)]
+    assert f"{float(np.median(rises)):.0%} above" in d["findings"][0]["text"]
 
 
 def test_an_error_score_gap_is_judged_against_the_score_size():

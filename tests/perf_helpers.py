@@ -1,0 +1,183 @@
+"""Measurements behind the held-out curves, the health schedule and the workers' memory.
+
+Not a test module (pytest does not collect it) and never run by the suite: speed and
+memory are measured, not asserted. Each function prints its figures; run e.g.
+
+    python tests/perf_helpers.py curves      # a default kiln trial with / without curves
+    python tests/perf_helpers.py health      # health every epoch against the schedule
+    python tests/perf_helpers.py memory      # a worker's peak RSS on a 200,000 x 22 table
+
+Timings are medians of interleaved runs in one process (quote them with ``uptime``'s
+load average: the machine is shared).
+"""
+
+from __future__ import annotations
+
+import os
+import statistics
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+SAMPLES = Path(__file__).resolve().parents[1] / "sample_sets"
+
+
+def trial(table, target, config=0, fold=0, **options):
+    """``(plan, data, spec)`` of one trial of the plan ``build_plan(table, target, **options)``."""
+    from workbench.sweep.plan import build_plan
+    from workbench.sweep.runner import load_data
+
+    plan = build_plan(table, target, **options)
+    data, _ = load_data(plan)
+    tr, te = plan.fold_indices(data.y)[(0, fold)]
+    c = plan.configurations()[config]
+    spec = {"config": c.to_dict(), "repeat": 0, "fold": fold, "train": tr.astype(np.int32),
+            "test": te.astype(np.int32), "random_state": plan.model_seed(0, fold),
+            "task": plan.task, "metric": plan.metric, "epochs": plan.epochs,
+            "early_stopping": plan.early_stopping, "batch_size": plan.batch_size,
+            "dtype": plan.dtype}
+    return plan, data, spec
+
+
+def curves_cost(runs: int = 15) -> dict:
+    """Fit seconds of the default kiln trial (relu/logistic [64], 200 epochs, ROC AUC) with
+    and without the held-out curves, interleaved; the extra share of the fit time."""
+    from workbench.sweep.trials import run_trial
+
+    _, data, spec = trial(SAMPLES / "kiln_batches.csv", "passes_inspection")
+    off = dict(spec, curves=False)
+    run_trial(data, spec)
+    run_trial(data, off)
+    on_s, off_s = [], []
+    for _ in range(runs):
+        off_s.append(run_trial(data, off)["fit_seconds"])
+        on_s.append(run_trial(data, spec)["fit_seconds"])
+    a, b = statistics.median(on_s), statistics.median(off_s)
+    out = {"with_curves_ms": a * 1e3, "without_ms": b * 1e3, "extra_share": a / b - 1}
+    print(f"default kiln trial, median of {runs} interleaved: with curves {a * 1e3:.1f} ms, "
+          f"without {b * 1e3:.1f} ms, extra {100 * (a / b - 1):.1f}% of the fit time")
+    return out
+
+
+def health_cost(runs: int = 15) -> dict:
+    """A typical small fit (2,000 x 15, one layer of 32, batch 200, 100 epochs, tanh):
+    health every epoch (the former rule) against the schedule, and no health at all."""
+    from sklearn.datasets import make_regression
+
+    from workbench.nets import engine
+
+    X, y = make_regression(2000, 15, noise=10.0, random_state=0)
+    y = (y - y.mean()) / y.std()
+    kw = dict(hidden_layer_sizes=(32,), activation="tanh", batch_size=200, max_iter=100,
+              tol=0.0, random_state=0)
+
+    def fit(rule, monitor=True):
+        saved = engine.health_due
+        if rule is not None:
+            engine.health_due = rule
+        try:
+            t = time.perf_counter()
+            engine.NetRegressor(monitor_health=monitor, **kw).fit(X, y)
+            return time.perf_counter() - t
+        finally:
+            engine.health_due = saved
+
+    import warnings
+
+    warnings.simplefilter("ignore")
+    every, sched, none = [], [], []
+    for _ in range(2):
+        fit(lambda e: True), fit(None), fit(None, False)
+    for _ in range(runs):
+        every.append(fit(lambda e: True))
+        sched.append(fit(None))
+        none.append(fit(None, False))
+    a, b, c = (statistics.median(v) for v in (every, sched, none))
+    print(f"2000x15, [32] tanh, batch 200, 100 epochs, median of {runs} interleaved: health "
+          f"every epoch {a * 1e3:.1f} ms, on the schedule {b * 1e3:.1f} ms, none "
+          f"{c * 1e3:.1f} ms; schedule saves {100 * (1 - b / a):.1f}% of the fit")
+    return {"every_ms": a * 1e3, "schedule_ms": b * 1e3, "none_ms": c * 1e3}
+
+
+def synthetic_table(path, rows: int = 200_000, seed: int = 0) -> Path:
+    """A 200,000 x 22 table (about 32 MB of CSV): 18 numeric columns, 3 categorical,
+    and a numeric target."""
+    import pandas as pd
+
+    rng = np.random.default_rng(seed)
+    cols = {f"x{i}": np.round(rng.normal(size=rows), 4) for i in range(18)}
+    cols["site"] = rng.choice(["north", "south", "east", "west"], rows)
+    cols["kind"] = rng.choice(["a", "b", "c"], rows)
+    cols["shift"] = rng.choice(["early", "late"], rows)
+    z = sum(cols[f"x{i}"] * (i % 3 - 1) for i in range(18))
+    cols["target"] = np.round(z + rng.normal(size=rows), 4)
+    path = Path(path)
+    pd.DataFrame(cols).to_csv(path, index=False)
+    return path
+
+
+_WORKER = r"""
+import json, pickle, resource, sys
+from workbench.sweep import trials
+import workbench.nets.engine, workbench.data.preprocessing, sklearn.compose, pandas
+base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+with open(sys.argv[1], "rb") as fh:
+    spec = pickle.load(fh)
+res = trials.run_trial_from_file(spec.pop("_token"), spec.pop("_path"), spec)
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+print(json.dumps({"base_kb": base, "peak_kb": peak, "status": res["status"],
+                  "test_score": res["test_score"], "error": res["error"]}))
+"""
+
+
+def worker_peak(csv, folder, epochs: int = 2) -> dict:
+    """Peak RSS of a fresh worker process that runs one trial of ``csv`` from the file
+    the parent writes (:func:`workbench.sweep.trials.save_worker_data`), next to the
+    RSS it had after its imports; the table's numeric size for scale."""
+    import json
+    import pickle
+    import subprocess
+
+    from workbench.sweep.trials import save_worker_data
+
+    plan, data, spec = trial(csv, "target", layers=["32"], epochs=epochs, folds=5, repeats=1,
+                             hidden="relu", learning_rates=["0.001"])
+    path = os.path.join(folder, "table.bin")
+    save_worker_data(data, path)
+    spec_path = os.path.join(folder, "spec.pkl")
+    with open(spec_path, "wb") as fh:
+        pickle.dump(dict(spec, _token=data.token, _path=path), fh)
+    out = subprocess.run([sys.executable, "-c", _WORKER, spec_path], capture_output=True,
+                         text=True, timeout=900, env=dict(os.environ, OMP_NUM_THREADS="1",
+                                                          OPENBLAS_NUM_THREADS="1"))
+    if out.returncode:
+        raise RuntimeError(out.stderr[-2000:])
+    got = json.loads(out.stdout.strip().splitlines()[-1])
+    numeric = data.X.select_dtypes("number").to_numpy().nbytes
+    got["numeric_mb"] = numeric / 2**20
+    got["base_mb"], got["peak_mb"] = got["base_kb"] / 1024, got["peak_kb"] / 1024
+    got["peak_over_base_mb"] = got["peak_mb"] - got["base_mb"]
+    got["file_mb"] = sum(f.stat().st_size for f in Path(folder).glob("table.bin*")) / 2**20
+    print(f"table {csv}: numeric feature columns {got['numeric_mb']:.1f} MB; worker after "
+          f"imports {got['base_mb']:.0f} MB, peak {got['peak_mb']:.0f} MB (+"
+          f"{got['peak_over_base_mb']:.0f} MB = {got['peak_over_base_mb'] / got['numeric_mb']:.2f}"
+          f" x the numeric size); copy on disk {got['file_mb']:.1f} MB; {got['status']} "
+          f"{got['test_score']}")
+    return got
+
+
+def memory(folder=None) -> dict:
+    import tempfile
+
+    folder = folder or tempfile.mkdtemp(prefix="wb-mem-")
+    csv = Path(folder) / "big.csv"
+    if not csv.exists():
+        synthetic_table(csv)
+    return worker_peak(csv, folder)
+
+
+if __name__ == "__main__":
+    what = sys.argv[1] if len(sys.argv) > 1 else "curves"
+    {"curves": curves_cost, "health": health_cost, "memory": memory}[what]()
