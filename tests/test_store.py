@@ -250,3 +250,43 @@ def test_rows_round_trip_with_the_labels_json_and_numpy_give(tmp_path, labels):
         assert st.sweep_rows("nope") is None
         with pytest.raises(ValueError, match="the target has 3 rows"):
             st.put_rows("x", target[:3], folds)
+
+
+def test_a_schema_2_store_gains_the_stopped_table_and_keeps_its_sweeps(tmp_path):
+    """Schema 3 adds ``stopped`` (racing); a store written by schema 2 is migrated in place,
+    its sweeps and trials kept, and ends with the tables of a new store."""
+    old, new = tmp_path / "old.sqlite", tmp_path / "new.sqlite"
+    with Store(old) as st:
+        st.create_sweep("a", PLAN, FP, CONFIGS)
+        st.add_trial("a", _trial())
+    con = sqlite3.connect(old)
+    con.execute("DROP TABLE stopped")
+    con.execute("PRAGMA user_version = 2")
+    con.commit()
+    con.close()
+    with Store(old) as st:
+        assert st.schema_version == SCHEMA_VERSION == 3
+        assert st.finished_keys("a") == {(0, 0, 0)} and st.stopped("a") == {}
+    Store(new).close()
+
+    def schema(path):
+        con = sqlite3.connect(path)
+        rows = sorted(con.execute("SELECT name, sql FROM sqlite_master WHERE type='table'"))
+        con.close()
+        return rows
+
+    assert schema(old) == schema(new)
+
+
+def test_a_stopped_configuration_is_recorded_once(tmp_path):
+    record = {"config_index": 0, "after_repeat": 0, "after_fold": 1, "n_scores": 2,
+              "best_index": 1, "difference": -0.5, "p_worse": 0.995, "rope": 0.01,
+              "threshold": 0.99, "reason": "worse"}
+    with Store(tmp_path / "s.sqlite") as st:
+        st.create_sweep("a", PLAN, FP, CONFIGS)
+        st.add_stopped("a", record)
+        st.add_stopped("a", dict(record, after_fold=0, reason="again"))  # the first stays
+        (got,) = st.stopped("a").values()
+        assert {k: got[k] for k in record} == record
+        assert got["stopped"]
+        assert st.stopped("b") == {}

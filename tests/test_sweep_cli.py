@@ -179,3 +179,128 @@ def test_bad_options_exit_2(tmp_path, bad, capsys):
     assert rc == 2
     err = capsys.readouterr().err.strip()
     assert err.startswith("workbench: ") and "\n" not in err
+
+
+# --------------------------------------------------------------------------- racing, ETA
+
+
+def test_sweep_race_prints_the_stops_and_marks_them_in_the_table_and_json(tmp_path, capsys):
+    """--race on scikit-learn's diabetes rows with a hopeless learning rate (1e-6): a line
+    per stopped configuration on stderr (which, after which repeat and fold), the table's
+    status column and the JSON say "stopped (racing)", the sweep's summary line counts the
+    trials not run."""
+    from sklearn.datasets import load_diabetes
+
+    load_diabetes(as_frame=True).frame.iloc[:240].to_csv(tmp_path / "d.csv", index=False)
+    out = tmp_path / "r.json"
+    assert main(["sweep", str(tmp_path / "d.csv"), "--target", "target", "--hidden", "relu",
+                 "--output", "identity", "--layers", "8", "--learning-rate", "0.03,0.000001",
+                 "--folds", "3", "--repeats", "3", "--epochs", "15", "--jobs", "1", "--race",
+                 "--store", str(tmp_path / "s.sqlite"), "--json", str(out)]) == 0
+    cap = capsys.readouterr()
+    (line,) = [x for x in cap.err.splitlines() if x.startswith("racing: stopped")]
+    assert "lr=1e-06" in line and "after repeat" in line and "trials not run" in line
+    assert re.search(r"racing stopped 1 configuration \((\d+) trials? not run\)", cap.err)
+    res = json.loads(out.read_text())
+    (stopped,) = [c for c in res["configurations"] if c["stopped"]]
+    assert stopped["status"] == "stopped (racing)" and stopped["learning_rate"] == 1e-6
+    assert res["plan"]["race"] is True
+    assert "stopped (racing)" in cap.out  # the table's status column and the statement
+    assert res["verdict"]["recommended"]["index"] != stopped["index"]
+
+
+def test_resume_refuses_race_since_the_plan_says_it():
+    from workbench.errors import EXIT_BAD_INPUT
+
+    assert main(["sweep", "--resume", "x", "--race"]) == EXIT_BAD_INPUT
+
+
+def _events(times, n_todo=100, workers=2):
+    """A made-up event stream: sweep_started at 0, then a trial_finished at each time."""
+    yield {"type": "sweep_started", "sweep_id": "S", "n_todo": n_todo, "n_trials": n_todo,
+           "n_configurations": 5, "resumed": False, "backend": "processes",
+           "workers": workers, "time": 1000.0}
+    for i, t in enumerate(times, start=1):
+        yield {"type": "trial_finished", "status": "done", "n_finished": i, "n_todo": n_todo,
+               "best_mean": None, "best_label": None, "time": 1000.0 + t}
+
+
+def test_eta_waits_for_enough_trials_then_uses_the_recent_rate():
+    """Workers start slowly (the first two trials finish together after 11 s), then a trial
+    finishes every 0.5 s. The old rule (elapsed / done x left) said 18 minutes after the
+    first trial; now the ETA says estimating until 5 of 100 trials (5 %) have finished,
+    then the rate of the recent finishes: 2 per second, so 95 left take 47.5 s."""
+    import io
+
+    from workbench.commands.sweep import Progress
+
+    p = Progress(stream=io.StringIO())
+    times = [11.0, 11.0] + [11.0 + 0.5 * k for k in range(1, 60)]
+    etas = []
+    for ev in _events(times):
+        p(ev)
+        if ev["type"] == "trial_finished":
+            etas.append(p.eta())
+    assert etas[:4] == [None] * 4
+    assert etas[4] == pytest.approx(95 / ((5 - 1) / 1.5))  # from the 1st to the 5th finish
+    assert etas[-1] == pytest.approx((100 - 61) / 2.0)  # the last 20 finishes: 2 per second
+    # the bar says so in words
+    q = Progress(stream=io.StringIO())
+    for ev in list(_events([11.0], n_todo=4)):
+        q(ev)
+    assert "ETA estimating..." in q.stream.getvalue()
+
+
+def test_eta_needs_two_distinct_finish_times_and_one_trial_per_worker():
+    import io
+
+    from workbench.commands.sweep import Progress
+
+    p = Progress(stream=io.StringIO())
+    for ev in _events([5.0] * 8, n_todo=20, workers=2):
+        p(ev)
+    assert p.eta() is None  # 8 trials, but all at one moment: no rate
+    p(next(iter([{"type": "trial_finished", "status": "done", "n_finished": 9, "n_todo": 20,
+                  "best_mean": None, "best_label": None, "time": 1007.0}])))
+    assert p.eta() == pytest.approx(11 / (8 / 2.0))
+    q = Progress(stream=io.StringIO())
+    for ev in _events([1.0, 2.0, 3.0], n_todo=20, workers=4):
+        q(ev)
+    assert q.eta() is None  # fewer finished trials than workers
+
+
+def test_a_stop_event_shrinks_the_trials_left_and_prints_a_line():
+    import io
+
+    from workbench.commands.sweep import Progress
+
+    p = Progress(stream=io.StringIO())
+    for ev in _events([1.0, 2.0], n_todo=30):
+        p(ev)
+    p({"type": "configuration_stopped", "config_index": 3, "label": "relu/identity [8] lr=1e-06",
+       "after_repeat": 0, "after_fold": 4, "n_scores": 5, "best_index": 0,
+       "best_label": "relu/identity [8] lr=0.03", "difference": -0.4, "p_worse": 0.995,
+       "rope": 0.01, "reason": "...", "n_skipped": 10, "n_todo": 20, "time": 1003.0})
+    assert p.n_todo == 20
+    text = p.stream.getvalue()
+    assert ("racing: stopped relu/identity [8] lr=1e-06 after repeat 1, fold 5 (5 fold "
+            "scores): worse than relu/identity [8] lr=0.03 by 0.4 on average") in text
+    assert "10 trials not run" in text
+
+
+def test_the_sweep_command_module_imports_only_the_standard_library():
+    """``workbench --help`` builds every sub-command's parser: the sweep command's module
+    must not pull in NumPy, pandas, scikit-learn or the sweep package when imported."""
+    code = ("import sys, workbench.commands.sweep; "
+            "heavy = [m for m in ('numpy', 'pandas', 'sklearn', 'scipy', 'workbench.sweep', "
+            "'workbench.data') if m in sys.modules]; print(heavy)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout.strip()
+    assert out == "[]"
+
+
+def test_the_kinds_written_out_in_the_command_are_the_profiles():
+    from workbench.commands.sweep import KINDS
+    from workbench.data.profiling import KINDS as PROFILE_KINDS
+
+    assert KINDS == PROFILE_KINDS
