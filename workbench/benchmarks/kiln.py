@@ -284,7 +284,9 @@ print(json.dumps({"parent": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss *
 
 _BASE_CHILD = r"""
 import json, resource
-import workbench.sweep.trials  # noqa: F401  (what a worker imports before its first trial)
+# what a worker has imported when its first trial starts
+import pandas, sklearn.compose, workbench.data.preprocessing, workbench.nets.engine  # noqa
+import workbench.sweep.trials  # noqa: F401
 print(json.dumps({"base": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024}))
 """
 
