@@ -13,11 +13,13 @@ import subprocess
 import sys
 from html.parser import HTMLParser
 
+import numpy as np
 import pytest
 from export_helpers import FORMULA_COL, REG_TARGET, SCRIPT_COL, make_sweep
 
 from workbench.export import report
 from workbench.export.bundle import export_configuration
+from workbench.nets.activations import LOSS_LABELS
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
@@ -146,3 +148,59 @@ def test_report_core_does_not_import_qt():
     proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           timeout=60)
     assert proc.returncode == 0, proc.stdout + proc.stderr
+
+
+def _curve_trials(index, loss, held, score, status="done"):
+    return [{"config_index": index, "status": status, "test_score": score[-1] if score else None,
+             "history": {"loss": loss, "test_loss": held, "test_score": score}}
+            for _ in range(2)]
+
+
+def test_learning_curves_draw_training_and_held_out_together_with_named_axes():
+    """The chosen configuration's mean training loss (solid) and held-out loss (dashed, the
+    same values as recorded), the held-out score on the right; the axes carry the loss's
+    and the metric's names. A configuration with another loss is left off the loss axis."""
+    chosen = {"index": 0, "rank": 1, "hidden": "relu", "head": "logistic", "layers": [8]}
+    other = dict(chosen, index=1, rank=2, hidden="tanh")
+    by_cfg = {0: _curve_trials(0, [0.7, 0.5, 0.4], [0.69, 0.6, 0.62], [0.6, 0.7, 0.72]),
+              1: _curve_trials(1, [0.7, 0.6, 0.55], [0.7, 0.65, 0.6], [0.55, 0.6, 0.66])}
+    fig = report.learning_curve_figure(chosen, by_cfg, [chosen, other], "classification",
+                                       "roc_auc")
+    a1, a2 = fig.axes
+    assert a1.get_ylabel() == LOSS_LABELS["log_loss"]  # the registry's name of the loss
+    assert a2.get_ylabel() == "roc_auc (greater is better)"
+    solid = [ln for ln in a1.get_lines() if ln.get_linestyle() == "-"]
+    dashed = [ln for ln in a1.get_lines() if ln.get_linestyle() == "--"]
+    assert len(solid) == len(dashed) == 2
+    assert list(solid[0].get_ydata()) == [0.7, 0.5, 0.4]
+    assert list(dashed[0].get_ydata()) == [0.69, 0.6, 0.62]  # the chosen one's held-out loss
+    assert dashed[0].get_color() == solid[0].get_color()
+    assert [list(ln.get_ydata()) for ln in a2.get_lines()] == [[0.6, 0.7, 0.72],
+                                                              [0.55, 0.6, 0.66]]
+    # a regression head on another target scale is not drawn on the classifier's loss axis
+    odd = dict(other, head="identity")
+    fig = report.learning_curve_figure(chosen, by_cfg, [chosen, odd], "regression", "r2")
+    assert fig.axes[0].get_ylabel() == "half squared error, target scaled to [0, 1]"
+    assert len(fig.axes[0].get_lines()) == 2
+
+
+def test_learning_curves_without_held_out_curves_show_every_fold():
+    chosen = {"index": 0, "rank": 1, "hidden": "relu", "head": "identity", "layers": [8]}
+    by_cfg = {0: _curve_trials(0, [1.0, 0.5], [], [])}
+    fig = report.learning_curve_figure(chosen, by_cfg, [chosen], "regression", "r2")
+    a1, a2 = fig.axes
+    assert [ln.get_linestyle() for ln in a1.get_lines()] == ["-"]
+    assert len(a2.get_lines()) == 2  # each fold's training loss
+    assert a2.get_ylabel() == "half squared error, target in sd units"
+
+
+def test_health_curves_sit_at_the_epochs_they_were_measured_after():
+    """history["health_epoch"] places each measurement; the mean over folds at an epoch
+    only one fold measured is that fold's value (arithmetic mean, NumPy's nanmean)."""
+    a = [[0.0], [0.2], [0.4]]  # measured after epochs 1, 2, 5
+    b = [[0.1], [0.3], [0.5]]  # after epochs 1, 2, 3
+    xs, (curve,) = report._layer_means([a, b], [[1, 2, 5], [1, 2, 3]])
+    assert xs.tolist() == [1, 2, 3, 5]
+    np.testing.assert_allclose(curve, [0.05, 0.25, 0.5, 0.4])
+    xs, (curve,) = report._layer_means([a], [None])  # older stores: every epoch
+    assert xs.tolist() == [1, 2, 3]

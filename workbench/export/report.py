@@ -20,7 +20,8 @@ with Matplotlib's Agg canvas (the core never imports Qt). It holds
   the tie group (configurations not distinguishable from the best), the
   Bayesian decision against the best, epochs run and the train-test gap
   (``underfit`` when the training score itself is poor);
-- learning curves (training loss per epoch on every fold), the fold spread of
+- learning curves (training and held-out loss, and the held-out score, per
+  epoch, mean over folds; :func:`learning_curve_png`), the fold spread of
   the test scores per configuration, and per-layer health (dead and saturated
   units, gradient norms);
 - the diagnosis of every configuration (a column of the ranked table, and the
@@ -132,45 +133,105 @@ def _plain(text: str) -> str:
     return str(text).replace("$", r"\$")
 
 
-def learning_curve_png(chosen: dict, trials_by_cfg: dict, ranked: list[dict]) -> str | None:
-    """Training loss per epoch: every fold of the chosen configuration, and the
-    mean curve of the leading configurations."""
-    mine = [t for t in trials_by_cfg.get(chosen["index"], []) if (t.get("history") or {}).get("loss")]
+def _mean_curve(trials: list[dict], key: str) -> np.ndarray | None:
+    """The per-epoch mean over the trials of ``history[key]`` (NaN-aware; a trial that
+    stopped early leaves its later epochs out), or None when none recorded it."""
+    import warnings
+
+    curves = [t["history"][key] for t in trials if (t.get("history") or {}).get(key)]
+    if not curves:
+        return None
+    n = max(len(x) for x in curves)
+    m = np.full((len(curves), n), np.nan)
+    for i, x in enumerate(curves):
+        m[i, :len(x)] = [np.nan if v is None else v for v in x]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return np.nanmean(m, axis=0)
+
+
+def _loss_words(task: str | None, head: str) -> tuple[str, str]:
+    """``(kind, words)`` of a head's training loss (:func:`workbench.sweep.diagnosis.loss_kind`)."""
+    from workbench.sweep.diagnosis import loss_kind
+
+    try:
+        return loss_kind(task or "regression", head)
+    except (KeyError, ValueError):
+        return head, "training loss"
+
+
+def learning_curve_png(chosen: dict, trials_by_cfg: dict, ranked: list[dict],
+                       task: str | None = None, metric: str | None = None) -> str | None:
+    """:func:`learning_curve_figure` as an embedded PNG (None when nothing was recorded)."""
+    fig = learning_curve_figure(chosen, trials_by_cfg, ranked, task, metric)
+    return None if fig is None else _png(fig)
+
+
+def learning_curve_figure(chosen: dict, trials_by_cfg: dict, ranked: list[dict],
+                          task: str | None = None, metric: str | None = None):
+    """Training and held-out curves per epoch, mean over folds (a Matplotlib figure).
+
+    Left: the training loss (solid) and the held-out fold's loss (dashed, the same loss
+    in the same units) of the exported configuration and the leading ones whose loss
+    is comparable (same loss and target scaling), the axis named by the loss. Right:
+    the held-out fold's metric per epoch (``history["test_score"]``) of the leading
+    configurations, the axis named by the metric; where no held-out curve was recorded
+    (scikit-learn's engine, older sweeps) every fold's training loss of the exported
+    configuration instead.
+    """
+    mine = [t for t in trials_by_cfg.get(chosen["index"], [])
+            if (t.get("history") or {}).get("loss")]
     if not mine:
         return None
-    fig, (a1, a2) = _figure(10, 3.6, 2)
-    for t in mine:
-        loss = [np.nan if v is None else v for v in t["history"]["loss"]]
-        a1.plot(np.arange(1, len(loss) + 1), loss, lw=1, alpha=.7)
-    a1.set_title(_plain(f"{_label(chosen)}: every fold"), fontsize=9)
-    a1.set_xlabel("epoch")
-    a1.set_ylabel("training loss")
-    for c in ranked[:6]:
-        curves = [t["history"]["loss"] for t in trials_by_cfg.get(c["index"], [])
-                  if (t.get("history") or {}).get("loss")]
-        if not curves:
+    kind, words = _loss_words(task, chosen["head"])
+    leading = [chosen] + [c for c in ranked[:6] if c["index"] != chosen["index"]]
+    fig, (a1, a2) = _figure(10, 3.8, 2)
+    colours = {}
+    any_test = False
+    for c in leading:
+        if _loss_words(task, c["head"])[0] != kind:
+            continue  # another loss or target scale: not on this axis
+        ts = trials_by_cfg.get(c["index"], [])
+        train = _mean_curve(ts, "loss")
+        if train is None:
             continue
-        n = max(len(x) for x in curves)
-        m = np.full((len(curves), n), np.nan)
-        for i, x in enumerate(curves):
-            m[i, :len(x)] = [np.nan if v is None else v for v in x]
-        with np.errstate(all="ignore"):
-            import warnings
-
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", RuntimeWarning)
-                mean = np.nanmean(m, axis=0)
-        a2.plot(np.arange(1, n + 1), mean, lw=2 if c["index"] == chosen["index"] else 1,
-                label=_plain(_label(c)))
-    a2.set_title("mean over folds, leading configurations", fontsize=9)
-    a2.set_xlabel("epoch")
-    lo, hi = a2.get_ylim()
+        width = 2.2 if c["index"] == chosen["index"] else 1.0
+        line, = a1.plot(np.arange(1, train.size + 1), train, lw=width,
+                        label=_plain(_label(c)))
+        colours[c["index"]] = line.get_color()
+        held = _mean_curve([t for t in ts if t.get("status") == "done"], "test_loss")
+        if held is not None:
+            any_test = True
+            a1.plot(np.arange(1, held.size + 1), held, lw=width, ls="--",
+                    color=line.get_color())
+    a1.set_title("training (solid) and held-out fold (dashed) loss\nmean over folds"
+                 if any_test else "training loss, mean over folds", fontsize=9)
+    a1.set_xlabel("epoch")
+    a1.set_ylabel(_plain(words))
+    lo, hi = a1.get_ylim()
     if lo > 0 and hi / lo > 20:
-        a2.set_yscale("log")
-    a2.legend(fontsize=7)
-    a2.text(0.0, -0.28, "losses of different heads (squared error, Poisson, log-loss) are on "
-            "different scales", transform=a2.transAxes, fontsize=7, color="#666")
-    return _png(fig)
+        a1.set_yscale("log")
+    a1.legend(fontsize=7)
+    scored = [(c, _mean_curve([t for t in trials_by_cfg.get(c["index"], [])
+                               if t.get("status") == "done"], "test_score")) for c in leading]
+    scored = [(c, v) for c, v in scored if v is not None]
+    if scored:
+        for c, v in scored:
+            a2.plot(np.arange(1, v.size + 1), v, lw=2.2 if c["index"] == chosen["index"] else 1.0,
+                    color=colours.get(c["index"]), label=_plain(_label(c)))
+        a2.set_title("held-out fold's score, mean over folds\n(the last point is the "
+                     "stored score)", fontsize=9)
+        a2.set_ylabel(_plain(f"{metric or 'score'} (greater is better)"))
+        if len(scored) > len(colours):
+            a2.legend(fontsize=7)
+    else:
+        for t in mine:
+            loss = [np.nan if v is None else v for v in t["history"]["loss"]]
+            a2.plot(np.arange(1, len(loss) + 1), loss, lw=1, alpha=.7)
+        a2.set_title(_plain(f"{_label(chosen)}: every fold's training loss"), fontsize=9)
+        a2.set_ylabel(_plain(words))
+    a2.set_xlabel("epoch")
+    return fig
 
 
 def fold_spread_png(ranked: list[dict], metric: str, chosen_index: int) -> str | None:
@@ -196,44 +257,49 @@ def fold_spread_png(ranked: list[dict], metric: str, chosen_index: int) -> str |
     return _png(fig)
 
 
-def _layer_means(series: list) -> list[np.ndarray]:
-    """``series[fold][epoch][layer]`` -> one per-epoch mean curve per layer (NaN-aware)."""
+def _layer_means(series: list, epochs: list | None = None) -> tuple[np.ndarray, list[np.ndarray]]:
+    """``series[fold][k][layer]`` measured after epochs ``epochs[fold][k]`` (1-based;
+    default 1, 2, ...) -> the epochs any fold measured and one mean curve per layer over
+    them (NaN-aware: a fold that did not measure an epoch is left out of its mean)."""
     import warnings
 
-    n_ep = max(len(s) for s in series)
+    epochs = [list(e) if e else list(range(1, len(s) + 1))
+              for s, e in zip(series, epochs or [None] * len(series))]
+    xs = np.array(sorted({int(x) for e in epochs for x in e}), dtype=int)
+    where = {x: j for j, x in enumerate(xs)}
     n_layers = max((len(e) for s in series for e in s if e), default=0)
     curves = []
     for layer in range(n_layers):
-        m = np.full((len(series), n_ep), np.nan)
-        for i, s in enumerate(series):
-            for j, e in enumerate(s):
+        m = np.full((len(series), xs.size), np.nan)
+        for i, (s, ep) in enumerate(zip(series, epochs)):
+            for x, e in zip(ep, s):
                 if e and layer < len(e) and e[layer] is not None:
-                    m[i, j] = e[layer]
+                    m[i, where[int(x)]] = e[layer]
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
             curves.append(np.nanmean(m, axis=0))
-    return curves
+    return xs, curves
 
 
 def health_png(chosen: dict, trials: list[dict]) -> str | None:
     """Dead and saturated share per hidden layer, and gradient norm per weight layer,
-    over epochs (mean over folds)."""
+    over the epochs they were measured after (``history["health_epoch"]``; mean over folds)."""
     hists = [t.get("history") or {} for t in trials]
-    panels = [(key, [h.get(key) for h in hists if h.get(key)]) for key in
+    panels = [(key, [h for h in hists if h.get(key)]) for key in
               ("dead", "saturated", "grad_norm")]
     panels = [(k, s) for k, s in panels if s]
     if not panels:
         return None
     titles = {"dead": "dead units (share of the layer)",
               "saturated": "saturated units (share of the layer)",
-              "grad_norm": "weight-gradient norm (last batch)"}
+              "grad_norm": "weight-gradient norm (probe rows)"}
     fig, axes = _figure(4.2 * len(panels), 3.2, len(panels))
-    for ax, (key, series) in zip(axes, panels):
-        curves = _layer_means(series)
+    for ax, (key, hs) in zip(axes, panels):
+        xs, curves = _layer_means([h[key] for h in hs], [h.get("health_epoch") for h in hs])
         for i, y in enumerate(curves):
             label = (f"layer {i + 1}" if key != "grad_norm" or i < len(curves) - 1
                      else "output layer")
-            ax.plot(np.arange(1, len(y) + 1), y, label=label)
+            ax.plot(xs, y, label=label)
         if key == "grad_norm":
             finite = np.concatenate([c[np.isfinite(c)] for c in curves]) if curves else []
             if len(finite) and np.min(finite) > 0:
@@ -524,8 +590,13 @@ def render_report(results: dict, chosen: dict, configuration: dict | None, trial
 
     # ---------------------------------------------------------------- figures
     w("<h2>Learning curves</h2>")
-    w(_img(learning_curve_png(chosen, by_cfg, [c for c in ranked if c['mean'] is not None]),
-           "learning curves"))
+    w("<p class=\"muted\">Left: the training loss (solid) and the held-out fold's loss "
+      "(dashed: the rows each fold's model never trained on, the same loss in the same "
+      "units), mean over folds, for the exported configuration and the leading ones whose "
+      "loss is comparable. Right: the held-out fold's score per epoch. The held-out curves "
+      "are shown for information only: nothing chose or stopped a model by them.</p>")
+    w(_img(learning_curve_png(chosen, by_cfg, [c for c in ranked if c['mean'] is not None],
+                              results.get("task"), metric), "learning curves"))
     w("<h2>Fold spread</h2>")
     w(_img(fold_spread_png(ranked, metric, chosen["index"]), "fold spread"))
     w("<h2>Per-layer health of the exported configuration</h2>")
