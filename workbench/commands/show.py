@@ -1,12 +1,24 @@
-"""``workbench show SWEEP_ID [--store PATH] [--json] [--holm] [--rope R]``.
+"""``workbench show SWEEP_ID [--store PATH] [--json] [--holm] [--rope R] [--cross-check
+[--table PATH]]``.
 
 Prints one stored sweep's results: the verdict on the rules of thumb above the
 ranked table and the baselines, the same as ``workbench sweep`` prints at the
 end, or with ``--json`` the same JSON object that ``workbench sweep --json``
 writes (documented in README.md, section "Sweep results as JSON"). ``--rope``
 sets the region of practical equivalence the decisions use (it is not stored
-with the sweep; default per metric). Exit status 0, or 2 for an unknown sweep,
-an unreadable store or a bad ``--rope``.
+with the sweep; default per metric).
+
+``--cross-check`` refits the recommended configuration on the sweep's folds and
+seeds twice, with the engine in its scikit-learn mode and with scikit-learn's own
+MLP, and prints per fold both scores, whether they agree to the parity tolerance
+and the stored (fair-start) score, then the answer in one sentence
+(:func:`workbench.sweep.cross_check.cross_check`); a configuration scikit-learn
+cannot express gets one line saying why. With ``--json`` the results object gets
+a ``cross_check`` member (:meth:`workbench.sweep.cross_check.CrossCheck.to_dict`).
+``--table`` gives the sweep's table when its stored path no longer reaches it.
+
+Exit status 0, or 2 for an unknown sweep, an unreadable store, a bad ``--rope``
+or (with ``--cross-check``) a table that is missing or changed.
 """
 
 from __future__ import annotations
@@ -15,9 +27,6 @@ import json
 import math
 import sys
 import textwrap
-
-from workbench.sweep.results import sweep_results
-from workbench.sweep.store import Store, existing_store_path
 
 NAME = "show"
 HELP = "Print one stored sweep's ranked results (table or JSON)."
@@ -31,6 +40,13 @@ def add_arguments(parser):
     parser.add_argument("--holm", action="store_true",
                         help="judge ties with Holm's correction for the number of comparisons")
     add_rope_argument(parser)
+    parser.add_argument("--cross-check", action="store_true",
+                        help="refit the recommended configuration on the sweep's folds with our "
+                             "engine in scikit-learn's mode and with scikit-learn's MLP, and say "
+                             "per fold whether the scores agree")
+    parser.add_argument("--table", metavar="PATH", default=None,
+                        help="the sweep's table for --cross-check, when its stored path no "
+                             "longer reaches it (its SHA-256 must match)")
 
 
 def add_rope_argument(parser):
@@ -221,12 +237,63 @@ def _diagnosis_column(cfgs, cols, render, width):
     return [f"rank {c['rank']}: {words(c)}" for c in cfgs]
 
 
+def format_cross_check(cc, width: int = 100) -> str:
+    """A :class:`workbench.sweep.cross_check.CrossCheck` as a small table and its sentence."""
+    words = textwrap.wrap(cc.sentence(), width=width, break_on_hyphens=False,
+                          break_long_words=False)
+    if not cc.expressible:
+        return "\n".join(words)
+    rows = [[str(f.repeat + 1), str(f.fold + 1), _fmt(f.engine_score, ".6f"),
+             _fmt(f.sklearn_score, ".6f"), "yes" if f.agree else "NO",
+             _fmt(f.difference, ".1e"), _fmt(f.stored_score, ".4f"),
+             f"{f.engine_epochs}/{f.sklearn_epochs}",
+             f"{f.engine_seconds:.2f}/{f.sklearn_seconds:.2f}"] for f in cc.folds]
+    head = ["repeat", "fold", "engine", "scikit-learn", "agree", "difference", "stored",
+            "epochs", "fit s"]
+    stored = ("the sweep's own score (it ran scikit-learn's MLP)" if cc.stored_engine == "sklearn"
+              else f"the sweep's score (fair start, {cc.configuration.get('dtype', 'float32')})")
+    out = textwrap.wrap(f"cross-check of rank {cc.rank} ({cc.label}), {cc.metric} on the "
+                        "sweep's folds and seeds:", width=width, break_on_hyphens=False,
+                        break_long_words=False) + [""]
+    out += _table(head, rows)
+    out += textwrap.wrap(f"engine = our engine in scikit-learn's mode (its output-layer draw and "
+                         f"absolute stopping rule, float64); scikit-learn = its {cc.estimator}; "
+                         f"stored = {stored}; epochs and fit s: engine/scikit-learn.",
+                         width=width, break_on_hyphens=False, break_long_words=False)
+    out += ["", *words]
+    return "\n".join(out)
+
+
 def run(args) -> int:
+    from workbench.sweep.results import sweep_results
+    from workbench.sweep.store import Store, existing_store_path
+
     with Store(existing_store_path(args.store)) as store:
         res = sweep_results(store, args.sweep_id, holm=args.holm, rope=args.rope)
+        cc = _cross_check(store, args, res) if args.cross_check else None
     if args.json:
+        if cc is not None:
+            res["cross_check"] = cc.to_dict()
         json.dump(res, sys.stdout, indent=2, allow_nan=False)
         sys.stdout.write("\n")
+    elif cc is not None:
+        print(format_cross_check(cc))
     else:
         print(format_results(res))
     return 0
+
+
+def _cross_check(store, args, res):
+    from workbench.errors import InputError
+    from workbench.sweep.cross_check import cross_check
+
+    def progress(done, total):
+        print(f"cross-checked fold {done} of {total}", file=sys.stderr)
+
+    try:
+        return cross_check(store, args.sweep_id, results=res, table=args.table,
+                           on_fold=progress)
+    except InputError as exc:
+        if exc.setting == "table":  # here the table is set with --table
+            raise InputError(f"{exc} (set with --table)") from None
+        raise
