@@ -92,17 +92,55 @@ class _NumericWarnings:
                   file=sys.stderr)
 
 
-def _command_modules():
+def _literal(tree, name):
+    """The value of a module-level ``NAME = <literal>`` in a parsed module, or None."""
+    import ast
+
+    for node in tree.body:
+        if (isinstance(node, ast.Assign) and len(node.targets) == 1
+                and isinstance(node.targets[0], ast.Name) and node.targets[0].id == name):
+            try:
+                return ast.literal_eval(node.value)
+            except ValueError:
+                return None
+    return None
+
+
+def _command_table() -> dict[str, tuple[str, str]]:
+    """``{command: (module, one-line help)}``, read from each command module's source.
+
+    The modules are not imported: a command's ``NAME`` and ``HELP`` are literals that
+    :func:`ast.literal_eval` reads, so ``workbench --help`` loads none of the heavy
+    libraries (NumPy, pandas, scikit-learn, SciPy) that a command's module may import.
+    A module whose ``NAME`` or ``HELP`` is not a literal is imported to read them.
+    """
+    import ast
+    import importlib.util
+
     import workbench.commands as pkg
 
-    mods = []
+    table = {}
     for info in sorted(pkgutil.iter_modules(pkg.__path__), key=lambda i: i.name):
         if info.name.startswith("_"):
             continue
-        mod = importlib.import_module(f"workbench.commands.{info.name}")
-        if hasattr(mod, "NAME") and hasattr(mod, "run"):
-            mods.append(mod)
-    return mods
+        module = f"workbench.commands.{info.name}"
+        spec = importlib.util.find_spec(module)
+        source = spec.loader.get_source(module) if spec and spec.loader else None
+        tree = ast.parse(source) if source else None
+        name, text = (_literal(tree, "NAME"), _literal(tree, "HELP")) if tree else (None, None)
+        if not (isinstance(name, str) and isinstance(text, str)):
+            mod = importlib.import_module(module)
+            if not (hasattr(mod, "NAME") and hasattr(mod, "run")):
+                continue
+            name, text = mod.NAME, mod.HELP
+        table[name] = (module, text)
+    return table
+
+
+def _chosen_command(argv: list[str]) -> str | None:
+    """The command ``argv`` names: its first word that is not an option (the top level's
+    options, ``--help`` and ``--version``, take no value)."""
+    return next((a for a in argv if not a.startswith("-")), None)
 
 
 class _Parser(argparse.ArgumentParser):
@@ -113,7 +151,13 @@ class _Parser(argparse.ArgumentParser):
         self.exit(EXIT_BAD_INPUT, f"{self.prog}: {message}; see {self.prog} --help\n")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(commands=None) -> argparse.ArgumentParser:
+    """The ``workbench`` parser.
+
+    Every command is listed (name and help); the options are added for the commands in
+    ``commands`` (default: all), whose modules are imported to add them. :func:`main`
+    asks only for the command being run, so only its module is imported.
+    """
     parser = _Parser(
         prog="workbench",
         description=(
@@ -123,19 +167,21 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-    for mod in _command_modules():
-        p = sub.add_parser(mod.NAME, help=mod.HELP, description=mod.HELP)
-        mod.add_arguments(p)
-        p.set_defaults(_run=mod.run)
+    for name, (module, text) in _command_table().items():
+        p = sub.add_parser(name, help=text, description=text)
+        if commands is None or name in commands:
+            mod = importlib.import_module(module)
+            mod.add_arguments(p)
+            p.set_defaults(_run=mod.run)
     return parser
 
 
 def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else list(argv)
-    parser = build_parser()
-    args = parser.parse_args(argv)
-    if args.command is None:
-        args = parser.parse_args(["open"])
+    chosen = _chosen_command(argv)
+    args = build_parser([chosen] if chosen else []).parse_args(argv)
+    if args.command is None:  # no command: the window
+        args = build_parser(["open"]).parse_args(["open"])
     try:
         with _NumericWarnings():
             return int(args._run(args) or 0)

@@ -20,10 +20,7 @@ from __future__ import annotations
 import sys
 
 from workbench.errors import InputError
-from workbench.export.bundle import export_configuration
 from workbench.export.formats import FORMATS
-from workbench.export.signature import read_key
-from workbench.sweep.store import Store, existing_store_path
 
 #: the --config value that picks the verdict's recommended configuration
 RECOMMENDED = "recommended"
@@ -56,6 +53,10 @@ def add_arguments(parser):
 
 
 def run(args) -> int:
+    from workbench.export.bundle import export_configuration
+    from workbench.export.signature import read_key
+    from workbench.sweep.store import Store, existing_store_path
+
     def progress(message, fraction):
         if not args.quiet:
             print(f"[{100 * fraction:3.0f}%] {message}", file=sys.stderr)
@@ -70,15 +71,17 @@ def run(args) -> int:
         except InputError as exc:
             raise InputError(f"{exc} (set with --sign-key-file)") from None
     with Store(existing_store_path(args.store)) as store:
-        which = args.config
+        which, res = args.config, None
         if str(which).strip().lower() == RECOMMENDED:
             from workbench.sweep.results import recommended_rank, sweep_results
 
-            which = recommended_rank(sweep_results(store, args.sweep_id))
+            res = sweep_results(store, args.sweep_id)  # computed once, handed to the export
+            which = recommended_rank(res)
         try:
             folder = export_configuration(store, args.sweep_id, which, args.folder,
                                           formats=args.formats, on_progress=progress,
-                                          table=args.table, on_note=note, sign_key=key)
+                                          table=args.table, on_note=note, sign_key=key,
+                                          results=res)
         except InputError as exc:
             if exc.setting == "table":  # here the table is set with --table, not an argument
                 raise InputError(f"{exc} (set with --table)") from None

@@ -14,8 +14,6 @@ import json
 import sys
 from pathlib import Path
 
-from workbench.sweep.store import Store, default_store_path
-
 NAME = "history"
 HELP = "List the stored sweeps with their state (running, finished, interrupted)."
 
@@ -32,6 +30,8 @@ def _minute(iso: str | None) -> str:
 
 
 def run(args) -> int:
+    from workbench.sweep.store import Store, default_store_path
+
     path = Path(args.store) if args.store is not None else default_store_path()
     if not path.exists():  # listing must not create a store (nor its folders)
         if args.json:

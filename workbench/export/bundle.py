@@ -65,7 +65,7 @@ def choose_configuration(results: dict, rank_or_best="best") -> dict:
 
 def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
                          formats=None, on_progress=None, table=None, on_note=None,
-                         sign_key: bytes | None = None) -> Path:
+                         sign_key: bytes | None = None, results: dict | None = None) -> Path:
     """Export one configuration of a stored sweep into ``folder``.
 
     Parameters
@@ -94,6 +94,9 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
         A key the user keeps: the folder then also holds the HMAC-SHA256 of its
         manifest (:mod:`workbench.export.signature`), which ``predict`` can check
         with the same key.
+    results : dict, optional
+        The sweep's results document (:func:`workbench.sweep.results.sweep_results`)
+        when the caller has already computed it (it is computed otherwise).
 
     Returns
     -------
@@ -121,7 +124,8 @@ def export_configuration(store, sweep_id: str, rank_or_best="best", folder=None,
     # before any work: a folder that may not be replaced is the first and only word
     prepare_folder(folder, writes=files_of(keys) | {MANIFEST_NAME, SIGNATURE_NAME})
     progress("reading the sweep", 0.0)
-    results = sweep_results(store, sweep_id)
+    if results is None:
+        results = sweep_results(store, sweep_id)
     chosen = choose_configuration(results, rank_or_best)
     plan = SweepPlan.from_dict(results["plan"])
     if table is not None:

@@ -17,8 +17,6 @@ import math
 from datetime import UTC, datetime
 from pathlib import Path
 
-import numpy as np
-
 from workbench import __version__
 from workbench.errors import InputError
 from workbench.export.context import ExportContext
@@ -35,6 +33,8 @@ CONFIGURATION_VERSION = 1
 
 def jsonable(obj):
     """``obj`` with NumPy scalars and arrays made plain JSON values (NaN and inf become None)."""
+    import numpy as np  # here, not at the top: the format registry imports this module
+
     if isinstance(obj, dict):
         return {str(k): jsonable(v) for k, v in obj.items()}
     if isinstance(obj, list | tuple):
@@ -67,6 +67,8 @@ def estimator_description(plan, chosen: dict) -> tuple[str, dict]:
 
 
 def _layer_shapes(ctx: ExportContext) -> list[list[int]]:
+    import numpy as np
+
     from workbench.data.preprocessing import build_preprocessor
 
     X = ctx.data.X

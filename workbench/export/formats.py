@@ -18,6 +18,10 @@ csv        configurations.csv, trials.csv  the sweep's full results, spreadsheet
 report     report.html                     a self-contained report (see workbench.export.report)
 =========  ==============================  ==============================================
 
+The writers import what they need when they run, so that reading the registry (the
+window's dialog, ``workbench export --help``) loads no heavy library and an export
+imports only what its chosen formats use (ONNX, skops, matplotlib for the report).
+
 Adding a format means adding one :func:`export_format` entry below: a key, a
 label and description for the window's export dialog, the files it writes and
 a writer ``write(ctx, folder)`` that reads an
@@ -36,23 +40,15 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from workbench.errors import InputError
-from workbench.export.configuration import (
-    CONFIGURATION_NAME,
-    SCHEMA_NAME,
-    SCHEMA_PATH,
-    validate_configuration,
-)
+from workbench.export.configuration import CONFIGURATION_NAME, SCHEMA_NAME, SCHEMA_PATH
 from workbench.export.context import ExportContext
-from workbench.export.model_files import (
-    JOBLIB_NAME,
-    ONNX_NAME,
-    SKOPS_NAME,
-    save_joblib,
-    save_skops,
-)
-from workbench.export.report import REPORT_NAME, render_report
-from workbench.export.results_csv import CONFIGURATIONS_CSV, TRIALS_CSV, write_results_csv
+from workbench.export.model_files import JOBLIB_NAME, ONNX_NAME, SKOPS_NAME
+from workbench.export.results_csv import CONFIGURATIONS_CSV, TRIALS_CSV
 
+#: the report's file name, :data:`workbench.export.report.REPORT_NAME` (named here because
+#: that module imports NumPy, and this registry is read by ``workbench export --help``,
+#: which must stay light; tests/test_fast_start.py checks that the two agree)
+REPORT_NAME = "report.html"
 #: the name of the reproduce script in the export folder
 SCRIPT_NAME = "reproduce.py"
 #: its source: a module of this package, copied into the folder as it is
@@ -137,6 +133,8 @@ def export_names() -> set[str]:
                "Everything needed to rebuild and re-evaluate the configuration.",
                (CONFIGURATION_NAME, SCHEMA_NAME))
 def _write_json(ctx: ExportContext, folder: Path):
+    from workbench.export.configuration import validate_configuration
+
     conf = ctx.configuration
     validate_configuration(conf)
     (folder / CONFIGURATION_NAME).write_text(json.dumps(conf, indent=2, allow_nan=False) + "\n",
@@ -148,6 +146,8 @@ def _write_json(ctx: ExportContext, folder: Path):
                "Preprocessing + network refitted on every row; loads only trusted types.",
                (SKOPS_NAME,), needs_model=True)
 def _write_skops(ctx: ExportContext, folder: Path):
+    from workbench.export.model_files import save_skops
+
     save_skops(ctx.pipeline, folder / SKOPS_NAME)
 
 
@@ -155,6 +155,8 @@ def _write_skops(ctx: ExportContext, folder: Path):
                "The same pipeline as a pickle; loading a pickle runs code, so share it only "
                "with people who trust you.", (JOBLIB_NAME,), needs_model=True)
 def _write_joblib(ctx: ExportContext, folder: Path):
+    from workbench.export.model_files import save_joblib
+
     save_joblib(ctx.pipeline, folder / JOBLIB_NAME)
 
 
@@ -182,6 +184,8 @@ def _write_script(ctx: ExportContext, folder: Path):
                "One row per configuration and one per trial, safe to open in a spreadsheet.",
                (CONFIGURATIONS_CSV, TRIALS_CSV))
 def _write_csv(ctx: ExportContext, folder: Path):
+    from workbench.export.results_csv import write_results_csv
+
     write_results_csv(ctx.results, ctx.trials, ctx.chosen["index"], folder)
 
 
@@ -189,6 +193,8 @@ def _write_csv(ctx: ExportContext, folder: Path):
                "Table, target, advice, ranking with the tie group, learning curves, fold "
                "spread, layer health and cautions, in one file.", (REPORT_NAME,))
 def _write_report(ctx: ExportContext, folder: Path):
+    from workbench.export.report import render_report
+
     html_text = render_report(ctx.results, ctx.chosen, ctx.configuration, ctx.trials,
                               profile=ctx.profile)
     (folder / REPORT_NAME).write_text(html_text, encoding="utf-8")

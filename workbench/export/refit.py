@@ -13,8 +13,6 @@ from __future__ import annotations
 
 import warnings
 
-import numpy as np
-
 
 def final_fit_seed(plan) -> int:
     """Seed of the refit on every row: that of repeat 0, fold 0 (recorded in the export)."""
@@ -39,6 +37,7 @@ def fit_final_pipeline(plan, chosen: dict, data):
     data : workbench.sweep.runner.TrialData
         The table as the sweep saw it (``X``, ``y``, ``profile``, ``target``).
     """
+    import numpy as np
     from threadpoolctl import threadpool_limits
 
     from workbench.data.preprocessing import build_pipeline

@@ -13,11 +13,10 @@ from __future__ import annotations
 
 import csv
 import math
+import numbers
 from collections.abc import Iterable
 from pathlib import Path
 from typing import TextIO
-
-import numpy as np
 
 #: OWASP "CSV Injection": a cell starting with one of these is read as a formula
 FORMULA_TRIGGERS = ("=", "+", "-", "@", "\t", "\r")
@@ -35,9 +34,13 @@ def neutralise_cell(value) -> str:
         return ""
     if isinstance(value, bool):
         return "true" if value else "false"
-    if isinstance(value, int | np.integer):
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):  # NumPy's float64 too
+        return repr(float(value)) if math.isfinite(value) else ""
+    if isinstance(value, numbers.Integral):  # NumPy's integers (registered as Integral)
         return str(int(value))
-    if isinstance(value, float | np.floating):
+    if isinstance(value, numbers.Real):  # NumPy's other floats
         v = float(value)
         return repr(v) if math.isfinite(v) else ""
     text = str(value)

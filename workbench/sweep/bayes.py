@@ -103,7 +103,6 @@ import math
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from scipy import stats
 
 from workbench.errors import InputError
 
@@ -174,6 +173,8 @@ class Comparison:
             return (math.nan, math.nan)
         if self.scale == 0.0:
             return (self.mean, self.mean)
+        from scipy import stats  # here, not at the top: scipy.stats takes ~0.5 s to import
+
         low, high = stats.t.interval(level, self.df, loc=self.mean, scale=self.scale)
         return (float(low), float(high))
 
@@ -273,6 +274,8 @@ def correlated_ttest(a, b, *, rho: float, rope: float) -> Comparison:
             pb = float(mean > rope)
             pe = 1.0 - pw - pb
     else:
+        from scipy import stats
+
         pw = float(stats.t.cdf(-rope, df, loc=mean, scale=scale))
         pb = float(stats.t.sf(rope, df, loc=mean, scale=scale))
         pe = max(0.0, 1.0 - pw - pb) if rope > 0 else 0.0

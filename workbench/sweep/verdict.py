@@ -89,7 +89,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import stats
 
 from workbench.sweep.bayes import THRESHOLD, compare_with_best, correlated_ttest, decide
 
@@ -234,6 +233,8 @@ def repeats_needed(differences, *, folds: int, repeats: int, rho: float,
         current ones (0 when already decisive), and False (with ``repeats``
         and ``more`` None) when no R up to ``max_repeats`` is enough.
     """
+    from scipy import stats  # here, not at the top: scipy.stats takes ~0.5 s to import
+
     d = np.asarray(differences, dtype=float).ravel()
     K = int(folds)
     if d.size < 2 or K < 2:

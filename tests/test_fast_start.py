@@ -1,0 +1,148 @@
+"""Fast start: the command line's help loads no heavy library, and an export imports only
+what its chosen formats use.
+
+These are wiring tests, not timings (speed is measured in benchmarks): each runs the real
+entry point (``python -m workbench``) in a fresh interpreter and reads ``sys.modules`` at
+its end. The heavy libraries are those the issue measured: NumPy, pandas, SciPy,
+scikit-learn and PySide6 (about 1.5 s of imports together), plus matplotlib, ONNX and
+skops for the export formats.
+"""
+
+from __future__ import annotations
+
+import importlib
+import json
+import subprocess
+import sys
+import textwrap
+
+import pytest
+
+from workbench.cli import _command_table, build_parser
+
+HEAVY = ("numpy", "pandas", "scipy", "sklearn", "PySide6", "matplotlib", "onnx", "skops",
+         "pyarrow")
+
+#: runs ``python -m workbench ARGS`` (through runpy, as the command does) and prints the
+#: heavy top-level packages that were loaded, as JSON after a marker, on stderr
+_PROBE = textwrap.dedent("""
+    import json, runpy, sys
+    args, watched = json.loads(sys.argv[1]), set(json.loads(sys.argv[2]))
+    sys.argv = ["workbench", *args]
+    try:
+        runpy.run_module("workbench", run_name="__main__", alter_sys=True)
+    except SystemExit as exc:
+        code = exc.code
+    else:
+        code = 0
+    heavy = sorted({m.split(".")[0] for m in sys.modules} & watched)
+    print("LOADED=" + json.dumps({"code": code, "heavy": heavy}), file=sys.stderr)
+""")
+
+
+def _run(args: list[str], heavy=HEAVY) -> tuple[dict, str]:
+    proc = subprocess.run([sys.executable, "-c", _PROBE, json.dumps(args), json.dumps(heavy)],
+                          capture_output=True, text=True, timeout=300)
+    line = next(x for x in proc.stderr.splitlines() if x.startswith("LOADED="))
+    return json.loads(line[len("LOADED="):]), proc.stdout
+
+
+@pytest.mark.parametrize("args", [["--help"], ["export", "--help"], ["show", "--help"],
+                                  ["history", "--help"], ["--version"]])
+def test_help_loads_no_heavy_library(args):
+    found, out = _run(args)
+    assert found["code"] in (0, None)
+    assert found["heavy"] == [], f"workbench {' '.join(args)} imported {found['heavy']}"
+    assert out.strip()
+
+
+def test_top_level_help_lists_every_command_with_its_modules_own_help():
+    """The parser reads NAME and HELP from each module's source: they must be the module's."""
+    table = _command_table()
+    assert set(table) == {"bench", "export", "history", "inspect", "open", "predict", "show",
+                          "sweep"}
+    for name, (module, text) in table.items():
+        mod = importlib.import_module(module)
+        assert (mod.NAME, mod.HELP) == (name, text)
+    found, out = _run(["--help"])
+    words = " ".join(out.split())
+    for name, (_, text) in table.items():
+        assert f"{name} {' '.join(text.split())}" in words
+
+
+def test_the_chosen_command_gets_its_options_and_runs(tmp_path, capsys):
+    """Only the chosen command is loaded, with all of its options; a missing store is the
+    history command's own answer (so its run function was the one called)."""
+    from workbench.cli import main
+
+    assert main(["history", "--store", str(tmp_path / "none.sqlite"), "--json"]) == 0
+    assert capsys.readouterr().out.strip() == "[]"
+    with pytest.raises(SystemExit) as exc:
+        main(["nosuchcommand"])
+    assert exc.value.code == 2
+    assert "invalid choice: 'nosuchcommand'" in capsys.readouterr().err
+
+
+def test_the_full_parser_still_has_every_commands_options():
+    import argparse
+
+    sub = next(a for a in build_parser()._actions if isinstance(a, argparse._SubParsersAction))
+    options = {name: {o for a in p._actions for o in a.option_strings}
+               for name, p in sub.choices.items()}
+    assert {"--to", "--formats", "--config"} <= options["export"]
+    assert {"--cross-check", "--rope", "--json"} <= options["show"]
+    assert "--target" in options["sweep"]
+
+
+def test_report_file_name_in_the_registry_is_the_reports():
+    from workbench.export.formats import FORMATS
+    from workbench.export.report import REPORT_NAME
+
+    assert FORMATS["report"].files == (REPORT_NAME,)
+
+
+@pytest.fixture(scope="module")
+def stored(tmp_path_factory):
+    import numpy as np
+    import pandas as pd
+
+    from workbench.sweep.plan import build_plan
+    from workbench.sweep.runner import run_sweep
+    from workbench.sweep.store import Store
+
+    d = tmp_path_factory.mktemp("fast")
+    rng = np.random.default_rng(0)
+    x = rng.normal(size=(80, 2))
+    pd.DataFrame({"a": x[:, 0], "b": x[:, 1], "y": x[:, 0] - x[:, 1]}).to_csv(d / "t.csv",
+                                                                           index=False)
+    plan = build_plan(d / "t.csv", "y", hidden="relu", layers=["3"], folds=2, repeats=1,
+                      epochs=5)
+    with Store(d / "s.sqlite") as st:
+        sid = run_sweep(plan, store=st, backend="inline").sweep_id
+    return d, sid
+
+
+def test_an_export_imports_only_what_its_formats_use(stored):
+    d, sid = stored
+    found, _ = _run(["export", sid, "--store", str(d / "s.sqlite"), "--to", str(d / "e"),
+                     "--formats", "json,csv,script", "--quiet"],
+                    heavy=("onnx", "skl2onnx", "onnxruntime", "skops", "matplotlib", "joblib"))
+    assert found["code"] in (0, None)
+    assert found["heavy"] == ["joblib"]  # scikit-learn's own dependency, not a format's
+    found, _ = _run(["export", sid, "--store", str(d / "s.sqlite"), "--to", str(d / "e"),
+                     "--formats", "skops", "--quiet"], heavy=("onnx", "skops", "matplotlib"))
+    assert found["code"] in (0, None) and found["heavy"] == ["skops"]
+
+
+def test_export_of_the_recommended_configuration_reads_the_results_once(stored, monkeypatch):
+    import workbench.sweep.results as results
+    from workbench.cli import main
+
+    d, sid = stored
+    calls = []
+    real = results.sweep_results
+    monkeypatch.setattr(results, "sweep_results",
+                        lambda *a, **k: calls.append(a[1]) or real(*a, **k))
+    assert main(["export", sid, "--store", str(d / "s.sqlite"), "--to", str(d / "once"),
+                 "--formats", "json", "--quiet"]) == 0
+    assert calls == [sid]
