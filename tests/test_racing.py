@@ -329,3 +329,20 @@ def test_plan_race_is_a_plain_bool_kept_in_the_plan(table):
     with pytest.raises(InputError, match="racing is on or off"):
         SweepPlan.from_dict(dict(plan.to_dict(), race="yes"))
 
+
+
+def test_a_replayed_sweep_stores_what_the_racing_sweep_stored(full_and_raced):
+    """:func:`racing.replay_sweep` copies, beside the full sweep, the trials the race runs:
+    the same trials and scores, the same stops and the same recommendation as the real
+    (inline) racing sweep, without training anything."""
+    fr = full_and_raced
+    with Store(fr["store"]) as st:
+        sid = racing.replay_sweep(st, fr["full"])
+        assert sid == fr["full"] + "-raced"
+        assert _stored(st, sid) == fr["raced_scores"]
+        assert {c: (s["after_repeat"], s["after_fold"]) for c, s in st.stopped(sid).items()} \
+            == {c: (s["after_repeat"], s["after_fold"]) for c, s in fr["stopped"].items()}
+        res = sweep_results(st, sid)
+    assert res["verdict"]["recommended"]["index"] == \
+        fr["raced_res"]["verdict"]["recommended"]["index"]
+    assert res["corrected_best"]["estimate"] == fr["raced_res"]["corrected_best"]["estimate"]

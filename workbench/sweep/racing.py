@@ -276,8 +276,47 @@ def replay(plan, trials, baseline_trials=()) -> dict:
     return {"stopped": race.stopped, "n_trials_needed": needed}
 
 
+def replay_sweep(store, sweep_id: str, new_id: str | None = None) -> str:
+    """Store, beside a full sweep, the racing sweep its plan would have run (no training).
+
+    The new sweep (id ``new_id``, default ``<sweep_id>-raced``) has the same plan with
+    ``race`` on, the full sweep's rows, baselines' trials and, of the networks' trials,
+    those :func:`replay` says racing runs (each with its stored out-of-fold
+    predictions), and the stopped configurations. Its results
+    (:func:`workbench.sweep.results.sweep_results`) are those of a racing sweep that
+    finished no trial of a stopped configuration beyond its last block. Returns its id.
+    """
+    sweep = store.get_sweep(sweep_id)
+    from workbench.sweep.plan import SweepPlan
+
+    plan = SweepPlan.from_dict(sweep["plan"])
+    plan.race = True
+    trials = store.trials(sweep_id, with_history=True)
+    baseline_trials = store.baseline_trials(sweep_id)
+    out = replay(plan, trials, baseline_trials)
+    race = Race(plan, out["stopped"])
+    keep_upto = {c: race._stop_position(c) for c in out["stopped"]}
+    new_id = new_id or f"{sweep_id}-raced"
+    rows = store.sweep_rows(sweep_id)
+    store.create_sweep(new_id, plan.to_dict(), sweep["fingerprint"],
+                       [c.to_dict() for c in plan.configurations()], versions=sweep["versions"],
+                       baselines=store.baselines(sweep_id), rows=rows)
+    position = {k: j for j, k in enumerate(race.blocks)}
+    for t in trials + baseline_trials:
+        c = int(t["config_index"])
+        if c in keep_upto and position[(t["repeat"], t["fold"])] > keep_upto[c]:
+            continue
+        found = store.trial_predictions(sweep_id, c, t["repeat"], t["fold"])
+        copy = dict(t, predictions=None if found is None else found[1])
+        store.add_trial(new_id, copy)
+    for rec in out["stopped"].values():
+        store.add_stopped(new_id, rec)
+    store.set_state(new_id, sweep["state"])
+    return new_id
+
+
 def measure_racing(table, target, *, store=None, jobs=None, folds=5, repeats=3,
-                   **plan_options) -> dict:
+                   rerun: bool = True, **plan_options) -> dict:
     """Run a plan twice on one table -- every trial, then racing -- and compare.
 
     Parameters
@@ -292,6 +331,11 @@ def measure_racing(table, target, *, store=None, jobs=None, folds=5, repeats=3,
         Worker processes (default: the runner's).
     folds, repeats : int
         The plan's K and R (default 5 x 3).
+    rerun : bool
+        Run the racing sweep for real (default); False stores the race replayed on
+        the full sweep's scores instead (:func:`replay_sweep`: the same decisions, half
+        the time; a real racing sweep may also finish a trial of a stopped
+        configuration that was running when it was stopped, at most one per worker).
     **plan_options
         Other options of :func:`workbench.sweep.plan.build_plan` (default: its
         defaults, the default plan of ``workbench sweep``).
@@ -312,6 +356,7 @@ def measure_racing(table, target, *, store=None, jobs=None, folds=5, repeats=3,
     """
     import tempfile
     from pathlib import Path
+    from types import SimpleNamespace
 
     from workbench.sweep.plan import build_plan
     from workbench.sweep.results import sweep_results
@@ -329,7 +374,11 @@ def measure_racing(table, target, *, store=None, jobs=None, folds=5, repeats=3,
             for race in (False, True):
                 plan = build_plan(table, target, folds=folds, repeats=repeats, race=race,
                                   **plan_options)
-                outcome = run_sweep(plan, store=st, jobs=jobs)
+                if race and not rerun:
+                    outcome = SimpleNamespace(sweep_id=replay_sweep(st, runs[False]["sweep_id"]),
+                                              seconds=None)
+                else:
+                    outcome = run_sweep(plan, store=st, jobs=jobs)
                 res = sweep_results(st, outcome.sweep_id)
                 rec = (res.get("verdict") or {}).get("recommended") or {}
                 label = next((f"{c['hidden']}/{c['head']} lr {c['learning_rate']:g}"
@@ -370,14 +419,15 @@ def measure_racing(table, target, *, store=None, jobs=None, folds=5, repeats=3,
 
 
 def racing_benchmark(*, folds=5, repeats=3, jobs=None, tables=None, on_result=None,
-                     **plan_options) -> list[dict]:
+                     rerun: bool = True, **plan_options) -> list[dict]:
     """:func:`measure_racing` on the six sample sets and scikit-learn's breast cancer,
     wine and diabetes tables (:data:`SAMPLE_TABLES`, :data:`SKLEARN_TABLES`).
 
     Parameters
     ----------
-    folds, repeats, jobs, **plan_options
-        As :func:`measure_racing` takes them (default: the default plan, 5 x 3).
+    folds, repeats, jobs, rerun, **plan_options
+        As :func:`measure_racing` takes them (default: the default plan, 5 x 3, the
+        racing sweep run for real).
     tables : sequence of str, optional
         Names (file names or loader names) to measure; default all nine.
     on_result : callable, optional
@@ -407,7 +457,7 @@ def racing_benchmark(*, folds=5, repeats=3, jobs=None, tables=None, on_result=No
             if tables is not None and name not in tables:
                 continue
             res = dict(measure_racing(path, target, folds=folds, repeats=repeats, jobs=jobs,
-                                      **plan_options), name=name)
+                                      rerun=rerun, **plan_options), name=name)
             out.append(res)
             if on_result is not None:
                 on_result(res)
