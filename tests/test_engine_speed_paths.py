@@ -166,3 +166,135 @@ def test_train_epoch_is_deterministic():
         runs.append((losses, net.theta.copy()))
     assert runs[0][0] == runs[1][0]
     np.testing.assert_array_equal(runs[0][1], runs[1][1])
+
+
+# --------------------------------------------------------------------------- stacks
+
+
+def _stack_case(hidden, key, dtype, k=3, seed=0):
+    """``k`` networks of one shape with their own weights and rows."""
+    n_out = 3 if key == ("classification", "softmax") else 1
+    data = [_target_for(key, seed + i) for i in range(k)]
+    Xs = np.stack([with_ones(X.astype(dtype)) for X, _ in data])
+    ys = np.stack([y.astype(dtype) for _, y in data])
+    nets = [_net(hidden, key, n_out, seed=10 + i, dtype=dtype) for i in range(k)]
+    return nets, Xs, ys
+
+
+@pytest.mark.parametrize("dtype", [np.float64, np.float32], ids=["float64", "float32"])
+@pytest.mark.parametrize("key", ALL_HEADS, ids=lambda k: f"{k[0]}-{k[1]}")
+@pytest.mark.parametrize("hidden", act.hidden_names())
+def test_a_stack_trains_each_network_as_alone(hidden, key, dtype):
+    """NetworkStack.train_epoch against each network's own train_epoch: the same losses
+    and weights to the last bit, over three epochs (every activation and head)."""
+    from workbench.nets.stacked import NetworkStack
+
+    alone, Xs, ys = _stack_case(hidden, key, dtype)
+    stacked, _, _ = _stack_case(hidden, key, dtype)
+    opts_a = [_optimizer("adam", n) for n in alone]
+    opts_s = [_optimizer("adam", n) for n in stacked]
+    stack = NetworkStack(stacked[0], len(stacked), BATCH)
+    with np.errstate(all="ignore"):
+        for _ in range(3):
+            want = [net.train_epoch(o, X, y, BATCH, 0.01)
+                    for net, o, X, y in zip(alone, opts_a, Xs, ys)]
+            got = stack.train_epoch(stacked, opts_s, Xs, ys, BATCH, 0.01)
+            assert got == want
+            for a, s in zip(alone, stacked):
+                np.testing.assert_array_equal(s.theta, a.theta)
+
+
+def test_a_stack_keeps_each_optimizers_state():
+    """SGD (Nesterov) in a stack: the velocities and the weights end as alone, and a stack
+    refuses networks whose optimisers are at different steps."""
+    from workbench.nets.stacked import NetworkStack
+
+    key = ("regression", "identity")
+    alone, Xs, ys = _stack_case("tanh", key, np.float64)
+    stacked, _, _ = _stack_case("tanh", key, np.float64)
+    opts_a = [_optimizer("sgd", n) for n in alone]
+    opts_s = [_optimizer("sgd", n) for n in stacked]
+    stack = NetworkStack(stacked[0], 3, BATCH)
+    for _ in range(2):
+        want = [n.train_epoch(o, X, y, BATCH, 0.0) for n, o, X, y in zip(alone, opts_a, Xs, ys)]
+        assert stack.train_epoch(stacked, opts_s, Xs, ys, BATCH, 0.0) == want
+    for a, b in zip(opts_a, opts_s):
+        np.testing.assert_array_equal(a.velocity, b.velocity)
+    adams = [_optimizer("adam", n) for n in stacked]
+    adams[1].t = 5
+    with pytest.raises(ValueError, match="cannot train in one stack"):
+        stack.train_epoch(stacked, adams, Xs, ys, BATCH, 0.0)
+
+
+def _hand_fit(net, X_ones, y, epochs):
+    """A minimal fit: ``epochs`` epochs of Network.train_epoch with Adam."""
+    opt = _optimizer("adam", net)
+    return [net.train_epoch(opt, X_ones, y, BATCH, 1e-3) for _ in range(epochs)], net.theta.copy()
+
+
+def test_lockstep_fits_give_the_results_of_separate_fits():
+    """run_in_lockstep: fits of two shapes and different lengths (so members leave early
+    and groups form by shape) return what they return alone, and were stacked."""
+    from workbench.nets.stacked import run_in_lockstep
+
+    key = ("classification", "logistic")
+    jobs = []
+    for i, (hidden, epochs) in enumerate([("relu", 4), ("relu", 2), ("relu", 3), ("tanh", 3),
+                                          ("tanh", 1)]):
+        X, y = _data("binary", seed=i)
+        jobs.append((hidden, with_ones(X), y, epochs, i))
+
+    def fit(job):
+        hidden, X_ones, y, epochs, i = job
+        return _hand_fit(_net(hidden, key, 1, seed=i), X_ones, y, epochs)
+
+    want = [fit(job) for job in jobs]
+    got, counts = run_in_lockstep([lambda job=job: fit(job) for job in jobs])
+    for (losses_w, theta_w), (losses_g, theta_g) in zip(want, got):
+        assert losses_g == losses_w
+        np.testing.assert_array_equal(theta_g, theta_w)
+    assert counts["stacked_epochs"] + counts["single_epochs"] == 4 + 2 + 3 + 3 + 1
+    assert counts["stacked_epochs"] >= 3 + 2  # two relu + two tanh fits shared the first epoch
+
+
+def test_lockstep_engine_fits_match_separate_fits():
+    """Whole NetClassifier fits (shuffling, stopping rule, health probe) in lockstep give
+    the loss curves, weights and health of separate fits."""
+    from workbench.nets.engine import NetClassifier
+    from workbench.nets.stacked import run_in_lockstep
+
+    X, y = _data("binary")
+
+    def fit(i):
+        rows = np.random.default_rng(i).permutation(ROWS)[:100]
+        return NetClassifier((6,), "tanh", batch_size=BATCH, max_iter=8, random_state=i,
+                             learning_rate_init=0.01).fit(X[rows], y.ravel()[rows])
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        want = [fit(i) for i in range(3)]
+        got, _ = run_in_lockstep([lambda i=i: fit(i) for i in range(3)])
+    for a, b in zip(want, got):
+        assert b.loss_curve_ == a.loss_curve_
+        assert b.history_["grad_norm"] == a.history_["grad_norm"]
+        for u, v in zip(a.coefs_, b.coefs_):
+            np.testing.assert_array_equal(u, v)
+
+
+def test_lockstep_raises_a_members_error_after_all_end():
+    from workbench.nets.stacked import run_in_lockstep
+
+    X, y = _data("binary")
+    key = ("classification", "logistic")
+    done = []
+
+    def good():
+        done.append(_hand_fit(_net("relu", key, 1), with_ones(X), y, 3))
+
+    def bad():
+        _hand_fit(_net("relu", key, 1), with_ones(X), y, 1)
+        raise RuntimeError("member failed")
+
+    with pytest.raises(RuntimeError, match="member failed"):
+        run_in_lockstep([good, bad])
+    assert len(done) == 1 and len(done[0][0]) == 3

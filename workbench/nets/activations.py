@@ -630,9 +630,9 @@ def resolve_hidden_layers(activation, n_hidden: int) -> list[str]:
 
 
 def _softmax_(z):
-    z -= z.max(axis=1, keepdims=True)
+    z -= z.max(axis=-1, keepdims=True)
     np.exp(z, out=z)
-    z /= z.sum(axis=1, keepdims=True)
+    z /= z.sum(axis=-1, keepdims=True)
     return z
 
 

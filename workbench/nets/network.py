@@ -23,11 +23,16 @@ References
 
 from __future__ import annotations
 
+import threading
 from dataclasses import dataclass
 
 import numpy as np
 
 from workbench.nets import activations as act
+
+#: per thread: the lockstep group (:mod:`workbench.nets.stacked`) this thread's fits
+#: hand their epochs to, if any
+LOCKSTEP = threading.local()
 
 
 def with_ones(X):
@@ -295,7 +300,18 @@ class Network:
         whole buffer at the end -- the same sum, without a loss evaluation per batch.
         (The mean over all rows equals the row-weighted mean of the batch means up
         to rounding.)
+
+        Inside :func:`workbench.nets.stacked.run_in_lockstep` the epoch is handed to
+        the thread's lockstep group, which runs it in a stack with the other fits'
+        epochs and returns the same result.
         """
+        group = getattr(LOCKSTEP, "group", None)
+        if group is not None:
+            return group.submit(self, optimizer, X_ones, y, batch_size, alpha)
+        return self.train_epoch_alone(optimizer, X_ones, y, batch_size, alpha)
+
+    def train_epoch_alone(self, optimizer, X_ones, y, batch_size, alpha):
+        """:meth:`train_epoch` for this network alone (never handed to a lockstep group)."""
         n = X_ones.shape[0]
         predictions = self._epoch_predictions(n)
         theta, grad, update = self.theta, self.grad, optimizer.update

@@ -1,0 +1,364 @@
+"""Several networks of one shape trained together, with the answers of separate fits.
+
+:class:`NetworkStack` runs one epoch of ``K`` networks (same layer widths, hidden
+activations, head and float type; e.g. the folds x repeats of one configuration)
+in lockstep: their parameters, gradients and optimiser states are stacked into
+``(K, ...)`` arrays, so that each batch step is one NumPy call per operation for all
+``K`` networks instead of one per network. It performs, for every network, exactly
+the operations :meth:`workbench.nets.network.Network.train_epoch` performs, on
+memory of the same layout (each network's slice of a stacked array is a contiguous
+block shaped like its own buffer), so the results are the same to the last bit:
+element-wise operations act on each element alone; each matrix product runs on
+each network's slice (``np.matmul`` on a stack calls the same BLAS routine per
+slice as on a single matrix; the products ``np.dot`` computes in the single path are
+computed here with ``np.dot`` on each slice); the sums that mix values of one
+network -- its L2 norm, its epoch loss -- are taken per network by the same
+function on a slice of the same layout. ``tests/test_engine_speed_paths.py``
+checks the equality on every hidden activation and head in float64 and float32.
+
+Two conditions: the networks train on the same number of rows with the same
+batch size and ``alpha`` (so their batches line up), and their optimisers are of
+one kind with the same settings and the same step count (so one stacked step is
+each network's step). :meth:`NetworkStack.train_epoch` refuses anything else with
+a ``ValueError``; callers group by :func:`stack_key` first.
+"""
+
+from __future__ import annotations
+
+import threading
+
+import numpy as np
+
+from workbench.nets.network import LOCKSTEP, Network
+from workbench.nets.optimizers import AdamOptimizer, SGDOptimizer
+
+__all__ = ["NetworkStack", "run_in_lockstep", "stack_key", "train_epoch_together"]
+
+
+def stack_key(net: Network, optimizer, rows: int, batch_size: int, alpha: float) -> tuple:
+    """What must be equal for networks to train in one stack."""
+    return (tuple(net.units), tuple(net.hidden_names), net.head.key, np.dtype(net.dtype).str,
+            tuple(tuple(sorted(layer.params.items())) for layer in net.layers),
+            rows, batch_size, float(alpha), _optimizer_key(optimizer))
+
+
+def _optimizer_key(opt) -> tuple:
+    if isinstance(opt, AdamOptimizer):
+        return ("adam", opt.learning_rate_init, opt.beta_1, opt.beta_2, opt.epsilon, opt.t)
+    if isinstance(opt, SGDOptimizer):
+        return ("sgd", opt.learning_rate, opt.momentum, opt.nesterov)
+    raise ValueError(f"cannot stack the optimiser {type(opt).__name__}")
+
+
+class NetworkStack:
+    """Buffers for training ``K`` networks of one shape together (see the module docstring).
+
+    Parameters
+    ----------
+    template : Network
+        Any one of the networks (its widths, activations, head and float type).
+    k : int
+        How many networks the stack holds.
+    batch_size : int
+        The largest batch.
+    """
+
+    def __init__(self, template: Network, k: int, batch_size: int):
+        self.template, self.k, self.batch_size = template, k, batch_size
+        net, dtype = template, template.dtype
+        size = net.theta.size
+        self.theta = np.zeros((k, size), dtype=dtype)
+        self.grad = np.zeros((k, size), dtype=dtype)
+        self._l2_buf = np.empty_like(self.theta)
+        # per layer: the (K, fan_in + 1, fan_out) views of the stacked parameters and
+        # gradients, at the offsets the network's own layers have in its theta
+        base = net.theta.__array_interface__["data"][0]
+        itemsize = net.theta.itemsize
+        self.blocks, self.grad_blocks = [], []
+        for layer in net.layers:
+            start = (layer.block.__array_interface__["data"][0] - base) // itemsize
+            shape = layer.block.shape
+            stop = start + shape[0] * shape[1]
+            self.blocks.append(self.theta[:, start:stop].reshape(k, *shape))
+            self.grad_blocks.append(self.grad[:, start:stop].reshape(k, *shape))
+        # work buffers shaped as the network's (Network.ensure), one per network
+        n_hidden = len(net.hidden)
+        self._outputs, self._pres, self._deltas, self._scratch = [], [], [], []
+        for i, width in enumerate(net.units[1:]):
+            hidden = i < n_hidden
+            output = np.empty((k, batch_size, width + 1 if hidden else width), dtype=dtype)
+            if hidden:
+                output[:, :, width] = 1
+            needs_pre = net.hidden[i].needs_z if hidden else not net.head.canonical
+            self._outputs.append(output)
+            self._pres.append(np.empty_like(output) if needs_pre else None)
+            self._deltas.append(np.empty_like(output))
+            self._scratch.append(np.empty_like(output) if hidden else None)
+        self._pred = None
+
+    # -- state in and out ---------------------------------------------------------
+    def _gather(self, nets, optimizers):
+        for i, net in enumerate(nets):
+            self.theta[i] = net.theta
+        first = optimizers[0]
+        size = self.theta.size
+        if isinstance(first, AdamOptimizer):
+            opt = AdamOptimizer(size, self.theta.dtype, first.learning_rate_init, first.beta_1,
+                                first.beta_2, first.epsilon)
+            opt.t = first.t
+            per = self.theta.shape[1]
+            for i, o in enumerate(optimizers):
+                opt._moments[:, i * per:(i + 1) * per] = o._moments
+        else:
+            opt = SGDOptimizer(size, self.theta.dtype, first.learning_rate_init,
+                               first.lr_schedule, first.momentum, first.nesterov, first.power_t)
+            opt.learning_rate = first.learning_rate
+            opt.velocity.reshape(self.k, -1)[...] = [o.velocity for o in optimizers]
+        return opt
+
+    def _scatter(self, nets, optimizers, opt):
+        per = self.theta.shape[1]
+        for i, (net, o) in enumerate(zip(nets, optimizers)):
+            net.theta[...] = self.theta[i]
+            net.grad[...] = self.grad[i]
+            if isinstance(o, AdamOptimizer):
+                o._moments[...] = opt._moments[:, i * per:(i + 1) * per]
+                o.t, o.learning_rate = opt.t, opt.learning_rate
+            else:
+                o.velocity[...] = opt.velocity[i * per:(i + 1) * per]
+
+    # -- one epoch ------------------------------------------------------------------
+    def _views(self, rows):
+        return [(out[:, :rows], None if pre is None else pre[:, :rows], delta[:, :rows],
+                 None if scratch is None else scratch[:, :rows])
+                for out, pre, delta, scratch in zip(self._outputs, self._pres, self._deltas,
+                                                    self._scratch)]
+
+    def train_epoch(self, nets, optimizers, X, y, batch_size, alpha) -> list[float]:
+        """One epoch of each network on its own rows; returns each network's epoch loss.
+
+        Parameters
+        ----------
+        nets : list of Network
+            ``K`` networks of the stack's shape.
+        optimizers : list
+            Each network's optimiser (all Adam or all SGD, same settings and steps).
+        X : ndarray (K, n, n_features + 1) or list of K arrays (n, n_features + 1)
+            Each network's epoch rows (with the ones column), in batch order.
+        y : ndarray (K, n, n_outputs) or list of K arrays
+        batch_size : int
+        alpha : float
+
+        The networks' parameters, gradients and optimiser states end as
+        ``[net.train_epoch(opt, X[i], y[i], batch_size, alpha) for ...]`` leaves them.
+        """
+        k = len(nets)
+        if k != self.k or len(optimizers) != k:
+            raise ValueError(f"the stack holds {self.k} networks, got {k} networks and "
+                             f"{len(optimizers)} optimisers")
+        X = np.ascontiguousarray(np.asarray(X) if not isinstance(X, np.ndarray) else X)
+        y = np.ascontiguousarray(np.asarray(y) if not isinstance(y, np.ndarray) else y)
+        n = X.shape[1]
+        if batch_size > self.batch_size:
+            raise ValueError(f"batch_size {batch_size} exceeds the stack's {self.batch_size}")
+        keys = {stack_key(net, o, n, batch_size, alpha) for net, o in zip(nets, optimizers)}
+        if len(keys) != 1 or next(iter(keys))[:5] != stack_key(self.template, optimizers[0], n,
+                                                                batch_size, alpha)[:5]:
+            raise ValueError("these networks cannot train in one stack (different shapes, "
+                             "rows, batch size, alpha or optimiser states); group them by "
+                             "stack_key")
+        opt = self._gather(nets, optimizers)
+        template, head = self.template, self.template.head
+        layers = template.layers
+        if self._pred is None or self._pred.shape[1] < n:
+            self._pred = np.empty((k, n, template.units[-1]), dtype=template.dtype)
+        predictions = self._pred[:, :n]
+        theta, grad, l2_buf = self.theta, self.grad, self._l2_buf
+        flat_theta, flat_grad = theta.reshape(-1), grad.reshape(-1)
+        mask = template._mask_for(alpha) if alpha else None
+        squares = [0.0] * k
+        views_by_rows = {}
+        last = len(layers) - 1
+        for start in range(0, n, batch_size):
+            stop = min(start + batch_size, n)
+            rows = stop - start
+            views = views_by_rows.get(rows)
+            if views is None:
+                views = views_by_rows[rows] = self._views(rows)
+            X_batch, y_batch = X[:, start:stop], y[:, start:stop]
+            # forward (Network.forward)
+            below = X_batch
+            for i, layer in enumerate(layers):
+                output_ones, pre, _, _ = views[i]
+                activation = layer.activation
+                if activation is None:
+                    top = predictions[:, start:stop]
+                    np.matmul(below, self.blocks[i], out=top)
+                    if pre is not None:
+                        np.copyto(pre, top)
+                    head.apply_(top)
+                    break
+                np.matmul(below, self.blocks[i], out=output_ones[..., :-1])
+                if pre is not None:
+                    np.copyto(pre, output_ones)
+                activation.apply_(output_ones, **layer.params)
+                if not activation.keeps_one:
+                    output_ones[..., -1] = 1
+                below = output_ones
+            # backward (Network._backpropagate)
+            _, top_pre, top_delta, _ = views[last]
+            delta = head.output_delta(y_batch, top, top_pre, top_delta)
+            for i in range(last, -1, -1):
+                below = X_batch if i == 0 else views[i - 1][0]
+                np.matmul(below.transpose(0, 2, 1), delta, out=self.grad_blocks[i])
+                if i == 0:
+                    break
+                output_ones, pre, delta_ones, scratch = views[i - 1]
+                block = self.blocks[i]
+                for j in range(k):
+                    np.dot(delta[j], block[j].T, out=delta_ones[j])
+                under = layers[i - 1]
+                slope = under.activation.derivative(pre, output_ones, out=scratch,
+                                                    **under.params)
+                np.multiply(delta_ones, slope, out=delta_ones)
+                delta = delta_ones[..., :-1]
+            if alpha:
+                np.multiply(theta, mask, out=l2_buf)
+                for j in range(k):
+                    squares[j] += float(np.dot(theta[j], l2_buf[j]))
+                grad += l2_buf
+            opt.update(flat_theta, flat_grad, rows)
+        self._scatter(nets, optimizers, opt)
+        losses = []
+        for j in range(k):
+            loss = float(head.loss_fn.value(y[j], predictions[j]))
+            losses.append(loss + 0.5 * squares[j] / n if alpha else loss)
+        return losses
+
+
+def train_epoch_together(nets, optimizers, X, y, batch_size, alpha,
+                         stack: NetworkStack | None = None) -> list[float]:
+    """One epoch of ``K`` networks in one :class:`NetworkStack` (built when not given);
+    each network's loss, as ``Network.train_epoch`` would return it."""
+    if stack is None:
+        stack = NetworkStack(nets[0], len(nets), batch_size)
+    return stack.train_epoch(nets, optimizers, X, y, batch_size, alpha)
+
+
+# --------------------------------------------------------------------------- lockstep
+
+
+class _Lockstep:
+    """Collects the epochs of several fits, each running in its own thread, and runs
+    them in stacks once every fit still running has handed in its next epoch."""
+
+    def __init__(self, members: int):
+        self._cond = threading.Condition()
+        self._active = members
+        self._pending: dict[int, tuple] = {}
+        self._results: dict[int, object] = {}
+        self._stacks: dict[tuple, NetworkStack] = {}
+        self.rounds = 0
+        self.stacked_epochs = 0
+        self.single_epochs = 0
+
+    def submit(self, net, optimizer, X, y, batch_size, alpha):
+        me = threading.get_ident()
+        with self._cond:
+            self._pending[me] = (net, optimizer, X, y, batch_size, alpha)
+            self._run_if_ready()
+            while me not in self._results:
+                self._cond.wait()
+            result = self._results.pop(me)
+        if isinstance(result, BaseException):
+            raise result
+        return result
+
+    def leave(self):
+        with self._cond:
+            self._active -= 1
+            self._run_if_ready()
+
+    def _run_if_ready(self):
+        if not self._pending or len(self._pending) < self._active:
+            return
+        pending, self._pending = self._pending, {}
+        groups: dict[tuple, list[int]] = {}
+        for ident, (net, opt, X, _, batch_size, alpha) in pending.items():
+            try:
+                key = stack_key(net, opt, X.shape[0], batch_size, alpha)
+            except ValueError:
+                key = ("alone", ident)
+            groups.setdefault(key, []).append(ident)
+        self.rounds += 1
+        for key, idents in groups.items():
+            try:
+                if len(idents) == 1:
+                    net, opt, X, y, batch_size, alpha = pending[idents[0]]
+                    self._results[idents[0]] = net.train_epoch_alone(opt, X, y, batch_size,
+                                                                     alpha)
+                    self.single_epochs += 1
+                    continue
+                items = [pending[i] for i in idents]
+                nets, opts = [it[0] for it in items], [it[1] for it in items]
+                batch_size, alpha = items[0][4], items[0][5]
+                skey = (key, len(items))
+                stack = self._stacks.get(skey)
+                if stack is None:
+                    stack = self._stacks[skey] = NetworkStack(nets[0], len(items), batch_size)
+                losses = stack.train_epoch(nets, opts, np.stack([it[2] for it in items]),
+                                           np.stack([it[3] for it in items]), batch_size, alpha)
+                self._results.update(zip(idents, losses))
+                self.stacked_epochs += len(items)
+            except Exception as exc:  # handed to each waiting fit, raised in its thread
+                for ident in idents:
+                    self._results[ident] = exc
+        self._cond.notify_all()
+
+
+def run_in_lockstep(functions) -> tuple[list, dict]:
+    """Call each function (no arguments) in its own thread, with the epochs of the
+    networks they fit (:meth:`workbench.nets.network.Network.train_epoch`) run together
+    in stacks; returns their results in order and counts of what was stacked.
+
+    Each function may be any code that fits the engine's estimators, e.g. a whole
+    trial (preprocessing pipeline, fit, scoring) of one fold of a configuration; the
+    fits of the same shape (:func:`stack_key`) share their epochs' stacks. Every
+    function's result is what it would be alone: the stacked epoch is the single
+    epoch's arithmetic (see the module docstring), and each fit keeps its own
+    random state, stopping rule and bookkeeping. A function's exception is raised
+    here after all have ended (the first one, in order).
+
+    Returns
+    -------
+    results : list
+    counts : dict
+        ``rounds`` (lockstep rounds), ``stacked_epochs`` (network epochs run in a
+        stack of two or more) and ``single_epochs`` (run alone).
+    """
+    functions = list(functions)
+    group = _Lockstep(len(functions))
+    results: list = [None] * len(functions)
+    errors: list = [None] * len(functions)
+
+    def member(i, fn):
+        LOCKSTEP.group = group
+        try:
+            results[i] = fn()
+        except BaseException as exc:  # noqa: BLE001 - re-raised in the caller's thread
+            errors[i] = exc
+        finally:
+            LOCKSTEP.group = None
+            group.leave()
+
+    threads = [threading.Thread(target=member, args=(i, fn), name=f"lockstep-{i}", daemon=True)
+               for i, fn in enumerate(functions)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    for exc in errors:
+        if exc is not None:
+            raise exc
+    return results, {"rounds": group.rounds, "stacked_epochs": group.stacked_epochs,
+                     "single_epochs": group.single_epochs}
