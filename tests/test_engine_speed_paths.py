@@ -298,3 +298,16 @@ def test_lockstep_raises_a_members_error_after_all_end():
     with pytest.raises(RuntimeError, match="member failed"):
         run_in_lockstep([good, bad])
     assert len(done) == 1 and len(done[0][0]) == 3
+
+
+@pytest.mark.parametrize("key", ALL_HEADS, ids=lambda k: f"{k[0]}-{k[1]}")
+def test_data_gradient_is_backwards_gradient_without_the_loss(key):
+    """Network.data_gradient leaves in net.grad exactly what backward(alpha=0) leaves."""
+    X, y = _target_for(key)
+    a, b = (_net("gelu", key, y.shape[1]) for _ in range(2))
+    for net in (a, b):
+        net.ensure(ROWS)
+    a.backward(with_ones(X), y, ROWS, 0.0)
+    b.data_gradient(with_ones(X), y, ROWS)
+    np.testing.assert_array_equal(b.grad, a.grad)
+    assert np.any(b.grad != 0)

@@ -254,6 +254,14 @@ class Network:
             self.grad /= rows
         return loss
 
+    def data_gradient(self, X_ones, y, rows):
+        """The data loss's mean gradient on ``rows`` rows into ``self.grad`` (no L2 term),
+        without evaluating the loss: :meth:`backward` with ``alpha=0`` minus the loss
+        value, for callers that need only the gradient (the health probe's norms)."""
+        prediction = self.forward(X_ones, rows)
+        self._backpropagate(X_ones, y, rows, prediction)
+        self.grad /= rows
+
     def _backpropagate(self, X_ones, y, rows, prediction):
         """The data loss's gradient, summed over the ``rows`` rows, into ``self.grad``
         (after :meth:`forward` on the same rows); returns the output layer's delta."""
