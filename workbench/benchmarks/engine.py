@@ -286,6 +286,90 @@ def _small(quick, rounds, threads, gflops):
     return lines, figures
 
 
+#: networks trained together in the stacked measurement (the folds of one configuration)
+STACK = 5
+
+
+def _stack_nets(X, y, k):
+    from workbench.nets import activations as act
+    from workbench.nets.network import Network, with_ones
+    from workbench.nets.optimizers import AdamOptimizer
+
+    head = act.resolve_head("logistic", "classification")
+    nets, opts = [], []
+    for i in range(k):
+        net = Network([X.shape[1], SMALL_WIDTH, 1], ["relu"], head, np.dtype(np.float32))
+        net.theta[...] = np.random.default_rng(i).uniform(-0.3, 0.3, net.theta.size)
+        net.ensure(BATCH)
+        nets.append(net)
+        opts.append(AdamOptimizer(net.theta.size, net.dtype, 1e-3))
+    rows = np.array_split(np.random.default_rng(7).permutation(X.shape[0]), k)
+    keep = min(X.shape[0] - len(r) for r in rows)
+    Xs = np.stack([with_ones(np.delete(X, r, axis=0)[:keep]) for r in rows])
+    ys = np.stack([np.delete(y, r)[:keep].astype(np.float32).reshape(-1, 1) for r in rows])
+    return nets, opts, Xs, ys
+
+
+def _stacked(quick, rounds):
+    """K = 5 fold networks of the small trial: K separate epoch loops against one
+    NetworkStack (per batch and network), and K whole NetClassifier fits one after
+    another against the same fits in lockstep (run_in_lockstep)."""
+    from workbench.nets.engine import NetClassifier
+    from workbench.nets.stacked import NetworkStack, run_in_lockstep
+
+    epochs = 5 if quick else SMALL_EPOCHS
+    X, y = _small_data(SMALL_ROWS)
+    k = STACK
+
+    def alone():
+        nets, opts, Xs, ys = _stack_nets(X, y, k)
+        return _timed(lambda: [[n.train_epoch(o, Xs[i], ys[i], BATCH, 1e-4) for _ in range(epochs)]
+                               for i, (n, o) in enumerate(zip(nets, opts))])
+
+    def stacked():
+        nets, opts, Xs, ys = _stack_nets(X, y, k)
+        stack = NetworkStack(nets[0], k, BATCH)
+        return _timed(lambda: [stack.train_epoch(nets, opts, Xs, ys, BATCH, 1e-4)
+                               for _ in range(epochs)])
+
+    folds = np.array_split(np.random.default_rng(7).permutation(X.shape[0]), k)
+    fits = [lambda i=i, f=f: NetClassifier(**dict(_small_params(epochs), random_state=i)).fit(
+        np.delete(X, f, axis=0), np.delete(y, f)) for i, f in enumerate(folds)]
+    counts = {}
+
+    def lockstep():
+        def go():
+            counts.update(run_in_lockstep(fits)[1])
+        return _timed(go)
+
+    mw, mc = _interleaved(rounds, (("alone", alone), ("stacked", stacked),
+                                   ("fits", lambda: _timed(lambda: [f() for f in fits])),
+                                   ("lockstep", lockstep)))
+    n_train = SMALL_ROWS - max(len(f) for f in folds)
+    batches = epochs * -(-n_train // BATCH) * k
+    figures = {"stack_k": k,
+               "stack_alone_us_per_batch_cpu": mc["alone"] / batches * 1e6,
+               "stack_stacked_us_per_batch_cpu": mc["stacked"] / batches * 1e6,
+               "stack_speedup_cpu": mc["alone"] / mc["stacked"],
+               "lockstep_fit_speedup_cpu": mc["fits"] / mc["lockstep"],
+               "lockstep_stacked_epochs": counts.get("stacked_epochs", 0)}
+    routed = counts.get("stacked_epochs", 0) > 0
+    lines = [
+        f"{k} fold networks of the small trial together (median of {rounds}, cpu):",
+        f"  {k} x Network.train_epoch        {figures['stack_alone_us_per_batch_cpu']:8.1f} "
+        "us per batch and network",
+        f"  NetworkStack({k}).train_epoch    {figures['stack_stacked_us_per_batch_cpu']:8.1f} "
+        f"us per batch and network   ({figures['stack_speedup_cpu']:.2f}x faster, "
+        "bit-identical results)",
+        f"  {k} whole NetClassifier fits: in lockstep {mc['lockstep']:.3f} s vs one after "
+        f"another {mc['fits']:.3f} s ({figures['lockstep_fit_speedup_cpu']:.2f}x; "
+        + (f"{counts['stacked_epochs']} epochs stacked)" if routed else
+           "no epoch stacked: the engine does not run its epochs through "
+           "Network.train_epoch yet)"),
+    ]
+    return lines, figures
+
+
 def run(quick: bool = False, rounds: int | None = None, threads: int = 1) -> dict:
     """Measure the standard and the small-trial workloads; ``quick`` shrinks them."""
     rounds = rounds or (1 if quick else 5)
@@ -294,5 +378,7 @@ def run(quick: bool = False, rounds: int | None = None, threads: int = 1) -> dic
         gflops = sgemm_gflops()
         lines, figures = _standard(quick, rounds, threads)
         small_lines, small_figures = _small(quick, rounds + 2, threads, gflops)
+        stack_lines, stack_figures = _stacked(quick, rounds)
     figures.update(small_figures)
-    return {"title": "engine", "lines": lines + small_lines, "figures": figures}
+    figures.update(stack_figures)
+    return {"title": "engine", "lines": lines + small_lines + stack_lines, "figures": figures}
