@@ -88,6 +88,16 @@ def test_the_chosen_command_gets_its_options_and_runs(tmp_path, capsys):
     assert "invalid choice: 'nosuchcommand'" in capsys.readouterr().err
 
 
+def test_no_command_opens_the_window_with_opens_defaults(monkeypatch):
+    from workbench import cli
+    from workbench.commands import open as open_command
+
+    seen = []
+    monkeypatch.setattr(open_command, "run", lambda args: seen.append(args) or 0)
+    assert cli.main([]) == 0
+    assert seen[0].command == "open" and seen[0].file is None and seen[0].size == "1280x800"
+
+
 def test_the_full_parser_still_has_every_commands_options():
     import argparse
 
