@@ -63,3 +63,26 @@ def test_diabetes_relu_head_scale_only_target():
     np.testing.assert_allclose(scaled, y / fitted.transformer_.scale_[0])
     assert scaled.min() > 0
     assert np.all(fitted.predict(X) >= 0)
+
+
+@pytest.mark.parametrize("labels", [
+    np.array(["no", "yes", "yes", "no", "yes"], dtype=object),
+    np.array(["b", "a", "c", "a", "c", "b"]),
+    np.array([3, 1, 2, 2, 3, 1, 7]),
+    np.array([0.0, 1.0, 1.0, 0.0]),
+])
+def test_label_columns_equal_scikit_learns_label_binarizer(labels):
+    """The classifier's 0/1 label columns are sklearn.preprocessing.LabelBinarizer's, for
+    binary, multiclass, integer and float labels, and for labels it never saw (zeros)."""
+    from sklearn.preprocessing import LabelBinarizer
+
+    from workbench.nets.engine import NetClassifier
+
+    X = np.arange(2.0 * len(labels)).reshape(len(labels), 2)
+    clf = NetClassifier((3,), max_iter=1, random_state=0).fit(X, labels)
+    ref = LabelBinarizer().fit(labels)
+    assert clf.classes_.tolist() == ref.classes_.tolist()
+    np.testing.assert_array_equal(clf._binarize(labels), ref.transform(labels))
+    unseen = {"O": "zzz", "U": "zzz", "i": 99, "f": 9.0}[labels.dtype.kind]
+    other = np.array([labels[0], unseen, labels[0]], dtype=labels.dtype)
+    np.testing.assert_array_equal(clf._binarize(other), ref.transform(other))

@@ -396,7 +396,7 @@ class _BaseNet(BaseEstimator):
         if y_ho.ndim == 2 and y_ho.shape[1] == 1:
             y_ho = y_ho.ravel()
         if self._task == "classification":
-            y_ho = self._label_binarizer.transform(y_ho)
+            y_ho = self._binarize(y_ho)
         y_ho = np.asarray(y_ho, dtype=dtype)
         y_ho = y_ho.reshape(-1, 1) if y_ho.ndim == 1 else y_ho
         y_ho = self._adapt_y(y_ho, head)
@@ -858,7 +858,14 @@ class NetClassifier(ClassifierMixin, _BaseNet):
             kind = type_of_target(y)
             if kind not in ("binary", "multiclass", "multilabel-indicator"):
                 raise ValueError(f"Unknown label type: {kind!r}; NetClassifier needs class labels")
+            # fitted on the classes alone (the same classes_ and y_type_ as on every row,
+            # at a fraction of the cost for string labels); _binarize does the rows
             self._label_binarizer = LabelBinarizer()
+            if y.ndim == 1:
+                classes, codes = np.unique(y, return_inverse=True)
+                self._label_binarizer.fit(classes)
+                self.classes_ = self._label_binarizer.classes_
+                return self._binarize(y, codes.reshape(-1))
             self._label_binarizer.fit(y)
             self.classes_ = self._label_binarizer.classes_
         else:
@@ -867,7 +874,32 @@ class NetClassifier(ClassifierMixin, _BaseNet):
                 raise ValueError(
                     "warm_start can only be used where `y` has the same classes as in the "
                     f"previous call to fit. Previously got {self.classes_}, `y` has {classes}")
-        return self._label_binarizer.transform(y)
+        return self._binarize(y)
+
+    def _binarize(self, y, codes=None):
+        """``LabelBinarizer.transform(y)`` for class labels: one 0/1 column per class (one
+        column, the second class, for two classes or fewer); a label outside ``classes_``
+        gets zeros. ``codes``: each row's position in ``classes_`` when known (fit finds them
+        with the classes, ``numpy.unique``); else located by binary search rather than through
+        ``label_binarize``'s checks, whose cost for string labels was a noticeable share of
+        a short fit (a test compares both on binary, multiclass and unseen labels)."""
+        lb = self._label_binarizer
+        if y.ndim != 1 or lb.y_type_ not in ("binary", "multiclass"):
+            return lb.transform(y)
+        classes = lb.classes_
+        if codes is None:  # positions in classes_; given when y made classes_
+            codes = np.searchsorted(classes, y)
+            known = (codes < classes.size) & (classes[np.minimum(codes, classes.size - 1)] == y)
+        else:
+            known = np.ones(y.shape[0], dtype=bool)
+        pos = codes
+        if lb.y_type_ == "binary":
+            if classes.size < 2:
+                return np.zeros((y.shape[0], 1), dtype=int)
+            return (known & (pos == 1)).astype(int).reshape(-1, 1)
+        out = np.zeros((y.shape[0], classes.size), dtype=int)
+        out[np.flatnonzero(known), pos[known]] = 1
+        return out
 
     def _resolve_head(self, y2d):
         kind = self._label_binarizer.y_type_
