@@ -91,13 +91,29 @@ def _half_poisson_deviance_gradient(y, p, out=None):
 
 
 def _clipped(p):
+    """``p`` clipped to ``[eps, 1 - eps]`` (a new array): ``np.clip``'s values, in two
+    ufunc calls without its Python wrapper."""
     eps = np.finfo(p.dtype).eps
-    return np.clip(p, eps, 1 - eps)
+    q = np.maximum(p, eps)
+    return np.minimum(q, 1 - eps, out=q)
+
+
+def _y_log(y, q):
+    """``y * log(q)`` for clipped probabilities ``q``: ``xlogy(y, q)`` without its special
+    case (``q >= eps`` keeps ``log q`` finite, so ``y = 0`` gives 0 either way), with
+    NumPy's vectorised log -- an order of magnitude faster than ``scipy.special.xlogy``
+    on an epoch's predictions."""
+    out = np.log(q)
+    out *= y
+    return out
 
 
 def _binary_log_loss(y, p, residual=None):
     q = _clipped(p)
-    return float(-np.mean(xlogy(y, q) + xlogy(1 - y, 1 - q), axis=0).sum())
+    terms = _y_log(y, q)
+    np.subtract(1, q, out=q)
+    terms += _y_log(1 - y, q)
+    return float(-np.mean(terms, axis=0).sum())
 
 
 def _binary_log_loss_gradient(y, p, out=None):
@@ -109,7 +125,7 @@ def _binary_log_loss_gradient(y, p, out=None):
 
 
 def _multinomial_log_loss(y, p, residual=None):
-    return float(-np.mean(xlogy(y, _clipped(p)), axis=0).sum())
+    return float(-np.mean(_y_log(y, _clipped(p)), axis=0).sum())
 
 
 def _multinomial_log_loss_gradient(y, p, out=None):
