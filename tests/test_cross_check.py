@@ -238,3 +238,16 @@ def test_show_cross_check_bad_input_is_one_line_with_status_2(binary, tmp_path, 
                  "--table", str(changed)]) == 2
     err = capsys.readouterr().err.strip()
     assert "changed since" in err and "--table" in err and "Traceback" not in err
+
+
+def test_a_fold_without_a_score_is_not_agreement_and_stays_valid_json():
+    from workbench.sweep.cross_check import CrossCheck, FoldCheck
+
+    folds = [FoldCheck(0, 0, 0.9, 0.9, 0.88, True, 5, 5, 0.1, 0.2),
+             FoldCheck(0, 1, math.nan, 0.8, 0.81, False, 3, 5, 0.1, 0.2)]
+    cc = CrossCheck("S", 1, {"dtype": "float32"}, "relu/logistic [5]", "accuracy", True,
+                    estimator="MLPClassifier", folds=folds)
+    assert cc.all_agree is False and cc.largest_difference == math.inf
+    doc = json.loads(json.dumps(cc.to_dict(), allow_nan=False))
+    assert doc["folds"][1]["engine_score"] is None and doc["largest_difference"] is None
+    assert doc["sentence"].startswith("On 1 of 2 folds") and "difference inf" in doc["sentence"]

@@ -134,6 +134,8 @@ class CrossCheck:
         """A JSON-able dict: the fields, ``all_agree``, ``largest_difference`` and ``sentence``."""
         d = asdict(self)
         for f, fd in zip(self.folds, d["folds"]):
+            for key in ("engine_score", "sklearn_score", "stored_score"):
+                fd[key] = _finite(fd[key])
             fd["difference"] = _finite(f.difference)
         d["all_agree"] = self.all_agree
         d["largest_difference"] = _finite(self.largest_difference)
@@ -215,12 +217,15 @@ def _fit_score(pipe, data, train, test, scorer):
             np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
         warnings.simplefilter("ignore")  # ConvergenceWarning: the sweep's epochs are the budget
         t0 = time.perf_counter()
-        pipe.fit(data.X.iloc[train], y[train])
-        seconds = time.perf_counter() - t0
-        score = float(scorer(pipe, data.X.iloc[test], y[test]))
+        try:
+            pipe.fit(data.X.iloc[train], y[train])
+            seconds = time.perf_counter() - t0
+            score = float(scorer(pipe, data.X.iloc[test], y[test]))
+        except (ValueError, FloatingPointError, OverflowError):  # diverged: no score
+            seconds, score = time.perf_counter() - t0, math.nan
     model = pipe.named_steps["model"]
     mlp = getattr(model, "regressor_", model)
-    return score, int(getattr(mlp, "n_iter_", 0)), seconds
+    return score, int(getattr(mlp, "n_iter_", 0) or 0), seconds
 
 
 def _check_folds(store, sweep_id: str, plan, folds) -> None:
