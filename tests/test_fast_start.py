@@ -48,7 +48,8 @@ def _run(args: list[str], heavy=HEAVY) -> tuple[dict, str]:
 
 
 @pytest.mark.parametrize("args", [["--help"], ["export", "--help"], ["show", "--help"],
-                                  ["history", "--help"], ["--version"]])
+                                  ["history", "--help"], ["sweep", "--help"],
+                                  ["--version"]])
 def test_help_loads_no_heavy_library(args):
     found, out = _run(args)
     assert found["code"] in (0, None)
