@@ -24,9 +24,12 @@ binary target). Parts, in this order:
    200,000 rows x 22 columns (20 numbers, one category, a binary target; quick:
    20,000) with one configuration, 2 folds, 1 epoch, 2 jobs; a thread reads each
    descendant process's peak resident size (``VmHWM`` in ``/proc``) every 20 ms.
-   Reported: the parent's peak (``ru_maxrss``), the largest worker peak, the
-   table's numeric size (rows x numeric columns x 8 bytes) and the resident size
-   of a bare interpreter that imported the trial code (the worker's base).
+   Reported: the parent's peak, the largest worker peak, the table's numeric size
+   (rows x numeric columns x 8 bytes) and the peak of a bare interpreter that
+   imported the trial code (the worker's base). Every peak is ``VmHWM``, the peak
+   of the process's own address space: ``ru_maxrss`` is not used because Linux
+   carries it over from the parent process across ``exec``, so a child started
+   by a large process would report the parent's size.
 4. **Optional hooks, run only when another part of the program provides them:**
    racing (:func:`workbench.sweep.racing.measure_racing` on the kiln grid: trials
    saved and whether it recommends the same configuration) and the time estimate
@@ -229,7 +232,7 @@ def first_trial(quick: bool = False, runs: int | None = None) -> dict:
 # --------------------------------------------------------------------------- memory
 
 _MEMORY_CHILD = r"""
-import json, os, resource, sys, threading, time
+import json, os, sys, threading, time
 from pathlib import Path
 
 def hwm(pid):
@@ -278,16 +281,18 @@ with Store(store) as st:
 seconds = time.perf_counter() - t
 time.sleep(0.1)
 done.set()
-print(json.dumps({"parent": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024,
+print(json.dumps({"parent": hwm(os.getpid()),
                   "workers": sorted(peaks.values(), reverse=True), "seconds": seconds}))
 """
 
 _BASE_CHILD = r"""
-import json, resource
+import json
 # what a worker has imported when its first trial starts
 import pandas, sklearn.compose, workbench.data.preprocessing, workbench.nets.engine  # noqa
 import workbench.sweep.trials  # noqa: F401
-print(json.dumps({"base": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024}))
+with open("/proc/self/status") as fh:
+    peak = next(int(line.split()[1]) * 1024 for line in fh if line.startswith("VmHWM:"))
+print(json.dumps({"base": peak}))
 """
 
 
