@@ -26,6 +26,7 @@ a ``ValueError``; callers group by :func:`stack_key` first.
 from __future__ import annotations
 
 import threading
+from collections import deque
 
 import numpy as np
 
@@ -249,12 +250,24 @@ def train_epoch_together(nets, optimizers, X, y, batch_size, alpha,
 
 
 class _Lockstep:
-    """Collects the epochs of several fits, each running in its own thread, and runs
-    them in stacks once every fit still running has handed in its next epoch."""
+    """Runs several fits, each in its own thread, one at a time in a fixed order (a
+    baton passed by locks), and their epochs together.
+
+    Only the thread holding the baton runs; it runs until its fit hands in its next
+    epoch (:meth:`submit`) or ends (:meth:`leave`), then passes the baton to the next
+    fit in line. When every fit still running has handed in its epoch, the thread
+    holding the baton runs them in stacks (grouped by :func:`stack_key`) and the fits
+    continue in index order. One thread running at a time means no contention for
+    the interpreter lock and a schedule that is the same on every run.
+    """
 
     def __init__(self, members: int):
-        self._cond = threading.Condition()
-        self._active = members
+        # one lock per member, held while the member must wait (a lock, unlike a
+        # semaphore, is one C call to release from another thread)
+        self._baton = [threading.Lock() for _ in range(members)]
+        for lock in self._baton:
+            lock.acquire()
+        self._waiting: deque[int] = deque()  # members ready to run, in order
         self._pending: dict[int, tuple] = {}
         self._results: dict[int, object] = {}
         self._stacks: dict[tuple, NetworkStack] = {}
@@ -262,44 +275,57 @@ class _Lockstep:
         self.stacked_epochs = 0
         self.single_epochs = 0
 
+    def start(self, members: int):
+        """Line the members up and give the first one the baton."""
+        self._waiting.extend(range(1, members))
+        self._baton[0].release()
+
+    def wait_turn(self, me: int):
+        self._baton[me].acquire()
+
     def submit(self, net, optimizer, X, y, batch_size, alpha):
-        me = threading.get_ident()
-        with self._cond:
-            self._pending[me] = (net, optimizer, X, y, batch_size, alpha)
-            self._run_if_ready()
-            while me not in self._results:
-                self._cond.wait()
-            result = self._results.pop(me)
+        me = LOCKSTEP.member
+        self._pending[me] = (net, optimizer, X, y, batch_size, alpha)
+        self._pass(me, wait=True)
+        result = self._results.pop(me)
         if isinstance(result, BaseException):
             raise result
         return result
 
-    def leave(self):
-        with self._cond:
-            self._active -= 1
-            self._run_if_ready()
+    def leave(self, me: int):
+        self._pass(me, wait=False)
 
-    def _run_if_ready(self):
-        if not self._pending or len(self._pending) < self._active:
+    def _pass(self, me: int, wait: bool):
+        if not self._waiting and self._pending:
+            self._run_round()
+        if not self._waiting:
+            return  # the last member has ended
+        nxt = self._waiting.popleft()
+        if nxt == me:
             return
+        self._baton[nxt].release()
+        if wait:
+            self._baton[me].acquire()
+
+    def _run_round(self):
         pending, self._pending = self._pending, {}
         groups: dict[tuple, list[int]] = {}
-        for ident, (net, opt, X, _, batch_size, alpha) in pending.items():
+        for member, (net, opt, X, _, batch_size, alpha) in sorted(pending.items()):
             try:
                 key = stack_key(net, opt, X.shape[0], batch_size, alpha)
             except ValueError:
-                key = ("alone", ident)
-            groups.setdefault(key, []).append(ident)
+                key = ("alone", member)
+            groups.setdefault(key, []).append(member)
         self.rounds += 1
-        for key, idents in groups.items():
+        for key, members in groups.items():
             try:
-                if len(idents) == 1:
-                    net, opt, X, y, batch_size, alpha = pending[idents[0]]
-                    self._results[idents[0]] = net.train_epoch_alone(opt, X, y, batch_size,
-                                                                     alpha)
+                if len(members) == 1:
+                    net, opt, X, y, batch_size, alpha = pending[members[0]]
+                    self._results[members[0]] = net.train_epoch_alone(opt, X, y, batch_size,
+                                                                      alpha)
                     self.single_epochs += 1
                     continue
-                items = [pending[i] for i in idents]
+                items = [pending[m] for m in members]
                 nets, opts = [it[0] for it in items], [it[1] for it in items]
                 batch_size, alpha = items[0][4], items[0][5]
                 skey = (key, len(items))
@@ -308,12 +334,12 @@ class _Lockstep:
                     stack = self._stacks[skey] = NetworkStack(nets[0], len(items), batch_size)
                 losses = stack.train_epoch(nets, opts, np.stack([it[2] for it in items]),
                                            np.stack([it[3] for it in items]), batch_size, alpha)
-                self._results.update(zip(idents, losses))
+                self._results.update(zip(members, losses))
                 self.stacked_epochs += len(items)
-            except Exception as exc:  # handed to each waiting fit, raised in its thread
-                for ident in idents:
-                    self._results[ident] = exc
-        self._cond.notify_all()
+            except Exception as exc:  # handed to each fit of the group, raised in its thread
+                for member in members:
+                    self._results[member] = exc
+        self._waiting.extend(sorted(pending))
 
 
 def run_in_lockstep(functions) -> tuple[list, dict]:
@@ -342,19 +368,22 @@ def run_in_lockstep(functions) -> tuple[list, dict]:
     errors: list = [None] * len(functions)
 
     def member(i, fn):
-        LOCKSTEP.group = group
+        group.wait_turn(i)
+        LOCKSTEP.group, LOCKSTEP.member = group, i
         try:
             results[i] = fn()
         except BaseException as exc:  # noqa: BLE001 - re-raised in the caller's thread
             errors[i] = exc
         finally:
             LOCKSTEP.group = None
-            group.leave()
+            group.leave(i)
 
     threads = [threading.Thread(target=member, args=(i, fn), name=f"lockstep-{i}", daemon=True)
                for i, fn in enumerate(functions)]
     for t in threads:
         t.start()
+    if functions:
+        group.start(len(functions))
     for t in threads:
         t.join()
     for exc in errors:
