@@ -6,7 +6,8 @@ memory are measured, not asserted. Each function prints its figures; run e.g.
     python tests/perf_helpers.py curves      # a default kiln trial with / without curves
     python tests/perf_helpers.py health      # health every epoch against the schedule
     python tests/perf_helpers.py labels      # the classifier's label columns per fit
-    python tests/perf_helpers.py memory      # a worker's peak RSS on a 200,000 x 22 table
+    python tests/perf_helpers.py memory [FOLDER [PACKAGE_ROOT]]  # a worker's memory,
+                                             # 200,000 x 22 table (made in FOLDER)
 
 Timings are medians of interleaved runs in one process, in CPU seconds of this process
 (``time.process_time``; BLAS is held to one thread, so on a shared, loaded machine the
@@ -155,66 +156,104 @@ def synthetic_table(path, rows: int = 200_000, seed: int = 0) -> Path:
 
 
 _WORKER = r"""
-import json, pickle, resource, sys
+import json, pickle, resource, sys, threading, time
+import psutil
 from workbench.sweep import trials
 import workbench.nets.engine, workbench.data.preprocessing, sklearn.compose, pandas
-base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+me = psutil.Process()
+def now():
+    m = me.memory_full_info()
+    return m.rss, m.uss
+base_rss, base_uss = now()
+peak = {"rss": base_rss, "uss": base_uss}
+stop = False
+def sample():
+    while not stop:
+        rss, uss = now()
+        peak["rss"], peak["uss"] = max(peak["rss"], rss), max(peak["uss"], uss)
+        time.sleep(0.01)
+th = threading.Thread(target=sample, daemon=True)
+th.start()
 with open(sys.argv[1], "rb") as fh:
-    spec = pickle.load(fh)
-res = trials.run_trial_from_file(spec.pop("_token"), spec.pop("_path"), spec)
-peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-print(json.dumps({"base_kb": base, "peak_kb": peak, "status": res["status"],
-                  "test_score": res["test_score"], "error": res["error"]}))
+    specs = pickle.load(fh)
+out = []
+for spec in specs:
+    res = trials.run_trial_from_file(spec.pop("_token"), spec.pop("_path"), spec)
+    out.append((res["status"], res["test_score"], res["error"]))
+stop = True
+th.join()
+print(json.dumps({"base_rss": base_rss, "base_uss": base_uss, "peak_rss": peak["rss"],
+                  "peak_uss": peak["uss"],
+                  "maxrss": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024,
+                  "trials": out}))
 """
 
 
-def worker_peak(csv, folder, epochs: int = 2) -> dict:
-    """Peak RSS of a fresh worker process that runs one trial of ``csv`` from the file
-    the parent writes (:func:`workbench.sweep.trials.save_worker_data`), next to the
-    RSS it had after its imports; the table's numeric size for scale."""
+def worker_peak(csv, folder, epochs: int = 2, folds_run: int = 3, package_root=None) -> dict:
+    """Memory of a fresh worker process that runs one trial on each of ``folds_run`` folds
+    (a worker keeps the features of up to three folds) of ``csv``, reading the table from
+    the file the parent writes (:func:`workbench.sweep.trials.save_worker_data`).
+    ``package_root``: a folder holding another version of the ``workbench`` package for
+    the worker (e.g. ``git archive <commit> workbench | tar -x -C DIR``), to compare.
+
+    Sampled every 10 ms with psutil: RSS (every page the process maps, shared ones
+    included) and USS (the pages only this process holds: what each extra worker costs),
+    after the imports (base) and at their peak; the table's numeric size for scale.
+    """
     import json
     import pickle
     import subprocess
 
     from workbench.sweep.trials import save_worker_data
 
-    plan, data, spec = trial(csv, "target", layers=["32"], epochs=epochs, folds=5, repeats=1,
-                             hidden="relu", learning_rates=["0.001"])
+    plan, data, _ = trial(csv, "target", layers=["32"], epochs=epochs, folds=5, repeats=1,
+                          hidden="relu", learning_rates=["0.001"])
     path = os.path.join(folder, "table.bin")
+    t = time.perf_counter()
     save_worker_data(data, path)
+    write_s = time.perf_counter() - t
+    specs = [dict(trial(csv, "target", fold=k, layers=["32"], epochs=epochs, folds=5,
+                        repeats=1, hidden="relu", learning_rates=["0.001"])[2],
+                  _token=data.token, _path=path) for k in range(folds_run)]
     spec_path = os.path.join(folder, "spec.pkl")
     with open(spec_path, "wb") as fh:
-        pickle.dump(dict(spec, _token=data.token, _path=path), fh)
+        pickle.dump(specs, fh)
+    env = dict(os.environ, OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1")
+    if package_root:
+        env["PYTHONPATH"] = str(package_root)
     out = subprocess.run([sys.executable, "-c", _WORKER, spec_path], capture_output=True,
-                         text=True, timeout=900, env=dict(os.environ, OMP_NUM_THREADS="1",
-                                                          OPENBLAS_NUM_THREADS="1"))
+                         text=True, timeout=900, env=env, cwd=package_root or None)
     if out.returncode:
         raise RuntimeError(out.stderr[-2000:])
     got = json.loads(out.stdout.strip().splitlines()[-1])
-    numeric = data.X.select_dtypes("number").to_numpy().nbytes
-    got["numeric_mb"] = numeric / 2**20
-    got["base_mb"], got["peak_mb"] = got["base_kb"] / 1024, got["peak_kb"] / 1024
-    got["peak_over_base_mb"] = got["peak_mb"] - got["base_mb"]
-    got["file_mb"] = sum(f.stat().st_size for f in Path(folder).glob("table.bin*")) / 2**20
-    print(f"table {csv}: numeric feature columns {got['numeric_mb']:.1f} MB; worker after "
-          f"imports {got['base_mb']:.0f} MB, peak {got['peak_mb']:.0f} MB (+"
-          f"{got['peak_over_base_mb']:.0f} MB = {got['peak_over_base_mb'] / got['numeric_mb']:.2f}"
-          f" x the numeric size); copy on disk {got['file_mb']:.1f} MB; {got['status']} "
-          f"{got['test_score']}")
+    mb = 2 ** 20
+    numeric = data.X.select_dtypes("number").to_numpy().nbytes + np.asarray(data.y).nbytes
+    got.update(numeric_mb=numeric / mb, write_s=write_s,
+               file_mb=sum(f.stat().st_size for f in Path(folder).glob("table.bin*")) / mb)
+    for k in ("base_rss", "base_uss", "peak_rss", "peak_uss", "maxrss"):
+        got[k] = got[k] / mb
+    rss, uss = got["peak_rss"] - got["base_rss"], got["peak_uss"] - got["base_uss"]
+    print(f"table {csv}: numeric size {got['numeric_mb']:.1f} MB; a worker running "
+          f"{folds_run} trials on {folds_run} folds: RSS {got['base_rss']:.0f} MB after imports, "
+          f"peak {got['peak_rss']:.0f} MB (+{rss:.0f} MB = {rss / got['numeric_mb']:.2f} x); "
+          f"USS {got['base_uss']:.0f} MB after imports, peak {got['peak_uss']:.0f} MB "
+          f"(+{uss:.0f} MB = {uss / got['numeric_mb']:.2f} x); ru_maxrss {got['maxrss']:.0f} MB; "
+          f"copy written in {write_s:.2f} s, {got['file_mb']:.1f} MB on disk; "
+          f"{[t[0] for t in got['trials']]}")
     return got
 
 
-def memory(folder=None) -> dict:
+def memory(folder=None, package_root=None) -> dict:
     import tempfile
 
     folder = folder or tempfile.mkdtemp(prefix="wb-mem-")
     csv = Path(folder) / "big.csv"
     if not csv.exists():
         synthetic_table(csv)
-    return worker_peak(csv, folder)
+    return worker_peak(csv, folder, package_root=package_root)
 
 
 if __name__ == "__main__":
     what = sys.argv[1] if len(sys.argv) > 1 else "curves"
     {"curves": curves_cost, "health": health_cost, "labels": labels_cost,
-     "memory": memory}[what]()
+     "memory": memory}[what](*sys.argv[2:])

@@ -406,17 +406,37 @@ class _BaseNet(BaseEstimator):
         return _HeldOut(X_ho, np.ascontiguousarray(y_ho), score)
 
     def _validated(self, X, y, dtype, first_pass):
-        """``X`` and ``y`` checked, in ``dtype``, C-contiguous, ``y`` two-dimensional."""
+        """``X`` and ``y`` checked, ``y`` in ``dtype`` and two-dimensional.
+
+        ``X`` stays as validated (float64 or float32, not copied): :meth:`_training_data`
+        casts it to ``dtype`` once, as it adds the column of ones, so a fit holds no
+        third copy of the rows."""
         X, y = validate_data(self, X, y, multi_output=True, y_numeric=self._task == "regression",
                              dtype=(np.float64, np.float32), reset=first_pass)
         with np.errstate(over="ignore"):
-            X = np.ascontiguousarray(X, dtype=dtype)
             y = self._prepare_y(y, first_pass)
             y = np.asarray(y, dtype=dtype)
-        if not (np.isfinite(X).all() and np.isfinite(y).all()):
-            raise ValueError(f"X or y has values too large for dtype={self.dtype!r}; rescale the "
-                             "data (or use dtype='float64')")
+        if not np.isfinite(y).all():
+            self._too_large()
         return X, (y.reshape(-1, 1) if y.ndim == 1 else y)
+
+    def _too_large(self):
+        raise ValueError(f"X or y has values too large for dtype={self.dtype!r}; rescale the "
+                         "data (or use dtype='float64')")
+
+    def _rows_as(self, X, dtype, ones):
+        """``X`` in ``dtype``, C-contiguous, with a trailing column of ones when ``ones``;
+        refused when a value does not fit the dtype."""
+        with np.errstate(over="ignore"):
+            if ones:
+                out = np.empty((X.shape[0], X.shape[1] + 1), dtype=dtype)
+                out[:, :-1] = X
+                out[:, -1] = 1
+            else:
+                out = np.ascontiguousarray(X, dtype=dtype)
+        if not np.isfinite(out).all():
+            self._too_large()
+        return out
 
     def _start_fresh(self, net, units, hidden, y):
         self.n_iter_ = 0
@@ -518,8 +538,9 @@ class _BaseNet(BaseEstimator):
                 warnings.warn("Got `batch_size` less than 1 or larger than sample size. "
                               "It is going to be clipped", stacklevel=4)
             batch_size = int(np.clip(self.batch_size, 1, n))
-        X = with_ones(X)
+        X = self._rows_as(X, y.dtype, ones=True)
         if X_val is not None:
+            X_val = self._rows_as(X_val, y.dtype, ones=False)
             k = min(PROBE_ROWS, X_val.shape[0])
             probe_X, probe_y = with_ones(X_val[:k]), np.ascontiguousarray(y_val[:k])
         else:

@@ -570,7 +570,23 @@ def run_trial(data: TrialData, spec: dict) -> dict:
 _FOLD_CACHE: collections.OrderedDict = collections.OrderedDict()
 #: how many folds' features a worker keeps (trials go out fold by fold, so a few suffice)
 FOLD_CACHE_SIZE = 3
+#: ... and how many bytes: beyond the most recent fold, older folds are kept only while
+#: all of them (and the next one, judged by the last one's size) fit in this budget. On
+#: a large table a worker then holds one fold's features, not three; a fold's
+#: preprocessing is cheap next to a network's fit on that many rows. (A choice.)
+FOLD_CACHE_BYTES = 64 * 2**20
 _FOLD_LOCK = threading.Lock()
+
+
+def _cached_bytes() -> int:
+    return sum(a.nbytes + b.nbytes for a, b in _FOLD_CACHE.values())
+
+
+def _make_room(incoming: int) -> None:
+    """Evict the oldest folds (lock held) until ``incoming`` more bytes fit the budget."""
+    while _FOLD_CACHE and (len(_FOLD_CACHE) >= FOLD_CACHE_SIZE
+                           or _cached_bytes() + incoming > FOLD_CACHE_BYTES):
+        _FOLD_CACHE.popitem(last=False)
 
 
 def _fold_features(data: TrialData, spec: dict, prep, train, test):
@@ -588,16 +604,18 @@ def _fold_features(data: TrialData, spec: dict, prep, train, test):
         if hit is not None:
             _FOLD_CACHE.move_to_end(key)
             return hit
+        for k in [k for k in _FOLD_CACHE if k[0] != data.token]:
+            del _FOLD_CACHE[k]
+        if _FOLD_CACHE:  # room for this fold first, so that no more folds are held meanwhile
+            last = next(reversed(_FOLD_CACHE.values()))
+            _make_room(last[0].nbytes + last[1].nbytes)
     Xt_tr = np.asarray(prep.fit_transform(data.X.iloc[train], np.asarray(data.y)[train]))
     Xt_te = np.asarray(prep.transform(data.X.iloc[test]))
     Xt_tr.flags.writeable = False
     Xt_te.flags.writeable = False
     with _FOLD_LOCK:
-        for k in [k for k in _FOLD_CACHE if k[0] != data.token]:
-            del _FOLD_CACHE[k]
+        _make_room(Xt_tr.nbytes + Xt_te.nbytes)
         _FOLD_CACHE[key] = (Xt_tr, Xt_te)
-        while len(_FOLD_CACHE) > FOLD_CACHE_SIZE:
-            _FOLD_CACHE.popitem(last=False)
     return Xt_tr, Xt_te
 
 
@@ -682,25 +700,40 @@ _WORKER_DATA: dict = {}
 
 
 def save_worker_data(data: TrialData, path: str) -> None:
-    """Write the sweep's table for the local workers (read back by :func:`run_trial_from_file`)."""
+    """Write the sweep's table for the local workers (read back by :func:`run_trial_from_file`).
+
+    ``joblib.dump`` without compression: every NumPy array inside the
+    :class:`TrialData` -- the DataFrame's numeric column blocks, the target -- is
+    written as a raw buffer that the workers map read-only instead of copying.
+    """
     import joblib
 
     joblib.dump(data, path)
+
+
+def load_worker_data(path: str) -> TrialData:
+    """The :class:`TrialData` written by :func:`save_worker_data`, its arrays memory-mapped
+    read-only (``joblib.load(mmap_mode="r")``): the operating system keeps one copy of
+    the table's numeric columns in its page cache, shared by every worker, instead of
+    one copy per worker. Trials only read the table (each fold's rows are taken into
+    new arrays), so the values and the results are those of an in-memory copy."""
+    import joblib
+
+    return joblib.load(path, mmap_mode="r")
 
 
 def run_trial_from_file(token: str, path: str, spec: dict) -> dict:
     """Run a trial in a pool worker, reading the sweep's table once per worker.
 
     The parent writes the :class:`TrialData` to ``path`` once per sweep
-    (``joblib.dump``); each worker loads it on its first trial of the sweep and
-    keeps it (one sweep's table at a time), so the table crosses to each
-    worker once however many trials it runs, and the worker pool can stay
+    (:func:`save_worker_data`); each worker maps it on its first trial of the
+    sweep (:func:`load_worker_data`) and keeps it (one sweep's table at a time),
+    so the table crosses to each worker once however many trials it runs, the
+    workers share one copy of its numeric columns, and the worker pool can stay
     alive from one sweep to the next.
     """
     data = _WORKER_DATA.get(token)
     if data is None:
-        import joblib
-
         _WORKER_DATA.clear()
-        data = _WORKER_DATA[token] = joblib.load(path)
+        data = _WORKER_DATA[token] = load_worker_data(path)
     return run_trial(data, spec)
