@@ -251,3 +251,17 @@ def test_a_fold_without_a_score_is_not_agreement_and_stays_valid_json():
     doc = json.loads(json.dumps(cc.to_dict(), allow_nan=False))
     assert doc["folds"][1]["engine_score"] is None and doc["largest_difference"] is None
     assert doc["sentence"].startswith("On 1 of 2 folds") and "difference inf" in doc["sentence"]
+
+
+def test_a_sweep_run_on_scikit_learn_stored_exactly_its_column(tmp_path):
+    """Multiclass (softmax) sweep run with --engine sklearn: the stored scores are scikit-learn's
+    own fits on the same folds and seeds, so they equal the cross-check's scikit-learn column."""
+    X, y = make_classification(n_samples=120, n_features=4, n_informative=3, n_redundant=0,
+                               n_classes=3, random_state=4)
+    df = pd.DataFrame(X, columns=["a", "b", "c", "d"]).assign(label=y)
+    sw = _sweep(tmp_path, df, "label", hidden="relu", engine="sklearn")
+    cc, _ = _check(sw, repeats=1)
+    assert cc.stored_engine == "sklearn" and cc.estimator == "MLPClassifier"
+    assert cc.configuration["head"] == "softmax" and cc.all_agree is True
+    assert [f.stored_score for f in cc.folds] == [f.sklearn_score for f in cc.folds]
+    assert "The sweep itself ran scikit-learn's MLP" in cc.sentence()
