@@ -48,6 +48,13 @@ def _digest(res):
             None if pred is None else hashlib.sha1(pred.tobytes()).hexdigest())
 
 
+def _mapped(values) -> bool:
+    """Whether an array is a view of a numpy.memmap (the file), not a copy."""
+    while not isinstance(values, np.memmap) and getattr(values, "base", None) is not None:
+        values = values.base
+    return isinstance(values, np.memmap)
+
+
 def test_workers_map_the_tables_arrays_read_only(tmp_path):
     data, _ = _specs("seed_germination.csv", "germinated_share")
     path = tmp_path / "table.bin"
@@ -57,10 +64,7 @@ def test_workers_map_the_tables_arrays_read_only(tmp_path):
     assert numeric
     for name in numeric:
         values = mapped.X[name].to_numpy()
-        base = values
-        while not isinstance(base, np.memmap) and getattr(base, "base", None) is not None:
-            base = base.base
-        assert isinstance(base, np.memmap), name  # backed by the file, not a copy
+        assert _mapped(values), name  # backed by the file, not a copy
         assert not values.flags.writeable
         np.testing.assert_array_equal(values, data.X[name].to_numpy())
     assert isinstance(mapped.y, np.memmap) and not mapped.y.flags.writeable
@@ -84,7 +88,7 @@ def test_trials_on_the_mapped_table_are_bit_identical(tmp_path, table, target, e
     mapped = [T.run_trial_from_file(data.token, str(path), dict(s)) for s in specs]
     kept = T._WORKER_DATA[data.token].X
     column = kept[[c for c in kept.columns if kept[c].dtype.kind == "f"][0]].to_numpy()
-    assert not column.flags.writeable  # the mapped copy was used
+    assert _mapped(column)  # the mapped copy was used
     T._FOLD_CACHE.clear()
     memory = [T.run_trial(data, dict(s)) for s in specs]
     assert any(s["config"].get("kind") == "baseline" for s in specs)
@@ -124,3 +128,38 @@ def test_the_engine_casts_float64_rows_once_with_the_same_result():
     for early in (False, True):
         with pytest.raises(ValueError, match="too large for dtype='float32'"):
             NetRegressor(early_stopping=early, **kw).fit(X, y)
+
+
+def test_a_large_fold_is_released_before_the_next_is_computed(monkeypatch):
+    """Over the budget, the previous fold's features are dropped before the next fold's
+    preprocessing runs, so a worker never holds two large folds at once."""
+    import gc
+    import weakref
+
+    from workbench.data.preprocessing import build_preprocessor
+
+    data, specs = _specs("kiln_batches.csv", "passes_inspection", hidden="relu")
+    first, second = [s for s in specs if s["config"].get("kind") != "baseline"][:2]
+    assert first["fold"] != second["fold"]
+    monkeypatch.setattr(T, "FOLD_CACHE_BYTES", 1)
+    T._FOLD_CACHE.clear()
+
+    def features(spec, check=None):
+        prep = build_preprocessor(data.profile, data.target)
+        if check is not None:
+            fit_transform = prep.fit_transform
+            monkeypatch.setattr(prep, "fit_transform", lambda *a: (check(), fit_transform(*a))[1],
+                                raising=False)
+        return T._fold_features(data, spec, prep, np.asarray(spec["train"]),
+                                np.asarray(spec["test"]))
+
+    old = weakref.ref(features(first)[0])
+    seen = []
+
+    def check():
+        gc.collect()
+        seen.append(old() is None)
+
+    features(second, check)
+    assert seen == [True]
+    T._FOLD_CACHE.clear()

@@ -607,8 +607,7 @@ def _fold_features(data: TrialData, spec: dict, prep, train, test):
         for k in [k for k in _FOLD_CACHE if k[0] != data.token]:
             del _FOLD_CACHE[k]
         if _FOLD_CACHE:  # room for this fold first, so that no more folds are held meanwhile
-            last = next(reversed(_FOLD_CACHE.values()))
-            _make_room(last[0].nbytes + last[1].nbytes)
+            _make_room(sum(a.nbytes for a in next(reversed(_FOLD_CACHE.values()))))
     Xt_tr = np.asarray(prep.fit_transform(data.X.iloc[train], np.asarray(data.y)[train]))
     Xt_te = np.asarray(prep.transform(data.X.iloc[test]))
     Xt_tr.flags.writeable = False
