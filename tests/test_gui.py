@@ -21,7 +21,7 @@ from PySide6.QtWidgets import QApplication
 from workbench.data.intake import load_table
 from workbench.errors import InputError
 from workbench.gui import core_adapter as core
-from workbench.gui.main_window import MainWindow
+from workbench.gui.main_window import CANNOT_RUN, MainWindow
 from workbench.gui.messages import SETTING_LABELS, phrase
 from workbench.gui.models import COLUMN_KEYS
 from workbench.gui.settings import Settings
@@ -319,7 +319,7 @@ def test_an_id_made_a_feature_in_the_window_reaches_the_fitted_preprocessing(qtb
     window.setup.alpha_edit.setText("0.001 abc")
     plan, msg = window._plan()
     assert plan is None and msg.endswith(f"({SETTING_LABELS['alpha']})")
-    qtbot.waitUntil(lambda: window.setup.estimate_label.text() == msg)
+    qtbot.waitUntil(lambda: window.setup.estimate_label.text() == CANNOT_RUN + msg)
 
 
 def test_free_text_made_a_feature_is_refused_with_the_core_message(qtbot, window, tmp_path):

@@ -29,7 +29,7 @@ from verdict_views import assert_view_shows_verdict, html_text, normalise
 
 from workbench.cli import main
 from workbench.gui import theme as th
-from workbench.gui.main_window import COLUMN_KEYS, MainWindow
+from workbench.gui.main_window import CANNOT_RUN, COLUMN_KEYS, MainWindow
 from workbench.gui.models import DECISION_TEXT
 from workbench.gui.settings import Settings
 from workbench.sweep.plan import LEARNING_RATE_GRID
@@ -355,7 +355,7 @@ def test_tune_mixed_with_numbers_is_refused_in_the_core_words(qtbot, tmp_path):
     with pytest.raises(Exception) as refused:  # the core's own refusal, for reference
         build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection",
                    learning_rates=["tune", "0.01"])
-    assert win.setup.estimate_label.text() == phrase(refused.value)
+    assert win.setup.estimate_label.text() == CANNOT_RUN + phrase(refused.value)
     assert not win.run_action.isEnabled()
     win.setup.lr_edit.setText("tune")
     assert win.run_action.isEnabled()

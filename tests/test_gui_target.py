@@ -18,7 +18,7 @@ import pytest
 
 from workbench.data.profiling import analyse_target, check_column, profile_table
 from workbench.errors import InputError
-from workbench.gui.main_window import MainWindow
+from workbench.gui.main_window import CANNOT_RUN, MainWindow
 from workbench.gui.messages import SETTING_LABELS, phrase
 from workbench.gui.settings import Settings
 from workbench.sweep.store import Store
@@ -217,7 +217,7 @@ def test_run_is_disabled_with_the_reason_when_no_column_is_a_feature(qtbot, wind
     with qtbot.waitSignal(window.targetReady, timeout=20_000):
         window.open_path(str(path), "y")
     want = phrase(ref.value)
-    qtbot.waitUntil(lambda: window.setup.estimate_label.text() == want)
+    qtbot.waitUntil(lambda: window.setup.estimate_label.text() == CANNOT_RUN + want)
     assert want.endswith(f"({SETTING_LABELS['roles']})")
     assert not window.run_action.isEnabled() and not window.setup.run_button.isEnabled()
     window.run_sweep()

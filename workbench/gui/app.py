@@ -38,13 +38,13 @@ def default_choices(window) -> None:
     summary = window.summary
     if summary is None:
         return
-    adv = summary.advice
-    window.setup.hidden_grid.set_checked(adv.hidden_to_sweep)
-    # the usual heads for the kind (allowed with no warning); unusual ones stay a user's choice
-    usual = {name for name, chk in summary.heads if chk.allowed and not chk.warning}
-    heads = [h for h in adv.heads_to_sweep if h in usual] or [adv.output_head]
-    window.setup.head_grid.set_checked(heads)
-    window.setup._set_metrics(summary.task, summary.target.kind)  # the metric for those heads
+    from workbench.gui import core_adapter as core
+
+    window.setup.hidden_grid.set_checked(core.default_hidden(summary))
+    # the advised head and one alternative the guard accepts (the verdict tests the rule);
+    # the metric follows the heads ticked (the set-up column's own rule)
+    window.setup.head_grid.set_checked(core.default_heads(summary))
+    window.setup._set_metrics(summary.task, summary.target.kind)
 
 
 def run_app(path: str | None = None, target: str | None = None, run: bool = False,

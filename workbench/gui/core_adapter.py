@@ -145,6 +145,38 @@ def summarise_target(df, name: str, kind: str | None = None) -> TargetSummary:
     return TargetSummary(target=info, advice=adv, heads=heads)
 
 
+def default_heads(summary: TargetSummary) -> list[str]:
+    """The output heads a default sweep ticks: the advised head and one alternative.
+
+    The alternative is the first head of the advice's ``heads_to_sweep`` that the
+    sweep's guard accepts (one without a warning first), so the verdict can test the
+    output rule ("logistic for a binary target", ...) against something; one
+    alternative, not all, keeps the default sweep's trial count at twice one head's.
+    Kinds with no accepted alternative (signed, multiclass) get the advised head alone.
+    """
+    allowed = {name: chk for name, chk in summary.heads if chk.allowed}
+    advised = summary.advice.output_head
+    heads = [advised] if advised in allowed else []
+    others = [h for h in summary.advice.heads_to_sweep if h in allowed and h not in heads]
+    others.sort(key=lambda h: bool(allowed[h].warning))  # stable: the advice's order
+    heads += others[:1]
+    return heads or list(allowed)[:1]
+
+
+def default_hidden(summary: TargetSummary | None = None) -> list[str]:
+    """The hidden activations a default sweep ticks (the advice's ``hidden_to_sweep``)."""
+    from workbench.data.profiling import HIDDEN_TO_SWEEP
+
+    return list(summary.advice.hidden_to_sweep if summary is not None else HIDDEN_TO_SWEEP)
+
+
+def default_metric_for(summary: TargetSummary, heads) -> str:
+    """The metric the core picks for the target's kind and the heads ticked."""
+    from workbench.sweep.plan import default_metric
+
+    return default_metric(summary.target.kind, list(heads))
+
+
 def summarise_or_refuse(df, name: str, kind: str | None = None):
     """:func:`summarise_target`, or the :class:`InputError` that refused it (returned, not
     raised, so the window keeps the setting it is about)."""

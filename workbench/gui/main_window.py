@@ -64,6 +64,8 @@ from workbench.gui.verdict_strip import VerdictStrip
 from workbench.gui.widgets import Banner, ElidedLabel, WrappingLabel
 
 TABLE_FILTER = "Tables (*.csv *.tsv *.txt *.xlsx *.parquet *.pq);;All files (*)"
+#: what the set-up column's footer puts before the core's reason when Run is off
+CANNOT_RUN = "Cannot run yet: "
 #: the most configurations drawn at once in the plots
 MAX_PLOTTED = 8
 #: the ROPE box's label (messages.SETTING_LABELS names it) and tooltip
@@ -154,6 +156,7 @@ class MainWindow(QMainWindow):
         self._close_after_stop = False
         self._speed: float | None = None
         self._plan_ok = False
+        self._plan_message = ""  # the banner's message about a plan that could not run
         self._theme_choice = theme_choice or self.settings.theme()
         self.theme = th.resolve(self._theme_choice)
 
@@ -725,11 +728,18 @@ class MainWindow(QMainWindow):
 
     def _update_estimate(self) -> None:
         self._show_rope_default()
+        if self.sweep_running():
+            return  # the set-up column is locked; the running plan's estimate stays
         plan, msg = self._plan()
         self._plan_ok = plan is not None
         if plan is None:
-            self.setup.set_estimate(msg, False)
+            self.setup.set_estimate(msg if self.table is None or self.summary is None
+                                    else CANNOT_RUN + msg, False)
         else:
+            # a message about an earlier plan the user has since fixed goes away
+            if self._plan_message and self.message_text() == self._plan_message:
+                self.banner.hide_message()
+            self._plan_message = ""
             rows, cols = self.table.df.shape
             self.setup.set_estimate(core.plan_summary(plan, self.setup.choices(), self._speed,
                                                       rows, cols - 1), True)
@@ -745,6 +755,7 @@ class MainWindow(QMainWindow):
         plan, msg = self._plan()
         if plan is None:
             self.show_message(msg)
+            self._plan_message = msg
             return
         choices = self.setup.choices()
         session = core.StoreSession(self.store_path)
@@ -898,6 +909,7 @@ class MainWindow(QMainWindow):
                                     + self.progress_label.text())
         self._sweep = None
         self._update_actions()
+        self._update_estimate()
         self._measure_speed()
         self._fit_columns()
         if self.results_view.selectionModel().selectedRows() == [] \
@@ -1270,6 +1282,10 @@ class MainWindow(QMainWindow):
         plan_ok = self.table is not None and self.summary is not None and self._plan_ok
         self.run_action.setEnabled(plan_ok and not running)
         self.setup.run_button.setEnabled(plan_ok and not running)
+        # the set-up column (and the roles in the column profile) show the running plan
+        self.setup.set_locked(running)
+        self.profile_view.setEditTriggers(QAbstractItemView.NoEditTriggers if running
+                                          else QAbstractItemView.AllEditTriggers)
         self.stop_action.setEnabled(running)
         self.export_action.setEnabled(not running and self.results_model.rowCount() > 0)
         self.open_action.setEnabled(not running)

@@ -131,14 +131,15 @@ class SetupPane(QWidget):
         t.setObjectName("muted")
         s2.body.addWidget(t)
         self.hidden_grid = CheckGrid(columns=3)
-        self.hidden_grid.set_items(core.hidden_tooltips(), checked=("relu", "tanh"))
+        # the advice's hidden activations (the same for every kind): what `open --run` runs
+        self.hidden_grid.set_items(core.hidden_tooltips(), checked=core.default_hidden())
         self.hidden_grid.changed.connect(self.planChanged)
         s2.body.addWidget(self.hidden_grid)
         t = QLabel("Output heads")
         t.setObjectName("muted")
         s2.body.addWidget(t)
         self.head_grid = CheckGrid(columns=3)
-        self.head_grid.changed.connect(self.planChanged)
+        self.head_grid.changed.connect(self._heads_changed)
         s2.body.addWidget(self.head_grid)
         self.head_note = QLabel("Pick a target to see which heads can serve it.")
         self.head_note.setObjectName("muted")
@@ -165,7 +166,16 @@ class SetupPane(QWidget):
         self.early_check.setToolTip("Hold out 10 % of each training fold and stop when its "
                                     "score stalls; records a validation curve per epoch")
         self.metric_combo = QComboBox()
-        self.metric_combo.setToolTip("scikit-learn scorer name (greater is better)")
+        self.metric_combo.setToolTip("scikit-learn scorer name (greater is better). Until you "
+                                     "pick one, it follows the target's kind and the heads "
+                                     "ticked (the Poisson deviance only when every head "
+                                     "ticked predicts above 0)")
+        # True while the metric is the default for the heads ticked (it then follows them);
+        # a metric the user picks stays, and a plan it cannot serve disables Run with why
+        self._metric_auto = True
+        self.metric_combo.activated.connect(self._metric_picked)
+        self.metric_combo.currentTextChanged.connect(self.planChanged)
+        self.early_check.toggled.connect(self.planChanged)
 
         def lab(text):
             w = QLabel(text)
@@ -243,6 +253,38 @@ class SetupPane(QWidget):
         lay.addStretch(1)
 
         self._summary: core.TargetSummary | None = None
+        self.cards = (s1, s2, s3, s4)
+
+    def set_locked(self, locked: bool) -> None:
+        """Read-only while a sweep runs (the plan it runs stays on show), editable after."""
+        for card in self.cards:
+            card.setEnabled(not locked)
+
+    def locked(self) -> bool:
+        return not self.cards[0].isEnabled()
+
+    def _heads_changed(self) -> None:
+        """Heads ticked or unticked: the metric follows them unless the user picked one."""
+        if self._metric_auto and self._summary is not None:
+            self._pick_default_metric()
+        self.planChanged.emit()
+
+    def _metric_picked(self, _index: int) -> None:
+        self._metric_auto = self._summary is None or \
+            self.metric_combo.currentText() == self._default_metric()
+
+    def _default_metric(self) -> str | None:
+        try:
+            return core.default_metric_for(self._summary, self.head_grid.checked())
+        except Exception:  # an unknown kind: no default
+            return None
+
+    def _pick_default_metric(self) -> None:
+        metric = self._default_metric()
+        if metric is not None and metric != self.metric_combo.currentText():
+            self.metric_combo.blockSignals(True)
+            self.metric_combo.setCurrentText(metric)
+            self.metric_combo.blockSignals(False)
 
     def resizeEvent(self, event) -> None:
         super().resizeEvent(event)
@@ -377,7 +419,7 @@ class SetupPane(QWidget):
         self.advice_label.setText(
             f"Advised head: <b>{_escape(adv.output_head)}</b> with {_escape(adv.loss.replace('_', ' '))}"
             f" <i>(common practice)</i><br><span>{_escape(adv.reason)}</span>")
-        items, checked = [], [adv.output_head]
+        items, checked = [], core.default_heads(summary)
         refused = []
         for name, chk in summary.heads:
             tip = core.head_tooltip(info.task, name)
@@ -399,6 +441,7 @@ class SetupPane(QWidget):
         self._texts_changed()
 
     def _set_metrics(self, task: str, kind: str | None) -> None:
+        """Offer the task's metrics and pick the default for the kind and heads ticked."""
         from workbench.sweep.plan import default_metric
 
         self.metric_combo.blockSignals(True)
@@ -410,6 +453,7 @@ class SetupPane(QWidget):
             except Exception:  # an unknown kind keeps the first metric
                 pass
         self.metric_combo.blockSignals(False)
+        self._metric_auto = True
 
     # ------------------------------------------------------------------ choices
     def choices(self) -> dict:
@@ -436,7 +480,10 @@ class SetupPane(QWidget):
         self.head_grid.set_checked(plan.get("heads") or [])
         self.layers_edit.setText("; ".join(",".join(str(w) for w in shape)
                                            for shape in plan.get("layers") or [[32]]))
-        self.lr_edit.setText(" ".join(f"{v:g}" for v in plan.get("learning_rates") or [0.001]))
+        if plan.get("tune_learning_rate"):
+            self.lr_edit.setText(core.DEFAULT_LEARNING_RATES)
+        else:
+            self.lr_edit.setText(" ".join(f"{v:g}" for v in plan.get("learning_rates") or [0.001]))
         self.alpha_edit.setText(" ".join(f"{v:g}" for v in plan.get("alphas") or [0.0001]))
         self.folds_spin.setValue(int(plan.get("folds", 5)))
         self.repeats_spin.setValue(int(plan.get("repeats", 2)))
@@ -444,6 +491,8 @@ class SetupPane(QWidget):
         self.early_check.setChecked(bool(plan.get("early_stopping")))
         if plan.get("metric"):
             self.metric_combo.setCurrentText(plan["metric"])
+            # the stored metric follows later head changes only if it was the default
+            self._metric_auto = self.metric_combo.currentText() == self._default_metric()
 
     def set_estimate(self, text: str, ok: bool) -> None:
         self.estimate_label.setText(text)

@@ -103,12 +103,14 @@ class CheckGrid(QWidget):
         self.changed.emit()
 
     def checked(self) -> list[str]:
-        return [n for n, b in self.boxes.items() if b.isChecked() and b.isEnabled()]
+        # a box disabled on its own (a refused head) is never in the plan; one greyed only
+        # because the set-up column is locked during a sweep still is
+        return [n for n, b in self.boxes.items() if b.isChecked() and b.isEnabledTo(self)]
 
     def set_checked(self, names) -> None:
         names = set(names)
         for n, b in self.boxes.items():
-            b.setChecked(n in names and b.isEnabled())
+            b.setChecked(n in names and b.isEnabledTo(self))
 
 
 class ElidedLabel(QLabel):
