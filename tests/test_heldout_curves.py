@@ -188,3 +188,57 @@ def test_estimator_held_out_is_display_only():
     assert len(seen) == len(b.history_["test_loss"]) == 4
     with pytest.raises(ValueError, match="held_out_score needs"):
         NetClassifier(**kw).fit(X, y, held_out_score=len)
+
+
+@pytest.mark.parametrize("table,target,extra", [
+    ("kiln_batches.csv", "passes_inspection", {}),
+    ("coffee_roast.csv", "roast_grade", {}),
+    ("trap_catches.csv", "moths_caught", {"output": "exp"}),
+    # stops at epoch 23, its best validation epoch was the 12th (restored at the end)
+    ("kiln_batches.csv", "passes_inspection", {"early_stopping": True, "epochs": 60,
+                                               "learning_rates": ["0.01"]}),
+])
+def test_scikit_learn_engine_trials_record_the_same_curves(table, target, extra):
+    """scikit-learn's MLP (--engine sklearn): one point per epoch, the last the stored
+    score, and nothing else changes (the same scores and predictions without curves)."""
+    extra = {"epochs": 12, **extra}
+    data, spec = _trial(table, target, engine="sklearn", hidden="relu", **extra)
+    on, off = T.run_trial(data, spec), T.run_trial(data, dict(spec, curves=False))
+    _check_curves(on)
+    assert off["history"]["test_loss"] == []
+    assert (on["test_score"], on["train_score"], on["epochs"]) == (
+        off["test_score"], off["train_score"], off["epochs"])
+    assert on["history"]["loss"] == off["history"]["loss"]
+    np.testing.assert_array_equal(on["predictions"], off["predictions"])
+
+
+def test_scikit_learn_engine_test_loss_is_its_own_loss():
+    """The last held-out loss of scikit-learn's MLP: sklearn.metrics.log_loss of its
+    predict_proba (classifier); half of sklearn.metrics.mean_poisson_deviance on the scaled
+    target (the Poisson MLP's loss)."""
+    from sklearn.metrics import mean_poisson_deviance
+
+    data, spec = _trial("kiln_batches.csv", "passes_inspection", engine="sklearn",
+                        hidden="relu")
+    model, X_te, y_te, _ = _fitted_sklearn(data, spec)
+    ref = log_loss(y_te, model.predict_proba(X_te))
+    assert model.history_["test_loss"][-1] == pytest.approx(ref, rel=1e-9)
+    data, spec = _trial("trap_catches.csv", "moths_caught", engine="sklearn", hidden="relu",
+                        output="exp")
+    model, X_te, y_te, y_net = _fitted_sklearn(data, spec)
+    mlp = model.regressor_
+    ref = 0.5 * mean_poisson_deviance(np.ravel(y_net), mlp.predict(X_te))
+    assert mlp.history_["test_loss"][-1] == pytest.approx(ref, rel=1e-9)
+
+
+def _fitted_sklearn(data, spec):
+    cfg = spec["config"]
+    pipe = build_pipeline(data.profile, data.target, T.make_estimator(spec), cfg["head"])
+    prep = pipe.named_steps["prep"]
+    model = T._watch_sklearn(pipe)
+    train, test = np.asarray(spec["train"]), np.asarray(spec["test"])
+    X_tr, X_te = T._fold_features(data, spec, prep, train, test)
+    y = np.asarray(data.y)
+    y_held, score = T._held_out_watch(spec, model, y[train], y[test])
+    model.fit(X_tr, y[train], held_out=(X_te, y_held), held_out_score=score)
+    return model, X_te, y[test], y_held

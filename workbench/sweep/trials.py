@@ -35,8 +35,9 @@ per epoch unless said otherwise, JSON numbers with None for a non-finite value):
   entry equals it). Both are for display: the test rows are handed to the
   network's ``fit`` as ``held_out`` (their features through the fold's fitted
   preprocessing, :func:`_fold_features`) and nothing in training or stopping
-  reads them. NumPy engine only; scikit-learn's MLP has no per-epoch hook, so
-  its trials leave them empty (as do baselines);
+  reads them. scikit-learn's MLP has no public per-epoch hook: its trials get them
+  through a subclass that reads the parameters in scikit-learn's per-epoch method
+  (:func:`_watched_class`); baselines have none;
 - ``val_loss``, ``val_score``: early stopping's own validation rows (split off
   the training rows), the head's loss and R^2 / accuracy;
 - ``dead``, ``saturated`` (one share per hidden layer) and ``grad_norm`` (one
@@ -476,6 +477,94 @@ def _classification_score(metric: str, classes, y):
     return None
 
 
+#: scikit-learn MLP class -> its watched subclass (:func:`_watched_class`)
+_WATCHED: dict = {}
+
+
+def _watched_class(cls):
+    """A subclass of scikit-learn's ``MLPRegressor``/``MLPClassifier`` whose ``fit`` takes
+    the NumPy engine's ``held_out`` and ``held_out_score`` and records
+    ``history_["test_loss"]`` and ``history_["test_score"]`` the same way.
+
+    scikit-learn has no public per-epoch callback (and ``partial_fit`` is not the same
+    training), so it reads the parameters in ``_update_no_improvement_count``, the
+    method scikit-learn's training loop calls once after every epoch's updates. It
+    only reads: the fitted parameters are those of the class itself. The loss is the
+    workbench head's matched loss, which equals scikit-learn's MLP loss for the same
+    head (the parity tests); with early stopping the last point is of the restored
+    best parameters. None when the class has no such method (another scikit-learn):
+    the trial then records no held-out curves.
+    """
+    if cls in _WATCHED:
+        return _WATCHED[cls]
+    if not hasattr(cls, "_update_no_improvement_count"):
+        _WATCHED[cls] = None
+        return None
+
+    class Watched(cls):
+        def fit(self, X, y, sample_weight=None, held_out=None, held_out_score=None):
+            self._watch = None
+            self._curves = {"test_loss": [], "test_score": []}
+            if held_out is not None:
+                self._watch = (held_out[0], np.asarray(held_out[1]), held_out_score)
+            super().fit(X, y, sample_weight=sample_weight)
+            if self._watch is not None and self.early_stopping and self._curves["test_loss"]:
+                self._watch_now(replace=True)  # the best epoch's parameters were restored
+            self._watch = None
+            self.history_ = {"loss": list(self.loss_curve_),
+                             "val_score": list(self.validation_scores_ or []), **self._curves}
+            return self
+
+        def _update_no_improvement_count(self, *args, **kwargs):
+            super()._update_no_improvement_count(*args, **kwargs)
+            if getattr(self, "_watch", None) is not None:
+                self._watch_now()
+
+        def _watch_now(self, replace=False):
+            from workbench.nets.activations import resolve_head
+
+            X_ho, y_ho, score = self._watch
+            if hasattr(self, "classes_"):
+                out = self.predict_proba(X_ho)
+                raw = out[:, 1:] if self.out_activation_ == "logistic" else out
+                y_net = self._label_binarizer.transform(y_ho)
+                task = "classification"
+            else:
+                out = self.predict(X_ho)
+                raw = np.reshape(out, (len(out), -1))
+                y_net = np.reshape(y_ho, raw.shape)
+                task = "regression"
+            head = resolve_head(self.out_activation_, task)
+            values = {"test_loss": float(head.loss_fn.value(np.asarray(y_net, raw.dtype), raw))}
+            if score is not None:
+                values["test_score"] = float(score(out))
+            for key, value in values.items():
+                if replace:
+                    self._curves[key][-1] = value
+                else:
+                    self._curves[key].append(value)
+
+    Watched.__name__ = Watched.__qualname__ = cls.__name__
+    _WATCHED[cls] = Watched
+    return Watched
+
+
+def _watch_sklearn(pipe):
+    """Swap the scikit-learn MLP inside the pipeline for its watched subclass (same
+    parameters); the model step to hand the held-out rows to, or None if it cannot be."""
+    model = pipe.named_steps["model"]
+    inner = getattr(model, "regressor", model)
+    watched = _watched_class(type(inner))
+    if watched is None:
+        return None
+    twin = watched(**inner.get_params(deep=False))
+    if inner is model:
+        pipe.steps[-1] = ("model", twin)
+        return twin
+    model.set_params(regressor=twin)
+    return model
+
+
 def _held_out_watch(spec: dict, model, y_tr, y_te):
     """``fit`` arguments that make the NumPy engine record the test fold's curves.
 
@@ -635,9 +724,13 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
     prep, model = pipe.named_steps["prep"], pipe.named_steps["model"]
     X_tr, X_te = _fold_features(data, spec, prep, train, test)
     fit_params = {}
-    if cfg.get("kind") != "baseline" and cfg["engine"] != "sklearn" and spec.get("curves", True):
-        y_held, score = _held_out_watch(spec, model, y_tr, y_te)
-        fit_params = {"held_out": (X_te, y_held), "held_out_score": score}
+    if cfg.get("kind") != "baseline" and spec.get("curves", True):
+        if cfg["engine"] == "sklearn":
+            model = _watch_sklearn(pipe)
+        if model is not None:
+            y_held, score = _held_out_watch(spec, model, y_tr, y_te)
+            fit_params = {"held_out": (X_te, y_held), "held_out_score": score}
+        model = pipe.named_steps["model"]
     t0 = time.perf_counter()
     try:
         model.fit(X_tr, y_tr, **fit_params)
