@@ -13,8 +13,8 @@ binary target). Parts, in this order:
    (``max_iter=100``) in the same preprocessing pipeline
    (:func:`workbench.data.preprocessing.build_pipeline`), the same folds (the
    plan's) and the same metric, ``refit=False``; both timed from reading the
-   table. The two are run alternately, ``rounds`` times each, and the fastest of
-   each kept (the first run may start the worker pool). Whether GridSearchCV's
+   table. The two are run alternately, ``rounds`` times each (default once: the
+   search alone takes one to two minutes), and the fastest of each kept. Whether GridSearchCV's
    best configuration is ours (or tied with ours) is reported.
 2. **Time to first trial.** ``python -m workbench sweep`` on the kiln table (one
    configuration, 2 folds, 5 epochs, 2 jobs) in a fresh process: seconds from
@@ -134,7 +134,7 @@ def whole_sweep(quick: bool = False, rounds: int | None = None, store_path=None)
     from workbench.sweep.results import sweep_results
     from workbench.sweep.store import Store
 
-    rounds = rounds or (1 if quick else 2)
+    rounds = rounds or 1
     plan = _plan(quick)
     with tempfile.TemporaryDirectory(prefix="workbench-bench-") as tmp:
         store = Store(Path(store_path or Path(tmp) / "kiln.sqlite"))
