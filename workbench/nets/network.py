@@ -7,6 +7,12 @@ hidden activation and the output head come from
 :mod:`workbench.nets.activations`; the network looks their functions up once,
 when it is built, and never branches on their names.
 
+Training runs an epoch at a time (:meth:`Network.train_epoch`): per batch a forward
+pass that writes its predictions into an epoch-sized buffer, the backward pass and
+the optimiser's step; the epoch's loss is taken once at the end from the kept
+predictions, not per batch. :mod:`workbench.nets.stacked` runs the epochs of
+several networks of one shape together with the same results.
+
 Layer ``i`` is stored as one block of shape ``(fan_in + 1, fan_out)``: its first
 ``fan_in`` rows are the weights and its last row is the intercept. Training inputs
 and hidden activations carry a trailing column of ones, so one matrix product
