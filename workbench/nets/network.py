@@ -180,12 +180,14 @@ class Network:
         return views
 
     # passes -----------------------------------------------------------------
-    def forward(self, X_ones, rows, out=None):
+    def forward(self, X_ones, rows, out=None, views=None):
         """Every layer's output for the ``rows`` rows of ``X_ones`` (inputs + ones column);
         returns the prediction: ``out`` when given (``rows`` x outputs, e.g. a slice of
-        an epoch's prediction buffer), else a view into the output layer's buffer."""
+        an epoch's prediction buffer), else a view into the output layer's buffer.
+        ``views`` are :meth:`buffers` for ``rows`` when the caller has them."""
         below = X_ones
-        views = self.buffers(rows)
+        if views is None:
+            views = self.buffers(rows)
         head = self.head
         for layer, buf in zip(self.layers, views):
             activation = layer.activation
@@ -268,10 +270,11 @@ class Network:
         self._backpropagate(X_ones, y, rows, prediction)
         self.grad /= rows
 
-    def _backpropagate(self, X_ones, y, rows, prediction):
+    def _backpropagate(self, X_ones, y, rows, prediction, views=None):
         """The data loss's gradient, summed over the ``rows`` rows, into ``self.grad``
         (after :meth:`forward` on the same rows); returns the output layer's delta."""
-        views = self.buffers(rows)
+        if views is None:
+            views = self.buffers(rows)
         top = views[-1]
         delta = self.head.output_delta(y, prediction, top.pre, top.delta)
         out_delta = delta
@@ -332,12 +335,18 @@ class Network:
         forward, backpropagate = self.forward, self._backpropagate
         squares = 0.0
         mask, l2_buf = (self._mask_for(alpha), self._l2_buf) if alpha else (None, None)
+        full = self.buffers(batch_size) if n >= batch_size else None
         for start in range(0, n, batch_size):
-            stop = min(start + batch_size, n)
-            rows = stop - start
+            stop = start + batch_size
+            if stop <= n:
+                rows, views = batch_size, full
+            else:
+                stop = n
+                rows = n - start
+                views = self.buffers(rows)
             X_batch = X_ones[start:stop]
-            prediction = forward(X_batch, rows, predictions[start:stop])
-            backpropagate(X_batch, y[start:stop], rows, prediction)
+            prediction = forward(X_batch, rows, predictions[start:stop], views)
+            backpropagate(X_batch, y[start:stop], rows, prediction, views)
             if alpha:
                 # alpha * W into the gradient; alpha * ||W||^2 for the loss
                 np.multiply(theta, mask, out=l2_buf)
