@@ -558,3 +558,24 @@ def test_float32_normal_cdf_matches_scipy_ndtr():
     z64 = z.astype(np.float64)
     np.testing.assert_allclose(_normal_cdf(z64), 0.5 * erfc(-z64 / np.sqrt(2)), rtol=1e-12,
                                atol=1e-300)
+
+
+@pytest.mark.parametrize("name", ["gelu", "silu"])
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_gated_derivative_at_and_near_zero_is_one_half(name, dtype):
+    """GELU'(z) = Phi(z) + z phi(z) and SiLU'(z) = s(z)(1 + z(1 - s(z))) are 1/2 at z = 0
+    (Phi(0) = s(0) = 1/2, scipy.special.ndtr(0) = expit(0) = 0.5); the derivative recovers
+    the gate as a / z, so z = 0 and |z| <= 1e-30 take the gate's value at 0, and the result
+    is finite (warning-free) there and matches scipy a little further out."""
+    a = act.HIDDEN[name]
+    z = np.array([0.0, -0.0, 1e-35, -1e-35, 1e-31, 1e-3, -1e-3], dtype=dtype)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        got = a.derivative(z, a.forward(z.copy()))
+    assert got.dtype == dtype
+    np.testing.assert_array_equal(got[:5], 0.5)
+    zz = z[5:].astype(np.float64)
+    s = special.expit(zz)
+    ref = (special.ndtr(zz) + zz * np.exp(-zz * zz / 2) / math.sqrt(2 * math.pi)
+           if name == "gelu" else s * (1 + zz * (1 - s)))
+    np.testing.assert_allclose(got[5:], ref, rtol=1e-6)

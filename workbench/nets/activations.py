@@ -392,7 +392,12 @@ def _gate_from_output(z, a):
     z = np.asarray(z)
     a = np.asarray(a)
     safe = np.abs(z) > 1e-30
-    g = np.divide(a, z, out=np.full_like(a, 0.5), where=safe)
+    # the plain division everywhere, then 1/2 where |z| <= 1e-30 (rare): the values of
+    # a division masked by where=, which takes NumPy's much slower masked loop
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        g = np.divide(a, z)
+    if not safe.all():
+        g[~safe] = 0.5
     return g
 
 
@@ -414,8 +419,9 @@ def _normal_cdf_f32(z):
     u *= _SQRT_HALF
     t = u * 0.5
     t += 1
-    np.reciprocal(t, out=t)
-    p = np.full_like(t, _ERFC_COEF[-1])
+    np.divide(1.0, t, out=t)  # 1 / t: np.reciprocal's value, in NumPy's vectorised loop
+    p = np.empty_like(t)
+    p.fill(_ERFC_COEF[-1])
     for c in _ERFC_COEF[-2::-1]:
         p *= t
         p += c
@@ -425,8 +431,8 @@ def _normal_cdf_f32(z):
     p *= t
     p *= 0.5  # c = Phi(-|z|) = erfc(|z| / sqrt 2) / 2, accurate in the tail
     # Phi(z) = c for z < 0 and 1 - c for z >= 0
-    flip = np.greater_equal(z, 0).astype(z.dtype)
-    out = np.multiply(p, -2.0)
+    flip = np.greater_equal(z, 0, out=u)  # 1.0 / 0.0 into the spent buffer
+    out = np.multiply(p, -2.0, out=t)
     out += 1
     out *= flip
     out += p
@@ -448,15 +454,20 @@ def _gelu(z, **_):
 
 
 def _gelu_(z, **_):
-    z[...] = _gelu(z)
-    return z
+    return np.multiply(z, _normal_cdf(z), out=z)
 
 
 def _gelu_d(z, a, out=None, **_):
     # d/dz z*Phi(z) = Phi(z) + z*phi(z); Phi(z) = a / z from the forward pass
     cdf = _gate_from_output(z, a)
-    pdf = _INV_SQRT_2PI * np.exp(-0.5 * z * z)
-    return _into(out, cdf + z * pdf, a.dtype)
+    pdf = np.multiply(z, -0.5)  # -0.5 z^2, phi(z) = e^(-z^2 / 2) / sqrt(2 pi)
+    pdf *= z
+    np.exp(pdf, out=pdf)
+    pdf *= _INV_SQRT_2PI
+    pdf *= z
+    if out is None or out.dtype != a.dtype:
+        return _into(out, np.add(cdf, pdf), a.dtype)
+    return np.add(cdf, pdf, out=out)
 
 
 def _gelu_onnx(graph, z, output=None, **_):
