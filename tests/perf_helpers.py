@@ -198,12 +198,16 @@ print(json.dumps({"base_rss": base_rss, "base_uss": base_uss, "peak_rss": peak["
 """
 
 
-def worker_peak(csv, folder, epochs: int = 2, folds_run: int = 3, package_root=None) -> dict:
+def worker_peak(csv, folder, epochs: int = 2, folds_run: int = 3, package_root=None,
+                workers: int = 2) -> dict:
     """Memory of a fresh worker process that runs one trial on each of ``folds_run`` folds
     (a worker keeps the features of up to three folds) of ``csv``, reading the table from
     the file the parent writes (:func:`workbench.sweep.trials.save_worker_data`).
     ``package_root``: a folder holding another version of the ``workbench`` package for
     the worker (e.g. ``git archive <commit> workbench | tar -x -C DIR``), to compare.
+    ``workers`` such processes run at once, as a sweep's pool does: pages of the mapped
+    table that several workers map count as shared, not in each one's USS (with one
+    worker alone they would count as its own). The figures are the median worker's.
 
     Sampled every 10 ms with psutil: RSS (every page the process maps, shared ones
     included) and USS (the pages only this process holds: what each extra worker costs),
@@ -230,11 +234,16 @@ def worker_peak(csv, folder, epochs: int = 2, folds_run: int = 3, package_root=N
     env = dict(os.environ, OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1")
     if package_root:
         env["PYTHONPATH"] = str(package_root)
-    out = subprocess.run([sys.executable, "-c", _WORKER, spec_path], capture_output=True,
-                         text=True, timeout=900, env=env, cwd=package_root or None)
-    if out.returncode:
-        raise RuntimeError(out.stderr[-2000:])
-    got = json.loads(out.stdout.strip().splitlines()[-1])
+    procs = [subprocess.Popen([sys.executable, "-c", _WORKER, spec_path], text=True,
+                              stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env,
+                              cwd=package_root or None) for _ in range(workers)]
+    runs = []
+    for proc in procs:
+        stdout, stderr = proc.communicate(timeout=900)
+        if proc.returncode:
+            raise RuntimeError(stderr[-2000:])
+        runs.append(json.loads(stdout.strip().splitlines()[-1]))
+    got = sorted(runs, key=lambda r: r["peak_uss"])[len(runs) // 2]
     mb = 2 ** 20
     numeric = data.X.select_dtypes("number").to_numpy().nbytes + np.asarray(data.y).nbytes
     got.update(numeric_mb=numeric / mb, write_s=write_s,
@@ -242,7 +251,7 @@ def worker_peak(csv, folder, epochs: int = 2, folds_run: int = 3, package_root=N
     for k in ("base_rss", "base_uss", "peak_rss", "peak_uss", "maxrss"):
         got[k] = got[k] / mb
     rss, uss = got["peak_rss"] - got["base_rss"], got["peak_uss"] - got["base_uss"]
-    print(f"table {csv}: numeric size {got['numeric_mb']:.1f} MB; a worker running "
+    print(f"table {csv}: numeric size {got['numeric_mb']:.1f} MB; {workers} workers, each running "
           f"{folds_run} trials on {folds_run} folds: RSS {got['base_rss']:.0f} MB after imports, "
           f"peak {got['peak_rss']:.0f} MB (+{rss:.0f} MB = {rss / got['numeric_mb']:.2f} x); "
           f"USS {got['base_uss']:.0f} MB after imports, peak {got['peak_uss']:.0f} MB "
