@@ -77,6 +77,12 @@ When the table is not found, the count of the table's feature columns is
 used instead (one-hot and date columns not expanded) and
 ``verdict.recommended.n_inputs_basis`` says so.
 
+**Configurations racing stopped** (:mod:`workbench.sweep.racing`) keep their stored
+trials as partial scores: status ``stopped (racing)``, a ``stopped`` field saying
+after which repeat and fold and why, no rank among the ranked ones, no p-value or
+decision, and never the recommendation; the ``racing`` statement of
+:func:`verdict_statements` names them in every view.
+
 **Cost.** BBC-CV runs once per distinct set of configurations (all of them,
 each hidden activation's, each head's, each pair's; equal sets share one
 run), each with :data:`N_BOOT` bootstrap samples.
