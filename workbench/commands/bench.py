@@ -18,6 +18,7 @@ PARTS = {
     "load": "workbench.benchmarks.load",
     "sweep": "workbench.benchmarks.sweep",
     "gui": "workbench.gui.bench_gui",
+    "estimates": "workbench.sweep.estimate",
 }
 #: the parts a plain ``workbench bench`` runs
 DEFAULT_PARTS = ("engine", "kiln")
@@ -30,6 +31,9 @@ def add_arguments(parser):
     parser.add_argument("--load", action="store_true", help="also time loading a 1,000,000-row CSV")
     parser.add_argument("--gui", action="store_true", help="also time the window: sorting "
                         "10,000 result rows, event-loop stalls during a sweep")
+    parser.add_argument("--estimates", action="store_true", help="also run the six sample "
+                        "sets' default plans and set each time estimate beside the measured "
+                        "time (several minutes)")
     parser.add_argument("--all", action="store_true", help="every part")
     parser.add_argument("--no-engine", action="store_true", help="skip the engine workloads")
     parser.add_argument("--no-kiln", action="store_true", help="skip the kiln sweep, start-up "
@@ -50,7 +54,7 @@ def run(args) -> int:
     from workbench.errors import InputError
 
     wanted = [part for part in DEFAULT_PARTS if not getattr(args, f"no_{part}")]
-    for part in ("load", "sweep", "gui"):
+    for part in ("load", "sweep", "gui", "estimates"):
         if args.all or getattr(args, part):
             wanted.append(part)
     if not wanted:
