@@ -278,7 +278,7 @@ def _write_json(res: dict, out: str) -> None:
 def _capped_jobs(jobs):
     """``--jobs``, capped at the cores (with a note on stderr: more workers than cores
     only compete for them)."""
-    from workbench.sweep.runner import default_jobs
+    from workbench.sweep.pool import default_jobs
 
     if jobs is None or jobs < 1:
         return jobs  # the default, or refused by the sweep with its own message
@@ -314,6 +314,11 @@ class _sigterm_as_interrupt:
 
 
 def run(args) -> int:
+    if args.cluster is None and (args.jobs is None or args.jobs >= 1):
+        # the workers start (and import what trials need) while this process reads the table
+        from workbench.sweep.pool import default_jobs, prestart
+
+        prestart(min(int(args.jobs or default_jobs()), default_jobs()))
     from workbench.commands.show import format_results
     from workbench.data.profiling import parse_roles
     from workbench.sweep.bayes import check_rope

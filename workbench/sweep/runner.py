@@ -126,6 +126,18 @@ import numpy as np
 
 from workbench.errors import InputError
 from workbench.sweep.plan import SweepPlan
+from workbench.sweep.pool import (  # noqa: F401 - the pool's names, re-exported for tests
+    _POOL,
+    _POOL_LOCK,
+    _THREAD_ENV,
+    PARENT_CHECK_SECONDS,
+    POOL_IDLE_SECONDS,
+    _drop_pool,
+    _shutdown,
+    _warm_pool,
+    _watch_parent,
+    default_jobs,
+)
 from workbench.sweep.store import (
     FINISHED,
     INTERRUPTED,
@@ -149,8 +161,6 @@ from workbench.sweep.trials import (
 RETRIES = 1
 #: seconds between checks of the cancel flag while trials run
 POLL_SECONDS = 0.2
-_THREAD_ENV = {v: "1" for v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
-                                "BLIS_NUM_THREADS", "VECLIB_MAXIMUM_THREADS")}
 
 
 @dataclass
@@ -209,12 +219,6 @@ def sweep_rows(plan: SweepPlan, y, folds: dict) -> dict:
         classes, codes = target_codes(y)
         return {"target": codes, "classes": list(classes), "folds": assignment}
     return {"target": y.astype(np.float64), "classes": None, "folds": assignment}
-
-
-def default_jobs() -> int:
-    from joblib import cpu_count
-
-    return max(1, int(cpu_count()))
 
 
 # --------------------------------------------------------------------------- the sweep
@@ -619,88 +623,6 @@ class _InlineExecutor:
 
     def close(self, kill=False):
         pass
-
-
-#: the sweep's own loky pool, kept warm between sweeps: {"executor", "workers"}
-_POOL: dict = {}
-_POOL_LOCK = threading.Lock()
-#: idle pool workers exit after this many seconds (and are started again when needed)
-POOL_IDLE_SECONDS = 300
-#: seconds between a pool worker's checks that the process that started it is alive
-PARENT_CHECK_SECONDS = 0.5
-
-
-def _watch_parent(parent_pid: int, period: float = PARENT_CHECK_SECONDS) -> None:
-    """Pool worker initializer: end this worker as soon as its parent is gone.
-
-    A worker whose parent was killed (SIGKILL, or SIGTERM without cleanup) is
-    adopted by another process (init or a sub-reaper), so its parent id
-    changes; a daemon thread notices within ``period`` seconds and ends the
-    worker at once, whatever trial it is running (nobody is left to store it).
-    """
-    def watch():
-        while True:
-            if os.getppid() != parent_pid:
-                os._exit(1)
-            time.sleep(period)
-
-    threading.Thread(target=watch, name="workbench-parent-watch", daemon=True).start()
-
-
-def _warm_pool(workers: int):
-    """The warm pool with ``workers`` processes (a new one when the size differs).
-
-    The sweep keeps its own loky executor rather than the process-wide one that
-    joblib (and so scikit-learn's ``n_jobs``) shares, so that neither can
-    reconfigure the other's workers. Each worker watches this process
-    (:func:`_watch_parent`) and ends with it.
-    """
-    from joblib.externals.loky import ProcessPoolExecutor
-
-    with _POOL_LOCK:
-        ex = _POOL.get("executor")
-        if ex is not None and _POOL.get("workers") != workers:
-            _shutdown(ex)
-            ex = None
-        if ex is None:
-            ex = ProcessPoolExecutor(max_workers=workers, timeout=POOL_IDLE_SECONDS,
-                                     env=dict(_THREAD_ENV), initializer=_watch_parent,
-                                     initargs=(os.getpid(),))
-            _POOL.update(executor=ex, workers=workers)
-        return ex
-
-
-def _shutdown(ex):
-    """Stop a pool and its workers now.
-
-    loky's ``shutdown(kill_workers=True)`` drops its pending work items but leaves
-    their ids in its queue of work ids, and its manager thread then dies on a
-    ``KeyError`` with a traceback on stderr (seen when a sweep stopped on a full disk
-    right after handing out a trial). Nothing is handed out any more when a pool is
-    stopped, so the queued ids are drained first (``_work_ids``, loky's own queue;
-    left alone if a later loky renames it).
-    """
-    import queue
-
-    ids = getattr(ex, "_work_ids", None)
-    if ids is not None:
-        try:
-            while True:
-                ids.get_nowait()
-        except (queue.Empty, AttributeError):
-            pass
-    try:
-        ex.shutdown(wait=False, kill_workers=True)
-    except Exception:  # pragma: no cover - a pool already broken
-        pass
-
-
-def _drop_pool(ex):
-    """Stop a pool (after a worker death or a cancel) and forget it if it is the warm one."""
-    with _POOL_LOCK:
-        if _POOL.get("executor") is ex:
-            _POOL.clear()
-    _shutdown(ex)
 
 
 # --------------------------------------------------------------------------- table copies
