@@ -215,17 +215,10 @@ def _run_epoch(net, optimizer, X, y, batch_size, alpha):
     """One pass over the rows in batches: backward pass and optimiser step per batch.
 
     Returns the epoch's loss, the row-weighted mean of the batch losses (as
-    scikit-learn's MLP reports it).
+    scikit-learn's MLP reports it), taken once per epoch from the kept batch
+    predictions (:meth:`workbench.nets.network.Network.train_epoch`).
     """
-    n = X.shape[0]
-    backward, update, theta, grad = net.backward, optimizer.update, net.theta, net.grad
-    total = 0.0
-    for start in range(0, n, batch_size):
-        stop = min(start + batch_size, n)
-        rows = stop - start
-        total += backward(X[start:stop], y[start:stop], rows, alpha, scale=False) * rows
-        update(theta, grad, rows)
-    return total / n
+    return net.train_epoch(optimizer, X, y, batch_size, alpha)
 
 
 def _constant_loss(net, y) -> float:

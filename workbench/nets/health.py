@@ -53,7 +53,7 @@ def measure(net: Network, X_ones, y):
     Overwrites ``net.grad`` (training recomputes it on the next batch).
     """
     rows = X_ones.shape[0]
-    net.backward(X_ones, y, rows, 0.0)
+    net.data_gradient(X_ones, y, rows)
     grad_norm = [float(np.linalg.norm(g)) for g in net.weight_grads]
     dead, saturated = [], []
     tiny = np.finfo(net.dtype).tiny * 1e6
