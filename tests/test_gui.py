@@ -67,9 +67,12 @@ def load_by_drop(qtbot, win, path, timeout=20_000):
 
 
 def small_plan(win, hidden=("relu", "tanh"), epochs=4, folds=2, repeats=1, layers="6",
-               learning_rates="0.001"):
+               learning_rates="0.001", heads=None):
+    """A small plan: ``heads`` None keeps the advised head alone (the default ticks one
+    alternative beside it)."""
     s = win.setup
     s.hidden_grid.set_checked(hidden)
+    s.head_grid.set_checked(heads or [win.summary.advice.output_head])
     s.layers_edit.setText(layers)
     s.lr_edit.setText(learning_rates)  # one rate keeps these sweeps small (the default: tune)
     s.folds_spin.setValue(folds)
@@ -84,9 +87,15 @@ def networks(win) -> list[dict]:
 
 
 def worker_processes() -> list[psutil.Process]:
-    """Live child processes that run trials (loky's resource tracker is not a worker)."""
+    """Live child processes that run trials (loky's resource tracker is not a worker, nor
+    is the window's ranking process, which is started once and kept)."""
+    from workbench.gui.bridge import ranker_pids
+
     out = []
+    ranker = ranker_pids()
     for p in psutil.Process().children(recursive=True):
+        if p.pid in ranker:
+            continue
         try:
             if p.status() == psutil.STATUS_ZOMBIE:
                 continue

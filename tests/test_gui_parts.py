@@ -307,6 +307,37 @@ def test_bridge_turns_events_into_signals_and_cancels(qtbot):
     assert len(seen) < 100
 
 
+def test_a_slow_ranking_never_holds_the_sweep_and_the_last_one_follows_the_end(qtbot):
+    """The runner calls the bridge on every finished trial; a ranking under way must not
+    keep it from going on (it ran on the runner's thread once), and the last ranking
+    handed over is made after the job's end, never a stale one after it."""
+    gate = threading.Event()
+    log = []
+
+    def job(on_event, cancel):
+        on_event({"type": "sweep_started", "sweep_id": "s1", "n_trials": 20})
+        for i in range(20):
+            on_event({"type": "trial_finished", "sweep_id": "s1", "n_finished": i + 1})
+        log.append("job done")
+        gate.set()
+        return {"sweep_id": "s1"}
+
+    def ranker(sid):
+        n = sum(1 for x in log if x != "job done")
+        log.append(f"rank {n}")
+        if n == 0:
+            gate.wait(10)  # the first ranking lasts until the job has ended
+        return "done" in " ".join(log) and log.index("job done") < len(log) - 1
+
+    got = []
+    sweep = SweepThread(job, ranker=ranker, rank_interval=0.0)
+    sweep.bridge.ranked.connect(got.append)
+    with qtbot.waitSignal(sweep.finished, timeout=20_000):
+        sweep.start()
+    assert log[0] == "rank 0" and log[1] == "job done"  # the job went on meanwhile
+    assert got and got[-1] is True, (got, log)  # the last rows were ranked after the job ended
+
+
 def test_bridge_reports_a_failed_job_in_one_line(qtbot):
     from workbench.errors import InputError
 
@@ -364,11 +395,16 @@ def test_plan_summary_counts_configurations_and_trials(qapp, tmp_path):
     plan = core.build_plan(table, summary, choices)
     # the grid is the product of the choices (3 x 1 x 2 x 2 x 1), each on 3 folds x 2 repeats
     assert plan.n_configurations == 12 and plan.n_trials == 72
-    text = core.plan_summary(plan, choices, (1e-8, "from earlier trials on this computer"),
-                             *table.df.shape)
+    text = core.plan_summary(plan, choices, None)
     assert "12 configurations × 3 folds × 2 repeats = 72 trials" in text
-    assert "About" in text
-    assert "cluster" in core.plan_summary(plan, dict(choices, cluster="tcp://h:1"), None, 10, 2)
+    assert "timing" in text
+    # a calibration on one epoch count per configuration: the estimate adds up its parts
+    cal = core.calibrate(plan)
+    assert cal.covers(plan) and core.estimate(plan, cal, 2, None) is None
+    est = core.estimate(plan, cal, 2, 1.5)
+    assert "About" in core.plan_summary(plan, choices, est)
+    assert est.seconds == pytest.approx(1.5 + est.prep + est.trials / 2)
+    assert "cluster" in core.plan_summary(plan, dict(choices, cluster="tcp://h:1"), est)
 
 
 def test_theme_switch_recolours_the_window_and_is_remembered(qtbot, tmp_path):

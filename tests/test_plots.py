@@ -272,3 +272,40 @@ def test_the_calibration_page_draws_the_stored_out_of_fold_predictions(qtbot, wi
     win.select_rows([0])
     qtbot.waitUntil(lambda: not panel.waiting(), timeout=30_000)
     assert len(panel.items) == 1
+
+
+def _cut_axis_titles(win) -> tuple[list[str], int]:
+    """The shown plots' axis titles longer than their axis, and how many were checked."""
+    cut, checked = [], 0
+    for panel in (win.curves, win.spread, win.health):
+        for plot in panel.plots():
+            if not plot.isVisible():
+                continue
+            left = plot.getPlotItem().getAxis("left")
+            if left.label.isVisible() and left.labelText:
+                checked += 1
+                # rotated 90 degrees: the title's width runs along the axis's height
+                need, have = left.label.boundingRect().width(), left.boundingRect().height()
+                if need > have:
+                    cut.append(f"{panel.title.text()}: {left.labelText} ({need:.0f} > {have:.0f})")
+            bottom = plot.getPlotItem().getAxis("bottom")
+            if bottom.label.isVisible() and bottom.labelText:
+                if bottom.label.boundingRect().width() > bottom.boundingRect().width():
+                    cut.append(f"{panel.title.text()}: {bottom.labelText}")
+    return cut, checked
+
+
+def test_every_plot_axis_title_fits_beside_its_axis_at_1280x800(qtbot, window):
+    """The layer-health plots were stacked in a short panel: their rotated axis titles
+    ("% units", "grad") were longer than the plots were tall and were cut. Every shown
+    plot's left-axis title must fit along its axis, and its bottom title under it."""
+    win = window
+    _select_networks(win)
+    win.detail_tabs.setCurrentIndex(0)
+    try:  # the plots are laid out on the event loop
+        qtbot.waitUntil(lambda: not _cut_axis_titles(win)[0] and _cut_axis_titles(win)[1] >= 3,
+                        timeout=3_000)
+    except Exception:
+        pass
+    cut, checked = _cut_axis_titles(win)
+    assert cut == [] and checked >= 3, (cut, checked)

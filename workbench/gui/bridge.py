@@ -12,6 +12,13 @@ has finished so far (``ranker``), at most every ``rank_interval`` seconds and
 once more at the end, and hands the rows over with :attr:`SweepBridge.ranked`.
 That work also happens on the bridge's thread.
 
+The ranking itself (:func:`workbench.gui.core_adapter.ranked_rows`: the results
+document with its statistics, the bootstrap, every trial's curves) runs in a process
+of its own, :func:`rank_in_process`, started once and kept: run on a thread of the
+window's process its Python would hold the interpreter lock for tens of milliseconds
+at a time, and the window's event loop would stall behind it. Only the finished
+rows come back.
+
 The worker processes the sweep starts on this computer are given a lower CPU
 priority (``nice`` +10, :data:`WORKER_NICENESS`) as they appear, so that on a
 small machine the window keeps getting the processor while every core trains.
@@ -31,6 +38,50 @@ from workbench.gui.messages import phrase
 
 #: niceness given to local worker processes (higher = lower priority; never lowered)
 WORKER_NICENESS = 10
+
+_RANKER: dict = {}
+_RANKER_LOCK = threading.Lock()
+
+
+def _ranker_pool():
+    """The one process that ranks stored sweeps for the window (started on first use)."""
+    with _RANKER_LOCK:
+        pool = _RANKER.get("pool")
+        if pool is None:
+            from joblib.externals.loky import ProcessPoolExecutor
+
+            # loky's processes start cleanly under `python -m workbench` as well
+            pool = ProcessPoolExecutor(max_workers=1)
+            _RANKER["pool"] = pool
+        return pool
+
+
+def ranker_pids() -> set[int]:
+    """Process ids of the ranking process (empty before its first use)."""
+    pool = _RANKER.get("pool")
+    procs = getattr(pool, "_processes", None) or {}
+    return {p.pid for p in procs.values()} if isinstance(procs, dict) else set()
+
+
+def rank_in_process(store_path, sweep_id: str, rope=None) -> dict:
+    """:func:`workbench.gui.core_adapter.ranked_rows` of a stored sweep, computed in the
+    ranking process (read from the store file: SQLite lets it read while the sweep
+    writes). Falls back to this thread when that process cannot run."""
+    from workbench.gui.core_adapter import ranked_rows
+
+    try:
+        return _ranker_pool().submit(ranked_rows, store_path, sweep_id, rope).result()
+    except InputError:
+        raise
+    except Exception:  # the process died or could not start: a new one next time
+        with _RANKER_LOCK:
+            pool = _RANKER.pop("pool", None)
+        if pool is not None:
+            try:
+                pool.shutdown(wait=False, kill_workers=True)
+            except Exception:  # pragma: no cover - already broken
+                pass
+        return ranked_rows(store_path, sweep_id, rope)
 
 
 def lower_worker_priority(seen: set[int], niceness: int = WORKER_NICENESS) -> int:
@@ -97,28 +148,52 @@ class SweepBridge(QObject):
         self._niced: set[int] = set()
         self._started = 0
         self._dirty = False
+        # rankings run one at a time beside the sweep (the runner never waits for them)
+        self._rank_pool = None
+        self._rank_future = None
 
     def cancel(self) -> None:
         """Ask the sweep to stop (thread-safe; call it from any thread)."""
         self.cancel_event.set()
 
-    def _rank(self, force: bool = False) -> None:
-        if self._ranker is None or self._sweep_id is None:
-            return
-        now = time.monotonic()
-        # rank at most every `interval` s, and never spend more than a fifth of the time on it
-        wait = max(self._interval, 5.0 * self._rank_seconds)
-        if not force and (not self._dirty or now - self._last_rank < wait):
-            return
-        self._last_rank = now
-        self._dirty = False
+    def _rank_now(self, sweep_id) -> None:
+        """One ranking, handed over when done (on whichever thread runs it)."""
+        t = time.monotonic()
         try:
-            rows = self._ranker(self._sweep_id)
+            rows = self._ranker(sweep_id)
         except Exception:  # a ranking hiccup must not end the sweep
             return
         finally:
-            self._rank_seconds = time.monotonic() - now
+            self._rank_seconds = time.monotonic() - t
         self.ranked.emit(rows)
+
+    def _rank(self, force: bool = False) -> None:
+        """Rank what has finished: during the sweep in the background, one ranking at a
+        time and only when trials finished since the last (the runner goes on handing out
+        trials meanwhile); with ``force`` (the end), now, after any ranking under way."""
+        if self._ranker is None or self._sweep_id is None:
+            return
+        busy = self._rank_future is not None and not self._rank_future.done()
+        if not force:
+            now = time.monotonic()
+            # rank at most every `interval` s, and never spend more than a fifth of the time
+            wait = max(self._interval, 5.0 * self._rank_seconds)
+            if busy or not self._dirty or now - self._last_rank < wait:
+                return
+        self._last_rank = time.monotonic()
+        self._dirty = False
+        if self._rank_pool is None:
+            from concurrent.futures import ThreadPoolExecutor
+
+            self._rank_pool = ThreadPoolExecutor(max_workers=1,
+                                                 thread_name_prefix="sweep-ranking")
+        # every ranking is handed over from the one ranking thread, so they arrive in the
+        # order they were made: the last one, made after the end, arrives last
+        self._rank_future = self._rank_pool.submit(self._rank_now, self._sweep_id)
+        if force:
+            self._rank_future.result()
+            self._rank_pool.shutdown(wait=False)
+            self._rank_pool = None
 
     def _on_event(self, event: dict) -> None:
         kind = event.get("type")

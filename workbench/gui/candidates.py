@@ -92,6 +92,10 @@ class CandidatesView(QWidget):
 
     def set_results(self, meta: dict) -> None:
         """Show a results document's candidates (``ranked_rows(...)["meta"]``)."""
+        shown = repr((meta.get("candidates"), meta.get("verdict"), bool(meta)))
+        if shown == getattr(self, "_shown", None):
+            return  # unchanged since the last ranking
+        self._shown = shown
         self.tree.clear()
         cands = meta.get("candidates") or {}
         verdict = meta.get("verdict") or {}

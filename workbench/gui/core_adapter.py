@@ -146,21 +146,11 @@ def summarise_target(df, name: str, kind: str | None = None) -> TargetSummary:
 
 
 def default_heads(summary: TargetSummary) -> list[str]:
-    """The output heads a default sweep ticks: the advised head and one alternative.
+    """The output heads the window ticks by default: the advised head and one alternative
+    the guard accepts (:func:`workbench.sweep.defaults.default_heads`)."""
+    from workbench.sweep.defaults import default_heads as core_default_heads
 
-    The alternative is the first head of the advice's ``heads_to_sweep`` that the
-    sweep's guard accepts (one without a warning first), so the verdict can test the
-    output rule ("logistic for a binary target", ...) against something; one
-    alternative, not all, keeps the default sweep's trial count at twice one head's.
-    Kinds with no accepted alternative (signed, multiclass) get the advised head alone.
-    """
-    allowed = {name: chk for name, chk in summary.heads if chk.allowed}
-    advised = summary.advice.output_head
-    heads = [advised] if advised in allowed else []
-    others = [h for h in summary.advice.heads_to_sweep if h in allowed and h not in heads]
-    others.sort(key=lambda h: bool(allowed[h].warning))  # stable: the advice's order
-    heads += others[:1]
-    return heads or list(allowed)[:1]
+    return core_default_heads(summary.advice, summary.heads)
 
 
 def default_hidden(summary: TargetSummary | None = None) -> list[str]:
@@ -311,107 +301,67 @@ def build_plan(table: LoadedTable, summary: TargetSummary, choices: dict,
         folds=int(choices["folds"]), repeats=int(choices["repeats"]),
         epochs=int(choices["epochs"]), early_stopping=bool(choices.get("early_stopping")),
         metric=choices.get("metric") or None, df=table.df, target_info=info,
-        roles=changed, profile=table.profile)
+        roles=changed, profile=table.profile, race=bool(choices.get("race")))
     return plan
 
 
-def _work_units(layers, n_features: int, n_rows: float, epochs: float) -> float:
-    widths = [max(1, int(n_features))] + [int(w) for w in layers] + [1]
-    return float(n_rows) * float(epochs) * sum(a * b for a, b in zip(widths, widths[1:]))
+def calibrate(plan, previous=None):
+    """Time short trials of ``plan`` on its own table (:func:`workbench.sweep.estimate.calibrate`;
+    slow: call it off the GUI thread)."""
+    from workbench.sweep.estimate import calibrate as core_calibrate
+
+    return core_calibrate(plan, previous=previous)
 
 
-def machine_speed(store_path: str | None) -> tuple[float, str] | None:
-    """Seconds per unit of work (rows x epochs x weights) measured on this machine, and how.
+def startup_seconds() -> float:
+    """Seconds a new worker process needs to start (measured once; off the GUI thread)."""
+    from workbench.sweep.estimate import startup_seconds as core_startup
 
-    The median over the trials stored on this computer by earlier sweeps, or a
-    short calibration fit of the engine when there are none yet.
+    return core_startup()
+
+
+def busy_cores() -> float:
+    """Cores other programs keep busy now (half a second's measurement; off the GUI thread)."""
+    from workbench.sweep.estimate import busy_cores as core_busy
+
+    return core_busy()
+
+
+def estimate(plan, calibration, jobs: int, startup: float | None, busy: float = 0.0):
+    """The plan's estimated time, or None when ``calibration`` does not cover it yet.
+
+    ``startup`` is a measured start-up of the worker pool (None: not measured yet, then
+    no estimate); none is counted when the runner's pool of ``jobs`` workers is warm.
     """
-    import socket
+    from workbench.sweep.estimate import estimate as core_estimate
+    from workbench.sweep.estimate import pool_is_warm
 
-    import numpy as np
-
-    try:
-        session = StoreSession(store_path)
-        store = session.store
-        host = socket.gethostname()
-        ratios = []
-        for sw in store.list_sweeps()[:10]:
-            if sw.get("host") not in (None, host):
-                continue
-            n_feat = max(1, len(sw["fingerprint"].get("columns", [])) - 1)
-            cfgs = {c["index"]: c for c in store.configurations(sw["id"])}
-            for t in store.trials(sw["id"], with_history=False)[:200]:
-                c = cfgs.get(t["config_index"])
-                if c is None or not t.get("fit_seconds") or not t.get("epochs"):
-                    continue
-                w = _work_units(c["layers"], n_feat, t.get("n_train") or 1, t["epochs"])
-                ratios.append(t["fit_seconds"] / w)
-        session.close()
-        if ratios:
-            return float(np.median(ratios)), "from earlier trials on this computer"
-    except Exception:
-        pass
-    try:
-        return calibrate_speed(), "calibration"
-    except Exception:
+    if calibration is None or not calibration.covers(plan):
         return None
+    if pool_is_warm(int(jobs or 1)):
+        startup = 0.0
+    elif startup is None:
+        return None
+    return core_estimate(plan, calibration, int(jobs or 1), startup=startup, busy=busy)
 
 
-_CALIBRATION: list[float] = []
+def plan_summary(plan, choices: dict, estimate=None) -> str:
+    """Configurations, trials and the estimated duration of a plan.
 
-
-def calibrate_speed(rows: int = 2000, features: int = 10, width: int = 32,
-                    epochs: int = 5) -> float:
-    """Seconds per unit of work of the project's engine, from one small timed fit (once)."""
-    if _CALIBRATION:
-        return _CALIBRATION[0]
-    import time
-    import warnings
-
-    import numpy as np
-
-    from workbench.nets.engine import NetRegressor
-
-    rng = np.random.default_rng(0)
-    X = rng.standard_normal((rows, features)).astype(np.float32)
-    y = (X[:, 0] - 0.5 * X[:, 1] + 0.1 * rng.standard_normal(rows)).astype(np.float32)
-    net = NetRegressor(hidden_layer_sizes=(width,), max_iter=epochs, random_state=0, tol=0.0,
-                       n_iter_no_change=10**6)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        t = time.perf_counter()
-        net.fit(X, y)
-        seconds = time.perf_counter() - t
-    _CALIBRATION.append(seconds / _work_units((width,), features, rows, epochs))
-    return _CALIBRATION[0]
-
-
-def plan_summary(plan, choices: dict, speed: tuple[float, str] | None, n_rows: int,
-                 n_features: int) -> str:
-    """Configurations, trials and an estimated duration of a plan."""
+    ``estimate`` is a :class:`workbench.sweep.estimate.Estimate`, or None while this
+    table is being timed.
+    """
     n_cfg, n_trials = plan.n_configurations, plan.n_trials
     text = (f"{n_cfg} configuration{'s' if n_cfg != 1 else ''} × {plan.folds} folds × "
             f"{plan.repeats} repeat{'s' if plan.repeats != 1 else ''} = {n_trials} trials")
     if choices.get("cluster"):
         return text + "\nOn a Dask cluster the time depends on its workers."
-    if speed is None:
-        return text + "\nTime estimate: measuring this computer…"
-    speed, source = speed
-    n_feat = max(1, int(n_features))
-    workers = max(1, int(choices.get("jobs") or 1))
-    train_rows = n_rows * (plan.folds - 1) / plan.folds
-    total = 0.0
-    for c in plan.configurations():
-        total += speed * _work_units(c.layers, n_feat, train_rows, plan.epochs)
-    total *= plan.folds * plan.repeats
-    plural = "s" if workers != 1 else ""
-    if source == "calibration":
-        # the engine's raw speed only: preprocessing, scoring and process start-up come on top
-        return text + (f"\nAt least {fmt_seconds(total / workers)} on {workers} worker{plural} "
-                       "(from a short engine calibration on this computer; the first sweep "
-                       "makes this estimate exact).")
-    return text + (f"\nAbout {fmt_seconds(total / workers + 2.0)} on {workers} worker{plural} "
-                   f"({source}).")
+    if estimate is None:
+        return text + "\nTime estimate: timing a few short trials on this table…"
+    workers = estimate.workers
+    return text + (f"\nAbout {fmt_seconds(estimate.seconds)} on {workers} "
+                   f"worker{'s' if workers != 1 else ''} (timed on this table and computer"
+                   + (", workers to start" if estimate.startup else "") + ").")
 
 
 # --------------------------------------------------------------------------- store, sweep

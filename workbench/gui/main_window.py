@@ -15,6 +15,7 @@ from __future__ import annotations
 import time
 from pathlib import Path
 
+import shiboken6
 from PySide6.QtCore import QItemSelectionModel, QSize, Qt, QTimer, QUrl, Signal
 from PySide6.QtGui import QAction, QDesktopServices, QKeySequence
 from PySide6.QtWidgets import (
@@ -62,10 +63,13 @@ from workbench.gui.setup_pane import SetupPane
 from workbench.gui.tasks import run_task
 from workbench.gui.verdict_strip import VerdictStrip
 from workbench.gui.widgets import Banner, ElidedLabel, WrappingLabel
+from workbench.sweep.defaults import WINDOW_DEFAULTS as DEFAULTS
 
 TABLE_FILTER = "Tables (*.csv *.tsv *.txt *.xlsx *.parquet *.pq);;All files (*)"
 #: what the set-up column's footer puts before the core's reason when Run is off
 CANNOT_RUN = "Cannot run yet: "
+#: milliseconds the plan must stay unchanged before its configurations are timed
+CALIBRATE_DELAY_MS = 500
 #: the most configurations drawn at once in the plots
 MAX_PLOTTED = 8
 #: the ROPE box's label (messages.SETTING_LABELS names it) and tooltip
@@ -154,7 +158,17 @@ class MainWindow(QMainWindow):
         self._target_generation = 0
         self._progress = {"done": 0, "total": 0, "best": None, "t0": None, "running": 0}
         self._close_after_stop = False
-        self._speed: float | None = None
+        # the time estimate: the core's calibration on the current table (made in the
+        # background, a short while after the plan last changed) and the workers' start-up
+        self._calibration = None
+        self._calibrating = False
+        self._startup: float | None = None
+        self._busy = 0.0
+        self._last_sweep: tuple[int, float] | None = None  # (trials run, seconds) here
+        self._calibrate_timer = QTimer(self)
+        self._calibrate_timer.setSingleShot(True)
+        self._calibrate_timer.setInterval(CALIBRATE_DELAY_MS)
+        self._calibrate_timer.timeout.connect(self._calibrate)
         self._plan_ok = False
         self._plan_message = ""  # the banner's message about a plan that could not run
         self._theme_choice = theme_choice or self.settings.theme()
@@ -173,7 +187,6 @@ class MainWindow(QMainWindow):
         self._tick.timeout.connect(self._update_progress_text)
         self._update_actions()
         self._update_estimate()
-        self._measure_speed()
         self.exportProgress.connect(self._export_progress)
         hints = QApplication.styleHints()
         if hasattr(hints, "colorSchemeChanged"):
@@ -186,15 +199,36 @@ class MainWindow(QMainWindow):
     def _export_progress(self, message: str, fraction: float) -> None:
         self.status.showMessage(f"Exporting: {message} ({100 * fraction:.0f} %)")
 
-    def _measure_speed(self) -> None:
-        """Read this machine's training speed from earlier trials (background)."""
-        store = self.store_path
+    def _calibrate(self) -> None:
+        """Time the current plan's configurations on its table, in the background."""
+        plan, _ = self._plan()
+        if plan is None or self.sweep_running() or self.setup.choices().get("cluster"):
+            return
+        if self._calibrating:
+            self._calibrate_timer.start()  # again once the running one has landed
+            return
+        from workbench.gui.core_adapter import busy_cores, calibrate, startup_seconds
 
-        def done(speed):
-            self._speed = speed
+        self._calibrating = True
+        previous = self._calibration
+
+        def job():
+            busy = busy_cores()  # before our own calibration adds to it
+            cal = calibrate(plan, previous)
+            return cal, (startup_seconds() if self._startup is None else self._startup), busy
+
+        def done(result):
+            if not shiboken6.isValid(self.setup):
+                return  # the window closed meanwhile
+            self._calibrating = False
+            self._calibration, self._startup, self._busy = result
             self._update_estimate()
 
-        run_task(lambda: core.machine_speed(store), done, lambda msg: None)
+        def failed(msg):
+            if shiboken6.isValid(self.setup):
+                self._calibrating = False
+
+        run_task(job, done, failed)
 
     # ================================================================== building
     def _build_actions(self) -> None:
@@ -283,7 +317,7 @@ class MainWindow(QMainWindow):
         ll.addWidget(self.setup.footer)
         root.addWidget(left)
         # the learning rates default to the core's tune grid: an equal budget per candidate
-        self.setup.lr_edit.setText(core.DEFAULT_LEARNING_RATES)
+        self.setup.lr_edit.setText(" ".join(DEFAULTS["learning_rates"]))
         self.setup.lr_edit.setToolTip(core.learning_rate_tooltip())
         self.setup.targetChosen.connect(self.set_target)
         self.setup.kindChosen.connect(self._kind_chosen)
@@ -419,6 +453,9 @@ class MainWindow(QMainWindow):
         hh.setStretchLastSection(True)
         hh.setMinimumSectionSize(24)
         hh.setTextElideMode(Qt.ElideRight)
+        # columns are fitted to their first rows only: measuring every row of a large sweep
+        # held the event loop for tens of milliseconds
+        hh.setResizeContentsPrecision(40)
         for i, k in enumerate(COLUMN_KEYS):
             hh.resizeSection(i, COLUMN_WIDTHS.get(k, 60))
         hh.setSortIndicator(0, Qt.AscendingOrder)
@@ -465,7 +502,7 @@ class MainWindow(QMainWindow):
         vs.addWidget(self.detail_tabs)
         vs.setStretchFactor(0, 1)
         vs.setStretchFactor(1, 1)
-        vs.setSizes([290, 260])
+        vs.setSizes([250, 300])  # the plots below get the room their axis titles need
         rv.addWidget(vs, 1)
         self.results_split = vs
         self.tabs.addTab(res, "Results")
@@ -740,9 +777,18 @@ class MainWindow(QMainWindow):
             if self._plan_message and self.message_text() == self._plan_message:
                 self.banner.hide_message()
             self._plan_message = ""
-            rows, cols = self.table.df.shape
-            self.setup.set_estimate(core.plan_summary(plan, self.setup.choices(), self._speed,
-                                                      rows, cols - 1), True)
+            choices = self.setup.choices()
+            est = core.estimate(plan, self._calibration, choices.get("jobs") or 1,
+                                self._startup, self._busy)
+            if est is None and not choices.get("cluster"):
+                self._calibrate_timer.start()  # (re)started: calibrate once the user pauses
+            text = core.plan_summary(plan, choices, est)
+            last = self._last_sweep
+            if last is not None and not choices.get("cluster"):
+                # what the machine really did, beside the estimate
+                text += (f"\nThe last sweep ran {last[0]} trials in "
+                         f"{core.fmt_seconds(last[1])}.")
+            self.setup.set_estimate(text, True)
         self._update_actions()
 
     # ================================================================== sweep
@@ -784,8 +830,12 @@ class MainWindow(QMainWindow):
             self.results_meta = {}
             self._show_judgement({})
             self._plot_selection([])
-        self._sweep = SweepThread(job, ranker=lambda sid: core.ranked_rows(session.store, sid,
-                                                                           self._rope),
+        from workbench.gui.bridge import rank_in_process
+
+        store_path = self.store_path
+        # ranked in a process of its own (the window's event loop never waits behind it)
+        self._sweep = SweepThread(job, ranker=lambda sid: rank_in_process(store_path, sid,
+                                                                          self._rope),
                                   parent=self, cleanup=session.close)
         b = self._sweep.bridge
         b.sweepStarted.connect(self._on_sweep_started)
@@ -908,9 +958,10 @@ class MainWindow(QMainWindow):
         self.progress_label.setText(f"{state_word.get(state, state)} · "
                                     + self.progress_label.text())
         self._sweep = None
+        if p.get("t0") is not None and state == "finished":
+            self._last_sweep = (p["done"] - p.get("stored", 0), time.monotonic() - p["t0"])
         self._update_actions()
         self._update_estimate()
-        self._measure_speed()
         self._fit_columns()
         if self.results_view.selectionModel().selectedRows() == [] \
                 and self.proxy.rowCount() > 0:

@@ -58,6 +58,11 @@ SQUEEZE = 0.2
 #: the least height of a plot (pixels): two plots and their notes fit the ~220 pixels the
 #: window leaves under the results table at 1280 x 800
 MIN_PLOT_HEIGHT = 48
+#: the metrics' names on a plot axis (short enough to run along a short axis)
+SHORT_METRIC = {"r2": "R²", "neg_root_mean_squared_error": "−RMSE",
+                "neg_mean_absolute_error": "−MAE", "neg_mean_poisson_deviance": "−Poisson",
+                "roc_auc": "ROC AUC", "balanced_accuracy": "bal. acc.",
+                "neg_log_loss": "−log-loss", "accuracy": "accuracy"}
 #: drawn values are held within this many axis spans of the range (Qt paints very large
 #: coordinates badly; the part outside is marked as clipped anyway)
 DRAW_LIMIT = 20.0
@@ -334,9 +339,15 @@ class CurvesPanel(_Panel):
         self.kind_box.currentIndexChanged.connect(self._kind_picked)
         self.header.addWidget(self.loss_label)
         self.header.addWidget(self.kind_box)
-        self.loss_plot = self._plot("loss", stretch=3)
-        self.val_plot = self._plot("score", "epoch", stretch=2)
+        # side by side, each the panel's full height: stacked in the short space below the
+        # table at 1280 x 800 the held-out plot was a few pixels tall
+        row = QHBoxLayout()
+        row.setContentsMargins(0, 0, 0, 0)
+        row.setSpacing(2)
+        self.loss_plot = self._plot("loss", "epoch", stretch=1, into=row)
+        self.val_plot = self._plot("score", "epoch", stretch=1, into=row)
         self.val_plot.setXLink(self.loss_plot)
+        self.layout_.addLayout(row, 1)
         self._finish()
         self._curves: list[pg.PlotDataItem] = []
         self._kind: str | None = None
@@ -430,7 +441,7 @@ class CurvesPanel(_Panel):
         words = kinds.get(self._kind, "")
         self.loss_label.setText("Loss:" if len(kinds) > 1 else f"Loss: {words}")
         self.loss_label.setToolTip(words)
-        tips = ["Upper plot: training loss (solid)"
+        tips = ["Left plot: training loss (solid)"
                 + (" and the held-out fold's loss (dashed)" if any_test else "")
                 + f", {words}. Lines: mean over folds and repeats; band: ±1 sd."]
         if len(kinds) > 1:
@@ -455,18 +466,19 @@ class CurvesPanel(_Panel):
                                        float)))
         sclip = self._apply_range(self.val_plot, "score", sgroups, with_score,
                                   [bool(s.get("diverged")) for s in with_score], scurves)
-        label = (f"held-out {metric}" if key == "test_score"
-                 else f"validation {metric}") if metric else "score"
-        self.val_plot.setLabel("left", label)
+        short = SHORT_METRIC.get(metric, metric)
+        # the metric along the short left axis, whose rows it is on along the long bottom one
+        self.val_plot.setLabel("left", short or "score")
+        self.val_plot.setLabel("bottom", "epoch (held-out fold)" if key == "test_score"
+                               else "epoch (validation rows)")
         self.val_plot.setVisible(bool(with_score))
-        self.loss_plot.setLabel("bottom", None if with_score else "epoch")
         if not with_score:
             tips.append("No score per epoch was recorded for these configurations (early "
                         "stopping records its validation score).")
         elif key == "val":
-            tips.append(f"Lower plot: {metric} on early stopping's validation rows, per epoch.")
+            tips.append(f"Right plot: {metric} on early stopping's validation rows, per epoch.")
         else:
-            tips.append(f"Lower plot: {metric} on the held-out fold, per epoch.")
+            tips.append(f"Right plot: {metric} on the held-out fold, per epoch.")
         if sclip:
             notes.append("Score " + sclip[0].lower() + sclip[1:])
         self._say(" ".join(notes), " ".join(tips))
@@ -541,9 +553,15 @@ class HealthPanel(_Panel):
     def __init__(self, parent=None):
         super().__init__("Layer health", "Select rows to see their dead and saturated units "
                                          "and gradient norms.", parent)
-        self.share_plot = self._plot("% units")
+        # side by side: stacked, each plot got half of a short panel and its rotated axis
+        # title was cut at 1280 x 800; beside each other both keep the panel's height
+        row = QHBoxLayout()
+        row.setContentsMargins(0, 0, 0, 0)
+        row.setSpacing(2)
+        self.share_plot = self._plot("% units", "layer", into=row)
         self.share_plot.setYRange(0, 100, padding=0.02)
-        self.grad_plot = self._plot("grad", "layer")
+        self.grad_plot = self._plot("|grad|", "layer", into=row)
+        self.layout_.addLayout(row, 1)
         self.hint = QLabel("")
         self.hint.setObjectName("hint")
         self.hint.setWordWrap(True)
@@ -655,8 +673,8 @@ class HealthPanel(_Panel):
         self._say(
             ("No dead or saturated units (last epoch)." if all_zero else "")
             + (" " + clip if clip else ""),
-            "Upper plot: share of each hidden layer's units that are dead (solid bar: never "
+            "Left plot: share of each hidden layer's units that are dead (solid bar: never "
             "active on the probe rows) or saturated (hatched: on a flat part), at the last "
-            "epoch, mean over folds. Lower plot: the norm of the loss gradient for each layer's "
+            "epoch, mean over folds. Right plot: the norm of the loss gradient for each layer's "
             "weights (log scale; 'out' is the output layer)."
             + ("" if any_grad else " Gradient norms are recorded by the NumPy engine only."))

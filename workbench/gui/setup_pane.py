@@ -22,6 +22,7 @@ from PySide6.QtWidgets import (
 
 from workbench.gui import core_adapter as core
 from workbench.gui.widgets import CheckGrid, Section
+from workbench.sweep.defaults import WINDOW_DEFAULTS as DEFAULTS
 
 #: classification and regression metrics offered (scikit-learn scorer names)
 METRICS = {
@@ -87,14 +88,15 @@ class SetupPane(QWidget):
         self.kind_badge.setObjectName("kindBadge")
         self.kind_badge.hide()
         kind_row = QHBoxLayout()
-        self.kind_title = QLabel("Detected kind")
+        # short words: a long kind ("non-negative") must leave the row inside the column
+        self.kind_title = QLabel("Detected")
         self.kind_title.setObjectName("muted")
         self.kind_title.hide()
         self.kind_label = QLabel("Kind")
         self.kind_label.hide()
         self.kind_combo = QComboBox()
         self.kind_combo.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
-        self.kind_combo.setMinimumContentsLength(9)
+        self.kind_combo.setMinimumContentsLength(7)
         self.kind_combo.setToolTip("Use another target kind than the detected one (refused when "
                                    "the target's values cannot have it)")
         self.kind_combo.hide()
@@ -152,19 +154,28 @@ class SetupPane(QWidget):
         grid = QGridLayout()
         grid.setHorizontalSpacing(6)
         grid.setVerticalSpacing(4)
-        self.layers_edit = QLineEdit("32")
+        self.layers_edit = QLineEdit("; ".join(DEFAULTS["layers"]))
         self.layers_edit.setToolTip("Hidden-layer widths; separate shapes with ';', "
                                     "layers within a shape with ',' (e.g. 64; 64,32)")
         self.lr_edit = QLineEdit("0.001")
         self.lr_edit.setToolTip("Adam's initial learning rates, separated by ';' or spaces")
-        self.alpha_edit = QLineEdit("0.0001")
+        self.alpha_edit = QLineEdit(" ".join(f"{v:g}" for v in DEFAULTS["alphas"]))
         self.alpha_edit.setToolTip("L2 penalties (alpha), separated by ';' or spaces")
-        self.folds_spin = self._spin(2, 20, 5, "K folds (stratified for classification)")
-        self.repeats_spin = self._spin(1, 20, 2, "Repeats, each with its own fold shuffle")
-        self.epochs_spin = self._spin(1, 5000, 100, "Maximum epochs per trial")
+        self.folds_spin = self._spin(2, 20, DEFAULTS["folds"], "K folds (stratified for classification)")
+        self.repeats_spin = self._spin(1, 20, DEFAULTS["repeats"], "Repeats, each with its own fold shuffle")
+        self.epochs_spin = self._spin(1, 5000, DEFAULTS["epochs"], "Maximum epochs per trial")
         self.early_check = QCheckBox("stop early")
         self.early_check.setToolTip("Hold out 10 % of each training fold and stop when its "
                                     "score stalls; records a validation curve per epoch")
+        # a short label: the grid's width is the set-up column's (the tooltip says it all)
+        self.race_check = QCheckBox("racing")
+        self.race_check.setToolTip(
+            "Racing: after each block of folds, from the end of the first repeat on, stop the "
+            "configurations that are practically worse than the current best beyond doubt; "
+            "their remaining trials are not run. Saves time on large grids; the winner and "
+            "the configurations close to it still get every trial. Off: every trial runs.")
+        self.race_check.setChecked(bool(DEFAULTS.get("race", False)))
+        self.race_check.toggled.connect(self.planChanged)
         self.metric_combo = QComboBox()
         self.metric_combo.setToolTip("scikit-learn scorer name (greater is better). Until you "
                                      "pick one, it follows the target's kind and the heads "
@@ -197,6 +208,7 @@ class SetupPane(QWidget):
         grid.addWidget(self.early_check, 3, 2, 1, 2)
         grid.addWidget(lab("Metric"), 4, 0)
         grid.addWidget(self.metric_combo, 4, 1, 1, 3)
+        grid.addWidget(self.race_check, 5, 1, 1, 3)
         grid.setColumnStretch(1, 1)
         grid.setColumnStretch(3, 1)
         s3.body.addLayout(grid)
@@ -469,6 +481,7 @@ class SetupPane(QWidget):
             "repeats": self.repeats_spin.value(),
             "epochs": self.epochs_spin.value(),
             "early_stopping": self.early_check.isChecked(),
+            "race": self.race_check.isChecked(),
             "metric": self.metric_combo.currentText() or None,
             "jobs": self.jobs_spin.value(),
             "cluster": self.cluster_edit.text().strip() if self.cluster_radio.isChecked() else None,
@@ -489,6 +502,7 @@ class SetupPane(QWidget):
         self.repeats_spin.setValue(int(plan.get("repeats", 2)))
         self.epochs_spin.setValue(int(plan.get("epochs", 100)))
         self.early_check.setChecked(bool(plan.get("early_stopping")))
+        self.race_check.setChecked(bool(plan.get("race")))
         if plan.get("metric"):
             self.metric_combo.setCurrentText(plan["metric"])
             # the stored metric follows later head changes only if it was the default

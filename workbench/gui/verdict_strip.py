@@ -60,6 +60,7 @@ class VerdictStrip(QFrame):
     # ------------------------------------------------------------------ content
     def clear(self) -> None:
         """No results: the strip is hidden."""
+        self._shown = None
         self._set_statements([])
         self.heading.setText("")
         self.hide()
@@ -72,6 +73,10 @@ class VerdictStrip(QFrame):
         # the table gives the same rule in short
         self.setToolTip(meta.get("heading") or "")
         running = meta.get("state") == "running"
+        shown = (tuple((x["key"], x["label"], x["text"]) for x in statements), running)
+        if shown == getattr(self, "_shown", None):
+            return  # the same words: nothing to rebuild (a ranking during a sweep often is)
+        self._shown = shown
         self.heading.setText("Provisional verdict, from the configurations finished so far"
                              if running else "")
         self.heading.setVisible(running)
