@@ -359,7 +359,10 @@ def test_a_dead_worker_costs_only_its_trial(tmp_path):
     def workers():
         out = []
         for p in me.children(recursive=True):
-            cmd = " ".join(p.cmdline())
+            try:
+                cmd = " ".join(p.cmdline())
+            except psutil.Error:  # a process that ended while the list was read
+                continue
             if "loky" in cmd and "resource_tracker" not in cmd:
                 out.append(p)
         return out
@@ -370,7 +373,10 @@ def test_a_dead_worker_costs_only_its_trial(tmp_path):
                                               (len(kills) == 1 and ev["attempt"] == 2)):
             procs = workers()
             for p in procs:
-                p.kill()
+                try:
+                    p.kill()
+                except psutil.Error:
+                    pass
             kills.append((ev["config_index"], ev["repeat"], ev["fold"], len(procs)))
 
     with Store(tmp_path / "s.sqlite") as st:

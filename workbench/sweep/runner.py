@@ -68,8 +68,10 @@ the calling process.
 
 Counts (``n_trials``, ``n_todo``, ``n_stored``, ``n_finished``) and the
 ``trial_*`` events are about the networks' trials; the baselines' trials
-(:meth:`workbench.sweep.plan.SweepPlan.baseline_trials`, run first: they are
-quick, and the yardstick is then there even for an interrupted sweep) are
+(:meth:`workbench.sweep.plan.SweepPlan.baseline_trials`, run right after one
+network trial per worker -- the user sees a network's score as early as the
+workers allow -- and before the rest: they are quick, and the yardstick is then
+there even for an interrupted sweep) are
 counted in ``sweep_started``'s ``n_baselines_todo`` and reported by
 ``baseline_finished`` only.
 
@@ -393,7 +395,11 @@ def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, can
           "workers": executor.workers, "time": time.time()})
     interrupted = False
     try:
-        interrupted = run.execute(executor, todo_baselines + todo, retries)
+        # one network trial per worker first (the first score the user sees), then the
+        # quick baselines, then the rest; the order changes no result (seeds are per trial)
+        first = max(1, int(executor.workers))
+        interrupted = run.execute(executor, todo[:first] + todo_baselines + todo[first:],
+                                  retries)
     except KeyboardInterrupt:
         run.cancel_running()
         executor.close(kill=True)
