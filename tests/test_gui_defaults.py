@@ -207,3 +207,27 @@ def test_reopening_a_count_sweep_shows_no_stale_metric_error(qtbot, window, tmp_
     assert not s.estimate_label.text().startswith(CANNOT_RUN)
     assert "neg_mean_poisson_deviance" not in s.estimate_label.text() + window.message_text()
     assert np.isfinite(window.results_model.rows()[0]["mean"])
+
+
+def test_the_first_eta_waits_for_each_worker_to_finish_two_trials(window, monkeypatch):
+    """Before every worker has finished two trials the pace means little: the progress line
+    gives the estimate timed on the table; after, the finished trials' pace."""
+    import time
+
+    win = window
+    monkeypatch.setattr(win, "sweep_running", lambda: True)
+    try:
+        t0 = time.monotonic() - 10.0
+        win._progress = {"done": 3, "total": 103, "best": None, "t0": t0, "running": 2,
+                         "stored": 0, "workers": 2, "estimate": 100.0}
+        win._update_progress_text()
+        text = win.progress_label.text()
+        assert "about 1 min 30 s left (estimated)" in text, text  # 100 - 10 s
+        win._progress.update(done=4, estimate=None)
+        win._update_progress_text()
+        # 10 s for 4 trials, 99 to go: about 10 / 4 x 99 = 247.5 s
+        text = win.progress_label.text()
+        assert "about 4 min 0" in text and "estimated" not in text, text
+    finally:  # closing a window that thinks it runs a sweep would ask the user
+        monkeypatch.undo()
+        win._progress["t0"] = None

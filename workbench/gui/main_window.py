@@ -809,7 +809,10 @@ class MainWindow(QMainWindow):
         def job(on_event, cancel):
             return core.run_plan(plan, choices, session, on_event, cancel)
 
-        self._start(job, session, total=plan.n_trials)
+        made = None if choices.get("cluster") else core.estimate(
+            plan, self._calibration, choices.get("jobs") or 1, self._startup, self._busy)
+        self._start(job, session, total=plan.n_trials,
+                    estimate=made.seconds if made is not None else None)
 
     def resume_sweep(self, sweep_id: str) -> None:
         if self.sweep_running():
@@ -823,7 +826,8 @@ class MainWindow(QMainWindow):
         self.sweep_id = sweep_id
         self._start(job, session, total=0, keep_rows=True)
 
-    def _start(self, job, session, total: int, keep_rows: bool = False) -> None:
+    def _start(self, job, session, total: int, keep_rows: bool = False,
+               estimate: float | None = None) -> None:
         self.banner.hide_message()
         if not keep_rows:
             self.results_model.clear()
@@ -843,7 +847,9 @@ class MainWindow(QMainWindow):
         b.trialStarted.connect(self._on_trial_started)
         b.ranked.connect(self._on_ranked)
         self._sweep.finished.connect(self._on_sweep_done)
+        choices = self.setup.choices()
         self._progress = {"done": 0, "total": total, "best": None, "t0": time.monotonic(),
+                          "workers": int(choices.get("jobs") or 1), "estimate": estimate,
                           "running": 0, "stored": 0}
         self.progress.setRange(0, max(1, total))
         self.progress.setValue(0)
@@ -892,8 +898,15 @@ class MainWindow(QMainWindow):
         elapsed = time.monotonic() - p["t0"]
         parts = [f"{p['done']} / {p['total']} trials", f"elapsed {core.fmt_seconds(elapsed)}"]
         remaining = p["total"] - p["done"]
-        if self.sweep_running() and p["done"] > 0 and remaining > 0:
-            parts.append(f"about {core.fmt_seconds(elapsed / p['done'] * remaining)} left")
+        new = p["done"] - p.get("stored", 0)
+        if self.sweep_running() and remaining > 0:
+            # the finished trials' pace once enough have finished to mean something (every
+            # worker's second trial); before that the estimate timed on the table, if any
+            if new >= 2 * max(1, p.get("workers", 1)):
+                parts.append(f"about {core.fmt_seconds(elapsed / new * remaining)} left")
+            elif p.get("estimate") is not None:
+                parts.append(f"about {core.fmt_seconds(max(0.0, p['estimate'] - elapsed))} "
+                             "left (estimated)")
         if p["best"] is not None:
             metric = self.results_meta.get("metric", "")
             label = p.get("best_label") or ""

@@ -438,6 +438,12 @@ class CurvesPanel(_Panel):
                                       float)))
         clip = self._apply_range(self.loss_plot, "loss", groups, shown,
                                  [bool(s.get("diverged")) for s in shown], curves)
+        # the epochs' range set now (the score plot shares it): left to pyqtgraph's lazy
+        # auto-range it was found while painting and every plot was painted twice
+        last = max([len(s[k]["x"]) for s in self._series for k in ("loss", "test_score", "val")
+                    if s.get(k)] or [1])
+        self.loss_plot.enableAutoRange(axis="x", enable=False)
+        self.loss_plot.setXRange(1, max(2, last), padding=0.02)
         words = kinds.get(self._kind, "")
         self.loss_label.setText("Loss:" if len(kinds) > 1 else f"Loss: {words}")
         self.loss_label.setToolTip(words)
