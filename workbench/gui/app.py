@@ -78,7 +78,17 @@ def run_app(path: str | None = None, target: str | None = None, run: bool = Fals
             win.close()
             app.quit()
 
+    waited = {"n": 0}
+
     def grab_and_quit():
+        # the set-up column's estimate is timed in the background once the plan settles:
+        # wait for it (a few seconds at most) so the picture shows it
+        if (win._calibrate_timer.isActive() or win._calibrating) and waited["n"] < 40:
+            waited["n"] += 1
+            from PySide6.QtCore import QTimer
+
+            QTimer.singleShot(250, grab_and_quit)
+            return
         app.processEvents()
         Path(snapshot).parent.mkdir(parents=True, exist_ok=True)
         if not win.grab().save(str(snapshot)):

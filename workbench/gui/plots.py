@@ -473,10 +473,8 @@ class CurvesPanel(_Panel):
         sclip = self._apply_range(self.val_plot, "score", sgroups, with_score,
                                   [bool(s.get("diverged")) for s in with_score], scurves)
         short = SHORT_METRIC.get(metric, metric)
-        # the metric along the short left axis, whose rows it is on along the long bottom one
+        # the metric along the short left axis (which rows it is on: the panel's tooltip)
         self.val_plot.setLabel("left", short or "score")
-        self.val_plot.setLabel("bottom", "epoch (held-out fold)" if key == "test_score"
-                               else "epoch (validation rows)")
         self.val_plot.setVisible(bool(with_score))
         if not with_score:
             tips.append("No score per epoch was recorded for these configurations (early "
@@ -523,7 +521,7 @@ class SpreadPanel(_Panel):
         ticks = []
         fg = QColor(self.theme.plot_fg)
         metric = next((s.get("metric") for s in self._series if s.get("metric")), "")
-        self.plot.setLabel("left", metric or "score")
+        self.plot.setLabel("left", SHORT_METRIC.get(metric, metric) if metric else "score")
         for i, s in enumerate(self._series):
             color = self.theme.series_color(s["color"])
             scores = _finite(groups[i])
