@@ -96,7 +96,7 @@ class SetupPane(QWidget):
         self.kind_label.hide()
         self.kind_combo = QComboBox()
         self.kind_combo.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
-        self.kind_combo.setMinimumContentsLength(7)
+        self.kind_combo.setMinimumContentsLength(5)
         self.kind_combo.setToolTip("Use another target kind than the detected one (refused when "
                                    "the target's values cannot have it)")
         self.kind_combo.hide()
