@@ -231,3 +231,16 @@ def test_the_first_eta_waits_for_each_worker_to_finish_two_trials(window, monkey
     finally:  # closing a window that thinks it runs a sweep would ask the user
         monkeypatch.undo()
         win._progress["t0"] = None
+
+
+def test_the_racing_box_reaches_the_plan_and_comes_back_with_a_stored_one(qtbot, window):
+    load(qtbot, window, "kiln_batches.csv")
+    s = window.setup
+    assert not s.race_check.isChecked() and window._plan()[0].race is False
+    s.race_check.click()
+    plan = window._plan()[0]
+    assert plan.race is True
+    s.race_check.click()
+    assert window._plan()[0].race is False
+    s.apply_plan(plan.to_dict())  # a stored racing sweep shows its box ticked
+    assert s.race_check.isChecked()
