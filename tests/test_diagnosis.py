@@ -371,6 +371,15 @@ def test_a_high_loss_that_stopped_early_and_a_plateau():
     flat = dict(stalled, history={"loss": [1.0, 0.98, 0.97] + [0.97] * 12})
     assert diagnose([flat], hidden="tanh", head="identity", task="regression", epochs=200,
                     reference_loss=0.25)["codes"] == ["plateau"]
+    # the best and its practical equivalents score as well as anything on held-out rows: a
+    # lower training loss elsewhere (perhaps over-fitting) does not make theirs high
+    for decision in ("best", "equivalent"):
+        for case in (stalled, flat):
+            assert diagnose([case], hidden="tanh", head="identity", task="regression",
+                            epochs=200, reference_loss=0.25,
+                            decision=decision)["codes"] == ["normal"]
+    assert diagnose([stalled], hidden="tanh", head="identity", task="regression", epochs=200,
+                    reference_loss=0.25, decision="worse")["codes"] == ["stopped_early"]
     # without anything to call the loss high, neither is said
     assert diagnose([flat], hidden="tanh", head="identity", task="regression",
                     epochs=200)["codes"] == ["normal"]

@@ -75,7 +75,10 @@ except *diverged*, which one trial is enough for.
 *High loss*: the configuration's final training loss (median over its trials)
 is at least :data:`HIGH_LOSS_RATIO` = 2 times the lowest among the sweep's
 configurations whose losses are comparable (same loss and target scaling,
-:func:`loss_kind`; from memory), or the ``underfit`` flag is set.
+:func:`loss_kind`; from memory) and the configuration is neither the best nor
+practically equivalent to it (a configuration that scores on held-out rows as
+well as the best has not stalled anywhere that matters: a lower training loss
+elsewhere may be over-fitting), or the ``underfit`` flag is set.
 
 Remedies, with their sources: a smaller learning rate against divergence
 (common practice; LeCun, Bottou, Orr & Müller 1998, "Efficient BackProp",
@@ -448,7 +451,7 @@ def diagnose(trials: list[dict], *, hidden: str, head: str, task: str, epochs: i
              metric: str | None = None, outputs=None, target_sd: float | None = None,
              underfit: bool | None = None, reference_loss: float | None = None,
              fold_sd: float | None = None, typical_sd: float | None = None,
-             rope: float | None = None) -> dict:
+             rope: float | None = None, decision: str | None = None) -> dict:
     """The diagnosis of one configuration.
 
     Parameters
@@ -475,6 +478,9 @@ def diagnose(trials: list[dict], *, hidden: str, head: str, task: str, epochs: i
         The lowest final training loss among comparable configurations.
     fold_sd, typical_sd, rope : float, optional
         This configuration's fold-score sd, the sweep's median, the ROPE.
+    decision : str, optional
+        Its decision against the best (``best``, ``equivalent``, ...): the best and
+        its equivalents are never said to stop or stall at a high loss.
 
     Returns
     -------
@@ -515,9 +521,10 @@ def diagnose(trials: list[dict], *, hidden: str, head: str, task: str, epochs: i
     final = float(np.median([c.last for c in good])) if good else None
     ratio = (final / reference_loss if final is not None and reference_loss
              and reference_loss > 0 else None)
-    high = bool(underfit) or (ratio is not None and ratio >= HIGH_LOSS_RATIO)
-    versus = (f", {ratio:.1f} times the lowest comparable configuration's"
-              if ratio is not None and ratio >= HIGH_LOSS_RATIO else "")
+    far = (ratio is not None and ratio >= HIGH_LOSS_RATIO
+           and decision not in ("best", "equivalent"))
+    high = bool(underfit) or far
+    versus = f", {ratio:.1f} times the lowest comparable configuration's" if far else ""
     if good and not blown:
         # flat and no longer falling: stuck; flat but still falling: slow (underfit below)
         flat = _majority(c.flat and not c.still_falling for c in good)
@@ -640,4 +647,4 @@ def add_diagnoses(doc: dict, store) -> None:
             outputs=_outputs(oof, j) if oof is not None else None, target_sd=target_sd,
             underfit=c.get("underfit"), reference_loss=reference.get(kinds[c["index"]]),
             fold_sd=c.get("sd") if c["status"] == "done" else None, typical_sd=typical,
-            rope=doc.get("rope"))
+            rope=doc.get("rope"), decision=c.get("decision"))
