@@ -330,8 +330,14 @@ def test_a_slow_ranking_never_holds_the_sweep_and_the_last_one_follows_the_end(q
         return "done" in " ".join(log) and log.index("job done") < len(log) - 1
 
     got = []
+
+    class Receiver(QObject):  # a slot on the GUI thread, as the window's own is
+        def take(self, rows):
+            got.append(rows)
+
+    receiver = Receiver()
     sweep = SweepThread(job, ranker=ranker, rank_interval=0.0)
-    sweep.bridge.ranked.connect(got.append)
+    sweep.bridge.ranked.connect(receiver.take)
     with qtbot.waitSignal(sweep.finished, timeout=20_000):
         sweep.start()
     assert log[0] == "rank 0" and log[1] == "job done"  # the job went on meanwhile
