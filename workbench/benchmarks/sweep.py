@@ -37,7 +37,6 @@ from __future__ import annotations
 
 import tempfile
 import time
-import warnings
 from pathlib import Path
 
 import numpy as np
@@ -76,28 +75,11 @@ def _sweep(plan, store, jobs):
 
 
 def _grid_search(plan, jobs=2):
-    from sklearn.model_selection import GridSearchCV
-    from sklearn.neural_network import MLPClassifier
+    """A hand-written ``GridSearchCV`` over the plan's grid: one definition, in
+    :func:`workbench.benchmarks.kiln.grid_search`."""
+    from workbench.benchmarks.kiln import grid_search
 
-    from workbench.data.preprocessing import build_pipeline
-    from workbench.sweep.runner import load_data
-
-    t = time.perf_counter()  # reading the table is part of the job, as in our sweep
-    data, _ = load_data(plan)
-    pipe = build_pipeline(
-        data.profile, data.target, MLPClassifier(max_iter=plan.epochs, random_state=0),
-        "logistic")
-    grid = {"model__activation": list(plan.hidden),
-            "model__hidden_layer_sizes": [tuple(s) for s in plan.layers],
-            "model__learning_rate_init": list(plan.learning_rates),
-            "model__alpha": list(plan.alphas)}
-    folds = plan.fold_indices(data.y)
-    cv = [folds[(r, f)] for r in range(plan.repeats) for f in range(plan.folds)]
-    search = GridSearchCV(pipe, grid, scoring=plan.metric, cv=cv, n_jobs=jobs, refit=False)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        search.fit(data.X, data.y)
-    return time.perf_counter() - t, search.best_params_
+    return grid_search(plan, jobs)
 
 
 def _burn(n: int) -> float:

@@ -248,16 +248,12 @@ def head_tooltip(task: str, name: str) -> str:
 
 
 def fmt_seconds(s: float | None) -> str:
+    """Seconds in words (the core's :func:`workbench.sweep.estimate.fmt_seconds`), or a dash."""
     if s is None or not math.isfinite(s):
         return "–"
-    s = max(0.0, float(s))
-    if s < 60:
-        return f"{s:.0f} s"
-    m, sec = divmod(int(round(s)), 60)
-    if m < 60:
-        return f"{m} min {sec:02d} s"
-    h, m = divmod(m, 60)
-    return f"{h} h {m:02d} min"
+    from workbench.sweep.estimate import fmt_seconds as in_words
+
+    return in_words(s)
 
 
 # --------------------------------------------------------------------------- plan
