@@ -2,6 +2,7 @@
 
 import subprocess
 import sys
+from pathlib import Path
 
 from workbench.sweep import pool, runner
 
@@ -31,3 +32,17 @@ def test_the_runner_and_the_pool_count_the_same_cores():
     from joblib import cpu_count
 
     assert pool.default_jobs() == runner.default_jobs() == max(1, cpu_count())
+
+
+def test_a_sweep_without_its_table_or_target_refuses_before_starting_any_worker():
+    # the one-line refusal comes at once: no worker is started (or imported) for it
+    code = ("import sys; from workbench.cli import main; "
+            "rc = main(sys.argv[1:]); "
+            "print(rc, 'workbench.sweep.pool' in sys.modules, 'numpy' in sys.modules)")
+    table = str(Path(__file__).resolve().parents[1] / "sample_sets" / "kiln_batches.csv")
+    for argv, words in (([table], "name the target column with --target COL"),
+                        ([], "name the table: workbench sweep FILE --target COL")):
+        out = subprocess.run([sys.executable, "-c", code, "sweep", *argv], capture_output=True,
+                             text=True, check=True)
+        assert out.stdout.split() == ["2", "False", "False"], out
+        assert out.stderr.startswith("workbench: " + words) and out.stderr.count("\n") == 1

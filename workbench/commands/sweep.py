@@ -313,7 +313,17 @@ class _sigterm_as_interrupt:
             signal.signal(signal.SIGTERM, self._old)
 
 
+def _missing_table_or_target(args) -> None:
+    if args.file is None:
+        raise InputError("name the table: workbench sweep FILE --target COL "
+                         "(or --resume SWEEP_ID)")
+    raise InputError("name the target column with --target COL (see workbench inspect "
+                     f"{args.file} for a suggestion)")
+
+
 def run(args) -> int:
+    if args.resume is None and (args.file is None or args.target is None):
+        _missing_table_or_target(args)  # one line, before anything is started
     if args.cluster is None and (args.jobs is None or args.jobs >= 1):
         # the workers start (and import what trials need) while this process reads the table
         from workbench.sweep.pool import default_jobs, prestart
@@ -329,12 +339,6 @@ def run(args) -> int:
 
     rope = None if args.rope is None else check_rope(args.rope)  # refused before any trial
     if args.resume is None:
-        if args.file is None:
-            raise InputError("name the table: workbench sweep FILE --target COL "
-                             "(or --resume SWEEP_ID)")
-        if args.target is None:
-            raise InputError("name the target column with --target COL (see workbench inspect "
-                             f"{args.file} for a suggestion)")
         plan = build_plan(args.file, args.target, hidden=args.hidden, output=args.output,
                           layers=args.layers, learning_rates=args.learning_rate,
                           alphas=args.alpha, folds=args.folds, repeats=args.repeats,
