@@ -19,3 +19,21 @@ def _private_home(tmp_path_factory, monkeypatch):
     monkeypatch.setenv("XDG_CONFIG_HOME", str(base / "config"))
     monkeypatch.setenv("XDG_CACHE_HOME", str(base / "cache"))
     yield
+
+
+@pytest.fixture
+def window(qtbot, tmp_path):
+    """The main window at 1280x800 in the light theme, with its own settings and store;
+    a sweep still running at the end is stopped (shared by the window test modules)."""
+    from workbench.gui.main_window import MainWindow
+    from workbench.gui.settings import Settings
+
+    win = MainWindow(settings=Settings(tmp_path / "settings"),
+                     store_path=str(tmp_path / "store.sqlite"), theme_choice="light")
+    qtbot.addWidget(win)
+    win.resize(1280, 800)
+    win.show()
+    yield win
+    if win.sweep_running():
+        win.stop_sweep()
+        win._sweep.wait(10_000)

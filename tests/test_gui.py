@@ -24,7 +24,6 @@ from workbench.gui import core_adapter as core
 from workbench.gui.main_window import CANNOT_RUN, MainWindow
 from workbench.gui.messages import SETTING_LABELS, phrase
 from workbench.gui.models import COLUMN_KEYS
-from workbench.gui.settings import Settings
 
 pytestmark = [
     pytest.mark.gui,
@@ -35,17 +34,6 @@ pytestmark = [
 SAMPLES = Path(__file__).resolve().parents[1] / "sample_sets"
 
 
-@pytest.fixture
-def window(qtbot, tmp_path):
-    win = MainWindow(settings=Settings(tmp_path / "settings"),
-                     store_path=str(tmp_path / "store.sqlite"), theme_choice="light")
-    qtbot.addWidget(win)
-    win.resize(1280, 800)
-    win.show()
-    yield win
-    if win.sweep_running():
-        win.stop_sweep()
-        win._sweep.wait(10_000)
 
 
 def drop_file(win: MainWindow, path: Path) -> bool:

@@ -20,9 +20,8 @@ from sklearn.metrics import mean_poisson_deviance
 
 from workbench.cli import main
 from workbench.gui.app import default_choices
-from workbench.gui.main_window import CANNOT_RUN, MainWindow
+from workbench.gui.main_window import CANNOT_RUN
 from workbench.gui.messages import SETTING_LABELS
-from workbench.gui.settings import Settings
 from workbench.sweep.runner import load_data
 from workbench.sweep.store import Store
 
@@ -39,17 +38,6 @@ ALTERNATIVE = {"coffee_roast.csv": None, "greenhouse_temp.csv": None,
                "seed_germination.csv": "identity", "trap_catches.csv": "softplus"}
 
 
-@pytest.fixture
-def window(qtbot, tmp_path):
-    win = MainWindow(settings=Settings(tmp_path / "settings"),
-                     store_path=str(tmp_path / "store.sqlite"), theme_choice="light")
-    qtbot.addWidget(win)
-    win.resize(1280, 800)
-    win.show()
-    yield win
-    if win.sweep_running():
-        win.stop_sweep()
-        win._sweep.wait(10_000)
 
 
 def load(qtbot, win, name, target=None):

@@ -18,25 +18,13 @@ import pytest
 
 from workbench.data.profiling import analyse_target, check_column, profile_table
 from workbench.errors import InputError
-from workbench.gui.main_window import CANNOT_RUN, MainWindow
+from workbench.gui.main_window import CANNOT_RUN
 from workbench.gui.messages import SETTING_LABELS, phrase
-from workbench.gui.settings import Settings
 from workbench.sweep.store import Store
 
 pytestmark = pytest.mark.gui
 
 
-@pytest.fixture
-def window(qtbot, tmp_path):
-    win = MainWindow(settings=Settings(tmp_path / "settings"),
-                     store_path=str(tmp_path / "store.sqlite"), theme_choice="light")
-    qtbot.addWidget(win)
-    win.resize(1280, 800)
-    win.show()
-    yield win
-    if win.sweep_running():
-        win.stop_sweep()
-        win._sweep.wait(10_000)
 
 
 @pytest.fixture(scope="module")
