@@ -265,3 +265,27 @@ def test_a_sweep_run_on_scikit_learn_stored_exactly_its_column(tmp_path):
     assert cc.configuration["head"] == "softmax" and cc.all_agree is True
     assert [f.stored_score for f in cc.folds] == [f.sklearn_score for f in cc.folds]
     assert "The sweep itself ran scikit-learn's MLP" in cc.sentence()
+
+
+def test_the_stored_form_picks_by_index_reports_each_fold_and_equals_the_direct_call(
+        binary, checked, tmp_path):
+    """:func:`cross_check_stored` (what the window runs in its own process): the configuration
+    is found by its plan index, not its rank; progress is written after every fold; the
+    answer is the direct call's, to the bit."""
+    from workbench.errors import InputError
+    from workbench.sweep.cross_check import cross_check_stored
+
+    cc, res = checked["binary"]
+    rec = res["configurations"][cc.rank - 1]
+    progress = tmp_path / "progress.txt"
+    got = cross_check_stored(binary["store"], binary["sweep_id"], config_index=rec["index"],
+                             progress_path=str(progress))
+    want = cc.to_dict()
+    for d in (got, want):
+        for f in d["folds"]:
+            f.pop("engine_seconds"), f.pop("sklearn_seconds")
+    assert got == want
+    n = len(want["folds"])
+    assert progress.read_text() == f"{n} {n}"
+    with pytest.raises(InputError, match="no configuration 999"):
+        cross_check_stored(binary["store"], binary["sweep_id"], config_index=999)

@@ -360,3 +360,37 @@ def _run_folds(out: CrossCheck, plan, chosen: dict, data, folds, repeats, on_fol
                                    engine_seconds=a_s, sklearn_seconds=b_s))
         if on_fold is not None:
             on_fold(n, len(keys))
+
+
+def cross_check_stored(store_path, sweep_id: str, *, config_index: int | None = None,
+                       table=None, progress_path=None) -> dict:
+    """:func:`cross_check` for a process of its own (the window's Cross-check runs it so).
+
+    Opens the store at ``store_path`` (SQLite lets it read while others write), picks the
+    configuration by its ``config_index`` (its index in the plan, which does not move with
+    the ranking; default the recommended one) and, when ``progress_path`` is given, writes
+    ``"done total"`` to that file after each fold, so that another process can follow it.
+    Returns :meth:`CrossCheck.to_dict`.
+    """
+    from pathlib import Path
+
+    from workbench.sweep.results import sweep_results
+    from workbench.sweep.store import Store, existing_store_path
+
+    def on_fold(done, total):
+        if progress_path is not None:
+            tmp = Path(f"{progress_path}.tmp")
+            tmp.write_text(f"{done} {total}")
+            tmp.replace(progress_path)  # whole lines only: the reader never sees half a write
+
+    with Store(existing_store_path(store_path)) as store:
+        res = sweep_results(store, sweep_id)
+        rank = None
+        if config_index is not None:
+            rank = next((n for n, c in enumerate(res["configurations"], start=1)
+                         if c["index"] == int(config_index)), None)
+            if rank is None:
+                raise InputError(f"sweep {sweep_id} has no configuration {config_index}; "
+                                 "choose one of its results", setting="config")
+        return cross_check(store, sweep_id, rank=rank, results=res, table=table,
+                           on_fold=on_fold).to_dict()
