@@ -21,7 +21,7 @@ import os
 import tempfile
 from pathlib import Path
 
-from PySide6.QtCore import QTimer, Signal
+from PySide6.QtCore import Qt, QTimer, Signal
 from PySide6.QtWidgets import (
     QAbstractItemView,
     QComboBox,
@@ -40,8 +40,13 @@ from workbench.errors import InputError
 from workbench.gui.messages import phrase
 
 #: the result table's columns
-COLUMNS = ("Repeat", "Fold", "Engine (scikit-learn mode)", "scikit-learn MLP", "Difference",
-           "Agree", "Stored (fair start)")
+COLUMNS = ("Repeat", "Fold", "Engine", "scikit-learn", "Difference", "Agree", "Stored")
+#: what each column holds, as the header's tooltip
+COLUMN_TIPS = ("The cross-validation repeat", "The fold within the repeat",
+               "Our engine in scikit-learn's mode (its start and stopping rule, float64)",
+               "scikit-learn's own MLPClassifier / MLPRegressor",
+               "|Engine - scikit-learn|", "Whether the two agree to the parity tolerance",
+               "The score the sweep stored (fair start: differs by design)")
 #: how often the dialog looks at the running check (ms)
 POLL_MS = 100
 
@@ -78,7 +83,8 @@ class CrossCheckDialog(QDialog):
                  kind: str | None = None):
         super().__init__(parent)
         self.setWindowTitle("Cross-check on scikit-learn's MLP")
-        self.setMinimumSize(760, 420)
+        self.setMinimumSize(640, 420)
+        self.resize(860, 560)
         self._store, self._sweep, self._task, self._kind = store_path, sweep_id, task, kind
         self._choices = list(choices)
         self._pool = self._future = None
@@ -95,6 +101,8 @@ class CrossCheckDialog(QDialog):
         self.config_combo = QComboBox()
         for label, _row in self._choices:
             self.config_combo.addItem(label)
+            self.config_combo.setItemData(self.config_combo.count() - 1, label,
+                                          Qt.ToolTipRole)
         self.config_combo.currentIndexChanged.connect(self._config_changed)
         lay.addWidget(self.config_combo)
 
@@ -107,13 +115,18 @@ class CrossCheckDialog(QDialog):
         self.table.setHorizontalHeaderLabels(list(COLUMNS))
         self.table.setEditTriggers(QAbstractItemView.NoEditTriggers)
         self.table.verticalHeader().setVisible(False)
-        self.table.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeToContents)
-        self.table.horizontalHeader().setStretchLastSection(True)
+        header = self.table.horizontalHeader()
+        for c, tip in enumerate(COLUMN_TIPS):
+            self.table.horizontalHeaderItem(c).setToolTip(tip)
+            header.setSectionResizeMode(c, QHeaderView.ResizeToContents if c in (0, 1, 5)
+                                        else QHeaderView.Stretch)
         lay.addWidget(self.table, 1)
 
         self.sentence = QLabel("")
         self.sentence.setWordWrap(True)
         self.sentence.setObjectName("crossCheckSentence")
+        self.sentence.setMinimumHeight(5 * self.sentence.fontMetrics().lineSpacing())
+        self.sentence.setAlignment(Qt.AlignLeft | Qt.AlignTop)
         lay.addWidget(self.sentence)
 
         buttons = QDialogButtonBox()
@@ -241,7 +254,10 @@ class CrossCheckDialog(QDialog):
                      _num(f["sklearn_score"]), _num(f["difference"]),
                      "yes" if f["agree"] else "NO", _num(f["stored_score"]))
             for c, text in enumerate(cells):
-                self.table.setItem(r, c, QTableWidgetItem(text))
+                item = QTableWidgetItem(text)
+                if c in (2, 3, 4, 6):  # numbers line up on the right
+                    item.setTextAlignment(Qt.AlignRight | Qt.AlignVCenter)
+                self.table.setItem(r, c, item)
         self.sentence.setText(result["sentence"])
 
     def done(self, code: int) -> None:  # Close, Esc or the window's close: end the process
