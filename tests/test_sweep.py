@@ -436,16 +436,18 @@ def test_cancel_keeps_finished_trials_and_resume_runs_exactly_the_rest(tmp_path)
         out = run_sweep(plan, store=st, backend="inline", cancel=cancel, on_event=on_event)
         assert out.state == "interrupted"
         kept = st.finished_keys(out.sweep_id)
-        assert len(kept) == 2
+        # the cancel is seen between tasks: a group of folds run together (runner.STACK)
+        # is stored whole, every trial it finished announced
+        assert len(kept) == len(seen) >= 2 and len(kept) < plan.n_trials
         assert st.get_sweep(out.sweep_id)["state"] == "interrupted"
         assert sweep_results(st, out.sweep_id)["state"] == "interrupted"
         started = []
         again = run_sweep(store=st, resume=out.sweep_id, backend="inline",
                           on_event=lambda e: started.append(e) if e["type"] == "trial_started"
                           else None)
-        assert again.state == "finished" and again.n_todo == plan.n_trials - 2
+        assert again.state == "finished" and again.n_todo == plan.n_trials - len(kept)
         run_keys = {(e["config_index"], e["repeat"], e["fold"]) for e in started}
-        assert not run_keys & kept and len(run_keys) == plan.n_trials - 2
+        assert not run_keys & kept and len(run_keys) == plan.n_trials - len(kept)
         fresh = run_sweep(plan, store=st, backend="inline")
         assert _scores(st, again.sweep_id) == _scores(st, fresh.sweep_id)
         _same_predictions(st, again.sweep_id, fresh.sweep_id)

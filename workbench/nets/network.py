@@ -36,6 +36,9 @@ import numpy as np
 
 from workbench.nets import activations as act
 
+#: rows per forward pass of :meth:`Network.predict_raw` (bounds its temporary arrays)
+PREDICT_CHUNK = 8192
+
 #: per thread: the lockstep group (:mod:`workbench.nets.stacked`) this thread's fits
 #: hand their epochs to, if any
 LOCKSTEP = threading.local()
@@ -209,8 +212,23 @@ class Network:
             below = buf.output_ones
         raise ValueError("a network needs at least one layer")  # pragma: no cover
 
-    def predict_raw(self, X, chunk=8192):
-        """Forward pass allocating fresh arrays (used for predict / validation)."""
+    def predict_raw(self, X, chunk=PREDICT_CHUNK):
+        """Forward pass allocating fresh arrays (used for predict / validation).
+
+        Inside :func:`workbench.nets.stacked.run_in_lockstep` a fit's repeated predictions
+        of the same rows (its held-out or validation rows, once per epoch) are computed
+        for every network of the stack at once, right after their stacked epoch, and
+        handed out here when the network's parameters are still those they were
+        computed with; the same values (:meth:`predict_raw_alone`'s arithmetic)."""
+        group = getattr(LOCKSTEP, "group", None)
+        if group is not None and chunk == PREDICT_CHUNK:
+            hit = group.predicted(self, X)
+            if hit is not None:
+                return hit
+        return self.predict_raw_alone(X, chunk)
+
+    def predict_raw_alone(self, X, chunk=PREDICT_CHUNK):
+        """:meth:`predict_raw` for this network alone."""
         parts = []
         for start in range(0, X.shape[0], chunk):
             values = X[start:start + chunk]

@@ -30,7 +30,7 @@ from collections import deque
 
 import numpy as np
 
-from workbench.nets.network import LOCKSTEP, Network
+from workbench.nets.network import LOCKSTEP, PREDICT_CHUNK, Network
 from workbench.nets.optimizers import AdamOptimizer, SGDOptimizer
 
 __all__ = ["NetworkStack", "run_in_lockstep", "stack_key", "train_epoch_together"]
@@ -237,6 +237,32 @@ class NetworkStack:
         return losses
 
 
+    def predict_raw(self, X, chunk: int = PREDICT_CHUNK) -> np.ndarray:
+        """Each network's :meth:`workbench.nets.network.Network.predict_raw` of its own rows,
+        from the stack's parameters (as the last :meth:`train_epoch` left them).
+
+        ``X`` is ``(K, n, n_features)`` (no ones column), in the networks' float type;
+        returns ``(K, n, n_outputs)``. The same arithmetic on each network's slice as
+        the single network's pass, chunk by chunk: each layer's product per slice
+        (``np.matmul`` on a stack calls the single product's BLAS routine on each
+        slice), the intercept added, the activation applied element by element.
+        """
+        template = self.template
+        parts = []
+        for start in range(0, X.shape[1], chunk):
+            values = X[:, start:start + chunk]
+            for layer, block in zip(template.layers, self.blocks):
+                fan_in = layer.weights.shape[0]
+                pre = np.matmul(values, block[:, :fan_in])
+                pre += block[:, fan_in][:, None, :]
+                if layer.activation is None:
+                    values = template.head.apply_(pre)
+                else:
+                    values = layer.activation.apply_(pre, **layer.params)
+            parts.append(values)
+        return parts[0] if len(parts) == 1 else np.concatenate(parts, axis=1)
+
+
 def train_epoch_together(nets, optimizers, X, y, batch_size, alpha,
                          stack: NetworkStack | None = None) -> list[float]:
     """One epoch of ``K`` networks in one :class:`NetworkStack` (built when not given);
@@ -274,6 +300,14 @@ class _Lockstep:
         self.rounds = 0
         self.stacked_epochs = 0
         self.single_epochs = 0
+        # repeated predictions (Network.predict_raw) each member asks for every epoch:
+        # member -> the rows (at most two arrays: held-out rows, validation rows), and
+        # member -> {id(rows): (rows, net, parameters, predictions)} computed in the stack
+        self._watched: dict[int, list] = {}
+        self._training: set[int] = set()  # members that have handed in an epoch
+        self._prefetched: dict[int, dict] = {}
+        self._inputs: dict[tuple, tuple] = {}
+        self.predictions_stacked = 0
 
     def start(self, members: int):
         """Line the members up and give the first one the baton."""
@@ -285,6 +319,7 @@ class _Lockstep:
 
     def submit(self, net, optimizer, X, y, batch_size, alpha):
         me = LOCKSTEP.member
+        self._training.add(me)
         self._pending[me] = (net, optimizer, X, y, batch_size, alpha)
         self._pass(me, wait=True)
         result = self._results.pop(me)
@@ -293,7 +328,51 @@ class _Lockstep:
         return result
 
     def leave(self, me: int):
+        self._watched.pop(me, None)
+        self._prefetched.pop(me, None)
+        self._training.discard(me)
         self._pass(me, wait=False)
+
+    def predicted(self, net, X):
+        """The member's prediction of ``X`` computed in its stack after the last epoch, if
+        its network's parameters are still those it was computed with; else None (the
+        caller computes it alone), and ``X`` is noted for the next epochs when the member
+        is training (rows of the network's float type, at most two arrays per member)."""
+        me = getattr(LOCKSTEP, "member", None)
+        got = self._prefetched.get(me)
+        if got:
+            entry = got.pop(id(X), None)
+            if entry is not None and entry[0] is X and entry[1] is net \
+                    and np.array_equal(entry[2], net.theta):
+                return entry[3]
+        if me in self._training and isinstance(X, np.ndarray) and X.ndim == 2 \
+                and X.dtype == net.dtype and X.flags.c_contiguous:
+            watched = self._watched.setdefault(me, [])
+            if len(watched) < 2 and not any(w is X for w in watched):
+                watched.append(X)
+        return None
+
+    def _prefetch(self, stack, members, nets):
+        """Predict every member's watched rows in the stack (see :meth:`predicted`)."""
+        lists = [self._watched.get(m, []) for m in members]
+        for m in members:
+            self._prefetched[m] = {}
+        n = len(lists[0])
+        if n == 0 or any(len(rows) != n for rows in lists):
+            return
+        for slot in range(n):
+            arrays = [rows[slot] for rows in lists]
+            shape = arrays[0].shape
+            if shape[0] == 0 or any(a.shape != shape for a in arrays):
+                continue
+            key = (slot, tuple(members))
+            kept = self._inputs.get(key)
+            if kept is None or any(a is not b for a, b in zip(kept[0], arrays)):
+                kept = self._inputs[key] = (arrays, np.stack(arrays))
+            predictions = stack.predict_raw(kept[1])
+            for j, (m, net, X) in enumerate(zip(members, nets, arrays)):
+                self._prefetched[m][id(X)] = (X, net, net.theta.copy(), predictions[j])
+            self.predictions_stacked += len(members)
 
     def _pass(self, me: int, wait: bool):
         if not self._waiting and self._pending:
@@ -335,6 +414,11 @@ class _Lockstep:
                 losses = stack.train_epoch(nets, opts, np.stack([it[2] for it in items]),
                                            np.stack([it[3] for it in items]), batch_size, alpha)
                 self._results.update(zip(members, losses))
+                try:
+                    self._prefetch(stack, members, nets)
+                except Exception:  # a prediction the stack cannot make is made alone
+                    for m in members:
+                        self._prefetched.pop(m, None)
                 self.stacked_epochs += len(items)
             except Exception as exc:  # handed to each fit of the group, raised in its thread
                 for member in members:
@@ -390,4 +474,5 @@ def run_in_lockstep(functions) -> tuple[list, dict]:
         if exc is not None:
             raise exc
     return results, {"rounds": group.rounds, "stacked_epochs": group.stacked_epochs,
-                     "single_epochs": group.single_epochs}
+                     "single_epochs": group.single_epochs,
+                     "predictions_stacked": group.predictions_stacked}

@@ -11,7 +11,7 @@ Where trials run
   every core), each worker with a single BLAS thread, so nothing is
   oversubscribed. The pool stays warm between sweeps; the table goes to each
   worker once per sweep (a temporary file it reads on its first trial), and
-  work goes out one *trial* at a time, never more trials in flight than
+  work goes out one *task* at a time, never more tasks in flight than
   workers, so both cores stay busy to the end and a cancel is prompt.
 - On a Dask distributed cluster (``cluster="tcp://HOST:PORT"`` or a
   ``distributed.Client``): the table is scattered to the workers once
@@ -23,6 +23,22 @@ Where trials run
 
 A trial is a pure function of the table, its fold and its seed, so the scores
 are identical for the same plan whatever the number of jobs or the cluster.
+
+Tasks: trials run together
+--------------------------
+A task is a tuple of trials one worker runs together
+(:func:`workbench.sweep.trials.run_trials`): the folds of one repeat of a
+configuration whose networks can train in a stack (the NumPy engine; a table
+whose fits fit :data:`workbench.sweep.trials.STACK_BYTES`), else one trial
+(scikit-learn's MLP, the baselines, large tables). :func:`group_trials` makes
+them; with racing a task ends at every block of folds after which the race may
+look (:func:`look_positions`), so the race sees, decides and stops exactly as
+with single trials. Each trial of a task is stored (and announced) on its own
+as soon as the task returns; the results are those of trials run alone
+(``tests/test_sweep_stacked.py``). The first task of each worker is a single
+trial (:func:`first_trials`), so the first score shown comes as early as
+before. A cancel is seen between tasks; a task whose worker died is retried
+trial by trial, each alone. ``STACK = False`` sends every trial alone.
 
 Events
 ------
@@ -154,8 +170,10 @@ from workbench.sweep.trials import (
     FAILED,
     TrialData,
     describe_baseline,
-    run_trial,
-    run_trial_from_file,
+    run_trials,
+    run_trials_from_file,
+    stack_bytes,
+    stackable,
     target_codes,
 )
 
@@ -163,6 +181,9 @@ from workbench.sweep.trials import (
 RETRIES = 1
 #: seconds between checks of the cancel flag while trials run
 POLL_SECONDS = 0.2
+#: hand the folds of one configuration to a worker together, to train in a stack
+#: (:func:`workbench.sweep.trials.run_trials`); False: every trial alone (the same results)
+STACK = True
 
 
 @dataclass
@@ -347,13 +368,14 @@ def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, can
     if resume is not None and not todo and not todo_baselines and stopped:
         raise InputError(f"sweep {resume} has run every trial that racing left to run; its "
                          "results are stored, there is nothing left to run", setting="sweep")
+    tasks = group_trials(plan, todo, _stacks(plan, data)) if STACK else [(t,) for t in todo]
     if cluster is not None:
         executor = _DaskExecutor(cluster, data)
     elif backend == "inline":
         executor = _InlineExecutor(data)
     else:
         workers = min(int(jobs or default_jobs()), default_jobs())
-        executor = _LokyExecutor(workers, data, in_flight=len(todo) + len(todo_baselines))
+        executor = _LokyExecutor(workers, data, in_flight=len(tasks) + len(todo_baselines))
     rows = sweep_rows(plan, data.y, folds)
     try:
         if resume is not None:
@@ -397,8 +419,8 @@ def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, can
     try:
         # one network trial per worker first (the first score the user sees), then the
         # quick baselines, then the rest; the order changes no result (seeds are per trial)
-        first = max(1, int(executor.workers))
-        interrupted = run.execute(executor, todo[:first] + todo_baselines + todo[first:],
+        head, rest = first_trials(tasks, max(1, int(executor.workers)))
+        interrupted = run.execute(executor, head + [(t,) for t in todo_baselines] + rest,
                                   retries)
     except KeyboardInterrupt:
         run.cancel_running()
@@ -417,6 +439,82 @@ def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, can
     store.set_state(sweep_id, state)
     emit(run.finished_event(state, t0))
     return SweepOutcome(sweep_id, state, run.n_finished, run.n_todo, time.perf_counter() - t0)
+
+
+def look_positions(plan: SweepPlan) -> set[int]:
+    """The positions (in racing's order of blocks of folds, repeat-major) after which a
+    racing sweep may look; none without racing.
+
+    :mod:`workbench.sweep.racing`'s own ``look_positions(plan)`` when it has one; else
+    every block from ``Race.first`` (the end of the first repeat) on."""
+    if not plan.race:
+        return set()
+    from workbench.sweep import racing
+
+    own = getattr(racing, "look_positions", None)
+    if own is not None:
+        return {int(p) for p in own(plan)}
+    return set(range(int(racing.Race(plan).first), plan.folds * plan.repeats))
+
+
+def _stacks(plan: SweepPlan, data) -> set[int]:
+    """The configurations whose folds go out together: those that can train in a stack
+    (:func:`workbench.sweep.trials.stackable`) on a table whose fits of one repeat fit
+    the stacking budget (judged by the table's columns before one-hot encoding; the
+    worker checks the exact width and runs a group one trial at a time when it is over)."""
+    from workbench.sweep.trials import STACK_BYTES
+
+    rows, columns = data.X.shape
+    train_rows = rows - rows // plan.folds
+    if plan.folds < 2 or stack_bytes(train_rows, columns, plan.folds, plan.dtype) > STACK_BYTES:
+        return set()
+    return {c.index for c in plan.configurations()
+            if stackable({"config": c.to_dict()})}
+
+
+def group_trials(plan: SweepPlan, trials, stacks) -> list[tuple]:
+    """``trials`` (in the plan's order) as tasks, each a tuple of trials a worker runs
+    together (:func:`workbench.sweep.trials.run_trials`).
+
+    A configuration of ``stacks`` has its trials of one repeat in one task, unless
+    racing looks inside the repeat (:func:`look_positions`): a task then ends at each
+    look, so no task holds trials on both sides of a look and the race decides, and
+    stops, exactly as with one trial per task. Each task takes the place of its first
+    trial in the plan's order; every other trial is a task of its own.
+    """
+    K = plan.folds
+    looks = sorted(look_positions(plan))
+    tasks: list = []
+    open_groups: dict = {}  # (config, repeat, segment) -> the task's list of trials
+    for t in trials:
+        if t.config_index not in stacks:
+            tasks.append([t])
+            continue
+        pos = t.repeat * K + t.fold
+        key = (t.config_index, t.repeat, sum(1 for p in looks if p < pos))
+        group = open_groups.get(key)
+        if group is None:
+            group = open_groups[key] = []
+            tasks.append(group)
+        group.append(t)
+    return [tuple(task) for task in tasks]
+
+
+def first_trials(tasks, n: int) -> tuple[list, list]:
+    """``(head, rest)``: the first trial of each of the first ``n`` tasks as tasks of their
+    own (so that each worker's first result comes from one trial), and the rest in order."""
+    rest = list(tasks)
+    head = []
+    i = 0
+    while len(head) < n and i < len(rest):
+        task = rest[i]
+        head.append(task[:1])
+        if len(task) > 1:
+            rest[i] = task[1:]
+            i += 1
+        else:
+            rest.pop(i)
+    return head, rest
 
 
 def _mark_interrupted(store: Store, sweep_id: str) -> None:
@@ -439,6 +537,9 @@ class _Run:
         self.running = {}  # handle -> (trial, attempt)
         self.race = None  # a workbench.sweep.racing.Race when the plan races
         self.pending = collections.deque()  # (trial, attempt) not handed out yet
+
+    def specs(self, task, attempt):
+        return [self.spec(trial, attempt) for trial in task]
 
     def spec(self, trial, attempt):
         tr, te = self.folds[(trial.repeat, trial.fold)]
@@ -472,13 +573,14 @@ class _Run:
         c = max(means, key=lambda k: (means[k], -k))
         return c, means[c]
 
-    def started(self, trial, attempt):
-        if self.is_baseline(trial.config_index):
-            return
-        self.emit({"type": "trial_started", "sweep_id": self.sweep_id,
-                   "config_index": trial.config_index, "repeat": trial.repeat,
-                   "fold": trial.fold, "attempt": attempt,
-                   "label": self.configs[trial.config_index].label, "time": time.time()})
+    def started(self, task, attempt):
+        for trial in task:
+            if self.is_baseline(trial.config_index):
+                continue
+            self.emit({"type": "trial_started", "sweep_id": self.sweep_id,
+                       "config_index": trial.config_index, "repeat": trial.repeat,
+                       "fold": trial.fold, "attempt": attempt,
+                       "label": self.configs[trial.config_index].label, "time": time.time()})
 
     def finished(self, res):
         try:
@@ -508,10 +610,10 @@ class _Run:
         for rec in self.race.look():
             c = rec["config_index"]
             self.store.add_stopped(self.sweep_id, rec)
-            before = len(self.pending)
-            self.pending = collections.deque((t, a) for t, a in self.pending
-                                             if t.config_index != c)
-            skipped = before - len(self.pending)
+            before = sum(len(task) for task, _ in self.pending)
+            self.pending = collections.deque((task, a) for task, a in self.pending
+                                             if task[0].config_index != c)
+            skipped = before - sum(len(task) for task, _ in self.pending)
             self.n_todo -= skipped
             self.emit({"type": "configuration_stopped", "sweep_id": self.sweep_id,
                        "config_index": c, "label": self.configs[c].label,
@@ -535,7 +637,7 @@ class _Run:
                    "time": time.time()})
 
     def cancel_running(self):
-        for trial, _attempt in list(self.running.values()):
+        for trial in [t for task, _attempt in self.running.values() for t in task]:
             if self.is_baseline(trial.config_index):
                 continue
             self._emit_finished({"config_index": trial.config_index, "repeat": trial.repeat,
@@ -560,9 +662,10 @@ class _Run:
                 "history": {}, "health": {}}
 
     def execute(self, executor, todo, retries) -> bool:
-        """Run ``todo``; True when cancelled before the end."""
-        self.pending = collections.deque((t, 1) for t in todo)
-        suspects = collections.deque()  # retries after a worker death, run alone
+        """Run ``todo`` (tasks: tuples of trials run together); True when cancelled
+        before the end."""
+        self.pending = collections.deque((tuple(task), 1) for task in todo)
+        suspects = collections.deque()  # retries after a worker death, run alone, one by one
         if self.race is not None:
             self.race_look()  # a resumed race: replay the looks, record any not recorded
         while self.pending or suspects or self.running:
@@ -572,15 +675,17 @@ class _Run:
             self._fill(executor, suspects)
             # a trial that finished is stored even when a cancel came meanwhile
             to_store = []
-            for handle, outcome, error in executor.wait(list(self.running), POLL_SECONDS):
-                trial, attempt = self.running.pop(handle)
+            for handle, outcomes, error in executor.wait(list(self.running), POLL_SECONDS):
+                task, attempt = self.running.pop(handle)
                 if error is None:
-                    outcome["attempts"] = attempt
-                    to_store.append(outcome)
+                    for outcome in outcomes:
+                        outcome["attempts"] = attempt
+                        to_store.append(outcome)
                 elif attempt <= retries:
-                    suspects.append((trial, attempt + 1))
+                    # each trial of a lost task again, alone (a group may have been too big)
+                    suspects.extend(((trial,), attempt + 1) for trial in task)
                 else:
-                    to_store.append(self.lost(trial, attempt, error))
+                    to_store.extend(self.lost(trial, attempt, error) for trial in task)
             if to_store and executor.asynchronous and not self.cancel.is_set():
                 # hand the idle workers new trials before the commit, so they never wait for it
                 self._fill(executor, suspects)
@@ -594,14 +699,14 @@ class _Run:
             if suspects:
                 if self.running:
                     return
-                trial, attempt = suspects.popleft()
+                task, attempt = suspects.popleft()
             elif self.pending:
-                trial, attempt = self.pending.popleft()
+                task, attempt = self.pending.popleft()
             else:
                 return
-            handle = executor.submit(self.spec(trial, attempt))
-            self.running[handle] = (trial, attempt)
-            self.started(trial, attempt)
+            handle = executor.submit(self.specs(task, attempt))
+            self.running[handle] = (task, attempt)
+            self.started(task, attempt)
             if attempt > 1:
                 return
 
@@ -619,9 +724,9 @@ class _InlineExecutor:
         self._results = {}
         self._n = 0
 
-    def submit(self, spec):
+    def submit(self, specs):
         self._n += 1
-        self._results[self._n] = run_trial(self.data, spec)
+        self._results[self._n] = run_trials(self.data, specs)
         return self._n
 
     def wait(self, handles, timeout):
@@ -747,12 +852,12 @@ class _LokyExecutor:
             self._pool = _warm_pool(self.pool_size)
         return self._pool
 
-    def submit(self, spec):
+    def submit(self, specs):
         try:
-            return self._ensure().submit(run_trial_from_file, self._token, self._path, spec)
+            return self._ensure().submit(run_trials_from_file, self._token, self._path, specs)
         except Exception:  # a warm pool broken while idle (a worker killed): start afresh
             self._stop_pool()
-            return self._ensure().submit(run_trial_from_file, self._token, self._path, spec)
+            return self._ensure().submit(run_trials_from_file, self._token, self._path, specs)
 
     def wait(self, handles, timeout):
         from concurrent.futures import FIRST_COMPLETED, wait
@@ -910,10 +1015,11 @@ class _DaskExecutor:
         self.data_future = self.client.scatter(data, broadcast=True, hash=False)
         self._live = set()
 
-    def submit(self, spec):
-        key = (f"workbench-trial-{spec['config']['index']}-{spec['repeat']}-{spec['fold']}-"
-               f"{spec['attempt']}-{secrets.token_hex(4)}")
-        fut = self.client.submit(run_trial, self.data_future, spec, key=key, pure=False)
+    def submit(self, specs):
+        spec = specs[0]
+        key = (f"workbench-trials-{spec['config']['index']}-{spec['repeat']}-{spec['fold']}-"
+               f"{len(specs)}-{spec['attempt']}-{secrets.token_hex(4)}")
+        fut = self.client.submit(run_trials, self.data_future, specs, key=key, pure=False)
         self._live.add(fut)
         return fut
 

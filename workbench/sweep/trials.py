@@ -631,10 +631,18 @@ def run_trial(data: TrialData, spec: dict) -> dict:
         worker, predictions`` (``predictions``: the out-of-fold predictions,
         see the module docstring; None unless the status is ``done``).
     """
-    from threadpoolctl import threadpool_limits
+    result = _new_result(spec)
+    with one_blas_thread(), warnings.catch_warnings(), \
+            np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
+        warnings.simplefilter("ignore")
+        _guarded(data, spec, result)
+    return result
 
+
+def _new_result(spec: dict) -> dict:
+    """A trial's result before it runs (a failure until it succeeds)."""
     cfg = spec["config"]
-    result = {
+    return {
         "config_index": int(cfg["index"]), "repeat": int(spec["repeat"]),
         "fold": int(spec["fold"]), "status": FAILED, "test_score": None,
         "train_score": None, "fit_seconds": None, "epochs": None, "engine": cfg["engine"],
@@ -643,22 +651,128 @@ def run_trial(data: TrialData, spec: dict) -> dict:
         "n_train": len(spec["train"]), "n_test": len(spec["test"]),
         "worker": f"{socket.gethostname()}:{os.getpid()}", "predictions": None,
     }
+
+
+def _guarded(data: TrialData, spec: dict, result: dict) -> None:
+    """:func:`_fit_and_score` with any error recorded in ``result``, never raised."""
     try:
-        with threadpool_limits(limits=1), warnings.catch_warnings(), \
-                np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
-            warnings.simplefilter("ignore")
-            _fit_and_score(data, spec, result)
+        _fit_and_score(data, spec, result)
     except Exception as exc:  # recorded, never raised: one trial must not end the sweep
         result["status"] = FAILED
         result["error"] = f"{type(exc).__name__}: {exc}".strip()
         result["traceback"] = traceback.format_exc(limit=6)
-    return result
+
+
+#: this process's threadpoolctl controller (finding the loaded BLAS / OpenMP libraries
+#: takes about 10 ms, once instead of once per trial)
+_CONTROLLER: list = []
+
+
+def one_blas_thread():
+    """A context in which BLAS and OpenMP use one thread (threadpoolctl), as every trial runs.
+
+    The libraries are looked up once per process, after scikit-learn's metrics (and
+    with them SciPy and the OpenMP runtime) are imported, so that every library a trial
+    uses is loaded by then."""
+    import sklearn.metrics  # noqa: F401 - loads what trials use before the lookup
+    from threadpoolctl import ThreadpoolController
+
+    if not _CONTROLLER:
+        _CONTROLLER.append(ThreadpoolController())
+    return _CONTROLLER[0].limit(limits=1)
+
+
+# --------------------------------------------------------------------------- trials together
+
+#: a group's stacked training copies may take at most this many bytes (each member's
+#: rows with the ones column in the network's float type, held by its fit, by its
+#: epoch's shuffled rows and by the stack, plus its float64 fold features); above it
+#: the group's trials run one after another. A choice: it keeps stacking to tables
+#: where a fit's arrays are small next to a worker's base (the kiln table needs 4 MB),
+#: so that a worker's peak on a large table is that of one fit.
+STACK_BYTES = 32 * 2**20
+
+
+def stack_bytes(rows: int, features: int, k: int, dtype="float32") -> int:
+    """The memory :data:`STACK_BYTES` bounds for ``k`` fits of ``rows`` x ``features``."""
+    item = np.dtype(dtype).itemsize
+    return int(k) * int(rows) * (int(features) + 1) * (8 + 3 * item)
+
+
+def stackable(spec: dict) -> bool:
+    """Whether a trial's network can train in a stack (the NumPy engine's networks; not
+    scikit-learn's MLP, not a baseline)."""
+    cfg = spec["config"]
+    return cfg.get("kind") != "baseline" and cfg.get("engine") != "sklearn"
+
+
+def run_trials(data: TrialData, specs) -> list[dict]:
+    """Run a group of trials of one configuration (e.g. the folds of one repeat) together;
+    their results in order, each exactly what :func:`run_trial` returns for it alone.
+
+    When every trial can stack (:func:`stackable`) and the group fits
+    :data:`STACK_BYTES`, the trials run in lockstep
+    (:func:`workbench.nets.stacked.run_in_lockstep`): each in a thread of its own, one
+    thread at a time, their networks' epochs trained in one stack and their per-epoch
+    held-out predictions computed for all of them at once; everything else each trial
+    does as alone, with its own seed, stopping rule and bookkeeping, so the scores,
+    histories, health and out-of-fold predictions are those of separate runs
+    (``tests/test_sweep_stacked.py``). ``fit_seconds`` is then the group's fitting time
+    shared equally among its trials (their fits interleave). Otherwise the trials run
+    one after another.
+    """
+    specs = list(specs)
+    if len(specs) < 2 or not all(stackable(s) for s in specs) or \
+            len({int(s["config"]["index"]) for s in specs}) != 1:
+        return [run_trial(data, s) for s in specs]
+    results = [_new_result(s) for s in specs]
+    with one_blas_thread(), warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # process-wide: set once here, not in each thread
+        if not _fits_stack_budget(data, specs):
+            for spec, result in zip(specs, results):
+                with np.errstate(over="ignore", invalid="ignore", divide="ignore",
+                                 under="ignore"):
+                    _guarded(data, spec, result)
+            return results
+        from workbench.nets.stacked import run_in_lockstep
+
+        def member(spec, result):
+            def run():
+                # NumPy's error state is per thread: each member sets its own
+                with np.errstate(over="ignore", invalid="ignore", divide="ignore",
+                                 under="ignore"):
+                    _guarded(data, spec, result)
+            return run
+
+        run_in_lockstep([member(s, r) for s, r in zip(specs, results)])
+    for result in results:
+        if result["fit_seconds"] is not None:
+            result["fit_seconds"] /= len(results)
+    return results
+
+
+def _fits_stack_budget(data: TrialData, specs) -> bool:
+    """Whether the group's fits fit :data:`STACK_BYTES` (the fold features' width read
+    from the first trial's fold, which its trial then takes from the cache)."""
+    from workbench.data.preprocessing import build_preprocessor
+
+    spec = specs[0]
+    try:
+        X_tr, _ = _fold_features(data, spec, build_preprocessor(data.profile, data.target),
+                                 np.asarray(spec["train"]), np.asarray(spec["test"]))
+    except Exception:  # the trials will meet it (and record it) themselves
+        return False
+    rows = max(len(s["train"]) for s in specs)
+    return stack_bytes(rows, X_tr.shape[1], len(specs), spec.get("dtype", "float32")) \
+        <= STACK_BYTES
 
 
 #: fitted fold features kept per worker: {(token, repeat, fold): (X_train, X_test)}
 _FOLD_CACHE: collections.OrderedDict = collections.OrderedDict()
-#: how many folds' features a worker keeps (trials go out fold by fold, so a few suffice)
-FOLD_CACHE_SIZE = 3
+#: how many folds' features a worker keeps: every fold of a repeat, since a group of
+#: trials (:func:`run_trials`) runs one configuration on each fold of a repeat and the
+#: next group the next configuration on the same folds (the plan's folds are at most 20)
+FOLD_CACHE_SIZE = 20
 #: ... and how many bytes: beyond the most recent fold, older folds are kept only while
 #: all of them (and the next one, judged by the last one's size) fit in this budget. On
 #: a large table a worker then holds one fold's features, not three; a fold's
@@ -829,3 +943,12 @@ def run_trial_from_file(token: str, path: str, spec: dict) -> dict:
         _WORKER_DATA.clear()
         data = _WORKER_DATA[token] = load_worker_data(path)
     return run_trial(data, spec)
+
+
+def run_trials_from_file(token: str, path: str, specs) -> list[dict]:
+    """:func:`run_trials` in a pool worker (the table read as by :func:`run_trial_from_file`)."""
+    data = _WORKER_DATA.get(token)
+    if data is None:
+        _WORKER_DATA.clear()
+        data = _WORKER_DATA[token] = load_worker_data(path)
+    return run_trials(data, specs)

@@ -1,0 +1,176 @@
+"""Trials run together (the folds of one configuration in a stack) give the results of
+trials run alone, and the runner groups them without changing what a sweep stores.
+
+Reference: the single fit itself -- :func:`workbench.sweep.trials.run_trial` for one
+trial alone, and a sweep with ``runner.STACK = False`` (every trial a task of its own)
+-- compared value for value and byte for byte: scores, epochs, every history list, the
+health, and the out-of-fold predictions.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from workbench.nets import stacked as S
+from workbench.sweep import runner
+from workbench.sweep import trials as T
+from workbench.sweep.plan import Trial, build_plan
+from workbench.sweep.runner import load_data, run_sweep
+from workbench.sweep.store import Store
+
+SAMPLES = Path(__file__).resolve().parents[1] / "sample_sets"
+pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
+
+
+def _group(table, target, folds=4, config=0, **options):
+    options.setdefault("layers", ["8"])
+    plan = build_plan(SAMPLES / table, target, folds=folds, repeats=1, epochs=12, **options)
+    data, _ = load_data(plan)
+    split = plan.fold_indices(data.y)
+    c = (plan.configurations() + plan.baseline_configurations())[config]
+    specs = [{"config": c.to_dict(), "repeat": 0, "fold": f,
+              "train": split[(0, f)][0].astype(np.int32),
+              "test": split[(0, f)][1].astype(np.int32),
+              "random_state": plan.model_seed(0, f), "task": plan.task, "metric": plan.metric,
+              "epochs": plan.epochs, "early_stopping": plan.early_stopping,
+              "batch_size": plan.batch_size, "dtype": plan.dtype} for f in range(folds)]
+    return data, specs
+
+
+def _record(res):
+    """Everything a trial stores but its timing and worker."""
+    pred = res["predictions"]
+    return (res["config_index"], res["repeat"], res["fold"], res["status"], res["error"],
+            res["test_score"], res["train_score"], res["epochs"], res["n_train"],
+            res["n_test"], {k: v for k, v in res["history"].items()}, res["health"],
+            None if pred is None else (pred.shape, hashlib.sha1(pred.tobytes()).hexdigest()))
+
+
+class _Counting:
+    """Counts the epochs trained in stacks and the predictions made in them."""
+
+    def __init__(self, monkeypatch):
+        self.counts = []
+        real = S.run_in_lockstep
+
+        def counted(functions):
+            out, counts = real(functions)
+            self.counts.append(counts)
+            return out, counts
+        monkeypatch.setattr(S, "run_in_lockstep", counted)
+
+
+@pytest.mark.parametrize("table,target,options", [
+    # binary, logistic head, ROC AUC per epoch; 2,500 rows in 4 equal folds
+    ("kiln_batches.csv", "passes_inspection", {"hidden": "relu", "alphas": ["0.001"]}),
+    # regression (scaled target, R^2 per epoch), two hidden layers, early stopping
+    ("seed_germination.csv", "germinated_share",
+     {"hidden": "tanh", "layers": ["6,5"], "early_stopping": True}),
+    # multiclass softmax, folds of unequal size (some stack, the odd one trains alone)
+    ("coffee_roast.csv", "roast_grade", {"hidden": "gelu"}),
+])
+def test_a_stacked_group_gives_each_trials_own_results(monkeypatch, table, target, options):
+    folds = 3 if table == "coffee_roast.csv" else 4
+    data, specs = _group(table, target, folds=folds, **options)
+    counting = _Counting(monkeypatch)
+    together = T.run_trials(data, [dict(s) for s in specs])
+    T._FOLD_CACHE.clear()
+    alone = [T.run_trial(data, dict(s)) for s in specs]
+    assert counting.counts and counting.counts[0]["stacked_epochs"] > 0  # it did stack
+    assert counting.counts[0]["predictions_stacked"] > 0  # and predicted held-out rows
+    assert all(r["status"] == "done" for r in alone), [r["error"] for r in alone]
+    assert all(r["history"]["test_score"] for r in alone)
+    for a, b in zip(together, alone):
+        assert _record(a) == _record(b)
+
+
+def test_groups_that_cannot_stack_run_alone_with_the_same_results(monkeypatch):
+    """scikit-learn's MLP, baselines and a group over the memory budget run one by one."""
+    counting = _Counting(monkeypatch)
+    for config, options in ((0, {"hidden": "relu", "engine": "sklearn"}),
+                            (1, {"hidden": "relu"})):  # config 1: the constant baseline
+        data, specs = _group("kiln_batches.csv", "passes_inspection", folds=3,
+                             config=config, **options)
+        assert not T.stackable(specs[0])
+        got = T.run_trials(data, [dict(s) for s in specs])
+        assert [_record(r) for r in got] == [_record(T.run_trial(data, dict(s)))
+                                             for s in specs]
+    data, specs = _group("kiln_batches.csv", "passes_inspection", folds=3, hidden="relu")
+    monkeypatch.setattr(T, "STACK_BYTES", 1)
+    got = T.run_trials(data, [dict(s) for s in specs])
+    assert counting.counts == []  # nothing ran in lockstep
+    assert [_record(r) for r in got] == [_record(T.run_trial(data, dict(s))) for s in specs]
+
+
+def test_a_stacked_sweep_stores_what_an_unstacked_sweep_stores(tmp_path, monkeypatch):
+    """The whole runner (two processes, groups of folds, the first trial per worker alone,
+    baselines between): the same stored trials, histories and out-of-fold predictions
+    as with every trial sent alone."""
+    plan = build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection", hidden="relu,tanh",
+                      layers=["8"], folds=3, repeats=2, epochs=6)
+    sent = []
+    real_submit = runner._LokyExecutor.submit
+
+    def submit(self, specs):
+        sent.append(len(specs))
+        return real_submit(self, specs)
+    monkeypatch.setattr(runner._LokyExecutor, "submit", submit)
+    results = {}
+    for stack in (True, False):
+        monkeypatch.setattr(runner, "STACK", stack)
+        path = tmp_path / f"s{stack}.sqlite"
+        with Store(path) as st:
+            out = run_sweep(plan, store=st, jobs=2)
+            assert out.state == "finished" and out.n_finished == plan.n_trials
+            trials = st.trials(out.sweep_id, with_history=True)
+            oof = {(t["config_index"], t["repeat"], t["fold"]): hashlib.sha1(
+                st.trial_predictions(out.sweep_id, t["config_index"], t["repeat"],
+                                     t["fold"])[1].tobytes()).hexdigest() for t in trials}
+        keep = ("config_index", "repeat", "fold", "status", "test_score", "train_score",
+                "epochs", "history", "health", "n_train", "n_test")
+        results[stack] = (sorted(tuple(repr(t[k]) for k in keep) for t in trials), oof)
+        if stack:
+            assert max(sent) == plan.folds  # the folds of one repeat went out together
+            sent.clear()
+        else:
+            assert set(sent) == {1}
+    assert results[True][0] == results[False][0]
+    assert results[True][1] == results[False][1]
+    assert len(results[True][1]) == plan.n_trials
+
+
+def test_groups_never_straddle_a_racing_look():
+    plan = build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection", hidden="relu,tanh",
+                      layers=["8"], folds=3, repeats=3, epochs=3)
+    trials = plan.trials()
+    every = set(range(plan.n_configurations))
+    plain = runner.group_trials(plan, trials, every)
+    assert sorted(t.key for task in plain for t in task) == sorted(t.key for t in trials)
+    assert all(len({(t.config_index, t.repeat) for t in task}) == 1 for task in plain)
+    assert max(len(task) for task in plain) == plan.folds
+    plan.race = True
+    looks = runner.look_positions(plan)
+    assert looks == set(range(plan.folds - 1, plan.folds * plan.repeats))  # racing's rule
+    raced = runner.group_trials(plan, trials, every)
+    assert sorted(t.key for task in raced for t in task) == sorted(t.key for t in trials)
+    for task in raced:
+        positions = [t.repeat * plan.folds + t.fold for t in task]
+        assert not any(p in looks for p in positions[:-1])  # a look only after its last
+    # the first repeat up to the first look goes together; later blocks one by one
+    assert [len(t) for t in raced if t[0].repeat == 0] == [plan.folds] * plan.n_configurations
+    assert {len(t) for t in raced if t[0].repeat > 0} == {1}
+    # not stackable: one trial per task, in the plan's order
+    assert runner.group_trials(plan, trials, set()) == [(t,) for t in trials]
+
+
+def test_the_first_task_of_each_worker_is_one_trial():
+    a, b = (Trial(0, 0, 0), Trial(0, 0, 1)), (Trial(1, 0, 0), Trial(1, 0, 1))
+    head, rest = runner.first_trials([a, b, (Trial(2, 0, 0),)], 2)
+    assert head == [(Trial(0, 0, 0),), (Trial(1, 0, 0),)]
+    assert rest == [(Trial(0, 0, 1),), (Trial(1, 0, 1),), (Trial(2, 0, 0),)]
+    head, rest = runner.first_trials([(Trial(0, 0, 0),), b], 2)
+    assert head == [(Trial(0, 0, 0),), (Trial(1, 0, 0),)] and rest == [(Trial(1, 0, 1),)]
