@@ -162,3 +162,79 @@ def test_export_of_the_recommended_configuration_reads_the_results_once(stored, 
     assert main(["export", sid, "--store", str(d / "s.sqlite"), "--to", str(d / "once"),
                  "--formats", "json", "--quiet"]) == 0
     assert calls == [sid]
+
+
+_SWEEP_PROBE = textwrap.dedent("""
+    import json, sys
+    from workbench.cli import main
+    from workbench.errors import InputError
+    from workbench.sweep import pool, runner
+
+    calls = []
+    pool.prestart = lambda workers, staggered=False: calls.append(["prestart", workers, staggered])
+    pool.open_gate = lambda: calls.append(["open_gate"])
+
+    def run_sweep(plan, **kw):  # the first trial would be handed out from here on
+        calls.append(["run_sweep", plan.target,
+                      sorted(m for m in ("workbench.sweep.results", "workbench.sweep.bbc",
+                                         "workbench.sweep.verdict") if m in sys.modules)])
+        raise InputError("stopped by the test")
+
+    runner.run_sweep = run_sweep
+    rc = main(sys.argv[1:])
+    print(json.dumps({"rc": rc, "calls": calls}))
+""")
+
+
+def test_sweep_starts_a_staggered_pool_and_opens_its_gate_before_the_first_trial(tmp_path):
+    """`workbench sweep`: the workers start first (staggered), the gate opens once the plan is
+    built and before the sweep runs, and the ranking's modules are not loaded before it."""
+    from pathlib import Path
+
+    table = Path(__file__).resolve().parents[1] / "sample_sets" / "kiln_batches.csv"
+    proc = subprocess.run([sys.executable, "-c", _SWEEP_PROBE, "sweep", str(table), "--target",
+                           "passes_inspection", "--jobs", "1", "--store",
+                           str(tmp_path / "s.sqlite"), "--quiet"],
+                          capture_output=True, text=True, timeout=300)
+    got = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert got["rc"] == 2 and "stopped by the test" in proc.stderr
+    assert got["calls"] == [["prestart", 1, True], ["open_gate"],
+                            ["run_sweep", "passes_inspection", []]]
+
+
+def test_the_start_up_timeline_is_written_only_when_asked_and_in_order(tmp_path, monkeypatch,
+                                                                      capsys):
+    """WORKBENCH_TIMELINE=1: the parent's steps in order, on one clock, and the worker's own
+    lines (another process); without it, no timeline line at all."""
+    import os
+
+    import numpy as np
+    import pandas as pd
+
+    from workbench.sweep import pool
+
+    monkeypatch.delenv("WORKBENCH_TIMELINE", raising=False)
+    pool.mark("anything")
+    assert capsys.readouterr().err == ""
+    x = np.random.default_rng(0).normal(size=(60, 2))
+    pd.DataFrame({"a": x[:, 0], "b": x[:, 1], "y": x[:, 0] > 0}).to_csv(tmp_path / "t.csv",
+                                                                         index=False)
+    env = {k: v for k, v in os.environ.items() if not k.startswith("WORKBENCH_TIMELINE")}
+    proc = subprocess.run([sys.executable, "-m", "workbench", "sweep", str(tmp_path / "t.csv"),
+                           "--target", "y", "--hidden", "relu", "--layers", "2", "--folds", "2",
+                           "--repeats", "1", "--epochs", "2", "--jobs", "1", "--quiet",
+                           "--store", str(tmp_path / "s.sqlite")],
+                          env={**env, "WORKBENCH_TIMELINE": "1"}, capture_output=True, text=True,
+                          timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    lines = [line.split(maxsplit=3)[1:] for line in proc.stderr.splitlines()
+             if line.startswith("timeline ")]
+    parent = lines[0][1]
+    steps = [(float(t), what) for t, pid, what in lines if pid == parent]
+    assert [what for _, what in steps] == [
+        "sweep command started", "workers started", "parent imports done",
+        "plan built (table read)", "sweep stored, trials about to be handed out",
+        "first trial handed to a worker", "first trial stored"]
+    assert [t for t, _ in steps] == sorted(t for t, _ in steps) and steps[0][0] >= 0
+    worker = [what for t, pid, what in lines if pid != parent]
+    assert worker[:2] == ["worker started", "worker imports done"]  # alone: no gate to wait at

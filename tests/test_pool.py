@@ -4,6 +4,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 from workbench.sweep import pool, runner
 
 
@@ -46,3 +48,59 @@ def test_a_sweep_without_its_table_or_target_refuses_before_starting_any_worker(
                              text=True, check=True)
         assert out.stdout.split() == ["2", "False", "False"], out
         assert out.stderr.startswith("workbench: " + words) and out.stderr.count("\n") == 1
+
+
+_GATE_PROBE = """
+import json, os, sys, threading
+from workbench.sweep import pool
+
+seen = []
+
+class Gate:  # records what was loaded when the worker waited, and for how long it would
+    def wait(self, timeout):
+        seen.append({"timeout": timeout,
+                     "loaded": [m for m in pool.TRIAL_MODULES if m in sys.modules]})
+        return True
+
+first = threading.Semaphore(int(sys.argv[1]))  # 1: this worker is the first, 0: a later one
+pool._start_worker(os.getppid(), Gate(), first)  # watches the test process
+print(json.dumps({"waits": seen,
+                  "loaded": sorted(m for m in pool.TRIAL_MODULES if m in sys.modules)}))
+"""
+
+
+@pytest.mark.parametrize("is_first", [1, 0])
+def test_a_staggered_pools_later_workers_wait_for_the_gate_before_importing(is_first):
+    import json
+
+    out = subprocess.run([sys.executable, "-c", _GATE_PROBE, str(is_first)], capture_output=True,
+                         text=True, check=True, timeout=300)
+    got = json.loads(out.stdout)
+    assert got["loaded"] == sorted(pool.TRIAL_MODULES)  # imported in the end, either way
+    if is_first:
+        assert got["waits"] == []  # the first worker imports at once
+    else:  # a later one waits for the gate first, with nothing of the trial's loaded yet
+        assert got["waits"] == [{"timeout": pool.GATE_SECONDS, "loaded": []}]
+
+
+def test_open_gate_opens_the_staggered_pools_gate_and_the_first_worker_is_not_held_back():
+    if runner._POOL:
+        pool._drop_pool(runner._POOL["executor"])
+    pool.prestart(2, staggered=True)
+    ex = runner._warm_pool(2)  # the sweep's call: the same pool, reused
+    gate = pool._POOL["gate"]
+    assert runner._POOL["executor"] is ex and not gate.is_set()
+    # the first worker is not held back: a job runs (trial modules loaded) before the gate
+    assert ex.submit(_loaded, pool.TRIAL_MODULES).result(timeout=120) == list(pool.TRIAL_MODULES)
+    pool.open_gate()
+    assert gate.is_set()
+    pool._drop_pool(ex)
+
+
+def test_an_unstaggered_pool_has_no_gate():
+    if runner._POOL:
+        pool._drop_pool(runner._POOL["executor"])
+    ex = runner._warm_pool(1)
+    assert pool._POOL["gate"] is None
+    pool.open_gate()  # nothing to open: no error
+    pool._drop_pool(ex)

@@ -313,6 +313,29 @@ class _sigterm_as_interrupt:
             signal.signal(signal.SIGTERM, self._old)
 
 
+def _timed(on_event):
+    """``on_event`` that also marks the sweep's start, its first trial handed out and its
+    first trial stored on the start-up timeline (:func:`workbench.sweep.pool.mark`)."""
+    import os
+
+    from workbench.sweep.pool import TIMELINE_ENV, mark
+
+    if not os.environ.get(TIMELINE_ENV):
+        return on_event
+    seen = set()
+
+    def timed(ev):
+        kind = ev["type"]
+        if kind in ("sweep_started", "trial_started", "trial_finished") and kind not in seen:
+            seen.add(kind)
+            mark({"sweep_started": "sweep stored, trials about to be handed out",
+                  "trial_started": "first trial handed to a worker",
+                  "trial_finished": "first trial stored"}[kind])
+        on_event(ev)
+
+    return timed
+
+
 def _missing_table_or_target(args) -> None:
     if args.file is None:
         raise InputError("name the table: workbench sweep FILE --target COL "
@@ -324,19 +347,26 @@ def _missing_table_or_target(args) -> None:
 def run(args) -> int:
     if args.resume is None and (args.file is None or args.target is None):
         _missing_table_or_target(args)  # one line, before anything is started
+    from workbench.sweep.pool import mark, open_gate
+
+    mark("sweep command started")
     if args.cluster is None and (args.jobs is None or args.jobs >= 1):
-        # the workers start (and import what trials need) while this process reads the table
+        # the workers start (and import what trials need) while this process reads the
+        # table; staggered: one worker imports now, the others once this process has done
+        # its own imports (three importers on two cores would make each of them later)
         from workbench.sweep.pool import default_jobs, prestart
 
-        prestart(min(int(args.jobs or default_jobs()), default_jobs()))
-    from workbench.commands.show import format_results
+        prestart(min(int(args.jobs or default_jobs()), default_jobs()), staggered=True)
+        mark("workers started")
+    # only what the sweep needs before its first trial; the ranking's modules
+    # (workbench.sweep.results, workbench.commands.show) come after the sweep
     from workbench.data.profiling import parse_roles
     from workbench.sweep.bayes import check_rope
     from workbench.sweep.plan import build_plan
-    from workbench.sweep.results import sweep_results
     from workbench.sweep.runner import run_sweep
     from workbench.sweep.store import Store
 
+    mark("parent imports done")
     rope = None if args.rope is None else check_rope(args.rope)  # refused before any trial
     if args.resume is None:
         plan = build_plan(args.file, args.target, hidden=args.hidden, output=args.output,
@@ -350,6 +380,7 @@ def run(args) -> int:
             print(f"workbench: head {head} left out: {why}", file=sys.stderr)
         for head, why in plan.head_warnings.items():
             print(f"workbench: note on head {head}: {why}", file=sys.stderr)
+        mark("plan built (table read)")
     else:
         if args.file is not None or args.target is not None or args.kind or args.role:
             raise InputError("--resume takes the table and plan from the store; drop FILE, "
@@ -363,11 +394,13 @@ def run(args) -> int:
     jobs = _capped_jobs(args.jobs)
     progress = Progress(quiet=args.quiet)
     store = Store(args.store)
+    open_gate()  # this process's imports are done: the held-back workers may import now
     try:
         try:
             with _sigterm_as_interrupt():
                 outcome = run_sweep(plan, store=store, resume=args.resume, jobs=jobs,
-                                    cluster=args.cluster, on_event=progress, table=args.table)
+                                    cluster=args.cluster, on_event=_timed(progress),
+                                    table=args.table)
         except InputError as exc:
             if args.resume is not None and exc.setting == "table":
                 # here the table is set with --table, not with the FILE argument
@@ -382,12 +415,16 @@ def run(args) -> int:
             else:
                 print("\nworkbench: cancelled", file=sys.stderr)
             return EXIT_CANCELLED
+        from workbench.sweep.results import sweep_results
+
         res = sweep_results(store, outcome.sweep_id, holm=args.holm, rope=rope)
     finally:
         store.close()
     if args.json:
         _write_json(res, args.json)
     if args.json != "-":
+        from workbench.commands.show import format_results
+
         print(format_results(res))
     if outcome.state != "finished":
         print(f"workbench: sweep {outcome.sweep_id} interrupted; finish it with: "

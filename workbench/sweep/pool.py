@@ -5,11 +5,27 @@ starts the workers (:func:`prestart`) before it reads the table and builds the
 plan, and each new worker imports what a trial needs (:func:`_start_worker`)
 while the parent is still busy, so the first trial does not wait for a cold
 interpreter.
+
+Staggered start (``prestart(..., staggered=True)``, what ``workbench sweep`` uses):
+the parent, too, spends its first second or two importing NumPy, pandas and
+scikit-learn. With every worker importing at the same moment, three or more
+processes share the cores and each of them, the first trial's worker included,
+is ready later (on 2 cores: 3 importers for 2 cores). So the first worker to
+start imports at once and the others wait for :func:`open_gate` (the parent
+calls it when its own imports and the table read are done; at most
+:data:`GATE_SECONDS`), then import. Which worker runs which trial, and so the
+results, does not change: only when the modules are loaded does.
+
+Timeline (measurement): with ``WORKBENCH_TIMELINE=1`` in the environment the
+parent and each worker write ``timeline <seconds since the parent started>
+<pid> <event>`` lines to stderr (:func:`mark`): the worker's start and its imports
+here, the parent's steps in :mod:`workbench.commands.sweep`.
 """
 
 from __future__ import annotations
 
 import os
+import sys
 import threading
 import time
 
@@ -24,10 +40,42 @@ _THREAD_ENV = {v: "1" for v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_
 #: the sweep's own loky pool, kept warm between sweeps: {"executor", "workers"}
 _POOL: dict = {}
 _POOL_LOCK = threading.Lock()
+#: a staggered pool's later workers wait at most this long for :func:`open_gate` before
+#: importing what trials need (a safety net: ``workbench sweep`` opens the gate as soon as
+#: its own imports and table read are done, usually within two seconds)
+GATE_SECONDS = 10.0
+#: the environment variable that turns the start-up timeline on (:func:`mark`), and the one
+#: that carries the parent's start time to the workers
+TIMELINE_ENV, TIMELINE_T0_ENV = "WORKBENCH_TIMELINE", "WORKBENCH_TIMELINE_T0"
 #: idle pool workers exit after this many seconds (and are started again when needed)
 POOL_IDLE_SECONDS = 300
 #: seconds between a pool worker's checks that the process that started it is alive
 PARENT_CHECK_SECONDS = 0.5
+
+
+def mark(event: str) -> None:
+    """With ``WORKBENCH_TIMELINE=1``: write ``timeline SECONDS PID EVENT`` to stderr, SECONDS
+    counted from the start of the ``workbench`` process (carried to the workers in
+    ``WORKBENCH_TIMELINE_T0``). Nothing otherwise."""
+    if not os.environ.get(TIMELINE_ENV):
+        return
+    t0 = os.environ.get(TIMELINE_T0_ENV)
+    if t0 is None:  # the first mark of the parent: its start, as the kernel saw it
+        t0 = os.environ[TIMELINE_T0_ENV] = repr(_process_start())
+    print(f"timeline {time.time() - float(t0):7.3f} {os.getpid()} {event}", file=sys.stderr,
+          flush=True)
+
+
+def _process_start() -> float:
+    """This process's start (seconds since the epoch), from /proc where it exists."""
+    try:
+        with open("/proc/self/stat") as fh:
+            ticks = int(fh.read().rsplit(")", 1)[1].split()[19])
+        with open("/proc/uptime") as fh:
+            uptime = float(fh.read().split()[0])
+        return time.time() - uptime + ticks / os.sysconf("SC_CLK_TCK")
+    except (OSError, ValueError, IndexError):
+        return time.time()
 
 
 def _watch_parent(parent_pid: int, period: float = PARENT_CHECK_SECONDS) -> None:
@@ -47,13 +95,14 @@ def _watch_parent(parent_pid: int, period: float = PARENT_CHECK_SECONDS) -> None
     threading.Thread(target=watch, name="workbench-parent-watch", daemon=True).start()
 
 
-def _warm_pool(workers: int):
+def _warm_pool(workers: int, staggered: bool = False):
     """The warm pool with ``workers`` processes (a new one when the size differs).
 
     The sweep keeps its own loky executor rather than the process-wide one that
     joblib (and so scikit-learn's ``n_jobs``) shares, so that neither can
     reconfigure the other's workers. Each worker watches this process
-    (:func:`_watch_parent`) and ends with it.
+    (:func:`_watch_parent`) and ends with it. A new pool made ``staggered`` holds
+    back every worker but the first until :func:`open_gate` (module docstring).
     """
     from joblib.externals.loky import ProcessPoolExecutor
 
@@ -63,11 +112,27 @@ def _warm_pool(workers: int):
             _shutdown(ex)
             ex = None
         if ex is None:
+            gate = first = None
+            if staggered and workers > 1:
+                from joblib.externals.loky.backend import get_context
+
+                ctx = get_context("loky")
+                gate, first = ctx.Event(), ctx.Semaphore(1)
             ex = ProcessPoolExecutor(max_workers=workers, timeout=POOL_IDLE_SECONDS,
                                      env=dict(_THREAD_ENV), initializer=_start_worker,
-                                     initargs=(os.getpid(),))
-            _POOL.update(executor=ex, workers=workers)
+                                     initargs=(os.getpid(), gate, first))
+            _POOL.update(executor=ex, workers=workers, gate=gate)
         return ex
+
+
+def open_gate() -> None:
+    """Let a staggered pool's held-back workers import what trials need (and every
+    worker started later go straight on). Nothing when there is no such pool."""
+    with _POOL_LOCK:
+        gate = _POOL.get("gate")
+    if gate is not None:
+        gate.set()
+        mark("gate opened")
 
 
 def _shutdown(ex):
@@ -110,18 +175,25 @@ def default_jobs() -> int:
     return max(1, int(cpu_count()))
 
 
-def _start_worker(parent_pid: int) -> None:
+def _start_worker(parent_pid: int, gate=None, first=None) -> None:
     """Pool worker initializer: watch the parent, then import what trials need.
 
     Importing here (not at the first trial) overlaps a new worker's imports
     with the parent's own start-up; the results cannot change, only when the
-    modules are loaded does.
+    modules are loaded does. In a staggered pool (``gate`` and ``first`` given)
+    the worker that takes ``first`` imports at once and the others wait for the
+    gate (at most :data:`GATE_SECONDS`).
     """
     import importlib
 
     _watch_parent(parent_pid)
+    mark("worker started")
+    if gate is not None and first is not None and not first.acquire(False):
+        gate.wait(GATE_SECONDS)
+        mark("worker through the gate")
     for name in TRIAL_MODULES:
         importlib.import_module(name)
+    mark("worker imports done")
 
 
 def _ready() -> int:
@@ -129,15 +201,17 @@ def _ready() -> int:
     return os.getpid()
 
 
-def prestart(workers: int) -> None:
+def prestart(workers: int, staggered: bool = False) -> None:
     """Start the warm pool's ``workers`` processes now, without waiting for them.
 
     Called by ``workbench sweep`` first thing, so the workers start (and import)
     while the parent reads the table; a later sweep of the same size reuses them.
-    Failing here is never fatal: the sweep starts the pool again when it needs it.
+    ``staggered``: only the first worker imports at once, the others after
+    :func:`open_gate` (module docstring). Failing here is never fatal: the sweep
+    starts the pool again when it needs it.
     """
     try:
-        ex = _warm_pool(int(workers))
+        ex = _warm_pool(int(workers), staggered=staggered)
         for _ in range(int(workers)):
             ex.submit(_ready)
     except Exception:  # pragma: no cover - the sweep will start (and report on) the pool itself
