@@ -89,6 +89,28 @@ def test_the_chosen_command_gets_its_options_and_runs(tmp_path, capsys):
     assert "invalid choice: 'nosuchcommand'" in capsys.readouterr().err
 
 
+def test_the_chosen_commands_parser_reads_only_its_own_module(monkeypatch):
+    """`workbench sweep ...` parses sweep.py's source alone; an unknown command, or none,
+    reads every module (so the usage error and --help list every command)."""
+    import ast
+
+    parsed = []
+    real = ast.parse
+    monkeypatch.setattr(ast, "parse", lambda source, *a, **k: parsed.append(source) or
+                        real(source, *a, **k))
+    full = _command_table()
+    n_modules = len(parsed)
+    parsed.clear()
+    assert _command_table("sweep") == {"sweep": full["sweep"]}
+    assert len(parsed) == 1 and 'NAME = "sweep"' in parsed[0]
+    assert _command_table("nosuchcommand") == full and len(parsed) == 1 + n_modules
+    parser = build_parser(["export"])
+    assert parser.parse_args(["export", "S1", "--to", "f"]).folder == "f"
+    with pytest.raises(SystemExit) as exc:
+        parser.parse_args(["export", "S1", "--to", "f", "--bogus"])
+    assert exc.value.code == 2
+
+
 def test_no_command_opens_the_window_with_opens_defaults(monkeypatch):
     from workbench import cli
     from workbench.commands import open as open_command
@@ -148,6 +170,22 @@ def test_an_export_imports_only_what_its_formats_use(stored):
     found, _ = _run(["export", sid, "--store", str(d / "s.sqlite"), "--to", str(d / "e"),
                      "--formats", "skops", "--quiet"], heavy=("onnx", "skops", "matplotlib"))
     assert found["code"] in (0, None) and found["heavy"] == ["skops"]
+
+
+@pytest.mark.parametrize("formats, expected", [("joblib,report", ["matplotlib"]),
+                                               ("onnx", ["onnx", "skl2onnx"])])
+def test_each_export_format_loads_only_its_own_libraries(stored, formats, expected):
+    """The ONNX libraries only for onnx, matplotlib only for the report, skops only for skops
+    (the per-format import cost is in the module docstring of workbench.export.formats)."""
+    d, sid = stored
+    found, out = _run(["export", sid, "--store", str(d / "s.sqlite"), "--to",
+                       str(d / formats.replace(",", "-")), "--formats", formats, "--quiet"],
+                      heavy=("onnx", "skl2onnx", "onnxruntime", "skops", "matplotlib"))
+    assert found["code"] in (0, None) and found["heavy"] == expected
+    written = {p.name for p in (d / formats.replace(",", "-")).iterdir()}
+    from workbench.export.formats import files_of
+
+    assert files_of(formats.split(",")) <= written  # the formats were written all the same
 
 
 def test_export_of_the_recommended_configuration_reads_the_results_once(stored, monkeypatch):

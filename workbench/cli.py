@@ -106,25 +106,41 @@ def _literal(tree, name):
     return None
 
 
-def _command_table() -> dict[str, tuple[str, str]]:
+def _command_table(only: str | None = None) -> dict[str, tuple[str, str]]:
     """``{command: (module, one-line help)}``, read from each command module's source.
 
     The modules are not imported: a command's ``NAME`` and ``HELP`` are literals that
     :func:`ast.literal_eval` reads, so ``workbench --help`` loads none of the heavy
     libraries (NumPy, pandas, scikit-learn, SciPy) that a command's module may import.
     A module whose ``NAME`` or ``HELP`` is not a literal is imported to read them.
+
+    ``only``: the command about to run. When the module of that name is the command of
+    that name, only its entry is returned (the other modules' sources are not parsed:
+    a sweep's first trial waits for this); otherwise, the whole table.
     """
     import ast
     import importlib.util
 
     import workbench.commands as pkg
 
+    infos = sorted(pkgutil.iter_modules(pkg.__path__), key=lambda i: i.name)
+    if only is not None:
+        mine = [i for i in infos if i.name == only and not i.name.startswith("_")]
+        if mine:
+            table = _command_table_of(mine, ast, importlib.util)
+            if list(table) == [only]:
+                return table
+    return _command_table_of(infos, ast, importlib.util)
+
+
+def _command_table_of(infos, ast, util) -> dict[str, tuple[str, str]]:
+    """:func:`_command_table` for the command modules ``infos`` (pkgutil's ModuleInfo)."""
     table = {}
-    for info in sorted(pkgutil.iter_modules(pkg.__path__), key=lambda i: i.name):
+    for info in infos:
         if info.name.startswith("_"):
             continue
         module = f"workbench.commands.{info.name}"
-        spec = importlib.util.find_spec(module)
+        spec = util.find_spec(module)
         source = spec.loader.get_source(module) if spec and spec.loader else None
         tree = ast.parse(source) if source else None
         name, text = (_literal(tree, "NAME"), _literal(tree, "HELP")) if tree else (None, None)
@@ -156,7 +172,9 @@ def build_parser(commands=None) -> argparse.ArgumentParser:
 
     Every command is listed (name and help); the options are added for the commands in
     ``commands`` (default: all), whose modules are imported to add them. :func:`main`
-    asks only for the command being run, so only its module is imported.
+    asks only for the command being run, so only its module is imported; asked for one
+    command that exists, the parser holds that command alone (a usage error names the
+    same command, and ``workbench --help``, which asks for none, lists them all).
     """
     parser = _Parser(
         prog="workbench",
@@ -167,7 +185,8 @@ def build_parser(commands=None) -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-    for name, (module, text) in _command_table().items():
+    only = commands[0] if commands is not None and len(commands) == 1 else None
+    for name, (module, text) in _command_table(only).items():
         p = sub.add_parser(name, help=text, description=text)
         if commands is None or name in commands:
             mod = importlib.import_module(module)
