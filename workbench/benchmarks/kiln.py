@@ -37,6 +37,11 @@ binary target). Parts, in this order:
    ``estimate``, made before the sweep of part 1 runs, set beside its measured
    time). When a hook is absent the section says so; the estimates of the six
    sample sets' default plans are ``workbench bench --estimates``.
+
+Between parts 1 and 2, :func:`stacked_group`: one task of the sweep (a configuration's
+folds of one repeat) as whole trials one after another and together in lockstep
+stacks (:func:`workbench.sweep.trials.run_trials`), CPU time, and whether the results
+are identical.
 """
 
 from __future__ import annotations
@@ -173,6 +178,63 @@ def whole_sweep(quick: bool = False, rounds: int | None = None, store_path=None)
     estimated = estimate_lines(made, t_ours)
     figures.update(estimated["figures"])
     return {"lines": lines + estimated["lines"], "figures": figures}
+
+
+# --------------------------------------------------------------------------- a group of folds
+
+def _group_specs(plan, config: int = 0, repeat: int = 0):
+    """The trial descriptions of one configuration's folds of one repeat, as the runner
+    sends them."""
+    from workbench.sweep.runner import load_data
+
+    data, _ = load_data(plan)
+    folds = plan.fold_indices(data.y)
+    c = plan.configurations()[config].to_dict()
+    specs = []
+    for f in range(plan.folds):
+        tr, te = folds[(repeat, f)]
+        specs.append({"config": c, "repeat": repeat, "fold": f, "train": tr.astype(np.int32),
+                      "test": te.astype(np.int32), "random_state": plan.model_seed(repeat, f),
+                      "task": plan.task, "metric": plan.metric, "epochs": plan.epochs,
+                      "early_stopping": plan.early_stopping, "batch_size": plan.batch_size,
+                      "dtype": plan.dtype, "attempt": 1})
+    return data, specs
+
+
+def stacked_group(quick: bool = False, rounds: int | None = None) -> dict:
+    """Part 1b: one kiln configuration's folds of a repeat (a runner task), as whole
+    trials (preprocessing from the worker's fold cache, fit with held-out curves and
+    health, scoring, out-of-fold predictions) one after another (``run_trial``) and
+    together (``run_trials``: lockstep stacks); CPU seconds of this process, medians of
+    interleaved rounds, and whether every result is the same."""
+    from workbench.sweep.trials import run_trial, run_trials
+
+    rounds = rounds or (2 if quick else 5)
+    plan = _plan(quick)
+    data, specs = _group_specs(plan)
+    first = [run_trial(data, dict(s)) for s in specs]  # fills the fold cache, imports
+    alone, together, same = [], [], True
+    for _ in range(rounds):
+        t = time.process_time()
+        a = [run_trial(data, dict(s)) for s in specs]
+        alone.append(time.process_time() - t)
+        t = time.process_time()
+        b = run_trials(data, [dict(s) for s in specs])
+        together.append(time.process_time() - t)
+        same = same and all(x["test_score"] == y["test_score"] and x["history"] == y["history"]
+                            and np.array_equal(x["predictions"], y["predictions"])
+                            for x, y in zip(a + b, first + first))
+    m_alone, m_together = statistics.median(alone), statistics.median(together)
+    figures = {"group_alone_cpu_seconds": m_alone, "group_stacked_cpu_seconds": m_together,
+               "group_speedup_cpu": m_alone / m_together, "group_identical": same}
+    lines = [
+        f"one task of the kiln sweep: {len(specs)} folds of {plan.configurations()[0].label}, "
+        f"{plan.epochs} epochs, whole trials (median of {rounds}, cpu seconds)",
+        f"  one after another (run_trial)           {m_alone:8.3f} s",
+        f"  together in lockstep (run_trials)       {m_together:8.3f} s   "
+        f"({m_alone / m_together:.2f}x; results {'identical' if same else 'DIFFERENT'})",
+    ]
+    return {"lines": lines, "figures": figures}
 
 
 # --------------------------------------------------------------------------- first trial
@@ -428,7 +490,8 @@ def estimate_lines(made: dict | None, measured_seconds: float) -> dict:
 def run(quick: bool = False, rounds: int | None = None) -> dict:
     """Every part above; ``quick`` shrinks each (a smoke test, a minute or so)."""
     lines, figures = [], {}
-    parts = [whole_sweep(quick, rounds), first_trial(quick), memory(quick), racing_hook(quick)]
+    parts = [whole_sweep(quick, rounds), stacked_group(quick), first_trial(quick), memory(quick),
+             racing_hook(quick)]
     for part in parts:
         lines += part["lines"]
         figures.update(part["figures"])
