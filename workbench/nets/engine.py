@@ -56,7 +56,7 @@ from sklearn.utils.validation import check_is_fitted, column_or_1d, validate_dat
 
 from workbench.nets import activations as act
 from workbench.nets.health import PROBE_ROWS, measure, network_health
-from workbench.nets.network import Network, with_ones
+from workbench.nets.network import PREDICT_CHUNK, Network, with_ones
 from workbench.nets.optimizers import AdamOptimizer, SGDOptimizer
 
 __all__ = ["NetRegressor", "NetClassifier", "DivergenceWarning", "network_health", "health_due"]
@@ -155,8 +155,9 @@ def _hidden_sizes(value):
 class _TrainingData(NamedTuple):
     """The rows one fit trains on, validates on and measures health on."""
 
-    X: np.ndarray  # training rows with a trailing column of ones
-    y: np.ndarray
+    X: np.ndarray  # the rows given to fit, as validated (float64 or float32, not copied)
+    rows: np.ndarray | None  # positions in X of the training rows (early stopping), else None
+    y: np.ndarray  # the training rows' targets, in the network's dtype
     X_val: np.ndarray | None  # validation rows (early stopping), without the ones
     y_val: np.ndarray | None
     probe_X: np.ndarray  # health probe rows, with the ones
@@ -189,24 +190,59 @@ def health_due(epoch: int) -> bool:
     return epoch <= HEALTH_EVERY_EPOCH_UNTIL or epoch % HEALTH_STRIDE == 0
 
 
-def _epoch_rows(X, y, shuffle, random_state):
-    """Each epoch's rows in order, gathered into contiguous arrays (reused every epoch).
+#: rows cast at a time when the training rows are taken from the caller's array
+GATHER_ROWS = 4096
+
+
+def _gather(X, index, out):
+    """``out[:, :-1] = X[index]`` (all rows of ``X`` in order when ``index`` is None),
+    cast to ``out``'s dtype ``GATHER_ROWS`` rows at a time; the last column is left alone.
+
+    The values are those of casting ``X`` whole and then taking the rows (a cast is
+    element by element), without holding a cast copy of ``X`` beside ``out``.
+    """
+    n = out.shape[0]
+    buf = np.empty((min(GATHER_ROWS, n), X.shape[1]), dtype=X.dtype) if index is not None \
+        else None
+    with np.errstate(over="ignore"):
+        for start in range(0, n, GATHER_ROWS):
+            stop = min(n, start + GATHER_ROWS)
+            if index is None:
+                part = X[start:stop]
+            else:
+                part = buf[:stop - start]
+                np.take(X, index[start:stop], axis=0, out=part)
+            out[start:stop, :-1] = part
+    return out
+
+
+def _epoch_rows(X, rows, y, dtype, shuffle, random_state):
+    """Each epoch's rows in order, with a trailing column of ones, in ``dtype``:
+    contiguous arrays reused every epoch.
+
+    ``X`` is the array given to ``fit`` (float64 or float32) and ``rows`` the positions
+    of the training rows in it (None: every row, in order); the rows are gathered and
+    cast straight into the epoch's array (:func:`_gather`), so a fit holds one array of
+    the training rows in ``dtype``, not a cast copy and a shuffled copy besides.
 
     The order is scikit-learn's: its MLP shuffles the row indices every epoch with
     ``sklearn.utils.shuffle(indices, random_state=rs)``, which draws one permutation
     ``rs.shuffle(np.arange(n))`` and applies it to the indices.
     """
+    n = y.shape[0]
+    X_epoch = np.empty((n, X.shape[1] + 1), dtype=dtype)
+    X_epoch[:, -1] = 1
     if not shuffle:
+        _gather(X, rows, X_epoch)
         while True:
-            yield X, y
-    n = X.shape[0]
+            yield X_epoch, y
     index = np.arange(n, dtype=int)
-    X_epoch, y_epoch = np.empty_like(X), np.empty_like(y)
+    y_epoch = np.empty_like(y)
     while True:
         perm = np.arange(n)
         random_state.shuffle(perm)
         index = index[perm]
-        np.take(X, index, axis=0, out=X_epoch)
+        _gather(X, index if rows is None else rows[index], X_epoch)
         np.take(y, index, axis=0, out=y_epoch)
         yield X_epoch, y_epoch
 
@@ -401,9 +437,9 @@ class _BaseNet(BaseEstimator):
     def _validated(self, X, y, dtype, first_pass):
         """``X`` and ``y`` checked, ``y`` in ``dtype`` and two-dimensional.
 
-        ``X`` stays as validated (float64 or float32, not copied): :meth:`_training_data`
-        casts it to ``dtype`` once, as it adds the column of ones, so a fit holds no
-        third copy of the rows."""
+        ``X`` stays as validated (float64 or float32, not copied): each epoch's rows are
+        gathered from it and cast to ``dtype`` as the column of ones is added
+        (:func:`_epoch_rows`), so a fit holds one array of the rows in ``dtype``."""
         X, y = validate_data(self, X, y, multi_output=True, y_numeric=self._task == "regression",
                              dtype=(np.float64, np.float32), reset=first_pass)
         with np.errstate(over="ignore"):
@@ -416,6 +452,14 @@ class _BaseNet(BaseEstimator):
     def _too_large(self):
         raise ValueError(f"X or y has values too large for dtype={self.dtype!r}; rescale the "
                          "data (or use dtype='float64')")
+
+    def _check_fits(self, X, dtype):
+        """Refuse ``X`` when a value does not fit ``dtype`` (checked ``GATHER_ROWS`` rows at
+        a time, so no cast copy of ``X`` is held)."""
+        with np.errstate(over="ignore"):
+            for start in range(0, X.shape[0], GATHER_ROWS):
+                if not np.isfinite(X[start:start + GATHER_ROWS].astype(dtype, copy=False)).all():
+                    self._too_large()
 
     def _rows_as(self, X, dtype, ones):
         """``X`` in ``dtype``, C-contiguous, with a trailing column of ones when ``ones``;
@@ -511,19 +555,27 @@ class _BaseNet(BaseEstimator):
         self._net = net
 
     def _training_data(self, X, y) -> _TrainingData:
-        """Split off the validation rows (early stopping), choose the batch size and probe."""
+        """Split off the validation rows (early stopping), choose the batch size and probe.
+
+        The training rows stay in ``X`` (their positions in ``rows``): each epoch gathers
+        them (:func:`_epoch_rows`). Early stopping splits the row positions as
+        ``train_test_split(X, y, ...)`` splits the rows (the split depends only on the
+        number of rows, the stratification and the random state), so the rows and their
+        order are the same as on a split copy of ``X``."""
+        self._check_fits(X, y.dtype)
         if self.early_stopping:
             stratify = y if (self._task == "classification" and y.shape[1] == 1) else None
-            X, X_val, y, y_val = train_test_split(
-                X, y, random_state=self._random_state, test_size=self.validation_fraction,
-                stratify=stratify)
-            if X_val.shape[0] < 2:
+            rows, val_rows, y, y_val = train_test_split(
+                np.arange(X.shape[0]), y, random_state=self._random_state,
+                test_size=self.validation_fraction, stratify=stratify)
+            if val_rows.shape[0] < 2:
                 raise ValueError("the validation set is too small; increase validation_fraction "
                                  "or use more rows")
             y = np.ascontiguousarray(y)
+            X_val = X[val_rows]
         else:
-            X_val = y_val = None
-        n = X.shape[0]
+            rows = X_val = y_val = None
+        n = y.shape[0]
         if self.batch_size == "auto":
             batch_size = min(200, n)
         else:
@@ -531,15 +583,14 @@ class _BaseNet(BaseEstimator):
                 warnings.warn("Got `batch_size` less than 1 or larger than sample size. "
                               "It is going to be clipped", stacklevel=4)
             batch_size = int(np.clip(self.batch_size, 1, n))
-        X = self._rows_as(X, y.dtype, ones=True)
         if X_val is not None:
             X_val = self._rows_as(X_val, y.dtype, ones=False)
             k = min(PROBE_ROWS, X_val.shape[0])
             probe_X, probe_y = with_ones(X_val[:k]), np.ascontiguousarray(y_val[:k])
         else:
             k = min(PROBE_ROWS, n)
-            probe_X, probe_y = X[:k], y[:k]
-        return _TrainingData(X, y, X_val, y_val, probe_X, probe_y, batch_size)
+            probe_X, probe_y = self._rows_as(X[:k], y.dtype, ones=True), y[:k]
+        return _TrainingData(X, rows, y, X_val, y_val, probe_X, probe_y, batch_size)
 
     def _optimizer(self, net):
         """A fresh optimiser for this fit (scikit-learn builds one per fit too)."""
@@ -554,7 +605,8 @@ class _BaseNet(BaseEstimator):
         data = self._training_data(X, y)
         net.ensure(data.batch_size)
         optimizer = self._optimizer(net)
-        epochs = _epoch_rows(data.X, data.y, self.shuffle, self._random_state)
+        epochs = _epoch_rows(data.X, data.rows, data.y, data.y.dtype, self.shuffle,
+                             self._random_state)
         alpha = float(self.alpha)
         self.constant_loss_ = _constant_loss(net, data.y)
         self._loss_tol = self._loss_tolerance()
@@ -567,7 +619,7 @@ class _BaseNet(BaseEstimator):
             loss = _run_epoch(net, optimizer, X_epoch, y_epoch, data.batch_size, alpha)
             self.n_iter_ += 1
             self.loss_ = loss
-            self.t_ += data.X.shape[0]
+            self.t_ += data.y.shape[0]
             if not (math.isfinite(loss) and np.isfinite(net.theta).all()):
                 net.theta[...] = last_good
                 self._record_epoch(net, data, loss, started, watch)
@@ -686,10 +738,15 @@ class _BaseNet(BaseEstimator):
     def _forward(self, X):
         check_is_fitted(self, "coefs_")
         X = validate_data(self, X, reset=False, dtype=(np.float64, np.float32))
-        X = np.ascontiguousarray(X, dtype=np.dtype(self.dtype))
+        dtype = np.dtype(self.dtype)
         net = self._net_for_predict()
         with np.errstate(over="ignore", invalid="ignore", under="ignore"):
-            return net.predict_raw(X)
+            if X.dtype == dtype or X.shape[0] <= PREDICT_CHUNK:
+                return net.predict_raw(np.ascontiguousarray(X, dtype=dtype))
+            # cast one chunk at a time (the chunks predict_raw computes in), not all rows
+            return np.concatenate([
+                net.predict_raw(np.ascontiguousarray(X[start:start + PREDICT_CHUNK], dtype))
+                for start in range(0, X.shape[0], PREDICT_CHUNK)])
 
     def _net_for_predict(self):
         # coefs_/intercepts_ may have been replaced by the user: rebuild the flat net if so
