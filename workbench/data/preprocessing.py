@@ -236,6 +236,90 @@ class TargetScaler(TransformerMixin, BaseEstimator):
         return y * self.scale_ + self.offset_
 
 
+def _median_by_column_applies(imputer, X) -> bool:
+    """Whether :func:`fit_median_by_column` reproduces ``imputer.fit(X)`` exactly: a
+    ``SimpleImputer(strategy="median")`` without the indicator on dense numeric data
+    (a NumPy array or a DataFrame of NumPy numeric columns) of at least one row. Then
+    scikit-learn validates every subset of the rows to the same dtype, so its fit on the
+    first row sets the attributes its fit on every row would. Anything else (sparse data,
+    text, pandas' nullable dtypes, whose dtype can depend on the rows) is fitted whole."""
+    if type(imputer) is not SimpleImputer or imputer.strategy != "median" \
+            or imputer.add_indicator:
+        return False
+    if isinstance(X, pd.DataFrame):
+        kinds = [dt.kind if isinstance(dt, np.dtype) else "" for dt in X.dtypes]
+    elif isinstance(X, np.ndarray) and X.ndim == 2:
+        kinds = [X.dtype.kind]
+    else:
+        return False
+    return len(X) > 0 and bool(kinds) and all(k in "fiu" for k in kinds)
+
+
+def fit_median_by_column(imputer: SimpleImputer, X) -> SimpleImputer:
+    """Fit ``SimpleImputer(strategy="median")`` on ``X`` one column at a time.
+
+    The result is what ``imputer.fit(X)`` gives -- the same ``statistics_`` (NaN for a
+    column without any value, or 0 with ``keep_empty_features``), ``n_features_in_``,
+    ``feature_names_in_`` and dtypes -- but scikit-learn's fit builds a masked array of
+    every column and sorts copies of it (about four times the data's size on top of its
+    validated copy: 97 MB for the 160,000 x 18 training rows of a 200,000-row table),
+    whereas here scikit-learn's own imputer is fitted on each column alone (the median
+    of a column does not depend on the others), so only one column's copy is held at a
+    time. The validation and the attributes come from scikit-learn's fit on the first
+    row (see :func:`_median_by_column_applies` for when they equal the whole fit's);
+    each column is taken in that validated dtype, as the whole fit would take it.
+    Falls back to ``imputer.fit(X)`` where that equivalence is not assured.
+    """
+    if not _median_by_column_applies(imputer, X):
+        return imputer.fit(X)
+    frame = isinstance(X, pd.DataFrame)
+    imputer.fit(X.iloc[:1] if frame else X[:1])
+    dtype = imputer._fit_dtype
+    params = imputer.get_params()
+    stats = []
+    for j in range(X.shape[1]):
+        col = X.iloc[:, [j]].to_numpy(dtype=dtype) if frame else X[:, [j]].astype(dtype)
+        stats.append(SimpleImputer(**params).fit(col).statistics_)
+    imputer.statistics_ = np.concatenate(stats)
+    return imputer
+
+
+class ImputeColumnwise(Pipeline):
+    """A :class:`~sklearn.pipeline.Pipeline` whose median imputers are fitted column by
+    column (:func:`fit_median_by_column`): the same steps, the same fitted attributes and
+    the same output as ``Pipeline``, without the whole-array masked copies of
+    scikit-learn's median.
+
+    Each step is fitted in turn as ``Pipeline.fit_transform`` fits it (in place,
+    transforming the rows for the next step; the last step by its own
+    ``fit_transform``), the median imputers by :func:`fit_median_by_column`. Only
+    ``fit`` / ``fit_transform`` without fit parameters are changed (with parameters,
+    scikit-learn's own fit runs); ``transform`` is ``Pipeline``'s.
+
+    For fits that are never saved (the sweep's trials, see :func:`build_preprocessor`):
+    a saved pipeline holding it would name this class, which an export's skops trust
+    list and ONNX converters do not know.
+    """
+
+    def fit_transform(self, X, y=None, **params):
+        if params:
+            return super().fit_transform(X, y, **params)
+        self.steps = list(self.steps)
+        out = X
+        for _, step in self.steps:
+            if step is None or (isinstance(step, str) and step == "passthrough"):
+                continue
+            if _median_by_column_applies(step, out):
+                out = fit_median_by_column(step, out).transform(out)
+            else:
+                out = step.fit_transform(out, y)
+        return out
+
+    def fit(self, X, y=None, **params):
+        self.fit_transform(X, y, **params)
+        return self
+
+
 def target_scaling(target: TargetInfo, head: str) -> TargetScaler:
     """The :class:`TargetScaler` (unfitted) that suits ``head`` for ``target``."""
     h = resolve_head(head, "regression").name
@@ -267,8 +351,15 @@ def feature_groups(profile: TableProfile, target: TargetInfo | str | None) -> di
     return groups
 
 
-def build_preprocessor(profile: TableProfile, target: TargetInfo | str | None) -> ColumnTransformer:
+def build_preprocessor(profile: TableProfile, target: TargetInfo | str | None,
+                       columnwise_medians: bool = False) -> ColumnTransformer:
     """The unfitted ColumnTransformer for the profile's feature columns.
+
+    ``columnwise_medians=True``: the numeric and date groups are :class:`ImputeColumnwise`
+    instead of ``Pipeline`` -- the same numbers, fitted with far less memory (their median
+    imputers one column at a time), but a class an export does not know: for fits that
+    are never saved, such as the sweep's trials. The default keeps scikit-learn's
+    classes only (exports, refits, the reproduce script).
 
     Raises
     ------
@@ -276,9 +367,10 @@ def build_preprocessor(profile: TableProfile, target: TargetInfo | str | None) -
         When no column can serve as a feature.
     """
     g = feature_groups(profile, target)
+    imputing = ImputeColumnwise if columnwise_medians else Pipeline
     steps = []
     if g["numeric"]:
-        steps.append(("numeric", Pipeline([
+        steps.append(("numeric", imputing([
             ("impute", SimpleImputer(strategy="median")),
             ("scale", StandardScaler()),
         ]), g["numeric"]))
@@ -293,7 +385,7 @@ def build_preprocessor(profile: TableProfile, target: TargetInfo | str | None) -
             ("onehot", OneHotEncoder(handle_unknown="ignore", sparse_output=False)),
         ]), g["boolean"]))
     if g["datetime"]:
-        steps.append(("datetime", Pipeline([
+        steps.append(("datetime", imputing([
             ("parts", DateParts()),
             ("impute", SimpleImputer(strategy="median")),
             ("scale", StandardScaler()),
@@ -331,7 +423,8 @@ def _configure_estimator(estimator, target: TargetInfo, head: str):
                      "to try it", setting="engine")
 
 
-def build_pipeline(profile: TableProfile, target: TargetInfo, estimator, head: str) -> Pipeline:
+def build_pipeline(profile: TableProfile, target: TargetInfo, estimator, head: str,
+                   columnwise_medians: bool = False) -> Pipeline:
     """Preprocessing + (target scaling) + estimator, fitted together per CV fold.
 
     Parameters
@@ -343,6 +436,8 @@ def build_pipeline(profile: TableProfile, target: TargetInfo, estimator, head: s
         ``NetClassifier`` (cloned, never modified).
     head : str
         Output head name (aliases accepted, e.g. ``linear``).
+    columnwise_medians : bool
+        Passed to :func:`build_preprocessor` (True only for fits that are never saved).
 
     Returns
     -------
@@ -359,7 +454,7 @@ def build_pipeline(profile: TableProfile, target: TargetInfo, estimator, head: s
     if not chk.allowed:
         raise InputError(chk.reason, setting="heads")
     head = chk.head
-    prep = build_preprocessor(profile, target)
+    prep = build_preprocessor(profile, target, columnwise_medians)
     est = _configure_estimator(estimator, target, head)
     if target.task == "regression":
         model = TransformedTargetRegressor(regressor=est, transformer=target_scaling(target, head),
