@@ -16,6 +16,11 @@
 
 The transformer is unfitted, so inside a :class:`~sklearn.pipeline.Pipeline` every
 cross-validation fold fits imputers, scalers and encoders on its own training part.
+With ``columnwise_medians=True`` the numeric and date groups are
+:class:`ImputeColumnwise`, which fits their median imputers one column at a time
+(:func:`fit_median_by_column`): the same numbers as scikit-learn's
+``SimpleImputer(strategy="median")`` without its whole-array masked copies, for fits
+that are never saved (a saved pipeline keeps scikit-learn's classes only).
 
 :func:`build_pipeline(profile, target, estimator, head) <build_pipeline>` returns
 ``Pipeline([("prep", ColumnTransformer), ("model", model)])``. For classification
