@@ -309,3 +309,143 @@ def test_every_plot_axis_title_fits_beside_its_axis_at_1280x800(qtbot, window):
         pass
     cut, checked = _cut_axis_titles(win)
     assert cut == [] and checked >= 3, (cut, checked)
+
+
+# --------------------------------------------------------------------------- in place
+
+
+def _drawn(panel) -> list:
+    """What a panel's plots show: each shown item's kind, data and colours, each plot's
+    ranges, axis titles and ticks, and the panel's note (sorted: the order items were made
+    in does not show)."""
+    import pyqtgraph as pg
+
+    def arr(a):
+        return None if a is None else [round(float(v), 12) for v in np.asarray(a, float)]
+
+    out = []
+    for k, plot in enumerate(panel.plots()):
+        if plot.isHidden():
+            out.append((k, "hidden"))
+            continue
+        pi = plot.getPlotItem()
+        out.append((k, "range", [arr(r) for r in plot.viewRange()]))
+        for side in ("left", "bottom"):
+            ax = pi.getAxis(side)
+            out.append((k, side, ax.labelText, repr(getattr(ax, "_tickLevels", None))))
+        items = []
+        for item in pi.items:
+            if not item.isVisible():
+                continue
+            if isinstance(item, pg.PlotDataItem):
+                x, y = item.getData()
+                items.append(("line", arr(x), arr(y), item.opts["pen"].color().name()
+                              if item.opts["pen"] is not None else None,
+                              item.opts["pen"].style() if item.opts["pen"] is not None
+                              else None, item.opts["symbol"]))
+            elif isinstance(item, pg.ScatterPlotItem):
+                x, y = item.getData()
+                items.append(("dots", arr(x), arr(y),
+                              [(b if b is not None else item.opts["brush"]).color().name()
+                               for b in item.data["brush"]],
+                              [s if s is not None else item.opts["symbol"]
+                               for s in item.data["symbol"]], item.opts["size"]))
+            elif isinstance(item, pg.FillBetweenItem):
+                items.append(("band", *[arr(v) for c in item.curves for v in c.getData()],
+                              item.brush().color().name()))
+            elif isinstance(item, pg.BarGraphItem):
+                items.append(("bars", arr(item.opts["x"]), arr(item.opts["height"]),
+                              item.opts["width"], QBrushName(item.opts["brush"])))
+            elif isinstance(item, pg.ErrorBarItem):
+                items.append(("error", arr(item.opts["x"]), arr(item.opts["y"]),
+                              arr(item.opts["height"])))
+            else:
+                items.append((type(item).__name__,))
+        out.append((k, sorted(items, key=repr)))
+    out.append(("note", panel.note.text(), panel.empty.isHidden(), dict(panel.clipped)))
+    return out
+
+
+def QBrushName(brush) -> str:  # noqa: N802 - a brush's colour and pattern
+    return f"{brush.color().name()}:{brush.style().name}"
+
+
+def _selection_a():
+    """Three series, one diverged (clipped, marked), two loss kinds."""
+    a = [_series(0, [0.9, 0.5, 0.3]), _series(1, [0.8, 0.6, 0.5], scores=(0.7, 0.75, 0.72)),
+         _series(2, [0.5, 80.0, 4e3], diverged=True, scores=(-5.0, -7.0))]
+    a[1]["test_loss"] = _band([0.85, 0.7, 0.65])
+    a[1]["test_score"] = _band([0.6, 0.7, 0.72])
+    a[2]["health"] = {"dead": [0.6, 0.1], "saturated": [0.2, 0.0], "grad_norm": [1e3, 10, 1]}
+    return a
+
+
+def _selection_b():
+    """Two other series: fewer items, nothing clipped."""
+    b = [_series(0, [0.4, 0.3]), _series(1, [0.45, 0.41], scores=(0.6, 0.61))]
+    b[0]["number"], b[1]["number"] = 4, 7
+    b[0]["label"], b[1]["label"] = "cfg b0", "cfg b1"
+    b[1]["health"] = {"dead": [0.3], "saturated": [0.05], "grad_norm": [0.2, 0.4]}
+    return b
+
+
+@pytest.mark.parametrize("cls", [CurvesPanel, SpreadPanel, HealthPanel])
+def test_a_panel_updated_in_place_shows_what_a_fresh_draw_shows(qtbot, cls):
+    """Selecting A, then B, shows on the plots exactly what a new panel drawing B shows
+    (items of A not needed by B are hidden, markers of A's clipping gone), and B again
+    after A, again after nothing. The reference is a panel that never drew anything else."""
+    fresh = cls()
+    qtbot.addWidget(fresh)
+    fresh.resize(420, 260)
+    fresh.show()
+    fresh.set_series(_selection_b())
+    reused = cls()
+    qtbot.addWidget(reused)
+    reused.resize(420, 260)
+    reused.show()
+    reused.set_series(_selection_a())
+    before = _drawn(reused)
+    reused.set_series(_selection_b())
+    assert _drawn(reused) == _drawn(fresh)
+    assert _drawn(reused) != before  # (the comparison can tell two selections apart)
+    reused.set_series([])
+    assert reused.empty.isVisible() and not reused.note.text()
+    reused.set_series(_selection_a())
+    assert _drawn(reused) == before
+    # kept and reused: drawing A once more made no new item
+    made = reused.items_made()
+    reused.set_series(_selection_b())
+    reused.set_series(_selection_a())
+    assert reused.items_made() == made
+
+
+def test_a_new_selection_in_the_window_updates_the_plot_items_in_place(qtbot, window):
+    """Wiring: the window's selection goes to the plots without rebuilding their items
+    (pyqtgraph items are counted as they are made), and what they then show equals a
+    fresh plot area drawing the same rows."""
+    from workbench.gui.plot_area import PlotArea
+
+    win = window
+    panels = (win.curves, win.spread, win.health)
+    _select_networks(win)
+    made = [p.items_made() for p in panels]
+    shown = [win.plot_area.series()[i]["key"] for i in range(3)]
+    rows = [i for i in range(win.proxy.rowCount()) if win.proxy.row_at(i).get("series")]
+    lines = win.curves.curve_items()
+    for pick in ([rows[1]], [rows[2], rows[0]], rows):
+        win.select_rows(pick)
+        assert [p.items_made() for p in panels] == made, pick
+    assert win.curves.curve_items() == lines  # the very same items, updated in place
+    assert [s["key"] for s in win.plot_area.series()] == shown
+    # and a fresh plot area given the last-but-one selection shows what the window shows
+    win.select_rows([rows[2], rows[0]])
+    fresh = PlotArea()
+    qtbot.addWidget(fresh)
+    fresh.resize(win.plot_area.size())
+    fresh.show()
+    fresh.show_rows(win.selected_rows())
+    for mine, theirs in zip(panels, (fresh.curves, fresh.spread, fresh.health)):
+        drawn, expected = _drawn(mine), _drawn(theirs)
+        # the ranges depend on the data alone; compare everything
+        assert drawn == expected, type(mine).__name__
+    assert win.plot_area.legend.text() == fresh.legend.text()

@@ -32,6 +32,8 @@ class _Bars(QWidget):
         self.setSizePolicy(QSizePolicy.Expanding, QSizePolicy.Fixed)
 
     def set_rows(self, rows) -> None:
+        if list(rows) == self.rows:
+            return  # unchanged (a ranking during a sweep often is): no relayout, no repaint
         self.rows = list(rows)
         self.setFixedHeight(max(1, len(self.rows)) * ROW + 4)
         self.updateGeometry()
@@ -121,17 +123,23 @@ class FactorsChart(QWidget):
             rows.append(("folds' own noise", noise["share"], "noise"))
         self.bars.set_rows(rows)
         self.bars.setVisible(bool(rows))
-        self.sentence.setText(meta.get("factors_sentence") or (
+        # texts set only when they change: each setting re-lays out the page
+        _set_text(self.sentence, meta.get("factors_sentence") or (
             "" if meta else "Run or reopen a sweep to see which of its settings matter."))
         if rows:
-            self.note.setText(
-                "Share of the spread between the configurations' mean scores explained by each "
-                "swept factor (main effects of the grid, type-II sums of squares). The dashed "
-                "bar, for scale, is the share the folds' own noise alone would give.")
+            _set_text(self.note,
+                      "Share of the spread between the configurations' mean scores explained by "
+                      "each swept factor (main effects of the grid, type-II sums of squares). The "
+                      "dashed bar, for scale, is the share the folds' own noise alone would give.")
         elif meta:
-            self.note.setText("No factor was swept with more than one value.")
+            _set_text(self.note, "No factor was swept with more than one value.")
         else:
-            self.note.setText("")
+            _set_text(self.note, "")
+
+
+def _set_text(label: QLabel, text: str) -> None:
+    if label.text() != text:
+        label.setText(text)
 
 
 def _short(words: str) -> str:

@@ -16,7 +16,16 @@ import time
 from pathlib import Path
 
 import shiboken6
-from PySide6.QtCore import QItemSelectionModel, QSize, Qt, QTimer, QUrl, Signal
+from PySide6.QtCore import (
+    QItemSelection,
+    QItemSelectionModel,
+    QRect,
+    QSize,
+    Qt,
+    QTimer,
+    QUrl,
+    Signal,
+)
 from PySide6.QtGui import QAction, QDesktopServices, QKeySequence
 from PySide6.QtWidgets import (
     QAbstractItemView,
@@ -72,6 +81,9 @@ CANNOT_RUN = "Cannot run yet: "
 CALIBRATE_DELAY_MS = 500
 #: the most configurations drawn at once in the plots
 MAX_PLOTTED = 8
+#: least milliseconds between two updates of the results from a running sweep's rankings
+#: (a ranking that arrives sooner waits, and only the newest waiting one is shown)
+RANKED_INTERVAL_MS = 250
 #: the ROPE box's label (messages.SETTING_LABELS names it) and tooltip
 ROPE_LABEL = "Equivalence ±"
 ROPE_TIP = ("Half-width of the region of practical equivalence: differences smaller than "
@@ -185,6 +197,12 @@ class MainWindow(QMainWindow):
         self._tick = QTimer(self)
         self._tick.setInterval(500)
         self._tick.timeout.connect(self._update_progress_text)
+        # a running sweep's rankings, shown at most every RANKED_INTERVAL_MS
+        self._pending_ranked = None
+        self._last_ranked = 0.0
+        self._ranked_timer = QTimer(self)
+        self._ranked_timer.setSingleShot(True)
+        self._ranked_timer.timeout.connect(self._apply_ranked)
         self._update_actions()
         self._update_estimate()
         self.exportProgress.connect(self._export_progress)
@@ -432,6 +450,15 @@ class MainWindow(QMainWindow):
         self.selection_note = WrappingLabel("")
         self.selection_note.setObjectName("selectionNote")
         self.selection_note.setTextInteractionFlags(Qt.TextSelectableByMouse)
+        # in a box of fixed height (two lines, more only when the text needs it): a label's
+        # new text asks its parent's layout again, and from the note that re-laid out the
+        # table, the verdict and the plots and repainted the whole window on every click;
+        # a widget of fixed size does not ask its parent
+        # (and the note is placed in the box by hand: a layout in the box would still ask
+        # the box's parent again after each text)
+        self.selection_box = QWidget()
+        self.selection_note.setParent(self.selection_box)
+        self.selection_box.installEventFilter(self)
         rv.addLayout(bar)
 
         self.results_model = ResultsModel(self)
@@ -496,7 +523,7 @@ class MainWindow(QMainWindow):
         legend.addWidget(rope_label, 0, Qt.AlignTop)
         legend.addWidget(self.rope_edit, 0, Qt.AlignTop)
         tl.addLayout(legend)
-        tl.addWidget(self.selection_note)
+        tl.addWidget(self.selection_box)
         self.results_view.setMinimumHeight(TABLE_MIN_HEIGHT)
         vs.addWidget(tablebox)
         vs.addWidget(self.detail_tabs)
@@ -829,6 +856,8 @@ class MainWindow(QMainWindow):
     def _start(self, job, session, total: int, keep_rows: bool = False,
                estimate: float | None = None) -> None:
         self.banner.hide_message()
+        self._ranked_timer.stop()
+        self._pending_ranked = None
         if not keep_rows:
             self.results_model.clear()
             self.results_meta = {}
@@ -845,7 +874,7 @@ class MainWindow(QMainWindow):
         b.sweepStarted.connect(self._on_sweep_started)
         b.trialFinished.connect(self._on_trial_finished)
         b.trialStarted.connect(self._on_trial_started)
-        b.ranked.connect(self._on_ranked)
+        b.ranked.connect(self._ranked_later)
         self._sweep.finished.connect(self._on_sweep_done)
         choices = self.setup.choices()
         self._progress = {"done": 0, "total": total, "best": None, "t0": time.monotonic(),
@@ -916,6 +945,21 @@ class MainWindow(QMainWindow):
             self._tick.stop()
         self.progress_label.setText(" · ".join(parts))
 
+    def _ranked_later(self, payload) -> None:
+        """A running sweep's ranking: shown now, or, when the last was shown less than
+        RANKED_INTERVAL_MS ago, then (a newer one arriving meanwhile replaces it)."""
+        self._pending_ranked = payload
+        if not self._ranked_timer.isActive():
+            since = int((time.monotonic() - self._last_ranked) * 1000)
+            self._ranked_timer.start(max(0, RANKED_INTERVAL_MS - since))
+
+    def _apply_ranked(self) -> None:
+        self._ranked_timer.stop()
+        payload, self._pending_ranked = self._pending_ranked, None
+        if payload is not None:
+            self._last_ranked = time.monotonic()
+            self._on_ranked(payload)
+
     def _on_ranked(self, payload) -> None:
         if not payload:
             return
@@ -956,6 +1000,7 @@ class MainWindow(QMainWindow):
 
     def _on_sweep_done(self, summary: dict) -> None:
         self._tick.stop()
+        self._apply_ranked()  # the last ranking, if it is still waiting
         self.sweep_id = summary.get("sweep_id") or self.sweep_id
         state = summary.get("state")
         p = self._progress
@@ -989,7 +1034,7 @@ class MainWindow(QMainWindow):
         n = self.results_model.rowCount()
         if not n:
             self.results_note.setText("")
-            self.selection_note.setText("")
+            self._set_selection_note("")
             return
         rows = [r for r in self.results_model.rows() if r.get("kind") != "baseline"]
         shared = []
@@ -997,7 +1042,9 @@ class MainWindow(QMainWindow):
             vals = {r.get(key) for r in rows}
             if len(vals) == 1 and None not in vals:
                 shared.append(f"{label} {next(iter(vals)):g}")
-        self.results_note.setText(self._note_text(rows, shared, meta))
+        note = self._note_text(rows, shared, meta)
+        if self.results_note.text() != note:  # (a new text re-lays out the results)
+            self.results_note.setText(note)
         # redraw the plots only when a selected configuration changed
         selected = {r["key"] for r in self.selected_rows()}
         if selected & self.results_model.last_changed:
@@ -1025,8 +1072,8 @@ class MainWindow(QMainWindow):
         """One line on the first selected configuration: what the columns leave out."""
         sel = self.selected_rows()
         if not sel:
-            self.selection_note.setText("Select rows to compare their curves, fold scores and "
-                                        "layer health below.")
+            self._set_selection_note("Select rows to compare their curves, fold scores and "
+                                     "layer health below.")
             return
         r = sel[0]
         parts = [f"Selected: rank {r.get('rank') or '–'}, {r['hidden']} / {r['head']} "
@@ -1046,13 +1093,37 @@ class MainWindow(QMainWindow):
             parts.append(str(r["status"]) + (f": {r['message']}" if r.get("message") else ""))
         if len(sel) > 1:
             parts.append(f"{len(sel)} rows selected")
-        self.selection_note.setText(" · ".join(parts))
+        self._set_selection_note(" · ".join(parts))
+
+    def _set_selection_note(self, text: str) -> None:
+        if self.selection_note.text() != text:
+            self.selection_note.setText(text)
+            self._fit_selection_box()
+
+    def _fit_selection_box(self) -> None:
+        """The note's box: two lines high, or the height the note needs at its width."""
+        note = self.selection_note
+        m = note.contentsMargins()
+        width = self.selection_box.width()
+        # two lines measured as the label measures its plain text
+        two = note.fontMetrics().boundingRect(QRect(0, 0, max(width, 10), 10_000),
+                                              int(Qt.TextWordWrap), "x\nx").height() \
+            + m.top() + m.bottom()
+        need = note.heightForWidth(width) if width > 0 and note.text() else 0
+        height = max(two, need)
+        if height != self.selection_box.height() or \
+                self.selection_box.minimumHeight() != self.selection_box.maximumHeight():
+            self.selection_box.setFixedHeight(height)
 
     def eventFilter(self, obj, event) -> bool:  # noqa: N802 - Qt override
         from PySide6.QtCore import QEvent
 
         if obj is self.results_view.viewport() and event.type() == QEvent.Resize:
             self._squeeze_columns()
+        elif obj is getattr(self, "selection_box", None) and event.type() == QEvent.Resize:
+            self.selection_note.setGeometry(0, 0, event.size().width(), event.size().height())
+            if event.size().width() != event.oldSize().width():
+                self._fit_selection_box()
         return super().eventFilter(obj, event)
 
     def _fit_columns(self) -> None:
@@ -1119,11 +1190,12 @@ class MainWindow(QMainWindow):
                                tied_only=self.tied_filter.isChecked())
 
     def select_rows(self, proxy_rows: list[int]) -> None:
+        """Select these rows of the table (one selection change: the plots draw once)."""
         sm = self.results_view.selectionModel()
-        sm.clearSelection()
+        selection = QItemSelection()
         for r in proxy_rows:
-            sm.select(self.proxy.index(r, 0),
-                      QItemSelectionModel.Select | QItemSelectionModel.Rows)
+            selection.select(self.proxy.index(r, 0), self.proxy.index(r, 0))
+        sm.select(selection, QItemSelectionModel.ClearAndSelect | QItemSelectionModel.Rows)
 
     def selected_rows(self) -> list[dict]:
         sm = self.results_view.selectionModel()

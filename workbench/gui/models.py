@@ -157,6 +157,7 @@ class ResultsModel(QAbstractTableModel):
         self._keys: dict[str, np.ndarray] = {}
         self._order_list: list[int] = []
         self._disp: list[tuple | None] = []
+        self._look: list[tuple | None] = []
         #: keys of the rows the last update touched (every row after a reset)
         self.last_changed: set[str] = set()
         self._bold = QFont()
@@ -195,8 +196,11 @@ class ResultsModel(QAbstractTableModel):
         if not index.isValid():
             return Qt.NoItemFlags
         if self._rows[self._order_list[index.row()]].get("kind") == "baseline":
-            return Qt.ItemIsEnabled
-        return Qt.ItemIsEnabled | Qt.ItemIsSelectable
+            return self._READ_ONLY
+        return self._SELECTABLE
+
+    _READ_ONLY = Qt.ItemIsEnabled
+    _SELECTABLE = Qt.ItemIsEnabled | Qt.ItemIsSelectable
 
     def set_colors(self, decisions: dict[str, QColor], reference: QColor,
                    muted: QColor) -> None:
@@ -204,6 +208,7 @@ class ResultsModel(QAbstractTableModel):
         self.decision_colors = dict(decisions)
         self.reference_color = QColor(reference)
         self.muted_color = QColor(muted)
+        self._look = [None] * len(self._rows)
         if self._rows:
             self.dataChanged.emit(self.index(0, 0),
                                   self.index(len(self._rows) - 1, len(RESULT_COLUMNS) - 1))
@@ -218,6 +223,26 @@ class ResultsModel(QAbstractTableModel):
     _RIGHT = int(Qt.AlignRight | Qt.AlignVCenter)
     _LEFT = int(Qt.AlignLeft | Qt.AlignVCenter)
 
+    #: each column's alignment (numbers to the right)
+    _ALIGN = tuple(int(Qt.AlignRight | Qt.AlignVCenter) if k in NUMERIC
+                   else int(Qt.AlignLeft | Qt.AlignVCenter) for k in COLUMN_KEYS)
+    _MEAN = COLUMN_KEYS.index("mean")
+
+    def _look_of(self, i: int) -> tuple:
+        """A row's (background, foreground, font, font of the mean), worked out once per
+        change of the row (a repaint asks for each of them for every cell)."""
+        look = self._look[i]
+        if look is None:
+            row = self._rows[i]
+            if row.get("kind") == "baseline":
+                look = (self.reference_color, self.muted_color, self._italic, self._italic)
+            else:
+                look = (self.decision_colors.get(row.get("decision")),
+                        self.muted_color if row.get("status") not in ("done", None) else None,
+                        None, self._bold if row.get("rank") == 1 else None)
+            self._look[i] = look
+        return look
+
     def data(self, index, role=Qt.DisplayRole):
         if role not in self._ROLES or not index.isValid():
             return None
@@ -228,23 +253,19 @@ class ResultsModel(QAbstractTableModel):
             if disp is None:
                 row = self._rows[i]
                 disp = self._disp[i] = tuple(self._display(row, k) for k in COLUMN_KEYS)
+                self._look[i] = None
             return disp[col]
+        if role == Qt.TextAlignmentRole:
+            return self._ALIGN[col]
+        if role == Qt.BackgroundRole:
+            return self._look_of(i)[0]
+        if role == Qt.ForegroundRole:
+            return self._look_of(i)[1]
+        if role == Qt.FontRole:
+            look = self._look_of(i)
+            return look[3] if col == self._MEAN else look[2]
         row = self._rows[i]
         key = COLUMN_KEYS[col]
-        if role == Qt.TextAlignmentRole:
-            return self._RIGHT if key in NUMERIC else self._LEFT
-        if role == Qt.BackgroundRole:
-            if row.get("kind") == "baseline":
-                return self.reference_color
-            return self.decision_colors.get(row.get("decision"))
-        if role == Qt.ForegroundRole:
-            if row.get("kind") == "baseline":
-                return self.muted_color
-            return self.muted_color if row.get("status") not in ("done", None) else None
-        if role == Qt.FontRole:
-            if row.get("kind") == "baseline":
-                return self._italic
-            return self._bold if key == "mean" and row.get("rank") == 1 else None
         if role == SORT_ROLE:
             return self._sort_value(row, key)
         if role == ROW_ROLE:
@@ -327,6 +348,7 @@ class ResultsModel(QAbstractTableModel):
         self._rows, self._index = [], {}
         self._set_order(np.zeros(0, dtype=np.int64))
         self._disp = []
+        self._look = []
         self._keys = {}
         self.endResetModel()
         self.last_changed = set()
@@ -338,6 +360,7 @@ class ResultsModel(QAbstractTableModel):
         self._index = {r["key"]: i for i, r in enumerate(self._rows)}
         self._set_order(np.arange(len(self._rows), dtype=np.int64))
         self._disp = [None] * len(self._rows)
+        self._look = [None] * len(self._rows)
         self._keys = {}
         self.endResetModel()
         if self._sort is not None:
@@ -366,6 +389,7 @@ class ResultsModel(QAbstractTableModel):
             elif self.signature(self._rows[i]) != self.signature(r):
                 self._rows[i] = dict(r)
                 self._disp[i] = None
+                self._look[i] = None
                 changed.append(i)
         if changed:
             self._keys = {}
@@ -381,6 +405,7 @@ class ResultsModel(QAbstractTableModel):
                 self._index[r["key"]] = len(self._rows)
                 self._rows.append(r)
                 self._disp.append(None)
+                self._look.append(None)
             self._set_order(np.concatenate(
                 [self._order, np.arange(start, len(self._rows), dtype=np.int64)]))
             self._keys = {}
@@ -432,6 +457,8 @@ class ResultsModel(QAbstractTableModel):
                 g = good[np.argsort(-arr[good], kind="stable")]
             idx = np.concatenate([g, np.flatnonzero(nan)])  # missing values last, always
         idx = idx.astype(np.int64)
+        if len(idx) == len(self._order) and np.array_equal(idx, self._order):
+            return  # the order stands: no relayout and full repaint of the views
         self.layoutAboutToBeChanged.emit()
         old = self.persistentIndexList()
         stored = [self._order_list[p.row()] for p in old]

@@ -79,6 +79,7 @@ class PlotArea(QWidget):
         self._series: list[dict] = []
         self._generation = 0
         self._tabs = None
+        self._diagnosis_stale = True  # written when its page is shown (or read)
         # an explicit least size: the layout would otherwise take the height its wrapped
         # legend needs at the narrowest width, and a scroll area around it would scroll
         # early; the height for the actual width (heightForWidth) still holds
@@ -118,7 +119,12 @@ class PlotArea(QWidget):
     def watch_tabs(self, tabs) -> None:
         """Read the calibration data when ``tabs`` shows the calibration page."""
         self._tabs = tabs
-        tabs.currentChanged.connect(lambda *_: self._fetch_calibration())
+        tabs.currentChanged.connect(lambda *_: self._page_shown())
+
+    def _page_shown(self) -> None:
+        if self._diagnosis_stale and self._tabs.currentWidget() is self.diagnosis:
+            self._diagnosis()
+        self._fetch_calibration()
 
     def panels(self):
         return [self.curves, self.spread, self.health, self.calibration]
@@ -149,13 +155,14 @@ class PlotArea(QWidget):
         self.health.set_series(series)
         self.calibration.set_series(series)
         self._legend()
-        self._diagnosis()
+        self._diagnosis_later()
         self._generation += 1
         self._fetch_calibration()
 
     def _legend(self) -> None:
         if not self._series:
-            self.legend.setText("")
+            if self.legend.text():
+                self.legend.setText("")
             self.legend.hide()
             return
         items = []
@@ -177,10 +184,20 @@ class PlotArea(QWidget):
         else:
             tail = (f" &nbsp;<i>(the other{'s' if normal > 1 else ''} train"
                     f"{'' if normal > 1 else 's'} normally)</i>")
-        self.legend.setText("&nbsp;&nbsp; ".join(items) + tail)
+        text = "&nbsp;&nbsp; ".join(items) + tail
+        if self.legend.text() != text:  # (a new text re-lays out the plots below)
+            self.legend.setText(text)
         self.legend.show()
 
+    def _diagnosis_later(self) -> None:
+        """The Diagnosis page is written now when it is shown, else when it is next shown
+        or read (a selection would otherwise lay out its rich text unseen)."""
+        self._diagnosis_stale = True
+        if self._tabs is None or self._tabs.currentWidget() is self.diagnosis:
+            self._diagnosis()
+
     def _diagnosis(self) -> None:
+        self._diagnosis_stale = False
         if not self._series:
             self.diagnosis.setHtml("<p>Select rows of the results to read why each "
                                    "configuration trains as it does.</p>")
@@ -199,6 +216,8 @@ class PlotArea(QWidget):
         self.diagnosis.setHtml("".join(parts))
 
     def diagnosis_text(self) -> str:
+        if self._diagnosis_stale:
+            self._diagnosis()
         return self.diagnosis.toPlainText()
 
     # ------------------------------------------------------------------ calibration
@@ -233,4 +252,4 @@ class PlotArea(QWidget):
         for p in self.panels():
             p.set_theme(theme)
         self._legend()
-        self._diagnosis()
+        self._diagnosis_later()

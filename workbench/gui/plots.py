@@ -194,6 +194,67 @@ def _num(v: float) -> str:
     return f"{v:.3g}" if abs(v) >= 1e4 or (v != 0 and abs(v) < 1e-3) else f"{v:.3f}"
 
 
+class _Pool:
+    """Plot items kept and reused: a redraw updates them in place (``setData``, ``setOpts``)
+    instead of removing every item and creating new ones. Creating, adding and removing
+    pyqtgraph items cost most of a redraw, and a cleared plot re-laid out its axes and was
+    painted twice.
+
+    ``begin()``, then ``take()`` for each item to show (made on first need), then ``end()``
+    hides the items not taken. :attr:`made` counts the items ever created (a test reads it).
+    """
+
+    def __init__(self, plot: pg.PlotWidget, make):
+        self.plot = plot
+        self.make = make
+        self.items: list = []
+        self.used = 0
+        self.made = 0
+
+    def begin(self) -> None:
+        self.used = 0
+
+    def take(self):
+        if self.used == len(self.items):
+            self.items.append(self.make())
+            self.made += 1
+        item = self.items[self.used]
+        self.used += 1
+        if item.parentItem() is None:  # new, or the plot was cleared by its owner
+            self.plot.addItem(item)
+        if not item.isVisible():
+            item.setVisible(True)
+        return item
+
+    def end(self) -> None:
+        for item in self.items[self.used:]:
+            if item.isVisible():
+                item.setVisible(False)
+
+    def shown(self) -> list:
+        return self.items[:self.used]
+
+
+def _set_label(plot: pg.PlotWidget, side: str, text: str) -> None:
+    """An axis title, set only when it changes (each setting re-lays out the plot)."""
+    ax = plot.getPlotItem().getAxis(side)
+    if ax.labelText != text or not ax.label.isVisible():
+        plot.setLabel(side, text)
+
+
+def _set_ticks(plot: pg.PlotWidget, side: str, ticks) -> None:
+    """An axis's ticks, set only when they change (each setting repaints the axis)."""
+    ax = plot.getPlotItem().getAxis(side)
+    if getattr(ax, "_tickLevels", None) != ticks:
+        ax.setTicks(ticks)
+
+
+def _set_text(label: QLabel, text: str) -> None:
+    """A label's text, set only when it changes (Qt re-lays out the label's parent)."""
+    if label.text() != text:
+        label.setText(text)
+
+
 class _Panel(QWidget):
     """A titled panel holding pyqtgraph plots, an empty-state sentence and a note line."""
 
@@ -241,11 +302,25 @@ class _Panel(QWidget):
         w.getPlotItem().getViewBox().setMouseEnabled(x=True, y=False)
         for name in ("left", "bottom"):
             w.getPlotItem().getAxis(name).enableAutoSIPrefix(False)
+            # the room for tick labels grows when needed but never shrinks back: shrinking
+            # and growing with each selection's labels re-laid out the plot while it was
+            # painted, and painted it a second time
+            w.getPlotItem().getAxis(name).setStyle(autoReduceTextSpace=False)
         (into if into is not None else self.layout_).addWidget(w, stretch)
         return w
 
     def _finish(self):
         self.layout_.addWidget(self.note)
+
+    def _settle(self) -> None:
+        """Apply the new ranges to the plots' transforms now. pyqtgraph leaves that to the
+        moment it paints; the transform's change then asks for a second paint, and every
+        plot was painted twice per selection. A note or hint shown or hidden is laid out
+        first, for the same reason (the plots' new size, then one paint)."""
+        if self.isVisible() and self.layout() is not None:
+            self.layout().activate()
+        for w in self.plots():
+            w.getPlotItem().getViewBox().prepareForPaint()
 
     def plots(self) -> list[pg.PlotWidget]:
         return []
@@ -253,10 +328,11 @@ class _Panel(QWidget):
     def _say(self, note: str, explanation: str = "") -> None:
         """The note under the plots (only what needs saying: it is hidden when empty, so the
         plots keep the room) and the panel's explanation as the tooltip of title and plots."""
-        self.note.setText(note)
+        _set_text(self.note, note)
         self.note.setVisible(bool(note))
         for w in [self.title, self.note, *self.plots()]:
-            w.setToolTip(explanation)
+            if w.toolTip() != explanation:
+                w.setToolTip(explanation)
 
     def _show_empty(self, empty: bool) -> None:
         self.empty.setVisible(empty)
@@ -286,12 +362,16 @@ class _Panel(QWidget):
         """Set the y range robustly; mark and name what runs outside. Returns a note."""
         found = robust_range(groups, flagged)
         self.clipped[name] = []
+        marks = self._marks(plot)
+        marks.begin()
         if found is None:
+            marks.end()
             return ""
         lo, hi, clipped = found
-        plot.setYRange(lo, hi, padding=padding)
         plot.enableAutoRange(axis="y", enable=False)
+        plot.setYRange(lo, hi, padding=padding)
         if not clipped:
+            marks.end()
             return ""
         parts = []
         for i in clipped:
@@ -305,17 +385,37 @@ class _Panel(QWidget):
                 if len(out):
                     k = out[0]
                     edge = hi if y[k] > hi else lo
-                    plot.addItem(pg.ScatterPlotItem([x[k]], [edge], symbol="t1" if edge == hi
-                                                    else "t", size=11, brush=color, pen=None))
+                    marks.take().setData([x[k]], [edge], symbol="t1" if edge == hi else "t",
+                                         size=11, brush=color, pen=None)
             ext = v.max() if v.max() > hi else v.min()
             parts.append(f"#{s.get('number', i + 1)} (to {_num(float(ext))})")
+        marks.end()
         return "Outside the range, marked ▲/▼: " + ", ".join(parts) + "."
+
+    def _marks(self, plot: pg.PlotWidget) -> _Pool:
+        """The pool of a plot's clipping markers (▲/▼ at the edge)."""
+        pools = self.__dict__.setdefault("_mark_pools", {})
+        pool = pools.get(id(plot))
+        if pool is None:
+            pool = pools[id(plot)] = _Pool(plot, pg.ScatterPlotItem)
+        return pool
+
+    def items_made(self) -> int:
+        """How many plot items the panel has created so far (kept and reused after)."""
+        return sum(p.made for p in self.__dict__.values() if isinstance(p, _Pool)) + sum(
+            p.made for p in self.__dict__.get("_mark_pools", {}).values())
 
 
 def _held(values, lo: float, hi: float) -> np.ndarray:
     """Values held within :data:`DRAW_LIMIT` spans of the range, for drawing only."""
     span = max(hi - lo, 1e-12)
     return np.clip(np.asarray(values, float), lo - DRAW_LIMIT * span, hi + DRAW_LIMIT * span)
+
+
+def _band_item() -> pg.FillBetweenItem:
+    """A ±1 sd band: the fill between two edge curves (not drawn themselves)."""
+    return pg.FillBetweenItem(pg.PlotDataItem([0.0, 1.0], [0.0, 0.0], pen=pg.mkPen(None)),
+                              pg.PlotDataItem([0.0, 1.0], [0.0, 0.0], pen=pg.mkPen(None)))
 
 
 class CurvesPanel(_Panel):
@@ -351,6 +451,13 @@ class CurvesPanel(_Panel):
         self._finish()
         self._curves: list[pg.PlotDataItem] = []
         self._kind: str | None = None
+        # the items, kept and updated in place: band (fill between two edges), mean line,
+        # held-out line (dashed), per plot
+        self._loss_bands = _Pool(self.loss_plot, _band_item)
+        self._loss_lines = _Pool(self.loss_plot, pg.PlotDataItem)
+        self._loss_tests = _Pool(self.loss_plot, pg.PlotDataItem)
+        self._val_bands = _Pool(self.val_plot, _band_item)
+        self._val_lines = _Pool(self.val_plot, pg.PlotDataItem)
         self.set_series([])
 
     def plots(self):
@@ -367,19 +474,22 @@ class CurvesPanel(_Panel):
             self.set_series(self._series)
             self.kindChanged.emit(key)
 
-    def _draw(self, plot, band, color, rng, dashed=False):
+    def _draw(self, bands: _Pool | None, lines: _Pool, band, color, rng, dashed=False):
+        """One series' mean line (and its ±1 sd band) into items of the pools, in place."""
         x = np.asarray(band["x"], dtype=float)
         mean = _held(band["mean"], *rng)
-        if len(x) > 1 and not dashed:
+        if bands is not None and len(x) > 1 and not dashed:
             lo, hi = _held(band["lo"], *rng), _held(band["hi"], *rng)
-            fill = pg.FillBetweenItem(pg.PlotDataItem(x, lo, pen=pg.mkPen(None)),
-                                      pg.PlotDataItem(x, hi, pen=pg.mkPen(None)),
-                                      brush=QBrush(_alpha(color, 38)))
-            plot.addItem(fill)
+            fill = bands.take()
+            fill.curves[0].setData(x, lo)
+            fill.curves[1].setData(x, hi)
+            fill.setBrush(QBrush(_alpha(color, 38)))
         style = Qt.DashLine if dashed else Qt.SolidLine
-        return plot.plot(x, mean, pen=_pen(color, 2.0, style),
-                         symbol="o" if len(x) == 1 else None, symbolBrush=color,
-                         symbolPen=None, symbolSize=6)
+        line = lines.take()
+        line.setData(x, mean, pen=_pen(color, 2.0, style),
+                     symbol="o" if len(x) == 1 else None, symbolBrush=color,
+                     symbolPen=None, symbolSize=6)
+        return line
 
     @staticmethod
     def _values(band):
@@ -389,13 +499,26 @@ class CurvesPanel(_Panel):
 
     def set_series(self, series: list[dict]) -> None:
         self._series = list(series)
-        self.loss_plot.clear()
-        self.val_plot.clear()
+        for pool in (self._loss_bands, self._loss_lines, self._loss_tests, self._val_bands,
+                     self._val_lines):
+            pool.begin()
+        try:
+            self._set_series()
+        finally:
+            for pool in (self._loss_bands, self._loss_lines, self._loss_tests, self._val_bands,
+                         self._val_lines):
+                pool.end()
+            self._settle()
+
+    def _set_series(self) -> None:
         self._curves = []
         self.clipped = {}
         self._show_empty(not self._series)
         if not self._series:
-            self.loss_label.setText("")
+            for plot in self.plots():
+                self._marks(plot).begin()
+                self._marks(plot).end()
+            _set_text(self.loss_label, "")
             self.kind_box.hide()
             self._say("")
             return
@@ -406,14 +529,17 @@ class CurvesPanel(_Panel):
         if self._kind not in kinds:
             self._kind = next(iter(kinds), None)
         self.kind_box.blockSignals(True)
-        self.kind_box.clear()
-        short = {key: words.split(",")[0] for key, words in kinds.items()}
-        for key, words in kinds.items():
-            # the loss's name, with its target units only when two kinds share a name
-            name = short[key] if list(short.values()).count(short[key]) == 1 else words
-            self.kind_box.addItem(name, key)
-            self.kind_box.setItemData(self.kind_box.count() - 1, words, Qt.ToolTipRole)
-        if self._kind is not None:
+        if getattr(self, "_box_kinds", None) != kinds:  # refilled only when the kinds change
+            self._box_kinds = dict(kinds)
+            self.kind_box.clear()
+            short = {key: words.split(",")[0] for key, words in kinds.items()}
+            for key, words in kinds.items():
+                # the loss's name, with its target units only when two kinds share a name
+                name = short[key] if list(short.values()).count(short[key]) == 1 else words
+                self.kind_box.addItem(name, key)
+                self.kind_box.setItemData(self.kind_box.count() - 1, words, Qt.ToolTipRole)
+        if self._kind is not None and \
+                self.kind_box.currentIndex() != list(kinds).index(self._kind):
             self.kind_box.setCurrentIndex(list(kinds).index(self._kind))
         self.kind_box.blockSignals(False)
         self.kind_box.setVisible(len(kinds) > 1)
@@ -428,10 +554,11 @@ class CurvesPanel(_Panel):
         any_test = False
         for s in shown:
             color = self.theme.series_color(s["color"])
-            self._curves.append(self._draw(self.loss_plot, s["loss"], color, rng))
+            self._curves.append(self._draw(self._loss_bands, self._loss_lines, s["loss"], color,
+                                           rng))
             if s.get("test_loss"):
                 any_test = True
-                self._draw(self.loss_plot, s["test_loss"], color, rng, dashed=True)
+                self._draw(None, self._loss_tests, s["test_loss"], color, rng, dashed=True)
             band = s["loss"]
             curves.append((np.asarray(band["x"], float),
                            np.asarray([np.nan if v is None else v for v in band["mean"]],
@@ -445,7 +572,7 @@ class CurvesPanel(_Panel):
         self.loss_plot.enableAutoRange(axis="x", enable=False)
         self.loss_plot.setXRange(1, max(2, last), padding=0.02)
         words = kinds.get(self._kind, "")
-        self.loss_label.setText("Loss:" if len(kinds) > 1 else f"Loss: {words}")
+        _set_text(self.loss_label, "Loss:" if len(kinds) > 1 else f"Loss: {words}")
         self.loss_label.setToolTip(words)
         tips = ["Left plot: training loss (solid)"
                 + (" and the held-out fold's loss (dashed)" if any_test else "")
@@ -466,7 +593,7 @@ class CurvesPanel(_Panel):
         scurves = []
         for s in with_score:
             color = self.theme.series_color(s["color"])
-            self._draw(self.val_plot, s[key], color, srng)
+            self._draw(self._val_bands, self._val_lines, s[key], color, srng)
             scurves.append((np.asarray(s[key]["x"], float),
                             np.asarray([np.nan if v is None else v for v in s[key]["mean"]],
                                        float)))
@@ -474,7 +601,7 @@ class CurvesPanel(_Panel):
                                   [bool(s.get("diverged")) for s in with_score], scurves)
         short = SHORT_METRIC.get(metric, metric)
         # the metric along the short left axis (which rows it is on: the panel's tooltip)
-        self.val_plot.setLabel("left", short or "score")
+        _set_label(self.val_plot, "left", short or "score")
         self.val_plot.setVisible(bool(with_score))
         if not with_score:
             tips.append("No score per epoch was recorded for these configurations (early "
@@ -497,6 +624,11 @@ class SpreadPanel(_Panel):
         self.plot = self._plot("score", "rank")
         self._finish()
         self._scatters: list[pg.ScatterPlotItem] = []
+        # kept and updated in place: fold scores, mean ± sd bar, mean diamond
+        self._dots = _Pool(self.plot, pg.ScatterPlotItem)
+        self._bars = _Pool(self.plot, lambda: pg.ErrorBarItem(
+            x=np.zeros(1), y=np.zeros(1), height=np.zeros(1), beam=0.08))
+        self._means = _Pool(self.plot, pg.ScatterPlotItem)
         self.set_series([])
 
     def plots(self):
@@ -507,11 +639,23 @@ class SpreadPanel(_Panel):
 
     def set_series(self, series: list[dict]) -> None:
         self._series = list(series)
-        self.plot.clear()
+        pools = (self._dots, self._bars, self._means)
+        for pool in pools:
+            pool.begin()
+        try:
+            self._set_series()
+        finally:
+            for pool in pools:
+                pool.end()
+            self._settle()
+
+    def _set_series(self) -> None:
         self._scatters = []
         self.clipped = {}
         self._show_empty(not self._series)
         if not self._series:
+            self._marks(self.plot).begin()
+            self._marks(self.plot).end()
             self._say("")
             return
         groups = [[v for v in s.get("fold_scores", []) if v is not None] for s in self._series]
@@ -521,7 +665,7 @@ class SpreadPanel(_Panel):
         ticks = []
         fg = QColor(self.theme.plot_fg)
         metric = next((s.get("metric") for s in self._series if s.get("metric")), "")
-        self.plot.setLabel("left", SHORT_METRIC.get(metric, metric) if metric else "score")
+        _set_label(self.plot, "left", SHORT_METRIC.get(metric, metric) if metric else "score")
         for i, s in enumerate(self._series):
             color = self.theme.series_color(s["color"])
             scores = _finite(groups[i])
@@ -529,20 +673,20 @@ class SpreadPanel(_Panel):
             if len(scores):
                 # spread the points sideways in a fixed pattern so equal scores stay visible
                 offs = (np.arange(len(scores)) % 5 - 2) * 0.06
-                sc = pg.ScatterPlotItem(x0 + offs, _held(scores, *rng), size=7,
-                                        brush=_alpha(color, 170), pen=_pen(color, 1))
-                self.plot.addItem(sc)
+                sc = self._dots.take()
+                sc.setData(x0 + offs, _held(scores, *rng), size=7, symbol="o",
+                           brush=_alpha(color, 170), pen=_pen(color, 1))
                 self._scatters.append(sc)
             m, sd = s.get("mean"), s.get("sd")
             if m is not None and math.isfinite(m) and rng[0] <= m <= rng[1]:
                 sd = sd if sd is not None and math.isfinite(sd) else 0.0
-                err = pg.ErrorBarItem(x=np.array([x0 + 0.28]), y=np.array([m]),
-                                      height=np.array([2 * sd]), beam=0.08, pen=_pen(fg, 1.5))
-                self.plot.addItem(err)
-                self.plot.addItem(pg.ScatterPlotItem([x0 + 0.28], [m], symbol="d", size=9,
-                                                     brush=fg, pen=None))
+                self._bars.take().setData(x=np.array([x0 + 0.28]), y=np.array([m]),
+                                          height=np.array([2 * sd]), beam=0.08,
+                                          pen=_pen(fg, 1.5))
+                self._means.take().setData([x0 + 0.28], [m], symbol="d", size=9, brush=fg,
+                                           pen=None)
             ticks.append((x0, f"#{s['number']}" if s.get("number") is not None else str(i + 1)))
-        self.plot.getPlotItem().getAxis("bottom").setTicks([ticks])
+        _set_ticks(self.plot, "bottom", [ticks])
         self.plot.setXRange(0.4, len(self._series) + 0.7, padding=0)
         curves = [(np.full(len(_finite(g)), float(i + 1)), _finite(g))
                   for i, g in enumerate(groups)]
@@ -579,6 +723,10 @@ class HealthPanel(_Panel):
         self.layout_.addWidget(self.hint_box)
         self._finish()
         self._bars: list[pg.BarGraphItem] = []
+        # kept and updated in place: dead and saturated bars, gradient-norm markers
+        self._bar_pool = _Pool(self.share_plot, lambda: pg.BarGraphItem(
+            x=[0.0], height=[0.0], width=0.1))
+        self._grad_pool = _Pool(self.grad_plot, pg.PlotDataItem)
         self.set_series([])
 
     def plots(self):
@@ -589,8 +737,17 @@ class HealthPanel(_Panel):
 
     def set_series(self, series: list[dict]) -> None:
         self._series = list(series)
-        self.share_plot.clear()
-        self.grad_plot.clear()
+        pools = (self._bar_pool, self._grad_pool)
+        for pool in pools:
+            pool.begin()
+        try:
+            self._set_series()
+        finally:
+            for pool in pools:
+                pool.end()
+            self._settle()
+
+    def _set_series(self) -> None:
         self._bars = []
         self.clipped = {}
         self._show_empty(not self._series)
@@ -610,15 +767,15 @@ class HealthPanel(_Panel):
             max_layers = max(max_layers, layers)
             xs = np.arange(1, layers + 1) - 0.4 + width * (i + 0.5)
             if len(dead):
-                b = pg.BarGraphItem(x=xs[:len(dead)] - width / 4, height=np.nan_to_num(dead),
-                                    width=width / 2, brush=QBrush(color), pen=_pen(color, 1))
-                self.share_plot.addItem(b)
+                b = self._bar_pool.take()
+                b.setOpts(x=xs[:len(dead)] - width / 4, height=np.nan_to_num(dead),
+                          width=width / 2, brush=QBrush(color), pen=_pen(color, 1))
                 self._bars.append(b)
             if len(sat):
-                b = pg.BarGraphItem(x=xs[:len(sat)] + width / 4, height=np.nan_to_num(sat),
-                                    width=width / 2, brush=QBrush(color, Qt.BDiagPattern),
-                                    pen=_pen(color, 1))
-                self.share_plot.addItem(b)
+                b = self._bar_pool.take()
+                b.setOpts(x=xs[:len(sat)] + width / 4, height=np.nan_to_num(sat),
+                          width=width / 2, brush=QBrush(color, Qt.BDiagPattern),
+                          pen=_pen(color, 1))
                 self._bars.append(b)
             # gradient norms: one per weight matrix (into each hidden layer, then the output)
             g = np.asarray([np.nan if v is None else v for v in h.get("grad_norm") or []], float)
@@ -635,21 +792,24 @@ class HealthPanel(_Panel):
             for s, (gx, gv) in zip(self._series, grads):
                 if len(gv):
                     color = self.theme.series_color(s["color"])
-                    self.grad_plot.plot(gx, _held(gv, lo, hi), pen=None, symbol="s",
-                                        symbolBrush=color, symbolPen=None, symbolSize=8)
+                    self._grad_pool.take().setData(gx, _held(gv, lo, hi), pen=None, symbol="s",
+                                                   symbolBrush=color, symbolPen=None,
+                                                   symbolSize=8)
             # markers are 8 pixels tall on a short plot: room above and below them
             clip = self._apply_range(self.grad_plot, "gradient", [v for _, v in grads],
                                      self._series, [bool(s.get("diverged"))
                                                     for s in self._series], grads,
                                      padding=0.2)
-            self.grad_plot.getPlotItem().getAxis("left").setTicks([log_ticks(lo, hi, 3)])
+            _set_ticks(self.grad_plot, "left", [log_ticks(lo, hi, 3)])
         else:
+            self._marks(self.grad_plot).begin()
+            self._marks(self.grad_plot).end()
             clip = ""
         ticks = [(k, f"{k}") for k in range(1, max_layers + 1)]
-        self.share_plot.getPlotItem().getAxis("bottom").setTicks([ticks])
+        _set_ticks(self.share_plot, "bottom", [ticks])
         gticks = [(k, f"{k}" if k <= max_layers else "out")
                   for k in range(1, max(max_grad, max_layers) + 1)]
-        self.grad_plot.getPlotItem().getAxis("bottom").setTicks([gticks])
+        _set_ticks(self.grad_plot, "bottom", [gticks])
         if max_layers:
             self.share_plot.setXRange(0.5, max_layers + 0.5, padding=0)
         if max_grad:
@@ -660,8 +820,7 @@ class HealthPanel(_Panel):
         ceiling = min(100.0, max(10.0, top * 1.2))
         self.share_plot.setYRange(0, ceiling, padding=0.02)
         half = round(ceiling / 2)
-        self.share_plot.getPlotItem().getAxis("left").setTicks(
-            [[(0.0, "0"), (float(half), f"{half}")]])
+        _set_ticks(self.share_plot, "left", [[(0.0, "0"), (float(half), f"{half}")]])
         all_zero = all(not b.opts["height"].any() for b in self._bars) if self._bars else True
         # a plot of nothing but zeros says less than the note does: the room goes to the other
         self.share_plot.setVisible(bool(self._series) and not all_zero)
@@ -669,7 +828,7 @@ class HealthPanel(_Panel):
         if self._series and all_zero and not any_grad:
             self.share_plot.setVisible(True)
         hints = [h for s in self._series for h in s.get("hints", [])]
-        self.hint.setText("\n".join(f"⚠ {h}" for h in hints))
+        _set_text(self.hint, "\n".join(f"⚠ {h}" for h in hints))
         self.hint_box.setVisible(bool(hints))
         if not self._series:
             self._say("")
