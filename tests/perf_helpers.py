@@ -8,6 +8,8 @@ memory are measured, not asserted. Each function prints its figures; run e.g.
     python tests/perf_helpers.py labels      # the classifier's label columns per fit
     python tests/perf_helpers.py memory [FOLDER [PACKAGE_ROOT]]  # a worker's memory,
                                              # 200,000 x 22 table (made in FOLDER)
+    python tests/perf_helpers.py memory-shared [FOLDER [PACKAGE_ROOT]]  # the same, the
+                                             # fold features computed once and mapped
 
 Timings are medians of interleaved runs in one process, in CPU seconds of this process
 (``time.process_time``; BLAS is held to one thread, so on a shared, loaded machine the
@@ -174,6 +176,17 @@ def now():
     m = me.memory_full_info()
     return m.rss, m.uss
 base_rss, base_uss = now()
+def hwm():
+    try:
+        with open("/proc/self/status") as fh:
+            return next(int(l.split()[1]) * 1024 for l in fh if l.startswith("VmHWM"))
+    except (OSError, StopIteration):
+        return None
+try:  # Linux: reset the peak RSS (VmHWM) to the current RSS, so it is this run's exact peak
+    with open("/proc/self/clear_refs", "w") as fh:
+        fh.write("5")
+except OSError:
+    pass
 peak = {"rss": base_rss, "uss": base_uss}
 stop = False
 def sample():
@@ -192,7 +205,7 @@ for spec in specs:
 stop = True
 th.join()
 print(json.dumps({"base_rss": base_rss, "base_uss": base_uss, "peak_rss": peak["rss"],
-                  "peak_uss": peak["uss"],
+                  "peak_uss": peak["uss"], "hwm": hwm(),
                   "maxrss": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024,
                   "trials": out}))
 """
@@ -211,7 +224,11 @@ def worker_peak(csv, folder, epochs: int = 2, folds_run: int = 3, package_root=N
 
     Sampled every 10 ms with psutil: RSS (every page the process maps, shared ones
     included) and USS (the pages only this process holds: what each extra worker costs),
-    after the imports (base) and at their peak; the table's numeric size for scale.
+    after the imports (base) and at their peak; the table's numeric size for scale. On
+    Linux the RSS peak is exact: the kernel's high-water mark (``VmHWM``), reset at the
+    base through ``/proc/self/clear_refs``, catches what the sampling misses.
+    (``ru_maxrss``, still returned as ``maxrss``, is not quoted: a child process starts
+    with its parent's, here the parent that read the CSV.)
     """
     import json
     import pickle
@@ -250,13 +267,91 @@ def worker_peak(csv, folder, epochs: int = 2, folds_run: int = 3, package_root=N
                file_mb=sum(f.stat().st_size for f in Path(folder).glob("table.bin*")) / mb)
     for k in ("base_rss", "base_uss", "peak_rss", "peak_uss", "maxrss"):
         got[k] = got[k] / mb
+    got["peak_rss"] = max(got["peak_rss"], (got["hwm"] or 0) / mb)
     rss, uss = got["peak_rss"] - got["base_rss"], got["peak_uss"] - got["base_uss"]
     print(f"table {csv}: numeric size {got['numeric_mb']:.1f} MB; {workers} workers, each running "
           f"{folds_run} trials on {folds_run} folds: RSS {got['base_rss']:.0f} MB after imports, "
           f"peak {got['peak_rss']:.0f} MB (+{rss:.0f} MB = {rss / got['numeric_mb']:.2f} x); "
           f"USS {got['base_uss']:.0f} MB after imports, peak {got['peak_uss']:.0f} MB "
-          f"(+{uss:.0f} MB = {uss / got['numeric_mb']:.2f} x); ru_maxrss {got['maxrss']:.0f} MB; "
+          f"(+{uss:.0f} MB = {uss / got['numeric_mb']:.2f} x); "
           f"copy written in {write_s:.2f} s, {got['file_mb']:.1f} MB on disk; "
+          f"{[t[0] for t in got['trials']]}")
+    return got
+
+
+_SHARED_FOLD_WORKER = _WORKER.replace(
+    "    res = trials.run_trial_from_file(",
+    "    import numpy as np\n"
+    "    data = trials._WORKER_DATA.get(spec['_token'])\n"
+    "    if data is None:\n"
+    "        data = trials._WORKER_DATA[spec['_token']] = trials.load_worker_data(spec['_path'])\n"
+    "    trials._FOLD_CACHE.clear()  # one fold's mapped features at a time\n"
+    "    trials._FOLD_CACHE[(data.token, int(spec['repeat']), int(spec['fold']))] = tuple(\n"
+    "        np.load(spec.pop(f), mmap_mode='r') for f in ('_train_features', '_test_features'))\n"
+    "    res = trials.run_trial_from_file(")
+
+
+def shared_fold_peak(csv, folder, epochs: int = 2, folds_run: int = 3, workers: int = 2,
+                     package_root=None) -> dict:
+    """The proposal for the workers' fold features (not what the sweep does yet): each
+    fold's features are computed once (here by this process, with the sweep's own
+    preprocessor) and written as ``.npy`` files that every worker maps read-only, as it
+    maps the table, instead of each worker computing them from the table. The worker
+    process of :func:`worker_peak` runs the same trials, its fold cache holding the
+    current fold's mapped arrays alone (so :func:`workbench.sweep.trials.run_trial` takes
+    them, as from its own cache); same figures. Relies on the cache's key
+    ``(token, repeat, fold)`` in ``workbench/sweep/trials.py``."""
+    import json
+    import pickle
+    import subprocess
+
+    from workbench.data.preprocessing import build_preprocessor
+    from workbench.sweep.trials import save_worker_data
+
+    opts = dict(layers=["32"], epochs=epochs, folds=5, repeats=1, hidden="relu",
+                learning_rates=["0.001"])
+    plan, data, _ = trial(csv, "target", **opts)
+    path = os.path.join(folder, "table.bin")
+    save_worker_data(data, path)
+    specs = []
+    for k in range(folds_run):
+        spec = trial(csv, "target", fold=k, **opts)[2]
+        prep = build_preprocessor(data.profile, data.target)
+        tr, te = spec["train"], spec["test"]
+        files = {}
+        for name, X in (("_train_features", prep.fit_transform(data.X.iloc[tr])),
+                        ("_test_features", prep.transform(data.X.iloc[te]))):
+            files[name] = os.path.join(folder, f"fold{k}{name}.npy")
+            np.save(files[name], np.asarray(X))
+        specs.append(dict(spec, _token=data.token, _path=path, **files))
+    spec_path = os.path.join(folder, "spec_shared.pkl")
+    with open(spec_path, "wb") as fh:
+        pickle.dump(specs, fh)
+    env = dict(os.environ, OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1")
+    if package_root:
+        env["PYTHONPATH"] = str(package_root)
+    procs = [subprocess.Popen([sys.executable, "-c", _SHARED_FOLD_WORKER, spec_path],
+                              text=True, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                              env=env, cwd=package_root or None) for _ in range(workers)]
+    runs = []
+    for proc in procs:
+        stdout, stderr = proc.communicate(timeout=900)
+        if proc.returncode:
+            raise RuntimeError(stderr[-2000:])
+        runs.append(json.loads(stdout.strip().splitlines()[-1]))
+    got = sorted(runs, key=lambda r: r["peak_uss"])[len(runs) // 2]
+    mb = 2 ** 20
+    numeric = data.X.select_dtypes("number").to_numpy().nbytes + np.asarray(data.y).nbytes
+    got["numeric_mb"] = numeric / mb
+    for key in ("base_rss", "base_uss", "peak_rss", "peak_uss", "maxrss"):
+        got[key] = got[key] / mb
+    got["peak_rss"] = max(got["peak_rss"], (got["hwm"] or 0) / mb)
+    rss, uss = got["peak_rss"] - got["base_rss"], got["peak_uss"] - got["base_uss"]
+    print(f"table {csv}: numeric size {got['numeric_mb']:.1f} MB; shared mapped fold features; "
+          f"{workers} workers, each running {folds_run} trials on {folds_run} folds: RSS "
+          f"{got['base_rss']:.0f} MB after imports, peak {got['peak_rss']:.0f} MB (+{rss:.0f} MB "
+          f"= {rss / got['numeric_mb']:.2f} x); USS {got['base_uss']:.0f} MB after imports, peak "
+          f"{got['peak_uss']:.0f} MB (+{uss:.0f} MB = {uss / got['numeric_mb']:.2f} x); "
           f"{[t[0] for t in got['trials']]}")
     return got
 
@@ -271,7 +366,18 @@ def memory(folder=None, package_root=None) -> dict:
     return worker_peak(csv, folder, package_root=package_root)
 
 
+def memory_shared(folder=None, package_root=None) -> dict:
+    """:func:`shared_fold_peak` on the table of :func:`memory`."""
+    import tempfile
+
+    folder = folder or tempfile.mkdtemp(prefix="wb-mem-")
+    csv = Path(folder) / "big.csv"
+    if not csv.exists():
+        synthetic_table(csv)
+    return shared_fold_peak(csv, folder, package_root=package_root)
+
+
 if __name__ == "__main__":
     what = sys.argv[1] if len(sys.argv) > 1 else "curves"
     {"curves": curves_cost, "health": health_cost, "labels": labels_cost,
-     "memory": memory}[what](*sys.argv[2:])
+     "memory": memory, "memory-shared": memory_shared}[what](*sys.argv[2:])
