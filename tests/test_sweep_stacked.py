@@ -174,3 +174,39 @@ def test_the_first_task_of_each_worker_is_one_trial():
     assert rest == [(Trial(0, 0, 1),), (Trial(1, 0, 1),), (Trial(2, 0, 0),)]
     head, rest = runner.first_trials([(Trial(0, 0, 0),), b], 2)
     assert head == [(Trial(0, 0, 0),), (Trial(1, 0, 0),)] and rest == [(Trial(1, 0, 1),)]
+
+
+def test_lockstep_predictions_follow_changed_rows_and_parameters():
+    """A prediction made in the stack is handed out only for the same rows (same values)
+    and the same parameters; after either changes, the network's own pass is used."""
+    from workbench.nets import activations as act
+    from workbench.nets.network import Network, with_ones
+    from workbench.nets.optimizers import AdamOptimizer
+
+    head = act.resolve_head("identity", "regression")
+
+    def job(i):
+        def run():
+            net = Network([3, 5, 1], ["tanh"], head, np.dtype(np.float64))
+            net.theta[...] = np.random.default_rng(i).uniform(-0.5, 0.5, net.theta.size)
+            opt = AdamOptimizer(net.theta.size, net.dtype, 0.01)
+            r = np.random.default_rng(10 + i)
+            X, y, held = r.normal(size=(40, 3)), r.normal(size=(40, 1)), r.normal(size=(7, 3))
+            out = []
+            for epoch in range(5):
+                net.train_epoch(opt, with_ones(X), y, 10, 1e-3)
+                out.append(net.predict_raw(held).copy())
+                if epoch == 1:
+                    held[0, 0] += 1.0  # the same array, new values
+                if epoch == 2:
+                    net.theta[0] += 0.1  # parameters changed after the epoch
+                out.append(net.predict_raw(held).copy())
+            return out
+        return run
+
+    alone = [job(i)() for i in range(3)]
+    together, counts = S.run_in_lockstep([job(i) for i in range(3)])
+    assert counts["stacked_epochs"] == 15 and counts["predictions_stacked"] > 0
+    for a, b in zip(alone, together):
+        for pa, pb in zip(a, b):
+            np.testing.assert_array_equal(pa, pb)

@@ -45,6 +45,12 @@ per epoch unless said otherwise, JSON numbers with None for a non-finite value):
   then every 5th, and the last: :func:`workbench.nets.engine.health_due`);
   ``health_epoch``: the epochs (1-based) they were measured after.
 
+Trials together (:func:`run_trials`): the runner hands a worker the folds of one
+repeat of a configuration as one task; when their networks can stack (the NumPy
+engine, within :data:`STACK_BYTES`) they train in lockstep stacks
+(:mod:`workbench.nets.stacked`) with the results of single trials, else one after
+another. Every trial's result is its own dict, as :func:`run_trial` returns it.
+
 Baselines (:func:`make_baseline`, :func:`baseline_pipeline`): a trial whose
 configuration has ``kind: "baseline"`` fits a reference model instead of a
 network, on the same fold's preprocessed features (the same fitted
