@@ -211,6 +211,7 @@ _SWEEP_PROBE = textwrap.dedent("""
     calls = []
     pool.prestart = lambda workers, staggered=False: calls.append(["prestart", workers, staggered])
     pool.open_gate = lambda: calls.append(["open_gate"])
+    pool.stop_pool = lambda: calls.append(["stop_pool"])
 
     def run_sweep(plan, **kw):  # the first trial would be handed out from here on
         calls.append(["run_sweep", plan.target,
@@ -236,8 +237,24 @@ def test_sweep_starts_a_staggered_pool_and_opens_its_gate_before_the_first_trial
                           capture_output=True, text=True, timeout=300)
     got = json.loads(proc.stdout.strip().splitlines()[-1])
     assert got["rc"] == 2 and "stopped by the test" in proc.stderr
+    # the sweep's refusal stops the workers at once (else the exit would wait for them)
     assert got["calls"] == [["prestart", 1, True], ["open_gate"],
-                            ["run_sweep", "passes_inspection", []]]
+                            ["run_sweep", "passes_inspection", []], ["stop_pool"]]
+
+
+def test_a_sweep_refused_after_its_workers_started_stops_them_at_once(tmp_path):
+    """A bad target is found when the table is read, after the workers were started: the
+    pool is stopped before the one-line refusal, the gate never opened."""
+    from pathlib import Path
+
+    table = Path(__file__).resolve().parents[1] / "sample_sets" / "kiln_batches.csv"
+    proc = subprocess.run([sys.executable, "-c", _SWEEP_PROBE, "sweep", str(table), "--target",
+                           "no_such_column", "--jobs", "1", "--store",
+                           str(tmp_path / "s.sqlite"), "--quiet"],
+                          capture_output=True, text=True, timeout=300)
+    got = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert got["rc"] == 2 and proc.stderr.startswith("workbench: no column named")
+    assert got["calls"] == [["prestart", 1, True], ["stop_pool"]]
 
 
 def test_the_start_up_timeline_is_written_only_when_asked_and_in_order(tmp_path, monkeypatch,

@@ -104,3 +104,14 @@ def test_an_unstaggered_pool_has_no_gate():
     assert pool._POOL["gate"] is None
     pool.open_gate()  # nothing to open: no error
     pool._drop_pool(ex)
+
+
+def test_stop_pool_stops_the_warm_pool_and_forgets_it():
+    pool.prestart(2, staggered=True)  # its second worker waits at the gate, never opened
+    ex = runner._warm_pool(2)
+    pool.stop_pool()
+    assert runner._POOL == {}
+    for p in list(ex._processes.values()):
+        p.join(timeout=60)  # killed, not left to finish its imports or its gate
+        assert not p.is_alive()
+    pool.stop_pool()  # no pool: nothing to do

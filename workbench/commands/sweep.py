@@ -358,6 +358,20 @@ def run(args) -> int:
 
         prestart(min(int(args.jobs or default_jobs()), default_jobs()), staggered=True)
         mark("workers started")
+    try:
+        return _run(args, mark, open_gate)
+    except BaseException:
+        # a refusal (bad option, table, store...) or a crash: the prestarted workers are
+        # stopped now; left alone, this process would wait at its exit for their imports
+        # (and a held-back worker for its gate)
+        from workbench.sweep.pool import stop_pool
+
+        stop_pool()
+        raise
+
+
+def _run(args, mark, open_gate) -> int:
+    """:func:`run` once the workers are started."""
     # only what the sweep needs before its first trial; the ranking's modules
     # (workbench.sweep.results, workbench.commands.show) come after the sweep
     from workbench.data.profiling import parse_roles

@@ -125,6 +125,16 @@ def _warm_pool(workers: int, staggered: bool = False):
         return ex
 
 
+def stop_pool() -> None:
+    """Stop the warm pool now, its workers killed wherever they are (their imports, a
+    gate): what ``workbench sweep`` does when it stops on an error before or during a
+    sweep. Nothing when there is no pool."""
+    with _POOL_LOCK:
+        ex = _POOL.get("executor")
+    if ex is not None:
+        _drop_pool(ex)
+
+
 def open_gate() -> None:
     """Let a staggered pool's held-back workers import what trials need (and every
     worker started later go straight on). Nothing when there is no such pool."""
