@@ -176,7 +176,7 @@ def test_an_export_imports_only_what_its_formats_use(stored):
                                                ("onnx", ["onnx", "skl2onnx"])])
 def test_each_export_format_loads_only_its_own_libraries(stored, formats, expected):
     """The ONNX libraries only for onnx, matplotlib only for the report, skops only for skops
-    (the per-format import cost is in the module docstring of workbench.export.formats)."""
+    (what each costs to import: the module docstring of workbench.export.formats)."""
     d, sid = stored
     found, out = _run(["export", sid, "--store", str(d / "s.sqlite"), "--to",
                        str(d / formats.replace(",", "-")), "--formats", formats, "--quiet"],
