@@ -144,6 +144,8 @@ def test_a_stacked_sweep_stores_what_an_unstacked_sweep_stores(tmp_path, monkeyp
 
 
 def test_groups_never_straddle_a_racing_look():
+    from workbench.sweep import racing
+
     plan = build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection", hidden="relu,tanh",
                       layers=["8"], folds=3, repeats=3, epochs=3)
     trials = plan.trials()
@@ -151,18 +153,26 @@ def test_groups_never_straddle_a_racing_look():
     plain = runner.group_trials(plan, trials, every)
     assert sorted(t.key for task in plain for t in task) == sorted(t.key for t in trials)
     assert all(len({(t.config_index, t.repeat) for t in task}) == 1 for task in plain)
-    assert max(len(task) for task in plain) == plan.folds
+    assert [len(task) for task in plain] == [plan.folds] * (plan.n_configurations * plan.repeats)
+    assert runner.look_positions(plan) == set()  # no racing, no looks
     plan.race = True
     looks = runner.look_positions(plan)
-    assert looks == set(range(plan.folds - 1, plan.folds * plan.repeats))  # racing's rule
+    n = plan.folds * plan.repeats
+    if not hasattr(racing, "look_positions"):  # racing's rule: every block from its first look
+        assert looks == set(range(racing.Race(plan).first, n))
+    assert looks and looks <= set(range(n))
     raced = runner.group_trials(plan, trials, every)
     assert sorted(t.key for task in raced for t in task) == sorted(t.key for t in trials)
+    last = {}
     for task in raced:
+        c, r = task[0].config_index, task[0].repeat
+        assert all((t.config_index, t.repeat) == (c, r) for t in task)
         positions = [t.repeat * plan.folds + t.fold for t in task]
+        assert positions == list(range(positions[0], positions[0] + len(task)))
         assert not any(p in looks for p in positions[:-1])  # a look only after its last
-    # the first repeat up to the first look goes together; later blocks one by one
-    assert [len(t) for t in raced if t[0].repeat == 0] == [plan.folds] * plan.n_configurations
-    assert {len(t) for t in raced if t[0].repeat > 0} == {1}
+        if (c, r) in last:  # a task ends early only at a look
+            assert last[(c, r)] in looks
+        last[(c, r)] = positions[-1]
     # not stackable: one trial per task, in the plan's order
     assert runner.group_trials(plan, trials, set()) == [(t,) for t in trials]
 
@@ -174,6 +184,9 @@ def test_the_first_task_of_each_worker_is_one_trial():
     assert rest == [(Trial(0, 0, 1),), (Trial(1, 0, 1),), (Trial(2, 0, 0),)]
     head, rest = runner.first_trials([(Trial(0, 0, 0),), b], 2)
     assert head == [(Trial(0, 0, 0),), (Trial(1, 0, 0),)] and rest == [(Trial(1, 0, 1),)]
+    # one task, two workers: each worker still starts with one trial of it
+    head, rest = runner.first_trials([b], 2)
+    assert head == [(Trial(1, 0, 0),), (Trial(1, 0, 1),)] and rest == []
 
 
 def test_lockstep_predictions_follow_changed_rows_and_parameters():

@@ -502,18 +502,20 @@ def group_trials(plan: SweepPlan, trials, stacks) -> list[tuple]:
 
 def first_trials(tasks, n: int) -> tuple[list, list]:
     """``(head, rest)``: the first trial of each of the first ``n`` tasks as tasks of their
-    own (so that each worker's first result comes from one trial), and the rest in order."""
+    own (so that each worker's first result comes from one trial; with fewer tasks than
+    ``n``, their next trials too), and the rest in order."""
     rest = list(tasks)
     head = []
-    i = 0
-    while len(head) < n and i < len(rest):
-        task = rest[i]
-        head.append(task[:1])
-        if len(task) > 1:
-            rest[i] = task[1:]
-            i += 1
-        else:
-            rest.pop(i)
+    while len(head) < n and rest:  # again from the start when there are fewer tasks
+        i = 0
+        while len(head) < n and i < len(rest):
+            task = rest[i]
+            head.append(task[:1])
+            if len(task) > 1:
+                rest[i] = task[1:]
+                i += 1
+            else:
+                rest.pop(i)
     return head, rest
 
 
