@@ -123,6 +123,44 @@ class RoleDelegate(QStyledItemDelegate):
         model.setData(index, editor.currentText(), Qt.EditRole)
 
 
+class SteadyTabWidget(QTabWidget):
+    """A tab widget that lays itself out again only when something it places changed.
+
+    Any label whose text changes on a page (the progress line in the corner, the note
+    under the results, the verdict) asks its parents to lay out again, up to the tab
+    widget; Qt's tab widget then places its tab bar, corner and pages anew and repaints
+    itself whole: the whole results page, 60-100 ms, for every progress tick and ranking.
+    Here that request is answered only when the tab bar's or a corner widget's size
+    hint, or the widget's own size, changed (nothing else moves what it places); the
+    request still goes on to the window (its least size may have changed)."""
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self._placed = None
+
+    def _layout_key(self):
+        corners = tuple(w.sizeHint().toTuple() if w is not None and w.isVisible() else None
+                        for w in (self.cornerWidget(Qt.TopLeftCorner),
+                                  self.cornerWidget(Qt.TopRightCorner)))
+        return (self.size().toTuple(), self.tabBar().sizeHint().toTuple(), corners,
+                self.currentIndex(), self.count())
+
+    def event(self, event) -> bool:
+        from PySide6.QtCore import QEvent
+
+        if event.type() == QEvent.LayoutRequest:
+            key = self._layout_key()
+            if key == self._placed:
+                self.updateGeometry()
+                return True
+            self._placed = key
+        return super().event(event)
+
+    def resizeEvent(self, event) -> None:  # noqa: N802 - Qt override
+        self._placed = None
+        super().resizeEvent(event)
+
+
 class MainWindow(QMainWindow):
     """The Activation Workbench window.
 
@@ -370,7 +408,7 @@ class MainWindow(QMainWindow):
         sl.addWidget(self.progress, 0)
         sl.addWidget(self.progress_label, 1)
 
-        self.tabs = QTabWidget()
+        self.tabs = SteadyTabWidget()
         self.tabs.setDocumentMode(False)
         self.tabs.setCornerWidget(strip, Qt.TopRightCorner)
         rl.addWidget(self.tabs, 1)

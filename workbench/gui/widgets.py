@@ -120,17 +120,24 @@ class ElidedLabel(QLabel):
     tabs); never use it for text the user must read whole.
     """
 
+    def minimumSizeHint(self) -> QSize:  # noqa: N802 - Qt override
+        return QSize(40, super().minimumSizeHint().height())
+
+    #: the width it asks for goes up and down in steps of this many pixels: a hint that
+    #: followed every character re-laid out (and repainted) what holds it at each new text
+    STEP = 120
+
     def setText(self, text: str) -> None:  # noqa: N802 - Qt override
+        if text == self.text():
+            return
         super().setText(text)
         self.setToolTip(text)
         self.updateGeometry()
 
-    def minimumSizeHint(self) -> QSize:  # noqa: N802 - Qt override
-        return QSize(40, super().minimumSizeHint().height())
-
     def sizeHint(self) -> QSize:  # noqa: N802 - Qt override
         fm = self.fontMetrics()
-        return QSize(fm.horizontalAdvance(self.text()) + 8, super().sizeHint().height())
+        width = fm.horizontalAdvance(self.text()) + 8
+        return QSize(-(-width // self.STEP) * self.STEP, super().sizeHint().height())
 
     def paintEvent(self, event) -> None:  # noqa: N802 - Qt override
         p = QPainter(self)
