@@ -60,35 +60,106 @@ def _scipy_p_worse(d, rope, n_train=400, n_test=100):
     return stats.t.cdf(-rope, J - 1, loc=d.mean(), scale=scale)
 
 
+def _scipy_p_full_worse(d, n_total, rope):
+    """P(mean of all n_total differences < -rope | the first J) by the prediction interval
+    for the mean of m = n_total - J future observations (Hahn, Meeker & Escobar 2017,
+    Statistical Intervals, 2nd ed., section 4.6: xbar +- t_{J-1} s sqrt(1/J + 1/m)), with
+    SciPy's t; the full mean is (J dbar + m ebar) / n_total."""
+    d = np.asarray(d, float)
+    J = d.size
+    m = n_total - J
+    # full mean < -rope  <=>  ebar < (-rope * n_total - J dbar) / m
+    cut = (-rope * n_total - J * d.mean()) / m
+    return stats.t.cdf(cut, J - 1, loc=d.mean(), scale=d.std(ddof=1) * np.sqrt(1 / J + 1 / m))
+
+
+def test_p_full_worse_is_the_prediction_interval_and_the_posterior_predictive():
+    """Two outside checks of :func:`racing.p_full_worse`: SciPy's t in the textbook
+    prediction-interval form, and a Monte Carlo draw from the normal model's posterior
+    predictive under the reference prior (Gelman et al. 2013, BDA3 section 3.2: sigma^2 ~
+    scaled inverse chi^2 (J-1, s^2), mu ~ N(dbar, sigma^2/J), then the m future values)."""
+    d = np.array([-0.05, -0.12, -0.02, -0.08])
+    for n_total, rope in ((10, 0.01), (15, 0.0), (5, 0.02)):
+        p, loc, scale = racing.p_full_worse(d, n_total, rope)
+        assert p == pytest.approx(_scipy_p_full_worse(d, n_total, rope), abs=1e-12)
+        J, m = d.size, n_total - d.size
+        assert loc == pytest.approx(d.mean())
+        assert scale == pytest.approx(m / n_total * d.std(ddof=1) * np.sqrt(1 / J + 1 / m))
+        rng = np.random.default_rng(0)
+        n = 400_000
+        sigma2 = (J - 1) * d.var(ddof=1) / rng.chisquare(J - 1, n)
+        mu = rng.normal(d.mean(), np.sqrt(sigma2 / J))
+        ebar = rng.normal(mu, np.sqrt(sigma2 / m))
+        full = (J * d.mean() + m * ebar) / n_total
+        assert p == pytest.approx(np.mean(full < -rope), abs=3e-3)
+    # nothing left to predict, equal differences, too few
+    assert racing.p_full_worse([-0.1, -0.2], 2, 0.01)[0] == 1.0
+    assert racing.p_full_worse([-0.1, -0.1, -0.1], 10, 0.01)[0] == 1.0
+    assert racing.p_full_worse([-0.005, -0.005, -0.005], 10, 0.01)[0] == 0.0
+    assert np.isnan(racing.p_full_worse([-0.3], 10, 0.01)[0])
+
+
 @pytest.mark.parametrize("beyond", [True, False])
-def test_the_stop_is_at_p_worse_099_beyond_the_rope_by_scipys_t(beyond):
-    """Differences placed just past (or just short of) the 0.99 quantile: stopped exactly
-    when SciPy's posterior tail below -ROPE reaches 0.99, at the first look (J = K)."""
-    u, rope = 0.01, 0.01  # r2: the ROPE is 0.01
+def test_the_stop_is_at_p_0999_beyond_the_rope_at_the_fourth_block(beyond):
+    """Differences placed just past (or just short of) the 0.999 quantile of the predicted
+    full-sweep difference: stopped exactly when SciPy's predictive tail below -ROPE reaches
+    0.999, at the first look (J = FIRST_LOOK = 4 of K x R = 10 blocks)."""
+    assert (racing.THRESHOLD, racing.FIRST_LOOK, racing.USE_ROPE, racing.TEST) == \
+        (0.999, 4, True, "predictive")
+    J, n_total, rope = 4, K * R, 0.01  # r2: the ROPE is 0.01
+    e = np.array([-1.5, -0.5, 0.5, 1.5]) * 0.01
+    m = n_total - J
+    scale = (m / n_total) * e.std(ddof=1) * np.sqrt(1 / J + 1 / m)
+    shift = -rope - stats.t.ppf(0.999, J - 1) * scale + (-1e-4 if beyond else 1e-4)
+    best = np.full(K * R, 0.8)
+    other = np.concatenate([best[:J] + shift + e, best[J:]])
+    assert bool(_scipy_p_full_worse(shift + e, n_total, rope) >= 0.999) is beyond
+    race = racing.Race(_plan())
+    stops = _feed(race, {0: best, 1: other}, upto=J)
+    assert [s["config_index"] for s in stops] == ([1] if beyond else [])
+    if beyond:
+        s = stops[0]
+        assert (s["after_repeat"], s["after_fold"], s["n_scores"], s["best_index"]) == \
+            (0, J - 1, J, 0)
+        assert s["p_worse"] == pytest.approx(_scipy_p_full_worse(shift + e, n_total, rope),
+                                             abs=1e-12)
+        assert s["rope"] == rope and s["difference"] == pytest.approx(shift)
+        assert s["threshold"] == 0.999 and "0.999" in s["reason"]
+
+
+@pytest.mark.parametrize("beyond", [True, False])
+def test_the_correlated_variant_stops_at_scipys_posterior_tail(beyond):
+    """``test="correlated"`` (the verdict's Bayesian correlated t-test, kept for
+    comparison): stopped exactly when SciPy's posterior tail below -ROPE reaches the
+    threshold (0.99 here), at a first look after K blocks."""
+    u, rope = 0.01, 0.01
     e = np.array([-2, -1, 0, 1, 2]) * u
     scale = np.sqrt((1 / K + 1 / (K - 1)) * e.var(ddof=1))
     m = -rope - stats.t.ppf(0.99, K - 1) * scale + (-1e-4 if beyond else 1e-4)
     best = np.full(K * R, 0.8)
     other = np.concatenate([best[:K] + m + e, best[K:]])
     assert bool(_scipy_p_worse(m + e, rope) >= 0.99) is beyond
-    race = racing.Race(_plan())
+    race = racing.Race(_plan(), test="correlated", threshold=0.99, first_look=K)
     stops = _feed(race, {0: best, 1: other}, upto=K)
     assert [s["config_index"] for s in stops] == ([1] if beyond else [])
     if beyond:
-        s = stops[0]
-        assert (s["after_repeat"], s["after_fold"], s["n_scores"], s["best_index"]) == \
-            (0, K - 1, K, 0)
-        assert s["p_worse"] == pytest.approx(_scipy_p_worse(m + e, rope), abs=1e-9)
-        assert s["rope"] == rope and s["difference"] == pytest.approx(m)
+        assert stops[0]["p_worse"] == pytest.approx(_scipy_p_worse(m + e, rope), abs=1e-9)
+        assert stops[0]["n_scores"] == K
 
 
-def test_no_look_before_the_first_repeat_is_complete():
-    """A hopeless configuration is not stopped on K - 1 scores however bad it is."""
+def test_no_look_before_the_fourth_block_nor_after_the_last():
+    """A hopeless configuration is not stopped on three scores however bad it is; it is on
+    four. One that only becomes clearly worse in the last block is not stopped there:
+    every trial has run, nothing is left to save."""
     best = np.full(K * R, 0.8) + np.linspace(0, 0.01, K * R)
     hopeless = best - 0.7 + np.linspace(0, 0.001, K * R)
     race = racing.Race(_plan())
-    assert _feed(race, {0: best, 1: hopeless}, upto=K - 1) == []
-    assert _feed(racing.Race(_plan()), {0: best, 1: hopeless}, upto=K)[0]["config_index"] == 1
+    assert _feed(race, {0: best, 1: hopeless}, upto=3) == []
+    assert _feed(racing.Race(_plan()), {0: best, 1: hopeless}, upto=4)[0]["config_index"] == 1
+    late = best.copy()
+    late[-1] -= 5.0
+    race = racing.Race(_plan())
+    assert _feed(race, {0: best, 1: late}) == [] and race.stopped == {}
 
 
 def test_a_late_winner_behind_at_the_first_look_is_not_stopped_and_ranks_first():
@@ -130,6 +201,45 @@ def test_on_100_simulated_grids_the_full_sweeps_first_is_never_stopped():
     assert saved > 0.2 * 100 * 5 * K  # most of the hopeless ones stop well before the end
 
 
+def _simulate(true, seeds, k, r, fold_sd=0.03, noise=0.02):
+    """Race simulated k x r grids; return (grids whose full first was stopped, share run)."""
+    plan = SweepPlan(table="t.csv", target="y", task="regression", target_kind="signed",
+                     hidden=["relu", "tanh", "gelu", "silu", "elu"], heads=["identity"],
+                     learning_rates=[0.001, 0.01], folds=k, repeats=r, baselines=[],
+                     race=True)
+    n = k * r
+    lost, run = 0, 0
+    for seed in seeds:
+        rng = np.random.default_rng(seed)
+        x = true[:, None] + rng.normal(0, fold_sd, n)[None, :] + \
+            rng.normal(0, noise, (true.size, n))
+        race = racing.Race(plan)
+        for j, (rr, f) in enumerate(racing.block_keys(k, r)):
+            for c in range(true.size):
+                if c not in race.stopped:
+                    race.note({"config_index": c, "repeat": rr, "fold": f, "status": "done",
+                               "test_score": x[c, j], "n_train": 400, "n_test": 100})
+            race.look()
+        lost += int(np.argmax(x.mean(axis=1))) in race.stopped
+        run += sum(race._stop_position(c) + 1 if c in race.stopped else n
+                   for c in range(true.size))
+    return lost, run / (len(seeds) * true.size * n)
+
+
+def test_on_simulated_5x3_grids_the_first_is_never_stopped_and_hopeless_ones_are():
+    """The default 5 folds x 3 repeats on 300 simulated grids each: (a) five
+    configurations within the ROPE of each other and five worse by 0.03 to 0.3, (b) ten
+    practically equal ones (all within 0.009). The configuration with the best mean over
+    all 15 folds -- the full sweep's first -- is never stopped; on (a) racing runs at most
+    three quarters of the trials, on (b) it stops almost nothing (there is nothing
+    worse beyond the ROPE to stop)."""
+    spread = np.array([0.80, 0.798, 0.796, 0.794, 0.792, 0.77, 0.74, 0.70, 0.60, 0.50])
+    lost, share = _simulate(spread, range(300), 5, 3)
+    assert lost == 0 and share < 0.75
+    lost, share = _simulate(0.8 - 0.001 * np.arange(10), range(1000, 1300), 5, 3)
+    assert lost == 0 and share > 0.95
+
+
 def test_the_current_best_and_a_diverged_configuration_are_never_stopped():
     best = np.full(K * R, 0.8)
     race = racing.Race(_plan(3))
@@ -159,7 +269,7 @@ def test_an_error_score_waits_for_the_constant_baseline_and_takes_its_rope():
                    "test_score": -20.0, "n_train": 400, "n_test": 100})
     (stop,) = race.look()
     assert stop["config_index"] == 1 and stop["rope"] == pytest.approx(0.2)
-    assert (stop["after_repeat"], stop["after_fold"]) == (0, K - 1)  # at the first block
+    assert (stop["after_repeat"], stop["after_fold"]) == (0, 3)  # at the first look
 
 
 # --------------------------------------------------------------------------- real sweeps
@@ -370,3 +480,32 @@ def test_a_replayed_sweep_stores_what_the_racing_sweep_stored(full_and_raced):
     assert res["verdict"]["recommended"]["index"] == \
         fr["raced_res"]["verdict"]["recommended"]["index"]
     assert res["corrected_best"]["estimate"] == fr["raced_res"]["corrected_best"]["estimate"]
+
+
+def test_benchmark_helpers_reuse_the_full_sweep_and_subset_it(table, full_and_raced):
+    """:func:`racing.measure_racing` finds the stored full sweep of the same plan and
+    replays the race on it (nothing trained: the full sweep's id comes back); its figures
+    count the trials the racing sweep ran. :func:`racing.subset_sweep` stores the grid
+    of one hidden activation from the same trials: each score lands on the configuration
+    of the same activation and learning rate, and the baselines come along."""
+    fr = full_and_raced
+    out = racing.measure_racing(table, "target", store=fr["store"], rerun=False,
+                                plan=_race_plan(table, race=False))
+    assert out["full_id"] == fr["full"] and out["full"]["seconds"] is None
+    assert out["race"]["trials_run"] == len(fr["raced_scores"]) == out["replay_trials"]
+    assert out["share"] == pytest.approx(len(fr["raced_scores"]) / 36)
+    assert {s["index"] for s in out["stopped"]} == {1, 3} and out["replay_agrees"]
+    assert out["same_recommendation"] and out["same_group"] and out["first_kept"]
+    with Store(fr["store"]) as st:
+        sid = racing.subset_sweep(st, fr["full"], ["tanh"], "only-tanh")
+        sub = SweepPlan.from_dict(st.get_sweep(sid)["plan"])
+        big = SweepPlan.from_dict(st.get_sweep(fr["full"])["plan"])
+        assert sub.hidden == ["tanh"] and sub.n_configurations == 2
+        by = {(c.hidden, c.learning_rate): c.index for c in big.configurations()}
+        for c in sub.configurations():
+            old = by[(c.hidden, c.learning_rate)]
+            for r, f in racing.block_keys(3, 3):
+                assert _stored(st, sid)[(c.index, r, f)] == fr["full_scores"][(old, r, f)]
+        assert len(st.baseline_trials(sid)) == len(st.baseline_trials(fr["full"]))
+        assert {t["config_index"] for t in st.baseline_trials(sid)} == \
+            {b.index for b in sub.baseline_configurations()}
