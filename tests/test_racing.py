@@ -156,6 +156,9 @@ def test_no_look_before_the_fourth_block_nor_after_the_last():
     race = racing.Race(_plan())
     assert _feed(race, {0: best, 1: hopeless}, upto=3) == []
     assert _feed(racing.Race(_plan()), {0: best, 1: hopeless}, upto=4)[0]["config_index"] == 1
+    assert racing.look_positions(_plan()) == set(range(3, K * R - 1))
+    assert racing.look_positions(SweepPlan.from_dict(dict(_plan().to_dict(), race=False))) \
+        == set()
     late = best.copy()
     late[-1] -= 5.0
     race = racing.Race(_plan())

@@ -188,6 +188,17 @@ def block_keys(folds: int, repeats: int) -> list[tuple[int, int]]:
     return [(r, f) for r in range(int(repeats)) for f in range(int(folds))]
 
 
+def look_positions(plan) -> set[int]:
+    """The positions (in :func:`block_keys` order) of the blocks after which a racing
+    sweep looks: from the :data:`FIRST_LOOK`-th block to the last but one (none
+    without racing). The runner ends its groups of trials there
+    (:func:`workbench.sweep.runner.look_positions`)."""
+    if not getattr(plan, "race", False):
+        return set()
+    n = int(plan.folds) * int(plan.repeats)
+    return set(range(max(1, min(FIRST_LOOK, n)) - 1, n - 1))
+
+
 class Race:
     """The racing state of one sweep: its scores so far and its stopped configurations.
 
