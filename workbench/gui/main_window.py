@@ -26,7 +26,7 @@ from PySide6.QtCore import (
     QUrl,
     Signal,
 )
-from PySide6.QtGui import QAction, QDesktopServices, QKeySequence
+from PySide6.QtGui import QAction, QDesktopServices, QFont, QFontMetrics, QKeySequence
 from PySide6.QtWidgets import (
     QAbstractItemView,
     QApplication,
@@ -81,6 +81,12 @@ CANNOT_RUN = "Cannot run yet: "
 CALIBRATE_DELAY_MS = 500
 #: the most configurations drawn at once in the plots
 MAX_PLOTTED = 8
+#: the modules a sweep imports on its thread (sklearn's parts among them), imported in the
+#: background as soon as the window opens (while the user picks a table)
+SWEEP_MODULES = ("workbench.sweep.runner", "workbench.sweep.trials",
+                 "workbench.data.preprocessing", "joblib", "sklearn.dummy",
+                 "sklearn.discriminant_analysis")
+WARM_UP_DELAY_MS = 0
 #: least milliseconds between two updates of the results from a running sweep's rankings
 #: (a ranking that arrives sooner waits, and only the newest waiting one is shown)
 RANKED_INTERVAL_MS = 250
@@ -203,6 +209,7 @@ class MainWindow(QMainWindow):
         self.sweep_id: str | None = None
         self.results_meta: dict = {}
         self._natural: dict[str, int] = {}  # results columns' widths fitted to contents
+        self._cell_margin: int | None = None  # a results cell's width beyond its text
         self._sweep: SweepThread | None = None
         self._load_generation = 0
         self._target_generation = 0
@@ -247,6 +254,20 @@ class MainWindow(QMainWindow):
         hints = QApplication.styleHints()
         if hasattr(hints, "colorSchemeChanged"):
             hints.colorSchemeChanged.connect(self._system_scheme_changed)
+        # the sweep's own modules, imported in the background once the window is up: first
+        # imported by the sweep's thread when Run is pressed, they held the interpreter
+        # (and the window's event loop) for hundreds of milliseconds as the sweep started
+        QTimer.singleShot(WARM_UP_DELAY_MS, self._warm_up)
+
+    @staticmethod
+    def _warm_up() -> None:
+        import importlib
+
+        def job():
+            for name in SWEEP_MODULES:
+                importlib.import_module(name)
+
+        run_task(job, lambda _result: None, lambda _msg: None)
 
     def _system_scheme_changed(self, *_):
         if self._theme_choice == "system":
@@ -1174,10 +1195,11 @@ class MainWindow(QMainWindow):
             view.setColumnHidden(col, len({r.get(key) for r in rows}) <= 1)
         hh = view.horizontalHeader()
         fm = hh.fontMetrics()
+        widths = self._content_widths()
         for i, key in enumerate(COLUMN_KEYS):
             if view.isColumnHidden(i):
                 continue
-            content = max(view.sizeHintForColumn(i), COLUMN_MIN.get(key, 34))
+            content = max(widths[i], COLUMN_MIN.get(key, 34))
             # the header's text and padding (style sheet: 6 px each side), and the sort
             # arrow's room on the sorted column (refitted when the sort changes)
             header = fm.horizontalAdvance(self.results_model.headerData(i, Qt.Horizontal)) \
@@ -1185,6 +1207,40 @@ class MainWindow(QMainWindow):
             natural = min(max(content, header), 180)
             self._natural[key] = (natural, min(content, natural))
         self._squeeze_columns()
+
+    def _content_widths(self) -> list[int]:
+        """Each column's widest cell among the first rows shown (as many as the header's
+        resize precision), measured as the view's delegate measures it: the text's width in
+        the cell's font plus the delegate's margins. (``sizeHintForColumn`` asks the model
+        for ten roles of every cell through Python: 150 ms at the first ranking of a sweep
+        on a busy machine, with the event loop held.)"""
+        view = self.results_view
+        n = min(self.proxy.rowCount(), max(1, view.horizontalHeader().resizeContentsPrecision()))
+        if n == 0:
+            return [0] * len(COLUMN_KEYS)
+        plain = view.fontMetrics()
+        bold, italic = QFont(view.font()), QFont(view.font())
+        bold.setBold(True)
+        italic.setItalic(True)
+        fbold, fitalic = QFontMetrics(bold), QFontMetrics(italic)
+        widths = [0] * len(COLUMN_KEYS)
+        mean = COLUMN_KEYS.index("mean")
+        for r in range(n):
+            row = self.proxy.row_at(r)
+            baseline = row.get("kind") == "baseline"
+            for i, key in enumerate(COLUMN_KEYS):
+                text = ResultsModel._display(row, key)
+                if not text:
+                    continue
+                fm = fitalic if baseline else (fbold if i == mean and row.get("rank") == 1
+                                                else plain)
+                widths[i] = max(widths[i], fm.horizontalAdvance(text))
+        if self._cell_margin is None:  # the delegate's margins, measured on one column once
+            col = COLUMN_KEYS.index("hidden")
+            if widths[col] > 0:
+                self._cell_margin = view.sizeHintForColumn(col) - widths[col]
+        margin = self._cell_margin if self._cell_margin is not None else 8
+        return [w + margin if w else 0 for w in widths]
 
     def _squeeze_columns(self) -> None:
         """Every shown column inside the view. Headers wider than their cells give way
