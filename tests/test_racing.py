@@ -512,3 +512,26 @@ def test_benchmark_helpers_reuse_the_full_sweep_and_subset_it(table, full_and_ra
         assert len(st.baseline_trials(sid)) == len(st.baseline_trials(fr["full"]))
         assert {t["config_index"] for t in st.baseline_trials(sid)} == \
             {b.index for b in sub.baseline_configurations()}
+
+
+def test_the_words_of_the_rule_follow_its_constants():
+    """The ``--race`` help (written out, so that ``--help`` imports nothing heavy) and the
+    results' racing statement state the threshold and the first look of the module."""
+    import argparse
+
+    from workbench.commands import sweep as sweep_cmd
+    from workbench.sweep import racing
+    from workbench.sweep.results import racing_text
+
+    parser = argparse.ArgumentParser()
+    sweep_cmd.add_arguments(parser)
+    help_text = " ".join(next(a.help for a in parser._actions if "--race" in a.option_strings)
+                         .split())
+    assert f"P >= {racing.THRESHOLD:g}" in help_text
+    assert f"from the {racing.FIRST_LOOK}th on" in help_text
+    res = {"configurations": [{"rank": 2, "hidden": "tanh", "head": "logistic",
+                               "layers": [4], "learning_rate": 0.01, "alpha": 1e-4,
+                               "stopped": {"after_repeat": 0, "after_fold": 3,
+                                           "n_scores": 4}, "trials": [{}] * 4}],
+           "racing": {"n_trials": 30, "n_stored": 19}}
+    assert racing.rule_text() in racing_text(res)

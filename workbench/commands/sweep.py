@@ -112,10 +112,10 @@ def add_arguments(parser):
                         help="with --resume: where the sweep's table is now, when it was moved "
                              "(its SHA-256 is checked; default: the stored path)")
     parser.add_argument("--race", action="store_true",
-                        help="racing: after each block of folds (from the end of the first "
-                             "repeat), stop configurations practically worse than the best "
-                             "beyond doubt (P >= 0.99, Bayesian correlated t-test); their "
-                             "scores are kept, marked partial")
+                        help="racing: after each block of folds from the 4th on, stop "
+                             "configurations the full sweep would find practically worse than "
+                             "the best (P >= 0.999, Student t prediction from the paired fold "
+                             "scores so far); their scores are kept, marked partial")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
 
 

@@ -791,10 +791,11 @@ def racing_text(res: dict) -> str | None:
         parts.append(f"rank {c['rank']} {configuration_label(c)} after repeat "
                      f"{s['after_repeat'] + 1}, fold {s['after_fold'] + 1} "
                      f"({s['n_scores']} scores; {len(c['trials'])} trials run)")
+    from workbench.sweep.racing import rule_text
+
     racing = res.get("racing") or {}
     saved = (racing.get("n_trials") or 0) - (racing.get("n_stored") or 0)
     return (f"{len(stopped)} configuration{'s' if len(stopped) != 1 else ''} {STOPPED}, "
-            f"practically worse than the best beyond doubt (P(worse) >= "
-            f"{racing.get('threshold', 0.99):g}, Bayesian correlated t-test), "
+            f"practically worse than the best beyond doubt ({rule_text()}), "
             f"{saved} trial{'s' if saved != 1 else ''} not run; their scores are partial and "
             f"they are not eligible for the recommendation: " + "; ".join(parts) + ".")
