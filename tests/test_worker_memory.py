@@ -260,8 +260,6 @@ def test_a_fit_holds_one_float32_copy_of_the_rows():
     assert one < peak < 2 * one
 
 
-@pytest.mark.xfail(strict=True, reason="workbench/sweep/trials.py does not yet build its "
-                   "pipelines with columnwise_medians=True (asked for in the memory report)")
 def test_the_sweeps_trials_fit_their_medians_column_by_column(monkeypatch):
     """Wiring: a sweep trial's preprocessing fits its median imputers column by column
     (:func:`workbench.data.preprocessing.fit_median_by_column`)."""

@@ -239,7 +239,8 @@ def baseline_pipeline(profile, target, name: str, metric: str | None = None):
 
     from workbench.data.preprocessing import build_preprocessor
 
-    return Pipeline([("prep", build_preprocessor(profile, target)),
+    # a trial's pipeline is never saved: its median imputers may be fitted column by column
+    return Pipeline([("prep", build_preprocessor(profile, target, columnwise_medians=True)),
                      ("model", make_baseline(target.task, name, metric))])
 
 
@@ -764,7 +765,8 @@ def _fits_stack_budget(data: TrialData, specs) -> bool:
 
     spec = specs[0]
     try:
-        X_tr, _ = _fold_features(data, spec, build_preprocessor(data.profile, data.target),
+        X_tr, _ = _fold_features(data, spec, build_preprocessor(data.profile, data.target,
+                                                                   columnwise_medians=True),
                                  np.asarray(spec["train"]), np.asarray(spec["test"]))
     except Exception:  # the trials will meet it (and record it) themselves
         return False
@@ -840,7 +842,8 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
     if cfg.get("kind") == "baseline":
         pipe = baseline_pipeline(data.profile, data.target, cfg["name"], spec["metric"])
     else:
-        pipe = build_pipeline(data.profile, data.target, make_estimator(spec), cfg["head"])
+        pipe = build_pipeline(data.profile, data.target, make_estimator(spec), cfg["head"],
+                              columnwise_medians=True)  # never saved (see baseline_pipeline)
     prep, model = pipe.named_steps["prep"], pipe.named_steps["model"]
     X_tr, X_te = _fold_features(data, spec, prep, train, test)
     fit_params = {}
