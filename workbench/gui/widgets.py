@@ -118,26 +118,43 @@ class ElidedLabel(QLabel):
 
     For lines that must share a row with other controls (the progress line beside the
     tabs); never use it for text the user must read whole.
+
+    It keeps its text itself and paints it: QLabel's own setText asks the layouts above
+    to place everything again, and beside the tabs that repainted the whole results page
+    at every progress tick. The width it asks for follows the text when the text grows,
+    and when it shrinks by more than :data:`STEP` pixels; only then are the layouts asked.
     """
 
-    def minimumSizeHint(self) -> QSize:  # noqa: N802 - Qt override
-        return QSize(40, super().minimumSizeHint().height())
-
-    #: the width it asks for goes up and down in steps of this many pixels: a hint that
-    #: followed every character re-laid out (and repainted) what holds it at each new text
+    #: pixels a text may shrink by before the label asks for less room
     STEP = 120
 
+    def __init__(self, text: str = "", parent=None):
+        super().__init__("X", parent)  # QLabel's own text only sizes one line
+        self._text = ""
+        self._hint_text = ""  # the text whose width was last announced to the layouts
+        self.setText(text)
+
+    def text(self) -> str:  # noqa: D102 - Qt override
+        return self._text
+
     def setText(self, text: str) -> None:  # noqa: N802 - Qt override
-        if text == self.text():
+        if text == self._text:
             return
-        super().setText(text)
+        self._text = text
         self.setToolTip(text)
-        self.updateGeometry()
+        fm = self.fontMetrics()
+        width, announced = fm.horizontalAdvance(text), fm.horizontalAdvance(self._hint_text)
+        if width > announced or width < announced - self.STEP:
+            self._hint_text = text
+            self.updateGeometry()
+        self.update()
 
     def sizeHint(self) -> QSize:  # noqa: N802 - Qt override
         fm = self.fontMetrics()
-        width = fm.horizontalAdvance(self.text()) + 8
-        return QSize(-(-width // self.STEP) * self.STEP, super().sizeHint().height())
+        return QSize(fm.horizontalAdvance(self._hint_text) + 8, super().sizeHint().height())
+
+    def minimumSizeHint(self) -> QSize:  # noqa: N802 - Qt override
+        return QSize(40, super().minimumSizeHint().height())
 
     def paintEvent(self, event) -> None:  # noqa: N802 - Qt override
         p = QPainter(self)
