@@ -449,3 +449,20 @@ def test_a_new_selection_in_the_window_updates_the_plot_items_in_place(qtbot, wi
         # the ranges depend on the data alone; compare everything
         assert drawn == expected, type(mine).__name__
     assert win.plot_area.legend.text() == fresh.legend.text()
+
+
+def test_the_selection_note_is_shown_whole_in_its_fixed_box(qtbot, window):
+    """The note under the table sits in a box of fixed height placed by hand (so that a new
+    text does not re-lay out the window): it must still fill the box and get the height
+    its text needs at its width, for one line and for several."""
+    win = window
+    win.tabs.setCurrentIndex(1)
+    note, box = win.selection_note, win.selection_box
+    qtbot.waitUntil(box.isVisible, timeout=5_000)
+    for pick in ([0], list(range(win.proxy.rowCount()))):
+        win.select_rows([r for r in pick if win.proxy.row_at(r).get("series")] or [0])
+        qtbot.waitUntil(lambda: note.geometry().size() == box.size(), timeout=2_000)
+        assert note.isVisible() and note.text().startswith("Selected:")
+        assert box.height() >= note.heightForWidth(box.width()) > 0
+    box.resize(200, box.height())  # narrow: the text needs more lines, the box follows
+    qtbot.waitUntil(lambda: box.height() >= note.heightForWidth(200), timeout=2_000)

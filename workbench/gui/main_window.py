@@ -1170,19 +1170,22 @@ class MainWindow(QMainWindow):
             + m.top() + m.bottom()
         need = note.heightForWidth(width) if width > 0 and note.text() else 0
         height = max(two, need)
-        if height != self.selection_box.height() or \
+        if height != self.selection_box.minimumHeight() or \
                 self.selection_box.minimumHeight() != self.selection_box.maximumHeight():
             self.selection_box.setFixedHeight(height)
+        # the note fills its box (placed here, not by a layout: see _build_ui)
+        box = self.selection_box.size()
+        if note.size() != box:
+            note.setGeometry(0, 0, box.width(), box.height())
 
     def eventFilter(self, obj, event) -> bool:  # noqa: N802 - Qt override
         from PySide6.QtCore import QEvent
 
         if obj is self.results_view.viewport() and event.type() == QEvent.Resize:
             self._squeeze_columns()
-        elif obj is getattr(self, "selection_box", None) and event.type() == QEvent.Resize:
-            self.selection_note.setGeometry(0, 0, event.size().width(), event.size().height())
-            if event.size().width() != event.oldSize().width():
-                self._fit_selection_box()
+        elif obj is getattr(self, "selection_box", None) and event.type() in (QEvent.Resize,
+                                                                               QEvent.Show):
+            self._fit_selection_box()
         return super().eventFilter(obj, event)
 
     def _fit_columns(self) -> None:
