@@ -1079,9 +1079,19 @@ class MainWindow(QMainWindow):
             self._last_sweep = (p["done"] - p.get("stored", 0), time.monotonic() - p["t0"])
         self._update_actions()
         self._update_estimate()
+        # the rest on the event loop's next turn: the last ranking shown (above) and the
+        # first row's plots drawn (below) in one go held the loop ~140 ms; sweepEnded still
+        # comes after both
+        QTimer.singleShot(0, lambda: self._sweep_done_rest(summary))
+
+    def _sweep_done_rest(self, summary: dict) -> None:
+        """The end of a sweep, second part: columns fitted, the best row shown, then
+        :attr:`sweepEnded`."""
+        if not shiboken6.isValid(self.results_view):
+            return
         self._fit_columns()
         if self.results_view.selectionModel().selectedRows() == [] \
-                and self.proxy.rowCount() > 0:
+                and self.proxy.rowCount() > 0 and not self.sweep_running():
             self.select_rows([0])
         self.sweepEnded.emit(summary)
         if self._close_after_stop:
