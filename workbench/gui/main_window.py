@@ -329,6 +329,10 @@ class MainWindow(QMainWindow):
                                "stop")
         self.export_action = act("&Export…", QKeySequence("Ctrl+E"), self.show_export_dialog,
                                  "Export the recommended configuration, or another (Ctrl+E)", "export")
+        self.cross_check_action = act(
+            "&Cross-check on scikit-learn…", QKeySequence("Ctrl+K"), self.show_cross_check_dialog,
+            "Refit a configuration on scikit-learn's own MLP and compare the scores fold by "
+            "fold (Ctrl+K)")
         self.history_action = act("&History…", QKeySequence("Ctrl+H"), self.show_history,
                                   "Reopen or resume an earlier sweep (Ctrl+H)", "history")
         self.quit_action = act("&Quit", QKeySequence.Quit, self.close, "Quit (Ctrl+Q)")
@@ -353,6 +357,7 @@ class MainWindow(QMainWindow):
         m.addAction(self.run_action)
         m.addAction(self.stop_action)
         m.addSeparator()
+        m.addAction(self.cross_check_action)
         m.addAction(self.history_action)
         m = mb.addMenu("&View")
         tm = m.addMenu("&Theme")
@@ -549,6 +554,7 @@ class MainWindow(QMainWindow):
         self.results_view.selectionModel().selectionChanged.connect(self._selection_changed)
         self.results_view.setContextMenuPolicy(Qt.ActionsContextMenu)
         self.results_view.addAction(self.export_action)
+        self.results_view.addAction(self.cross_check_action)
         self.results_view.viewport().installEventFilter(self)
         self.results_model.rowsUpdated.connect(self._rows_updated)
 
@@ -1334,7 +1340,7 @@ class MainWindow(QMainWindow):
     def show_shortcuts(self) -> None:
         rows = []
         for a in (self.open_action, self.run_action, self.stop_action, self.export_action,
-                  self.history_action, self.quit_action):
+                  self.cross_check_action, self.history_action, self.quit_action):
             keys = ", ".join(k.toString(QKeySequence.NativeText) for k in a.shortcuts())
             rows.append(f"<tr><td>{a.text().replace('&', '').rstrip('…')}</td>"
                         f"<td>&nbsp;&nbsp;<b>{keys}</b></td></tr>")
@@ -1418,6 +1424,21 @@ class MainWindow(QMainWindow):
         progress = self.exportProgress.emit
         run_task(lambda: core.export(store, sweep_id, row, folder, formats, progress),
                  done, failed)
+
+    def show_cross_check_dialog(self) -> None:
+        """Refit a configuration of the shown sweep on scikit-learn's MLP (the recommended
+        one first, as Export offers them) and compare the scores fold by fold."""
+        from workbench.gui.cross_check_dialog import CrossCheckDialog
+
+        choices = self.export_choices()
+        if self.sweep_id is None or not choices:
+            self.show_message("Run or reopen a sweep first; then cross-check its recommended "
+                              "configuration.")
+            return
+        plan = self.results_meta.get("plan") or {}
+        dlg = CrossCheckDialog(self, self.store_path, self.sweep_id, choices,
+                               plan.get("task", "classification"), plan.get("target_kind"))
+        dlg.exec()
 
     def show_history(self) -> None:
         from workbench.gui.dialogs import HistoryDialog
@@ -1531,6 +1552,7 @@ class MainWindow(QMainWindow):
                                           else QAbstractItemView.AllEditTriggers)
         self.stop_action.setEnabled(running)
         self.export_action.setEnabled(not running and self.results_model.rowCount() > 0)
+        self.cross_check_action.setEnabled(not running and self.results_model.rowCount() > 0)
         self.open_action.setEnabled(not running)
 
     def closeEvent(self, event) -> None:

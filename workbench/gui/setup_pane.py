@@ -170,8 +170,8 @@ class SetupPane(QWidget):
         # a short label: the grid's width is the set-up column's (the tooltip says it all)
         self.race_check = QCheckBox("racing")
         self.race_check.setToolTip(
-            "Racing: after each block of folds, from the end of the first repeat on, stop the "
-            "configurations that are practically worse than the current best beyond doubt; "
+            "Racing: after each block of folds, from the 4th on, stop the configurations the "
+            "full sweep would find practically worse than the current best (P >= 0.999); "
             "their remaining trials are not run. Saves time on large grids; the winner and "
             "the configurations close to it still get every trial. Off: every trial runs.")
         self.race_check.setChecked(bool(DEFAULTS.get("race", False)))
