@@ -167,11 +167,15 @@ class SetupPane(QWidget):
         self.early_check = QCheckBox("stop early")
         self.early_check.setToolTip("Hold out 10 % of each training fold and stop when its "
                                     "score stalls; records a validation curve per epoch")
+        from workbench.sweep.racing import FIRST_LOOK
+        from workbench.sweep.racing import THRESHOLD as RACE_THRESHOLD
+
         # a short label: the grid's width is the set-up column's (the tooltip says it all)
         self.race_check = QCheckBox("racing")
         self.race_check.setToolTip(
-            "Racing: after each block of folds, from the 4th on, stop the configurations the "
-            "full sweep would find practically worse than the current best (P >= 0.999); "
+            f"Racing: after each block of folds, from the {FIRST_LOOK}th on, stop the "
+            "configurations the full sweep would find practically worse than the current best "
+            f"(P >= {RACE_THRESHOLD:g}); "
             "their remaining trials are not run. Saves time on large grids; the winner and "
             "the configurations close to it still get every trial. Off: every trial runs.")
         self.race_check.setChecked(bool(DEFAULTS.get("race", False)))
