@@ -1,7 +1,9 @@
 """The warm pool of local workers: started early, imports done in the worker."""
 
+import os
 import subprocess
 import sys
+import threading
 from pathlib import Path
 
 import pytest
@@ -115,3 +117,46 @@ def test_stop_pool_stops_the_warm_pool_and_forgets_it():
         p.join(timeout=60)  # killed, not left to finish its imports or its gate
         assert not p.is_alive()
     pool.stop_pool()  # no pool: nothing to do
+
+
+def test_the_file_gate_elects_one_first_worker_opens_once_and_is_removed():
+    """The staggered pool's gate is two plain files (no named semaphores for loky's resource
+    tracker to clean up after killed workers): one ``acquire`` wins, ``wait`` returns False
+    until :meth:`set`, the folder goes with :meth:`remove`. Reference: ``threading.Event``
+    and ``threading.Semaphore(1).acquire(False)``, whose behaviour it must have."""
+    import os
+
+    gate = pool.FileGate()
+    ref_event, ref_sem = threading.Event(), threading.Semaphore(1)
+    assert [gate.acquire(False), gate.acquire(False)] == [ref_sem.acquire(False),
+                                                          ref_sem.acquire(False)] == [True, False]
+    assert gate.is_set() == ref_event.is_set() is False
+    assert gate.wait(0.05) is ref_event.wait(0.05) is False
+    gate.set()
+    ref_event.set()
+    assert gate.is_set() and gate.wait(0.0) is ref_event.wait(0.0) is True
+    gate.remove()
+    assert not os.path.exists(gate.folder)
+
+
+def test_a_refusal_after_a_staggered_start_prints_one_line_only(tmp_path):
+    """``workbench sweep`` with two staggered workers, refused on its target after they
+    started: its stderr is the one-line message and nothing else (a killed worker once left
+    a semaphore for loky's resource tracker, which then warned on the command's stderr), and
+    no gate folder is left behind."""
+    import glob
+    import tempfile
+    from pathlib import Path
+
+    before = set(glob.glob(os.path.join(tempfile.gettempdir(), "workbench-gate-*")))
+    table = Path(__file__).resolve().parents[1] / "sample_sets" / "kiln_batches.csv"
+    for _ in range(2):
+        proc = subprocess.run([sys.executable, "-m", "workbench", "sweep", str(table),
+                               "--target", "no_such_column", "--jobs", "2", "--store",
+                               str(tmp_path / "s.sqlite"), "--quiet"],
+                              capture_output=True, text=True, timeout=300)
+        assert proc.returncode == 2
+        assert proc.stderr.startswith("workbench: no column named")
+        assert proc.stderr.count("\n") == 1, proc.stderr
+    after = set(glob.glob(os.path.join(tempfile.gettempdir(), "workbench-gate-*")))
+    assert after <= before

@@ -95,6 +95,58 @@ def _watch_parent(parent_pid: int, period: float = PARENT_CHECK_SECONDS) -> None
     threading.Thread(target=watch, name="workbench-parent-watch", daemon=True).start()
 
 
+class FileGate:
+    """The staggered pool's gate and its "first worker" token, as two files in a folder of
+    their own: :meth:`set` creates ``open``, :meth:`wait` polls for it, :meth:`acquire`
+    takes ``first`` with an exclusive create (one worker wins).
+
+    Plain files rather than loky's ``Event``/``Semaphore``: those are named semaphores
+    registered with loky's resource tracker in every worker that unpickles them, and a
+    worker killed while holding one (``workbench sweep`` refusing a bad option right after
+    prestarting) left a registration the tracker then failed to clean up, with a warning
+    on the command's stderr after its one-line message. The folder is removed with the
+    pool (:func:`_shutdown`); workers never write in it except ``first``.
+    """
+
+    POLL_SECONDS = 0.02
+
+    def __init__(self):
+        import atexit
+        import tempfile
+
+        self.folder = tempfile.mkdtemp(prefix="workbench-gate-")
+        atexit.register(self.remove)  # in the process that made it (unpickling skips this)
+
+    def set(self) -> None:
+        open(os.path.join(self.folder, "open"), "w").close()
+
+    def is_set(self) -> bool:
+        return os.path.exists(os.path.join(self.folder, "open"))
+
+    def wait(self, timeout: float) -> bool:
+        end = time.monotonic() + float(timeout)
+        while not self.is_set():
+            if time.monotonic() >= end:
+                return False
+            time.sleep(self.POLL_SECONDS)
+        return True
+
+    def acquire(self, blocking: bool = False) -> bool:
+        """Take the "first worker" token (never blocks: one worker gets it)."""
+        try:
+            os.close(os.open(os.path.join(self.folder, "first"), os.O_CREAT | os.O_EXCL))
+        except FileExistsError:
+            return False
+        except OSError:  # the folder is gone (the pool was stopped): nothing to wait for
+            return True
+        return True
+
+    def remove(self) -> None:
+        import shutil
+
+        shutil.rmtree(self.folder, ignore_errors=True)
+
+
 def _warm_pool(workers: int, staggered: bool = False):
     """The warm pool with ``workers`` processes (a new one when the size differs).
 
@@ -110,14 +162,13 @@ def _warm_pool(workers: int, staggered: bool = False):
         ex = _POOL.get("executor")
         if ex is not None and _POOL.get("workers") != workers:
             _shutdown(ex)
+            if _POOL.get("gate") is not None:
+                _POOL["gate"].remove()
             ex = None
         if ex is None:
             gate = first = None
             if staggered and workers > 1:
-                from joblib.externals.loky.backend import get_context
-
-                ctx = get_context("loky")
-                gate, first = ctx.Event(), ctx.Semaphore(1)
+                gate = first = FileGate()
             ex = ProcessPoolExecutor(max_workers=workers, timeout=POOL_IDLE_SECONDS,
                                      env=dict(_THREAD_ENV), initializer=_start_worker,
                                      initargs=(os.getpid(), gate, first))
@@ -172,10 +223,14 @@ def _shutdown(ex):
 
 def _drop_pool(ex):
     """Stop a pool (after a worker death or a cancel) and forget it if it is the warm one."""
+    gate = None
     with _POOL_LOCK:
         if _POOL.get("executor") is ex:
+            gate = _POOL.get("gate")
             _POOL.clear()
     _shutdown(ex)
+    if gate is not None:
+        gate.remove()
 
 
 def default_jobs() -> int:
