@@ -353,7 +353,24 @@ class _Panel(QWidget):
                 ax.setPen(_pen(QColor(theme.plot_fg), 1))
                 ax.setTextPen(QColor(theme.plot_fg))
 
-    def set_series(self, series: list[dict]) -> None:  # pragma: no cover - overridden
+    def set_series(self, series: list[dict]) -> None:
+        """Draw ``series`` in place: every item pool of the panel (:meth:`_pools`) is
+        reused by :meth:`_set_series`, and what it did not reuse is hidden after."""
+        self._series = list(series)
+        pools = self._pools()
+        for pool in pools:
+            pool.begin()
+        try:
+            self._set_series()
+        finally:
+            for pool in pools:
+                pool.end()
+            self._settle()
+
+    def _pools(self) -> tuple:  # pragma: no cover - overridden
+        raise NotImplementedError
+
+    def _set_series(self) -> None:  # pragma: no cover - overridden
         raise NotImplementedError
 
     # -- shared drawing ---------------------------------------------------------------
@@ -497,18 +514,9 @@ class CurvesPanel(_Panel):
             return []
         return list(band["mean"]) + list(band["lo"]) + list(band["hi"])
 
-    def set_series(self, series: list[dict]) -> None:
-        self._series = list(series)
-        for pool in (self._loss_bands, self._loss_lines, self._loss_tests, self._val_bands,
-                     self._val_lines):
-            pool.begin()
-        try:
-            self._set_series()
-        finally:
-            for pool in (self._loss_bands, self._loss_lines, self._loss_tests, self._val_bands,
-                         self._val_lines):
-                pool.end()
-            self._settle()
+    def _pools(self) -> tuple:
+        return (self._loss_bands, self._loss_lines, self._loss_tests, self._val_bands,
+                self._val_lines)
 
     def _set_series(self) -> None:
         self._curves = []
@@ -637,17 +645,8 @@ class SpreadPanel(_Panel):
     def scatter_items(self) -> list[pg.ScatterPlotItem]:
         return list(self._scatters)
 
-    def set_series(self, series: list[dict]) -> None:
-        self._series = list(series)
-        pools = (self._dots, self._bars, self._means)
-        for pool in pools:
-            pool.begin()
-        try:
-            self._set_series()
-        finally:
-            for pool in pools:
-                pool.end()
-            self._settle()
+    def _pools(self) -> tuple:
+        return (self._dots, self._bars, self._means)
 
     def _set_series(self) -> None:
         self._scatters = []
@@ -735,17 +734,8 @@ class HealthPanel(_Panel):
     def bar_items(self) -> list[pg.BarGraphItem]:
         return list(self._bars)
 
-    def set_series(self, series: list[dict]) -> None:
-        self._series = list(series)
-        pools = (self._bar_pool, self._grad_pool)
-        for pool in pools:
-            pool.begin()
-        try:
-            self._set_series()
-        finally:
-            for pool in pools:
-                pool.end()
-            self._settle()
+    def _pools(self) -> tuple:
+        return (self._bar_pool, self._grad_pool)
 
     def _set_series(self) -> None:
         self._bars = []
