@@ -211,6 +211,34 @@ print(json.dumps({"base_rss": base_rss, "base_uss": base_uss, "peak_rss": peak["
 """
 
 
+def _median_worker(code, spec_path, workers, package_root, data) -> dict:
+    """Run ``workers`` processes of ``code`` on the pickled specs at ``spec_path``; the
+    median one's figures (by USS peak), in MB, with the table's numeric size."""
+    import json
+    import subprocess
+
+    env = dict(os.environ, OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1")
+    if package_root:
+        env["PYTHONPATH"] = str(package_root)
+    procs = [subprocess.Popen([sys.executable, "-c", code, spec_path], text=True,
+                              stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env,
+                              cwd=package_root or None) for _ in range(workers)]
+    runs = []
+    for proc in procs:
+        stdout, stderr = proc.communicate(timeout=900)
+        if proc.returncode:
+            raise RuntimeError(stderr[-2000:])
+        runs.append(json.loads(stdout.strip().splitlines()[-1]))
+    got = sorted(runs, key=lambda r: r["peak_uss"])[len(runs) // 2]
+    mb = 2 ** 20
+    numeric = data.X.select_dtypes("number").to_numpy().nbytes + np.asarray(data.y).nbytes
+    got["numeric_mb"] = numeric / mb
+    for key in ("base_rss", "base_uss", "peak_rss", "peak_uss", "maxrss"):
+        got[key] = got[key] / mb
+    got["peak_rss"] = max(got["peak_rss"], (got["hwm"] or 0) / mb)
+    return got
+
+
 def worker_peak(csv, folder, epochs: int = 2, folds_run: int = 3, package_root=None,
                 workers: int = 2) -> dict:
     """Memory of a fresh worker process that runs one trial on each of ``folds_run`` folds
@@ -230,9 +258,7 @@ def worker_peak(csv, folder, epochs: int = 2, folds_run: int = 3, package_root=N
     (``ru_maxrss``, still returned as ``maxrss``, is not quoted: a child process starts
     with its parent's, here the parent that read the CSV.)
     """
-    import json
     import pickle
-    import subprocess
 
     from workbench.sweep.trials import save_worker_data
 
@@ -248,26 +274,9 @@ def worker_peak(csv, folder, epochs: int = 2, folds_run: int = 3, package_root=N
     spec_path = os.path.join(folder, "spec.pkl")
     with open(spec_path, "wb") as fh:
         pickle.dump(specs, fh)
-    env = dict(os.environ, OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1")
-    if package_root:
-        env["PYTHONPATH"] = str(package_root)
-    procs = [subprocess.Popen([sys.executable, "-c", _WORKER, spec_path], text=True,
-                              stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env,
-                              cwd=package_root or None) for _ in range(workers)]
-    runs = []
-    for proc in procs:
-        stdout, stderr = proc.communicate(timeout=900)
-        if proc.returncode:
-            raise RuntimeError(stderr[-2000:])
-        runs.append(json.loads(stdout.strip().splitlines()[-1]))
-    got = sorted(runs, key=lambda r: r["peak_uss"])[len(runs) // 2]
-    mb = 2 ** 20
-    numeric = data.X.select_dtypes("number").to_numpy().nbytes + np.asarray(data.y).nbytes
-    got.update(numeric_mb=numeric / mb, write_s=write_s,
-               file_mb=sum(f.stat().st_size for f in Path(folder).glob("table.bin*")) / mb)
-    for k in ("base_rss", "base_uss", "peak_rss", "peak_uss", "maxrss"):
-        got[k] = got[k] / mb
-    got["peak_rss"] = max(got["peak_rss"], (got["hwm"] or 0) / mb)
+    got = _median_worker(_WORKER, spec_path, workers, package_root, data)
+    got.update(write_s=write_s, file_mb=sum(f.stat().st_size
+                                            for f in Path(folder).glob("table.bin*")) / 2 ** 20)
     rss, uss = got["peak_rss"] - got["base_rss"], got["peak_uss"] - got["base_uss"]
     print(f"table {csv}: numeric size {got['numeric_mb']:.1f} MB; {workers} workers, each running "
           f"{folds_run} trials on {folds_run} folds: RSS {got['base_rss']:.0f} MB after imports, "
@@ -301,9 +310,7 @@ def shared_fold_peak(csv, folder, epochs: int = 2, folds_run: int = 3, workers: 
     current fold's mapped arrays alone (so :func:`workbench.sweep.trials.run_trial` takes
     them, as from its own cache); same figures. Relies on the cache's key
     ``(token, repeat, fold)`` in ``workbench/sweep/trials.py``."""
-    import json
     import pickle
-    import subprocess
 
     from workbench.data.preprocessing import build_preprocessor
     from workbench.sweep.trials import save_worker_data
@@ -327,25 +334,7 @@ def shared_fold_peak(csv, folder, epochs: int = 2, folds_run: int = 3, workers: 
     spec_path = os.path.join(folder, "spec_shared.pkl")
     with open(spec_path, "wb") as fh:
         pickle.dump(specs, fh)
-    env = dict(os.environ, OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1")
-    if package_root:
-        env["PYTHONPATH"] = str(package_root)
-    procs = [subprocess.Popen([sys.executable, "-c", _SHARED_FOLD_WORKER, spec_path],
-                              text=True, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-                              env=env, cwd=package_root or None) for _ in range(workers)]
-    runs = []
-    for proc in procs:
-        stdout, stderr = proc.communicate(timeout=900)
-        if proc.returncode:
-            raise RuntimeError(stderr[-2000:])
-        runs.append(json.loads(stdout.strip().splitlines()[-1]))
-    got = sorted(runs, key=lambda r: r["peak_uss"])[len(runs) // 2]
-    mb = 2 ** 20
-    numeric = data.X.select_dtypes("number").to_numpy().nbytes + np.asarray(data.y).nbytes
-    got["numeric_mb"] = numeric / mb
-    for key in ("base_rss", "base_uss", "peak_rss", "peak_uss", "maxrss"):
-        got[key] = got[key] / mb
-    got["peak_rss"] = max(got["peak_rss"], (got["hwm"] or 0) / mb)
+    got = _median_worker(_SHARED_FOLD_WORKER, spec_path, workers, package_root, data)
     rss, uss = got["peak_rss"] - got["base_rss"], got["peak_uss"] - got["base_uss"]
     print(f"table {csv}: numeric size {got['numeric_mb']:.1f} MB; shared mapped fold features; "
           f"{workers} workers, each running {folds_run} trials on {folds_run} folds: RSS "
