@@ -4,6 +4,7 @@ import os
 import subprocess
 import sys
 import threading
+import time
 from pathlib import Path
 
 import pytest
@@ -114,7 +115,13 @@ def test_stop_pool_stops_the_warm_pool_and_forgets_it():
     pool.stop_pool()
     assert runner._POOL == {}
     for p in list(ex._processes.values()):
-        p.join(timeout=60)  # killed, not left to finish its imports or its gate
+        # killed, not left to finish its imports or its gate; loky's manager thread may reap
+        # the process first, and then join() can return before is_alive() turns False, so
+        # the same 60 s bound is waited out by polling
+        deadline = time.monotonic() + 60
+        p.join(timeout=60)
+        while p.is_alive() and time.monotonic() < deadline:
+            time.sleep(0.05)
         assert not p.is_alive()
     pool.stop_pool()  # no pool: nothing to do
 
