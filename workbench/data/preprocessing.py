@@ -458,15 +458,26 @@ def build_pipeline(profile: TableProfile, target: TargetInfo, estimator, head: s
     chk = check_head(target, head)
     if not chk.allowed:
         raise InputError(chk.reason, setting="heads")
-    head = chk.head
     prep = build_preprocessor(profile, target, columnwise_medians)
+    return Pipeline([("prep", prep), ("model", _model_step(target, estimator, chk.head))])
+
+
+def build_model(target: TargetInfo, estimator, head: str):
+    """The ``model`` step of :func:`build_pipeline` alone (target scaling and the
+    configured estimator), for features already preprocessed: the same step, with
+    the same checks (the head and the estimator's heads)."""
+    chk = check_head(target, head)
+    if not chk.allowed:
+        raise InputError(chk.reason, setting="heads")
+    return _model_step(target, estimator, chk.head)
+
+
+def _model_step(target: TargetInfo, estimator, head: str):
     est = _configure_estimator(estimator, target, head)
     if target.task == "regression":
-        model = TransformedTargetRegressor(regressor=est, transformer=target_scaling(target, head),
-                                           check_inverse=False)
-    else:
-        model = est
-    return Pipeline([("prep", prep), ("model", model)])
+        return TransformedTargetRegressor(regressor=est, transformer=target_scaling(target, head),
+                                          check_inverse=False)
+    return est
 
 
 def fitted_estimator(pipeline: Pipeline):

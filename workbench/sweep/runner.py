@@ -143,6 +143,7 @@ from pathlib import Path
 import numpy as np
 
 from workbench.errors import InputError
+from workbench.sweep.fold_files import SharedFolds, is_fold_file, needs_in_order, worth_sharing
 from workbench.sweep.plan import SweepPlan
 from workbench.sweep.pool import (  # noqa: F401 - the pool's names, re-exported for tests
     _POOL,
@@ -184,6 +185,9 @@ POLL_SECONDS = 0.2
 #: hand the folds of one configuration to a worker together, to train in a stack
 #: (:func:`workbench.sweep.trials.run_trials`); False: every trial alone (the same results)
 STACK = True
+#: local workers map fold features the sweep's process prepared, on a table large enough
+#: (:mod:`workbench.sweep.fold_files`); False: each worker computes its own (the same results)
+SHARE_FOLDS = True
 
 
 @dataclass
@@ -369,6 +373,8 @@ def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, can
         raise InputError(f"sweep {resume} has run every trial that racing left to run; its "
                          "results are stored, there is nothing left to run", setting="sweep")
     tasks = group_trials(plan, todo, _stacks(plan, data)) if STACK else [(t,) for t in todo]
+    rows = sweep_rows(plan, data.y, folds)
+    configs = plan.configurations() + plan.baseline_configurations()
     if cluster is not None:
         executor = _DaskExecutor(cluster, data)
     elif backend == "inline":
@@ -376,8 +382,13 @@ def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, can
     else:
         workers = min(int(jobs or default_jobs()), default_jobs())
         executor = _LokyExecutor(workers, data, in_flight=len(tasks) + len(todo_baselines))
-    rows = sweep_rows(plan, data.y, folds)
     try:
+        # one network trial per worker first (the first score the user sees), then the
+        # quick baselines, then the rest; the order changes no result (seeds are per trial)
+        head, rest = first_trials(tasks, max(1, int(executor.workers)))
+        sequence = head + [(t,) for t in todo_baselines] + rest
+        if isinstance(executor, _LokyExecutor) and SHARE_FOLDS and worth_sharing(data):
+            executor.share(folds, needs_in_order(sequence, configs, plan.dtype))
         if resume is not None:
             store.set_state(sweep_id, RUNNING)
             if table is not None and str(plan.table) != str(sweep["plan"].get("table")):
@@ -399,7 +410,6 @@ def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, can
     except BaseException:
         executor.close(kill=True)
         raise
-    configs = plan.configurations() + plan.baseline_configurations()
     run = _Run(plan, configs, folds, sweep_id, store, emit, cancel, len(todo))
     for t in store.trials(sweep_id, with_history=False):
         run.note_score(t)
@@ -417,14 +427,12 @@ def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, can
           "workers": executor.workers, "time": time.time()})
     interrupted = False
     try:
-        # one network trial per worker first (the first score the user sees), then the
-        # quick baselines, then the rest; the order changes no result (seeds are per trial)
-        head, rest = first_trials(tasks, max(1, int(executor.workers)))
-        interrupted = run.execute(executor, head + [(t,) for t in todo_baselines] + rest,
-                                  retries)
+        interrupted = run.execute(executor, sequence, retries)
     except KeyboardInterrupt:
-        run.cancel_running()
-        executor.close(kill=True)
+        try:
+            run.cancel_running()
+        finally:  # the workers and the scratch folder go even if an event handler raises
+            executor.close(kill=True)
         _mark_interrupted(store, sweep_id)
         emit(run.finished_event(INTERRUPTED, t0))
         raise
@@ -742,8 +750,10 @@ class _InlineExecutor:
 
 #: the temporary folders of the table copies the local workers read: <tmp>/PREFIX*
 COPY_PREFIX = "workbench-sweep-"
-#: in each folder: the table copy, and a lock file its sweep holds while it runs
-COPY_NAME, COPY_LOCK = "table.pkl", "in-use.lock"
+#: in each folder: the table copy, and a lock file its sweep holds while it runs; with shared
+#: fold features also the table without its features and the fold files
+#: (:mod:`workbench.sweep.fold_files`)
+COPY_NAME, COPY_LOCK, LIGHT_NAME = "table.pkl", "in-use.lock", "light.pkl"
 
 
 def clean_abandoned_copies(root=None) -> list[str]:
@@ -751,8 +761,8 @@ def clean_abandoned_copies(root=None) -> list[str]:
 
     Only a folder that is certainly ours and abandoned is removed: named
     ``workbench-sweep-*`` in the temporary folder, owned by this user, holding
-    nothing but :data:`COPY_NAME` and :data:`COPY_LOCK`, and whose lock nobody
-    holds (the process that made it ended without cleaning up: killed, or a
+    nothing but :data:`COPY_NAME`, :data:`COPY_LOCK`, :data:`LIGHT_NAME` and fold files
+    (:func:`workbench.sweep.fold_files.is_fold_file`), and whose lock nobody holds (the process that made it ended without cleaning up: killed, or a
     crash). Returns the folders removed.
     """
     import tempfile
@@ -771,7 +781,8 @@ def clean_abandoned_copies(root=None) -> list[str]:
                     (hasattr(os, "getuid") and folder.stat().st_uid != os.getuid()):
                 continue
             names = {p.name for p in folder.iterdir()}
-            if COPY_LOCK not in names or not names <= {COPY_NAME, COPY_LOCK}:
+            if COPY_LOCK not in names or not all(
+                    n in (COPY_NAME, COPY_LOCK, LIGHT_NAME) or is_fold_file(n) for n in names):
                 continue  # not made by this program (or by an older one): not ours to judge
             fd = os.open(folder / COPY_LOCK, os.O_RDONLY)
         except OSError:
@@ -780,7 +791,7 @@ def clean_abandoned_copies(root=None) -> list[str]:
             if not try_file_lock(fd):
                 continue  # its sweep is running
             try:
-                for name in (COPY_NAME, COPY_LOCK):
+                for name in sorted(names - {COPY_LOCK}) + [COPY_LOCK]:
                     try:
                         (folder / name).unlink()
                     except FileNotFoundError:
@@ -847,7 +858,20 @@ class _LokyExecutor:
         self._copy = _TableCopy(data)
         self._path = self._copy.path
         self._token = data.token
+        self._data = data
         self._pool = None
+        self._shared = self._light = None
+
+    def share(self, folds, needs):
+        """From now on, hand out each trial with its fold's features prepared by this
+        process (:class:`workbench.sweep.fold_files.SharedFolds`, in the folder of the
+        table copy) and the table without its features for the workers to read."""
+        from workbench.sweep.trials import light_data, save_worker_data
+
+        light = str(self._copy.folder / LIGHT_NAME)
+        save_worker_data(light_data(self._data), light)
+        self._light = light
+        self._shared = SharedFolds(self._data, self._copy.folder, folds, needs)
 
     def _ensure(self):
         if self._pool is None:
@@ -855,11 +879,14 @@ class _LokyExecutor:
         return self._pool
 
     def submit(self, specs):
+        if self._shared is not None:
+            specs = self._shared.attach(specs)  # waits for the folds' files, if need be
+        args = (run_trials_from_file, self._token, self._path, specs, self._light)
         try:
-            return self._ensure().submit(run_trials_from_file, self._token, self._path, specs)
+            return self._ensure().submit(*args)
         except Exception:  # a warm pool broken while idle (a worker killed): start afresh
             self._stop_pool()
-            return self._ensure().submit(run_trials_from_file, self._token, self._path, specs)
+            return self._ensure().submit(*args)
 
     def wait(self, handles, timeout):
         from concurrent.futures import FIRST_COMPLETED, wait
@@ -890,6 +917,8 @@ class _LokyExecutor:
         if kill:
             self._stop_pool()
         self._pool = None
+        if self._shared is not None:
+            self._shared.close()  # no file is written into the folder after this
         self._copy.remove()
 
 

@@ -559,17 +559,24 @@ def _watched_class(cls):
 def _watch_sklearn(pipe):
     """Swap the scikit-learn MLP inside the pipeline for its watched subclass (same
     parameters); the model step to hand the held-out rows to, or None if it cannot be."""
-    model = pipe.named_steps["model"]
+    step, watched = _watch_sklearn_model(pipe.named_steps["model"])
+    pipe.steps[-1] = ("model", step)
+    return watched
+
+
+def _watch_sklearn_model(model):
+    """The model step with its scikit-learn MLP swapped for the watched subclass (same
+    parameters), and the step to hand the held-out rows to: ``(step, step)``, or
+    ``(model, None)`` when it cannot be watched."""
     inner = getattr(model, "regressor", model)
     watched = _watched_class(type(inner))
     if watched is None:
-        return None
+        return model, None
     twin = watched(**inner.get_params(deep=False))
     if inner is model:
-        pipe.steps[-1] = ("model", twin)
-        return twin
+        return twin, twin
     model.set_params(regressor=twin)
-    return model
+    return model, model
 
 
 def _held_out_watch(spec: dict, model, y_tr, y_te):
@@ -765,9 +772,13 @@ def _fits_stack_budget(data: TrialData, specs) -> bool:
 
     spec = specs[0]
     try:
-        X_tr, _ = _fold_features(data, spec, build_preprocessor(data.profile, data.target,
-                                                                   columnwise_medians=True),
-                                 np.asarray(spec["train"]), np.asarray(spec["test"]))
+        shared = shared_features(spec)
+        if shared is not None:
+            X_tr = shared[0]
+        else:
+            X_tr, _ = _fold_features(data, spec, build_preprocessor(
+                data.profile, data.target, columnwise_medians=True),
+                np.asarray(spec["train"]), np.asarray(spec["test"]))
     except Exception:  # the trials will meet it (and record it) themselves
         return False
     rows = max(len(s["train"]) for s in specs)
@@ -819,8 +830,7 @@ def _fold_features(data: TrialData, spec: dict, prep, train, test):
             del _FOLD_CACHE[k]
         if _FOLD_CACHE:  # room for this fold first, so that no more folds are held meanwhile
             _make_room(sum(a.nbytes for a in next(reversed(_FOLD_CACHE.values()))))
-    Xt_tr = np.asarray(prep.fit_transform(data.X.iloc[train], np.asarray(data.y)[train]))
-    Xt_te = np.asarray(prep.transform(data.X.iloc[test]))
+    Xt_tr, Xt_te = compute_fold_features(data, prep, train, test)
     Xt_tr.flags.writeable = False
     Xt_te.flags.writeable = False
     with _FOLD_LOCK:
@@ -829,31 +839,72 @@ def _fold_features(data: TrialData, spec: dict, prep, train, test):
     return Xt_tr, Xt_te
 
 
+def shared_features(spec: dict):
+    """``(X_train, X_test)`` of a trial whose fold features the parent prepared
+    (``spec["features"]``: the two ``.npy`` files, see :mod:`workbench.sweep.fold_files`),
+    memory-mapped read-only (``numpy.load(mmap_mode="r")``); None without them."""
+    files = spec.get("features")
+    if not files:
+        return None
+    return (np.load(files["train"], mmap_mode="r", allow_pickle=False),
+            np.load(files["test"], mmap_mode="r", allow_pickle=False))
+
+
+def fold_preprocessor(data: TrialData):
+    """The unfitted ColumnTransformer of every trial of the sweep (networks and baselines
+    alike): :func:`workbench.data.preprocessing.build_preprocessor` with the median
+    imputers fitted column by column (a trial's pipeline is never saved)."""
+    from workbench.data.preprocessing import build_preprocessor
+
+    return build_preprocessor(data.profile, data.target, columnwise_medians=True)
+
+
+def compute_fold_features(data: TrialData, prep, train, test):
+    """A fold's features as its trial's pipeline would compute them: ``fit_transform``
+    of ``prep`` on the training rows, then ``transform`` of the test rows (float64).
+    The one definition, for the worker's own features (:func:`_fold_features`) and the
+    parent's shared ones (:mod:`workbench.sweep.fold_files`)."""
+    X_tr = np.asarray(prep.fit_transform(data.X.iloc[train], np.asarray(data.y)[train]))
+    X_te = np.asarray(prep.transform(data.X.iloc[test]))
+    return X_tr, X_te
+
+
 def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
     from sklearn.metrics import get_scorer
-
-    from workbench.data.preprocessing import build_pipeline
 
     cfg = spec["config"]
     train = np.asarray(spec["train"])
     test = np.asarray(spec["test"])
     y = np.asarray(data.y)
     y_tr, y_te = y[train], y[test]
-    if cfg.get("kind") == "baseline":
-        pipe = baseline_pipeline(data.profile, data.target, cfg["name"], spec["metric"])
+    baseline = cfg.get("kind") == "baseline"
+    shared = shared_features(spec)
+    if shared is not None:
+        # the parent's prepared features (mapped): the model step alone, no ColumnTransformer
+        from workbench.data.preprocessing import build_model
+
+        X_tr, X_te = shared
+        model = make_baseline(data.target.task, cfg["name"], spec["metric"]) if baseline \
+            else build_model(data.target, make_estimator(spec), cfg["head"])
     else:
-        pipe = build_pipeline(data.profile, data.target, make_estimator(spec), cfg["head"],
-                              columnwise_medians=True)  # never saved (see baseline_pipeline)
-    prep, model = pipe.named_steps["prep"], pipe.named_steps["model"]
-    X_tr, X_te = _fold_features(data, spec, prep, train, test)
+        from workbench.data.preprocessing import build_pipeline
+
+        if baseline:
+            pipe = baseline_pipeline(data.profile, data.target, cfg["name"], spec["metric"])
+        else:
+            pipe = build_pipeline(data.profile, data.target, make_estimator(spec), cfg["head"],
+                                  columnwise_medians=True)  # never saved (see baseline_pipeline)
+        prep, model = pipe.named_steps["prep"], pipe.named_steps["model"]
+        X_tr, X_te = _fold_features(data, spec, prep, train, test)
+        del pipe, prep  # the fitted preprocessor lives on in the fold cache only
     fit_params = {}
-    if cfg.get("kind") != "baseline" and spec.get("curves", True):
+    if not baseline and spec.get("curves", True):
+        watched = model
         if cfg["engine"] == "sklearn":
-            model = _watch_sklearn(pipe)
-        if model is not None:
-            y_held, score = _held_out_watch(spec, model, y_tr, y_te)
+            model, watched = _watch_sklearn_model(model)
+        if watched is not None:
+            y_held, score = _held_out_watch(spec, watched, y_tr, y_te)
             fit_params = {"held_out": (X_te, y_held), "held_out_score": score}
-        model = pipe.named_steps["model"]
     t0 = time.perf_counter()
     try:
         model.fit(X_tr, y_tr, **fit_params)
@@ -947,17 +998,38 @@ def run_trial_from_file(token: str, path: str, spec: dict) -> dict:
     workers share one copy of its numeric columns, and the worker pool can stay
     alive from one sweep to the next.
     """
-    data = _WORKER_DATA.get(token)
-    if data is None:
-        _WORKER_DATA.clear()
-        data = _WORKER_DATA[token] = load_worker_data(path)
-    return run_trial(data, spec)
+    return run_trial(_worker_data(token, path), spec)
 
 
-def run_trials_from_file(token: str, path: str, specs) -> list[dict]:
-    """:func:`run_trials` in a pool worker (the table read as by :func:`run_trial_from_file`)."""
-    data = _WORKER_DATA.get(token)
+def _worker_data(token: str, path: str, light: str | None = None) -> TrialData:
+    """This worker's :class:`TrialData` of the sweep ``token``: the table (``path``), or
+    with ``light`` the sweep's table without its feature columns (for trials whose fold
+    features come from the parent's files); each read once and kept while the sweep
+    lasts, another sweep's dropped."""
+    key = (token, "light") if light else token
+    data = _WORKER_DATA.get(key)
     if data is None:
-        _WORKER_DATA.clear()
-        data = _WORKER_DATA[token] = load_worker_data(path)
-    return run_trials(data, specs)
+        for k in [k for k in _WORKER_DATA if (k[0] if isinstance(k, tuple) else k) != token]:
+            del _WORKER_DATA[k]
+        data = _WORKER_DATA[key] = load_worker_data(light or path)
+    return data
+
+
+def light_data(data: TrialData) -> TrialData:
+    """``data`` without the feature columns (``X=None``): what a trial whose fold features
+    are shared reads (its target rows, the target's description and classes)."""
+    return TrialData(X=None, y=data.y, profile=data.profile, target=data.target,
+                     token=data.token)
+
+
+def run_trials_from_file(token: str, path: str, specs, light: str | None = None) -> list[dict]:
+    """:func:`run_trials` in a pool worker (the table read as by :func:`run_trial_from_file`).
+
+    ``light``: the file of :func:`light_data`, written by the parent when it shares the
+    fold features; a task whose every trial has its features (``spec["features"]``,
+    :func:`shared_features`) reads it instead of the table, so the worker never loads
+    the table's columns nor builds a ColumnTransformer."""
+    specs = list(specs)
+    if not (light and all(s.get("features") for s in specs)):
+        light = None
+    return run_trials(_worker_data(token, path, light), specs)
