@@ -192,6 +192,14 @@ def health_due(epoch: int) -> bool:
 
 #: rows cast at a time when the training rows are taken from the caller's array
 GATHER_ROWS = 4096
+#: training rows whose cast copy (with the ones column, in the network's dtype) takes at
+#: most this many bytes are cast once per fit, and each epoch takes its shuffled rows
+#: from that copy in one call, instead of gathering and casting them again every epoch.
+#: Above it a fit holds no cast copy beside the epoch's rows (the memory bound of
+#: :func:`_epoch_rows`). A choice: a kiln fold (2,000 rows x 16) is 136 kB; the copy is
+#: within the memory a stacked group is allowed per member
+#: (:func:`workbench.sweep.trials.stack_bytes` counts a copy of the rows held by the fit).
+CAST_ONCE_BYTES = 4 * 2**20
 
 
 def _gather(X, index, out):
@@ -211,7 +219,9 @@ def _gather(X, index, out):
                 part = X[start:stop]
             else:
                 part = buf[:stop - start]
-                np.take(X, index[start:stop], axis=0, out=part)
+                # mode="wrap": the positions are valid, and an unchecked take writes
+                # straight into ``out`` (with the default "raise" NumPy buffers it)
+                np.take(X, index[start:stop], axis=0, out=part, mode="wrap")
             out[start:stop, :-1] = part
     return out
 
@@ -223,7 +233,9 @@ def _epoch_rows(X, rows, y, dtype, shuffle, random_state):
     ``X`` is the array given to ``fit`` (float64 or float32) and ``rows`` the positions
     of the training rows in it (None: every row, in order); the rows are gathered and
     cast straight into the epoch's array (:func:`_gather`), so a fit holds one array of
-    the training rows in ``dtype``, not a cast copy and a shuffled copy besides.
+    the training rows in ``dtype``, not a cast copy and a shuffled copy besides -- unless
+    that copy is small (:data:`CAST_ONCE_BYTES`): then the rows are cast once and each
+    epoch takes its order from the cast copy (one call instead of a gather and a cast).
 
     The order is scikit-learn's: its MLP shuffles the row indices every epoch with
     ``sklearn.utils.shuffle(indices, random_state=rs)``, which draws one permutation
@@ -236,14 +248,25 @@ def _epoch_rows(X, rows, y, dtype, shuffle, random_state):
         _gather(X, rows, X_epoch)
         while True:
             yield X_epoch, y
+    cast = None
+    if X_epoch.nbytes <= CAST_ONCE_BYTES:  # small: cast once, take from the cast rows
+        cast = np.empty_like(X_epoch)
+        cast[:, -1] = 1
+        _gather(X, rows, cast)
     index = np.arange(n, dtype=int)
     y_epoch = np.empty_like(y)
     while True:
         perm = np.arange(n)
         random_state.shuffle(perm)
         index = index[perm]
-        _gather(X, index if rows is None else rows[index], X_epoch)
-        np.take(y, index, axis=0, out=y_epoch)
+        if cast is not None:
+            # the same values: a cast acts on each element alone, so taking rows of the
+            # cast copy equals casting the taken rows. mode="wrap" (the positions are a
+            # permutation, all valid): NumPy then writes straight into the epoch's array
+            np.take(cast, index, axis=0, out=X_epoch, mode="wrap")
+        else:
+            _gather(X, index if rows is None else rows[index], X_epoch)
+        np.take(y, index, axis=0, out=y_epoch, mode="wrap")
         yield X_epoch, y_epoch
 
 

@@ -1,0 +1,109 @@
+"""The engine's shortcuts for small fits give the results of the general path, bit for bit.
+
+Reference: the engine's own general path, forced on by a module constant (the gather that
+casts each epoch's rows again, :data:`workbench.nets.engine.CAST_ONCE_BYTES` = 0), and
+scikit-learn's shuffle order (``sklearn.utils.shuffle``); compared byte for byte on whole
+sweep trials (scores, every history list, health, out-of-fold predictions), alone and in
+lockstep stacks.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from workbench.nets import engine as E
+from workbench.sweep import trials as T
+from workbench.sweep.plan import build_plan
+from workbench.sweep.runner import load_data
+
+SAMPLES = Path(__file__).resolve().parents[1] / "sample_sets"
+pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
+
+
+@pytest.mark.parametrize("rows_given", [False, True])
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_cast_once_epoch_rows_equal_the_gathered_rows(monkeypatch, rows_given, dtype):
+    """Each epoch's rows taken from the copy cast once equal those gathered and cast every
+    epoch (the general path) and scikit-learn's order: ``sklearn.utils.shuffle`` of the
+    previous order, once per epoch; with and without row positions (early stopping)."""
+    from sklearn.utils import shuffle as sk_shuffle
+
+    rng = np.random.default_rng(2)
+    X = rng.standard_normal((400, 6)) * 1e3
+    rows = rng.permutation(400)[:300] if rows_given else None
+    n = 300 if rows_given else 400
+    y = rng.standard_normal((n, 2)).astype(dtype)
+    def epochs(limit):  # the generator reads the constant when its first epoch is drawn
+        monkeypatch.setattr(E, "CAST_ONCE_BYTES", limit)
+        got = E._epoch_rows(X, rows, y, dtype, True, np.random.RandomState(11))
+        out = []
+        for _ in range(4):  # each epoch reuses the arrays: keep copies
+            a, ya = next(got)
+            assert a.dtype == dtype and a.flags.c_contiguous
+            out.append((a.copy(), ya.copy()))
+        return out
+
+    fast, slow = epochs(2**30), epochs(0)
+    ref = np.hstack([X.astype(dtype), np.ones((len(X), 1), dtype)])
+    ref = ref if rows is None else ref[rows]
+    rs, order = np.random.RandomState(11), np.arange(n)
+    for (a, ya), (b, yb) in zip(fast, slow):
+        order = sk_shuffle(order, random_state=rs)
+        np.testing.assert_array_equal(a, ref[order])
+        np.testing.assert_array_equal(a, b)
+        np.testing.assert_array_equal(ya, y[order])
+        np.testing.assert_array_equal(ya, yb)
+
+
+def _specs(table, target, folds=3, **options):
+    options.setdefault("layers", ["8"])
+    plan = build_plan(SAMPLES / table, target, folds=folds, repeats=1, epochs=15, seed=0,
+                      baselines=[], **options)
+    data, _ = load_data(plan)
+    split = plan.fold_indices(data.y)
+    groups = []
+    for c in plan.configurations():
+        groups.append([{"config": c.to_dict(), "repeat": 0, "fold": f,
+                        "train": split[(0, f)][0].astype(np.int32),
+                        "test": split[(0, f)][1].astype(np.int32),
+                        "random_state": plan.model_seed(0, f), "task": plan.task,
+                        "metric": plan.metric, "epochs": plan.epochs,
+                        "early_stopping": plan.early_stopping, "batch_size": plan.batch_size,
+                        "dtype": plan.dtype} for f in range(folds)])
+    return data, groups
+
+
+def _record(res):
+    """Everything a trial stores but its timing and worker."""
+    pred = res["predictions"]
+    return (res["status"], res["error"], res["test_score"], res["train_score"], res["epochs"],
+            res["history"], res["health"],
+            None if pred is None else hashlib.sha1(pred.tobytes()).hexdigest())
+
+
+@pytest.mark.parametrize("table,target,options", [
+    # the kiln grid's table (binary, ROC AUC), two activations
+    ("kiln_batches.csv", "passes_inspection", {"hidden": "relu,logistic"}),
+    # regression with early stopping (row positions into the fit's array)
+    ("seed_germination.csv", "germinated_share", {"hidden": "tanh", "early_stopping": True}),
+])
+def test_sweep_trials_are_unchanged_by_the_cast_once_rows(monkeypatch, table, target, options):
+    """Whole trials (preprocessing, fit with held-out curves and health, scores, out-of-fold
+    predictions) alone and in lockstep stacks: every stored value is the same with the
+    rows cast once as with the general path."""
+    data, groups = _specs(table, target, **options)
+    T._FOLD_CACHE.clear()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fast = [[_record(r) for r in T.run_trials(data, g)] for g in groups]
+        alone = [[_record(T.run_trial(data, s)) for s in g] for g in groups]
+        monkeypatch.setattr(E, "CAST_ONCE_BYTES", 0)
+        slow = [[_record(r) for r in T.run_trials(data, g)] for g in groups]
+    assert all(r[0] == "done" for g in fast for r in g)
+    assert fast == slow
+    assert fast == alone
