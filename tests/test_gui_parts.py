@@ -385,8 +385,8 @@ def test_gui_bench_sort_part_runs_small(qapp):
     # a smoke test of the benchmark's sorting part (figures, not assertions on time)
     from workbench.gui.bench_gui import bench_sort
 
-    res = bench_sort(n=300, generic_n=50, repeats=1)
-    assert res["rows"] == 300 and res["median_s"] > 0 and res["generic_s"] > 0
+    res = bench_sort(n=300, repeats=1)
+    assert res["rows"] == 300 and res["median_s"] > 0 and res["repaint_s"] > 0
 
 
 def test_plan_summary_counts_configurations_and_trials(qapp, tmp_path):

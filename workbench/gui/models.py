@@ -1,9 +1,9 @@
 """Qt models over what the core produced: results, table preview, column profile.
 
-The results model sorts itself with NumPy (``argsort`` over a cached key
-column) and the proxy hands its ``sort`` to it, because Qt's generic proxy sort
-asks Python for every comparison and takes over a second for 10,000 rows. The
-proxy keeps the filtering (head, hidden activation, text, tie group only).
+The results model keeps what the table paints in Qt's own items (a repaint never
+calls Python) and sorts itself with NumPy (``argsort`` over a cached key column,
+missing values last in both orders); the proxy hands its ``sort`` to it and keeps
+the filtering (head, hidden activation, text, tie group only).
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ from PySide6.QtCore import (
     Qt,
     Signal,
 )
-from PySide6.QtGui import QColor, QFont
+from PySide6.QtGui import QColor, QFont, QStandardItem, QStandardItemModel
 
 #: (key, header, tooltip) of the results table's columns, in order. The engine, the
 #: training score and the probabilities behind a decision are in each row's tooltip and
@@ -54,10 +54,10 @@ RESULT_COLUMNS = (
 COLUMN_KEYS = tuple(c[0] for c in RESULT_COLUMNS)
 NUMERIC = {"rank", "learning_rate", "alpha", "mean", "p_value", "gap", "epochs",
            "fit_seconds", "dead_pct", "saturated_pct", "trials"}
-SORT_ROLE = Qt.UserRole + 1
-ROW_ROLE = Qt.UserRole + 2
 KEY_ROLE = Qt.UserRole + 3
 FILTER_ROLE = Qt.UserRole + 4
+#: a row's place in the sorted order (on its first cell), what the model's rows are sorted on
+POS_ROLE = Qt.UserRole + 5
 
 #: the decision of a configuration against the best, as the table shows it (a glyph and
 #: the word, so that colour never carries the meaning alone); a baseline can be "better"
@@ -139,25 +139,40 @@ def fmt_pct(x) -> str:
     return "–" if math.isnan(v) else f"{v:.0f}"
 
 
-class ResultsModel(QAbstractTableModel):
+class ResultsModel(QStandardItemModel):
     """One row per configuration of a sweep.
 
     Rows are plain dicts (see :func:`workbench.gui.core_adapter.ranked_rows`)
     identified by their ``key``; :meth:`upsert` adds new ones and updates known
     ones in place so that selections survive a sweep's updates.
+
+    What the table paints (each cell's text, alignment, colours, font, tooltip and
+    flags) is kept in Qt's own items, worked out once when a row arrives or changes: a
+    repaint then never calls Python. (Answered by a Python ``data()``, a repaint of the
+    visible rows asked about a thousand questions through Python and took 20-30 ms on a
+    quiet machine, 60-80 ms on a busy one, the longest part of the event loop's stalls
+    during a sweep.) The model's rows are in the order the views show them: sorting
+    (NumPy, below) moves the items with Qt's own sort on :data:`POS_ROLE`.
     """
 
     rowsUpdated = Signal()
 
     def __init__(self, parent=None):
-        super().__init__(parent)
+        super().__init__(0, len(RESULT_COLUMNS), parent)
+        for i, (_key, header, tip) in enumerate(RESULT_COLUMNS):
+            item = QStandardItem(header)
+            item.setToolTip(tip)
+            self.setHorizontalHeaderItem(i, item)
+        self.setSortRole(POS_ROLE)
         self._rows: list[dict] = []
         self._index: dict[str, int] = {}
         self._order = np.zeros(0, dtype=np.int64)  # view row -> storage row
         self._keys: dict[str, np.ndarray] = {}
         self._order_list: list[int] = []
-        self._disp: list[tuple | None] = []
-        self._look: list[tuple | None] = []
+        #: each stored row's items (storage order) and what they show (a cell is set
+        #: again only when what it shows changes)
+        self._items: list[list[QStandardItem]] = []
+        self._shown: list[list[tuple] | None] = []
         #: keys of the rows the last update touched (every row after a reset)
         self.last_changed: set[str] = set()
         self._bold = QFont()
@@ -173,31 +188,8 @@ class ResultsModel(QAbstractTableModel):
         self.muted_color = QColor("#5d646c")
 
     # --- Qt interface ---------------------------------------------------------
-    def rowCount(self, parent=QModelIndex()):
-        return 0 if parent.isValid() else len(self._rows)
-
-    def columnCount(self, parent=QModelIndex()):
-        return 0 if parent.isValid() else len(RESULT_COLUMNS)
-
-    def headerData(self, section, orientation, role=Qt.DisplayRole):
-        if orientation != Qt.Horizontal:
-            return None
-        if role == Qt.DisplayRole:
-            return RESULT_COLUMNS[section][1]
-        if role == Qt.ToolTipRole:
-            return RESULT_COLUMNS[section][2]
-        return None
-
     def row_at(self, view_row: int) -> dict:
         return self._rows[self._order_list[view_row]]
-
-    def flags(self, index):
-        """Reference rows (baselines) can be read but not selected (nor exported)."""
-        if not index.isValid():
-            return Qt.NoItemFlags
-        if self._rows[self._order_list[index.row()]].get("kind") == "baseline":
-            return self._READ_ONLY
-        return self._SELECTABLE
 
     _READ_ONLY = Qt.ItemIsEnabled
     _SELECTABLE = Qt.ItemIsEnabled | Qt.ItemIsSelectable
@@ -208,73 +200,95 @@ class ResultsModel(QAbstractTableModel):
         self.decision_colors = dict(decisions)
         self.reference_color = QColor(reference)
         self.muted_color = QColor(muted)
-        self._look = [None] * len(self._rows)
         if self._rows:
-            self.dataChanged.emit(self.index(0, 0),
-                                  self.index(len(self._rows) - 1, len(RESULT_COLUMNS) - 1))
+            self._refill(range(len(self._rows)))
 
     def _set_order(self, order: np.ndarray) -> None:
         self._order = order
         self._order_list = order.tolist()
-
-    _ROLES = frozenset({Qt.DisplayRole, SORT_ROLE, ROW_ROLE, KEY_ROLE, FILTER_ROLE,
-                        Qt.BackgroundRole,
-                        Qt.ForegroundRole, Qt.TextAlignmentRole, Qt.FontRole, Qt.ToolTipRole})
-    _RIGHT = int(Qt.AlignRight | Qt.AlignVCenter)
-    _LEFT = int(Qt.AlignLeft | Qt.AlignVCenter)
 
     #: each column's alignment (numbers to the right)
     _ALIGN = tuple(int(Qt.AlignRight | Qt.AlignVCenter) if k in NUMERIC
                    else int(Qt.AlignLeft | Qt.AlignVCenter) for k in COLUMN_KEYS)
     _MEAN = COLUMN_KEYS.index("mean")
 
-    def _look_of(self, i: int) -> tuple:
-        """A row's (background, foreground, font, font of the mean), worked out once per
-        change of the row (a repaint asks for each of them for every cell)."""
-        look = self._look[i]
-        if look is None:
-            row = self._rows[i]
-            if row.get("kind") == "baseline":
-                look = (self.reference_color, self.muted_color, self._italic, self._italic)
-            else:
-                look = (self.decision_colors.get(row.get("decision")),
-                        self.muted_color if row.get("status") not in ("done", None) else None,
-                        None, self._bold if row.get("rank") == 1 else None)
-            self._look[i] = look
-        return look
+    def _look(self, row: dict) -> tuple:
+        """A row's (background, foreground, font, font of the mean)."""
+        if row.get("kind") == "baseline":
+            return (self.reference_color, self.muted_color, self._italic, self._italic)
+        return (self.decision_colors.get(row.get("decision")),
+                self.muted_color if row.get("status") not in ("done", None) else None,
+                None, self._bold if row.get("rank") == 1 else None)
 
-    def data(self, index, role=Qt.DisplayRole):
-        if role not in self._ROLES or not index.isValid():
-            return None
-        i = self._order_list[index.row()]
-        col = index.column()
-        if role == Qt.DisplayRole:
-            disp = self._disp[i]
-            if disp is None:
-                row = self._rows[i]
-                disp = self._disp[i] = tuple(self._display(row, k) for k in COLUMN_KEYS)
-                self._look[i] = None
-            return disp[col]
-        if role == Qt.TextAlignmentRole:
-            return self._ALIGN[col]
-        if role == Qt.BackgroundRole:
-            return self._look_of(i)[0]
-        if role == Qt.ForegroundRole:
-            return self._look_of(i)[1]
-        if role == Qt.FontRole:
-            look = self._look_of(i)
-            return look[3] if col == self._MEAN else look[2]
-        row = self._rows[i]
-        key = COLUMN_KEYS[col]
-        if role == SORT_ROLE:
-            return self._sort_value(row, key)
-        if role == ROW_ROLE:
-            return row
-        if role == KEY_ROLE:
-            return row["key"]
-        if role == FILTER_ROLE:
-            return self.filter_text(row)
-        return self._tooltip(row, key)
+    def _cells(self, row: dict) -> list[tuple]:
+        """What each cell of a row shows: (text, background, foreground, font, tooltip)."""
+        bg, fg, font, mean_font = self._look(row)
+        return [(self._display(row, k), bg, fg, mean_font if c == self._MEAN else font,
+                 row_tooltip(row, k)) for c, k in enumerate(COLUMN_KEYS)]
+
+    _CELL_ROLES = (Qt.DisplayRole, Qt.BackgroundRole, Qt.ForegroundRole, Qt.FontRole,
+                   Qt.ToolTipRole)
+
+    def _new_items(self, row: dict) -> list[QStandardItem]:
+        """The items of a new row (not yet in the model)."""
+        flags = self._READ_ONLY if row.get("kind") == "baseline" else self._SELECTABLE
+        cells = self._cells(row)
+        items = []
+        for c, cell in enumerate(cells):
+            item = QStandardItem()
+            item.setFlags(flags)
+            item.setData(self._ALIGN[c], Qt.TextAlignmentRole)
+            for role, value in zip(self._CELL_ROLES, cell):
+                if value is not None:
+                    item.setData(value, role)
+            items.append(item)
+        items[0].setData(row["key"], KEY_ROLE)
+        items[0].setData(self.filter_text(row), FILTER_ROLE)
+        self._items.append(items)
+        self._shown.append(cells)
+        return items
+
+    def _update_items(self, i: int) -> tuple[int, int] | None:
+        """Show stored row ``i`` again; the first and last columns that changed (None:
+        nothing did). The caller blocks the model's signals and announces the change."""
+        row, items, before = self._rows[i], self._items[i], self._shown[i]
+        cells = self._cells(row)
+        first = last = None
+        for c, (new, old) in enumerate(zip(cells, before)):
+            if new == old:
+                continue
+            item = items[c]
+            for role, value, was in zip(self._CELL_ROLES, new, old):
+                if value != was:
+                    item.setData(value, role)
+            first = c if first is None else first
+            last = c
+        self._shown[i] = cells
+        text = self.filter_text(row)
+        if items[0].data(FILTER_ROLE) != text:  # (the proxy filters again on dataChanged)
+            items[0].setData(text, FILTER_ROLE)
+            first, last = 0, 0 if last is None else last
+        flags = self._READ_ONLY if row.get("kind") == "baseline" else self._SELECTABLE
+        if items[0].flags() != flags:
+            for item in items:
+                item.setFlags(flags)
+            first, last = 0, len(items) - 1
+        return None if first is None else (first, last)
+
+    def _refill(self, storage_rows) -> None:
+        """Show these stored rows again, one dataChanged per row for its changed columns."""
+        inverse = {s: v for v, s in enumerate(self._order_list)}
+        spans = []
+        blocked = self.blockSignals(True)
+        try:
+            for i in storage_rows:
+                span = self._update_items(i)
+                if span is not None:
+                    spans.append((inverse[i], span))
+        finally:
+            self.blockSignals(blocked)
+        for v, (first, last) in spans:
+            self.dataChanged.emit(self.index(v, first), self.index(v, last))
 
     @staticmethod
     def filter_text(row: dict) -> str:
@@ -343,26 +357,33 @@ class ResultsModel(QAbstractTableModel):
         return row_tooltip(row, key)
 
     # --- updates --------------------------------------------------------------
-    def clear(self) -> None:
+    def _reset(self, rows: list[dict]) -> None:
         self.beginResetModel()
-        self._rows, self._index = [], {}
-        self._set_order(np.zeros(0, dtype=np.int64))
-        self._disp = []
-        self._look = []
-        self._keys = {}
+        blocked = self.blockSignals(True)
+        try:
+            self.setRowCount(0)
+            self._rows, self._index = [], {}
+            self._items, self._shown = [], []
+            self._keys = {}
+            if rows:
+                self.insertRows(0, len(rows))
+            for v, r in enumerate(rows):
+                self._index[r["key"]] = v
+                self._rows.append(r)
+                for c, item in enumerate(self._new_items(r)):
+                    self.setItem(v, c, item)
+            self._set_order(np.arange(len(self._rows), dtype=np.int64))
+        finally:
+            self.blockSignals(blocked)
         self.endResetModel()
+
+    def clear(self) -> None:
+        self._reset([])
         self.last_changed = set()
         self.rowsUpdated.emit()
 
     def set_rows(self, rows: Iterable[dict]) -> None:
-        self.beginResetModel()
-        self._rows = [dict(r) for r in rows]
-        self._index = {r["key"]: i for i, r in enumerate(self._rows)}
-        self._set_order(np.arange(len(self._rows), dtype=np.int64))
-        self._disp = [None] * len(self._rows)
-        self._look = [None] * len(self._rows)
-        self._keys = {}
-        self.endResetModel()
+        self._reset([dict(r) for r in rows])
         if self._sort is not None:
             self.sort(*self._sort)
         self.last_changed = set(self._index)
@@ -379,6 +400,8 @@ class ResultsModel(QAbstractTableModel):
     def upsert(self, rows: Iterable[dict]) -> list[str]:
         """Update known configurations in place and append new ones.
 
+        Only the cells whose text, colours, font or tooltip changed are set again and
+        announced (one ``dataChanged`` per changed row, over its changed columns).
         Returns the keys of the rows that changed or were added.
         """
         new, changed = [], []
@@ -388,28 +411,29 @@ class ResultsModel(QAbstractTableModel):
                 new.append(dict(r))
             elif self.signature(self._rows[i]) != self.signature(r):
                 self._rows[i] = dict(r)
-                self._disp[i] = None
-                self._look[i] = None
                 changed.append(i)
         if changed:
             self._keys = {}
-            inverse = {s: v for v, s in enumerate(self._order_list)}
-            last = len(RESULT_COLUMNS) - 1
-            for i in changed:
-                v = inverse[i]
-                self.dataChanged.emit(self.index(v, 0), self.index(v, last))
+            self._refill(changed)
         if new:
             start = len(self._rows)
-            self.beginInsertRows(QModelIndex(), start, start + len(new) - 1)
-            for r in new:
-                self._index[r["key"]] = len(self._rows)
-                self._rows.append(r)
-                self._disp.append(None)
-                self._look.append(None)
+            # the rows first (one insertion), then their items (signals blocked), then
+            # one dataChanged over them (the proxy filters them on it)
+            self.insertRows(start, len(new))
+            blocked = self.blockSignals(True)
+            try:
+                for v, r in enumerate(new, start):
+                    self._index[r["key"]] = v
+                    self._rows.append(r)
+                    for c, item in enumerate(self._new_items(r)):
+                        self.setItem(v, c, item)
+            finally:
+                self.blockSignals(blocked)
             self._set_order(np.concatenate(
                 [self._order, np.arange(start, len(self._rows), dtype=np.int64)]))
             self._keys = {}
-            self.endInsertRows()
+            self.dataChanged.emit(self.index(start, 0),
+                                  self.index(len(self._rows) - 1, len(RESULT_COLUMNS) - 1))
         if (changed or new) and self._sort is not None:
             self.sort(*self._sort)
         keys = [self._rows[i]["key"] for i in changed] + [r["key"] for r in new]
@@ -459,15 +483,18 @@ class ResultsModel(QAbstractTableModel):
         idx = idx.astype(np.int64)
         if len(idx) == len(self._order) and np.array_equal(idx, self._order):
             return  # the order stands: no relayout and full repaint of the views
-        self.layoutAboutToBeChanged.emit()
-        old = self.persistentIndexList()
-        stored = [self._order_list[p.row()] for p in old]
+        # each stored row's new place, then Qt's own sort moves the items (and the
+        # persistent indexes: selections follow their rows) in one layout change
+        pos = np.empty(n, dtype=np.int64)
+        pos[idx] = np.arange(n)
+        blocked = self.blockSignals(True)
+        try:
+            for items, p in zip(self._items, pos.tolist()):
+                items[0].setData(p, POS_ROLE)
+        finally:
+            self.blockSignals(blocked)
         self._set_order(idx)
-        inverse = np.empty(n, dtype=np.int64)
-        inverse[idx] = np.arange(n)
-        self.changePersistentIndexList(
-            old, [self.index(int(inverse[s]), p.column()) for s, p in zip(stored, old)])
-        self.layoutChanged.emit()
+        QStandardItemModel.sort(self, 0, Qt.AscendingOrder)
 
 
 class ResultsProxy(QSortFilterProxyModel):
