@@ -8,8 +8,9 @@ memory are measured, not asserted. Each function prints its figures; run e.g.
     python tests/perf_helpers.py labels      # the classifier's label columns per fit
     python tests/perf_helpers.py memory [FOLDER [PACKAGE_ROOT]]  # a worker's memory,
                                              # 200,000 x 22 table (made in FOLDER)
-    python tests/perf_helpers.py memory-shared [FOLDER [PACKAGE_ROOT]]  # the same, the
-                                             # fold features computed once and mapped
+    python tests/perf_helpers.py memory-shared [FOLDER [PACKAGE_ROOT [BASELINES]]]  # the
+                                             # same as a sweep's worker on this table
+                                             # does: fold features prepared once, mapped
 
 Timings are medians of interleaved runs in one process, in CPU seconds of this process
 (``time.process_time``; BLAS is held to one thread, so on a shared, loaded machine the
@@ -200,7 +201,8 @@ with open(sys.argv[1], "rb") as fh:
     specs = pickle.load(fh)
 out = []
 for spec in specs:
-    res = trials.run_trial_from_file(spec.pop("_token"), spec.pop("_path"), spec)
+    token, path, light = spec.pop("_token"), spec.pop("_path"), spec.pop("_light", None)
+    res = trials.run_trials_from_file(token, path, [spec], *([light] if light else []))[0]
     out.append((res["status"], res["test_score"], res["error"]))
 stop = True
 th.join()
@@ -288,60 +290,52 @@ def worker_peak(csv, folder, epochs: int = 2, folds_run: int = 3, package_root=N
     return got
 
 
-_SHARED_FOLD_WORKER = _WORKER.replace(
-    "    res = trials.run_trial_from_file(",
-    "    import numpy as np\n"
-    "    data = trials._WORKER_DATA.get(spec['_token'])\n"
-    "    if data is None:\n"
-    "        data = trials._WORKER_DATA[spec['_token']] = trials.load_worker_data(spec['_path'])\n"
-    "    trials._FOLD_CACHE.clear()  # one fold's mapped features at a time\n"
-    "    trials._FOLD_CACHE[(data.token, int(spec['repeat']), int(spec['fold']))] = tuple(\n"
-    "        np.load(spec.pop(f), mmap_mode='r') for f in ('_train_features', '_test_features'))\n"
-    "    res = trials.run_trial_from_file(")
-
-
 def shared_fold_peak(csv, folder, epochs: int = 2, folds_run: int = 3, workers: int = 2,
-                     package_root=None) -> dict:
-    """The proposal for the workers' fold features (not what the sweep does yet): each
-    fold's features are computed once (here by this process, with the sweep's own
-    preprocessor) and written as ``.npy`` files that every worker maps read-only, as it
-    maps the table, instead of each worker computing them from the table. The worker
-    process of :func:`worker_peak` runs the same trials, its fold cache holding the
-    current fold's mapped arrays alone (so :func:`workbench.sweep.trials.run_trial` takes
-    them, as from its own cache); same figures. Relies on the cache's key
-    ``(token, repeat, fold)`` in ``workbench/sweep/trials.py``."""
+                     package_root=None, baselines: bool = False) -> dict:
+    """What a sweep's local worker does on a large table (:mod:`workbench.sweep.fold_files`):
+    each fold's features are prepared once by this process, as the runner's thread does
+    (:func:`workbench.sweep.fold_files.write_fold`), and the worker process of
+    :func:`worker_peak` runs the same trials reading them mapped from the ``.npy`` files
+    and the table without its features (:func:`workbench.sweep.trials.light_data`), never
+    the table copy; same figures. ``baselines``: the fold's linear baseline (float64
+    features, scikit-learn's Ridge) runs after each network trial."""
     import pickle
 
-    from workbench.data.preprocessing import build_preprocessor
-    from workbench.sweep.trials import save_worker_data
+    from workbench.sweep import fold_files
+    from workbench.sweep.trials import light_data, save_worker_data
 
     opts = dict(layers=["32"], epochs=epochs, folds=5, repeats=1, hidden="relu",
                 learning_rates=["0.001"])
     plan, data, _ = trial(csv, "target", **opts)
     path = os.path.join(folder, "table.bin")
+    light = os.path.join(folder, "light.bin")
     save_worker_data(data, path)
+    save_worker_data(light_data(data), light)
+    linear = [b for b in plan.baseline_configurations() if b.name == "linear"]
     specs = []
     for k in range(folds_run):
         spec = trial(csv, "target", fold=k, **opts)[2]
-        prep = build_preprocessor(data.profile, data.target)
-        tr, te = spec["train"], spec["test"]
-        files = {}
-        for name, X in (("_train_features", prep.fit_transform(data.X.iloc[tr])),
-                        ("_test_features", prep.transform(data.X.iloc[te]))):
-            files[name] = os.path.join(folder, f"fold{k}{name}.npy")
-            np.save(files[name], np.asarray(X))
-        specs.append(dict(spec, _token=data.token, _path=path, **files))
+        runs = [spec] + ([dict(spec, config=linear[0].to_dict())] if baselines else [])
+        kinds = {fold_files.feature_kind(s) for s in runs}
+        t = time.perf_counter()
+        files = fold_files.write_fold(folder, data, 0, k, spec["train"], spec["test"], kinds)
+        prep_s = time.perf_counter() - t
+        for s in runs:
+            specs.append(dict(s, _token=data.token, _path=path, _light=light,
+                              features=files[fold_files.feature_kind(s)]))
     spec_path = os.path.join(folder, "spec_shared.pkl")
     with open(spec_path, "wb") as fh:
         pickle.dump(specs, fh)
-    got = _median_worker(_SHARED_FOLD_WORKER, spec_path, workers, package_root, data)
+    got = _median_worker(_WORKER, spec_path, workers, package_root, data)
+    got["prepare_s"] = prep_s
     rss, uss = got["peak_rss"] - got["base_rss"], got["peak_uss"] - got["base_uss"]
-    print(f"table {csv}: numeric size {got['numeric_mb']:.1f} MB; shared mapped fold features; "
-          f"{workers} workers, each running {folds_run} trials on {folds_run} folds: RSS "
+    print(f"table {csv}: numeric size {got['numeric_mb']:.1f} MB; shared mapped fold features"
+          f"{' (+ linear baseline)' if baselines else ''}; {workers} workers, each running "
+          f"{len(specs)} trials on {folds_run} folds: RSS "
           f"{got['base_rss']:.0f} MB after imports, peak {got['peak_rss']:.0f} MB (+{rss:.0f} MB "
           f"= {rss / got['numeric_mb']:.2f} x); USS {got['base_uss']:.0f} MB after imports, peak "
           f"{got['peak_uss']:.0f} MB (+{uss:.0f} MB = {uss / got['numeric_mb']:.2f} x); "
-          f"{[t[0] for t in got['trials']]}")
+          f"a fold prepared in {prep_s:.2f} s; {[t[0] for t in got['trials']]}")
     return got
 
 
@@ -355,15 +349,16 @@ def memory(folder=None, package_root=None) -> dict:
     return worker_peak(csv, folder, package_root=package_root)
 
 
-def memory_shared(folder=None, package_root=None) -> dict:
-    """:func:`shared_fold_peak` on the table of :func:`memory`."""
+def memory_shared(folder=None, package_root=None, baselines=False) -> dict:
+    """:func:`shared_fold_peak` on the table of :func:`memory` (``baselines``: any
+    non-empty text turns the linear baseline on, from the command line)."""
     import tempfile
 
     folder = folder or tempfile.mkdtemp(prefix="wb-mem-")
     csv = Path(folder) / "big.csv"
     if not csv.exists():
         synthetic_table(csv)
-    return shared_fold_peak(csv, folder, package_root=package_root)
+    return shared_fold_peak(csv, folder, package_root=package_root, baselines=bool(baselines))
 
 
 if __name__ == "__main__":

@@ -148,6 +148,7 @@ def test_a_worker_given_shared_features_reads_neither_the_table_nor_a_transforme
     shared = F.SharedFolds(data, tmp_path, folds, needs)
     given = shared.attach(specs)
     shared.close()
+    written = {p.name: p.read_bytes() for p in tmp_path.glob("fold-*.npy")}
     light = tmp_path / "light.pkl"
     T.save_worker_data(T.light_data(data), str(light))
     assert T.load_worker_data(str(light)).X is None
@@ -170,6 +171,7 @@ def test_a_worker_given_shared_features_reads_neither_the_table_nor_a_transforme
                                   str(light))[0] for s in given]
     assert read == [str(light)]
     assert not T._FOLD_CACHE
+    assert {p.name: p.read_bytes() for p in tmp_path.glob("fold-*.npy")} == written
     monkeypatch.undo()
     T._WORKER_DATA.clear()
     own = [T.run_trial(data, dict(s)) for s in specs]
@@ -180,7 +182,11 @@ def test_a_worker_given_shared_features_reads_neither_the_table_nor_a_transforme
         assert a["status"] == "done", a["error"]
         assert _digest(a) == _digest(b)
     for spec, (X_tr, X_te) in zip(given, fitted):
-        assert isinstance(X_tr, np.memmap) and not X_tr.flags.writeable
+        assert isinstance(X_tr, np.memmap) and isinstance(X_te, np.memmap)
+        baseline = spec["config"].get("kind") == "baseline"
+        # read-only, or for a baseline copy-on-write (the file itself never changes)
+        assert X_tr.mode == X_te.mode == ("c" if baseline else "r")
+        assert X_tr.flags.writeable == baseline
         assert X_tr.dtype == np.dtype(F.feature_kind(spec))
         assert X_tr.shape[0] == len(spec["train"]) and X_te.shape[0] == len(spec["test"])
 
@@ -324,3 +330,20 @@ def test_closing_stops_the_preparation_after_the_fold_under_way(tmp_path, monkey
     assert shared.files(0, 1, F.FLOAT32) is None  # and nobody waits for them
     assert sorted(os.listdir(tmp_path)) == ["fold-0-0-test-float32.npy",
                                             "fold-0-0-train-float32.npy"]
+
+
+def test_a_pool_task_hands_the_heap_back_after_it_runs(tmp_path, monkeypatch):
+    """Wiring: after each task in a pool worker, glibc's ``malloc_trim`` (where there is
+    one) runs once, also when the task raised."""
+    calls = []
+    monkeypatch.setattr(T, "_release_heap", lambda: calls.append(1))
+    monkeypatch.setattr(T, "_worker_data", lambda *a: None)
+    monkeypatch.setattr(T, "run_trials", lambda data, specs: [{"ok": 1}])
+    assert T.run_trials_from_file("t", "p", [{}]) == [{"ok": 1}]
+    monkeypatch.setattr(T, "run_trials", lambda data, specs: 1 / 0)
+    with pytest.raises(ZeroDivisionError):
+        T.run_trials_from_file("t", "p", [{}])
+    assert calls == [1, 1]
+    monkeypatch.undo()
+    T._release_heap()  # the real one runs on this platform without error
+    assert len(T._TRIM) == 1
