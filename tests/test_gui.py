@@ -122,10 +122,16 @@ def test_drop_run_sort_select_export(qtbot, window, tmp_path):
     assert "2 configurations" in win.setup.estimate_label.text()
     assert "4 trials" in win.setup.estimate_label.text()
 
+    # the sweep's end is said after the best row's plots are all drawn (one panel per turn
+    # of the event loop, see PlotArea.show_rows)
+    at_end = []
+    win.sweepEnded.connect(lambda *_: at_end.append(
+        (win.plot_area.staging(), [bool(p._series) for p in win.plot_area.panels()[:3]])))
     with qtbot.waitSignal(win.sweepEnded, timeout=60_000) as blocker:
         win.run_sweep()
         assert win.sweep_running()
     assert blocker.args[0]["state"] == "finished", blocker.args[0]
+    assert at_end == [(False, [True, True, True])]
     qtbot.waitUntil(lambda: len(networks(win)) == 2, timeout=5_000)
     rows = networks(win)
     assert {r["hidden"] for r in rows} == {"relu", "tanh"}

@@ -215,6 +215,7 @@ class MainWindow(QMainWindow):
         self._target_generation = 0
         self._progress = {"done": 0, "total": 0, "best": None, "t0": None, "running": 0}
         self._close_after_stop = False
+        self._plots_then = None
         # the time estimate: the core's calibration on the current table (made in the
         # background, a short while after the plan last changed) and the workers' start-up
         self._calibration = None
@@ -1108,7 +1109,19 @@ class MainWindow(QMainWindow):
         self._fit_columns()
         if self.results_view.selectionModel().selectedRows() == [] \
                 and self.proxy.rowCount() > 0 and not self.sweep_running():
+            # the best row's plots one panel per turn (shown from their empty state, the
+            # three laid out and painted in one turn held the loop 60-100 ms), then the end
+            self._plots_then = lambda: self._sweep_ended(summary)
             self.select_rows([0])
+            if self._plots_then is not None:  # (the selection drew nothing: no new rows)
+                self._plots_then = None
+                self._sweep_ended(summary)
+        else:
+            self._sweep_ended(summary)
+
+    def _sweep_ended(self, summary: dict) -> None:
+        if not shiboken6.isValid(self.results_view):
+            return
         self.sweepEnded.emit(summary)
         if self._close_after_stop:
             self.close()
@@ -1345,7 +1358,10 @@ class MainWindow(QMainWindow):
         if n_sel > MAX_PLOTTED:
             self.status.showMessage(f"{n_sel} rows selected; the plots show the first "
                                     f"{MAX_PLOTTED}.", 5000)
-        self.plot_area.show_rows(rows)  # in rank order, numbered by rank (the plot area)
+        # in rank order, numbered by rank (the plot area); at the end of a sweep one panel
+        # per turn of the event loop, then the sweep's end (_sweep_done_rest)
+        then, self._plots_then = self._plots_then, None
+        self.plot_area.show_rows(rows, then=then)
 
     def show_shortcuts(self) -> None:
         rows = []

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import html
 
-from PySide6.QtCore import Qt, Signal
+from PySide6.QtCore import QEvent, Qt, QTimer, Signal
 from PySide6.QtWidgets import (
     QFrame,
     QLabel,
@@ -58,6 +58,23 @@ def _label(row: dict, rows: list[dict]) -> str:
     return words
 
 
+class _Legend(QLabel):
+    """The legend's label: at least one line high, also while hidden (see PlotArea)."""
+
+    def changeEvent(self, event) -> None:  # noqa: N802 - Qt override
+        super().changeEvent(event)
+        if event.type() in (QEvent.FontChange, QEvent.StyleChange, QEvent.PolishRequest):
+            self.hold_line()
+
+    def hold_line(self) -> None:
+        text = self.text()
+        self.setText("x")
+        one = self.heightForWidth(1000)
+        self.setText(text)
+        if one > 0 and one != self.minimumHeight():
+            self.setMinimumHeight(one)
+
+
 class PlotArea(QWidget):
     """Legend strip, plot tabs and diagnosis for the selected configurations.
 
@@ -78,6 +95,8 @@ class PlotArea(QWidget):
         self.calibration_source = calibration_source
         self._series: list[dict] = []
         self._generation = 0
+        self._stage = 0
+        self._then = None
         self._tabs = None
         self._diagnosis_stale = True  # written when its page is shown (or read)
         # an explicit least size: the layout would otherwise take the height its wrapped
@@ -87,12 +106,18 @@ class PlotArea(QWidget):
         lay = QVBoxLayout(self)
         lay.setContentsMargins(0, 0, 0, 0)
         lay.setSpacing(2)
-        self.legend = QLabel("")
+        self.legend = _Legend("")
         self.legend.setObjectName("legend")
         self.legend.setWordWrap(True)
         self.legend.setTextFormat(Qt.RichText)
         self.legend.setSizePolicy(QSizePolicy.Preferred, QSizePolicy.Minimum)
         self.legend.setContentsMargins(6, 2, 6, 0)
+        # hidden (nothing selected), it keeps its line: the plots below are not laid out
+        # again when a selection shows it (at the end of a sweep that moved all of them)
+        policy = self.legend.sizePolicy()
+        policy.setRetainSizeWhenHidden(True)
+        self.legend.setSizePolicy(policy)
+        self.legend.hold_line()
         lay.addWidget(self.legend)
         self.curves = CurvesPanel()
         self.spread = SpreadPanel()
@@ -134,8 +159,16 @@ class PlotArea(QWidget):
         return list(self._series)
 
     # ------------------------------------------------------------------ selection
-    def show_rows(self, rows: list[dict]) -> None:
-        """Show the selected rows (any order; shown by rank)."""
+    def show_rows(self, rows: list[dict], then=None) -> None:
+        """Show the selected rows (any order; shown by rank).
+
+        With ``then`` (a callable), the panels are drawn one per turn of the event loop
+        (legend and curves, fold scores, layer health, the rest), then ``then()`` is
+        called: showing the plots from their empty state lays each one out, and the three
+        laid out and painted in one turn held the loop for 60-100 ms (at the end of a
+        sweep, when the best row is selected). A call meanwhile draws everything at once
+        and still calls the earlier ``then``.
+        """
         series = []
         rows = _order([r for r in rows if r.get("series")])
         for i, r in enumerate(rows):
@@ -150,9 +183,39 @@ class PlotArea(QWidget):
                 for f in (s.get("diagnosis") or {}).get("findings") or [] if f.get("layers")]
             series.append(s)
         self._series = series
-        self.curves.set_series(series)
-        self.spread.set_series(series)
-        self.health.set_series(series)
+        earlier, self._then = self._then, None
+        self._stage += 1
+        steps = [lambda: (self._legend(), self.curves.set_series(series)),
+                 lambda: self.spread.set_series(series),
+                 lambda: self.health.set_series(series),
+                 lambda: self._show_rest(series)]
+        if then is None:
+            for step in steps:
+                step()
+        else:
+            self._then = then
+            self._staged(self._stage, steps)
+        if earlier is not None:
+            earlier()
+
+    def _staged(self, stage: int, steps: list) -> None:
+        """The first step now, the others on the event loop's next turns (unless a newer
+        :meth:`show_rows` came first), then the caller's ``then``."""
+        if stage != self._stage:
+            return
+        steps[0]()
+        if len(steps) > 1:
+            QTimer.singleShot(0, self, lambda: self._staged(stage, steps[1:]))
+        else:
+            then, self._then = self._then, None
+            if then is not None:
+                then()
+
+    def staging(self) -> bool:
+        """True while a staged :meth:`show_rows` has panels left to draw."""
+        return self._then is not None
+
+    def _show_rest(self, series: list[dict]) -> None:
         self.calibration.set_series(series)
         self._legend()
         self._diagnosis_later()
