@@ -1,0 +1,130 @@
+"""Big repaints in separate turns of the event loop (no timings: the behaviour only).
+
+At the end of a sweep the window selects the best row; its plots come out of their
+empty state, and each panel is laid out and painted for the first time. The plot
+area then draws one panel per turn (workbench.gui.plot_area.PlotArea.show_rows with
+``then``), and the window says the sweep ended after the last one.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from PySide6.QtWidgets import QApplication
+
+
+def _band(values):
+    values = list(values)
+    return {"x": list(range(1, len(values) + 1)), "mean": values, "lo": values, "hi": values}
+
+
+def _row(i, loss):
+    scores = (0.8 - 0.01 * i, 0.82 - 0.01 * i)
+    series = {"loss": _band(loss), "loss_kind": "squared_error:sd",
+              "loss_words": "squared error", "metric": "r2", "fold_scores": list(scores),
+              "mean": float(np.mean(scores)), "sd": float(np.std(scores)), "diverged": False,
+              "health": {"dead": [0.0], "saturated": [0.0], "grad_norm": [0.05, 0.02]},
+              "hints": []}
+    return {"key": f"k{i}", "index": i, "rank": i + 1, "hidden": "relu", "head": "identity",
+            "layers": "8", "series": series}
+
+
+def _drawn(area) -> tuple[bool, bool, bool]:
+    return tuple(bool(p._series) for p in (area.curves, area.spread, area.health))
+
+
+def _area(qtbot):
+    from workbench.gui.plot_area import PlotArea
+
+    area = PlotArea()
+    qtbot.addWidget(area)
+    area.resize(900, 400)
+    area.show()
+    QApplication.processEvents()
+    return area
+
+
+def test_staged_show_draws_one_panel_per_turn_then_calls_back(qtbot):
+    area = _area(qtbot)
+    rows = [_row(0, [0.5, 0.3, 0.2]), _row(1, [0.6, 0.4, 0.35])]
+    called = []
+    seen = []
+
+    def then():
+        called.append(_drawn(area))
+
+    area.show_rows(rows, then=then)
+    seen.append(_drawn(area))  # right after the call: the curves only (and the legend)
+    assert seen == [(True, False, False)] and not called
+    assert not area.legend.isHidden() and area.staging()
+    assert not area.spread.empty.isHidden()  # still its empty sentence
+    qtbot.waitUntil(lambda: bool(called), timeout=5_000)
+    assert called == [(True, True, True)] and not area.staging()
+    assert area.spread.empty.isHidden() and area.health.empty.isHidden()
+    assert [s["number"] for s in area.series()] == [1, 2]
+
+
+def test_a_selection_meanwhile_draws_at_once_and_the_callback_still_comes_once(qtbot):
+    area = _area(qtbot)
+    called = []
+    area.show_rows([_row(0, [0.5, 0.3])], then=lambda: called.append(_drawn(area)))
+    # a click before the later turns: everything now, the earlier callback after it
+    area.show_rows([_row(3, [0.9, 0.7]), _row(4, [0.8, 0.6])])
+    assert called == [(True, True, True)]
+    assert [s["number"] for s in area.series()] == [4, 5]
+    for _ in range(5):
+        QApplication.processEvents()
+    assert called == [(True, True, True)]  # the stale turns drew nothing more
+    assert [s["number"] for s in area.spread._series] == [4, 5]
+
+
+def test_the_legend_keeps_its_line_while_hidden(qtbot):
+    # shown by a selection, it moves nothing below it (the plots keep their place)
+    area = _area(qtbot)
+    assert area.legend.isHidden()
+    top = area.curves.geometry().top()
+    area.show_rows([_row(0, [0.5, 0.3])])
+    QApplication.processEvents()
+    assert not area.legend.isHidden()
+    assert area.curves.geometry().top() == top
+    area.show_rows([])
+    QApplication.processEvents()
+    assert area.legend.isHidden() and area.curves.geometry().top() == top
+
+
+def test_the_verdict_keeps_its_labels_when_a_ranking_changes_its_statements(qtbot):
+    # a sweep's rankings add and drop warnings: the rows already built get the new words
+    # (new labels, each styled by the style sheet, were the costly part)
+    from workbench.gui.verdict_strip import VerdictStrip
+
+    strip = VerdictStrip()
+    qtbot.addWidget(strip)
+    strip.resize(800, 200)
+    strip.show()
+
+    def meta(*statements):
+        return {"state": "running", "statements": [
+            {"key": k, "label": label, "text": text} for k, label, text in statements]}
+
+    strip.set_results(meta(("output", "Output", "logistic fits"),
+                           ("recommended", "Recommended", "relu / logistic [16]")))
+    first = [pair for pair in strip._rows]
+    out = strip.labels["output"]
+    strip.set_results(meta(("output", "Output", "logistic fits, P 0.97"),
+                           ("few_folds", "Warning", "only 3 folds"),
+                           ("recommended", "Recommended", "tanh / logistic [16]")))
+    assert strip._rows[:2] == first  # the same label objects, new words
+    assert strip.labels["output"] is out and out.text() == "logistic fits, P 0.97"
+    warning = strip.labels["few_folds"]
+    assert warning is first[1][1] and warning.objectName() == "verdictWarning"
+    assert strip._rows[1][0].text() == "⚠ Warning"
+    assert strip.labels["recommended"].objectName() == "verdictText"
+    assert strip.labels["recommended"].text() == "tanh / logistic [16]"
+    # the warning goes: its row becomes the recommendation again, the surplus row goes
+    strip.set_results(meta(("output", "Output", "logistic fits"),
+                           ("recommended", "Recommended", "relu / logistic [16]")))
+    assert len(strip._rows) == 2 and strip._rows == first
+    assert strip.labels["recommended"].objectName() == "verdictText"
+    assert strip.text().splitlines()[1:] == ["Output: logistic fits",
+                                             "Recommended: relu / logistic [16]"]
+    # nothing cut: the strip is as tall as its wrapped rows need
+    assert strip.height() == strip.layout().totalHeightForWidth(strip.width())
