@@ -7,8 +7,8 @@ so far), stores every trial as it finishes and prints the ranked table at the
 end. ``--json OUT`` writes the full results (the object documented in
 README.md, section "Sweep results as JSON"; ``-`` for stdout).
 
-``--race`` stops configurations that are worse than the best beyond doubt after
-each block of folds (:mod:`workbench.sweep.racing`); the progress says which and
+``--race`` stops configurations that the full sweep would rank below the best,
+beyond doubt, after each block of folds (:mod:`workbench.sweep.racing`); the progress says which and
 when, and the results mark their scores as partial.
 
 ``--resume SWEEP_ID`` finishes a stored sweep (FILE and the plan options are
@@ -112,10 +112,12 @@ def add_arguments(parser):
                         help="with --resume: where the sweep's table is now, when it was moved "
                              "(its SHA-256 is checked; default: the stored path)")
     parser.add_argument("--race", action="store_true",
-                        help="racing: after each block of folds from the 4th on, stop "
-                             "configurations the full sweep would find practically worse than "
-                             "the best (P >= 0.999, Student t prediction from the paired fold "
-                             "scores so far); their scores are kept, marked partial")
+                        help="racing: after each block of folds from the 2nd on, stop "
+                             "configurations the full sweep would rank below the current best "
+                             "(P >= 0.975, Student t prediction from the paired fold scores so "
+                             "far, variances moderated across configurations); the leading "
+                             "relu configuration with the advised head is kept; stopped ones "
+                             "keep their scores, marked partial")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
 
 

@@ -399,9 +399,9 @@ class SweepPlan:
         analyses the target with it, so resume and export read the target alike.
     race : bool
         Racing (``--race``, the window's racing check box): after each block of
-        folds, from the end of the first repeat on, stop the configurations that
-        are practically worse than the current best beyond doubt, so that none of
-        their remaining trials run (:mod:`workbench.sweep.racing` gives the rule
+        folds, from the second on, stop the configurations that the full sweep
+        would rank below the current best, beyond doubt, so that none of their
+        remaining trials run (:mod:`workbench.sweep.racing` gives the rule
         and why it protects the winner). Default False: every trial runs.
     """
 

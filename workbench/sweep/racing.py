@@ -1,80 +1,88 @@
-"""Racing: stop the configurations the full sweep would rank practically worse, beyond doubt.
+"""Racing: stop the configurations the full sweep would rank below the best, beyond doubt.
 
 A racing sweep (``SweepPlan.race``, ``workbench sweep --race``) runs its trials
 in the plan's order -- repeat by repeat, fold by fold, every configuration on a
 fold before the next fold (:meth:`workbench.sweep.plan.SweepPlan.trials`) -- and
-*looks* after each completed block of folds from the :data:`FIRST_LOOK`-th (4th)
+*looks* after each completed block of folds from the :data:`FIRST_LOOK`-th (2nd)
 on, up to the last but one. At a look, each configuration still running is
 compared with the current best on the paired fold scores seen so far; one that
-the full sweep would find practically worse beyond doubt is *stopped*: none of
-its remaining trials is started. Its stored trials (and a trial already running
-when it was stopped) stay; the results show them as partial scores, and a
-stopped configuration is never recommended.
+the full sweep would rank below the current best, beyond doubt, is *stopped*:
+none of its remaining trials is started. Its stored trials (and a trial already
+running when it was stopped) stay; the results show them as partial scores, and
+a stopped configuration is never recommended.
 
 The rule
 --------
 A look at block ``b`` (the ``J``-th ``(repeat, fold)`` of the plan's order,
 ``FIRST_LOOK <= J < N = K R``) happens once every configuration still running at
-``b`` has its trials of blocks ``1..b`` stored (and, for error scores, every trial
-of the constant baseline, which sets the ROPE). Among the configurations still
+``b`` has its trials of blocks ``1..b`` stored. Among the configurations still
 running whose scores so far are all finite (no diverged or failed trial), the
 *current best* has the highest mean over blocks ``1..b`` (lowest index on a tie,
 as :func:`workbench.sweep.statistics.rank`). Every other such configuration
 ``c`` is stopped when
 
-    P( Dbar_N < -rope | d_1..d_J ) >= THRESHOLD = 0.999,
+    P( Dbar_N < 0 | d_1..d_J ) >= THRESHOLD = 0.975,
 
 where ``d_j`` are its paired differences from the current best so far and
 ``Dbar_N`` is the mean difference the *full* sweep would end with, over all ``N``
-blocks. The ``N - J`` differences still to come are predicted from the ``J`` seen
-as exchangeable draws of one normal distribution with unknown mean and variance:
-the mean of the ``m = N - J`` to come is Student t with ``J - 1`` degrees of
-freedom, location ``dbar`` and scale ``s sqrt(1/J + 1/m)`` -- the textbook
-prediction interval for the mean of m future observations (Hahn, Meeker &
-Escobar 2017), the posterior predictive under the reference prior (Gelman et al.
-2013) -- so ``Dbar_N`` is t with location ``dbar`` and scale ``(m/N) s sqrt(1/J +
-1/m)`` (:func:`p_full_worse`). The ROPE is the verdict's
-(:func:`workbench.sweep.bayes.default_rope`: 0.01 for unit-free scores, 1 % of
-the constant baseline's mean for error scores, else 1 % of the best's mean).
+blocks: the probability that the full sweep ranks it below the current best.
+The ``N - J`` differences still to come are predicted from the ``J`` seen as
+exchangeable draws of one normal distribution with unknown mean and variance:
+the mean of the ``m = N - J`` to come is Student t with location ``dbar`` and
+scale ``s sqrt(1/J + 1/m)`` -- the textbook prediction interval for the mean of
+m future observations (Hahn, Meeker & Escobar 2017), the posterior predictive
+under the reference prior (Gelman et al. 2013) -- so ``Dbar_N`` is t with
+location ``dbar`` and scale ``(m/N) s sqrt(1/J + 1/m)`` (:func:`p_full_below`).
+
+Early on, ``s`` rests on one or two degrees of freedom, and a t with so few is
+too heavy-tailed to decide anything. The variances of all the configurations'
+differences at the same look are therefore *moderated* (:func:`moderated_variances`,
+the empirical Bayes of Smyth 2004, limma's ``squeezeVar``): each is pulled towards
+the common level by as much as the variances' own spread says they share, and
+the t then has ``d0 + J - 1`` degrees of freedom. A configuration whose own
+differences are erratic keeps most of its variance.
+
+The rule of thumb's configurations (relu hidden layers with the advised head,
+:func:`rule_of_thumb_configs`) race like the others, except that the leading
+one of them at each look is kept as the best is: the verdict tests the rule of
+thumb at its best configuration and recommends it when it is practically
+equivalent to the best, so that configuration's scores must be complete.
 
 Why this test: racing must reach the full sweep's answer, and the full sweep
 ranks the configurations on these very folds. What is uncertain at a look is
 only what the remaining folds of the same table will add, which shrinks to
-nothing as ``J`` nears ``N`` (Maron & Moore's races likewise bound the error on
-the finite set the full evaluation would use). The verdict's correlated t-test
-(Benavoli et al. 2017, with Nadeau & Bengio's correction) answers another
-question, how the configurations would compare on new data from the same
-source; its variance never falls below ``n_test / n_train`` times the fold
-variance however many folds are seen, so as a stopping rule it saves little (it
-is kept as ``test="correlated"``; at P >= 0.99 from the 3rd block, on the wide
-benchmark grid, it ran 0.57-1.00 of the trials, 0.90 on trap catches where this
-rule runs 0.65).
+nothing as ``J`` nears ``N`` (Maron & Moore's races likewise drop a candidate as
+soon as it is clearly beaten on the finite set the full evaluation would use).
+The verdict's correlated t-test (Benavoli et al. 2017, with Nadeau & Bengio's
+correction) answers another question, how the configurations would compare on
+new data from the same source; its variance never falls below ``n_test /
+n_train`` times the fold variance however many folds are seen, so as a stopping
+rule it saves little (it is kept as ``test="correlated"``).
 
-Why it protects the winner
---------------------------
+What it protects, and what it does not
+--------------------------------------
 - The current best is never tested, so never stopped; the baselines are not
   raced at all (they are cheap, and the verdict compares them with the best
-  network on every fold).
-- For the full sweep's first-ranked configuration ``w``, ``Dbar_N >= 0`` against
-  every other configuration. A stop of ``w`` is a prediction "``Dbar_N`` below
-  ``-rope``" made at posterior probability 0.999 that turns out wrong by more
-  than the ROPE; each look has about a 1 in 1,000 chance of that, and the looks
-  are few (at most ``N - FIRST_LOOK``) and strongly dependent.
-- The ROPE keeps the best's equivalence group running too: a configuration the
-  full sweep would call practically equivalent to the best has its full mean
-  difference inside the ROPE, which the rule must predict outside it at 0.999.
-  Since the kept configurations have all their scores, the racing sweep's best
-  is the full sweep's and its equivalence group is the full sweep's less the
-  stopped configurations, so its recommendation (the simplest member of that
-  group, :func:`workbench.sweep.verdict.recommend`) is the full sweep's or one in
-  the full sweep's group.
-- Measured: on simulated 5-fold x 3-repeat grids (ten configurations, a shared
-  fold effect and per-configuration noise; 1,000 grids each of three kinds: a
-  spread of 0 to 0.3, all within 0.009, all equal) the first-ranked was stopped
-  in 0 of 3,000 grids by this rule; at P >= 0.99 in 12 of 3,000, without the ROPE
-  (at 0.999) in 14 of 3,000, and with the first look after the 3rd block in 3 of
-  2,000: hence the 4th block, the ROPE and 0.999. The tests repeat this on 600
-  grids and on a constructed table whose late winner trails at first.
+  network on every fold); neither is a configuration with a diverged trial.
+- A stop is the prediction "the full sweep ranks it below the current best" at
+  posterior probability 0.975. For the full sweep's first-ranked configuration
+  that prediction is wrong, so a configuration clearly ahead at the end is kept:
+  on the nine benchmark tables below the full sweep's first was never stopped.
+- Among configurations tied within noise the full sweep's first is a matter of
+  chance, and the leader at an early look is picked as the highest of several
+  noisy means, so racing can stop the eventual first of a tied group and report
+  another member of it. What it keeps is then practically as good: on simulated
+  5-fold x 3-repeat grids (ten configurations, a shared fold effect, per
+  configuration noise twice the spread of the leading five; 200 grids each) the
+  full sweep's first was stopped in 28 of 200 grids of a spread of 0 to 0.3 and
+  30 of 200 of ten within 0.009, but the best racing kept was worse than it by
+  more than the ROPE in 0 and 2 of them (``tests/test_racing.py``).
+- The stricter rule this replaced (P >= 0.999 of being worse *beyond the ROPE*,
+  from the 4th block, own variances; still available as ``stop="worse",
+  threshold=0.999, first_look=4, moderate=False``) never stopped the first on
+  3,000 simulated grids, but ran 48-100 % of the trials of the benchmark tables:
+  most configurations on these tables are within the ROPE of the best, and a
+  rule that keeps the whole equivalence group running cannot save them.
 - Looks are at fixed points of the plan (after a block of folds is complete),
   never at the random moment a trial happens to finish, so the decisions are
   the same with one process, two, or a Dask cluster; a resumed sweep replays
@@ -85,19 +93,18 @@ Why it protects the winner
 
 What racing can save
 --------------------
-A stopped configuration has run at least the ``FIRST_LOOK = 4`` trials of the
-first four blocks, and the best runs all ``N = K R``, so a racing sweep of ``C``
-configurations runs at least ``(4 C + N - 4) / (C N)`` of the trials: 41 % at the
-default 5 folds x 3 repeats with 5 configurations, 28 % with 60, never under
-``4 / N``. A sweep with ``N <= 4`` blocks never looks and saves nothing. What it
-saves in practice is the share of the grid that is practically worse beyond
-doubt, and that depends on the grid: on a wide grid (every hidden activation x
-the default heads x ``--learning-rate tune``, 5 x 3, 100 epochs) it ran 48-100 %
-of the trials on the nine benchmark tables (the same recommendation on all nine),
-on the window's default grids 51-100 % (:func:`racing_benchmark` measures both);
-a grid of practically equivalent configurations (breast cancer, where 44 of 60
-configurations are practically equivalent to the best, AUC 0.99-1.00) saves
-nothing, and must not.
+A stopped configuration has run at least the ``FIRST_LOOK = 2`` trials of the
+first two blocks, and the best runs all ``N = K R``, so a racing sweep of ``C``
+configurations runs at least ``(2 C + N - 2) / (C N)`` of the trials: 31 % at the
+default 5 folds x 3 repeats with 5 configurations, 15 % with 60. A sweep with
+``N <= 2`` blocks never looks and saves nothing. What it saves in practice
+depends on the grid. On the wide grid (every hidden activation x the default
+heads x ``--learning-rate tune``, 5 folds x 3 repeats, 100 epochs) it ran 21-31 %
+of the trials on six of the nine benchmark tables (the six sample sets), 38 % on
+breast cancer, 45 % on diabetes and 70 % on wine, and recommended the full
+sweep's configuration on eight and one of its equivalence group on the ninth
+(kiln); on the window's default grids 22-79 % (:func:`racing_benchmark`
+measures both).
 
 References
 ----------
@@ -118,6 +125,9 @@ References
   Machine Learning 52(3), 239-281.
 - Krüger, T., Lehmann, D. & Trepte, K. (2015). Fast cross-validation via
   sequential testing. JMLR 16, 1103-1155.
+- Smyth, G. K. (2004). Linear models and empirical Bayes methods for assessing
+  differential expression in microarray experiments. Statistical Applications in
+  Genetics and Molecular Biology 3(1), article 3 (the moderated variances).
 """
 
 from __future__ import annotations
@@ -127,32 +137,71 @@ import math
 import numpy as np
 
 from workbench.sweep import bayes
+from workbench.sweep.verdict import USUAL_HIDDEN
 
-#: the predictive probability of "the full sweep finds it worse by more than the ROPE"
-#: that stops a configuration (see the module docstring for why 0.999)
-THRESHOLD = 0.999
+#: the predictive probability that stops a configuration: P(the full sweep ranks it below
+#: the current best) >= THRESHOLD (see the module docstring for why 0.975)
+THRESHOLD = 0.975
 
 #: the first look is after this many blocks of folds (``J = FIRST_LOOK`` paired scores)
-FIRST_LOOK = 4
+FIRST_LOOK = 2
 
-#: stop only for a difference beyond the region of practical equivalence
-USE_ROPE = True
+#: what a stop predicts about the full sweep's mean difference from the current best:
+#: "below" (below zero: it ranks below the current best; the rule), "worse" (below
+#: -ROPE: practically worse) or "not_better" (below +ROPE: not practically better);
+#: the last two are kept to measure against
+STOP = "below"
+
+#: the margin each kind of stop puts on the full sweep's mean difference, in ROPEs
+MARGIN = {"below": 0.0, "worse": -1.0, "not_better": 1.0}
+
+#: moderate each configuration's variance of the differences towards the others' at the
+#: same look (empirical Bayes, Smyth 2004; :func:`moderated_variances`)
+MODERATE = True
 
 #: the test of a look: "predictive" (the full sweep's mean difference, predicted from
 #: the paired scores so far) or "correlated" (the verdict's Bayesian correlated t-test)
 TEST = "predictive"
 
 
+def rule_of_thumb_configs(plan) -> set[int]:
+    """The rule of thumb's configurations: the usual hidden activation
+    (:data:`workbench.sweep.verdict.USUAL_HIDDEN`) with a head the advice
+    (:func:`workbench.data.profiling.advise`) gives for the plan's target kind.
+
+    The verdict tests the rule of thumb at its best configuration against the best of
+    the others, and recommends it when it is practically equivalent to the best, so
+    at every look the leading one of these (highest mean so far) is not stopped. For
+    a non-negative target the advised head depends on the share of zeros, which the
+    plan does not carry: both heads the advice can give (relu and softplus) count.
+    """
+    from workbench.data.profiling import TargetInfo, advise
+
+    heads = set()
+    for zero_share in (0.0, 1.0):
+        info = TargetInfo(name=plan.target, kind=plan.target_kind, task=plan.task,
+                          evidence={"zero_share": zero_share}, classes=[0, 1],
+                          interval=(0.0, 1.0))
+        heads.add(advise(info).output_head)
+    return {c.index for c in plan.configurations()
+            if c.hidden == USUAL_HIDDEN and c.head in heads}
+
 
 def rule_text() -> str:
     """The racing rule in one phrase, for messages and help texts."""
-    return (f"stopped when P(the full sweep finds it worse than the current best beyond the "
-            f"ROPE) >= {THRESHOLD:g}, predicted from the paired fold scores so far "
-            f"(Student t), at each block of folds from the {FIRST_LOOK}th on")
+    return (f"stopped when P(the full sweep ranks it below the current best) >= "
+            f"{THRESHOLD:g}, predicted from the paired fold scores so far (Student t, "
+            f"variances moderated across the configurations), at each block of folds from "
+            f"the {_ordinal(FIRST_LOOK)} on; the leading {USUAL_HIDDEN} configuration with the "
+            f"advised head is kept, as the best is")
 
 
-def p_full_worse(differences, n_total: int, rope: float) -> tuple[float, float, float]:
-    """P(the mean of all ``n_total`` paired differences < -rope | the first ``J``).
+def _ordinal(n: int) -> str:
+    return f"{n}{'th' if 10 <= n % 100 <= 20 else {1: 'st', 2: 'nd', 3: 'rd'}.get(n % 10, 'th')}"
+
+
+def p_full_below(differences, n_total: int, margin: float) -> tuple[float, float, float]:
+    """P(the mean of all ``n_total`` paired differences < ``margin`` | the first ``J``).
 
     The ``J`` differences seen so far (configuration minus current best, one per block
     of folds) and the ``m = n_total - J`` still to come are treated as exchangeable
@@ -171,16 +220,83 @@ def p_full_worse(differences, n_total: int, rope: float) -> tuple[float, float, 
     """
     d = np.asarray(differences, dtype=float).ravel()
     J = d.size
-    m = int(n_total) - J
-    if J < 2 or m < 0:
+    if J < 2 or int(n_total) - J < 0:
         return math.nan, math.nan, math.nan
     loc = float(d.mean())
-    scale = 0.0 if m == 0 else (m / n_total) * float(d.std(ddof=1)) * math.sqrt(1 / J + 1 / m)
-    if scale == 0.0:
-        return float(loc < -rope), loc, 0.0
+    p, scale = p_full_predicted(loc, float(d.var(ddof=1)), J - 1, J, n_total, margin)
+    return p, loc, scale
+
+
+def moderated_variances(s2, df: float, floor: float = 1e-5) -> tuple[np.ndarray, float, dict]:
+    """Empirical-Bayes moderated variances (Smyth 2004, section 6.2; limma's
+    ``squeezeVar`` without covariates).
+
+    Each of the ``G`` sample variances ``s2[g]`` (``df`` degrees of freedom) is taken
+    as drawn, given its true variance, from ``sigma2 chi2_df / df``, and the true
+    variances as drawn from a scaled inverse chi-square prior, ``d0 s0^2 / chi2_d0``.
+    The prior is estimated from the ``G`` variances by the method of moments on their
+    logarithms: with ``e = log s2 - digamma(df/2) + log(df/2)``, ``d0`` solves
+    ``trigamma(d0/2) = var(e) - trigamma(df/2)`` and ``s0^2 = exp(mean(e) +
+    digamma(d0/2) - log(d0/2))`` (``d0`` infinite when the right side is not
+    positive: the variances vary no more than sampling alone makes them). The
+    posterior variance of each is ``(d0 s0^2 + df s2) / (d0 + df)`` with ``d0 + df``
+    degrees of freedom, and a mean's posterior (and predictive) distribution is
+    Student t with those degrees of freedom (the normal model with a conjugate
+    prior on the variance; Gelman et al. 2013, section 3.3).
+
+    Variances below ``floor`` times their median are raised to it first (as limma
+    does, so that an exactly zero variance -- two configurations scoring alike on
+    every fold so far -- does not swamp the logarithms); non-finite ones are left
+    out of the estimate and left as they are. With fewer than three usable
+    variances nothing is moderated.
+
+    Returns ``(posterior_variances, posterior_df, {"d0", "s0_squared"})``.
+    """
+    from scipy import optimize, special
+
+    v = np.asarray(s2, dtype=float).ravel()
+    ok = np.isfinite(v)
+    if ok.sum() < 3 or not df > 0:
+        return v.copy(), float(df), {"d0": 0.0, "s0_squared": math.nan}
+    med = float(np.median(v[ok]))
+    low = floor * med if med > 0 else floor
+    x = np.where(ok, np.maximum(v, low), v)
+    e = np.log(x[ok]) - special.digamma(df / 2) + math.log(df / 2)
+    e_mean = float(e.mean())
+    e_var = float(e.var(ddof=1)) - float(special.polygamma(1, df / 2))
+    if e_var > 0:
+        # trigamma is decreasing from +inf to 0 on (0, inf): one root
+        half = optimize.brentq(lambda y: float(special.polygamma(1, y)) - e_var, 1e-10, 1e10,
+                               xtol=1e-12, rtol=1e-12)
+        d0 = 2 * half
+        s0 = math.exp(e_mean + float(special.digamma(half)) - math.log(half))
+        post = np.where(ok, (d0 * s0 + df * x) / (d0 + df), v)
+        return post, d0 + df, {"d0": d0, "s0_squared": s0}
+    s0 = math.exp(e_mean)
+    return np.where(ok, s0, v), math.inf, {"d0": math.inf, "s0_squared": s0}
+
+
+def p_full_predicted(mean: float, variance: float, df: float, J: int, n_total: int,
+                     margin: float) -> tuple[float, float]:
+    """P(the full sweep's mean difference < ``margin``) from ``J`` paired differences of
+    mean ``mean`` and (posterior) variance ``variance`` with ``df`` degrees of
+    freedom: Student t with location ``mean`` and scale ``(m / n_total) sqrt(variance
+    (1/J + 1/m))``, ``m = n_total - J`` (:func:`p_full_below`; ``df`` may be
+    infinite: normal). Returns ``(p, scale)``."""
+    m = int(n_total) - int(J)
+    scale = 0.0 if m <= 0 else (m / n_total) * math.sqrt(variance * (1 / J + 1 / m))
+    if not scale > 0:
+        return float(mean < margin), 0.0
     from scipy import stats
 
-    return float(stats.t.cdf(-rope, J - 1, loc=loc, scale=scale)), loc, scale
+    dist = stats.norm if math.isinf(df) else stats.t(df)
+    return float(dist.cdf((margin - mean) / scale)), scale
+
+
+def p_full_worse(differences, n_total: int, rope: float) -> tuple[float, float, float]:
+    """P(the full sweep's mean difference < -rope): practically worse
+    (:func:`p_full_below` at ``-rope``)."""
+    return p_full_below(differences, n_total, -rope)
 
 
 def block_keys(folds: int, repeats: int) -> list[tuple[int, int]]:
@@ -216,13 +332,19 @@ class Race:
     """
 
     def __init__(self, plan, stopped: dict | None = None, *, threshold: float | None = None,
-                 first_look: int | None = None, use_rope: bool | None = None,
-                 test: str | None = None):
+                 first_look: int | None = None, test: str | None = None,
+                 stop: str | None = None, moderate: bool | None = None):
         self.test = TEST if test is None else test
         if self.test not in ("predictive", "correlated"):
             raise ValueError(f"unknown racing test {self.test!r}")
+        self.stop = STOP if stop is None else stop
+        if self.stop not in MARGIN:
+            raise ValueError(f"unknown racing stop {self.stop!r}")
+        self.moderate = bool(MODERATE if moderate is None else moderate)
+        self.rule_family = rule_of_thumb_configs(plan)
         self.threshold = float(THRESHOLD if threshold is None else threshold)
-        self.use_rope = bool(USE_ROPE if use_rope is None else use_rope)
+        # the ROPE counts only when the stop puts a margin on the difference
+        self.use_rope = MARGIN[self.stop] != 0.0 or self.test == "correlated"
         self.metric = plan.metric
         self.n_configurations = plan.n_configurations
         self.labels = [c.label for c in plan.configurations()]
@@ -320,33 +442,54 @@ class Race:
         sizes = [self.sizes[k] for k in keys if k in self.sizes]
         if not sizes:
             return []
-        rho = bayes.rho_from_sizes([s[0] for s in sizes], [s[1] for s in sizes])
         rope = self._rope(means[best])
+        margin = MARGIN[self.stop] * rope
+        others = [c for c in cands if c != best]
+        J, n = len(keys), len(self.blocks)
+        diffs = np.array([x[c] - x[best] for c in others])
+        if self.test == "predictive":
+            s2 = diffs.var(axis=1, ddof=1)
+            if self.moderate:
+                s2, df, _ = moderated_variances(s2, J - 1)
+            else:
+                df = J - 1
+            probs = [p_full_predicted(float(d.mean()), float(v), df, J, n, margin)[0]
+                     for d, v in zip(diffs, s2)]
+        else:
+            rho = bayes.rho_from_sizes([s[0] for s in sizes], [s[1] for s in sizes])
+            # the posterior tail below the margin: P(worse) with a ROPE of |margin|, plus
+            # the ROPE's mass when the margin is above zero
+            cmps = [bayes.correlated_ttest(x[c], x[best], rho=rho, rope=abs(margin))
+                    for c in others]
+            probs = [t.p_worse + (t.p_equivalent if margin > 0 else 0.0) for t in cmps]
+        # the rule of thumb's leading configuration is kept, as the best is
+        family = [c for c in cands if c in self.rule_family]
+        kept = min(family, key=lambda c: (-means[c], c)) if family else None
         out = []
         r, f = keys[-1]
-        for c in cands:
-            if c == best:
+        for c, d, p in zip(others, diffs, probs):
+            if c == kept or not (p >= self.threshold):  # NaN never stops
                 continue
-            pred = self.test == "predictive"
-            if pred:
-                p, diff, _ = p_full_worse(x[c] - x[best], len(self.blocks), rope)
-            else:
-                cmp = bayes.correlated_ttest(x[c], x[best], rho=rho, rope=rope)
-                p, diff = cmp.p_worse, cmp.mean
-            if not (p >= self.threshold):  # NaN never stops
-                continue
+            diff = float(d.mean())
             out.append({
-                "config_index": c, "after_repeat": r, "after_fold": f, "n_scores": len(keys),
+                "config_index": c, "after_repeat": r, "after_fold": f, "n_scores": J,
                 "best_index": best, "difference": diff, "p_worse": p,
                 "rope": rope, "threshold": self.threshold,
-                "reason": (f"practically worse than {self.labels[best]} beyond doubt after "
-                           f"{len(keys)} paired fold scores (repeat {r + 1}, fold {f + 1}): "
-                           f"mean difference {diff:.4g}, P(worse by more than the ROPE "
-                           f"±{rope:.4g}{' over the full sweep' if pred else ''}) = "
-                           f"{p:.4f} >= {self.threshold:g} "
-                           + ("(prediction of the remaining folds, Student t)" if pred
-                              else "(Bayesian correlated t-test)"))})
+                "reason": self._reason(best, keys, diff, rope, p)})
         return out
+
+    def _reason(self, best, keys, diff, rope, p) -> str:
+        r, f = keys[-1]
+        pred = self.test == "predictive"
+        how = ("predicted from the paired scores so far, Student t" if pred
+               else "Bayesian correlated t-test")
+        what = {"below": "ranks below", "worse": f"is worse by more than the ROPE ±{rope:.4g} than",
+                "not_better": f"is no better by more than the ROPE ±{rope:.4g} than"}[self.stop]
+        said = {"below": "behind", "worse": "practically worse than",
+                "not_better": "not practically better than"}[self.stop]
+        return (f"{said} {self.labels[best]} beyond doubt after {len(keys)} paired fold "
+                f"scores (repeat {r + 1}, fold {f + 1}): mean difference {diff:.4g}, "
+                f"P(the full sweep {what} it) = {p:.4f} >= {self.threshold:g} ({how})")
 
     def remaining(self, trials) -> list:
         """``trials`` without those of stopped configurations."""
@@ -633,7 +776,7 @@ def _rule_tag() -> str:
     """The rule in a sweep id: threshold, first look, ROPE or not."""
     import uuid
 
-    return (f"p{THRESHOLD:g}-j{FIRST_LOOK}-{'rope' if USE_ROPE else 'norope'}-"
+    return (f"p{THRESHOLD:g}-j{FIRST_LOOK}-{STOP}-{'mod' if MODERATE else 'own'}-"
             f"{uuid.uuid4().hex[:6]}")
 
 
@@ -704,7 +847,8 @@ def racing_benchmark(*, folds=5, repeats=3, jobs=2, tables=None, on_result=print
     from workbench.sweep.store import Store
 
     say = on_result or (lambda *_: None)
-    rule = {"threshold": THRESHOLD, "first_look": FIRST_LOOK, "use_rope": USE_ROPE}
+    rule = {"threshold": THRESHOLD, "first_look": FIRST_LOOK, "stop": STOP,
+            "moderate": MODERATE}
     rows = []
     with tempfile.TemporaryDirectory(prefix="workbench-racing-tables-") as tmp:
         keep = Path(store_dir) if store_dir is not None else Path(tmp)
@@ -735,8 +879,7 @@ def racing_benchmark(*, folds=5, repeats=3, jobs=2, tables=None, on_result=print
     if grid == "wide":
         out["default_n_third"] = sum(r["default"]["share"] <= 1 / 3 for r in rows)
         out["default_n_agree"] = sum(bool(r["default"]["same_group"]) for r in rows)
-    say(f"racing (P >= {THRESHOLD:g}, first look after {FIRST_LOOK} folds, "
-        f"{'beyond the ROPE' if USE_ROPE else 'no ROPE'}), {grid} grid, {folds} folds x "
+    say(f"racing ({rule_text()}), {grid} grid, {folds} folds x "
         f"{repeats} repeats: <= 1/3 of the trials on {out['n_third']} of {len(rows)} tables; "
         f"recommendation in the full sweep's equivalence group on {out['n_agree']} of "
         f"{len(rows)}" + (f"; default grid: <= 1/3 on {out['default_n_third']}, group on "

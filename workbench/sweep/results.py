@@ -796,6 +796,6 @@ def racing_text(res: dict) -> str | None:
     racing = res.get("racing") or {}
     saved = (racing.get("n_trials") or 0) - (racing.get("n_stored") or 0)
     return (f"{len(stopped)} configuration{'s' if len(stopped) != 1 else ''} {STOPPED}, "
-            f"practically worse than the best beyond doubt ({rule_text()}), "
+            f"behind the best beyond doubt ({rule_text()}), "
             f"{saved} trial{'s' if saved != 1 else ''} not run; their scores are partial and "
             f"they are not eligible for the recommendation: " + "; ".join(parts) + ".")
