@@ -107,3 +107,59 @@ def test_sweep_trials_are_unchanged_by_the_cast_once_rows(monkeypatch, table, ta
     assert all(r[0] == "done" for g in fast for r in g)
     assert fast == slow
     assert fast == alone
+
+
+def _objects(values):
+    out = np.empty(len(values), dtype=object)
+    out[:] = list(values)
+    return out
+
+
+@pytest.mark.parametrize("labels", [
+    ["yes", "no", "no", "yes", "no"],
+    ["b", "a", "c", "a", "c", "b", "b"],
+    ["only", "only", "only"],
+    ["Zebra", "apple", "Äpfel", "", "apple", "zebra", "10", "9"],
+])
+def test_text_classes_are_numpy_unique_and_keep_scikit_learns_kind(labels):
+    """Reference: ``numpy.unique(y, return_inverse=True)`` and scikit-learn's
+    ``type_of_target`` on every row, for object arrays of text labels (two classes,
+    several, one, mixed case, non-ASCII, empty and digit strings)."""
+    from sklearn.utils.multiclass import type_of_target
+
+    y = _objects(labels)
+    classes, codes = E._text_classes(y)
+    want_classes, want_codes = np.unique(y, return_inverse=True)
+    assert classes.dtype == object and classes.tolist() == want_classes.tolist()
+    np.testing.assert_array_equal(codes, want_codes.reshape(-1))
+    assert type_of_target(classes) == type_of_target(y)
+
+
+def test_text_classes_leave_other_arrays_to_numpy():
+    """Anything but a 1-D object array of Python strings takes ``numpy.unique``'s path."""
+    assert E._text_classes(np.array(["a", "b"])) is None  # fixed-width strings
+    assert E._text_classes(_objects(["a", 1])) is None  # mixed
+    assert E._text_classes(_objects([np.str_("a"), np.str_("b")])) is None
+    assert E._text_classes(_objects([])) is None
+    assert E._text_classes(np.array([0, 1, 1])) is None
+
+
+def test_a_classifier_fits_text_labels_as_before():
+    """The same fit (classes, loss curve, parameters, probabilities, bit for bit) whether the
+    labels come as Python strings in an object array (the shortcut) or as NumPy strings
+    (``numpy.unique``'s path)."""
+    rng = np.random.default_rng(4)
+    X = rng.standard_normal((160, 3))
+    words = np.array(["high", "low", "mid"])[(X[:, 0] > 0).astype(int) + (X[:, 1] > 1)]
+    fits = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for y in (words, _objects(words.tolist())):
+            fits.append(E.NetClassifier((6,), "tanh", max_iter=8, random_state=3).fit(X, y))
+    a, b = fits
+    assert a.classes_.tolist() == b.classes_.tolist() == ["high", "low", "mid"]
+    assert a.loss_curve_ == b.loss_curve_
+    for u, v in zip(a.coefs_ + a.intercepts_, b.coefs_ + b.intercepts_):
+        np.testing.assert_array_equal(u, v)
+    np.testing.assert_array_equal(a.predict_proba(X), b.predict_proba(X))
+    assert b.predict(X).tolist() == a.predict(X).tolist()

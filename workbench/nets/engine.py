@@ -294,6 +294,29 @@ def _constant_loss(net, y) -> float:
         return float(net.data_loss(y, np.broadcast_to(mean, y.shape)))
 
 
+def _text_classes(y):
+    """``numpy.unique(y, return_inverse=True)`` of a 1-D object array whose labels are all
+    Python ``str`` (a table's text labels), or None for any other array.
+
+    The distinct labels are collected in a set and sorted (``sorted`` and NumPy's object
+    sort both order by ``<``, a total order on strings; a set and ``unique`` both merge
+    equal strings), and each row's position found by binary search, instead of sorting
+    every row's string: about a tenth of the time on a fold's 2,000 labels. The kind
+    scikit-learn's ``type_of_target`` gives such an array (``binary`` for at most two
+    distinct labels, else ``multiclass``: its only other tests are on the first label's
+    type, the dimensions and floats) is the same for its distinct labels; a test compares
+    both with scikit-learn's answers.
+    """
+    if y.ndim != 1 or y.dtype != object or y.size == 0:
+        return None
+    distinct = set(y.tolist())
+    if not all(type(v) is str for v in distinct):
+        return None
+    classes = np.empty(len(distinct), dtype=object)
+    classes[:] = sorted(distinct)
+    return classes, np.searchsorted(classes, y)
+
+
 # --------------------------------------------------------------------------- estimators
 
 
@@ -949,14 +972,17 @@ class NetClassifier(ClassifierMixin, _BaseNet):
         if y.ndim == 2 and y.shape[1] == 1:
             y = column_or_1d(y, warn=True)
         if first_pass or not hasattr(self, "classes_"):
-            kind = type_of_target(y)
+            found = _text_classes(y)
+            # the kind of a 1-D array of text labels is that of its distinct labels (see
+            # _text_classes), found without sorting every row's string again
+            kind = type_of_target(y if found is None else found[0])
             if kind not in ("binary", "multiclass", "multilabel-indicator"):
                 raise ValueError(f"Unknown label type: {kind!r}; NetClassifier needs class labels")
             # fitted on the classes alone (the same classes_ and y_type_ as on every row,
             # at a fraction of the cost for string labels); _binarize does the rows
             self._label_binarizer = LabelBinarizer()
             if y.ndim == 1:
-                classes, codes = np.unique(y, return_inverse=True)
+                classes, codes = np.unique(y, return_inverse=True) if found is None else found
                 self._label_binarizer.fit(classes)
                 self.classes_ = self._label_binarizer.classes_
                 return self._binarize(y, codes.reshape(-1))
