@@ -651,3 +651,15 @@ def test_the_words_of_the_rule_follow_its_constants():
                                            "n_scores": 4}, "trials": [{}] * 4}],
            "racing": {"n_trials": 30, "n_stored": 19}}
     assert racing.rule_text() in racing_text(res)
+
+
+def test_the_windows_racing_box_states_the_rule(qtbot):
+    """The set-up column's racing box says the module's rule (its threshold and first
+    look), not a copy of it."""
+    from workbench.gui.setup_pane import SetupPane
+
+    pane = SetupPane()
+    qtbot.addWidget(pane)
+    tip = pane.race_check.toolTip()
+    assert racing.rule_text() in tip
+    assert f">= {racing.THRESHOLD:g}" in tip and f"from the {racing._ordinal(racing.FIRST_LOOK)} on" in tip

@@ -167,17 +167,15 @@ class SetupPane(QWidget):
         self.early_check = QCheckBox("stop early")
         self.early_check.setToolTip("Hold out 10 % of each training fold and stop when its "
                                     "score stalls; records a validation curve per epoch")
-        from workbench.sweep.racing import FIRST_LOOK
-        from workbench.sweep.racing import THRESHOLD as RACE_THRESHOLD
+        from workbench.sweep.racing import rule_text as race_rule
 
         # a short label: the grid's width is the set-up column's (the tooltip says it all)
         self.race_check = QCheckBox("racing")
         self.race_check.setToolTip(
-            f"Racing: after each block of folds, from the {FIRST_LOOK}th on, stop the "
-            "configurations the full sweep would find practically worse than the current best "
-            f"(P >= {RACE_THRESHOLD:g}); "
-            "their remaining trials are not run. Saves time on large grids; the winner and "
-            "the configurations close to it still get every trial. Off: every trial runs.")
+            "Racing: configurations are " + race_rule() + ". Their remaining trials are not "
+            "run; their scores so far are kept, marked partial. Saves time on large grids; "
+            "among configurations tied within noise it may keep another of the tied ones "
+            "than the full sweep would rank first. Off: every trial runs.")
         self.race_check.setChecked(bool(DEFAULTS.get("race", False)))
         self.race_check.toggled.connect(self.planChanged)
         self.metric_combo = QComboBox()
