@@ -114,3 +114,47 @@ def test_cases_the_fast_path_leaves_to_the_scorer():
         reg = NetRegressor((8,), max_iter=10, random_state=0).fit(Xr, yr)
     for metric in ("r2", "neg_root_mean_squared_error", "neg_mean_absolute_error"):
         assert trial_score(metric, reg, Xr, yr) == get_scorer(metric)(reg, Xr, yr)
+
+
+@pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
+@pytest.mark.parametrize("metric", ["roc_auc", "neg_log_loss"])
+def test_a_trials_stored_scores_are_the_scorers_on_its_own_model(metric):
+    """Wiring of a sweep trial (``workbench.sweep.trials.run_trial``, kiln table, one fold):
+    its ``test_score`` is ``get_scorer(metric)`` of the same fitted network on the fold's
+    test rows, its ``train_score`` on the training rows, and its out-of-fold predictions are
+    that network's ``predict_proba`` of the test rows, to the last bit. The network is
+    fitted again here from the trial's description (a trial is a pure function of it)."""
+    from pathlib import Path
+
+    from workbench.data.preprocessing import build_preprocessor
+    from workbench.sweep import trials as T
+    from workbench.sweep.plan import build_plan
+    from workbench.sweep.runner import load_data
+
+    samples = Path(__file__).resolve().parents[1] / "sample_sets"
+    plan = build_plan(samples / "kiln_batches.csv", "passes_inspection", hidden="relu",
+                      layers=["8"], folds=3, repeats=1, epochs=12, seed=0, baselines=[],
+                      metric=metric)
+    data, _ = load_data(plan)
+    tr, te = plan.fold_indices(data.y)[(0, 1)]
+    spec = {"config": plan.configurations()[0].to_dict(), "repeat": 0, "fold": 1,
+            "train": tr.astype(np.int32), "test": te.astype(np.int32),
+            "random_state": plan.model_seed(0, 1), "task": plan.task, "metric": metric,
+            "epochs": plan.epochs, "early_stopping": plan.early_stopping,
+            "batch_size": plan.batch_size, "dtype": plan.dtype}
+    res = T.run_trial(data, dict(spec))
+    assert res["status"] == "done"
+    prep = build_preprocessor(data.profile, data.target, columnwise_medians=True)
+    X_tr = np.asarray(prep.fit_transform(data.X.iloc[tr], np.asarray(data.y)[tr]))
+    X_te = np.asarray(prep.transform(data.X.iloc[te]))
+    y = np.asarray(data.y)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        net = T.make_estimator(spec).fit(X_tr, y[tr])
+    scorer = get_scorer(metric)
+    assert res["test_score"] == scorer(net, X_te, y[te])
+    assert res["train_score"] == scorer(net, X_tr, y[tr])
+    assert res["test_score"] != res["train_score"]
+    order = np.argsort(te, kind="stable")
+    np.testing.assert_array_equal(res["predictions"],
+                                  net.predict_proba(X_te)[order].astype(np.float32))
