@@ -347,3 +347,26 @@ def test_a_pool_task_hands_the_heap_back_after_it_runs(tmp_path, monkeypatch):
     monkeypatch.undo()
     T._release_heap()  # the real one runs on this platform without error
     assert len(T._TRIM) == 1
+
+
+def test_a_sweep_given_the_frame_its_plan_was_built_from_does_not_read_the_file_again(
+        tmp_path, monkeypatch):
+    """``run_sweep(plan, frame=df)``: the table is not read again (the file's fingerprint
+    is still taken from the file), and the stored sweep is the one read from the file."""
+    from workbench.data import intake
+    from workbench.data.intake import load_table
+
+    table = SAMPLES / "kiln_batches.csv"
+    df, _ = load_table(table)
+    plan = build_plan(table, "passes_inspection", hidden="relu", layers=["4"], folds=2,
+                      repeats=1, epochs=2, df=df)
+    got = {}
+    for name, frame in (("file", None), ("frame", df)):
+        if frame is not None:
+            monkeypatch.setattr(intake, "load_table", lambda *a, **k: 1 / 0)
+        with Store(tmp_path / f"{name}.sqlite") as st:
+            out = run_sweep(plan, store=st, backend="inline", frame=frame, sweep_id="s")
+            got[name] = (_stored(st, out.sweep_id), st.get_sweep("s")["fingerprint"])
+    assert got["frame"] == got["file"]
+    with Store(tmp_path / "file.sqlite") as st, pytest.raises(Exception, match="give no frame"):
+        run_sweep(store=st, resume="s", frame=df)

@@ -30,8 +30,9 @@ check_inverse=False)`` so that the network learns a target scaled to suit the he
 predictions come back in the user's units. When the estimator has an
 ``output_activation`` parameter (the workbench engine) it is set to the head;
 scikit-learn's ``MLPRegressor`` gets ``loss="poisson"`` for the exp head and refuses
-heads it does not have. :func:`fitted_estimator` returns the fitted network inside a
-fitted pipeline.
+heads it does not have. :func:`build_model` returns that ``model`` step alone (for
+features preprocessed elsewhere: a sweep's shared fold features).
+:func:`fitted_estimator` returns the fitted network inside a fitted pipeline.
 
 Target scaling (:class:`TargetScaler`, chosen by :func:`target_scaling`):
 

@@ -10,7 +10,8 @@ any Dask worker, serially or in parallel. It
    (threadpoolctl), timing the network's fit (``fit_seconds``: the model
    step, target scaling included; the fold's preprocessing is fitted once per
    fold and worker and shared by every configuration, see
-   :func:`_fold_features`),
+   :func:`_fold_features`; or, on a large table, once by the sweep's process and
+   mapped from its files, :func:`shared_features` and :mod:`workbench.sweep.fold_files`),
 3. scores the fold's test rows and its training rows with scikit-learn's
    scorer (``sklearn.metrics.get_scorer``; greater is better) applied to the
    fitted pipeline's steps,
