@@ -663,3 +663,40 @@ def test_the_windows_racing_box_states_the_rule(qtbot):
     tip = pane.race_check.toolTip()
     assert racing.rule_text() in tip
     assert f">= {racing.THRESHOLD:g}" in tip and f"from the {racing._ordinal(racing.FIRST_LOOK)} on" in tip
+
+
+def test_the_leaders_of_the_verdicts_comparisons_are_kept():
+    """Near-identical configurations whose differences are tiny but consistent, as
+    closely related activations give (the kiln sample set showed it): every one but the
+    best would be stopped at the first look. The verdict compares relu with the other
+    activations, the advised head (logistic, binary target) with the other heads, and
+    recommends relu with the advised head when it is equivalent to the best; the
+    leader of each of those groups is kept, so that its statements are about complete
+    configurations, and everything else is stopped."""
+    plan = SweepPlan(table="t.csv", target="y", task="classification", target_kind="binary",
+                     hidden=["tanh", "relu", "gelu"], heads=["logistic", "softmax"],
+                     folds=K, repeats=R, baselines=[], race=True)
+    cfg = {c.index: (c.hidden, c.head) for c in plan.configurations()}
+    assert racing.advised_heads(plan) == {"logistic"}
+    base = 0.85 + np.resize([0.004, -0.004, 0.002, -0.002, 0.0], K * R)
+    # a fixed order of merit, 0.003 apart, with a little noise of each configuration's own
+    order = [("gelu", "softmax"), ("tanh", "softmax"), ("gelu", "logistic"),
+             ("tanh", "logistic"), ("relu", "softmax"), ("relu", "logistic")]
+    index = {v: k for k, v in cfg.items()}
+    rng = np.random.default_rng(1)
+    scores = {index[o]: base - 0.003 * i + rng.normal(0, 0.0003, K * R)
+              for i, o in enumerate(order)}
+    race = racing.Race(plan)
+    _feed(race, scores, upto=2)
+    kept = {cfg[c] for c in cfg if c not in race.stopped}
+    # the best (also the best softmax and non-relu one), the best logistic, relu's best,
+    # relu with the advised head
+    assert kept == {("gelu", "softmax"), ("gelu", "logistic"), ("relu", "softmax"),
+                    ("relu", "logistic")}
+    groups = racing.verdict_groups(plan)
+    assert {frozenset(cfg[c] for c in g) for g in groups} == {
+        frozenset(v for v in cfg.values() if v[1] == "logistic"),
+        frozenset(v for v in cfg.values() if v[1] != "logistic"),
+        frozenset(v for v in cfg.values() if v[0] == "relu"),
+        frozenset(v for v in cfg.values() if v[0] != "relu"),
+        frozenset({("relu", "logistic")})}

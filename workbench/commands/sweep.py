@@ -115,9 +115,9 @@ def add_arguments(parser):
                         help="racing: after each block of folds from the 2nd on, stop "
                              "configurations the full sweep would rank below the current best "
                              "(P >= 0.975, Student t prediction from the paired fold scores so "
-                             "far, variances moderated across configurations); the leading "
-                             "relu configuration with the advised head is kept; stopped ones "
-                             "keep their scores, marked partial")
+                             "far, variances moderated across configurations); the leaders of "
+                             "the verdict's comparisons are kept; stopped ones keep their "
+                             "scores, marked partial")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
 
 

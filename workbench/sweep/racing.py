@@ -42,11 +42,13 @@ the common level by as much as the variances' own spread says they share, and
 the t then has ``d0 + J - 1`` degrees of freedom. A configuration whose own
 differences are erratic keeps most of its variance.
 
-The rule of thumb's configurations (relu hidden layers with the advised head,
-:func:`rule_of_thumb_configs`) race like the others, except that the leading
-one of them at each look is kept as the best is: the verdict tests the rule of
-thumb at its best configuration and recommends it when it is practically
-equivalent to the best, so that configuration's scores must be complete.
+The verdict states each rule of thumb by the best configuration of the advised
+value against the best of the others -- relu against the other activations, the
+advised head against the other heads -- and recommends relu with the advised head
+when it is practically equivalent to the best. So that those statements compare
+complete configurations, the leader (highest mean so far) of each of those groups
+is kept at every look, as the best is (:func:`verdict_groups`); the others in
+each group race like any configuration.
 
 Why this test: racing must reach the full sweep's answer, and the full sweep
 ranks the configurations on these very folds. What is uncertain at a look is
@@ -61,7 +63,8 @@ rule it saves little (it is kept as ``test="correlated"``).
 
 What it protects, and what it does not
 --------------------------------------
-- The current best is never tested, so never stopped; the baselines are not
+- The current best and the leaders of the verdict's groups are never tested, so
+  never stopped; the baselines are not
   raced at all (they are cheap, and the verdict compares them with the best
   network on every fold); neither is a configuration with a diverged trial.
 - A stop is the prediction "the full sweep ranks it below the current best" at
@@ -99,12 +102,11 @@ configurations runs at least ``(2 C + N - 2) / (C N)`` of the trials: 31 % at th
 default 5 folds x 3 repeats with 5 configurations, 15 % with 60. A sweep with
 ``N <= 2`` blocks never looks and saves nothing. What it saves in practice
 depends on the grid. On the wide grid (every hidden activation x the default
-heads x ``--learning-rate tune``, 5 folds x 3 repeats, 100 epochs) it ran 21-31 %
+heads x ``--learning-rate tune``, 5 folds x 3 repeats, 100 epochs) it ran 22-32 %
 of the trials on six of the nine benchmark tables (the six sample sets), 38 % on
-breast cancer, 45 % on diabetes and 70 % on wine, and recommended the full
-sweep's configuration on eight and one of its equivalence group on the ninth
-(kiln); on the window's default grids 22-79 % (:func:`racing_benchmark`
-measures both).
+breast cancer, 46 % on diabetes and 70 % on wine, and recommended the full
+sweep's configuration on all nine; on the window's default grids 24-79 %
+(:func:`racing_benchmark` measures both).
 
 References
 ----------
@@ -164,17 +166,10 @@ MODERATE = True
 TEST = "predictive"
 
 
-def rule_of_thumb_configs(plan) -> set[int]:
-    """The rule of thumb's configurations: the usual hidden activation
-    (:data:`workbench.sweep.verdict.USUAL_HIDDEN`) with a head the advice
-    (:func:`workbench.data.profiling.advise`) gives for the plan's target kind.
-
-    The verdict tests the rule of thumb at its best configuration against the best of
-    the others, and recommends it when it is practically equivalent to the best, so
-    at every look the leading one of these (highest mean so far) is not stopped. For
-    a non-negative target the advised head depends on the share of zeros, which the
-    plan does not carry: both heads the advice can give (relu and softplus) count.
-    """
+def advised_heads(plan) -> set[str]:
+    """The heads the advice (:func:`workbench.data.profiling.advise`) can give for the
+    plan's target kind: one, except for a non-negative target, whose advised head
+    depends on the share of zeros, which the plan does not carry (relu or softplus)."""
     from workbench.data.profiling import TargetInfo, advise
 
     heads = set()
@@ -183,8 +178,40 @@ def rule_of_thumb_configs(plan) -> set[int]:
                           evidence={"zero_share": zero_share}, classes=[0, 1],
                           interval=(0.0, 1.0))
         heads.add(advise(info).output_head)
+    return heads
+
+
+def rule_of_thumb_configs(plan) -> set[int]:
+    """The rule of thumb's configurations: the usual hidden activation
+    (:data:`workbench.sweep.verdict.USUAL_HIDDEN`) with an advised head
+    (:func:`advised_heads`)."""
+    heads = advised_heads(plan)
     return {c.index for c in plan.configurations()
             if c.hidden == USUAL_HIDDEN and c.head in heads}
+
+
+def verdict_groups(plan) -> list[set[int]]:
+    """The groups of configurations whose leading member racing keeps at every look.
+
+    The verdict (:mod:`workbench.sweep.verdict`) states each rule of thumb by the
+    best configuration of the advised value against the best of the other values --
+    the output head (advised head against the other heads) and the hidden layers
+    (relu against the other activations) -- and recommends the rule of thumb's best
+    configuration (relu with the advised head) when it is practically equivalent to
+    the best. So that those statements compare complete configurations, the leader
+    (highest mean so far) of each group is kept at every look, as the best is: each
+    possibly advised head, the other heads together, relu, the other activations,
+    and relu with each possibly advised head. Empty groups are left out.
+    """
+    configs = plan.configurations()
+    heads = advised_heads(plan)
+    groups = [{c.index for c in configs if c.head == h} for h in sorted(heads)]
+    groups.append({c.index for c in configs if c.head not in heads})
+    groups.append({c.index for c in configs if c.hidden == USUAL_HIDDEN})
+    groups.append({c.index for c in configs if c.hidden != USUAL_HIDDEN})
+    groups += [{c.index for c in configs if c.hidden == USUAL_HIDDEN and c.head == h}
+               for h in sorted(heads)]
+    return [g for g in groups if g]
 
 
 def rule_text() -> str:
@@ -192,8 +219,9 @@ def rule_text() -> str:
     return (f"stopped when P(the full sweep ranks it below the current best) >= "
             f"{THRESHOLD:g}, predicted from the paired fold scores so far (Student t, "
             f"variances moderated across the configurations), at each block of folds from "
-            f"the {_ordinal(FIRST_LOOK)} on; the leading {USUAL_HIDDEN} configuration with the "
-            f"advised head is kept, as the best is")
+            f"the {_ordinal(FIRST_LOOK)} on; the leaders of the verdict's comparisons "
+            f"({USUAL_HIDDEN} and the other activations, each head, {USUAL_HIDDEN} with the "
+            f"advised head) are kept, as the best is")
 
 
 def _ordinal(n: int) -> str:
@@ -341,7 +369,7 @@ class Race:
         if self.stop not in MARGIN:
             raise ValueError(f"unknown racing stop {self.stop!r}")
         self.moderate = bool(MODERATE if moderate is None else moderate)
-        self.rule_family = rule_of_thumb_configs(plan)
+        self.groups = verdict_groups(plan)
         self.threshold = float(THRESHOLD if threshold is None else threshold)
         # the ROPE counts only when the stop puts a margin on the difference
         self.use_rope = MARGIN[self.stop] != 0.0 or self.test == "correlated"
@@ -462,13 +490,13 @@ class Race:
             cmps = [bayes.correlated_ttest(x[c], x[best], rho=rho, rope=abs(margin))
                     for c in others]
             probs = [t.p_worse + (t.p_equivalent if margin > 0 else 0.0) for t in cmps]
-        # the rule of thumb's leading configuration is kept, as the best is
-        family = [c for c in cands if c in self.rule_family]
-        kept = min(family, key=lambda c: (-means[c], c)) if family else None
+        # the leaders of the verdict's comparisons are kept, as the best is
+        kept = {min(live, key=lambda c: (-means[c], c))
+                for live in ([c for c in cands if c in g] for g in self.groups) if live}
         out = []
         r, f = keys[-1]
         for c, d, p in zip(others, diffs, probs):
-            if c == kept or not (p >= self.threshold):  # NaN never stops
+            if c in kept or not (p >= self.threshold):  # NaN never stops
                 continue
             diff = float(d.mean())
             out.append({
