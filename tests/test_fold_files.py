@@ -54,11 +54,20 @@ def _sweep(tmp_path, monkeypatch, plan, share, name, jobs=2):
 
 
 class _Spy:
-    """Records the folds the sweep's process writes and the specs the pool is handed."""
+    """Records the folds the sweep's process writes, the specs the pool is handed and the
+    fold files left in the scratch folder when the sweep closes it."""
 
     def __init__(self, monkeypatch):
-        self.written, self.sent = [], []
+        self.written, self.sent, self.left = [], [], []
         real_write, real_submit = F.write_fold, runner._LokyExecutor.submit
+        real_close = runner._LokyExecutor.close
+
+        def close(executor, kill=False):
+            if executor._shared is not None:
+                self.left.extend(p.name for p in executor._copy.folder.iterdir()
+                                 if F.is_fold_file(p.name))
+            return real_close(executor, kill)
+        monkeypatch.setattr(runner._LokyExecutor, "close", close)
 
         def write(folder, data, repeat, fold, train, test, kinds):
             self.written.append((repeat, fold, tuple(sorted(kinds))))
@@ -91,6 +100,8 @@ def test_a_shared_sweep_stores_what_the_workers_own_features_give(tmp_path, monk
     assert spy.sent and all(s.get("features") for s in spy.sent)  # every trial was shared
     assert {(r, f) for r, f, _ in spy.written} == {(r, f) for r in range(plan.repeats)
                                                     for f in range(plan.folds)}
+    if not plan.race:  # every trial came back: each fold file went when its last one did
+        assert spy.left == []
     kinds = {F.feature_kind(s) for s in spy.sent}
     assert kinds == ({F.FLOAT64} if options.get("engine") == "sklearn"
                      else {F.FLOAT32, F.FLOAT64})
@@ -370,3 +381,36 @@ def test_a_sweep_given_the_frame_its_plan_was_built_from_does_not_read_the_file_
     assert got["frame"] == got["file"]
     with Store(tmp_path / "file.sqlite") as st, pytest.raises(Exception, match="give no frame"):
         run_sweep(store=st, resume="s", frame=df)
+
+
+def test_a_fold_file_goes_when_its_last_trial_is_done(tmp_path):
+    """Counted needs: each kind's files are removed when its count of trials came back; a
+    float32 request served by the float64 files keeps them while either kind needs them;
+    needs given as plain sets are never removed before the folder."""
+    plan, data, folds, specs = _specs("kiln_batches.csv", "passes_inspection")
+    net = [s for s in specs if s["config"].get("kind") != "baseline" and s["fold"] == 0][0]
+    base = [s for s in specs if s["config"].get("kind") == "baseline" and s["fold"] == 0][0]
+    shared = F.SharedFolds(data, tmp_path, folds, {(0, 0): {F.FLOAT32: 2, F.FLOAT64: 1},
+                                                   (0, 1): {F.FLOAT32}})
+    net_files = shared.files(0, 0, F.FLOAT32)
+    base_files = shared.files(0, 0, F.FLOAT64)
+    assert shared.files(0, 1, F.FLOAT32)
+    shared.close()
+    shared.done([net])
+    assert all(os.path.exists(p) for p in net_files.values())
+    shared.done([net, base, dict(net, fold=1)])  # one too many is ignored
+    assert not any(os.path.exists(p) for p in (*net_files.values(), *base_files.values()))
+    assert sorted(os.listdir(tmp_path)) == ["fold-0-1-test-float32.npy",
+                                            "fold-0-1-train-float32.npy"]
+    for p in os.listdir(tmp_path):
+        os.unlink(tmp_path / p)
+    alias = {F.FLOAT32: {"train": str(tmp_path / "a"), "test": str(tmp_path / "b")}}
+    alias[F.FLOAT64] = alias[F.FLOAT32]
+    for p in alias[F.FLOAT32].values():
+        Path(p).write_bytes(b"x")
+    shared._files[(0, 0)] = alias
+    shared._left.update({((0, 0), F.FLOAT32): 1, ((0, 0), F.FLOAT64): 1})
+    shared.done([net])
+    assert sorted(os.listdir(tmp_path)) == ["a", "b"]  # the baseline still needs them
+    shared.done([base])
+    assert os.listdir(tmp_path) == []

@@ -155,13 +155,21 @@ class SharedFolds:
     folds : dict
         ``{(repeat, fold): (train_rows, test_rows)}`` (the plan's).
     needs : dict
-        ``{(repeat, fold): set of kinds}`` for the trials to run, in the order they are
-        handed out (the folds are prepared in this order).
+        ``{(repeat, fold): {kind: number of trials}}`` for the trials to run, in the order
+        they are handed out (:func:`needs_in_order`; the folds are prepared in this order).
+        A fold's files of one kind are removed as soon as that many of its trials have
+        come back (:meth:`done`): a sweep holds on disk only the folds still in use.
     """
 
     def __init__(self, data, folder, folds: dict, needs: dict):
         self._data, self._folder, self._folds = data, str(folder), folds
-        self._needs = dict(needs)
+        self._needs, self._left = {}, {}
+        for key, kinds in needs.items():
+            self._needs[key] = set(kinds)
+            if isinstance(kinds, dict):  # counted: released when done (a plain set: kept)
+                for kind, n in kinds.items():
+                    self._left[(key, kind)] = int(n)
+        self._lock = threading.Lock()
         self._ready = {key: threading.Event() for key in self._needs}
         self._files: dict = {}
         self._stop = threading.Event()
@@ -208,6 +216,32 @@ class SharedFolds:
             out.append(dict(spec, features=files) if files else spec)
         return out
 
+    def done(self, specs) -> None:
+        """Note that these trials came back with their results; remove each fold file no
+        trial still needs (never a file whose count was not given)."""
+        gone = []
+        with self._lock:
+            for spec in specs:
+                key = (int(spec["repeat"]), int(spec["fold"]))
+                left = self._left.get((key, feature_kind(spec)))
+                if not left:
+                    continue
+                self._left[(key, feature_kind(spec))] = left - 1
+                if left == 1:
+                    gone.append(key)
+            for key in gone:
+                files = self._files.get(key) or {}
+                used = {p for kind, paths in files.items() if self._left.get((key, kind))
+                        for p in paths.values()}
+                for kind, paths in files.items():
+                    if not self._left.get((key, kind)):
+                        for path in paths.values():
+                            if path not in used:
+                                try:
+                                    os.unlink(path)
+                                except OSError:  # gone already, or held (Windows): the folder
+                                    pass  # goes at the end of the sweep anyway
+
     def close(self, timeout: float = 60.0) -> None:
         """Stop preparing (after the fold under way) and wait for the thread."""
         self._stop.set()
@@ -216,11 +250,12 @@ class SharedFolds:
 
 
 def needs_in_order(tasks, configs, dtype) -> dict:
-    """``{(repeat, fold): kinds}`` of ``tasks`` (tuples of trials, in hand-out order), the
-    folds in the order of their first trial."""
+    """``{(repeat, fold): {kind: number of trials}}`` of ``tasks`` (tuples of trials, in
+    hand-out order), the folds in the order of their first trial."""
     out: dict = {}
     for task in tasks:
         for t in task:
             kind = feature_kind({"config": configs[t.config_index].to_dict(), "dtype": dtype})
-            out.setdefault((int(t.repeat), int(t.fold)), set()).add(kind)
+            counts = out.setdefault((int(t.repeat), int(t.fold)), {})
+            counts[kind] = counts.get(kind, 0) + 1
     return out

@@ -877,6 +877,7 @@ class _LokyExecutor:
         self._data = data
         self._pool = None
         self._shared = self._light = None
+        self._sent = {}  # future -> the specs it carries (with shared features)
 
     def share(self, folds, needs):
         """From now on, hand out each trial with its fold's features prepared by this
@@ -899,10 +900,13 @@ class _LokyExecutor:
             specs = self._shared.attach(specs)  # waits for the folds' files, if need be
         args = (run_trials_from_file, self._token, self._path, specs, self._light)
         try:
-            return self._ensure().submit(*args)
+            future = self._ensure().submit(*args)
         except Exception:  # a warm pool broken while idle (a worker killed): start afresh
             self._stop_pool()
-            return self._ensure().submit(*args)
+            future = self._ensure().submit(*args)
+        if self._shared is not None:
+            self._sent[future] = specs
+        return future
 
     def wait(self, handles, timeout):
         from concurrent.futures import FIRST_COMPLETED, wait
@@ -911,8 +915,11 @@ class _LokyExecutor:
         out, broken = [], False
         for f in done:
             exc = f.exception()
+            specs = self._sent.pop(f, None)
             if exc is None:
                 out.append((f, f.result(), None))
+                if specs is not None:  # these trials are over: their fold files may go
+                    self._shared.done(specs)
             else:
                 out.append((f, None, f"{type(exc).__name__}: {exc}"))
                 broken = True
@@ -920,6 +927,7 @@ class _LokyExecutor:
             # the pool is unusable after a worker death: every running trial is lost with it
             for f in handles:
                 if f not in done:
+                    self._sent.pop(f, None)
                     out.append((f, None, "the worker pool broke while this trial ran"))
             self._stop_pool()
         return out
@@ -933,6 +941,7 @@ class _LokyExecutor:
         if kill:
             self._stop_pool()
         self._pool = None
+        self._sent.clear()
         if self._shared is not None:
             self._shared.close()  # no file is written into the folder after this
         self._copy.remove()
