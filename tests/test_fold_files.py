@@ -414,3 +414,29 @@ def test_a_fold_file_goes_when_its_last_trial_is_done(tmp_path):
     assert sorted(os.listdir(tmp_path)) == ["a", "b"]  # the baseline still needs them
     shared.done([base])
     assert os.listdir(tmp_path) == []
+
+
+def test_a_shared_sweep_cancelled_and_resumed_on_one_process_stores_the_same(tmp_path,
+                                                                           monkeypatch):
+    """One worker process, shared features, cancelled after a few trials and resumed
+    (shared again): the same stored trials as one uninterrupted sweep on the workers'
+    own features."""
+    monkeypatch.setattr(F, "SHARED_MIN_BYTES", 0)
+    plan = build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection", hidden="relu,tanh",
+                      layers=["6"], folds=3, repeats=1, epochs=3)
+    own = _sweep(tmp_path, monkeypatch, plan, False, "own", jobs=1)
+    monkeypatch.setattr(runner, "SHARE_FOLDS", True)
+    cancel = threading.Event()
+    seen = []
+
+    def on_event(event):
+        if event["type"] == "trial_finished":
+            seen.append(event)
+            if len(seen) == 2:
+                cancel.set()
+    with Store(tmp_path / "resumed.sqlite") as st:
+        out = run_sweep(plan, store=st, jobs=1, on_event=on_event, cancel=cancel)
+        assert out.state == "interrupted" and 2 <= out.n_finished < plan.n_trials
+        again = run_sweep(store=st, resume=out.sweep_id, jobs=1)
+        assert again.state == "finished"
+        assert _stored(st, out.sweep_id) == own
