@@ -700,3 +700,20 @@ def test_the_leaders_of_the_verdicts_comparisons_are_kept():
         frozenset(v for v in cfg.values() if v[0] == "relu"),
         frozenset(v for v in cfg.values() if v[0] != "relu"),
         frozenset({("relu", "logistic")})}
+
+
+def test_the_text_table_gives_a_stopped_configuration_its_paired_difference(full_and_raced):
+    """A stopped configuration's mean is over its first folds only, so the text table's
+    decision column shows the paired difference of its stop record (marked *) and a
+    line says so; complete configurations keep their decision."""
+    from workbench.commands.show import format_results
+
+    res = full_and_raced["raced_res"]
+    text = format_results(res, width=160)
+    by = {c["index"]: c for c in res["configurations"]}
+    rows = [line for line in text.splitlines() if line[:1].isdigit()]
+    for c in (1, 3):
+        cell = f"{full_and_raced['stopped'][c]['difference']:+.4f}*"
+        assert sum(cell in line and "stopped (racing)" in line for line in rows) >= 1, cell
+    assert "* stopped by racing" in text
+    assert by[0]["decision"] in {"best", "equivalent", "undecided", "worse"}

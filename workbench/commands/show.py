@@ -80,6 +80,11 @@ def _table(head: list[str], rows: list[list[str]]) -> list[str]:
 
 
 def _decision(c):
+    stop = c.get("stopped")
+    if stop and stop.get("difference") is not None:
+        # partial scores: its mean is over other folds than the best's; the paired
+        # difference from the best of its stop is what compares
+        return f"{stop['difference']:+.4f}*"
     return c.get("decision") or "-"
 
 
@@ -208,6 +213,11 @@ def format_results(res: dict, width: int = 100) -> str:
     out += wrap(f"= tied with the best: not distinguishable at alpha "
                 f"{res['significance_level']:g}{corr} ({n_tied} configuration(s) in the tie "
                 f"group, {res['n_comparisons']} comparison(s) with the best).")
+    if any(c.get("stopped") for c in cfgs):
+        out += wrap("* stopped by racing: its mean ± sd is over the first folds only (the "
+                    "best's is over all of them), so the two do not compare; the decision "
+                    "column gives its mean paired difference, on those first folds, from the "
+                    "configuration that led when it was stopped.")
     if baselines:
         out += wrap("ref = baselines on the same folds, preprocessing and metric, compared "
                     "with the best network: "
