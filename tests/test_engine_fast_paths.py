@@ -163,3 +163,25 @@ def test_a_classifier_fits_text_labels_as_before():
         np.testing.assert_array_equal(u, v)
     np.testing.assert_array_equal(a.predict_proba(X), b.predict_proba(X))
     assert b.predict(X).tolist() == a.predict(X).tolist()
+
+
+def test_stack_into_is_numpy_stack_in_a_kept_array():
+    """Reference: ``numpy.stack``. The lockstep's epoch inputs are copied into an array kept
+    from one round to the next (the same array object while the shape holds), with
+    ``numpy.stack``'s values and its refusal of unequal shapes."""
+    from workbench.nets.stacked import _stack_into
+
+    rng = np.random.default_rng(5)
+    kept = [None, None]
+    first = [rng.standard_normal((7, 3)).astype(np.float32) for _ in range(4)]
+    a = _stack_into(kept, 0, first)
+    np.testing.assert_array_equal(a, np.stack(first))
+    second = [rng.standard_normal((7, 3)).astype(np.float32) for _ in range(4)]
+    b = _stack_into(kept, 0, second)
+    assert b is a and b.dtype == np.float32
+    np.testing.assert_array_equal(b, np.stack(second))
+    wider = [rng.standard_normal((7, 4)) for _ in range(4)]
+    np.testing.assert_array_equal(_stack_into(kept, 0, wider), np.stack(wider))
+    assert kept[0].shape == (4, 7, 4) and kept[1] is None
+    with pytest.raises(ValueError):
+        _stack_into(kept, 1, [np.zeros((7, 3)), np.zeros((7, 1))])  # broadcasting would accept it
