@@ -498,3 +498,20 @@ def test_open_run_snapshot_flow(qapp, tmp_path, monkeypatch):
         sweeps = store.list_sweeps()
     assert len(sweeps) == 1 and sweeps[0]["state"] == "finished"
     assert sweeps[0]["n_stored"] == sweeps[0]["n_trials"]
+
+
+def test_heartbeat_figures_from_gaps_and_the_gui_threads_cpu_clock():
+    # by hand: ticks every 10 ms but one 70 ms gap, during which the GUI thread worked 25 ms
+    from workbench.gui.bench_gui import HEARTBEAT_MS, heartbeat_figures
+
+    gaps = [0.5] + [0.010] * 200 + [0.070] + [0.010] * 100  # the first (set-up) left out
+    cpu = [0.001 * i for i in range(150)] + [0.149 + 0.025] + \
+        [0.174 + 0.001 * i for i in range(1, 152)]
+    f = heartbeat_figures(gaps, cpu)
+    assert f["ticks"] == 301
+    assert f["stall_s"] == pytest.approx(0.070 - HEARTBEAT_MS / 1000)
+    assert f["median_gap_s"] == pytest.approx(0.010)
+    # 99th percentile by rank: 301 gaps, the one long gap is above it
+    assert f["p99_gap_s"] == pytest.approx(0.010)
+    assert f["busy_max_s"] == pytest.approx(0.025)
+    assert f["busy_p99_s"] == pytest.approx(0.001)

@@ -66,7 +66,7 @@ from workbench.gui.models import (
     ResultsProxy,
     fmt_prob,
 )
-from workbench.gui.plot_area import PlotArea
+from workbench.gui.plot_area import NEXT_TURN_MS, PlotArea
 from workbench.gui.settings import Settings
 from workbench.gui.setup_pane import SetupPane
 from workbench.gui.tasks import run_task
@@ -1044,7 +1044,7 @@ class MainWindow(QMainWindow):
             # during a sweep the verdict, what matters and the candidates follow on the
             # event loop's next turn: the table and they, updated and painted in one turn,
             # held the loop for 50-60 ms; each alone is painted in about half that
-            QTimer.singleShot(0, self._show_latest_judgement)
+            QTimer.singleShot(NEXT_TURN_MS, self._show_latest_judgement)
         else:
             self._show_judgement(self.results_meta)
 
@@ -1099,7 +1099,7 @@ class MainWindow(QMainWindow):
         # the rest on the event loop's next turn: the last ranking shown (above) and the
         # first row's plots drawn (below) in one go held the loop ~140 ms; sweepEnded still
         # comes after both
-        QTimer.singleShot(0, lambda: self._sweep_done_rest(summary))
+        QTimer.singleShot(NEXT_TURN_MS, lambda: self._sweep_done_rest(summary))
 
     def _sweep_done_rest(self, summary: dict) -> None:
         """The end of a sweep, second part: columns fitted, the best row shown, then

@@ -36,6 +36,12 @@ from workbench.gui import theme as th
 from workbench.gui.calibration_panel import CalibrationPanel
 from workbench.gui.plots import CurvesPanel, HealthPanel, SpreadPanel
 
+#: the delay of a staged panel (ms): a timer, not a zero-delay call. A zero-delay call is
+#: a posted event, and events posted while posted events are delivered can be delivered
+#: in the same pass: two panels then shared one turn of the event loop (measured). A timer
+#: fires after the pass, the paint of the panel before it and the other timers due.
+NEXT_TURN_MS = 1
+
 
 def _order(rows: list[dict]) -> list[dict]:
     """Rows in rank order (unranked configurations after the ranked ones, by position)."""
@@ -205,7 +211,7 @@ class PlotArea(QWidget):
             return
         steps[0]()
         if len(steps) > 1:
-            QTimer.singleShot(0, self, lambda: self._staged(stage, steps[1:]))
+            QTimer.singleShot(NEXT_TURN_MS, self, lambda: self._staged(stage, steps[1:]))
         else:
             then, self._then = self._then, None
             if then is not None:
