@@ -417,7 +417,10 @@ class _Lockstep:
                 items = [pending[m] for m in members]
                 nets, opts = [it[0] for it in items], [it[1] for it in items]
                 batch_size, alpha = items[0][4], items[0][5]
-                skey = (key, len(items))
+                # the stack (its buffers) and its input arrays serve every round of these
+                # networks: keyed by what fixes their shapes, not by the optimisers' step
+                # count, which the last part of the key holds and every round changes
+                skey = (key[:-1], len(items))
                 stack = self._stacks.get(skey)
                 if stack is None:
                     stack = self._stacks[skey] = NetworkStack(nets[0], len(items), batch_size)
