@@ -196,10 +196,11 @@ GATHER_ROWS = 4096
 #: most this many bytes are cast once per fit, and each epoch takes its shuffled rows
 #: from that copy in one call, instead of gathering and casting them again every epoch.
 #: Above it a fit holds no cast copy beside the epoch's rows (the memory bound of
-#: :func:`_epoch_rows`). A choice: a kiln fold (2,000 rows x 16) is 136 kB; the copy is
-#: within the memory a stacked group is allowed per member
-#: (:func:`workbench.sweep.trials.stack_bytes` counts a copy of the rows held by the fit).
-CAST_ONCE_BYTES = 4 * 2**20
+#: :func:`_epoch_rows`). A choice: a kiln fold (2,000 rows x 16) is 136 kB, and 1 MiB
+#: (about 15,000 rows of 16 features) keeps the copy small next to a worker's base, where
+#: the per-epoch gather is a noticeable share of a fit; on larger fits the arithmetic
+#: dominates and the one-copy bound holds (``tests/test_worker_memory.py``).
+CAST_ONCE_BYTES = 2**20
 
 
 def _gather(X, index, out):
