@@ -93,38 +93,51 @@ def test_the_legend_keeps_its_line_while_hidden(qtbot):
 
 def test_the_verdict_keeps_its_labels_when_a_ranking_changes_its_statements(qtbot):
     # a sweep's rankings add and drop warnings: the rows already built get the new words
-    # (new labels, each styled by the style sheet, were the costly part)
+    # (new labels, each styled by the style sheet, were the costly part); a row that turns
+    # into a warning or back is built anew, styled as a warning built at once
+    from workbench.gui import theme as th
     from workbench.gui.verdict_strip import VerdictStrip
 
-    strip = VerdictStrip()
-    qtbot.addWidget(strip)
-    strip.resize(800, 200)
-    strip.show()
+    th.apply(QApplication.instance(), th.LIGHT)  # the style sheet gives a warning its box
+
+    def strip_with(*statements):
+        strip = VerdictStrip()
+        qtbot.addWidget(strip)
+        strip.resize(800, 200)
+        strip.show()
+        strip.set_results(meta(*statements))
+        return strip
 
     def meta(*statements):
         return {"state": "running", "statements": [
             {"key": k, "label": label, "text": text} for k, label, text in statements]}
 
-    strip.set_results(meta(("output", "Output", "logistic fits"),
-                           ("recommended", "Recommended", "relu / logistic [16]")))
-    first = [pair for pair in strip._rows]
+    strip = strip_with(("output", "Output", "logistic fits"),
+                       ("recommended", "Recommended", "relu / logistic [16]"))
+    first = list(strip._rows)
     out = strip.labels["output"]
     strip.set_results(meta(("output", "Output", "logistic fits, P 0.97"),
                            ("few_folds", "Warning", "only 3 folds"),
                            ("recommended", "Recommended", "tanh / logistic [16]")))
-    assert strip._rows[:2] == first  # the same label objects, new words
+    assert strip._rows[0] == first[0]  # the same labels, new words
     assert strip.labels["output"] is out and out.text() == "logistic fits, P 0.97"
     warning = strip.labels["few_folds"]
-    assert warning is first[1][1] and warning.objectName() == "verdictWarning"
+    assert warning not in first[1] and warning.objectName() == "verdictWarning"
     assert strip._rows[1][0].text() == "⚠ Warning"
+    assert strip._rows[1][0].objectName() == "verdictWarningName"
     assert strip.labels["recommended"].objectName() == "verdictText"
     assert strip.labels["recommended"].text() == "tanh / logistic [16]"
-    # the warning goes: its row becomes the recommendation again, the surplus row goes
+    fresh = strip_with(("output", "Output", "x"), ("few_folds", "Warning", "only 3 folds"))
+    assert warning.sizeHint() == fresh.labels["few_folds"].sizeHint()  # its padding, too
+    # the warning goes: the rows follow the statements, the surplus row goes
+    kept = strip._rows[0]
     strip.set_results(meta(("output", "Output", "logistic fits"),
                            ("recommended", "Recommended", "relu / logistic [16]")))
-    assert len(strip._rows) == 2 and strip._rows == first
-    assert strip.labels["recommended"].objectName() == "verdictText"
+    assert len(strip._rows) == 2 and strip._rows[0] == kept
+    assert [w.objectName() for w in strip._rows[1]] == ["verdictName", "verdictText"]
+    assert strip._list.count() == 2
     assert strip.text().splitlines()[1:] == ["Output: logistic fits",
                                              "Recommended: relu / logistic [16]"]
-    # nothing cut: the strip is as tall as its wrapped rows need
-    assert strip.height() == strip.layout().totalHeightForWidth(strip.width())
+    # nothing cut: the strip is as tall as its wrapped rows need (once laid out)
+    qtbot.waitUntil(lambda: strip.height() == strip.layout().totalHeightForWidth(strip.width()),
+                    timeout=5_000)

@@ -29,12 +29,8 @@ from workbench.gui.widgets import WrappingLabel
 SHOWN_ELSEWHERE = ("factors",)
 
 
-def _restyle(label: QLabel, name: str) -> None:
-    """Give ``label`` the style sheet's rules for object name ``name`` (if it changed)."""
-    if label.objectName() != name:
-        label.setObjectName(name)
-        label.style().unpolish(label)
-        label.style().polish(label)
+def _is_warning(label: QLabel) -> bool:
+    return label.objectName() == "verdictWarning"
 
 
 class VerdictStrip(QFrame):
@@ -121,27 +117,22 @@ class VerdictStrip(QFrame):
 
     def _set_statements(self, statements: list[dict]) -> None:
         """One row (name, text) per statement: kept rows get the new words, missing rows
-        are built, surplus rows dropped; a label's style name changes only when a row turns
-        into a warning or back."""
+        are built, surplus rows dropped. A row that turns into a warning or back is built
+        anew: the style sheet's box (a warning's padding) is applied when a label is first
+        shown under its name, not when the name changes later."""
         while len(self._rows) > len(statements):
-            name, text = self._rows.pop()
-            row = self._list.takeAt(self._list.count() - 1).layout()
-            while row is not None and row.count():
-                row.takeAt(0)
-            for w in (name, text):
-                w.hide()
-                w.deleteLater()
+            self._drop_row(len(self._rows) - 1)
         names = [("⚠ " if s["label"] == "Warning" else "") + s["label"] for s in statements]
         name_width = int(max([self.fontMetrics().horizontalAdvance(n) for n in names] + [0])
                          * 1.15) + 8
         self.labels = {}
         for i, (s, title) in enumerate(zip(statements, names)):
             warning = s["label"] == "Warning"
-            if i == len(self._rows):
-                self._rows.append(self._new_row())
+            if i < len(self._rows) and _is_warning(self._rows[i][1]) != warning:
+                self._drop_row(i)
+            if i >= len(self._rows) or self._rows[i] is None:
+                self._new_row(i, warning)
             name, text = self._rows[i]
-            _restyle(name, "verdictWarningName" if warning else "verdictName")
-            _restyle(text, "verdictWarning" if warning else "verdictText")
             if name.text() != title:
                 name.setText(title)
             if text.text() != s["text"]:
@@ -151,10 +142,27 @@ class VerdictStrip(QFrame):
                 name.setFixedWidth(name_width)
             self.labels[s["key"]] = text
 
-    def _new_row(self) -> tuple[QLabel, QLabel]:
+    def _drop_row(self, i: int) -> None:
+        """Remove row ``i``'s labels; the row stays as a gap (None) unless it is the last."""
+        name, text = self._rows[i]
+        row = self._list.takeAt(i).layout()
+        while row is not None and row.count():
+            row.takeAt(0)
+        for w in (name, text):
+            w.hide()
+            w.deleteLater()
+        if i == len(self._rows) - 1:
+            self._rows.pop()
+        else:
+            self._rows[i] = None
+
+    def _new_row(self, i: int, warning: bool) -> None:
+        """Build row ``i`` (named for the style sheet before it is first shown)."""
         name = QLabel("")
+        name.setObjectName("verdictWarningName" if warning else "verdictName")
         name.setAlignment(Qt.AlignLeft | Qt.AlignTop)
         text = WrappingLabel("")
+        text.setObjectName("verdictWarning" if warning else "verdictText")
         text.setAlignment(Qt.AlignLeft | Qt.AlignTop)
         text.setTextFormat(Qt.PlainText)
         text.setTextInteractionFlags(Qt.TextSelectableByMouse)
@@ -163,10 +171,14 @@ class VerdictStrip(QFrame):
         row.setSpacing(10)
         row.addWidget(name, 0, Qt.AlignTop)
         row.addWidget(text, 1)
-        self._list.addLayout(row)
+        if i < len(self._rows):
+            self._list.insertLayout(i, row)
+            self._rows[i] = (name, text)
+        else:
+            self._list.addLayout(row)
+            self._rows.append((name, text))
         name.show()  # now, not at the next layout pass: the height is measured after
         text.show()
-        return name, text
 
     def text(self) -> str:
         """Everything the strip shows, as plain text (for tests and for copying)."""
