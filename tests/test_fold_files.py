@@ -265,12 +265,6 @@ def test_a_reader_never_sees_a_partial_file(tmp_path, monkeypatch):
     assert os.listdir(tmp_path) == []
 
 
-def _copy_folders():
-    import tempfile
-
-    return {p for p in Path(tempfile.gettempdir()).glob(runner.COPY_PREFIX + "*")}
-
-
 @pytest.mark.parametrize("how", ["finished", "failed", "interrupted"])
 def test_the_fold_files_go_when_the_sweep_ends(tmp_path, monkeypatch, how):
     """Finished, failed (the store breaks mid-sweep) or interrupted (Ctrl-C): the sweep's
@@ -278,7 +272,6 @@ def test_the_fold_files_go_when_the_sweep_ends(tmp_path, monkeypatch, how):
     monkeypatch.setattr(F, "SHARED_MIN_BYTES", 0)
     plan = build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection", hidden="relu",
                       layers=["4"], folds=2, repeats=1, epochs=2)
-    before = _copy_folders()
     folders = []
     real_share = runner._LokyExecutor.share
 
@@ -303,8 +296,7 @@ def test_the_fold_files_go_when_the_sweep_ends(tmp_path, monkeypatch, how):
         else:
             with pytest.raises(KeyboardInterrupt if how == "interrupted" else RuntimeError):
                 run_sweep(plan, store=st, jobs=2, on_event=on_event)
-    assert folders and not folders[0].exists()
-    assert _copy_folders() <= before
+    assert folders and not folders[0].exists()  # (other processes' sweeps may run meanwhile)
     assert any(e is not None and e["type"] == "trial_finished" for e in events)
 
 
