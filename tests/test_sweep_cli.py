@@ -304,3 +304,33 @@ def test_the_kinds_written_out_in_the_command_are_the_profiles():
     from workbench.data.profiling import KINDS as PROFILE_KINDS
 
     assert KINDS == PROFILE_KINDS
+
+
+def test_the_sweep_command_reads_its_table_once(tmp_path, monkeypatch):
+    """The command reads the table once: the plan is built from that frame and the runner
+    trains on the same frame (``run_sweep(frame=...)``) instead of reading and parsing
+    the file a second time (1.3 s of a 32 MB CSV)."""
+    from workbench.data import intake
+    from workbench.sweep import runner
+
+    reads, frames = [], []
+    real_load, real_data = intake.load_table, runner.load_data
+
+    def counted(*a, **k):
+        reads.append(a[0] if a else k.get("path"))
+        return real_load(*a, **k)
+
+    def seen(plan, frame=None):
+        frames.append(frame)
+        return real_data(plan, frame)
+
+    monkeypatch.setattr(intake, "load_table", counted)
+    monkeypatch.setattr(runner, "load_data", seen)
+    rc = main(["sweep", str(KILN), "--target", "passes_inspection", "--hidden", "relu",
+               "--folds", "2", "--repeats", "1", "--epochs", "2", "--jobs", "1",
+               "--store", str(tmp_path / "s.sqlite"), "--quiet"])
+    assert rc == 0
+    # the sweep's load is the command's frame; the results may read the table again
+    # afterwards for the verdict's facts (the input width)
+    assert frames and frames[0] is not None
+    assert reads and str(reads[0]) == str(KILN) and len(reads) == len(frames)

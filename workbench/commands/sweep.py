@@ -378,14 +378,18 @@ def _run(args, mark, open_gate) -> int:
     # (workbench.sweep.results, workbench.commands.show) come after the sweep
     from workbench.data.profiling import parse_roles
     from workbench.sweep.bayes import check_rope
-    from workbench.sweep.plan import build_plan
+    from workbench.sweep.plan import build_plan, read_table
     from workbench.sweep.runner import run_sweep
     from workbench.sweep.store import Store
 
     mark("parent imports done")
     rope = None if args.rope is None else check_rope(args.rope)  # refused before any trial
+    frame = None
     if args.resume is None:
-        plan = build_plan(args.file, args.target, hidden=args.hidden, output=args.output,
+        # read once: the plan is built from this frame and the sweep trains on it
+        frame = read_table(args.file, args.sheet) if args.file is not None else None
+        plan = build_plan(args.file, args.target, df=frame, hidden=args.hidden,
+                          output=args.output,
                           layers=args.layers, learning_rates=args.learning_rate,
                           alphas=args.alpha, folds=args.folds, repeats=args.repeats,
                           epochs=args.epochs, early_stopping=args.early_stopping,
@@ -416,7 +420,7 @@ def _run(args, mark, open_gate) -> int:
             with _sigterm_as_interrupt():
                 outcome = run_sweep(plan, store=store, resume=args.resume, jobs=jobs,
                                     cluster=args.cluster, on_event=_timed(progress),
-                                    table=args.table)
+                                    table=args.table, frame=frame)
         except InputError as exc:
             if args.resume is not None and exc.setting == "table":
                 # here the table is set with --table, not with the FILE argument

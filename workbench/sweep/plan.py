@@ -764,6 +764,24 @@ def resolve_heads(target, output="auto") -> tuple[list[str], dict, dict]:
     return heads, refused, warns
 
 
+def read_table(table, sheet=None):
+    """The table a plan is built from (:func:`workbench.data.intake.load_table`), with a
+    named worksheet refused for a table that has none. The sweep command reads it once
+    and hands the frame to :func:`build_plan` and to the runner
+    (:func:`workbench.sweep.runner.run_sweep`'s ``frame``), so the table is not read and
+    parsed twice."""
+    from workbench.data.intake import load_table
+
+    df, report = load_table(table, sheet=sheet)
+    if sheet is not None and report.format != "xlsx":
+        # refused rather than ignored: a sweep is long and its plan keeps the sheet, and
+        # naming a sheet for a text or Parquet table most likely means another file
+        raise InputError(f"a worksheet ({sheet!r}) was named, but {Path(table).name} is a "
+                         f"{report.format} table, which has no worksheets; name none, or "
+                         "give the .xlsx workbook", setting="sheet")
+    return df
+
+
 def build_plan(table, target: str, *, hidden="default", output="auto", layers=None,
                learning_rates=None, alphas=None, folds=5, repeats=2, epochs=200,
                early_stopping=False, metric=None, engine="auto", seed=0, batch_size="auto",
@@ -822,15 +840,7 @@ def build_plan(table, target: str, *, hidden="default", output="auto", layers=No
             (alphas, "L2 strengths", "alpha", "0.0001,0.001")):
         _refuse_empty(value, what, setting, example)  # before the table is read
     if df is None:
-        from workbench.data.intake import load_table
-
-        df, report = load_table(table, sheet=sheet)
-        if sheet is not None and report.format != "xlsx":
-            # refused rather than ignored: a sweep is long and its plan keeps the sheet, and
-            # naming a sheet for a text or Parquet table most likely means another file
-            raise InputError(f"a worksheet ({sheet!r}) was named, but {Path(table).name} is a "
-                             f"{report.format} table, which has no worksheets; name none, or "
-                             "give the .xlsx workbook", setting="sheet")
+        df = read_table(table, sheet)
     info = target_info if target_info is not None else analyse_target(df, target, kind=kind)
     names = _split_list(hidden) or ["default"]
     hid = []
