@@ -15,7 +15,9 @@ binary target). Parts, in this order:
    plan's) and the same metric, ``refit=False``; both timed from reading the
    table. The two are run alternately, ``rounds`` times each (default once: the
    search alone takes one to two minutes), and the fastest of each kept. Whether GridSearchCV's
-   best configuration is ours (or tied with ours) is reported.
+   best configuration is ours (or tied with ours) is reported. Beside the wall clock, each
+   run's CPU seconds (this process and its workers, from ``/proc``): on a machine other
+   programs load, their ratio moves far less than the wall clock's.
 2. **Time to first trial.** ``python -m workbench sweep`` on the kiln table (one
    configuration, 2 folds, 5 epochs, 2 jobs) in a fresh process: seconds from
    starting the process until the store holds its first trial (the store file is
@@ -120,6 +122,44 @@ def _sweep(plan, store, jobs=2):
     return time.perf_counter() - t, out.sweep_id
 
 
+def _descendants_cpu() -> dict:
+    """CPU seconds (user + system) of every living descendant of this process, by pid, read
+    from ``/proc`` (Linux; empty elsewhere): the worker processes of both contenders."""
+    if not sys.platform.startswith("linux"):
+        return {}
+    tick = os.sysconf("SC_CLK_TCK")
+    found, todo, cpu = [], [os.getpid()], {}
+    while todo:
+        pid = todo.pop()
+        try:
+            with open(f"/proc/{pid}/task/{pid}/children") as fh:
+                kids = [int(k) for k in fh.read().split()]
+        except OSError:
+            kids = []
+        found += kids
+        todo += kids
+    for pid in found:
+        try:
+            with open(f"/proc/{pid}/stat") as fh:
+                fields = fh.read().rsplit(")", 1)[1].split()
+            cpu[pid] = (int(fields[11]) + int(fields[12])) / tick  # utime + stime
+        except (OSError, IndexError, ValueError):
+            pass
+    return cpu
+
+
+def _with_cpu(fn, *args):
+    """``(fn(*args), CPU seconds)``: this process's CPU time during the call plus what its
+    descendants (workers started before or during it) used meanwhile. Unlike the wall
+    clock it hardly moves when other programs share the cores (a worker that exits
+    during the call is not counted: neither contender's workers do)."""
+    before, own = _descendants_cpu(), time.process_time()
+    out = fn(*args)
+    own = time.process_time() - own
+    used = sum(max(0.0, v - before.get(pid, 0.0)) for pid, v in _descendants_cpu().items())
+    return out, own + used
+
+
 def _agreement(res, best_params) -> tuple[str, bool]:
     key = (best_params["model__activation"], float(best_params["model__learning_rate_init"]))
     ours = {(c["hidden"], float(c["learning_rate"])): c for c in res["configurations"]}
@@ -146,12 +186,17 @@ def whole_sweep(quick: bool = False, rounds: int | None = None, store_path=None)
     with tempfile.TemporaryDirectory(prefix="workbench-bench-") as tmp:
         store = Store(Path(store_path or Path(tmp) / "kiln.sqlite"))
         try:
-            grid_runs, our_runs = [], []
+            grid_runs, our_runs, grid_cpu, our_cpu = [], [], [], []
             for _ in range(rounds):  # alternate, so a burst of load hits both alike
-                grid_runs.append(grid_search(plan))
-                our_runs.append(_sweep(plan, store))
+                run, cpu = _with_cpu(grid_search, plan)
+                grid_runs.append(run)
+                grid_cpu.append(cpu)
+                run, cpu = _with_cpu(_sweep, plan, store)
+                our_runs.append(run)
+                our_cpu.append(cpu)
             t_grid, best_params = min(grid_runs, key=lambda r: r[0])
             t_ours, sweep_id = min(our_runs, key=lambda r: r[0])
+            c_grid, c_ours = min(grid_cpu), min(our_cpu)
             res = sweep_results(store, sweep_id)
         finally:
             store.close()
@@ -161,6 +206,9 @@ def whole_sweep(quick: bool = False, rounds: int | None = None, store_path=None)
     figures = {"sweep_seconds": t_ours, "gridsearch_seconds": t_grid,
                "sweep_over_gridsearch": t_ours / t_grid, "same_winner": agrees,
                "n_trials": plan.n_trials, "rounds": rounds}
+    if c_grid > 0:
+        figures.update({"sweep_cpu_seconds": c_ours, "gridsearch_cpu_seconds": c_grid,
+                        "sweep_over_gridsearch_cpu": c_ours / c_grid})
     lines = [
         f"kiln grid: {KILN.name}, hidden {HIDDEN.replace(',', '/')} x logistic head x [32] x "
         f"lr {'/'.join(LEARNING_RATES)}: {plan.n_configurations} configurations x "
@@ -172,6 +220,9 @@ def whole_sweep(quick: bool = False, rounds: int | None = None, store_path=None)
         f"  our sweep (default engine), 2 jobs      {t_ours:8.2f} s",
         f"  ours / GridSearchCV                     {t_ours / t_grid:8.3f}   "
         f"(goal <= {SWEEP_GOAL})",
+        (f"  cpu seconds, process + workers (least of each): GridSearchCV {c_grid:.1f}, ours "
+         f"{c_ours:.1f}, ratio {c_ours / c_grid:.3f} (steadier than the wall clock on a "
+         "shared machine)" if c_grid > 0 else "  cpu seconds: not measured (reads /proc)"),
         f"  winner: {agreement}; our best {best['hidden']}/{best['head']} "
         f"lr={best['learning_rate']:g} {plan.metric} {best['mean']:.4f} ± {best['sd']:.4f}",
     ]
