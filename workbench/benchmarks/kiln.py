@@ -16,8 +16,10 @@ binary target). Parts, in this order:
    table. The two are run alternately, ``rounds`` times each (default once: the
    search alone takes one to two minutes), and the fastest of each kept. Whether GridSearchCV's
    best configuration is ours (or tied with ours) is reported. Beside the wall clock, each
-   run's CPU seconds (this process and its workers, from ``/proc``): on a machine other
-   programs load, their ratio moves far less than the wall clock's.
+   run's CPU seconds (this process and its workers, from ``/proc``): the work each did.
+   (Measured on the shared 2-core machine at load averages 2-4, two rounds each way: the
+   CPU ratio varied between rounds about as much as the wall-clock ratio, 0.29-0.53 against
+   0.27-0.45; neither is a substitute for a quiet machine.)
 2. **Time to first trial.** ``python -m workbench sweep`` on the kiln table (one
    configuration, 2 folds, 5 epochs, 2 jobs) in a fresh process: seconds from
    starting the process until the store holds its first trial (the store file is
@@ -150,8 +152,7 @@ def _descendants_cpu() -> dict:
 
 def _with_cpu(fn, *args):
     """``(fn(*args), CPU seconds)``: this process's CPU time during the call plus what its
-    descendants (workers started before or during it) used meanwhile. Unlike the wall
-    clock it hardly moves when other programs share the cores (a worker that exits
+    descendants (workers started before or during it) used meanwhile (a worker that exits
     during the call is not counted: neither contender's workers do)."""
     before, own = _descendants_cpu(), time.process_time()
     out = fn(*args)
@@ -221,8 +222,8 @@ def whole_sweep(quick: bool = False, rounds: int | None = None, store_path=None)
         f"  ours / GridSearchCV                     {t_ours / t_grid:8.3f}   "
         f"(goal <= {SWEEP_GOAL})",
         (f"  cpu seconds, process + workers (least of each): GridSearchCV {c_grid:.1f}, ours "
-         f"{c_ours:.1f}, ratio {c_ours / c_grid:.3f} (steadier than the wall clock on a "
-         "shared machine)" if c_grid > 0 else "  cpu seconds: not measured (reads /proc)"),
+         f"{c_ours:.1f}, ratio {c_ours / c_grid:.3f}" if c_grid > 0
+         else "  cpu seconds: not measured (reads /proc)"),
         f"  winner: {agreement}; our best {best['hidden']}/{best['head']} "
         f"lr={best['learning_rate']:g} {plan.metric} {best['mean']:.4f} ± {best['sd']:.4f}",
     ]
