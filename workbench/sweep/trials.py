@@ -274,16 +274,18 @@ def _sweep_classes(data: TrialData) -> np.ndarray:
     return hit
 
 
-def _predictions(data: TrialData, model, X_te, test: np.ndarray) -> np.ndarray:
+def _predictions(data: TrialData, model, X_te, test: np.ndarray, proba=None) -> np.ndarray:
     """The test rows' predictions as float32, in ascending row order.
 
     Classifiers: ``predict_proba`` with one column per class of the whole
-    target (:func:`target_classes`); a class the model never saw gets 0.
+    target (:func:`target_classes`); a class the model never saw gets 0. ``proba``:
+    ``model.predict_proba(X_te)`` when the caller already has it.
     Regressors: ``predict`` (user units; target scaling inverted), one value per row.
     """
     order = np.argsort(test, kind="stable")
     if data.target.task == "classification":
-        proba = np.asarray(model.predict_proba(X_te), dtype=np.float64)
+        proba = np.asarray(model.predict_proba(X_te) if proba is None else proba,
+                           dtype=np.float64)
         classes = _sweep_classes(data)
         seen = np.asarray(model.classes_)
         cols = np.searchsorted(classes, seen)
@@ -949,8 +951,14 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
             return
     scorer = get_scorer(spec["metric"])
     try:
-        test_score = float(scorer(model, X_te, y_te))
-        train_score = float(scorer(model, X_tr, y_tr))
+        # the scorer's values, bit for bit, without predicting the test rows twice or
+        # validating the labels again (exact_scores); the probabilities also make the
+        # out-of-fold predictions
+        from workbench.sweep.exact_scores import trial_score
+
+        proba = model.predict_proba(X_te) if data.target.task == "classification" else None
+        test_score = trial_score(spec["metric"], model, X_te, y_te, proba, scorer)
+        train_score = trial_score(spec["metric"], model, X_tr, y_tr, scorer=scorer)
     except ValueError as exc:
         if _looks_diverged(exc):
             result["status"] = DIVERGED
@@ -961,7 +969,7 @@ def _fit_and_score(data: TrialData, spec: dict, result: dict) -> None:
         result["status"] = DIVERGED
         result["error"] = "the score is not finite (the network's predictions blew up)"
         return
-    result["predictions"] = _predictions(data, model, X_te, test)
+    result["predictions"] = _predictions(data, model, X_te, test, proba)
     result["test_score"] = test_score
     result["train_score"] = train_score
     result["status"] = DONE
