@@ -166,3 +166,44 @@ def test_reference_rows_read_only_and_styled_in_their_items(table):
     assert model.index(0, 0).data(Qt.BackgroundRole) == QColor("#112233")
     assert model.index(v, 0).data(Qt.BackgroundRole) == QColor("#445566")
     assert model.index(1, 0).data(Qt.BackgroundRole) is None  # "equivalent": no colour now
+
+
+def test_the_computed_order_is_the_one_qt_made_on_every_column_and_tie(table):
+    """The model computes the view order with NumPy's stable sort instead of reading it
+    back from every item; Qt's own stable sort on the keys the cells carry must make that
+    very order: every column, both ways, with ties (four hidden activations, one head)
+    and missing values, from orders left by other sorts."""
+    model, proxy, view = table
+    model.upsert(_rows(60, seed=3))
+    for key in ("hidden", "mean", "head", "fit_seconds", "decision", "hidden", "layers",
+                "rank", "trials", "learning_rate"):
+        for order in (Qt.AscendingOrder, Qt.DescendingOrder):
+            view.sortByColumn(COLUMN_KEYS.index(key), order)
+            assert list(model.view_order_from_items()) == list(model._order), (key, order)
+            _shown_matches_rows(model)
+    # text in the order Python sorts it, missing numbers last both ways
+    view.sortByColumn(COLUMN_KEYS.index("hidden"), Qt.AscendingOrder)
+    shown = [model.row_at(v)["hidden"].lower() for v in range(model.rowCount())]
+    assert shown == sorted(shown)
+
+
+def test_text_codes_keep_the_order_when_room_between_neighbours_runs_out(table):
+    """A new text takes the midpoint of its neighbours' codes; after ~50 halvings between
+    two neighbours there is no room left and the column is coded again, its cells' keys
+    rewritten: the sort stays the text order throughout."""
+    model, proxy, view = table
+    rows = _rows(8)
+    model.upsert(rows)
+    col = COLUMN_KEYS.index("hidden")
+    # "a", then ever closer to "a" from above: "b", "ab", "aab", ... halves the same gap
+    names = ["a", "b"] + ["a" * k + "b" for k in range(1, 70)]
+    extra = [dict(rows[0], key=f"t{i}", index=100 + i, hidden=n) for i, n in enumerate(names)]
+    model.upsert(extra)
+    codes = model._codes["hidden"]
+    assert sorted(codes, key=codes.get) == sorted(codes)  # the codes keep the text order
+    assert max(codes.values()) <= len(codes)  # it was coded again (0, 1, 2, ...)
+    for order in (Qt.AscendingOrder, Qt.DescendingOrder):
+        view.sortByColumn(col, order)
+        shown = [model.row_at(v)["hidden"].lower() for v in range(model.rowCount())]
+        assert shown == sorted(shown, reverse=order == Qt.DescendingOrder)
+        assert list(model.view_order_from_items()) == list(model._order)
