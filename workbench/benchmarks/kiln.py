@@ -398,26 +398,38 @@ def descendants(pid):
         todo += kids
     return found
 
+def is_worker(pid):
+    # a worker process once it runs loky's worker code: a child caught between its
+    # fork and its exec still carries this process's size and command line
+    try:
+        with open(f"/proc/{pid}/cmdline", "rb") as fh:
+            return b"loky" in fh.read()
+    except OSError:
+        return False
+
 peaks, done = {}, threading.Event()
 def watch():
     me = os.getpid()
     while not done.is_set():
         for pid in descendants(me):
+            if not is_worker(pid):
+                continue
             v = hwm(pid)
             if v is not None:
                 peaks[pid] = max(peaks.get(pid, 0), v)
         time.sleep(0.02)
 
 threading.Thread(target=watch, daemon=True).start()
-from workbench.sweep.plan import build_plan
+from workbench.sweep.plan import build_plan, read_table
 from workbench.sweep.runner import run_sweep
 from workbench.sweep.store import Store
 table, store = sys.argv[1], sys.argv[2]
-plan = build_plan(table, "outcome", hidden="relu", layers=["32"], folds=2, repeats=1,
-                  epochs=1, seed=0, baselines=[])
+frame = read_table(table)  # read once, as the sweep command does
+plan = build_plan(table, "outcome", df=frame, hidden="relu", layers=["32"], folds=2,
+                  repeats=1, epochs=1, seed=0, baselines=[])
 t = time.perf_counter()
 with Store(store) as st:
-    run_sweep(plan, store=st, jobs=2)
+    run_sweep(plan, store=st, jobs=2, frame=frame)
 seconds = time.perf_counter() - t
 time.sleep(0.1)
 done.set()
