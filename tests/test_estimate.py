@@ -52,6 +52,7 @@ class FakeTrials:
     def __init__(self):
         self.now = 0.0
         self.calls = []
+        self.groups = []
         self.folds_seen = set()
 
     def clock(self):
@@ -70,6 +71,11 @@ class FakeTrials:
             self.now += a + b * spec["epochs"]
         return {}
 
+    def run_trials(self, data, specs):
+        """A group (a configuration's folds): here each trial costs what it costs alone."""
+        self.groups.append(len(specs))
+        return [self.run_trial(data, s) for s in specs]
+
 
 @pytest.fixture
 def fake(monkeypatch):
@@ -77,6 +83,7 @@ def fake(monkeypatch):
     import workbench.sweep.trials as trials
 
     monkeypatch.setattr(trials, "run_trial", f.run_trial)
+    monkeypatch.setattr(trials, "run_trials", f.run_trials)
     monkeypatch.setattr(E.time, "perf_counter", f.clock)
     return f
 
@@ -90,10 +97,26 @@ def test_calibration_recovers_a_known_cost_line(table, fake):
         assert cal.per_trial[key] == pytest.approx(a)
     assert cal.prep == pytest.approx(FakeTrials.PREP)
     assert cal.baseline == pytest.approx(FakeTrials.BASELINE)
-    # the learning rates share one timing: two configurations per hidden, timed once each
+    # the learning rates share one timing: two configurations per hidden, timed once each,
+    # as the group of a repeat's folds the runner hands out to train in lockstep
     timed = [c for c in fake.calls if c[1] in E.CALIBRATION_EPOCHS]
-    assert len(timed) == 2 * 2 * E.CALIBRATION_RUNS
+    assert len(timed) == 2 * 2 * plan.folds  # a group is timed once: K trials long
+    assert fake.groups == [plan.folds] * (2 * 2)
     assert cal.covers(plan)
+
+
+def test_configurations_the_runner_does_not_stack_are_timed_alone(table, fake):
+    """scikit-learn's MLP (and a racing plan, whose tasks end at its looks) run one trial
+    per task: their calibration times single trials, and recovers the same line."""
+    for plan in (_plan(table, engine="sklearn", hidden=("relu", "tanh")),
+                 _plan(table, race=True)):
+        fake.groups.clear()
+        cal = E.calibrate(plan)
+        assert fake.groups == []
+        for hidden, (a, b) in FakeTrials.COST.items():
+            key = next(k for k in cal.per_epoch if k[0] == hidden)
+            assert cal.per_epoch[key] == pytest.approx(b)
+            assert cal.per_trial[key] == pytest.approx(a)
 
 
 def test_a_new_activation_is_timed_alone_and_new_data_from_scratch(table, fake):

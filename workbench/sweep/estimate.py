@@ -10,8 +10,11 @@ thread, as in a worker) on the plan's own table and first fold:
 2. for each distinct (hidden activation, head, layers, engine) of the grid, two
    short trials of ``e1`` and ``e2`` epochs (the smaller time of two runs each)
    give the seconds per epoch (the slope) and per trial beyond the epochs (the
-   intercept: scoring, predictions, health). The learning rate and L2 strength do
-   not change the cost of an epoch, so they are not timed;
+   intercept: scoring, predictions, health). A configuration whose folds the runner
+   hands out together to train in lockstep (:func:`workbench.sweep.runner.group_trials`)
+   is timed so, on the first repeat's folds, each trial counting its share of the
+   group. The learning rate and L2 strength do not change the cost of an epoch, so
+   they are not timed;
 3. one trial of each baseline.
 
 A sweep's time is then, with ``W`` workers (the runner hands each free worker the
@@ -130,7 +133,7 @@ def calibrate(plan, data=None, previous: Calibration | None = None,
     import numpy as np
 
     from workbench.sweep.runner import load_data
-    from workbench.sweep.trials import TrialData, run_trial
+    from workbench.sweep.trials import TrialData, run_trial, run_trials
 
     t_start = time.perf_counter()
     key = data_key(plan)
@@ -161,9 +164,31 @@ def calibrate(plan, data=None, previous: Calibration | None = None,
     else:
         run_trial(data, spec(first, 1))  # the fold's features, for the baselines below
     e1, e2 = epochs
+    # the configurations whose folds the runner hands out together, to train in lockstep
+    # (:func:`workbench.sweep.runner.group_trials`): timed as such a group, each trial's
+    # share of it, since a stacked trial costs less than one alone
+    from workbench.sweep import runner
+
+    stacks = (runner._stacks(plan, data) if runner.STACK and not plan.race
+              and plan.folds > 1 else set())
+    if any(c.index in stacks for c in todo.values()):
+        folds = plan.fold_indices(data.y)
+        group = [dict(base, fold=j, train=np.asarray(folds[(0, j)][0], np.int32),
+                      test=np.asarray(folds[(0, j)][1], np.int32),
+                      random_state=plan.model_seed(0, j)) for j in range(plan.folds)]
+        for s in group[1:]:  # each fold's features once, as a worker has them
+            run_trial(data, dict(s, config=first.to_dict(), epochs=1))
     for k, c in todo.items():
-        t1 = _timed(lambda c=c: run_trial(data, spec(c, e1)), runs)
-        t2 = _timed(lambda c=c: run_trial(data, spec(c, e2)), runs)
+        if c.index in stacks:
+            def timed(n, c=c):
+                specs = [dict(g, config=c.to_dict(), epochs=int(n)) for g in group]
+                # one run: a group is already K trials long (the calibration's own time
+                # is part of the user's wait)
+                return _timed(lambda: run_trials(data, specs), 1) / len(specs)
+        else:
+            def timed(n, c=c):
+                return _timed(lambda: run_trial(data, spec(c, n)), runs)
+        t1, t2 = timed(e1), timed(e2)
         slope = max(0.0, (t2 - t1) / (e2 - e1))
         cal.per_epoch[k] = slope
         cal.per_trial[k] = max(0.0, t1 - slope * e1)
