@@ -717,3 +717,30 @@ def test_the_text_table_gives_a_stopped_configuration_its_paired_difference(full
         assert sum(cell in line and "stopped (racing)" in line for line in rows) >= 1, cell
     assert "* stopped by racing" in text
     assert by[0]["decision"] in {"best", "equivalent", "undecided", "worse"}
+
+
+def test_the_window_gives_a_stopped_configuration_its_paired_difference(qtbot, full_and_raced):
+    """The window's results table says a stopped configuration's decision as its stop's
+    paired difference from the leader (as ``show`` does), and its tooltip says why its
+    mean does not compare with the best's."""
+    from PySide6.QtCore import Qt
+
+    from workbench.gui.core_adapter import ranked_rows
+    from workbench.gui.models import COLUMN_KEYS, ResultsModel
+
+    fr = full_and_raced
+    rows = ranked_rows(str(fr["store"]), fr["raced"])["rows"]
+    model = ResultsModel()
+    model.set_rows(rows)
+    col = COLUMN_KEYS.index("decision")
+    seen = {}
+    for v in range(model.rowCount()):
+        row = model.row_at(v)
+        if row.get("kind") == "network":
+            seen[row["index"]] = (model.index(v, col).data(),
+                                  model.index(v, col).data(Qt.ToolTipRole))
+    for c in (1, 3):
+        text, tip = seen[c]
+        assert text == f"stopped {fr['stopped'][c]['difference']:+.4f}"
+        assert "stopped by racing" in tip and fr["stopped"][c]["reason"] in tip
+    assert not seen[0][0].startswith("stopped")

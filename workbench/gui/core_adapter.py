@@ -530,6 +530,10 @@ def ranked_rows(store, sweep_id: str, rope: float | None = None) -> dict:
             "dead_pct": None if c.get("dead") is None else 100.0 * c["dead"],
             "saturated_pct": None if c.get("saturated") is None else 100.0 * c["saturated"],
             "engine": c["engine"], "status": c["status"],
+            # racing stopped it: its paired difference from the leader at the stop (its
+            # mean is over its first folds only, and does not compare with the best's)
+            "stop_difference": (c.get("stopped") or {}).get("difference"),
+            "stop_reason": (c.get("stopped") or {}).get("reason"),
             "n_done": len(c.get("trials", [])), "n_total": per_cfg,
             "message": "; ".join(errors)[:400] if errors else "",
             "series": {

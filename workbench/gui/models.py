@@ -125,6 +125,11 @@ def row_tooltip(row: dict, key: str) -> str | None:
         if row.get("n_networks_better") is not None:
             text += f"\n{row['n_networks_better']} network(s) practically better than it"
         return text
+    if key in ("decision", "mean") and row.get("stop_reason"):
+        return (f"stopped by racing: {row['stop_reason']}. Its mean is over its first "
+                f"{row.get('n_done', 0)} fold scores only, so it does not compare with the "
+                "best's; the decision cell gives its mean paired difference from the "
+                "configuration that led when it was stopped.")
     if key == "status" or (key in ("decision", "trials") and row.get("message")):
         return str(row.get("message") or row.get("status") or "") or None
     if key == "mean":
@@ -387,6 +392,8 @@ class ResultsModel(QStandardItemModel):
                 return "–"
             return f"{m:.4f} ± {s:.4f}" if not math.isnan(s) else f"{m:.4f}"
         if key == "decision":
+            if v is None and row.get("stop_difference") is not None:
+                return f"stopped {_num(row['stop_difference']):+.4f}"
             if v is None:  # not judged: the status says why (running, diverged, failed…)
                 return "" if row.get("status") in ("done", None) else str(row.get("status"))
             return DECISION_TEXT.get(v, str(v))
