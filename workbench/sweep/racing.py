@@ -801,7 +801,7 @@ def measure_racing(table, target, *, store=None, jobs=None, folds=5, repeats=3,
 
 
 def _rule_tag() -> str:
-    """The rule in a sweep id: threshold, first look, ROPE or not."""
+    """The rule in a sweep id: threshold, first look, kind of stop, moderated or not."""
     import uuid
 
     return (f"p{THRESHOLD:g}-j{FIRST_LOOK}-{STOP}-{'mod' if MODERATE else 'own'}-"
