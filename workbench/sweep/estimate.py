@@ -12,8 +12,8 @@ thread, as in a worker) on the plan's own table and first fold:
    give the seconds per epoch (the slope) and per trial beyond the epochs (the
    intercept: scoring, predictions, health). A configuration whose folds the runner
    hands out together to train in lockstep (:func:`workbench.sweep.runner.group_trials`)
-   is timed so, on the first repeat's folds, each trial counting its share of the
-   group. The learning rate and L2 strength do not change the cost of an epoch, so
+   is timed so, on the first repeat's folds (one run: a group is already K trials
+   long), each trial counting its share of the group. The learning rate and L2 strength do not change the cost of an epoch, so
    they are not timed;
 3. one trial of each baseline.
 
