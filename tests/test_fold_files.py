@@ -22,7 +22,7 @@ from workbench.sweep import fold_files as F
 from workbench.sweep import runner
 from workbench.sweep import trials as T
 from workbench.sweep.plan import build_plan
-from workbench.sweep.runner import load_data, run_sweep
+from workbench.sweep.runner import load_data, run_sweep, trial_spec
 from workbench.sweep.store import Store
 
 SAMPLES = Path(__file__).resolve().parents[1] / "sample_sets"
@@ -126,15 +126,9 @@ def _specs(table, target, **options):
     plan = build_plan(SAMPLES / table, target, folds=3, repeats=1, epochs=4, **options)
     data, _ = load_data(plan)
     folds = plan.fold_indices(data.y)
-    specs = []
-    for c in plan.configurations() + plan.baseline_configurations():
-        for (r, k), (tr, te) in sorted(folds.items()):
-            specs.append({"config": c.to_dict(), "repeat": r, "fold": k,
-                          "train": tr.astype(np.int32), "test": te.astype(np.int32),
-                          "random_state": plan.model_seed(r, k), "task": plan.task,
-                          "metric": plan.metric, "epochs": plan.epochs,
-                          "early_stopping": plan.early_stopping,
-                          "batch_size": plan.batch_size, "dtype": plan.dtype})
+    specs = [trial_spec(plan, c, r, k, folds)
+             for c in plan.configurations() + plan.baseline_configurations()
+             for (r, k) in sorted(folds)]
     return plan, data, folds, specs
 
 

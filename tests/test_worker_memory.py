@@ -17,7 +17,7 @@ import pytest
 from workbench.nets.engine import NetRegressor
 from workbench.sweep import trials as T
 from workbench.sweep.plan import build_plan
-from workbench.sweep.runner import load_data
+from workbench.sweep.runner import load_data, trial_spec
 
 SAMPLES = Path(__file__).resolve().parents[1] / "sample_sets"
 pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
@@ -29,15 +29,7 @@ def _specs(table, target, **options):
     data, _ = load_data(plan)
     folds = plan.fold_indices(data.y)
     configs = plan.configurations() + plan.baseline_configurations()
-    specs = []
-    for c in configs:
-        for (r, k), (tr, te) in sorted(folds.items())[:2]:
-            specs.append({"config": c.to_dict(), "repeat": r, "fold": k,
-                          "train": tr.astype(np.int32), "test": te.astype(np.int32),
-                          "random_state": plan.model_seed(r, k), "task": plan.task,
-                          "metric": plan.metric, "epochs": plan.epochs,
-                          "early_stopping": plan.early_stopping,
-                          "batch_size": plan.batch_size, "dtype": plan.dtype})
+    specs = [trial_spec(plan, c, r, k, folds) for c in configs for (r, k) in sorted(folds)[:2]]
     return data, specs
 
 

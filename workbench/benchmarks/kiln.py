@@ -124,23 +124,29 @@ def _sweep(plan, store, jobs=2):
     return time.perf_counter() - t, out.sweep_id
 
 
+def descendants(pid: int) -> list[int]:
+    """The pids of every living descendant of process ``pid``, from ``/proc`` (Linux)."""
+    found, todo = [], [pid]
+    while todo:
+        p = todo.pop()
+        try:
+            with open(f"/proc/{p}/task/{p}/children") as fh:
+                kids = [int(k) for k in fh.read().split()]
+        except OSError:
+            kids = []
+        found += kids
+        todo += kids
+    return found
+
+
 def _descendants_cpu() -> dict:
     """CPU seconds (user + system) of every living descendant of this process, by pid, read
     from ``/proc`` (Linux; empty elsewhere): the worker processes of both contenders."""
     if not sys.platform.startswith("linux"):
         return {}
     tick = os.sysconf("SC_CLK_TCK")
-    found, todo, cpu = [], [os.getpid()], {}
-    while todo:
-        pid = todo.pop()
-        try:
-            with open(f"/proc/{pid}/task/{pid}/children") as fh:
-                kids = [int(k) for k in fh.read().split()]
-        except OSError:
-            kids = []
-        found += kids
-        todo += kids
-    for pid in found:
+    cpu = {}
+    for pid in descendants(os.getpid()):
         try:
             with open(f"/proc/{pid}/stat") as fh:
                 fields = fh.read().rsplit(")", 1)[1].split()
@@ -237,20 +243,12 @@ def whole_sweep(quick: bool = False, rounds: int | None = None, store_path=None)
 def _group_specs(plan, config: int = 0, repeat: int = 0):
     """The trial descriptions of one configuration's folds of one repeat, as the runner
     sends them."""
-    from workbench.sweep.runner import load_data
+    from workbench.sweep.runner import load_data, trial_spec
 
     data, _ = load_data(plan)
     folds = plan.fold_indices(data.y)
-    c = plan.configurations()[config].to_dict()
-    specs = []
-    for f in range(plan.folds):
-        tr, te = folds[(repeat, f)]
-        specs.append({"config": c, "repeat": repeat, "fold": f, "train": tr.astype(np.int32),
-                      "test": te.astype(np.int32), "random_state": plan.model_seed(repeat, f),
-                      "task": plan.task, "metric": plan.metric, "epochs": plan.epochs,
-                      "early_stopping": plan.early_stopping, "batch_size": plan.batch_size,
-                      "dtype": plan.dtype, "attempt": 1})
-    return data, specs
+    c = plan.configurations()[config]
+    return data, [trial_spec(plan, c, repeat, f, folds) for f in range(plan.folds)]
 
 
 def stacked_group(quick: bool = False, rounds: int | None = None) -> dict:
@@ -385,18 +383,7 @@ def hwm(pid):
         return None
     return None
 
-def descendants(pid):
-    found, todo = [], [pid]
-    while todo:
-        p = todo.pop()
-        try:
-            with open(f"/proc/{p}/task/{p}/children") as fh:
-                kids = [int(k) for k in fh.read().split()]
-        except OSError:
-            kids = []
-        found += kids
-        todo += kids
-    return found
+from workbench.benchmarks.kiln import descendants
 
 def is_worker(pid):
     # a worker process once it runs loky's worker code: a child caught between its

@@ -130,9 +130,9 @@ def calibrate(plan, data=None, previous: Calibration | None = None,
     runs : int
         Each timed trial runs this often; the smallest time is kept.
     """
-    import numpy as np
 
-    from workbench.sweep.runner import load_data
+    from workbench.sweep import runner
+    from workbench.sweep.runner import load_data, trial_spec
     from workbench.sweep.trials import TrialData, run_trial, run_trials
 
     t_start = time.perf_counter()
@@ -142,14 +142,10 @@ def calibrate(plan, data=None, previous: Calibration | None = None,
         data, _ = load_data(plan)
     # a token of its own: the calibration's fold cache never serves a real sweep's trials
     data = TrialData(X=data.X, y=data.y, profile=data.profile, target=data.target)
-    train, test = plan.fold_indices(data.y)[(0, 0)]
-    base = {"repeat": 0, "fold": 0, "train": np.asarray(train, np.int32),
-            "test": np.asarray(test, np.int32), "random_state": plan.model_seed(0, 0),
-            "task": plan.task, "metric": plan.metric, "early_stopping": plan.early_stopping,
-            "batch_size": plan.batch_size, "dtype": plan.dtype, "attempt": 1}
+    folds = plan.fold_indices(data.y)
 
-    def spec(config, n_epochs):
-        return dict(base, config=config.to_dict(), epochs=int(n_epochs))
+    def spec(config, n_epochs, fold=0):
+        return trial_spec(plan, config, 0, fold, folds, epochs=n_epochs)
 
     configs = {}
     for c in plan.configurations():
@@ -167,21 +163,15 @@ def calibrate(plan, data=None, previous: Calibration | None = None,
     # the configurations whose folds the runner hands out together, to train in lockstep
     # (:func:`workbench.sweep.runner.group_trials`): timed as such a group, each trial's
     # share of it, since a stacked trial costs less than one alone
-    from workbench.sweep import runner
-
     stacks = (runner._stacks(plan, data) if runner.STACK and not plan.race
               and plan.folds > 1 else set())
     if any(c.index in stacks for c in todo.values()):
-        folds = plan.fold_indices(data.y)
-        group = [dict(base, fold=j, train=np.asarray(folds[(0, j)][0], np.int32),
-                      test=np.asarray(folds[(0, j)][1], np.int32),
-                      random_state=plan.model_seed(0, j)) for j in range(plan.folds)]
-        for s in group[1:]:  # each fold's features once, as a worker has them
-            run_trial(data, dict(s, config=first.to_dict(), epochs=1))
+        for j in range(1, plan.folds):  # each fold's features once, as a worker has them
+            run_trial(data, spec(first, 1, fold=j))
     for k, c in todo.items():
         if c.index in stacks:
             def timed(n, c=c):
-                specs = [dict(g, config=c.to_dict(), epochs=int(n)) for g in group]
+                specs = [spec(c, n, fold=j) for j in range(plan.folds)]
                 # one run: a group is already K trials long (the calibration's own time
                 # is part of the user's wait)
                 return _timed(lambda: run_trials(data, specs), 1) / len(specs)

@@ -496,6 +496,22 @@ def _stacks(plan: SweepPlan, data) -> set[int]:
             if stackable({"config": c.to_dict()})}
 
 
+def trial_spec(plan: SweepPlan, config, repeat: int, fold: int, folds: dict, *,
+               epochs: int | None = None, attempt: int = 1) -> dict:
+    """What a worker needs to run one trial (:func:`workbench.sweep.trials.run_trial`):
+    ``config`` (a configuration or baseline of ``plan``) on fold ``fold`` of repeat
+    ``repeat`` of ``folds`` (:meth:`SweepPlan.fold_indices`), with the plan's seed for
+    that fold and the plan's settings; ``epochs`` overrides the plan's (the estimate's
+    short timed trials)."""
+    tr, te = folds[(repeat, fold)]
+    return {"config": config.to_dict(), "repeat": repeat, "fold": fold,
+            "train": np.asarray(tr).astype(np.int32), "test": np.asarray(te).astype(np.int32),
+            "random_state": plan.model_seed(repeat, fold), "task": plan.task,
+            "metric": plan.metric, "epochs": int(plan.epochs if epochs is None else epochs),
+            "early_stopping": plan.early_stopping, "batch_size": plan.batch_size,
+            "dtype": plan.dtype, "attempt": attempt}
+
+
 def group_trials(plan: SweepPlan, trials, stacks) -> list[tuple]:
     """``trials`` (in the plan's order) as tasks, each a tuple of trials a worker runs
     together (:func:`workbench.sweep.trials.run_trials`).
@@ -568,13 +584,8 @@ class _Run:
         return [self.spec(trial, attempt) for trial in task]
 
     def spec(self, trial, attempt):
-        tr, te = self.folds[(trial.repeat, trial.fold)]
-        p = self.plan
-        return {"config": self.configs[trial.config_index].to_dict(), "repeat": trial.repeat,
-                "fold": trial.fold, "train": tr.astype(np.int32), "test": te.astype(np.int32),
-                "random_state": p.model_seed(trial.repeat, trial.fold), "task": p.task,
-                "metric": p.metric, "epochs": p.epochs, "early_stopping": p.early_stopping,
-                "batch_size": p.batch_size, "dtype": p.dtype, "attempt": attempt}
+        return trial_spec(self.plan, self.configs[trial.config_index], trial.repeat,
+                          trial.fold, self.folds, attempt=attempt)
 
     def is_baseline(self, config_index) -> bool:
         return config_index >= self.plan.n_configurations
