@@ -771,17 +771,14 @@ def run_trials(data: TrialData, specs) -> list[dict]:
 def _fits_stack_budget(data: TrialData, specs) -> bool:
     """Whether the group's fits fit :data:`STACK_BYTES` (the fold features' width read
     from the first trial's fold, which its trial then takes from the cache)."""
-    from workbench.data.preprocessing import build_preprocessor
-
     spec = specs[0]
     try:
         shared = shared_features(spec)
         if shared is not None:
             X_tr = shared[0]
         else:
-            X_tr, _ = _fold_features(data, spec, build_preprocessor(
-                data.profile, data.target, columnwise_medians=True),
-                np.asarray(spec["train"]), np.asarray(spec["test"]))
+            X_tr, _ = _fold_features(data, spec, fold_preprocessor(data),
+                                     np.asarray(spec["train"]), np.asarray(spec["test"]))
     except Exception:  # the trials will meet it (and record it) themselves
         return False
     rows = max(len(s["train"]) for s in specs)
