@@ -19,6 +19,16 @@ def _private_home(tmp_path_factory, monkeypatch):
     monkeypatch.setenv("XDG_CONFIG_HOME", str(base / "config"))
     monkeypatch.setenv("XDG_CACHE_HOME", str(base / "cache"))
     yield
+    # a window's background tasks (a calibration, a load) finish inside the test that
+    # started them: one still running while the next test builds its window and Python
+    # collects the last one's Qt objects crashed the interpreter once (CI, a calibration
+    # thread under garbage collection in theme.apply)
+    import sys
+
+    if "PySide6.QtCore" in sys.modules:
+        from PySide6.QtCore import QThreadPool
+
+        QThreadPool.globalInstance().waitForDone(120_000)
 
 
 @pytest.fixture

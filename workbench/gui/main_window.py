@@ -288,12 +288,12 @@ class MainWindow(QMainWindow):
         from workbench.gui.core_adapter import busy_cores, calibrate, startup_seconds
 
         self._calibrating = True
-        previous = self._calibration
+        previous, known_startup = self._calibration, self._startup
 
-        def job():
+        def job():  # off the GUI thread: touches no Qt object (the window may close)
             busy = busy_cores()  # before our own calibration adds to it
             cal = calibrate(plan, previous)
-            return cal, (startup_seconds() if self._startup is None else self._startup), busy
+            return cal, (startup_seconds() if known_startup is None else known_startup), busy
 
         def done(result):
             if not shiboken6.isValid(self.setup):
