@@ -167,3 +167,26 @@ def test_a_refusal_after_a_staggered_start_prints_one_line_only(tmp_path):
         assert proc.stderr.count("\n") == 1, proc.stderr
     after = set(glob.glob(os.path.join(tempfile.gettempdir(), "workbench-gate-*")))
     assert after <= before
+
+
+def test_the_pools_resource_tracker_keeps_its_leak_warnings_off_the_commands_stderr():
+    """loky's resource tracker outlives the command and warns on its stderr when a
+    semaphore it was told about is gone without word (what killing a prestarted pool can
+    leave: one CI run's refusal printed those two warnings after its one line). The
+    tracker :func:`pool._quiet_tracker` starts says nothing; one started by loky alone
+    says what it said in CI (the control, so that this test can fail), and the
+    environment is left as it was."""
+    script = ("import os; from joblib.externals.loky.backend import resource_tracker as rt\n"
+              "{start}\n"
+              "rt.register('/workbench-test-gone-' + str(os.getpid()), 'semlock')\n"
+              "print(os.environ.get('PYTHONWARNINGS'))\n")
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONWARNINGS"}
+    quiet = subprocess.run([sys.executable, "-c", script.format(
+        start="from workbench.sweep import pool; pool._quiet_tracker()")],
+        capture_output=True, text=True, timeout=120, env=env)
+    loud = subprocess.run([sys.executable, "-c", script.format(start="pass")],
+                          capture_output=True, text=True, timeout=120, env=env)
+    assert quiet.returncode == loud.returncode == 0
+    assert quiet.stdout == loud.stdout == "None\n"
+    assert quiet.stderr == ""
+    assert "leaked semlock" in loud.stderr and "FileNotFoundError" in loud.stderr
