@@ -13,7 +13,9 @@ each network's slice (``np.matmul`` on a stack calls the same BLAS routine per
 slice as on a single matrix; the products ``np.dot`` computes in the single path are
 computed here with ``np.dot`` on each slice); the sums that mix values of one
 network -- its L2 norm, its epoch loss -- are taken per network by the same
-function on a slice of the same layout. ``tests/test_engine_speed_paths.py``
+function on a slice of the same layout (the epoch losses by the loss's
+``stacked_value``, which gives each network's single value bit for bit, see
+:mod:`workbench.nets.losses`). ``tests/test_engine_speed_paths.py``
 checks the equality on every hidden activation and head in float64 and float32.
 
 Two conditions: the networks train on the same number of rows with the same
@@ -233,10 +235,11 @@ class NetworkStack:
                 grad += l2_buf
             opt.update(flat_theta, flat_grad, rows)
         self._scatter(nets, optimizers, opt)
-        losses = []
-        for j in range(k):
-            loss = float(head.loss_fn.value(y[j], predictions[j]))
-            losses.append(loss + 0.5 * squares[j] / n if alpha else loss)
+        # each network's loss as its own epoch takes it, in one call for the stack
+        # (Loss.stacked_value: the single call's value of each network, bit for bit)
+        losses = head.loss_fn.stacked_value(y, predictions)
+        if alpha:
+            losses = [loss + 0.5 * squares[j] / n for j, loss in enumerate(losses)]
         return losses
 
 
