@@ -223,3 +223,64 @@ def test_lockstep_predictions_follow_changed_rows_and_parameters():
     for a, b in zip(alone, together):
         for pa, pb in zip(a, b):
             np.testing.assert_array_equal(pa, pb)
+
+
+@pytest.mark.parametrize("head_name,task", [("identity", "regression"),
+                                            ("logistic", "classification")])
+def test_lockstep_losses_follow_changed_targets_rows_and_parameters(head_name, task):
+    """The loss of a prediction made in the stack (Network.predict_with_loss) is handed out
+    only for the same targets (same array, same values), rows and parameters; after any
+    of them changes, the network's own pass and loss are used: the same values as alone,
+    each epoch (reference: the single network's predict_raw and data_loss)."""
+    from workbench.nets import activations as act
+    from workbench.nets.network import Network, with_ones
+    from workbench.nets.optimizers import AdamOptimizer
+
+    head = act.resolve_head(head_name, task)
+
+    def job(i):
+        def run():
+            net = Network([3, 5, 1], ["tanh"], head, np.dtype(np.float64))
+            net.theta[...] = np.random.default_rng(i).uniform(-0.5, 0.5, net.theta.size)
+            opt = AdamOptimizer(net.theta.size, net.dtype, 0.01)
+            r = np.random.default_rng(10 + i)
+            X, held = r.normal(size=(40, 3)), r.normal(size=(7, 3))
+            y = (r.random((40, 1)) < 0.5).astype(float)
+            y_held = (r.random((7, 1)) < 0.5).astype(float)
+            out = []
+
+            def change(step):
+                nonlocal y_held
+                if step == 1:
+                    y_held[0, 0] = 1 - y_held[0, 0]  # the same targets array, new values
+                if step == 2:
+                    y_held = y_held.copy()  # another array, the same values
+                if step == 3:
+                    y_held[1, 0] = 1 - y_held[1, 0]
+                if step == 4:
+                    held[0, 0] += 1.0  # the rows changed
+                if step == 5:
+                    net.theta[0] += 0.1  # the parameters changed after the epoch
+
+            for epoch in range(12):
+                net.train_epoch(opt, with_ones(X), y, 10, 1e-3)
+                change(epoch - 5)  # between the stack's prediction and the member's call
+                p, loss = net.predict_with_loss(held, y_held)
+                assert loss == net.data_loss(y_held, net.predict_raw_alone(held))
+                out.append((p.copy(), loss))
+                change(epoch)  # between the member's call and the next epoch
+                out.append(net.predict_with_loss(held, y_held)[1])
+            return out
+        return run
+
+    alone = [job(i)() for i in range(3)]
+    together, counts = S.run_in_lockstep([job(i) for i in range(3)])
+    assert counts["stacked_epochs"] == 36 and counts["losses_stacked"] > 0
+    for a, b in zip(alone, together):
+        assert len(a) == len(b)
+        for va, vb in zip(a, b):
+            if isinstance(va, tuple):
+                np.testing.assert_array_equal(va[0], vb[0])
+                assert va[1] == vb[1]
+            else:
+                assert va == vb

@@ -725,11 +725,11 @@ class _BaseNet(BaseEstimator):
                 self._no_improvement_count = 0
             self.best_loss_ = min(self.best_loss_, loss)
             return False
-        p_val = net.predict_raw(data.X_val)
+        p_val, val_loss = net.predict_with_loss(data.X_val, data.y_val)
         score = self._score_val(p_val, data.y_val)
         self.validation_scores_.append(score)
         self.history_["val_score"].append(score)
-        self.history_["val_loss"].append(net.data_loss(data.y_val, p_val))
+        self.history_["val_loss"].append(val_loss)
         if score < self.best_validation_score_ + self.tol:
             self._no_improvement_count += 1
         else:
@@ -763,9 +763,9 @@ class _BaseNet(BaseEstimator):
 
     def _watch(self, net, watch, replace=False):
         """The held-out rows' loss (and score) for the parameters as they stand."""
-        raw = net.predict_raw(watch.X)
+        raw, loss = net.predict_with_loss(watch.X, watch.y)
         hist = self.history_
-        values = [("test_loss", float(net.data_loss(watch.y, raw)))]
+        values = [("test_loss", float(loss))]
         if watch.score is not None:
             values.append(("test_score", float(watch.score(self._output(raw)))))
         for key, value in values:

@@ -224,8 +224,24 @@ class Network:
         if group is not None and chunk == PREDICT_CHUNK:
             hit = group.predicted(self, X)
             if hit is not None:
-                return hit
+                return hit[0]
         return self.predict_raw_alone(X, chunk)
+
+    def predict_with_loss(self, X, y):
+        """``(predict_raw(X), data_loss(y, that prediction))``.
+
+        Inside :func:`workbench.nets.stacked.run_in_lockstep` the loss, too, is computed
+        for every network of the stack at once right after their stacked epoch (the
+        same targets, the same values: the single call's value, see
+        ``Loss.stacked_value``)."""
+        group = getattr(LOCKSTEP, "group", None)
+        if group is not None:
+            hit = group.predicted(self, X, y)
+            if hit is not None:
+                prediction, loss = hit
+                return prediction, self.data_loss(y, prediction) if loss is None else loss
+        prediction = self.predict_raw_alone(X)
+        return prediction, self.data_loss(y, prediction)
 
     def predict_raw_alone(self, X, chunk=PREDICT_CHUNK):
         """:meth:`predict_raw` for this network alone."""

@@ -29,6 +29,7 @@ from __future__ import annotations
 
 import threading
 from collections import deque
+from typing import NamedTuple
 
 import numpy as np
 
@@ -306,17 +307,20 @@ class _Lockstep:
         self.rounds = 0
         self.stacked_epochs = 0
         self.single_epochs = 0
-        # repeated predictions (Network.predict_raw) each member asks for every epoch:
-        # member -> the rows (at most two arrays: held-out rows, validation rows), and
-        # member -> {id(rows): (rows, net, parameters, predictions)} computed in the stack
+        # repeated predictions (Network.predict_raw) each member asks for every epoch, and
+        # the loss of their targets (Network.predict_with_loss): member -> [rows, targets
+        # or None] (at most two: held-out rows, validation rows), and member ->
+        # {id(rows): _Prefetched} computed in the stack
         self._watched: dict[int, list] = {}
         self._training: set[int] = set()  # members that have handed in an epoch
         self._prefetched: dict[int, dict] = {}
         self._inputs: dict[tuple, tuple] = {}
+        self._targets: dict[tuple, tuple] = {}
         # per stack: the (K, rows, width) arrays its members' epoch rows and targets are
         # copied into every round, kept from one round to the next
         self._epoch_inputs: dict[tuple, list] = {}
         self.predictions_stacked = 0
+        self.losses_stacked = 0
 
     def start(self, members: int):
         """Line the members up and give the first one the baton."""
@@ -342,49 +346,75 @@ class _Lockstep:
         self._training.discard(me)
         self._pass(me, wait=False)
 
-    def predicted(self, net, X):
+    def predicted(self, net, X, y=None):
         """The member's prediction of ``X`` computed in its stack after the last epoch, if
-        its network's parameters are still those it was computed with; else None (the
-        caller computes it alone), and ``X`` is noted for the next epochs when the member
-        is training (rows of the network's float type, at most two arrays per member)."""
+        its network's parameters are still those it was computed with, and with ``y``
+        the loss of that prediction against ``y`` when the stack computed it too (the
+        same targets, same values), else None: ``(prediction, loss or None)``; None
+        when there is no prediction (the caller computes it alone). ``X`` (and ``y``)
+        are noted for the next epochs when the member is training (rows of the
+        network's float type, at most two arrays per member)."""
         me = getattr(LOCKSTEP, "member", None)
         got = self._prefetched.get(me)
+        hit = None
         if got:
             entry = got.pop(id(X), None)
-            # the same rows (same array, same values as when the stack copied them) and
+            # the same rows (same array, same bytes as when the stack copied them) and
             # the same parameters: the prediction the network would make alone
-            if entry is not None and entry[0] is X and entry[1] is net \
-                    and np.array_equal(entry[2], net.theta) and np.array_equal(entry[4], X):
-                return entry[3]
+            if entry is not None and entry.X is X and entry.net is net \
+                    and _same_bits(entry.theta, net.theta) and _same_bits(entry.rows, X):
+                loss = None
+                if entry.loss is not None and isinstance(y, np.ndarray) \
+                        and _same_bits(entry.targets, y):
+                    loss = entry.loss  # these targets' loss (the same values), from the stack
+                hit = (entry.prediction, loss)
         if me in self._training and isinstance(X, np.ndarray) and X.ndim == 2 \
                 and X.dtype == net.dtype and X.flags.c_contiguous:
             watched = self._watched.setdefault(me, [])
-            if len(watched) < 2 and not any(w is X for w in watched):
-                watched.append(X)
-        return None
+            slot = next((w for w in watched if w[0] is X), None)
+            if slot is None and len(watched) < 2:
+                slot = [X, None]
+                watched.append(slot)
+            if slot is not None and y is not None and slot[1] is not y:
+                fits = isinstance(y, np.ndarray) and y.ndim == 2 and y.dtype == X.dtype \
+                    and y.flags.c_contiguous and y.shape[0] == X.shape[0] \
+                    and y.shape[1] == net.units[-1]
+                slot[1] = y if fits else None
+        return hit
 
     def _prefetch(self, stack, members, nets):
-        """Predict every member's watched rows in the stack (see :meth:`predicted`)."""
+        """Predict every member's watched rows in the stack, and the loss of each member's
+        targets for them (see :meth:`predicted`)."""
         lists = [self._watched.get(m, []) for m in members]
         for m in members:
             self._prefetched[m] = {}
         n = len(lists[0])
         if n == 0 or any(len(rows) != n for rows in lists):
             return
+        theta = None
         for slot in range(n):
-            arrays = [rows[slot] for rows in lists]
+            arrays = [rows[slot][0] for rows in lists]
             shape = arrays[0].shape
             if shape[0] == 0 or any(a.shape != shape for a in arrays):
                 continue
             key = (slot, tuple(members))
-            kept = self._inputs.get(key)
-            if kept is None or any(a is not b or not np.array_equal(a, c)
-                                   for a, b, c in zip(arrays, kept[0], kept[1])):
-                kept = self._inputs[key] = (arrays, np.stack(arrays))
+            kept = _kept_stack(self._inputs, key, arrays)
             predictions = stack.predict_raw(kept[1])
+            # the targets' losses, when every member has targets of one shape: the loss
+            # of each member's prediction alone (Loss.stacked_value, bit for bit)
+            targets = [rows[slot][1] for rows in lists]
+            losses = [None] * len(members)
+            kept_y = None
+            if all(t is not None and t.shape == targets[0].shape for t in targets):
+                kept_y = _kept_stack(self._targets, key, targets)
+                losses = stack.template.head.loss_fn.stacked_value(kept_y[1], predictions)
+                self.losses_stacked += len(members)
+            if theta is None:
+                theta = stack.theta.copy()  # each member's parameters after the epoch
             for j, (m, net, X) in enumerate(zip(members, nets, arrays)):
-                self._prefetched[m][id(X)] = (X, net, net.theta.copy(), predictions[j],
-                                              kept[1][j])
+                self._prefetched[m][id(X)] = _Prefetched(
+                    X, net, theta[j], predictions[j], kept[1][j],
+                    None if kept_y is None else kept_y[1][j], losses[j])
             self.predictions_stacked += len(members)
 
     def _pass(self, me: int, wait: bool):
@@ -444,6 +474,41 @@ class _Lockstep:
         self._waiting.extend(sorted(pending))
 
 
+class _Prefetched(NamedTuple):
+    """A member's prediction of rows it watches, made in its stack after an epoch."""
+
+    X: np.ndarray  # the member's rows (the array it asks with)
+    net: Network
+    theta: np.ndarray  # the network's parameters the prediction is of
+    prediction: np.ndarray
+    rows: np.ndarray  # the stack's copy of X's values
+    targets: np.ndarray | None  # the stack's copy of the member's targets of the rows
+    loss: float | None  # the loss of the prediction against them (Loss.value's)
+
+
+def _same_bits(a: np.ndarray, b: np.ndarray) -> bool:
+    """Whether two arrays hold the same values bit for bit (same shape and dtype): what a
+    computation on one gives, it gives on the other. Stricter than ``numpy.array_equal``
+    (which calls -0.0 and 0.0 equal) and, for a network's parameters, a fifth of its time;
+    large arrays are compared as unsigned integers of the same width, without copies."""
+    if a.shape != b.shape or a.dtype != b.dtype:
+        return False
+    if a.nbytes <= 1 << 16 or a.dtype.itemsize not in (1, 2, 4, 8):
+        return a.tobytes() == b.tobytes()
+    bits = np.dtype(f"u{a.dtype.itemsize}")
+    return bool(np.equal(a.view(bits), b.view(bits)).all())
+
+
+def _kept_stack(store: dict, key, arrays) -> tuple:
+    """``(arrays, numpy.stack(arrays))``, kept in ``store[key]`` from round to round while
+    the arrays are the same objects with the same values (else stacked anew)."""
+    kept = store.get(key)
+    if kept is None or any(a is not b or not _same_bits(a, c)
+                           for a, b, c in zip(arrays, kept[0], kept[1])):
+        kept = store[key] = (arrays, np.stack(arrays))
+    return kept
+
+
 def _stack_into(kept: list, slot: int, arrays) -> np.ndarray:
     """``numpy.stack(arrays)``, written into ``kept[slot]`` when that array from an earlier
     round has the shape and dtype (else a new one, kept there). The same values; but an
@@ -482,7 +547,9 @@ def run_in_lockstep(functions) -> tuple[list, dict]:
     results : list
     counts : dict
         ``rounds`` (lockstep rounds), ``stacked_epochs`` (network epochs run in a
-        stack of two or more) and ``single_epochs`` (run alone).
+        stack of two or more), ``single_epochs`` (run alone), ``predictions_stacked``
+        (watched rows predicted in a stack, per network) and ``losses_stacked`` (the
+        loss of their targets computed there too).
     """
     functions = list(functions)
     group = _Lockstep(len(functions))
@@ -513,4 +580,5 @@ def run_in_lockstep(functions) -> tuple[list, dict]:
             raise exc
     return results, {"rounds": group.rounds, "stacked_epochs": group.stacked_epochs,
                      "single_epochs": group.single_epochs,
-                     "predictions_stacked": group.predictions_stacked}
+                     "predictions_stacked": group.predictions_stacked,
+                     "losses_stacked": group.losses_stacked}
