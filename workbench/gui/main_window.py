@@ -12,6 +12,7 @@ All work happens off the GUI thread: loading and profiling through
 
 from __future__ import annotations
 
+import sys
 import time
 from pathlib import Path
 
@@ -66,10 +67,11 @@ from workbench.gui.models import (
     ResultsProxy,
     fmt_prob,
 )
-from workbench.gui.plot_area import NEXT_TURN_MS, PlotArea
+from workbench.gui.plot_area import PlotArea
 from workbench.gui.settings import Settings
 from workbench.gui.setup_pane import SetupPane
 from workbench.gui.tasks import run_task
+from workbench.gui.turns import after_paint
 from workbench.gui.verdict_strip import VerdictStrip
 from workbench.gui.widgets import Banner, ElidedLabel, WrappingLabel
 from workbench.sweep.defaults import WINDOW_DEFAULTS as DEFAULTS
@@ -87,6 +89,14 @@ SWEEP_MODULES = ("workbench.sweep.runner", "workbench.sweep.trials",
                  "workbench.data.preprocessing", "joblib", "sklearn.dummy",
                  "sklearn.discriminant_analysis")
 WARM_UP_DELAY_MS = 0
+#: how often (seconds) Python hands the interpreter lock from one thread of the window's
+#: process to another (``sys.setswitchinterval``; Python's default is 0.005). The sweep's
+#: own thread (:mod:`workbench.gui.bridge`: storing trials, racing, reading the table at
+#: the start) runs Python beside the event loop, and every call from Qt into the window's
+#: Python code (a paint, a model's ``data``) waits for the lock: a paint that makes dozens
+#: of such calls waited up to 5 ms for each (measured at a sweep's start: 93 ms of wall
+#: time for 14 ms of the event loop's own CPU). 1 ms keeps those waits short.
+GIL_SWITCH_SECONDS = 0.001
 #: least milliseconds between two updates of the results from a running sweep's rankings
 #: (a ranking that arrives sooner waits, and only the newest waiting one is shown)
 RANKED_INTERVAL_MS = 250
@@ -259,6 +269,11 @@ class MainWindow(QMainWindow):
         # imported by the sweep's thread when Run is pressed, they held the interpreter
         # (and the window's event loop) for hundreds of milliseconds as the sweep started
         QTimer.singleShot(WARM_UP_DELAY_MS, self._warm_up)
+        if sys.getswitchinterval() > GIL_SWITCH_SECONDS:
+            sys.setswitchinterval(GIL_SWITCH_SECONDS)
+        # the plots' items, made while the window is idle (one panel per turn): made at the
+        # first drawing, at the end of the first sweep, they lengthened that turn
+        self.plot_area.prepare_later()
 
     @staticmethod
     def _warm_up() -> None:
@@ -1044,7 +1059,7 @@ class MainWindow(QMainWindow):
             # during a sweep the verdict, what matters and the candidates follow on the
             # event loop's next turn: the table and they, updated and painted in one turn,
             # held the loop for 50-60 ms; each alone is painted in about half that
-            QTimer.singleShot(NEXT_TURN_MS, self._show_latest_judgement)
+            after_paint(self, self._show_latest_judgement)
         else:
             self._show_judgement(self.results_meta)
 
@@ -1099,7 +1114,7 @@ class MainWindow(QMainWindow):
         # the rest on the event loop's next turn: the last ranking shown (above) and the
         # first row's plots drawn (below) in one go held the loop ~140 ms; sweepEnded still
         # comes after both
-        QTimer.singleShot(NEXT_TURN_MS, lambda: self._sweep_done_rest(summary))
+        after_paint(self, lambda: self._sweep_done_rest(summary))
 
     def _sweep_done_rest(self, summary: dict) -> None:
         """The end of a sweep, second part: columns fitted, the best row shown, then

@@ -20,7 +20,8 @@ from __future__ import annotations
 
 import html
 
-from PySide6.QtCore import QEvent, Qt, QTimer, Signal
+import shiboken6
+from PySide6.QtCore import QEvent, Qt, Signal
 from PySide6.QtWidgets import (
     QFrame,
     QLabel,
@@ -35,12 +36,7 @@ from PySide6.QtWidgets import (
 from workbench.gui import theme as th
 from workbench.gui.calibration_panel import CalibrationPanel
 from workbench.gui.plots import CurvesPanel, HealthPanel, SpreadPanel
-
-#: the delay of a staged panel (ms): a timer, not a zero-delay call. A zero-delay call is
-#: a posted event, and events posted while posted events are delivered can be delivered
-#: in the same pass: two panels then shared one turn of the event loop (measured). A timer
-#: fires after the pass, the paint of the panel before it and the other timers due.
-NEXT_TURN_MS = 1
+from workbench.gui.turns import after_paint
 
 
 def _order(rows: list[dict]) -> list[dict]:
@@ -160,6 +156,20 @@ class PlotArea(QWidget):
     def panels(self):
         return [self.curves, self.spread, self.health, self.calibration]
 
+    #: how many selected rows' plot items :meth:`prepare_later` makes in advance
+    PREPARED_SERIES = 2
+
+    def prepare_later(self) -> None:
+        """Make the plot items of :data:`PREPARED_SERIES` rows in advance, one panel per
+        turn of the event loop (:meth:`workbench.gui.plots._Panel.prepare`)."""
+        panels = [p for p in self.panels() if hasattr(p, "prepare")]
+
+        def step(i=0):
+            if i < len(panels) and shiboken6.isValid(panels[i]):
+                panels[i].prepare(self.PREPARED_SERIES)
+                after_paint(self, lambda: step(i + 1))
+        after_paint(self, step)
+
     def series(self) -> list[dict]:
         """The series now shown, in rank order."""
         return list(self._series)
@@ -211,7 +221,7 @@ class PlotArea(QWidget):
             return
         steps[0]()
         if len(steps) > 1:
-            QTimer.singleShot(NEXT_TURN_MS, self, lambda: self._staged(stage, steps[1:]))
+            after_paint(self, lambda: self._staged(stage, steps[1:]))
         else:
             then, self._then = self._then, None
             if then is not None:
