@@ -82,6 +82,8 @@ def test_a_stacked_group_gives_each_trials_own_results(monkeypatch, table, targe
     alone = [T.run_trial(data, dict(s)) for s in specs]
     assert counting.counts and counting.counts[0]["stacked_epochs"] > 0  # it did stack
     assert counting.counts[0]["predictions_stacked"] > 0  # and predicted held-out rows
+    assert counting.counts[0]["losses_stacked"] > 0  # with their losses
+    assert counting.counts[0]["health_stacked"] > 0  # and measured layer health
     assert all(r["status"] == "done" for r in alone), [r["error"] for r in alone]
     assert all(r["history"]["test_score"] for r in alone)
     for a, b in zip(together, alone):

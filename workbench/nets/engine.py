@@ -271,14 +271,16 @@ def _epoch_rows(X, rows, y, dtype, shuffle, random_state):
         yield X_epoch, y_epoch
 
 
-def _run_epoch(net, optimizer, X, y, batch_size, alpha):
+def _run_epoch(net, optimizer, X, y, batch_size, alpha, probe=None):
     """One pass over the rows in batches: backward pass and optimiser step per batch.
 
     Returns the epoch's loss, the row-weighted mean of the batch losses (as
     scikit-learn's MLP reports it), taken once per epoch from the kept batch
-    predictions (:meth:`workbench.nets.network.Network.train_epoch`).
+    predictions (:meth:`workbench.nets.network.Network.train_epoch`). ``probe``: the
+    health probe's rows when health is measured after this epoch (a lockstep group
+    measures it in its stack).
     """
-    return net.train_epoch(optimizer, X, y, batch_size, alpha)
+    return net.train_epoch(optimizer, X, y, batch_size, alpha, probe)
 
 
 def _constant_loss(net, y) -> float:
@@ -663,7 +665,9 @@ class _BaseNet(BaseEstimator):
         for _ in range(self.max_iter):
             started = time.perf_counter()
             X_epoch, y_epoch = next(epochs)
-            loss = _run_epoch(net, optimizer, X_epoch, y_epoch, data.batch_size, alpha)
+            probe = (data.probe_X, data.probe_y) if self.monitor_health and health_due(
+                len(self.history_["loss"]) + 1) else None
+            loss = _run_epoch(net, optimizer, X_epoch, y_epoch, data.batch_size, alpha, probe)
             self.n_iter_ += 1
             self.loss_ = loss
             self.t_ += data.y.shape[0]

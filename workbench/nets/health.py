@@ -21,7 +21,7 @@ from __future__ import annotations
 import numpy as np
 
 from workbench.nets import activations as act
-from workbench.nets.network import Network, with_ones
+from workbench.nets.network import LOCKSTEP, Network, with_ones
 
 #: a derivative below this counts as "flat" when measuring saturation (the value the
 #: engine's specification, issue 2, sets)
@@ -51,7 +51,18 @@ def measure(net: Network, X_ones, y):
         One norm per layer, the output layer included.
 
     Overwrites ``net.grad`` (training recomputes it on the next batch).
+
+    Inside :func:`workbench.nets.stacked.run_in_lockstep`, when the fit announced the
+    probe with its epoch (``Network.train_epoch(..., probe=)``), the health of every
+    network of the stack was measured there at once, with the same arithmetic on each
+    network's slice (``NetworkStack.measure_health``); it is handed out for the same
+    rows, targets and parameters.
     """
+    group = getattr(LOCKSTEP, "group", None)
+    if group is not None:
+        hit = group.measured(net, X_ones, y)
+        if hit is not None:
+            return hit
     rows = X_ones.shape[0]
     net.data_gradient(X_ones, y, rows)
     grad_norm = [float(np.linalg.norm(g)) for g in net.weight_grads]

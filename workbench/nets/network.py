@@ -337,7 +337,7 @@ class Network:
             buf = self._epoch_pred = np.empty((n, self.units[-1]), dtype=self.dtype)
         return buf[:n]
 
-    def train_epoch(self, optimizer, X_ones, y, batch_size, alpha):
+    def train_epoch(self, optimizer, X_ones, y, batch_size, alpha, probe=None):
         """One pass over the rows in batches of ``batch_size``: forward, backward and
         ``optimizer.update`` per batch; returns the epoch's loss.
 
@@ -354,11 +354,14 @@ class Network:
 
         Inside :func:`workbench.nets.stacked.run_in_lockstep` the epoch is handed to
         the thread's lockstep group, which runs it in a stack with the other fits'
-        epochs and returns the same result.
+        epochs and returns the same result. ``probe``: the rows ``(X_ones, y)`` whose
+        layer health (:func:`workbench.nets.health.measure`) the caller measures right
+        after this epoch, if it does; the group then measures it in the stack, with the
+        same results. Alone it is not used.
         """
         group = getattr(LOCKSTEP, "group", None)
         if group is not None:
-            return group.submit(self, optimizer, X_ones, y, batch_size, alpha)
+            return group.submit(self, optimizer, X_ones, y, batch_size, alpha, probe)
         return self.train_epoch_alone(optimizer, X_ones, y, batch_size, alpha)
 
     def train_epoch_alone(self, optimizer, X_ones, y, batch_size, alpha):

@@ -33,6 +33,7 @@ from typing import NamedTuple
 
 import numpy as np
 
+from workbench.nets.health import SATURATION_THRESHOLD
 from workbench.nets.network import LOCKSTEP, PREDICT_CHUNK, Network
 from workbench.nets.optimizers import AdamOptimizer, SGDOptimizer
 
@@ -89,19 +90,27 @@ class NetworkStack:
             self.blocks.append(self.theta[:, start:stop].reshape(k, *shape))
             self.grad_blocks.append(self.grad[:, start:stop].reshape(k, *shape))
         # work buffers shaped as the network's (Network.ensure), one per network
+        self._outputs, self._pres, self._deltas, self._scratch = self._work_buffers(batch_size)
+        self._pred = None
+        self._probe_views: dict[int, list] = {}
+
+    def _work_buffers(self, rows):
+        """Per layer: outputs (with the ones column of a hidden layer), pre-activations
+        (where needed), deltas and scratch, ``(K, rows, width)``, as ``Network.ensure``."""
+        net, k, dtype = self.template, self.k, self.template.dtype
         n_hidden = len(net.hidden)
-        self._outputs, self._pres, self._deltas, self._scratch = [], [], [], []
+        outputs, pres, deltas, scratch = [], [], [], []
         for i, width in enumerate(net.units[1:]):
             hidden = i < n_hidden
-            output = np.empty((k, batch_size, width + 1 if hidden else width), dtype=dtype)
+            output = np.empty((k, rows, width + 1 if hidden else width), dtype=dtype)
             if hidden:
                 output[:, :, width] = 1
             needs_pre = net.hidden[i].needs_z if hidden else not net.head.canonical
-            self._outputs.append(output)
-            self._pres.append(np.empty_like(output) if needs_pre else None)
-            self._deltas.append(np.empty_like(output))
-            self._scratch.append(np.empty_like(output) if hidden else None)
-        self._pred = None
+            outputs.append(output)
+            pres.append(np.empty_like(output) if needs_pre else None)
+            deltas.append(np.empty_like(output))
+            scratch.append(np.empty_like(output) if hidden else None)
+        return outputs, pres, deltas, scratch
 
     # -- state in and out ---------------------------------------------------------
     def _gather(self, nets, optimizers):
@@ -176,7 +185,6 @@ class NetworkStack:
                              "stack_key")
         opt = self._gather(nets, optimizers)
         template, head = self.template, self.template.head
-        layers = template.layers
         if self._pred is None or self._pred.shape[1] < n:
             self._pred = np.empty((k, n, template.units[-1]), dtype=template.dtype)
         predictions = self._pred[:, :n]
@@ -185,50 +193,14 @@ class NetworkStack:
         mask = template._mask_for(alpha) if alpha else None
         squares = [0.0] * k
         views_by_rows = {}
-        last = len(layers) - 1
         for start in range(0, n, batch_size):
             stop = min(start + batch_size, n)
             rows = stop - start
             views = views_by_rows.get(rows)
             if views is None:
                 views = views_by_rows[rows] = self._views(rows)
-            X_batch, y_batch = X[:, start:stop], y[:, start:stop]
-            # forward (Network.forward)
-            below = X_batch
-            for i, layer in enumerate(layers):
-                output_ones, pre, _, _ = views[i]
-                activation = layer.activation
-                if activation is None:
-                    top = predictions[:, start:stop]
-                    np.matmul(below, self.blocks[i], out=top)
-                    if pre is not None:
-                        np.copyto(pre, top)
-                    head.apply_(top)
-                    break
-                np.matmul(below, self.blocks[i], out=output_ones[..., :-1])
-                if pre is not None:
-                    np.copyto(pre, output_ones)
-                activation.apply_(output_ones, **layer.params)
-                if not activation.keeps_one:
-                    output_ones[..., -1] = 1
-                below = output_ones
-            # backward (Network._backpropagate)
-            _, top_pre, top_delta, _ = views[last]
-            delta = head.output_delta(y_batch, top, top_pre, top_delta)
-            for i in range(last, -1, -1):
-                below = X_batch if i == 0 else views[i - 1][0]
-                np.matmul(below.transpose(0, 2, 1), delta, out=self.grad_blocks[i])
-                if i == 0:
-                    break
-                output_ones, pre, delta_ones, scratch = views[i - 1]
-                block = self.blocks[i]
-                for j in range(k):
-                    np.dot(delta[j], block[j].T, out=delta_ones[j])
-                under = layers[i - 1]
-                slope = under.activation.derivative(pre, output_ones, out=scratch,
-                                                    **under.params)
-                np.multiply(delta_ones, slope, out=delta_ones)
-                delta = delta_ones[..., :-1]
+            self._forward_backward(X[:, start:stop], y[:, start:stop], views,
+                                   predictions[:, start:stop])
             if alpha:
                 np.multiply(theta, mask, out=l2_buf)
                 for j in range(k):
@@ -243,6 +215,94 @@ class NetworkStack:
             losses = [loss + 0.5 * squares[j] / n for j, loss in enumerate(losses)]
         return losses
 
+    def _forward_backward(self, X_batch, y_batch, views, top):
+        """The forward pass (:meth:`Network.forward`) of a batch, its predictions into
+        ``top``, and the backward pass (:meth:`Network._backpropagate`): the data loss's
+        gradient, summed over the batch's rows, into the stack's gradients."""
+        template, head = self.template, self.template.head
+        layers = template.layers
+        last = len(layers) - 1
+        # forward (Network.forward)
+        below = X_batch
+        for i, layer in enumerate(layers):
+            output_ones, pre, _, _ = views[i]
+            activation = layer.activation
+            if activation is None:
+                np.matmul(below, self.blocks[i], out=top)
+                if pre is not None:
+                    np.copyto(pre, top)
+                head.apply_(top)
+                break
+            np.matmul(below, self.blocks[i], out=output_ones[..., :-1])
+            if pre is not None:
+                np.copyto(pre, output_ones)
+            activation.apply_(output_ones, **layer.params)
+            if not activation.keeps_one:
+                output_ones[..., -1] = 1
+            below = output_ones
+        # backward (Network._backpropagate)
+        _, top_pre, top_delta, _ = views[last]
+        delta = head.output_delta(y_batch, top, top_pre, top_delta)
+        for i in range(last, -1, -1):
+            below = X_batch if i == 0 else views[i - 1][0]
+            np.matmul(below.transpose(0, 2, 1), delta, out=self.grad_blocks[i])
+            if i == 0:
+                break
+            output_ones, pre, delta_ones, scratch = views[i - 1]
+            block = self.blocks[i]
+            for j in range(self.k):
+                np.dot(delta[j], block[j].T, out=delta_ones[j])
+            under = layers[i - 1]
+            slope = under.activation.derivative(pre, output_ones, out=scratch, **under.params)
+            np.multiply(delta_ones, slope, out=delta_ones)
+            delta = delta_ones[..., :-1]
+
+    def measure_health(self, X_ones, y) -> list[tuple]:
+        """Each network's :func:`workbench.nets.health.measure` on its own probe rows, from
+        the stack's parameters (as the last :meth:`train_epoch` left them): ``K`` tuples
+        ``(dead, saturated, grad_norm)``, and the probe's mean gradients in
+        :attr:`grad` (what ``measure`` leaves in ``net.grad``).
+
+        ``X_ones`` is ``(K, rows, n_features + 1)``, ``y`` ``(K, rows, n_outputs)``. The
+        same arithmetic on each network's slice as ``measure``: the stacked forward and
+        backward pass of :meth:`train_epoch`, the division by ``rows`` element by
+        element, each gradient norm by ``numpy.linalg.norm`` on the network's own block;
+        the dead and saturated shares are counts of units and rows (sums of 0s and 1s,
+        exact in any order) divided as ``measure`` divides them.
+        """
+        template = self.template
+        rows = X_ones.shape[1]
+        views = self._probe_views.get(rows)
+        if views is None:
+            buffers = self._work_buffers(rows)
+            views = self._probe_views[rows] = [
+                (out, pre, delta, scratch) for out, pre, delta, scratch in zip(*buffers)]
+        top = views[-1][0]
+        self._forward_backward(X_ones, y, views, top)
+        self.grad /= rows
+        norms = [[float(np.linalg.norm(block[j, :layer.weights.shape[0]]))
+                  for block, layer in zip(self.grad_blocks, template.layers)]
+                 for j in range(self.k)]
+        dead = [[] for _ in range(self.k)]
+        saturated = [[] for _ in range(self.k)]
+        tiny = np.finfo(template.dtype).tiny * 1e6
+        for layer, (out, pre, _, _) in zip(template.layers, views):
+            activation = layer.activation
+            if activation is None:
+                break
+            slope = np.abs(activation.derivative(None if pre is None else pre[..., :-1],
+                                                 out[..., :-1], **layer.params))
+            dead_units = np.all(slope <= tiny, axis=1)
+            dead_share = dead_units.mean(axis=1)
+            if activation.saturates:
+                flat = (slope < SATURATION_THRESHOLD).mean(axis=1) > 0.5
+                saturated_share = (flat & ~dead_units).mean(axis=1)
+            else:
+                saturated_share = np.zeros(self.k)
+            for j in range(self.k):
+                dead[j].append(float(dead_share[j]))
+                saturated[j].append(float(saturated_share[j]))
+        return [(dead[j], saturated[j], norms[j]) for j in range(self.k)]
 
     def predict_raw(self, X, chunk: int = PREDICT_CHUNK) -> np.ndarray:
         """Each network's :meth:`workbench.nets.network.Network.predict_raw` of its own rows,
@@ -316,6 +376,11 @@ class _Lockstep:
         self._prefetched: dict[int, dict] = {}
         self._inputs: dict[tuple, tuple] = {}
         self._targets: dict[tuple, tuple] = {}
+        # layer health a member announced it measures after its epoch (its probe rows),
+        # measured in the stack: member -> _Measured
+        self._measured: dict[int, _Measured] = {}
+        self._probes: dict[tuple, tuple] = {}
+        self.health_stacked = 0
         # per stack: the (K, rows, width) arrays its members' epoch rows and targets are
         # copied into every round, kept from one round to the next
         self._epoch_inputs: dict[tuple, list] = {}
@@ -330,10 +395,10 @@ class _Lockstep:
     def wait_turn(self, me: int):
         self._baton[me].acquire()
 
-    def submit(self, net, optimizer, X, y, batch_size, alpha):
+    def submit(self, net, optimizer, X, y, batch_size, alpha, probe=None):
         me = LOCKSTEP.member
         self._training.add(me)
-        self._pending[me] = (net, optimizer, X, y, batch_size, alpha)
+        self._pending[me] = (net, optimizer, X, y, batch_size, alpha, probe)
         self._pass(me, wait=True)
         result = self._results.pop(me)
         if isinstance(result, BaseException):
@@ -343,6 +408,7 @@ class _Lockstep:
     def leave(self, me: int):
         self._watched.pop(me, None)
         self._prefetched.pop(me, None)
+        self._measured.pop(me, None)
         self._training.discard(me)
         self._pass(me, wait=False)
 
@@ -417,6 +483,44 @@ class _Lockstep:
                     None if kept_y is None else kept_y[1][j], losses[j])
             self.predictions_stacked += len(members)
 
+    def measured(self, net, X_ones, y):
+        """The member's layer health on the probe rows ``X_ones``, ``y`` measured in its
+        stack after the last epoch (``(dead, saturated, grad_norm)``, and the probe's
+        gradients written into ``net.grad`` as :func:`workbench.nets.health.measure`
+        leaves them), if the rows, targets and parameters are those it was measured with
+        (same values); else None (the caller measures alone)."""
+        entry = self._measured.pop(getattr(LOCKSTEP, "member", None), None)
+        if entry is None or entry.net is not net or not isinstance(X_ones, np.ndarray) \
+                or not isinstance(y, np.ndarray) or not _same_bits(entry.theta, net.theta) \
+                or not _same_bits(entry.rows, X_ones) or not _same_bits(entry.targets, y):
+            return None
+        net.grad[...] = entry.grad
+        return entry.health
+
+    def _measure(self, stack, members, nets, probes):
+        """Measure the layer health of the members that announced their probe rows (all
+        of the stack's, of one shape), in the stack (see :meth:`measured`)."""
+        for m in members:
+            self._measured.pop(m, None)
+        if any(p is None for p in probes):
+            return
+        X = [p[0] for p in probes]
+        y = [p[1] for p in probes]
+        if not all(isinstance(a, np.ndarray) and a.ndim == 2 and a.dtype == stack.theta.dtype
+                   and a.shape == X[0].shape for a in X) \
+                or not all(isinstance(a, np.ndarray) and a.ndim == 2 and a.shape == y[0].shape
+                           and a.shape[0] == X[0].shape[0] for a in y) or X[0].shape[0] == 0:
+            return
+        key = tuple(members)
+        kept_X = _kept_stack(self._probes, ("rows", key), X)
+        kept_y = _kept_stack(self._probes, ("targets", key), y)
+        health = stack.measure_health(kept_X[1], kept_y[1])
+        grad, theta = stack.grad.copy(), stack.theta.copy()
+        for j, (m, net) in enumerate(zip(members, nets)):
+            self._measured[m] = _Measured(net, theta[j], kept_X[1][j], kept_y[1][j],
+                                          health[j], grad[j])
+        self.health_stacked += len(members)
+
     def _pass(self, me: int, wait: bool):
         if not self._waiting and self._pending:
             self._run_round()
@@ -432,7 +536,7 @@ class _Lockstep:
     def _run_round(self):
         pending, self._pending = self._pending, {}
         groups: dict[tuple, list[int]] = {}
-        for member, (net, opt, X, _, batch_size, alpha) in sorted(pending.items()):
+        for member, (net, opt, X, _, batch_size, alpha, _) in sorted(pending.items()):
             try:
                 key = stack_key(net, opt, X.shape[0], batch_size, alpha)
             except ValueError:
@@ -442,7 +546,7 @@ class _Lockstep:
         for key, members in groups.items():
             try:
                 if len(members) == 1:
-                    net, opt, X, y, batch_size, alpha = pending[members[0]]
+                    net, opt, X, y, batch_size, alpha, _ = pending[members[0]]
                     self._results[members[0]] = net.train_epoch_alone(opt, X, y, batch_size,
                                                                       alpha)
                     self.single_epochs += 1
@@ -467,11 +571,27 @@ class _Lockstep:
                 except Exception:  # a prediction the stack cannot make is made alone
                     for m in members:
                         self._prefetched.pop(m, None)
+                try:
+                    self._measure(stack, members, nets, [it[6] for it in items])
+                except Exception:  # health the stack cannot measure is measured alone
+                    for m in members:
+                        self._measured.pop(m, None)
                 self.stacked_epochs += len(items)
             except Exception as exc:  # handed to each fit of the group, raised in its thread
                 for member in members:
                     self._results[member] = exc
         self._waiting.extend(sorted(pending))
+
+
+class _Measured(NamedTuple):
+    """A member's layer health on its probe rows, measured in its stack after an epoch."""
+
+    net: Network
+    theta: np.ndarray  # the parameters it was measured with
+    rows: np.ndarray  # the stack's copy of the probe rows (with the ones column)
+    targets: np.ndarray  # ... and of their targets
+    health: tuple  # (dead, saturated, grad_norm), as health.measure returns them
+    grad: np.ndarray  # the probe's mean gradient (what measure leaves in net.grad)
 
 
 class _Prefetched(NamedTuple):
@@ -548,8 +668,9 @@ def run_in_lockstep(functions) -> tuple[list, dict]:
     counts : dict
         ``rounds`` (lockstep rounds), ``stacked_epochs`` (network epochs run in a
         stack of two or more), ``single_epochs`` (run alone), ``predictions_stacked``
-        (watched rows predicted in a stack, per network) and ``losses_stacked`` (the
-        loss of their targets computed there too).
+        (watched rows predicted in a stack, per network), ``losses_stacked`` (the
+        loss of their targets computed there too) and ``health_stacked`` (layer health
+        measured there, per network).
     """
     functions = list(functions)
     group = _Lockstep(len(functions))
@@ -581,4 +702,5 @@ def run_in_lockstep(functions) -> tuple[list, dict]:
     return results, {"rounds": group.rounds, "stacked_epochs": group.stacked_epochs,
                      "single_epochs": group.single_epochs,
                      "predictions_stacked": group.predictions_stacked,
-                     "losses_stacked": group.losses_stacked}
+                     "losses_stacked": group.losses_stacked,
+                     "health_stacked": group.health_stacked}
