@@ -378,7 +378,10 @@ def test_a_window_run_shows_every_column_and_an_unclipped_verdict_at_1280x800(qt
     hh = view.horizontalHeader()
     width = view.viewport().width()
     shown = [i for i in range(len(COLUMN_KEYS)) if not view.isColumnHidden(i)]
-    assert [COLUMN_KEYS[i] for i in shown] == list(COLUMN_KEYS)  # LR and L2 both vary
+    # LR and L2 both vary; every configuration ran its 2 trials: the note says so, and the
+    # Trials column gives its room to the numbers
+    assert [COLUMN_KEYS[i] for i in shown] == [k for k in COLUMN_KEYS if k != "trials"]
+    assert "all: 2/2 trials" in win.results_note.text()
     for i in shown:
         left = hh.sectionViewportPosition(i)
         assert 0 <= left and left + hh.sectionSize(i) <= width, COLUMN_KEYS[i]
@@ -444,3 +447,56 @@ def test_a_verdict_with_every_warning_is_shown_whole_at_1280x800(qtbot, tmp_path
     reopen(qtbot, win, res["sweep_id"])
     assert_view_shows_verdict(win.verdict.text(), res, skip=("factors",))
     assert_strip_whole(qtbot, win)
+
+
+def _wide_rows(n: int = 30, done: int = 10) -> list[dict]:
+    """Rows as wide as a default kiln sweep's (the widest names and numbers seen at
+    1280 x 800: leaky_relu, softmax, a learning rate of 0.0055, a bold best mean)."""
+    rows = []
+    for i in range(n):
+        rows.append({
+            "key": f"w:{i}", "index": i, "rank": i + 1, "hidden": ("leaky_relu", "relu")[i % 2],
+            "head": ("softmax", "logistic")[i % 2], "layers": "32",
+            "learning_rate": (0.0055, 0.03, 0.00017)[i % 3], "alpha": 0.0001,
+            "mean": 0.9604 - 0.001 * i, "sd": 0.0087 + 0.0001 * i, "p_value": 0.811,
+            "decision": ("best" if i == 0 else ("equivalent", "undecided", "worse")[i % 3]),
+            "tied_with_best": i % 4 == 0, "gap": 0.0334, "epochs": 100,
+            "fit_seconds": 0.18, "dead_pct": 12.5, "saturated_pct": 0.0, "engine": "numpy",
+            "status": "done", "n_done": done - (i % 2 if done < 10 else 0), "n_total": 10,
+            "message": "", "series": {}})
+    return rows
+
+
+@pytest.mark.parametrize("done, width", [(10, 1280), (4, 1280), (4, 1160)])
+def test_at_1280x800_numbers_are_never_cut_short_words_give_way_first(qtbot, tmp_path, done,
+                                                                        width):
+    """Every shown column inside the table at 1280 x 800 with rows as wide as a default
+    kiln sweep's, and every column of numbers at least as wide as its widest cell (the
+    view's own measure, sizeHintForColumn): a cut number ("0.00…") says nothing, while a
+    cut name ("softm…") still reads. With every trial run (done=10) the Trials column is
+    hidden and the note says how many; with racing's partial rows (done=4) it shows. A
+    narrower window (1160 px) squeezes the names and decisions, not the numbers."""
+    from workbench.gui.main_window import TEXT_COLUMNS
+
+    win = make_window(qtbot, tmp_path, tmp_path / "s.sqlite")
+    win.resize(width, 800)
+    qtbot.waitUntil(lambda: win.width() == width, timeout=5_000)
+    tabs = win.tabs
+    tabs.setCurrentIndex(next(i for i in range(tabs.count())
+                              if tabs.widget(i).objectName() == "resultsTab"))
+    qtbot.waitUntil(lambda: win.results_view.isVisible(), timeout=5_000)
+    qtbot.wait(50)  # laid out at its width
+    rows = _wide_rows(done=done)
+    win._on_ranked({"meta": {"rope": 0.01}, "rows": rows})
+    win._fit_columns()
+    view = win.results_view
+    hh = view.horizontalHeader()
+    shown = [i for i in range(len(COLUMN_KEYS)) if not view.isColumnHidden(i)]
+    assert ("trials" in [COLUMN_KEYS[i] for i in shown]) == (done < 10)
+    assert ("10/10 trials" in win.results_note.text()) == (done == 10)
+    assert view.horizontalScrollBar().maximum() == 0
+    for i in shown:
+        left = hh.sectionViewportPosition(i)
+        assert 0 <= left and left + hh.sectionSize(i) <= view.viewport().width(), COLUMN_KEYS[i]
+        if COLUMN_KEYS[i] not in TEXT_COLUMNS and i != shown[-1]:
+            assert hh.sectionSize(i) >= view.sizeHintForColumn(i) - 1, COLUMN_KEYS[i]
