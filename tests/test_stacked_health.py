@@ -100,7 +100,11 @@ def test_lockstep_health_follows_changed_probe_rows_targets_and_parameters():
                 if epoch == 6:
                     net.theta[1] += 0.1  # ... the parameters
                 twin = _clone(net)
+                group = S.LOCKSTEP.__dict__.get("group")
+                before = group.handed_out if group else 0
                 got = health.measure(net, P, Py)  # first: the stack's, if handed out
+                if group and epoch >= 7:  # after the last change: from the stack again
+                    assert group.handed_out == before + 1
                 want = health.measure(twin, P, Py)  # a network the stack does not hold
                 assert got == want
                 np.testing.assert_array_equal(net.grad, twin.grad)

@@ -264,11 +264,15 @@ def test_lockstep_losses_follow_changed_targets_rows_and_parameters(head_name, t
                 if step == 5:
                     net.theta[0] += 0.1  # the parameters changed after the epoch
 
-            for epoch in range(12):
+            group = S.LOCKSTEP.__dict__.get("group")
+            for epoch in range(14):
                 net.train_epoch(opt, with_ones(X), y, 10, 1e-3)
                 change(epoch - 5)  # between the stack's prediction and the member's call
+                before = group.handed_out if group else 0
                 p, loss = net.predict_with_loss(held, y_held)
                 assert loss == net.data_loss(y_held, net.predict_raw_alone(held))
+                if group and epoch >= 12:  # after the last change: from the stack again
+                    assert group.handed_out == before + 2  # the prediction and its loss
                 out.append((p.copy(), loss))
                 change(epoch)  # between the member's call and the next epoch
                 out.append(net.predict_with_loss(held, y_held)[1])
@@ -277,7 +281,7 @@ def test_lockstep_losses_follow_changed_targets_rows_and_parameters(head_name, t
 
     alone = [job(i)() for i in range(3)]
     together, counts = S.run_in_lockstep([job(i) for i in range(3)])
-    assert counts["stacked_epochs"] == 36 and counts["losses_stacked"] > 0
+    assert counts["stacked_epochs"] == 42 and counts["losses_stacked"] > 0
     for a, b in zip(alone, together):
         assert len(a) == len(b)
         for va, vb in zip(a, b):

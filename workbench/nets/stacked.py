@@ -386,6 +386,7 @@ class _Lockstep:
         self._epoch_inputs: dict[tuple, list] = {}
         self.predictions_stacked = 0
         self.losses_stacked = 0
+        self.handed_out = 0  # predictions, losses and health handed out from a stack
 
     def start(self, members: int):
         """Line the members up and give the first one the baton."""
@@ -428,12 +429,19 @@ class _Lockstep:
             # the same rows (same array, same bytes as when the stack copied them) and
             # the same parameters: the prediction the network would make alone
             if entry is not None and entry.X is X and entry.net is net \
-                    and _same_bits(entry.theta, net.theta) and _same_bits(entry.rows, X):
-                loss = None
-                if entry.loss is not None and isinstance(y, np.ndarray) \
-                        and _same_bits(entry.targets, y):
-                    loss = entry.loss  # these targets' loss (the same values), from the stack
-                hit = (entry.prediction, loss)
+                    and _same_bits(entry.theta, net.theta):
+                if _same_bits(entry.rows, X):
+                    loss = None
+                    if entry.loss is not None and isinstance(y, np.ndarray):
+                        if _same_bits(entry.targets, y):
+                            loss = entry.loss  # these targets' loss (same values), from the stack
+                            self.handed_out += 1
+                        else:
+                            self._targets.pop(entry.key, None)  # stacked anew next round
+                    hit = (entry.prediction, loss)
+                    self.handed_out += 1
+                else:
+                    self._inputs.pop(entry.key, None)  # the rows changed: stacked anew
         if me in self._training and isinstance(X, np.ndarray) and X.ndim == 2 \
                 and X.dtype == net.dtype and X.flags.c_contiguous:
             watched = self._watched.setdefault(me, [])
@@ -480,7 +488,7 @@ class _Lockstep:
             for j, (m, net, X) in enumerate(zip(members, nets, arrays)):
                 self._prefetched[m][id(X)] = _Prefetched(
                     X, net, theta[j], predictions[j], kept[1][j],
-                    None if kept_y is None else kept_y[1][j], losses[j])
+                    None if kept_y is None else kept_y[1][j], losses[j], key)
             self.predictions_stacked += len(members)
 
     def measured(self, net, X_ones, y):
@@ -491,10 +499,15 @@ class _Lockstep:
         (same values); else None (the caller measures alone)."""
         entry = self._measured.pop(getattr(LOCKSTEP, "member", None), None)
         if entry is None or entry.net is not net or not isinstance(X_ones, np.ndarray) \
-                or not isinstance(y, np.ndarray) or not _same_bits(entry.theta, net.theta) \
-                or not _same_bits(entry.rows, X_ones) or not _same_bits(entry.targets, y):
+                or not isinstance(y, np.ndarray) or not _same_bits(entry.theta, net.theta):
+            return None
+        if not (_same_bits(entry.rows, X_ones) and _same_bits(entry.targets, y)):
+            # the probe's rows or targets changed: stacked anew next round
+            self._probes.pop(("rows", entry.key), None)
+            self._probes.pop(("targets", entry.key), None)
             return None
         net.grad[...] = entry.grad
+        self.handed_out += 1
         return entry.health
 
     def _measure(self, stack, members, nets, probes):
@@ -518,7 +531,7 @@ class _Lockstep:
         grad, theta = stack.grad.copy(), stack.theta.copy()
         for j, (m, net) in enumerate(zip(members, nets)):
             self._measured[m] = _Measured(net, theta[j], kept_X[1][j], kept_y[1][j],
-                                          health[j], grad[j])
+                                          health[j], grad[j], key)
         self.health_stacked += len(members)
 
     def _pass(self, me: int, wait: bool):
@@ -592,6 +605,7 @@ class _Measured(NamedTuple):
     targets: np.ndarray  # ... and of their targets
     health: tuple  # (dead, saturated, grad_norm), as health.measure returns them
     grad: np.ndarray  # the probe's mean gradient (what measure leaves in net.grad)
+    key: tuple  # where the stack keeps its copies (_Lockstep._probes)
 
 
 class _Prefetched(NamedTuple):
@@ -604,6 +618,7 @@ class _Prefetched(NamedTuple):
     rows: np.ndarray  # the stack's copy of X's values
     targets: np.ndarray | None  # the stack's copy of the member's targets of the rows
     loss: float | None  # the loss of the prediction against them (Loss.value's)
+    key: tuple  # where the stack keeps its copies (_Lockstep._inputs, _targets)
 
 
 def _same_bits(a: np.ndarray, b: np.ndarray) -> bool:
@@ -621,10 +636,12 @@ def _same_bits(a: np.ndarray, b: np.ndarray) -> bool:
 
 def _kept_stack(store: dict, key, arrays) -> tuple:
     """``(arrays, numpy.stack(arrays))``, kept in ``store[key]`` from round to round while
-    the arrays are the same objects with the same values (else stacked anew)."""
+    the arrays are the same objects (else stacked anew). Their values are not compared
+    here: whatever is computed from the kept stack is handed out only after the member's
+    array is compared with its copy (:meth:`_Lockstep.predicted`, :meth:`_Lockstep.measured`),
+    which drops the kept stack when they differ, so the next round stacks them anew."""
     kept = store.get(key)
-    if kept is None or any(a is not b or not _same_bits(a, c)
-                           for a, b, c in zip(arrays, kept[0], kept[1])):
+    if kept is None or any(a is not b for a, b in zip(arrays, kept[0])):
         kept = store[key] = (arrays, np.stack(arrays))
     return kept
 
@@ -669,8 +686,9 @@ def run_in_lockstep(functions) -> tuple[list, dict]:
         ``rounds`` (lockstep rounds), ``stacked_epochs`` (network epochs run in a
         stack of two or more), ``single_epochs`` (run alone), ``predictions_stacked``
         (watched rows predicted in a stack, per network), ``losses_stacked`` (the
-        loss of their targets computed there too) and ``health_stacked`` (layer health
-        measured there, per network).
+        loss of their targets computed there too), ``health_stacked`` (layer health
+        measured there, per network) and ``handed_out`` (how many of these the fits
+        received: those whose rows, targets and parameters had not changed).
     """
     functions = list(functions)
     group = _Lockstep(len(functions))
@@ -703,4 +721,4 @@ def run_in_lockstep(functions) -> tuple[list, dict]:
                      "single_epochs": group.single_epochs,
                      "predictions_stacked": group.predictions_stacked,
                      "losses_stacked": group.losses_stacked,
-                     "health_stacked": group.health_stacked}
+                     "health_stacked": group.health_stacked, "handed_out": group.handed_out}
