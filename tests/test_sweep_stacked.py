@@ -84,6 +84,8 @@ def test_a_stacked_group_gives_each_trials_own_results(monkeypatch, table, targe
     assert counting.counts[0]["predictions_stacked"] > 0  # and predicted held-out rows
     assert counting.counts[0]["losses_stacked"] > 0  # with their losses
     assert counting.counts[0]["health_stacked"] > 0  # and measured layer health
+    if table == "kiln_batches.csv":  # equal folds: every epoch on the fits' own rows
+        assert counting.counts[0]["epochs_in_place"] == counting.counts[0]["stacked_epochs"]
     assert all(r["status"] == "done" for r in alone), [r["error"] for r in alone]
     assert all(r["history"]["test_score"] for r in alone)
     for a, b in zip(together, alone):
@@ -290,3 +292,40 @@ def test_lockstep_losses_follow_changed_targets_rows_and_parameters(head_name, t
                 assert va[1] == vb[1]
             else:
                 assert va == vb
+
+
+def test_lockstep_trains_on_the_fits_own_epoch_rows_only_when_they_line_up():
+    """Epoch rows from Network.epoch_array (slices of one array of the group) are trained on
+    in place while the stack's members hold consecutive slices; once a fit has left (here
+    the middle one, after two epochs) the others' rows are copied into the stack as
+    before. Reference: the same fits run alone, value for value."""
+    from workbench.nets import activations as act
+    from workbench.nets.network import Network, epoch_array
+    from workbench.nets.optimizers import AdamOptimizer
+
+    head = act.resolve_head("identity", "regression")
+
+    def job(i):
+        def run():
+            net = Network([3, 4, 1], ["relu"], head, np.dtype(np.float64))
+            net.theta[...] = np.random.default_rng(i).uniform(-0.5, 0.5, net.theta.size)
+            opt = AdamOptimizer(net.theta.size, net.dtype, 0.01)
+            r = np.random.default_rng(30 + i)
+            X, y = r.normal(size=(40, 3)), r.normal(size=(40, 1))
+            X_epoch, y_epoch = epoch_array((40, 4), np.float64), epoch_array((40, 1), np.float64)
+            X_epoch[:, -1] = 1
+            losses = []
+            for _ in range(2 if i == 1 else 5):
+                order = r.permutation(40)
+                X_epoch[:, :-1], y_epoch[...] = X[order], y[order]
+                losses.append(net.train_epoch(opt, X_epoch, y_epoch, 10, 1e-3))
+            return losses, net.theta.copy()
+        return run
+
+    alone = [job(i)() for i in range(3)]
+    together, counts = S.run_in_lockstep([job(i) for i in range(3)])
+    assert counts["stacked_epochs"] == 3 * 2 + 2 * 3
+    assert counts["epochs_in_place"] == 3 * 2  # members 0 and 2 after 1 left: copied
+    for (la, ta), (lb, tb) in zip(alone, together):
+        assert la == lb
+        np.testing.assert_array_equal(ta, tb)

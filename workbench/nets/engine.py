@@ -56,7 +56,7 @@ from sklearn.utils.validation import check_is_fitted, column_or_1d, validate_dat
 
 from workbench.nets import activations as act
 from workbench.nets.health import PROBE_ROWS, measure, network_health
-from workbench.nets.network import PREDICT_CHUNK, Network, with_ones
+from workbench.nets.network import PREDICT_CHUNK, Network, epoch_array, with_ones
 from workbench.nets.optimizers import AdamOptimizer, SGDOptimizer
 
 __all__ = ["NetRegressor", "NetClassifier", "DivergenceWarning", "network_health", "health_due"]
@@ -243,7 +243,7 @@ def _epoch_rows(X, rows, y, dtype, shuffle, random_state):
     ``rs.shuffle(np.arange(n))`` and applies it to the indices.
     """
     n = y.shape[0]
-    X_epoch = np.empty((n, X.shape[1] + 1), dtype=dtype)
+    X_epoch = epoch_array((n, X.shape[1] + 1), dtype)
     X_epoch[:, -1] = 1
     if not shuffle:
         _gather(X, rows, X_epoch)
@@ -255,7 +255,7 @@ def _epoch_rows(X, rows, y, dtype, shuffle, random_state):
         cast[:, -1] = 1
         _gather(X, rows, cast)
     index = np.arange(n, dtype=int)
-    y_epoch = np.empty_like(y)
+    y_epoch = epoch_array(y.shape, y.dtype)
     while True:
         perm = np.arange(n)
         random_state.shuffle(perm)

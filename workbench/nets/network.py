@@ -44,6 +44,19 @@ PREDICT_CHUNK = 8192
 LOCKSTEP = threading.local()
 
 
+def epoch_array(shape, dtype) -> np.ndarray:
+    """A new, uninitialised array for a fit's epoch rows (written again every epoch).
+
+    Inside :func:`workbench.nets.stacked.run_in_lockstep` it is a slice of an array the
+    thread's lockstep group holds for the fits' epoch rows of this shape, so that a stack
+    of these fits trains on their rows where they are, without copying them each epoch.
+    """
+    group = getattr(LOCKSTEP, "group", None)
+    if group is not None:
+        return group.epoch_array(shape, dtype)
+    return np.empty(shape, dtype=dtype)
+
+
 def with_ones(X):
     """``X`` with a trailing column of ones (C-contiguous)."""
     out = np.empty((X.shape[0], X.shape[1] + 1), dtype=X.dtype)

@@ -357,6 +357,7 @@ class _Lockstep:
     def __init__(self, members: int):
         # one lock per member, held while the member must wait (a lock, unlike a
         # semaphore, is one C call to release from another thread)
+        self.members = members
         self._baton = [threading.Lock() for _ in range(members)]
         for lock in self._baton:
             lock.acquire()
@@ -384,9 +385,48 @@ class _Lockstep:
         # per stack: the (K, rows, width) arrays its members' epoch rows and targets are
         # copied into every round, kept from one round to the next
         self._epoch_inputs: dict[tuple, list] = {}
+        # the members' epoch rows (Network.epoch_array): for the first shape asked for, one
+        # (members, *shape) array whose slices they get in the order they ask, so that a
+        # stack of consecutive slices is trained on in place; id(slice) -> (slice, array,
+        # position)
+        self._epoch_arrays: dict[tuple, list] = {}
+        self._epoch_slices: dict[int, tuple] = {}
+        self._epoch_owner = None
+        self.epochs_in_place = 0
         self.predictions_stacked = 0
         self.losses_stacked = 0
         self.handed_out = 0  # predictions, losses and health handed out from a stack
+
+    def epoch_array(self, shape, dtype) -> np.ndarray:
+        """An array for a member's epoch rows (see :func:`workbench.nets.network.epoch_array`):
+        the next free slice of the group's array for ``shape`` and ``dtype`` when the first
+        member to ask asked for that shape (its rows and its targets); other shapes, and
+        more requests than members, get an array of their own."""
+        key = (tuple(int(d) for d in shape), np.dtype(dtype).str)
+        me = getattr(LOCKSTEP, "member", None)
+        if self._epoch_owner is None:
+            self._epoch_owner = me
+        if key not in self._epoch_arrays and me == self._epoch_owner:
+            self._epoch_arrays[key] = [np.empty((self.members, *key[0]), dtype=dtype), 0]
+        held = self._epoch_arrays.get(key)
+        if held is None or held[1] >= self.members:
+            return np.empty(shape, dtype=dtype)
+        whole, position = held
+        held[1] += 1
+        piece = whole[position]
+        self._epoch_slices[id(piece)] = (piece, whole, position)
+        return piece
+
+    def _in_place(self, arrays):
+        """The group's array of the members' epoch rows when ``arrays`` are consecutive
+        slices of it (the stack then trains on them where they are), else None."""
+        found = [self._epoch_slices.get(id(a)) for a in arrays]
+        if any(f is None or f[0] is not a for f, a in zip(found, arrays)):
+            return None
+        whole, first = found[0][1], found[0][2]
+        if any(f[1] is not whole or f[2] != first + j for j, f in enumerate(found)):
+            return None
+        return whole[first:first + len(arrays)]
 
     def start(self, members: int):
         """Line the members up and give the first one the baton."""
@@ -575,8 +615,13 @@ class _Lockstep:
                 if stack is None:
                     stack = self._stacks[skey] = NetworkStack(nets[0], len(items), batch_size)
                 kept = self._epoch_inputs.setdefault(skey, [None, None])
-                losses = stack.train_epoch(nets, opts, _stack_into(kept, 0, [it[2] for it in items]),
-                                           _stack_into(kept, 1, [it[3] for it in items]),
+                rows, targets = [it[2] for it in items], [it[3] for it in items]
+                X = self._in_place(rows)
+                y = self._in_place(targets)
+                self.epochs_in_place += 0 if X is None else len(items)
+                losses = stack.train_epoch(nets, opts,
+                                           _stack_into(kept, 0, rows) if X is None else X,
+                                           _stack_into(kept, 1, targets) if y is None else y,
                                            batch_size, alpha)
                 self._results.update(zip(members, losses))
                 try:
@@ -687,8 +732,10 @@ def run_in_lockstep(functions) -> tuple[list, dict]:
         stack of two or more), ``single_epochs`` (run alone), ``predictions_stacked``
         (watched rows predicted in a stack, per network), ``losses_stacked`` (the
         loss of their targets computed there too), ``health_stacked`` (layer health
-        measured there, per network) and ``handed_out`` (how many of these the fits
-        received: those whose rows, targets and parameters had not changed).
+        measured there, per network), ``handed_out`` (how many of these the fits
+        received: those whose rows, targets and parameters had not changed) and
+        ``epochs_in_place`` (stacked epochs trained on the fits' own epoch rows, without
+        copying them into the stack).
     """
     functions = list(functions)
     group = _Lockstep(len(functions))
@@ -721,4 +768,5 @@ def run_in_lockstep(functions) -> tuple[list, dict]:
                      "single_epochs": group.single_epochs,
                      "predictions_stacked": group.predictions_stacked,
                      "losses_stacked": group.losses_stacked,
-                     "health_stacked": group.health_stacked, "handed_out": group.handed_out}
+                     "health_stacked": group.health_stacked, "handed_out": group.handed_out,
+                     "epochs_in_place": group.epochs_in_place}
