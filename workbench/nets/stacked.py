@@ -93,6 +93,9 @@ class NetworkStack:
         self._outputs, self._pres, self._deltas, self._scratch = self._work_buffers(batch_size)
         self._pred = None
         self._probe_views: dict[int, list] = {}
+        # each network's rows of the parameters and of the L2 buffer (views, made once)
+        self._theta_rows = list(self.theta)
+        self._l2_rows = list(self._l2_buf)
 
     def _work_buffers(self, rows):
         """Per layer: outputs (with the ones column of a hidden layer), pre-activations
@@ -144,11 +147,29 @@ class NetworkStack:
                 o.velocity[...] = opt.velocity[i * per:(i + 1) * per]
 
     # -- one epoch ------------------------------------------------------------------
-    def _views(self, rows):
-        return [(out[:, :rows], None if pre is None else pre[:, :rows], delta[:, :rows],
-                 None if scratch is None else scratch[:, :rows])
-                for out, pre, delta, scratch in zip(self._outputs, self._pres, self._deltas,
-                                                    self._scratch)]
+    def _views(self, rows, buffers=None):
+        """Per layer, the ``(outputs, pre-activations, deltas, scratch)`` of batches of
+        ``rows`` rows, and the arguments of the backward pass's per-network products
+        (:meth:`_per_network_products`)."""
+        outputs, pres, deltas, scratch = buffers or (self._outputs, self._pres, self._deltas,
+                                                     self._scratch)
+        views = [(out[:, :rows], None if pre is None else pre[:, :rows], delta[:, :rows],
+                  None if sc is None else sc[:, :rows])
+                 for out, pre, delta, sc in zip(outputs, pres, deltas, scratch)]
+        return views, self._per_network_products(views)
+
+    def _per_network_products(self, views):
+        """For each layer ``i >= 1``: ``[(delta_j, block_j.T, below_delta_j)]``, the views
+        ``np.dot(delta[j], block[j].T, out=delta_ones[j])`` of the backward pass takes, made
+        once (the output layer's delta is its delta buffer; a hidden layer's, its delta
+        buffer without the ones column)."""
+        products = [None]
+        last = len(views) - 1
+        for i in range(1, last + 1):
+            delta = views[i][2] if i == last else views[i][2][..., :-1]
+            products.append([(delta[j], self.blocks[i][j].T, views[i - 1][2][j])
+                             for j in range(self.k)])
+        return products
 
     def train_epoch(self, nets, optimizers, X, y, batch_size, alpha) -> list[float]:
         """One epoch of each network on its own rows; returns each network's epoch loss.
@@ -203,8 +224,8 @@ class NetworkStack:
                                    predictions[:, start:stop])
             if alpha:
                 np.multiply(theta, mask, out=l2_buf)
-                for j in range(k):
-                    squares[j] += float(np.dot(theta[j], l2_buf[j]))
+                for j, (theta_j, l2_j) in enumerate(zip(self._theta_rows, self._l2_rows)):
+                    squares[j] += float(np.dot(theta_j, l2_j))
                 grad += l2_buf
             opt.update(flat_theta, flat_grad, rows)
         self._scatter(nets, optimizers, opt)
@@ -222,6 +243,7 @@ class NetworkStack:
         template, head = self.template, self.template.head
         layers = template.layers
         last = len(layers) - 1
+        views, products = views
         # forward (Network.forward)
         below = X_batch
         for i, layer in enumerate(layers):
@@ -249,9 +271,13 @@ class NetworkStack:
             if i == 0:
                 break
             output_ones, pre, delta_ones, scratch = views[i - 1]
-            block = self.blocks[i]
-            for j in range(self.k):
-                np.dot(delta[j], block[j].T, out=delta_ones[j])
+            if i < last or delta is top_delta:  # the views made for these buffers
+                for delta_j, block_t, out in products[i]:
+                    np.dot(delta_j, block_t, out=out)
+            else:
+                block = self.blocks[i]
+                for j in range(self.k):
+                    np.dot(delta[j], block[j].T, out=delta_ones[j])
             under = layers[i - 1]
             slope = under.activation.derivative(pre, output_ones, out=scratch, **under.params)
             np.multiply(delta_ones, slope, out=delta_ones)
@@ -274,10 +300,8 @@ class NetworkStack:
         rows = X_ones.shape[1]
         views = self._probe_views.get(rows)
         if views is None:
-            buffers = self._work_buffers(rows)
-            views = self._probe_views[rows] = [
-                (out, pre, delta, scratch) for out, pre, delta, scratch in zip(*buffers)]
-        top = views[-1][0]
+            views = self._probe_views[rows] = self._views(rows, self._work_buffers(rows))
+        top = views[0][-1][0]
         self._forward_backward(X_ones, y, views, top)
         self.grad /= rows
         norms = [[float(np.linalg.norm(block[j, :layer.weights.shape[0]]))
@@ -286,7 +310,7 @@ class NetworkStack:
         dead = [[] for _ in range(self.k)]
         saturated = [[] for _ in range(self.k)]
         tiny = np.finfo(template.dtype).tiny * 1e6
-        for layer, (out, pre, _, _) in zip(template.layers, views):
+        for layer, (out, pre, _, _) in zip(template.layers, views[0]):
             activation = layer.activation
             if activation is None:
                 break
