@@ -744,3 +744,50 @@ def test_the_window_gives_a_stopped_configuration_its_paired_difference(qtbot, f
         assert text == f"stopped {fr['stopped'][c]['difference']:+.4f}"
         assert "stopped by racing" in tip and fr["stopped"][c]["reason"] in tip
     assert not seen[0][0].startswith("stopped")
+
+
+def test_a_plan_records_its_racing_rule_and_keeps_it_when_the_rule_changes(table, monkeypatch):
+    """A racing plan records the rule it was made with (racing.current_rule); read back
+    from its JSON by a version whose constants say otherwise (monkeypatched here), the
+    race and its looks follow the recorded rule, not the new one. A plan without racing
+    records none; a wrong setting is refused in one line."""
+    from workbench.errors import InputError
+
+    plan = _race_plan(table)
+    assert plan.race_rule == racing.current_rule()
+    assert _race_plan(table, race=False).race_rule == {}
+    stored = json.loads(json.dumps(plan.to_dict()))
+    monkeypatch.setattr(racing, "THRESHOLD", 0.9)
+    monkeypatch.setattr(racing, "FIRST_LOOK", 4)
+    again = SweepPlan.from_dict(stored)
+    assert again.race_rule == plan.race_rule != racing.current_rule()
+    race = racing.Race(again)
+    n = again.folds * again.repeats
+    assert race.threshold == plan.race_rule["threshold"] != 0.9
+    assert race.first == plan.race_rule["first_look"] - 1
+    assert racing.look_positions(again) == set(range(plan.race_rule["first_look"] - 1, n - 1))
+    new = _race_plan(table)  # made now: the rule of this (patched) version
+    assert new.race_rule["threshold"] == 0.9 and racing.look_positions(new) == \
+        set(range(3, n - 1))
+    with pytest.raises(InputError, match="racing rule: the racing threshold") as bad:
+        SweepPlan.from_dict(dict(stored, race_rule=dict(stored["race_rule"], threshold=2)))
+    assert "\n" not in str(bad.value)
+
+
+def test_a_sweep_is_raced_by_the_first_look_its_plan_recorded(table, tmp_path,
+                                                              full_and_raced):
+    """The runner's race reads the plan's rule: with a first look recorded after the 5th
+    block of 9, nothing is stopped before it, where the default rule (the fixture's sweep)
+    stopped the hopeless learning rate after the 2nd."""
+    fr = full_and_raced
+    blocks = racing.block_keys(3, 3)
+    early = [blocks.index((s["after_repeat"], s["after_fold"])) for s in fr["stopped"].values()]
+    assert early and min(early) < 4
+    plan = _race_plan(table)
+    plan.race_rule = dict(plan.race_rule, first_look=5)
+    with Store(tmp_path / "s.sqlite") as st:
+        out = run_sweep(plan, store=st, backend="inline")
+        stopped = st.stopped(out.sweep_id)
+        assert st.get_sweep(out.sweep_id)["plan"]["race_rule"]["first_look"] == 5
+    late = [blocks.index((s["after_repeat"], s["after_fold"])) for s in stopped.values()]
+    assert late and min(late) >= 4

@@ -403,6 +403,11 @@ class SweepPlan:
         would rank below the current best, beyond doubt, so that none of their
         remaining trials run (:mod:`workbench.sweep.racing` gives the rule
         and why it protects the winner). Default False: every trial runs.
+    race_rule : dict
+        The racing rule the sweep is raced by (:func:`workbench.sweep.racing.current_rule`:
+        threshold, first look, test, stop, moderation), recorded when the plan is made,
+        so that a sweep resumed by a later version with another rule keeps its own.
+        Empty without racing.
     """
 
     table: str
@@ -432,6 +437,7 @@ class SweepPlan:
     tune_learning_rate: bool = False
     baselines: list[str] = field(default_factory=lambda: list(BASELINES))
     race: bool = False
+    race_rule: dict = field(default_factory=dict)
 
     def __post_init__(self):
         self.validate()
@@ -523,6 +529,15 @@ class SweepPlan:
         if not isinstance(self.race, bool | np.bool_):
             raise InputError(f"racing is on or off (true or false), not {self.race!r}")
         self.race = bool(self.race)
+        if self.race:
+            from workbench.sweep.racing import check_rule
+
+            try:
+                self.race_rule = check_rule(dict(self.race_rule or {}))
+            except (TypeError, ValueError) as exc:
+                raise InputError(f"racing rule: {exc}", setting="sweep") from None
+        else:
+            self.race_rule = {}
         if self.dtype not in ("float32", "float64"):
             raise InputError(f"dtype must be float32 or float64, not {self.dtype!r}")
         if self.batch_size != "auto":

@@ -166,6 +166,46 @@ MODERATE = True
 TEST = "predictive"
 
 
+#: the settings of a racing rule a plan records (:func:`current_rule`, ``SweepPlan.race_rule``)
+RULE_KEYS = ("threshold", "first_look", "test", "stop", "moderate")
+
+
+def current_rule() -> dict:
+    """This version's racing rule, as a plan records it when it is made (so that a sweep
+    resumed later, by a version with another rule, is raced by the rule it began with)."""
+    return {"threshold": THRESHOLD, "first_look": FIRST_LOOK, "test": TEST, "stop": STOP,
+            "moderate": MODERATE}
+
+
+def check_rule(rule: dict) -> dict:
+    """A recorded racing rule, checked and completed from :func:`current_rule` (a key it
+    lacks); ValueError naming what is wrong."""
+    unknown = sorted(set(rule) - set(RULE_KEYS))
+    if unknown:
+        raise ValueError(f"unknown racing setting {unknown[0]!r}; the settings are "
+                         f"{', '.join(RULE_KEYS)}")
+    out = {**current_rule(), **rule}
+    out["threshold"] = float(out["threshold"])
+    if not 0.5 < out["threshold"] < 1:
+        raise ValueError(f"the racing threshold is a probability above 0.5 and below 1, "
+                         f"not {out['threshold']!r}")
+    out["first_look"] = int(out["first_look"])
+    if out["first_look"] < 1:
+        raise ValueError(f"racing's first look is after block 1 or later, not "
+                         f"{out['first_look']!r}")
+    if out["test"] not in ("predictive", "correlated"):
+        raise ValueError(f"unknown racing test {out['test']!r}")
+    if out["stop"] not in MARGIN:
+        raise ValueError(f"unknown racing stop {out['stop']!r}")
+    out["moderate"] = bool(out["moderate"])
+    return out
+
+
+def plan_rule(plan) -> dict:
+    """The racing rule of ``plan``: the one it recorded (``race_rule``), else this version's."""
+    return check_rule(dict(getattr(plan, "race_rule", None) or {}))
+
+
 def advised_heads(plan) -> set[str]:
     """The heads the advice (:func:`workbench.data.profiling.advise`) can give for the
     plan's target kind: one, except for a non-negative target, whose advised head
@@ -340,7 +380,7 @@ def look_positions(plan) -> set[int]:
     if not getattr(plan, "race", False):
         return set()
     n = int(plan.folds) * int(plan.repeats)
-    return set(range(max(1, min(FIRST_LOOK, n)) - 1, n - 1))
+    return set(range(max(1, min(plan_rule(plan)["first_look"], n)) - 1, n - 1))
 
 
 class Race:
@@ -349,7 +389,9 @@ class Race:
     Parameters
     ----------
     plan : SweepPlan
-        The sweep's plan (folds, repeats, metric, configurations, baselines).
+        The sweep's plan (folds, repeats, metric, configurations, baselines) and its
+        racing rule (:func:`plan_rule`); the keyword settings, when given, override it
+        (the benchmark's replays of other rules).
     stopped : dict, optional
         ``{config_index: record}`` already stopped (a resumed sweep: the store's
         :meth:`workbench.sweep.store.Store.stopped`); they stay stopped.
@@ -362,15 +404,16 @@ class Race:
     def __init__(self, plan, stopped: dict | None = None, *, threshold: float | None = None,
                  first_look: int | None = None, test: str | None = None,
                  stop: str | None = None, moderate: bool | None = None):
-        self.test = TEST if test is None else test
-        if self.test not in ("predictive", "correlated"):
-            raise ValueError(f"unknown racing test {self.test!r}")
-        self.stop = STOP if stop is None else stop
-        if self.stop not in MARGIN:
-            raise ValueError(f"unknown racing stop {self.stop!r}")
-        self.moderate = bool(MODERATE if moderate is None else moderate)
+        given = {"threshold": threshold, "first_look": first_look, "test": test, "stop": stop,
+                 "moderate": moderate}
+        rule = check_rule({**plan_rule(plan), **{k: v for k, v in given.items()
+                                                  if v is not None}})
+        self.rule = rule
+        self.test = rule["test"]
+        self.stop = rule["stop"]
+        self.moderate = rule["moderate"]
         self.groups = verdict_groups(plan)
-        self.threshold = float(THRESHOLD if threshold is None else threshold)
+        self.threshold = rule["threshold"]
         # the ROPE counts only when the stop puts a margin on the difference
         self.use_rope = MARGIN[self.stop] != 0.0 or self.test == "correlated"
         self.metric = plan.metric
@@ -378,7 +421,7 @@ class Race:
         self.labels = [c.label for c in plan.configurations()]
         self.blocks = block_keys(plan.folds, plan.repeats)
         self.position = {k: j for j, k in enumerate(self.blocks)}
-        look = int(FIRST_LOOK if first_look is None else first_look)
+        look = rule["first_look"]
         self.first = max(1, min(look, len(self.blocks))) - 1  # position of the first look
         self.next = self.first
         constant = [b.index for b in plan.baseline_configurations() if b.name == "constant"]

@@ -250,9 +250,11 @@ def _baselines(store, sweep_id: str, expected: int, sweep_state: str) -> list[di
 
 def _racing(plan: dict, stopped: dict, n_trials: int, n_stored: int) -> dict:
     """The ``racing`` entry: whether the sweep raced, and what racing stopped."""
-    from workbench.sweep.racing import THRESHOLD
+    from workbench.sweep.racing import check_rule
 
-    return _plain({"race": bool(plan.get("race", False)), "threshold": THRESHOLD,
+    rule = check_rule(dict(plan.get("race_rule") or {}))  # the plan's own (else this version's)
+    return _plain({"race": bool(plan.get("race", False)), "threshold": rule["threshold"],
+                   "rule": rule if plan.get("race") else {},
                    "n_stopped": len(stopped), "n_trials": n_trials, "n_stored": n_stored,
                    "stopped": [_stopped_entry(r) for r in stopped.values()]})
 
