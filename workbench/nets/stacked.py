@@ -376,6 +376,15 @@ class _Lockstep:
     holding the baton runs them in stacks (grouped by :func:`stack_key`) and the fits
     continue in index order. One thread running at a time means no contention for
     the interpreter lock and a schedule that is the same on every run.
+
+    After a stacked epoch the stack also computes, for all its networks at once, what
+    each fit asks for after every epoch: the predictions of the rows it watches
+    (held-out and validation rows) and their targets' loss (:meth:`predicted`), and its
+    layer health on the probe it announced with the epoch (:meth:`measured`). Each is
+    handed out only when the fit asks with the same rows, targets and parameters, bit
+    for bit; otherwise the fit computes it alone. The fits' shuffled epoch rows live in
+    one array of the group (:meth:`epoch_array`), which a stack of consecutive members
+    trains on in place.
     """
 
     def __init__(self, members: int):
