@@ -118,3 +118,35 @@ def test_lockstep_health_follows_changed_probe_rows_targets_and_parameters():
     # after 0, 1, 3, 7 and 8 (the changes after 4, 5 and 6 are measured alone)
     assert counts["health_stacked"] == 3 * 8
     assert together == alone
+
+
+@pytest.mark.parametrize("hidden", ["relu", "tanh"])
+def test_stack_counts_the_boundary_cases_as_measure(hidden):
+    """A unit off on all probe rows but one is not dead; a unit flat on exactly half the
+    rows is not saturated ("more than half", the definition measure uses): counted by
+    hand, by measure alone and in the stack, on an even number of probe rows."""
+    head = act.resolve_head("identity", "regression")
+    rows = 40
+    nets = [Network([2, 3, 1], [hidden], head, np.dtype(np.float64)) for _ in range(2)]
+    X = np.zeros((rows, 2))
+    X[:, 0] = -1.0
+    X[0, 0] = 1.0  # unit 0 (pre = x0) is on for one row only
+    X[: rows // 2, 1] = 5.0  # unit 1 (pre = 10 x1): flat on exactly half of the rows
+    for net in nets:
+        block = net.layers[0].block
+        block[...] = 0
+        block[0, 0], block[1, 1] = 1.0, 10.0
+        block[2, 2] = -3.0  # unit 2: off on every row (dead for ReLU), flat for tanh
+    probe = with_ones(X)
+    y = np.zeros((rows, 1))
+    stack = S.NetworkStack(nets[0], 2, 8)
+    for j, net in enumerate(nets):
+        stack.theta[j] = net.theta
+    got = stack.measure_health(np.stack([probe, probe]), np.stack([y, y]))
+    want = health.measure(_clone(nets[0]), probe, y)
+    assert got[0] == got[1] == want
+    dead, saturated, _ = want
+    if hidden == "relu":
+        assert dead == [1 / 3]  # unit 2 only; unit 0 lives on one row, unit 1 on half
+    else:
+        assert dead == [0.0] and saturated == [1 / 3]  # unit 2 only: unit 1 is flat on half

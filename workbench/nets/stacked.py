@@ -294,7 +294,9 @@ class NetworkStack:
         backward pass of :meth:`train_epoch`, the division by ``rows`` element by
         element, each gradient norm by ``numpy.linalg.norm`` on the network's own block;
         the dead and saturated shares are counts of units and rows (sums of 0s and 1s,
-        exact in any order) divided as ``measure`` divides them.
+        exact in any order, here the rows' counted by one matrix product) divided as
+        ``measure`` divides them (``numpy.mean`` of booleans: the count over their number,
+        in float64).
         """
         template = self.template
         rows = X_ones.shape[1]
@@ -310,16 +312,23 @@ class NetworkStack:
         dead = [[] for _ in range(self.k)]
         saturated = [[] for _ in range(self.k)]
         tiny = np.finfo(template.dtype).tiny * 1e6
+        # counts over the rows as one product with a row of ones: sums of 0s and 1s, exact
+        # in float32 up to 2**24 rows (measure's mean over rows is the count / rows)
+        if rows > 2**24:  # pragma: no cover - probes are at most PROBE_ROWS rows
+            raise ValueError("too many probe rows to count exactly in float32")
+        ones = np.ones((1, rows), dtype=np.float32)
         for layer, (out, pre, _, _) in zip(template.layers, views[0]):
             activation = layer.activation
             if activation is None:
                 break
             slope = np.abs(activation.derivative(None if pre is None else pre[..., :-1],
                                                  out[..., :-1], **layer.params))
-            dead_units = np.all(slope <= tiny, axis=1)
+            off = np.matmul(ones, (slope <= tiny).astype(np.float32))[:, 0]
+            dead_units = off == rows  # the derivative is zero on every row
             dead_share = dead_units.mean(axis=1)
             if activation.saturates:
-                flat = (slope < SATURATION_THRESHOLD).mean(axis=1) > 0.5
+                low = np.matmul(ones, (slope < SATURATION_THRESHOLD).astype(np.float32))[:, 0]
+                flat = low.astype(np.float64) / rows > 0.5
                 saturated_share = (flat & ~dead_units).mean(axis=1)
             else:
                 saturated_share = np.zeros(self.k)
