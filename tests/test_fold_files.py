@@ -111,10 +111,37 @@ def test_a_shared_sweep_stores_what_the_workers_own_features_give(tmp_path, monk
     assert len(shared[2]) == plan.n_trials
 
 
-def test_a_small_table_is_not_shared_unless_asked():
+def test_a_small_table_is_shared_always_but_not_when_only_large_ones_are(tmp_path,
+                                                                          monkeypatch):
+    """run_sweep's share_folds: "always" (the default: the command line, the benchmark)
+    prepares a sample set's folds in the sweep's process; "large" (the window's choice,
+    core_adapter.WINDOW_SHARE_FOLDS) leaves a table under SHARED_MIN_BYTES to the
+    workers, and the window asks for it."""
+    plan = build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection", layers=["8"],
+                      hidden="relu", folds=2, repeats=1, epochs=3, baselines=[])
+    data, _ = load_data(plan)
+    assert not F.worth_sharing(data)  # a sample set is small
+    for policy, shared in (("always", True), ("large", False)):
+        spy = _Spy(monkeypatch)
+        with Store(tmp_path / f"{policy}.sqlite") as st:
+            assert run_sweep(plan, store=st, jobs=2, share_folds=policy).state == "finished"
+        assert bool(spy.written) is shared, policy
+    from workbench.gui import core_adapter
+
+    asked = {}
+    monkeypatch.setattr(runner, "run_sweep", lambda *a, **k: asked.update(k) or runner.
+                        SweepOutcome(sweep_id="x", state="finished", n_finished=0,
+                                     n_todo=0, seconds=0.0))
+    core_adapter.run_plan(plan, {"jobs": 2}, core_adapter.StoreSession(tmp_path / "w.sqlite"),
+                          None, None)
+    assert asked["share_folds"] == core_adapter.WINDOW_SHARE_FOLDS == "large"
+    with pytest.raises(ValueError, match="share_folds"):
+        run_sweep(plan, store=Store(tmp_path / "bad.sqlite"), share_folds="sometimes")
+
+
+def test_worth_sharing_counts_the_features_bytes():
     plan = build_plan(SAMPLES / "kiln_batches.csv", "passes_inspection", layers=["8"])
     data, _ = load_data(plan)
-    assert not F.worth_sharing(data)  # the sample sets stay on the workers' own path
     assert F.worth_sharing(data, min_bytes=0)
     rows, cols = data.X.shape
     assert F.worth_sharing(data, min_bytes=rows * cols * 8)

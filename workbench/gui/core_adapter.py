@@ -393,12 +393,19 @@ class StoreSession:
         self.close()
 
 
+#: the window's sweeps prepare shared fold features only for large tables: the preparation
+#: runs Python in the window's own process, beside its event loop (on small tables each
+#: worker preparing its own folds costs a little CPU and no responsiveness)
+WINDOW_SHARE_FOLDS = "large"
+
+
 def run_plan(plan, choices: dict, session: StoreSession, on_event, cancel) -> dict:
     """Run a new sweep with the core's runner (blocks; call it on the bridge thread)."""
     from workbench.sweep.runner import run_sweep
 
     out = run_sweep(plan, store=session.store, jobs=int(choices.get("jobs") or 1),
-                    cluster=choices.get("cluster") or None, on_event=on_event, cancel=cancel)
+                    cluster=choices.get("cluster") or None, on_event=on_event, cancel=cancel,
+                    share_folds=WINDOW_SHARE_FOLDS)
     return {"sweep_id": out.sweep_id,
             "state": "finished" if out.state == "finished" else "cancelled",
             "n_finished": out.n_finished}
@@ -409,7 +416,7 @@ def resume(sweep_id: str, session: StoreSession, jobs: int, on_event, cancel) ->
     from workbench.sweep.runner import run_sweep
 
     out = run_sweep(resume=sweep_id, store=session.store, jobs=int(jobs or 1),
-                    on_event=on_event, cancel=cancel)
+                    on_event=on_event, cancel=cancel, share_folds=WINDOW_SHARE_FOLDS)
     return {"sweep_id": out.sweep_id,
             "state": "finished" if out.state == "finished" else "cancelled",
             "n_finished": out.n_finished}

@@ -12,12 +12,15 @@ Where trials run
   oversubscribed. The pool stays warm between sweeps; the table goes to each
   worker once per sweep (a temporary file it reads on its first trial), and
   work goes out one *task* at a time, never more tasks in flight than
-  workers, so both cores stay busy to the end and a cancel is prompt. On a large
-  table (:func:`workbench.sweep.fold_files.worth_sharing`) this process also prepares
-  each fold's features once, in the order the trials go out, and the workers map them
-  read-only instead of each reading the table and fitting the fold's preprocessing
-  (:mod:`workbench.sweep.fold_files`; the same results, bit for bit). ``SHARE_FOLDS =
-  False`` turns it off.
+  workers, so both cores stay busy to the end and a cancel is prompt. This process
+  also prepares each fold's features once, in the order the trials go out, and the
+  workers map them read-only instead of each reading the table and fitting the fold's
+  preprocessing (:mod:`workbench.sweep.fold_files`; the same results, bit for bit):
+  on every table by default (``share_folds="always"``: on the kiln grid every worker
+  fitted all ten folds' preprocessing itself, about a tenth of the sweep's CPU), or
+  only on a large one (``"large"``, :func:`workbench.sweep.fold_files.worth_sharing`:
+  what the window asks for, whose process is the one the event loop runs in).
+  ``SHARE_FOLDS = False`` turns it off.
 - On a Dask distributed cluster (``cluster="tcp://HOST:PORT"`` or a
   ``distributed.Client``): the table is scattered to the workers once
   (``Client.scatter(..., broadcast=True)``) and trials are submitted as
@@ -191,8 +194,9 @@ POLL_SECONDS = 0.2
 #: hand the folds of one configuration to a worker together, to train in a stack
 #: (:func:`workbench.sweep.trials.run_trials`); False: every trial alone (the same results)
 STACK = True
-#: local workers map fold features the sweep's process prepared, on a table large enough
-#: (:mod:`workbench.sweep.fold_files`); False: each worker computes its own (the same results)
+#: local workers map fold features the sweep's process prepared (``run_sweep``'s
+#: ``share_folds``, :mod:`workbench.sweep.fold_files`); False: each worker computes its own
+#: (the same results)
 SHARE_FOLDS = True
 
 
@@ -266,7 +270,7 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
               resume: str | None = None, jobs: int | None = None, cluster=None,
               backend: str = "processes", on_event=None, cancel: threading.Event | None = None,
               retries: int = RETRIES, sweep_id: str | None = None,
-              table=None, frame=None) -> SweepOutcome:
+              table=None, frame=None, share_folds: str = "always") -> SweepOutcome:
     """Run a sweep (or the missing trials of a stored one) and store every trial.
 
     Parameters
@@ -296,6 +300,9 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
         With ``resume``: where the sweep's table is now, when it was moved. Its
         SHA-256 fingerprint must still match the stored one; the new path is
         then stored in the sweep's plan.
+    share_folds : {"always", "large"}
+        With local workers: prepare the folds' features in this process for every table,
+        or only for a large one (module docstring). The results are the same.
     frame : pandas.DataFrame, optional
         With a new plan: the table as the caller read it from ``plan.table`` to build the
         plan (:func:`load_data`), so that the file is not read and parsed again.
@@ -323,6 +330,8 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
     if table is not None and resume is None:
         raise InputError("a new location of the table is for resuming a sweep; a new sweep "
                          "reads the plan's table", setting="table")
+    if share_folds not in ("always", "large"):
+        raise ValueError(f"share_folds is 'always' or 'large', not {share_folds!r}")
     if jobs is not None and int(jobs) < 1:
         raise InputError(f"the number of worker processes must be at least 1, got {jobs}",
                          setting="jobs")
@@ -347,13 +356,13 @@ def run_sweep(plan: SweepPlan | None = None, *, store: Store | None = None,
                              "another sweep id", setting="sweep")
     try:
         return _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit,
-                           cancel, retries, table, t0, frame)
+                           cancel, retries, table, t0, frame, share_folds)
     finally:
         lock.release()
 
 
 def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, cancel, retries,
-                table, t0, frame=None) -> SweepOutcome:
+                table, t0, frame=None, share_folds="always") -> SweepOutcome:
     """:func:`run_sweep` once the sweep's lock is held."""
     if resume is not None:
         sweep = store.get_sweep(resume)  # read again under the lock
@@ -403,7 +412,8 @@ def _run_locked(plan, store, resume, sweep_id, jobs, cluster, backend, emit, can
         # quick baselines, then the rest; the order changes no result (seeds are per trial)
         head, rest = first_trials(tasks, max(1, int(executor.workers)))
         sequence = head + [(t,) for t in todo_baselines] + rest
-        if isinstance(executor, _LokyExecutor) and SHARE_FOLDS and worth_sharing(data):
+        if isinstance(executor, _LokyExecutor) and SHARE_FOLDS and (
+                share_folds == "always" or worth_sharing(data)):
             executor.share(folds, needs_in_order(sequence, configs, plan.dtype))
         if resume is not None:
             store.set_state(sweep_id, RUNNING)
