@@ -93,6 +93,7 @@ class NetworkStack:
         self._outputs, self._pres, self._deltas, self._scratch = self._work_buffers(batch_size)
         self._pred = None
         self._probe_views: dict[int, list] = {}
+        self._adam, self._adam_settings = None, None
         # each network's rows of the parameters and of the L2 buffer (views, made once)
         self._theta_rows = list(self.theta)
         self._l2_rows = list(self._l2_buf)
@@ -122,9 +123,13 @@ class NetworkStack:
         first = optimizers[0]
         size = self.theta.size
         if isinstance(first, AdamOptimizer):
-            opt = AdamOptimizer(size, self.theta.dtype, first.learning_rate_init, first.beta_1,
-                                first.beta_2, first.epsilon)
-            opt.t = first.t
+            settings = (first.learning_rate_init, first.beta_1, first.beta_2, first.epsilon)
+            opt = self._adam if self._adam_settings == settings else None
+            if opt is None:  # the stacked optimiser is kept while its settings are the same:
+                # every round sets all its state (moments, step) before its first step
+                opt = self._adam = AdamOptimizer(size, self.theta.dtype, *settings)
+                self._adam_settings = settings
+            opt.t, opt.learning_rate = first.t, opt.learning_rate_init
             per = self.theta.shape[1]
             for i, o in enumerate(optimizers):
                 opt._moments[:, i * per:(i + 1) * per] = o._moments
@@ -171,7 +176,8 @@ class NetworkStack:
                              for j in range(self.k)])
         return products
 
-    def train_epoch(self, nets, optimizers, X, y, batch_size, alpha) -> list[float]:
+    def train_epoch(self, nets, optimizers, X, y, batch_size, alpha,
+                    grouped: bool = False) -> list[float]:
         """One epoch of each network on its own rows; returns each network's epoch loss.
 
         Parameters
@@ -185,6 +191,9 @@ class NetworkStack:
         y : ndarray (K, n, n_outputs) or list of K arrays
         batch_size : int
         alpha : float
+        grouped : bool
+            The caller grouped the networks by :func:`stack_key` for these rows, batch
+            size and alpha (the lockstep group does, every round): the check is skipped.
 
         The networks' parameters, gradients and optimiser states end as
         ``[net.train_epoch(opt, X[i], y[i], batch_size, alpha) for ...]`` leaves them.
@@ -198,9 +207,10 @@ class NetworkStack:
         n = X.shape[1]
         if batch_size > self.batch_size:
             raise ValueError(f"batch_size {batch_size} exceeds the stack's {self.batch_size}")
-        keys = {stack_key(net, o, n, batch_size, alpha) for net, o in zip(nets, optimizers)}
-        if len(keys) != 1 or next(iter(keys))[:5] != stack_key(self.template, optimizers[0], n,
-                                                                batch_size, alpha)[:5]:
+        keys = {stack_key(net, o, n, batch_size, alpha) for net, o in zip(nets, optimizers)} \
+            if not grouped else None
+        if not grouped and (len(keys) != 1 or next(iter(keys))[:5] != stack_key(
+                self.template, optimizers[0], n, batch_size, alpha)[:5]):
             raise ValueError("these networks cannot train in one stack (different shapes, "
                              "rows, batch size, alpha or optimiser states); group them by "
                              "stack_key")
@@ -664,7 +674,7 @@ class _Lockstep:
                 losses = stack.train_epoch(nets, opts,
                                            _stack_into(kept, 0, rows) if X is None else X,
                                            _stack_into(kept, 1, targets) if y is None else y,
-                                           batch_size, alpha)
+                                           batch_size, alpha, grouped=True)
                 self._results.update(zip(members, losses))
                 try:
                     self._prefetch(stack, members, nets)
