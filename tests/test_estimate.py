@@ -141,10 +141,38 @@ def test_the_estimate_is_the_documented_sum(table):
     # by hand: 4 configurations x 6 trials x (0.03 + 0.002 x 50) + 6 x (0.01 + 0.02)
     trials = 4 * 6 * (0.03 + 0.1) + 6 * 0.03
     assert est.trials == pytest.approx(trials)
-    assert est.seconds == pytest.approx(1.5 + 6 * 0.25 + trials / 2)
+    # the folds prepared once for both workers (the runner's default): CPU like the trials'
+    assert est.seconds == pytest.approx(1.5 + (6 * 0.25 + trials) / 2)
     # one worker: the trials' seconds are not divided
     assert E.estimate(plan, cal, jobs=1, startup=0.0).seconds == pytest.approx(
         6 * 0.25 + trials)
+    # the window's sweeps share only a large table's folds: on a small one every worker
+    # fits every fold's preprocessing
+    assert cal.feature_bytes == 0
+    assert E.estimate(plan, cal, jobs=2, startup=1.5, share_folds="large").seconds == \
+        pytest.approx(1.5 + 6 * 0.25 + trials / 2)
+    from workbench.sweep.fold_files import SHARED_MIN_BYTES
+
+    cal.feature_bytes = SHARED_MIN_BYTES
+    assert E.estimate(plan, cal, jobs=2, startup=1.5, share_folds="large").seconds == \
+        pytest.approx(est.seconds)
+
+
+def test_a_calibration_notes_the_tables_size_and_the_window_asks_its_policy(table, fake,
+                                                                           monkeypatch):
+    """calibrate records the features' bytes (rows x feature columns x 8, what
+    fold_files.worth_sharing reads); the window's estimate passes its fold-sharing policy."""
+    from workbench.gui import core_adapter
+    from workbench.sweep.runner import load_data
+
+    plan = _plan(table)
+    cal = E.calibrate(plan)
+    data, _ = load_data(plan)
+    assert cal.feature_bytes == data.X.shape[0] * data.X.shape[1] * 8 > 0
+    asked = {}
+    monkeypatch.setattr(E, "estimate", lambda *a, **k: asked.update(k))
+    core_adapter.estimate(plan, cal, 2, startup=1.0)
+    assert asked["share_folds"] == core_adapter.WINDOW_SHARE_FOLDS
 
 
 def test_the_check_runs_a_default_plan_and_compares(table):

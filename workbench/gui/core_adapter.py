@@ -323,6 +323,12 @@ def busy_cores() -> float:
     return core_busy()
 
 
+#: the window's sweeps prepare shared fold features only for large tables: the preparation
+#: runs Python in the window's own process, beside its event loop (on small tables each
+#: worker preparing its own folds costs a little CPU and no responsiveness)
+WINDOW_SHARE_FOLDS = "large"
+
+
 def estimate(plan, calibration, jobs: int, startup: float | None, busy: float = 0.0):
     """The plan's estimated time, or None when ``calibration`` does not cover it yet.
 
@@ -338,7 +344,8 @@ def estimate(plan, calibration, jobs: int, startup: float | None, busy: float = 
         startup = 0.0
     elif startup is None:
         return None
-    return core_estimate(plan, calibration, int(jobs or 1), startup=startup, busy=busy)
+    return core_estimate(plan, calibration, int(jobs or 1), startup=startup, busy=busy,
+                         share_folds=WINDOW_SHARE_FOLDS)
 
 
 def plan_summary(plan, choices: dict, estimate=None) -> str:
@@ -391,12 +398,6 @@ class StoreSession:
 
     def __exit__(self, *exc):
         self.close()
-
-
-#: the window's sweeps prepare shared fold features only for large tables: the preparation
-#: runs Python in the window's own process, beside its event loop (on small tables each
-#: worker preparing its own folds costs a little CPU and no responsiveness)
-WINDOW_SHARE_FOLDS = "large"
 
 
 def run_plan(plan, choices: dict, session: StoreSession, on_event, cancel) -> dict:

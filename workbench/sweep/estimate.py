@@ -5,8 +5,9 @@ differs, so no constant speed is built in. The estimate is calibrated by timing
 the sweep's own trial function (:func:`workbench.sweep.trials.run_trial`, one BLAS
 thread, as in a worker) on the plan's own table and first fold:
 
-1. one warm-up trial fits the fold's preprocessing (``prep``: paid once per fold
-   by every worker, see ``_fold_features``);
+1. one warm-up trial fits the fold's preprocessing (``prep``: paid once per fold,
+   by the sweep's process for all workers (:mod:`workbench.sweep.fold_files`), or by
+   every worker when the folds are not shared, see ``_fold_features``);
 2. for each distinct (hidden activation, head, layers, engine) of the grid, two
    short trials of ``e1`` and ``e2`` epochs (the smaller time of two runs each)
    give the seconds per epoch (the slope) and per trial beyond the epochs (the
@@ -20,8 +21,11 @@ thread, as in a worker) on the plan's own table and first fold:
 A sweep's time is then, with ``W`` workers (the runner hands each free worker the
 next trial, so the trials' seconds divide among the workers):
 
-    start-up + folds x prep + (sum over trials of intercept + slope x epochs
+    start-up + (folds x prep + sum over trials of intercept + slope x epochs
     + the baselines' trials) / (W x share)
+
+(the folds' preparation counted once more per worker, ``folds x prep / share``, when
+every worker fits its own: the window's sweeps on a small table)
 
 where ``share`` is the part of a core each worker gets: the scheduler shares the
 cores among the ``W`` workers and the ``busy`` cores other programs keep busy
@@ -94,6 +98,9 @@ class Calibration:
     baseline: dict = field(default_factory=dict)
     prep: float = 0.0
     seconds: float = 0.0  # what the calibration itself took
+    #: the table's features as float64 bytes (rows x feature columns x 8): whether a
+    #: sweep that shares only large tables' folds shares this one's
+    feature_bytes: int = 0
 
     def covers(self, plan) -> bool:
         """Every configuration and baseline of ``plan`` has been timed on its data."""
@@ -140,6 +147,7 @@ def calibrate(plan, data=None, previous: Calibration | None = None,
     cal = previous if previous is not None and previous.key == key else Calibration(key)
     if data is None:
         data, _ = load_data(plan)
+    cal.feature_bytes = int(data.X.shape[0]) * int(data.X.shape[1]) * 8
     # a token of its own: the calibration's fold cache never serves a real sweep's trials
     data = TrialData(X=data.X, y=data.y, profile=data.profile, target=data.target)
     folds = plan.fold_indices(data.y)
@@ -239,9 +247,14 @@ class Estimate:
 
 
 def estimate(plan, calibration: Calibration, jobs: int, startup: float | None = None,
-             busy: float = 0.0, cores: int | None = None) -> Estimate:
+             busy: float = 0.0, cores: int | None = None,
+             share_folds: str = "always") -> Estimate:
     """The sweep's seconds on ``jobs`` local workers (module docstring's formula);
-    ``busy``: cores other programs keep busy (:func:`busy_cores`)."""
+    ``busy``: cores other programs keep busy (:func:`busy_cores`); ``share_folds``: the
+    runner's (:func:`workbench.sweep.runner.run_sweep`). When the sweep's process prepares
+    the folds' features once for all workers, their preprocessing is CPU shared among
+    the cores like the trials' (``prep / (W x share)``); else every worker fits every
+    fold's (``prep / share``)."""
     workers = max(1, int(jobs))
     share = worker_share(workers, busy, cores)
     trials = 0.0
@@ -254,7 +267,11 @@ def estimate(plan, calibration: Calibration, jobs: int, startup: float | None = 
     if startup is None:
         startup = 0.0 if pool_is_warm(workers) else startup_seconds()
     prep = calibration.prep * plan.folds * plan.repeats
-    return Estimate(seconds=startup + prep / share + trials / (workers * share),
+    from workbench.sweep.fold_files import SHARED_MIN_BYTES
+
+    shared = share_folds == "always" or calibration.feature_bytes >= SHARED_MIN_BYTES
+    return Estimate(seconds=startup + prep / (share * (workers if shared else 1))
+                    + trials / (workers * share),
                     trials=trials, prep=prep, startup=startup, workers=workers, share=share)
 
 
