@@ -190,3 +190,30 @@ def test_the_pools_resource_tracker_keeps_its_leak_warnings_off_the_commands_std
     assert quiet.stdout == loud.stdout == "None\n"
     assert quiet.stderr == ""
     assert "leaked semlock" in loud.stderr and "FileNotFoundError" in loud.stderr
+
+
+def _priority() -> int:
+    return os.getpriority(os.PRIO_PROCESS, 0)
+
+
+def test_workers_start_at_the_niceness_asked_for_and_a_pool_of_another_is_replaced():
+    """pool.set_worker_niceness (what the window asks for): the pool's workers run that
+    many nice steps below this process from their start (os.getpriority in the worker,
+    checked against this process's), the pool started earlier at another niceness is not
+    reused, and the estimate no longer counts it as warm."""
+    from workbench.sweep.estimate import pool_is_warm
+
+    before = pool._NICENESS["value"]
+    try:
+        pool.set_worker_niceness(0)
+        ex = pool._warm_pool(1)
+        assert ex.submit(_priority).result(timeout=120) == _priority()
+        pool.set_worker_niceness(3)
+        assert not pool_is_warm(1)
+        ex3 = pool._warm_pool(1)
+        assert ex3 is not ex
+        assert ex3.submit(_priority).result(timeout=120) == min(19, _priority() + 3)
+        assert pool_is_warm(1)
+    finally:
+        pool.set_worker_niceness(before)
+        pool.stop_pool()

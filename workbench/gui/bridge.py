@@ -263,6 +263,11 @@ class SweepThread(QObject):
         self._summary: dict | None = None
 
     def start(self) -> None:
+        from workbench.sweep.pool import set_worker_niceness
+
+        # the pool's workers start at a lower priority (and the ones already seen are
+        # reniced, lower_worker_priority, in case some were started otherwise)
+        set_worker_niceness(WORKER_NICENESS)
         self.thread.start()
 
     def stop(self) -> None:

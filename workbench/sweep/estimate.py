@@ -213,10 +213,12 @@ def startup_seconds(refresh: bool = False) -> float:
 
 def pool_is_warm(jobs: int) -> bool:
     """The runner's pool of ``jobs`` workers is running (its workers need no start-up)."""
+    from workbench.sweep import pool as warm
     from workbench.sweep import runner
 
     pool = getattr(runner, "_POOL", {})
-    return pool.get("executor") is not None and pool.get("workers") == jobs
+    return pool.get("executor") is not None and pool.get("workers") == jobs \
+        and pool.get("niceness", 0) == warm._NICENESS["value"]  # else it is started anew
 
 
 def busy_cores(seconds: float = 0.5) -> float:

@@ -51,6 +51,18 @@ TIMELINE_ENV, TIMELINE_T0_ENV = "WORKBENCH_TIMELINE", "WORKBENCH_TIMELINE_T0"
 POOL_IDLE_SECONDS = 300
 #: seconds between a pool worker's checks that the process that started it is alive
 PARENT_CHECK_SECONDS = 0.5
+#: how much lower a new worker's CPU priority is than this process's (``nice`` steps; 0:
+#: the same): :func:`set_worker_niceness`
+_NICENESS = {"value": 0}
+
+
+def set_worker_niceness(niceness: int) -> None:
+    """Start the pool's workers from now on this many ``nice`` steps below this process
+    (a pool of other workers is replaced when next needed). The window asks for it: its
+    workers then import and train at a lower priority from their first instruction, so the
+    event loop keeps the processor on a small machine (reniced once they had been seen,
+    they imported at full priority beside it as a sweep started)."""
+    _NICENESS["value"] = max(0, int(niceness))
 
 
 def mark(event: str) -> None:
@@ -193,9 +205,11 @@ def _warm_pool(workers: int, staggered: bool = False):
     """
     from joblib.externals.loky import ProcessPoolExecutor
 
+    niceness = _NICENESS["value"]
     with _POOL_LOCK:
         ex = _POOL.get("executor")
-        if ex is not None and _POOL.get("workers") != workers:
+        if ex is not None and (_POOL.get("workers") != workers
+                               or _POOL.get("niceness", 0) != niceness):
             _shutdown(ex)
             if _POOL.get("gate") is not None:
                 _POOL["gate"].remove()
@@ -207,8 +221,8 @@ def _warm_pool(workers: int, staggered: bool = False):
                 gate = first = FileGate()
             ex = ProcessPoolExecutor(max_workers=workers, timeout=POOL_IDLE_SECONDS,
                                      env=dict(_THREAD_ENV), initializer=_start_worker,
-                                     initargs=(os.getpid(), gate, first))
-            _POOL.update(executor=ex, workers=workers, gate=gate)
+                                     initargs=(os.getpid(), gate, first, niceness))
+            _POOL.update(executor=ex, workers=workers, gate=gate, niceness=niceness)
         return ex
 
 
@@ -276,8 +290,9 @@ def default_jobs() -> int:
     return max(1, int(cpu_count()))
 
 
-def _start_worker(parent_pid: int, gate=None, first=None) -> None:
-    """Pool worker initializer: watch the parent, then import what trials need.
+def _start_worker(parent_pid: int, gate=None, first=None, niceness: int = 0) -> None:
+    """Pool worker initializer: lower its priority by ``niceness`` (:func:`set_worker_niceness`),
+    watch the parent, then import what trials need.
 
     Importing here (not at the first trial) overlaps a new worker's imports
     with the parent's own start-up; the results cannot change, only when the
@@ -287,6 +302,11 @@ def _start_worker(parent_pid: int, gate=None, first=None) -> None:
     """
     import importlib
 
+    if niceness:
+        try:
+            os.nice(int(niceness))
+        except OSError:  # pragma: no cover - not allowed here: the worker runs as it is
+            pass
     _watch_parent(parent_pid)
     mark("worker started")
     if gate is not None and first is not None and not first.acquire(False):
