@@ -360,6 +360,46 @@ def test_bridge_reports_a_failed_job_in_one_line(qtbot):
                                           "folds (set with the “Folds” box in the set-up column)")
 
 
+def test_the_job_waits_for_the_windows_go_or_the_start_delay(qtbot, monkeypatch):
+    """SweepBridge: the job starts on go() (the window calls it once it has painted), not
+    before; without a go, after START_DELAY; a cancel lets it start (and see the cancel)."""
+    import time
+
+    from workbench.gui.bridge import SweepBridge
+
+    started = []
+
+    def job(on_event, cancel):
+        started.append((time.monotonic(), cancel.is_set()))
+        return {"state": "finished"}
+
+    monkeypatch.setattr(SweepBridge, "START_DELAY", 30.0)
+    sweep = SweepThread(job)
+    sweep.start()
+    qtbot.wait(300)
+    assert started == []  # no go yet
+    t = time.monotonic()
+    with qtbot.waitSignal(sweep.finished, timeout=5_000):
+        sweep.go()
+    assert len(started) == 1 and started[0][0] >= t and started[0][1] is False
+
+    monkeypatch.setattr(SweepBridge, "START_DELAY", 0.2)
+    started.clear()
+    t = time.monotonic()
+    other = SweepThread(job)
+    with qtbot.waitSignal(other.finished, timeout=5_000):
+        other.start()
+    assert started[0][0] - t >= 0.15  # the delay, then the job
+
+    monkeypatch.setattr(SweepBridge, "START_DELAY", 30.0)
+    started.clear()
+    third = SweepThread(job)
+    third.start()
+    with qtbot.waitSignal(third.finished, timeout=5_000):
+        third.stop()
+    assert started[0][1] is True
+
+
 # --------------------------------------------------------------------------- open command
 
 
@@ -411,6 +451,29 @@ def test_plan_summary_counts_configurations_and_trials(qapp, tmp_path):
     assert "About" in core.plan_summary(plan, choices, est)
     assert est.seconds == pytest.approx(1.5 + est.prep + est.trials / 2)
     assert "cluster" in core.plan_summary(plan, dict(choices, cluster="tcp://h:1"), est)
+
+
+def test_the_windows_calibration_runs_in_the_ranking_process(tmp_path, monkeypatch):
+    """bridge.calibrate_in_process times the plan in the ranking process, not on a thread of
+    the window's (where it held the interpreter beside the event loop): with the window
+    process's own calibrate made to fail, the result still comes, from that process."""
+    import os
+
+    from workbench.gui import bridge
+    from workbench.gui import core_adapter as core
+    from workbench.sweep.plan import build_plan
+
+    samples = Path(__file__).resolve().parents[1] / "sample_sets"
+    plan = build_plan(samples / "kiln_batches.csv", "passes_inspection", hidden="relu",
+                      layers=["8"], folds=2, repeats=1, epochs=5, baselines=[])
+
+    def here(*a, **k):
+        raise AssertionError("calibrated on the window's own process")
+
+    monkeypatch.setattr(core, "calibrate", here)
+    cal = bridge.calibrate_in_process(plan)
+    assert cal.covers(plan) and cal.feature_bytes > 0
+    assert bridge.ranker_pids() and os.getpid() not in bridge.ranker_pids()
 
 
 def test_theme_switch_recolours_the_window_and_is_remembered(qtbot, tmp_path):

@@ -309,6 +309,12 @@ def calibrate(plan, previous=None):
     return core_calibrate(plan, previous=previous)
 
 
+def calibrate_job(plan, previous=None):
+    """:func:`calibrate` looked up when called: what the ranking process runs for the window
+    (:func:`workbench.gui.bridge.calibrate_in_process`; this module has no Qt to import)."""
+    return calibrate(plan, previous)
+
+
 def startup_seconds() -> float:
     """Seconds a new worker process needs to start (measured once; off the GUI thread)."""
     from workbench.sweep.estimate import startup_seconds as core_startup
