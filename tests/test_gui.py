@@ -76,11 +76,12 @@ def networks(win) -> list[dict]:
 
 def worker_processes() -> list[psutil.Process]:
     """Live child processes that run trials (loky's resource tracker is not a worker, nor
-    is the window's ranking process, which is started once and kept)."""
-    from workbench.gui.bridge import ranker_pids
+    are the window's ranking process, started once and kept, and its calibration process,
+    which stays a minute after its last calibration)."""
+    from workbench.gui.bridge import calibration_pids, ranker_pids
 
     out = []
-    ranker = ranker_pids()
+    ranker = ranker_pids() | calibration_pids()
     for p in psutil.Process().children(recursive=True):
         if p.pid in ranker:
             continue

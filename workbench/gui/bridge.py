@@ -56,6 +56,31 @@ def _ranker_pool():
         return pool
 
 
+#: seconds the calibration process stays after its last calibration (then it exits; the
+#: next one starts it again)
+CALIBRATION_IDLE_SECONDS = 60
+
+
+def _calibration_pool():
+    """The one process that calibrates the window's time estimates (started on first use,
+    gone when idle for :data:`CALIBRATION_IDLE_SECONDS`)."""
+    with _RANKER_LOCK:
+        pool = _RANKER.get("calibration")
+        if pool is None:
+            from joblib.externals.loky import ProcessPoolExecutor
+
+            pool = ProcessPoolExecutor(max_workers=1, timeout=CALIBRATION_IDLE_SECONDS)
+            _RANKER["calibration"] = pool
+        return pool
+
+
+def calibration_pids() -> set[int]:
+    """Process ids of the calibration process (empty when it is not running)."""
+    pool = _RANKER.get("calibration")
+    procs = getattr(pool, "_processes", None) or {}
+    return {p.pid for p in procs.values()} if isinstance(procs, dict) else set()
+
+
 def ranker_pids() -> set[int]:
     """Process ids of the ranking process (empty before its first use)."""
     pool = _RANKER.get("pool")
@@ -86,19 +111,20 @@ def rank_in_process(store_path, sweep_id: str, rope=None) -> dict:
 
 def calibrate_in_process(plan, previous=None):
     """:func:`workbench.gui.core_adapter.calibrate` (the time estimate's short timed trials,
-    one to two seconds of Python), run in the ranking process: run on a thread of the
-    window's process it held the interpreter lock beside the event loop, and a sweep
-    started meanwhile began with the window's paints waiting behind it. Falls back to this
-    thread when that process cannot run."""
+    one to two seconds of Python), run in a process of its own (:func:`_calibration_pool`):
+    run on a thread of the window's process it held the interpreter lock beside the event
+    loop, and a sweep started meanwhile began with the window's paints waiting behind it.
+    Not the ranking process: a sweep's rankings would wait behind a calibration. Falls
+    back to this thread when that process cannot run."""
     from workbench.gui.core_adapter import calibrate, calibrate_job
 
     try:
-        return _ranker_pool().submit(calibrate_job, plan, previous).result()
+        return _calibration_pool().submit(calibrate_job, plan, previous).result()
     except InputError:
         raise
     except Exception:  # the process died or could not start: a new one next time
         with _RANKER_LOCK:
-            pool = _RANKER.pop("pool", None)
+            pool = _RANKER.pop("calibration", None)
         if pool is not None:
             try:
                 pool.shutdown(wait=False, kill_workers=True)
@@ -152,12 +178,10 @@ class SweepBridge(QObject):
     #: the end of the job: {"state": "finished" | "cancelled" | "failed", "message", "sweep_id", ...}
     done = Signal(dict)
 
-    #: the job waits for the window's go (:meth:`go`: the window calls it once it has painted
-    #: the results page it just switched to), at most this many seconds, before the core
-    #: starts loading the table and the workers: the paint, the table's loading on this
-    #: thread and the workers' start together held the event loop 60-110 ms (a fixed
-    #: 0.08 s wait ended before the paint, which came 0.14 s after Run on a busy machine)
-    START_DELAY = 0.5
+    #: seconds the job waits after the thread starts, so the window can
+    #: paint the results tab it just switched to before the core starts loading the table
+    #: (both need the interpreter; together they stalled the event loop for over 100 ms)
+    START_DELAY = 0.08
 
     def __init__(self, job: Callable, ranker: Callable | None = None, rank_interval: float = 0.3,
                  cleanup: Callable | None = None):
@@ -167,7 +191,6 @@ class SweepBridge(QObject):
         self._ranker = ranker
         self._interval = float(rank_interval)
         self.cancel_event = threading.Event()
-        self.go_event = threading.Event()
         self._sweep_id = None
         self._last_rank = 0.0
         self._rank_seconds = 0.0
@@ -181,11 +204,6 @@ class SweepBridge(QObject):
     def cancel(self) -> None:
         """Ask the sweep to stop (thread-safe; call it from any thread)."""
         self.cancel_event.set()
-        self.go_event.set()
-
-    def go(self) -> None:
-        """Let the job start now (thread-safe); it starts after :data:`START_DELAY` anyway."""
-        self.go_event.set()
 
     def _rank_now(self, sweep_id) -> None:
         """One ranking, handed over when done (on whichever thread runs it)."""
@@ -247,7 +265,7 @@ class SweepBridge(QObject):
     @Slot()
     def run(self) -> None:
         summary: dict = {"state": "failed", "message": "", "sweep_id": None}
-        self.go_event.wait(self.START_DELAY)  # returns at once on go or cancel
+        self.cancel_event.wait(self.START_DELAY)  # returns at once when cancelled
         try:
             result = self._job(self._on_event, self.cancel_event) or {}
             summary.update(result)
@@ -300,10 +318,6 @@ class SweepThread(QObject):
         # reniced, lower_worker_priority, in case some were started otherwise)
         set_worker_niceness(WORKER_NICENESS)
         self.thread.start()
-
-    def go(self) -> None:
-        """The window has painted: the job may start (:meth:`SweepBridge.go`)."""
-        self.bridge.go()
 
     def stop(self) -> None:
         self.bridge.cancel()

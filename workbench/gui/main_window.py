@@ -986,8 +986,6 @@ class MainWindow(QMainWindow):
         self._sweep.start()
         self._update_actions()
         self._update_progress_text()
-        # the core starts once this is painted (SweepBridge.START_DELAY)
-        after_paint(self, self._sweep.go)
 
     def stop_sweep(self) -> None:
         if self.sweep_running():
