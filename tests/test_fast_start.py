@@ -286,6 +286,14 @@ def test_the_start_up_timeline_is_written_only_when_asked_and_in_order(tmp_path,
              if line.startswith("timeline ")]
     parent = lines[0][1]
     steps = [(float(t), what) for t, pid, what in lines if pid == parent]
+    # the folds' shared features (fold_files, on every table by default), prepared by a
+    # thread of the parent: the first trial's fold before the first trial goes out
+    folds = [what for _, what in steps if what.startswith("fold ")]
+    assert folds[:1] == ["fold 0/0 shared"] and sorted(folds) == ["fold 0/0 shared",
+                                                                  "fold 0/1 shared"]
+    order = [what for _, what in steps]
+    assert order.index("fold 0/0 shared") < order.index("first trial handed to a worker")
+    steps = [(t, what) for t, what in steps if not what.startswith("fold ")]
     assert [what for _, what in steps] == [
         "sweep command started", "workers started", "parent imports done",
         "plan built (table read)", "sweep stored, trials about to be handed out",
