@@ -143,84 +143,23 @@ def test_the_verdict_keeps_its_labels_when_a_ranking_changes_its_statements(qtbo
                     timeout=5_000)
 
 
-class _PaintLog:
-    """Notes, in order, each paint request (``UpdateRequest``) a window receives."""
-
-    def __init__(self, window, log, what):
-        from PySide6.QtCore import QEvent, QObject
-
-        class Filter(QObject):
-            def eventFilter(self, obj, event):  # noqa: N802 - Qt override
-                if obj is window and event.type() == QEvent.UpdateRequest:
-                    log.append(("paint", what()))
-                return False
-
-        self.filter = Filter()
-        window.installEventFilter(self.filter)
-
-
-def test_after_paint_runs_after_the_windows_next_paint_or_after_the_fallback(qtbot):
-    """workbench.gui.turns.after_paint: never at once; after the paint of what changed;
-    once; and after FALLBACK_MS when nothing is painted (a hidden widget)."""
+def test_after_paint_calls_back_later_and_not_after_its_widget_is_gone(qtbot):
+    """workbench.gui.turns.after_paint: never in the same turn, PAINT_GAP_MS later (longer
+    than the 5 ms Qt waits before a window's paint), and not at all once the widget is
+    deleted (the timer is the widget's)."""
     from PySide6.QtWidgets import QLabel
 
     from workbench.gui import turns
 
+    assert turns.PAINT_GAP_MS > 5
     label = QLabel("one")
     qtbot.addWidget(label)
-    label.resize(200, 40)
-    label.show()
-    qtbot.waitExposed(label)
-    for _ in range(3):
-        QApplication.processEvents()
-    log = []
-    paints = _PaintLog(label, log, lambda: label.text())  # noqa: F841 - kept alive
-    turns.after_paint(label, lambda: log.append(("step", label.text())), fallback_ms=60_000)
-    qtbot.wait(80)  # turns go by, nothing to paint: the step waits (a plain timer would not)
-    assert log == []
-    label.setText("two")
-    qtbot.waitUntil(lambda: ("step", "two") in log, timeout=5_000)
-    assert log.index(("paint", "two")) < log.index(("step", "two"))
-    for _ in range(5):
-        QApplication.processEvents()
-    assert log.count(("step", "two")) == 1
-
-    hidden = QLabel("never shown")
-    qtbot.addWidget(hidden)
-    done = []
-    turns.after_paint(hidden, lambda: done.append(True))
-    qtbot.waitUntil(lambda: done == [True], timeout=5_000)
-
-
-def test_each_staged_panel_is_painted_in_a_paint_of_its_own(qtbot):
-    """The end of a sweep's staged drawing: the window paints after each panel, before
-    the next one is drawn (two panels' first paints in one turn held the loop too long).
-    The log holds what was drawn at each paint: the curves alone, then with the fold
-    scores, then everything."""
-    area = _area(qtbot)
-    qtbot.waitExposed(area)
-    log = []
-    paints = _PaintLog(area.window(), log, lambda: _drawn(area))  # noqa: F841 - kept alive
     called = []
-    area.show_rows([_row(0, [0.5, 0.3, 0.2]), _row(1, [0.6, 0.4, 0.35])],
-                   then=lambda: called.append(True))
-    qtbot.waitUntil(lambda: bool(called), timeout=5_000)
-    seen = [state for kind, state in log if kind == "paint"]
-    assert seen[:3] == [(True, False, False), (True, True, False), (True, True, True)]
-
-
-def test_prepared_plots_make_no_items_when_first_drawn(qtbot):
-    """PlotArea.prepare_later makes the items of PREPARED_SERIES rows while the window is
-    idle; the first drawing of that many rows then makes none (it updates them)."""
-    area = _area(qtbot)
-    panels = [area.curves, area.spread, area.health]
-    before = [p.items_made() for p in panels]
-    area.prepare_later()
-    qtbot.waitUntil(lambda: all(p.items_made() > b for p, b in zip(panels, before)),
-                    timeout=5_000)
-    qtbot.wait(200)  # every panel's step has run
-    prepared = [p.items_made() for p in panels]
-    rows = [_row(i, [0.5 + i / 10, 0.3, 0.2]) for i in range(area.PREPARED_SERIES)]
-    area.show_rows(rows)
-    assert [p.items_made() for p in panels] == prepared
-    assert all(p._series for p in panels)
+    turns.after_paint(label, lambda: called.append("label"))
+    assert called == []
+    qtbot.waitUntil(lambda: called == ["label"], timeout=5_000)
+    gone = QLabel("gone")
+    turns.after_paint(gone, lambda: called.append("gone"))
+    gone.deleteLater()
+    qtbot.wait(100)
+    assert called == ["label"]

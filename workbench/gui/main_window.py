@@ -12,7 +12,6 @@ All work happens off the GUI thread: loading and profiling through
 
 from __future__ import annotations
 
-import sys
 import time
 from pathlib import Path
 
@@ -89,14 +88,6 @@ SWEEP_MODULES = ("workbench.sweep.runner", "workbench.sweep.trials",
                  "workbench.data.preprocessing", "joblib", "sklearn.dummy",
                  "sklearn.discriminant_analysis")
 WARM_UP_DELAY_MS = 0
-#: how often (seconds) Python hands the interpreter lock from one thread of the window's
-#: process to another (``sys.setswitchinterval``; Python's default is 0.005). The sweep's
-#: own thread (:mod:`workbench.gui.bridge`: storing trials, racing, reading the table at
-#: the start) runs Python beside the event loop, and every call from Qt into the window's
-#: Python code (a paint, a model's ``data``) waits for the lock: a paint that makes dozens
-#: of such calls waited up to 5 ms for each (measured at a sweep's start: 93 ms of wall
-#: time for 14 ms of the event loop's own CPU). 1 ms keeps those waits short.
-GIL_SWITCH_SECONDS = 0.001
 #: least milliseconds between two updates of the results from a running sweep's rankings
 #: (a ranking that arrives sooner waits, and only the newest waiting one is shown)
 RANKED_INTERVAL_MS = 250
@@ -282,11 +273,6 @@ class MainWindow(QMainWindow):
         # imported by the sweep's thread when Run is pressed, they held the interpreter
         # (and the window's event loop) for hundreds of milliseconds as the sweep started
         QTimer.singleShot(WARM_UP_DELAY_MS, self._warm_up)
-        if sys.getswitchinterval() > GIL_SWITCH_SECONDS:
-            sys.setswitchinterval(GIL_SWITCH_SECONDS)
-        # the plots' items, made while the window is idle (one panel per turn): made at the
-        # first drawing, at the end of the first sweep, they lengthened that turn
-        self.plot_area.prepare_later()
 
     @staticmethod
     def _warm_up() -> None:

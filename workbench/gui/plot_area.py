@@ -20,7 +20,6 @@ from __future__ import annotations
 
 import html
 
-import shiboken6
 from PySide6.QtCore import QEvent, Qt, Signal
 from PySide6.QtWidgets import (
     QFrame,
@@ -155,20 +154,6 @@ class PlotArea(QWidget):
 
     def panels(self):
         return [self.curves, self.spread, self.health, self.calibration]
-
-    #: how many selected rows' plot items :meth:`prepare_later` makes in advance
-    PREPARED_SERIES = 2
-
-    def prepare_later(self) -> None:
-        """Make the plot items of :data:`PREPARED_SERIES` rows in advance, one panel per
-        turn of the event loop (:meth:`workbench.gui.plots._Panel.prepare`)."""
-        panels = [p for p in self.panels() if hasattr(p, "prepare")]
-
-        def step(i=0):
-            if i < len(panels) and shiboken6.isValid(panels[i]):
-                panels[i].prepare(self.PREPARED_SERIES)
-                after_paint(self, lambda: step(i + 1))
-        after_paint(self, step)
 
     def series(self) -> list[dict]:
         """The series now shown, in rank order."""

@@ -226,21 +226,6 @@ class _Pool:
             item.setVisible(True)
         return item
 
-    def reserve(self, n: int) -> int:
-        """Make items until ``n`` exist, added to the plot and hidden (what the first
-        :meth:`take` calls would make); returns how many were made. Making a pyqtgraph
-        item costs about a millisecond or two, so a panel's first drawing, at the end of
-        a sweep, took 10-25 ms longer than the next ones."""
-        made = 0
-        while len(self.items) < n:
-            item = self.make()
-            item.setVisible(False)
-            self.plot.addItem(item)
-            self.items.append(item)
-            self.made += 1
-            made += 1
-        return made
-
     def end(self) -> None:
         for item in self.items[self.used:]:
             if item.isVisible():
@@ -385,12 +370,6 @@ class _Panel(QWidget):
     def _pools(self) -> tuple:
         """The panel's item pools (none here: a panel that draws its own way)."""
         return ()
-
-    def prepare(self, series: int = 1) -> int:
-        """Make, hidden, the items a drawing of ``series`` rows takes (:meth:`_Pool.reserve`),
-        so that the first drawing only updates them; returns how many were made. The
-        window calls it once, when it is idle after opening."""
-        return sum(pool.reserve(series) for pool in self._pools())
 
     def _set_series(self) -> None:  # pragma: no cover - overridden
         raise NotImplementedError
@@ -758,11 +737,6 @@ class HealthPanel(_Panel):
 
     def _pools(self) -> tuple:
         return (self._bar_pool, self._grad_pool)
-
-    def prepare(self, series: int = 1) -> int:
-        """As :meth:`_Panel.prepare`, with two bars (dead, saturated) per row of one hidden
-        layer."""
-        return self._bar_pool.reserve(2 * series) + self._grad_pool.reserve(series)
 
     def _set_series(self) -> None:
         self._bars = []
