@@ -145,8 +145,9 @@ def test_the_verdict_keeps_its_labels_when_a_ranking_changes_its_statements(qtbo
 
 def test_after_paint_calls_back_later_and_not_after_its_widget_is_gone(qtbot):
     """workbench.gui.turns.after_paint: never in the same turn, PAINT_GAP_MS later (longer
-    than the 5 ms Qt waits before a window's paint), and not at all once the widget is
-    deleted (the timer is the widget's)."""
+    than the 5 ms some platforms wait before a window's paint: from memory,
+    QPlatformWindow::requestUpdate), and not at all once the widget is deleted (the timer
+    is the widget's)."""
     from PySide6.QtWidgets import QLabel
 
     from workbench.gui import turns
