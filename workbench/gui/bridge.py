@@ -88,25 +88,33 @@ def ranker_pids() -> set[int]:
     return {p.pid for p in procs.values()} if isinstance(procs, dict) else set()
 
 
+def _in_kept_process(key: str, pool_of, there, here, *args):
+    """``there(*args)`` in the kept process ``pool_of()`` (``_RANKER[key]``); if that process
+    died or cannot start, it is dropped (a new one next time) and ``here(*args)`` runs on
+    this thread instead. A refusal (InputError) is the caller's."""
+    try:
+        return pool_of().submit(there, *args).result()
+    except InputError:
+        raise
+    except Exception:  # the process died or could not start: a new one next time
+        with _RANKER_LOCK:
+            pool = _RANKER.pop(key, None)
+        if pool is not None:
+            try:
+                pool.shutdown(wait=False, kill_workers=True)
+            except Exception:  # pragma: no cover - already broken
+                pass
+        return here(*args)
+
+
 def rank_in_process(store_path, sweep_id: str, rope=None) -> dict:
     """:func:`workbench.gui.core_adapter.ranked_rows` of a stored sweep, computed in the
     ranking process (read from the store file: SQLite lets it read while the sweep
     writes). Falls back to this thread when that process cannot run."""
     from workbench.gui.core_adapter import ranked_rows
 
-    try:
-        return _ranker_pool().submit(ranked_rows, store_path, sweep_id, rope).result()
-    except InputError:
-        raise
-    except Exception:  # the process died or could not start: a new one next time
-        with _RANKER_LOCK:
-            pool = _RANKER.pop("pool", None)
-        if pool is not None:
-            try:
-                pool.shutdown(wait=False, kill_workers=True)
-            except Exception:  # pragma: no cover - already broken
-                pass
-        return ranked_rows(store_path, sweep_id, rope)
+    return _in_kept_process("pool", _ranker_pool, ranked_rows, ranked_rows, store_path,
+                            sweep_id, rope)
 
 
 def calibrate_in_process(plan, previous=None):
@@ -118,19 +126,8 @@ def calibrate_in_process(plan, previous=None):
     back to this thread when that process cannot run."""
     from workbench.gui.core_adapter import calibrate, calibrate_job
 
-    try:
-        return _calibration_pool().submit(calibrate_job, plan, previous).result()
-    except InputError:
-        raise
-    except Exception:  # the process died or could not start: a new one next time
-        with _RANKER_LOCK:
-            pool = _RANKER.pop("calibration", None)
-        if pool is not None:
-            try:
-                pool.shutdown(wait=False, kill_workers=True)
-            except Exception:  # pragma: no cover - already broken
-                pass
-        return calibrate(plan, previous)
+    return _in_kept_process("calibration", _calibration_pool, calibrate_job, calibrate,
+                            plan, previous)
 
 
 def lower_worker_priority(seen: set[int], niceness: int = WORKER_NICENESS) -> int:
