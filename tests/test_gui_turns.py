@@ -19,7 +19,8 @@ def _band(values):
 
 def _row(i, loss):
     scores = (0.8 - 0.01 * i, 0.82 - 0.01 * i)
-    series = {"loss": _band(loss), "loss_kind": "squared_error:sd",
+    series = {"loss": _band(loss), "test_score": _band([0.7, 0.75][:len(loss)]),
+              "loss_kind": "squared_error:sd",
               "loss_words": "squared error", "metric": "r2", "fold_scores": list(scores),
               "mean": float(np.mean(scores)), "sd": float(np.std(scores)), "diverged": False,
               "health": {"dead": [0.0], "saturated": [0.0], "grad_norm": [0.05, 0.02]},
@@ -30,6 +31,11 @@ def _row(i, loss):
 
 def _drawn(area) -> tuple[bool, bool, bool]:
     return tuple(bool(p._series) for p in (area.curves, area.spread, area.health))
+
+
+def _score_lines(area) -> int:
+    """The held-out score lines the curves panel draws now (its second part)."""
+    return len(area.curves._val_lines.shown())
 
 
 def _area(qtbot):
@@ -53,8 +59,11 @@ def test_staged_show_draws_one_panel_per_turn_then_calls_back(qtbot):
         called.append(_drawn(area))
 
     area.show_rows(rows, then=then)
-    seen.append(_drawn(area))  # right after the call: the curves only (and the legend)
+    seen.append(_drawn(area))  # right after the call: the loss curves only (and the legend)
     assert seen == [(True, False, False)] and not called
+    assert len(area.curves.curve_items()) == 2 and _score_lines(area) == 0
+    qtbot.waitUntil(lambda: _score_lines(area) == 2, timeout=5_000)  # a turn later
+    assert _drawn(area) == (True, False, False)  # the fold scores on a turn of their own
     assert not area.legend.isHidden() and area.staging()
     assert not area.spread.empty.isHidden()  # still its empty sentence
     qtbot.waitUntil(lambda: bool(called), timeout=5_000)

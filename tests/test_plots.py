@@ -466,3 +466,139 @@ def test_the_selection_note_is_shown_whole_in_its_fixed_box(qtbot, window):
         assert box.height() >= note.heightForWidth(box.width()) > 0
     box.resize(200, box.height())  # narrow: the text needs more lines, the box follows
     qtbot.waitUntil(lambda: box.height() >= note.heightForWidth(200), timeout=2_000)
+
+
+def test_the_curves_drawn_in_two_parts_show_what_one_draw_shows(qtbot):
+    """The staged selection draws the loss plot, then (a turn later) the score plot: the
+    two parts in order leave what one ``set_series`` leaves, and the first part alone
+    leaves the score plot as it was (wiring: a part drawing the other plot's items, or
+    the note said before the score part's sentences, would differ)."""
+    one = CurvesPanel()
+    two = CurvesPanel()
+    for p in (one, two):
+        qtbot.addWidget(p)
+        p.resize(420, 260)
+        p.show()
+    one.set_series(_selection_a())
+    two.set_series(_selection_b())
+    score_before = [(i.getData()[0].tolist(), i.getData()[1].tolist())
+                    for i in two._val_lines.shown()]
+    first, second = two.parts(_selection_a())
+    first()
+    assert [(i.getData()[0].tolist(), i.getData()[1].tolist())
+            for i in two._val_lines.shown()] == score_before
+    assert _drawn(two)[0] == _drawn(one)[0]  # the loss plot is already the new one
+    second()
+    assert _drawn(two) == _drawn(one)
+    assert two.loss_plot.toolTip() == one.loss_plot.toolTip() != ""
+
+
+# --------------------------------------------------------------------------- grid lines
+
+
+def _grid_pixels(widget, axis_cls, bg: str):
+    """The pixels of a plot whose only items are its grid (axes of ``axis_cls``)."""
+    import pyqtgraph as pg
+    from PySide6.QtGui import QColor
+
+    kw = {} if axis_cls is None else {"axisItems": {"left": axis_cls("left"),
+                                                    "bottom": axis_cls("bottom")}}
+    w = pg.PlotWidget(**kw)
+    w.setBackground(bg)
+    w.showGrid(x=True, y=True, alpha=0.18)
+    for name in ("left", "bottom"):
+        ax = w.getPlotItem().getAxis(name)
+        ax.setPen(pg.mkPen("#000000" if bg == "#ffffff" else "#e0e0e0"))
+        if hasattr(ax, "set_background"):
+            ax.set_background(QColor(bg))
+            ax.put_under(w.getPlotItem().getViewBox())  # (as the panels do)
+    w.setXRange(0, 10, padding=0)
+    w.setYRange(0, 1, padding=0)
+    w.resize(300, 200)
+    widget.append(w)
+    img = w.grab().toImage()
+    vb = w.getPlotItem().getViewBox().sceneBoundingRect().toRect().adjusted(2, 2, -2, -2)
+    return np.array([[img.pixelColor(x, y).getRgb()[:3] for x in range(vb.left(), vb.right())]
+                     for y in range(vb.top(), vb.bottom())], dtype=int)
+
+
+@pytest.mark.parametrize("bg", ["#ffffff", "#25292e"])
+def test_opaque_grid_lines_give_the_pixels_of_pyqtgraphs_translucent_ones(qtbot, bg):
+    """Reference: pyqtgraph's own axis (translucent grid pens) composited by Qt's raster
+    engine. The opaque pens (``opaque_pen``: "source over", Porter & Duff 1984) give the same
+    pixels inside the plot, on the light and the dark background, to one unit of
+    rounding, except where two grid lines cross (translucent lines darken each other
+    there; of two opaque ones the later shows); and the grid is really drawn."""
+    from workbench.gui.plots import GridAxis
+
+    keep: list = []
+    ref = _grid_pixels(keep, None, bg)
+    ours = _grid_pixels(keep, GridAxis, bg)
+    for w in keep:
+        qtbot.addWidget(w)
+    assert ref.shape == ours.shape
+    background = np.array([int(bg[i:i + 2], 16) for i in (1, 3, 5)])
+    off = np.abs(ref - background).sum(axis=2) > 3
+    rows, cols = off.mean(axis=1) > 0.5, off.mean(axis=0) > 0.5  # the grid's lines
+    assert rows.sum() >= 3 and cols.sum() >= 3  # (the grid is drawn)
+    crossing = rows[:, None] & cols[None, :]
+    assert np.abs(ref - ours)[~crossing].max() <= 1
+    assert (np.abs(ours - background).sum(axis=2) > 3)[~crossing].sum() == off[~crossing].sum()
+    # ... drawn with opaque pens (the point: Qt fills opaque lines fast), pyqtgraph's not
+    from PySide6.QtGui import QImage, QPainter
+
+    alphas = []
+    for w in keep:
+        img = QImage(8, 8, QImage.Format_ARGB32_Premultiplied)
+        painter = QPainter(img)
+        specs = w.getPlotItem().getAxis("left").generateDrawSpecs(painter)
+        painter.end()
+        alphas.append({pen.color().alpha() for pen, _, _ in specs[1]})
+    assert min(alphas[0]) < 255 and alphas[1] == {255}
+
+
+def test_opaque_pen_is_the_colour_qt_composites_over_the_background(qtbot):
+    """Reference: QPainter filling a pixel with the translucent colour over the background
+    (Qt's CompositionMode_SourceOver)."""
+    from PySide6.QtGui import QColor, QImage, QPainter, QPen
+
+    from workbench.gui.plots import opaque_pen
+
+    for fg, alpha, bg in [("#000000", 46, "#ffffff"), ("#e0e0e0", 30, "#25292e"),
+                          ("#1f77b4", 128, "#fafafa"), ("#000000", 255, "#ffffff")]:
+        img = QImage(4, 4, QImage.Format_ARGB32_Premultiplied)
+        img.fill(QColor(bg))
+        p = QPainter(img)
+        c = QColor(fg)
+        c.setAlpha(alpha)
+        p.fillRect(0, 0, 4, 4, c)
+        p.end()
+        want = np.array(img.pixelColor(1, 1).getRgb()[:3])
+        pen = QPen(c)
+        got = opaque_pen(pen, QColor(bg)).color()
+        assert got.alpha() == 255
+        assert np.abs(np.array(got.getRgb()[:3]) - want).max() <= 1, (fg, alpha, bg)
+
+
+def test_every_panel_draws_its_grid_under_the_data_on_the_themes_background(qtbot):
+    """Wiring: each panel's plots carry the opaque-grid axes, below the view box (opaque
+    lines over the curves would cut them), blended over the theme's own plot background
+    (a dark theme's grid blended over white would be drawn in bright lines)."""
+    from PySide6.QtGui import QColor
+
+    from workbench.gui import theme as th
+    from workbench.gui.calibration_panel import CalibrationPanel
+    from workbench.gui.plots import GridAxis
+
+    for cls in (CurvesPanel, SpreadPanel, HealthPanel, CalibrationPanel):
+        panel = cls()
+        qtbot.addWidget(panel)
+        for theme in (th.DARK, th.LIGHT):
+            panel.set_theme(theme)
+            for w in panel.plots():
+                item = w.getPlotItem()
+                for name in ("left", "bottom"):
+                    ax = item.getAxis(name)
+                    assert isinstance(ax, GridAxis), (cls.__name__, name)
+                    assert ax.zValue() < item.getViewBox().zValue()
+                    assert ax.background == QColor(theme.plot_bg), (cls.__name__, theme)

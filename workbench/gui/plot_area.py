@@ -164,11 +164,11 @@ class PlotArea(QWidget):
         """Show the selected rows (any order; shown by rank).
 
         With ``then`` (a callable), the panels are drawn one per turn of the event loop
-        (legend and curves, fold scores, layer health, the rest), then ``then()`` is
-        called: showing the plots from their empty state lays each one out, and the three
-        laid out and painted in one turn held the loop for 60-100 ms (at the end of a
-        sweep, when the best row is selected). A call meanwhile draws everything at once
-        and still calls the earlier ``then``.
+        (legend and loss curves, score curves, fold scores, layer health, the rest), then
+        ``then()`` is called: showing the plots from their empty state lays each one out,
+        and the three laid out and painted in one turn held the loop for 60-100 ms (at the
+        end of a sweep, when the best row is selected). A call meanwhile draws everything at
+        once and still calls the earlier ``then``.
         """
         series = []
         rows = _order([r for r in rows if r.get("series")])
@@ -186,7 +186,8 @@ class PlotArea(QWidget):
         self._series = series
         earlier, self._then = self._then, None
         self._stage += 1
-        steps = [lambda: (self._legend(), self.curves.set_series(series)),
+        first, *more = self.curves.parts(series)
+        steps = [lambda: (self._legend(), first()), *more,
                  lambda: self.spread.set_series(series),
                  lambda: self.health.set_series(series),
                  lambda: self._show_rest(series)]
