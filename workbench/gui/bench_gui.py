@@ -140,6 +140,22 @@ def bench_clicks(win, app, n: int = 12) -> dict:
             "max_s": max(times) if times else float("nan")}
 
 
+def bench_collection(repeats: int = 3) -> dict:
+    """Seconds of a full garbage collection in the process as it is now (a window open),
+    with every object unfrozen (as before :mod:`workbench.gui.heap`) and then frozen as
+    the window freezes them. Medians of ``repeats``."""
+    import gc
+
+    from workbench.gui import heap
+
+    gc.unfreeze()
+    tracked = len(gc.get_objects())
+    unfrozen = statistics.median(_time(gc.collect, repeats))
+    heap.freeze()
+    frozen = statistics.median(_time(gc.collect, repeats))
+    return {"tracked": tracked, "unfrozen_s": unfrozen, "frozen_s": frozen}
+
+
 def bench_stall(quick: bool = False, timeout_s: float = 300.0, jobs: int | None = None) -> dict:
     """Run a small sweep in the window and record the event loop's heartbeat gaps."""
     from PySide6.QtCore import QElapsedTimer, QEventLoop, QTimer
@@ -204,6 +220,7 @@ def bench_stall(quick: bool = False, timeout_s: float = 300.0, jobs: int | None 
     seconds = time.perf_counter() - t0
     beat.stop()
     clicks = bench_clicks(win, app)
+    collection = bench_collection()
     win.close()
     app.processEvents()
     trials = win.results_model.rows()
@@ -211,7 +228,7 @@ def bench_stall(quick: bool = False, timeout_s: float = 300.0, jobs: int | None 
     jobs_used = s.jobs_spin.value()
     return {**heartbeat_figures(gaps, cpu), "load_before": load_before, "jobs": jobs_used,
             "trials": n_trials, "seconds": seconds, "click_median_s": clicks["median_s"],
-            "click_max_s": clicks["max_s"], "clicks": clicks["n"],
+            "click_max_s": clicks["max_s"], "clicks": clicks["n"], "collection": collection,
             "state": (summary[0] if summary else {}).get("state", "timeout")}
 
 
@@ -265,6 +282,9 @@ def run(quick: bool = False) -> dict:
         f"a click on a results row until its plots are drawn: median "
         f"{stall['click_median_s'] * 1e3:.0f} ms, worst {stall['click_max_s'] * 1e3:.0f} ms "
         f"over {stall['clicks']} clicks (goal <= 100 ms)",
+        f"a full garbage collection in the window ({stall['collection']['tracked']:,} objects "
+        f"tracked): {stall['collection']['unfrozen_s'] * 1e3:.1f} ms; with the window's objects "
+        f"frozen (workbench.gui.heap): {stall['collection']['frozen_s'] * 1e3:.2f} ms",
     ]
     if spare is not None:
         lines.append(f"  with {spare['jobs']} worker(s), leaving a core to the window: longest stall "
@@ -288,6 +308,8 @@ def run(quick: bool = False) -> dict:
         "sweep_jobs": stall["jobs"],
         "click_median_s": stall["click_median_s"],
         "click_max_s": stall["click_max_s"],
+        "gc_full_unfrozen_s": stall["collection"]["unfrozen_s"],
+        "gc_full_frozen_s": stall["collection"]["frozen_s"],
         "stall_max_s_spare_core": None if spare is None else spare["stall_s"],
         "heartbeat_p99_gap_s_spare_core": None if spare is None else spare["p99_gap_s"],
     }
