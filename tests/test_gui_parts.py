@@ -434,6 +434,10 @@ def test_plan_summary_counts_configurations_and_trials(qapp, tmp_path):
     assert "12 configurations × 3 folds × 2 repeats = 72 trials" in text
     assert "timing" in text
     # a calibration on one epoch count per configuration: the estimate adds up its parts
+    # (no warm pool left by an earlier test's sweep: its workers would need no start-up)
+    from workbench.sweep.pool import stop_pool
+
+    stop_pool()
     cal = core.calibrate(plan)
     assert cal.covers(plan) and core.estimate(plan, cal, 2, None) is None
     est = core.estimate(plan, cal, 2, 1.5)
