@@ -13,7 +13,9 @@ pass then walks only what was made since, and took well under a millisecond. The
 freezes what it holds after its start-up imports, when a table is loaded and as a sweep
 starts. A frozen object is still freed when its last reference goes (reference
 counting); only garbage already caught in a reference cycle at that moment is kept for
-good, and there is little of it (a few hundred objects, measured at the same points).
+good, and there is little of it: 0 to 20 objects at each freeze of a window that loaded
+a table and ran four sweeps (a collection run just before each freeze, to count them),
+its frozen objects and memory the same after the fourth sweep as after the first.
 """
 
 from __future__ import annotations
