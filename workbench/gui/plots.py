@@ -605,10 +605,6 @@ class CurvesPanel(_Panel):
                 lambda: self._draw_part(series, self._score_pools(), self._set_score,
                                         [self.val_plot])]
 
-    def _set_series(self) -> None:
-        self._set_loss()
-        self._set_score()
-
     def _set_loss(self) -> None:
         self._curves = []
         self.clipped = {}
@@ -689,7 +685,7 @@ class CurvesPanel(_Panel):
     def _set_score(self) -> None:
         """The score plot: the held-out fold's score per epoch, else early stopping's; then
         the panel's note and tooltip (the loss part's sentences first)."""
-        notes, tips = getattr(self, "_notes", []), getattr(self, "_tips", [])
+        notes, tips = self._notes, self._tips
         if not self._series:
             self._say("")
             return
