@@ -573,3 +573,32 @@ def test_heartbeat_figures_from_gaps_and_the_gui_threads_cpu_clock():
     assert f["p99_gap_s"] == pytest.approx(0.010)
     assert f["busy_max_s"] == pytest.approx(0.025)
     assert f["busy_p99_s"] == pytest.approx(0.001)
+
+
+def test_the_window_bench_sweeps_the_default_plan_when_asked(qapp, monkeypatch):
+    """Wiring: ``bench_stall(default_plan=True)`` sweeps what the window's default plan
+    ticks (``workbench.gui.app.default_choices``: the advice's hidden activations and
+    heads); without it, the bench's small fixed sweep. The sweep itself is left out here
+    (its end is signalled at once): the figures are the bench's, not a test's."""
+    from PySide6.QtCore import QTimer
+
+    from workbench.gui import bench_gui
+    from workbench.gui import core_adapter as core
+    from workbench.gui.main_window import MainWindow
+
+    seen = []
+
+    def run_sweep(self):
+        seen.append((sorted(self.setup.hidden_grid.checked()),
+                     sorted(self.setup.head_grid.checked()),
+                     sorted(core.default_hidden(self.summary)),
+                     sorted(core.default_heads(self.summary))))
+        QTimer.singleShot(0, lambda: self.sweepEnded.emit({"state": "finished"}))
+
+    monkeypatch.setattr(MainWindow, "run_sweep", run_sweep)
+    bench_gui.bench_stall(default_plan=True, timeout_s=20)
+    bench_gui.bench_stall(timeout_s=20)
+    (hidden, heads, want_hidden, want_heads), (fixed_hidden, fixed_heads, *_) = seen
+    assert (hidden, heads) == (want_hidden, want_heads)
+    assert (fixed_hidden, fixed_heads) == (["gelu", "relu", "silu", "tanh"], ["logistic"])
+    assert (hidden, heads) != (fixed_hidden, fixed_heads)  # (the test can tell them apart)
