@@ -208,28 +208,3 @@ def test_text_codes_keep_the_order_when_room_between_neighbours_runs_out(table):
         assert shown == sorted(shown, reverse=order == Qt.DescendingOrder)
         assert list(model.view_order_from_items()) == list(model._order)
 
-
-def test_every_cell_is_an_item_qt_made_whichever_way_its_row_came(table):
-    """The cells are copies of an item Qt made (``shiboken6.createdByPython``, the
-    binding's own account, is False), from ``set_rows`` and from ``upsert`` alike: an
-    item made from Python is the binding's subclass, whose virtual functions look for a
-    Python override at each call, three per comparison of Qt's sort (twice as slow on
-    10,000 rows, ``workbench bench --gui``). They still sort, show and carry their data."""
-    import shiboken6
-
-    model, proxy, view = table
-    rows = _rows(12)
-    model.set_rows(rows[:6])
-    model.upsert(rows)
-    assert model.rowCount() == len(rows)
-    for v in range(model.rowCount()):
-        for c in range(len(COLUMN_KEYS)):
-            item = model.item(v, c)
-            assert item is not None and not shiboken6.createdByPython(item), (v, c)
-    # (the check can tell: an item made here is the binding's)
-    from PySide6.QtGui import QStandardItem
-
-    assert shiboken6.createdByPython(QStandardItem())
-    model.sort(COLUMN_KEYS.index("dead_pct"), Qt.DescendingOrder)
-    assert (model.view_order_from_items() == model._order).all()
-    _shown_matches_rows(model)

@@ -311,11 +311,15 @@ class ResultsModel(QStandardItemModel):
         cells = self._cells(row)
         items = []
         for c, cell in enumerate(cells):
-            item = _new_cell()
+            # made here, from Python, not copied from an item Qt made: Qt-made items sorted
+            # twice as fast, but Qt frees them without the binding hearing of it, and the
+            # binding later handed a stale item wrapper back for another object at the same
+            # address (a selection model read as an item; a crash of the test process)
+            item = QStandardItem()
             # the sort keys first: a cell keeps its roles in a list, in the order they were
             # first set, and Qt's sort looks the key up in that list at every comparison
-            # (10,000 rows sorted in a median 41 ms against 58 ms with the keys last,
-            # interleaved in one process)
+            # (10,000 rows of nine roles sorted in a median 75 ms against 96 ms with the
+            # keys last, nine sorts of each interleaved in one process)
             item.setData(cell[-2], UP_ROLE)
             item.setData(cell[-1], DOWN_ROLE)
             item.setFlags(flags)
@@ -591,25 +595,6 @@ class ResultsModel(QStandardItemModel):
         n = self.rowCount()
         return np.fromiter((self.item(v, 0).data(STORE_ROLE) for v in range(n)),
                            dtype=np.int64, count=n)
-
-
-#: an item Qt made itself, kept for its copies (:func:`_new_cell`)
-_PROTOTYPE: list[QStandardItem] = []
-
-
-def _new_cell() -> QStandardItem:
-    """An empty cell made by Qt's own code: a copy (``clone``) of an item Qt made.
-
-    An item made from Python is an instance of the binding's subclass, whose every virtual
-    function (``data``, ``operator<``) first looks for a Python override, and Qt's sort
-    makes three such calls per comparison. Sorting 10,000 rows took 87-137 ms on
-    Python-made cells and 31-56 ms on these (after the first sort), in one run of each on a
-    quiet machine; making the rows took as long either way (3.1-3.5 s for 10,000)."""
-    if not _PROTOTYPE:
-        scratch = QStandardItemModel(1, 1)
-        scratch.itemFromIndex(scratch.index(0, 0))  # (made by the model, in C++)
-        _PROTOTYPE.append(scratch.takeItem(0, 0))
-    return _PROTOTYPE[0].clone()
 
 
 def _stable_order(keys: np.ndarray, descending: bool) -> np.ndarray:
