@@ -300,6 +300,11 @@ def run(quick: bool = False) -> dict:
         f"tracked): {stall['collection']['unfrozen_s'] * 1e3:.1f} ms; with the window's objects "
         f"frozen (workbench.gui.heap): {stall['collection']['frozen_s'] * 1e3:.2f} ms",
     ]
+    if spare is not None:
+        lines.append(f"  with {spare['jobs']} worker(s), leaving a core to the window: longest stall "
+                     f"{spare['stall_s'] * 1e3:.1f} ms, 99th percentile gap "
+                     f"{spare['p99_gap_s'] * 1e3:.1f} ms (load average before "
+                     f"{spare['load_before']:.2f})")
     if default is not None:
         lines.append(f"the window's default plan on the same table ({default['trials']} trials, "
                      f"{default['seconds']:.1f} s): longest stall {default['stall_s'] * 1e3:.1f} ms, "
@@ -307,11 +312,6 @@ def run(quick: bool = False) -> dict:
                      f"{default['click_median_s'] * 1e3:.0f} ms, worst "
                      f"{default['click_max_s'] * 1e3:.0f} ms (load average before "
                      f"{default['load_before']:.2f})")
-    if spare is not None:
-        lines.append(f"  with {spare['jobs']} worker(s), leaving a core to the window: longest stall "
-                     f"{spare['stall_s'] * 1e3:.1f} ms, 99th percentile gap "
-                     f"{spare['p99_gap_s'] * 1e3:.1f} ms (load average before "
-                     f"{spare['load_before']:.2f})")
     figures = {
         "sort_rows": sort["rows"],
         "sort_median_s": sort["median_s"],
