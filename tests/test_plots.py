@@ -602,3 +602,31 @@ def test_every_panel_draws_its_grid_under_the_data_on_the_themes_background(qtbo
                     assert isinstance(ax, GridAxis), (cls.__name__, name)
                     assert ax.zValue() < item.getViewBox().zValue()
                     assert ax.background == QColor(theme.plot_bg), (cls.__name__, theme)
+
+
+def test_a_long_loss_name_is_shortened_inside_a_narrow_panel_and_whole_in_its_tooltip(qtbot):
+    """At 1280 x 800 the curves panel is about 380 pixels wide: the loss line beside the
+    title ends inside the panel with "…" (it was cut off at the edge), and says the loss
+    whole in its tooltip."""
+    from PySide6.QtCore import Qt
+    from PySide6.QtWidgets import QApplication
+
+    words = "half squared error, target scaled to [0, 1]"
+    panel = CurvesPanel()
+    qtbot.addWidget(panel)
+    panel.resize(380, 260)
+    panel.show()
+    s = _series(0, [0.5, 0.2, 0.1])
+    s["loss_words"] = words
+    panel.set_series([s])
+    QApplication.processEvents()
+    label = panel.loss_label
+    assert label.text() == f"Loss: {words}" and label.toolTip() == words
+    assert label.geometry().right() <= panel.contentsRect().right()
+    shown = label.fontMetrics().elidedText(label.text(), Qt.ElideRight,
+                                           label.contentsRect().width())
+    assert shown.endswith("…") and shown != label.text()  # (too narrow for it whole here)
+    panel.resize(900, 260)
+    QApplication.processEvents()
+    assert label.fontMetrics().elidedText(label.text(), Qt.ElideRight,
+                                          label.contentsRect().width()) == label.text()

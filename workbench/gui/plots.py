@@ -49,6 +49,7 @@ from PySide6.QtWidgets import (
 )
 
 from workbench.gui import theme as th
+from workbench.gui.widgets import ElidedLabel
 
 pg.setConfigOptions(antialias=True, background="w", foreground="k")
 
@@ -517,9 +518,10 @@ class CurvesPanel(_Panel):
         super().__init__("Learning curves",
                          "Select one or more rows of the results to see their learning curves.",
                          parent)
-        self.loss_label = QLabel("")
+        # shortened with "…" when the panel is narrow (the loss's words whole in its
+        # tooltip): a plain label was cut off at the panel's edge ("target scale")
+        self.loss_label = ElidedLabel("")
         self.loss_label.setObjectName("muted")
-        self.loss_label.setTextFormat(Qt.PlainText)
         self.kind_box = QComboBox()
         self.kind_box.setToolTip("The selected configurations' heads report different losses; "
                                  "pick the one to draw")
