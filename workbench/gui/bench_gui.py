@@ -161,11 +161,13 @@ def bench_collection(repeats: int = 3) -> dict:
 
 
 def bench_stall(quick: bool = False, timeout_s: float = 300.0, jobs: int | None = None,
-                default_plan: bool = False) -> dict:
+                default_plan: bool = False, collection: bool = False) -> dict:
     """Run a small sweep in the window and record the event loop's heartbeat gaps.
 
     With ``default_plan``, the sweep is the window's default plan for the table (what
-    ``workbench open FILE --run`` runs) instead of the small fixed one."""
+    ``workbench open FILE --run`` runs) instead of the small fixed one; with
+    ``collection``, a full garbage collection is timed after it (:func:`bench_collection`,
+    ``None`` otherwise)."""
     from PySide6.QtCore import QElapsedTimer, QEventLoop, QTimer
     from PySide6.QtWidgets import QApplication
 
@@ -233,7 +235,7 @@ def bench_stall(quick: bool = False, timeout_s: float = 300.0, jobs: int | None 
     seconds = time.perf_counter() - t0
     beat.stop()
     clicks = bench_clicks(win, app)
-    collection = bench_collection()
+    collected = bench_collection() if collection else None
     win.close()
     app.processEvents()
     trials = win.results_model.rows()
@@ -241,7 +243,7 @@ def bench_stall(quick: bool = False, timeout_s: float = 300.0, jobs: int | None 
     jobs_used = s.jobs_spin.value()
     return {**heartbeat_figures(gaps, cpu), "load_before": load_before, "jobs": jobs_used,
             "trials": n_trials, "seconds": seconds, "click_median_s": clicks["median_s"],
-            "click_max_s": clicks["max_s"], "clicks": clicks["n"], "collection": collection,
+            "click_max_s": clicks["max_s"], "clicks": clicks["n"], "collection": collected,
             "state": (summary[0] if summary else {}).get("state", "timeout")}
 
 
@@ -277,7 +279,7 @@ def run(quick: bool = False) -> dict:
     """
     os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
     sort = bench_sort(n=10_000, repeats=2 if quick else 3)
-    stall = bench_stall(quick=quick)
+    stall = bench_stall(quick=quick, collection=True)
     cores = os.cpu_count() or 1
     spare = bench_stall(quick=quick, jobs=cores - 1) if cores >= 2 and not quick else None
     default = None if quick else bench_stall(default_plan=True)
