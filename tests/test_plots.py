@@ -491,6 +491,19 @@ def test_the_curves_drawn_in_two_parts_show_what_one_draw_shows(qtbot):
     second()
     assert _drawn(two) == _drawn(one)
     assert two.loss_plot.toolTip() == one.loss_plot.toolTip() != ""
+    # and what both show is the selection itself: a solid loss line per configuration of
+    # the loss kind shown, a score line per configuration with held-out scores (a part
+    # that began or ended the other plot's items would leave extra ones or hide these)
+    series = _selection_a()
+    for panel in (one, two):
+        def visible(pool, plot):
+            return sum(1 for i in pool.items if i.isVisible() and i.parentItem() is not None
+                       and i.getViewBox() is plot.getPlotItem().getViewBox())
+
+        assert visible(panel._loss_lines, panel.loss_plot) == sum(
+            1 for s in series if s.get("loss") and s["loss_kind"] == panel._kind)
+        assert visible(panel._val_lines, panel.val_plot) == sum(
+            1 for s in series if s.get("test_score"))
 
 
 # --------------------------------------------------------------------------- grid lines
